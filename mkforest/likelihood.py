@@ -1,0 +1,272 @@
+"""Likelihood of a Markov model of trait change on a tree (Felsenstein 1981 pruning).
+
+The hot path is ``log_likelihood``: transition probabilities P(t) = exp(Qt) for
+every branch from one eigen-decomposition of Q, then one postorder loop
+compiled with numba. Partial likelihoods are rescaled by exact powers of two
+when they grow small, so trees of any size neither underflow nor lose digits.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+import scipy.linalg
+
+from .errors import InputError
+
+ROOTS = ("flat", "equilibrium", "conditional")
+
+# Rescale a partial likelihood vector when its largest entry drops below 2^-256;
+# scaling by a power of two is exact in floating point.
+_SCALE_EXP = 256
+_SCALE_LIMIT = 2.0 ** -_SCALE_EXP
+_LOG_SCALE = _SCALE_EXP * math.log(2.0)
+
+# Eigen-decomposition is used when V is well conditioned (error ~ cond(V) * 1e-16);
+# otherwise (defective or nearly defective Q) scipy's scaling-and-squaring expm.
+_MAX_EIGEN_CONDITION = 1e5
+
+
+@numba.njit(cache=True)
+def _p_from_eigen(lam, V, Vinv, t, out):
+    """out[b] = V diag(exp(lam t_b)) Vinv, real part; exact identity for t_b == 0."""
+    n = t.shape[0]
+    k = V.shape[0]
+    e = np.empty(k, dtype=lam.dtype)
+    for b in range(n):
+        if t[b] == 0.0:
+            for i in range(k):
+                for j in range(k):
+                    out[b, i, j] = 1.0 if i == j else 0.0
+            continue
+        for m in range(k):
+            e[m] = np.exp(lam[m] * t[b])
+        for i in range(k):
+            for j in range(k):
+                s = V[i, 0] * e[0] * Vinv[0, j]
+                for m in range(1, k):
+                    s += V[i, m] * e[m] * Vinv[m, j]
+                x = s.real
+                # round-off can leave -1e-17 where the probability is 0
+                out[b, i, j] = x if x > 0.0 else 0.0
+
+
+@numba.njit(cache=True)
+def _prune_eigen(child_ptr, children, n_tips, E, V, Vinv, tip_partials, partials, scale_count):
+    """Postorder pass with P(t) = V diag(E) Vinv applied as two small products per
+    branch (E[c] = exp(lam t_c)); real or complex eigensystems.
+
+    Fills partials [n_nodes, k] (scaled) and scale_count [n_nodes] (how many times
+    2^256 was factored out at or below each node). Returns False if the data are
+    impossible under the model (a partial vector is all zero)."""
+    n_nodes = partials.shape[0]
+    k = partials.shape[1]
+    y = np.empty(k, dtype=E.dtype)
+    for v in range(n_tips):
+        for i in range(k):
+            partials[v, i] = tip_partials[v, i]
+        scale_count[v] = 0
+    for v in range(n_tips, n_nodes):
+        for i in range(k):
+            partials[v, i] = 1.0
+        count = 0
+        for p in range(child_ptr[v], child_ptr[v + 1]):
+            c = children[p]
+            count += scale_count[c]
+            for m in range(k):
+                s = Vinv[m, 0] * partials[c, 0]
+                for j in range(1, k):
+                    s += Vinv[m, j] * partials[c, j]
+                y[m] = s * E[c, m]
+            for i in range(k):
+                s = V[i, 0] * y[0]
+                for m in range(1, k):
+                    s += V[i, m] * y[m]
+                x = s.real
+                # round-off can leave -1e-17 where the probability is 0
+                partials[v, i] *= x if x > 0.0 else 0.0
+        count += _rescale(partials, v, k)
+        if count < 0:
+            return False
+        scale_count[v] = count
+    return True
+
+
+@numba.njit(cache=True)
+def _prune_matrices(child_ptr, children, n_tips, P, tip_partials, partials, scale_count):
+    """The same pass with explicit transition matrices P [n_nodes, k, k]."""
+    n_nodes = partials.shape[0]
+    k = partials.shape[1]
+    for v in range(n_tips):
+        for i in range(k):
+            partials[v, i] = tip_partials[v, i]
+        scale_count[v] = 0
+    for v in range(n_tips, n_nodes):
+        for i in range(k):
+            partials[v, i] = 1.0
+        count = 0
+        for p in range(child_ptr[v], child_ptr[v + 1]):
+            c = children[p]
+            count += scale_count[c]
+            for i in range(k):
+                s = 0.0
+                for j in range(k):
+                    s += P[c, i, j] * partials[c, j]
+                partials[v, i] *= s
+        count += _rescale(partials, v, k)
+        if count < 0:
+            return False
+        scale_count[v] = count
+    return True
+
+
+@numba.njit(cache=True)
+def _rescale(partials, v, k):
+    """Multiply row v by 2^256 until its largest entry is >= 2^-256; returns how
+    many times, or a large negative number if the row is all zero."""
+    m = 0.0
+    for i in range(k):
+        if partials[v, i] > m:
+            m = partials[v, i]
+    if m == 0.0:
+        return -(1 << 40)
+    n = 0
+    while m < _SCALE_LIMIT:
+        for i in range(k):
+            partials[v, i] *= 2.0 ** _SCALE_EXP
+        m *= 2.0 ** _SCALE_EXP
+        n += 1
+    return n
+
+
+def check_rate_matrix(Q) -> np.ndarray:
+    Q = np.asarray(Q, dtype=np.float64)
+    off = Q - np.diag(np.diag(Q))
+    if Q.ndim != 2 or Q.shape[0] != Q.shape[1]:
+        raise ValueError(f"rate matrix must be square, got shape {Q.shape}")
+    if (off < 0).any() or not np.isfinite(Q).all():
+        raise ValueError("rate matrix has a negative or non-finite off-diagonal rate")
+    return Q
+
+
+def eigensystem(Q):
+    """(lam, V, Vinv) with Q = V diag(lam) Vinv, real when every eigenvalue is real;
+    None when V is ill-conditioned (defective or nearly defective Q)."""
+    lam, V = np.linalg.eig(Q)
+    try:
+        Vinv = np.linalg.inv(V)
+    except np.linalg.LinAlgError:
+        return None
+    if np.linalg.norm(V, 1) * np.linalg.norm(Vinv, 1) >= _MAX_EIGEN_CONDITION:
+        return None
+    if not lam.imag.any():
+        return lam.real.copy(), np.ascontiguousarray(V.real), np.ascontiguousarray(Vinv.real)
+    return lam, np.ascontiguousarray(V), np.ascontiguousarray(Vinv)
+
+
+def transition_matrices(Q, t) -> np.ndarray:
+    """P[b] = exp(Q t[b]) for every t[b] >= 0; float64 [len(t), k, k].
+
+    Right for every valid rate matrix: complex eigenvalues (non-reversible
+    cycles) via complex arithmetic, defective or ill-conditioned ones via
+    scaling-and-squaring (scipy.linalg.expm).
+    """
+    Q = check_rate_matrix(Q)
+    t = np.ascontiguousarray(t, dtype=np.float64)
+    out = np.empty((t.shape[0], Q.shape[0], Q.shape[0]))
+    es = eigensystem(Q)
+    if es is not None:
+        _p_from_eigen(*es, t, out)
+        return out
+    out[:] = scipy.linalg.expm(Q[None, :, :] * t[:, None, None])
+    np.maximum(out, 0.0, out=out)
+    zero = t == 0.0
+    if zero.any():
+        out[zero] = np.eye(Q.shape[0])
+    return out
+
+
+def stationary_distribution(Q) -> np.ndarray:
+    """pi with pi Q = 0 and sum(pi) = 1 (least squares; for a chain with several
+    closed classes this is the minimum-norm solution)."""
+    Q = np.asarray(Q, dtype=np.float64)
+    k = Q.shape[0]
+    A = np.vstack([Q.T, np.ones((1, k))])
+    b = np.zeros(k + 1)
+    b[-1] = 1.0
+    pi = np.linalg.lstsq(A, b, rcond=None)[0]
+    pi = np.maximum(pi, 0.0)
+    return pi / pi.sum()
+
+
+def root_weights(root, Q, root_partial, states=None) -> np.ndarray:
+    """Weights of each root state under a root treatment (sum to one)."""
+    k = Q.shape[0]
+    if root == "flat":
+        return np.full(k, 1.0 / k)
+    if root == "equilibrium":
+        return stationary_distribution(Q)
+    if root == "conditional":
+        # FitzJohn, Maddison & Otto (2009): weight each state by its own likelihood
+        total = root_partial.sum()
+        return root_partial / total if total > 0 else np.full(k, 1.0 / k)
+    w = np.zeros(k)
+    w[_root_state_index(root, states, k)] = 1.0
+    return w
+
+
+def _root_state_index(root, states, k) -> int:
+    if states is not None and root in states:
+        return list(states).index(root)
+    if isinstance(root, (int, np.integer)) and 0 <= root < k:
+        return int(root)
+    shown = f" or one of the states ({', '.join(states)})" if states is not None else ""
+    raise InputError(f"root treatment '{root}' is not known: use flat, equilibrium, conditional{shown}.")
+
+
+def prune(tree, tip_partials, Q):
+    """Conditional likelihoods at every node under rate matrix Q:
+    (partials [n_nodes, k], log_scale [n_nodes]).
+
+    The conditional likelihood of the data below node v, given its state, is
+    partials[v] * exp(log_scale[v]). Returns (None, None) when the data are
+    impossible under the model.
+    """
+    Q = np.asarray(Q, dtype=np.float64)
+    tip_partials = np.ascontiguousarray(tip_partials, dtype=np.float64)
+    n = tree.n_nodes
+    partials = np.empty((n, Q.shape[0]))
+    count = np.empty(n, dtype=np.int64)
+    es = eigensystem(Q)
+    if es is not None:
+        lam, V, Vinv = es
+        E = np.exp(np.multiply.outer(tree.length, lam))
+        ok = _prune_eigen(tree.child_ptr, tree.children, tree.n_tips, E, V, Vinv,
+                          tip_partials, partials, count)
+    else:
+        P = transition_matrices(Q, tree.length)
+        ok = _prune_matrices(tree.child_ptr, tree.children, tree.n_tips, P,
+                             tip_partials, partials, count)
+    if not ok:
+        return None, None
+    return partials, -count * _LOG_SCALE
+
+
+def log_likelihood(tree, tip_partials, Q, root="flat", states=None) -> float:
+    """ln L of the tip data on the tree under rate matrix Q and a root treatment.
+
+    root: "flat" (each state 1/k), "equilibrium" (stationary distribution of Q),
+    "conditional" (ln sum_i L_i^2 / sum_i L_i; FitzJohn et al. 2009), or a state
+    label (with ``states``) / index fixing the root state.
+    """
+    partials, log_scale = prune(tree, tip_partials, Q)
+    if partials is None:
+        return -np.inf
+    r = partials[tree.root]
+    w = root_weights(root, np.asarray(Q), r, states)
+    total = float(w @ r)
+    if total <= 0.0:
+        return -np.inf
+    return math.log(total) + float(log_scale[tree.root])

@@ -1,0 +1,169 @@
+"""Rate-matrix structures of the Mk model (Lewis 2001) and its constrained forms.
+
+A model is a k x k table saying, for every transition i -> j, whether its rate is
+a free parameter (and which), fixed at a number, or forbidden (zero). The rate
+matrix Q has those rates off the diagonal and minus the row sum on it, so each
+row of Q sums to zero.
+
+Built-in kinds:
+  equal          one rate for every transition
+  symmetric      i -> j and j -> i share a rate
+  all_different  every transition its own rate
+  custom         transitions listed by state labels, e.g.
+                   "small -> medium": grow        (one transition, rate label 'grow')
+                   "medium <-> large": swap       (both directions, one rate)
+                   "small -> medium -> large": up (a chain: ordered change)
+                   "large -> small": 0.0          (a number fixes the rate)
+                 the same label ties rates; unlisted transitions are forbidden.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from numbers import Number
+
+import numpy as np
+
+from .errors import InputError
+
+KINDS = ("equal", "symmetric", "all_different", "custom")
+FREE_FORBIDDEN = -1
+FIXED = -2
+
+
+@dataclass(frozen=True, eq=False)
+class RateModel:
+    """rate_index int64 [k,k]: >= 0 parameter number, -1 forbidden, -2 fixed (value in ``fixed``)."""
+
+    name: str
+    kind: str
+    states: tuple
+    rate_index: np.ndarray
+    fixed: np.ndarray
+    labels: tuple
+
+    @property
+    def k(self) -> int:
+        return len(self.states)
+
+    @property
+    def n_params(self) -> int:
+        return len(self.labels)
+
+    def q_matrix(self, rates) -> np.ndarray:
+        """Q with the given free rates (in ``labels`` order); rows sum to zero."""
+        rates = np.asarray(rates, dtype=np.float64)
+        idx = self.rate_index
+        q = np.where(idx >= 0, rates[np.maximum(idx, 0)] if rates.size else 0.0, 0.0)
+        q = np.where(idx == FIXED, self.fixed, q)
+        np.fill_diagonal(q, 0.0)
+        np.fill_diagonal(q, -q.sum(axis=1))
+        return q
+
+    def transitions(self):
+        """(from_label, to_label, parameter index or -1/-2) for every allowed transition."""
+        out = []
+        for i in range(self.k):
+            for j in range(self.k):
+                if i != j and self.rate_index[i, j] != FREE_FORBIDDEN:
+                    out.append((self.states[i], self.states[j], int(self.rate_index[i, j])))
+        return out
+
+    def describe(self) -> str:
+        """One line per free rate: which transitions it governs."""
+        groups = {lab: [] for lab in self.labels}
+        fixed = []
+        for a, b, p in self.transitions():
+            if p >= 0:
+                groups[self.labels[p]].append(f"{a}->{b}")
+            else:
+                fixed.append(f"{a}->{b}={self.fixed[self.states.index(a), self.states.index(b)]:g}")
+        parts = [f"{lab}: {', '.join(tr)}" for lab, tr in groups.items()]
+        if fixed:
+            parts.append("fixed: " + ", ".join(fixed))
+        return "; ".join(parts)
+
+
+def _empty(k):
+    idx = np.full((k, k), FREE_FORBIDDEN, dtype=np.int64)
+    return idx, np.zeros((k, k))
+
+
+_ARROW = re.compile(r"\s*(<->|->)\s*")
+
+
+def parse_transition(key: str, states, where: str) -> list:
+    """'a -> b -> c' / 'a <-> b' into a list of (i, j) index pairs."""
+    pieces = _ARROW.split(str(key).strip())
+    if len(pieces) < 3 or len(pieces) % 2 == 0:
+        raise InputError(f"{where}: transition '{key}' is not of the form 'from -> to' "
+                         "(or 'a <-> b', or a chain 'a -> b -> c').")
+    names = pieces[0::2]
+    arrows = pieces[1::2]
+    index = {s: i for i, s in enumerate(states)}
+    for n in names:
+        if n not in index:
+            raise InputError(f"{where}: transition '{key}' names state '{n}', which this trait "
+                             f"does not have (its states: {', '.join(states)}).")
+    pairs = []
+    for a, arrow, b in zip(names[:-1], arrows, names[1:]):
+        if a == b:
+            raise InputError(f"{where}: transition '{key}' goes from '{a}' to itself.")
+        pairs.append((index[a], index[b]))
+        if arrow == "<->":
+            pairs.append((index[b], index[a]))
+    return pairs
+
+
+def build_model(kind: str, states, transitions=None, name: str | None = None) -> RateModel:
+    """Build a model of the given kind on these state labels (see the module docstring)."""
+    states = tuple(str(s) for s in states)
+    k = len(states)
+    name = name or kind
+    where = f"model '{name}'"
+    if k < 2:
+        raise InputError(f"{where}: a model needs at least two states, got {list(states)}.")
+    if kind not in KINDS:
+        raise InputError(f"{where}: unknown kind '{kind}'; choose one of {', '.join(KINDS)}.")
+    idx, fixed = _empty(k)
+    labels: list = []
+    if kind == "equal":
+        idx[:] = 0
+        labels = ["rate"]
+    elif kind == "symmetric":
+        for i in range(k):
+            for j in range(i + 1, k):
+                idx[i, j] = idx[j, i] = len(labels)
+                labels.append(f"{states[i]}<->{states[j]}")
+    elif kind == "all_different":
+        for i in range(k):
+            for j in range(k):
+                if i != j:
+                    idx[i, j] = len(labels)
+                    labels.append(f"{states[i]}->{states[j]}")
+    else:
+        if not transitions:
+            raise InputError(f"{where}: a custom model needs 'transitions' (e.g. 'a -> b: gain').")
+        seen = {}
+        for key, value in dict(transitions).items():
+            for i, j in parse_transition(key, states, where):
+                if (i, j) in seen:
+                    raise InputError(f"{where}: transition {states[i]}->{states[j]} is listed twice "
+                                     f"('{seen[(i, j)]}' and '{key}').")
+                seen[(i, j)] = key
+                if isinstance(value, Number) and not isinstance(value, bool):
+                    if not np.isfinite(value) or value < 0:
+                        raise InputError(f"{where}: transition '{key}' is fixed at {value}; a fixed "
+                                         "rate must be zero or positive.")
+                    idx[i, j] = FIXED
+                    fixed[i, j] = float(value)
+                else:
+                    label = str(value).strip()
+                    if not label:
+                        raise InputError(f"{where}: transition '{key}' needs a rate label or a number.")
+                    if label not in labels:
+                        labels.append(label)
+                    idx[i, j] = labels.index(label)
+    np.fill_diagonal(idx, FREE_FORBIDDEN)
+    return RateModel(name, kind, states, idx, fixed, tuple(labels))

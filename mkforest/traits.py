@@ -1,0 +1,199 @@
+"""Trait tables: states coded by their labels, with missing and ambiguous values.
+
+A tip's data is the set of states it may be in: one state when observed, several
+when ambiguous or polymorphic (``red|blue``), all of them when missing.
+"""
+
+from __future__ import annotations
+
+import csv
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+
+DEFAULT_MISSING = ("?", "NA", "-", "")
+
+
+@dataclass(eq=False)
+class Trait:
+    """One categorical trait.
+
+    possible  bool [n_taxa, k]: True where the taxon may be in that state
+              (a row of all True is missing data).
+    """
+
+    name: str
+    states: tuple
+    taxa: tuple
+    possible: np.ndarray
+
+    @property
+    def k(self) -> int:
+        return len(self.states)
+
+    def observed_mask(self) -> np.ndarray:
+        """Taxa with data: at least one state excluded."""
+        return ~self.possible.all(axis=1)
+
+    @property
+    def n_observed(self) -> int:
+        return int(self.observed_mask().sum())
+
+    def state_counts(self) -> dict:
+        """Taxa known to be in exactly one state, per state label."""
+        single = self.possible.sum(axis=1) == 1
+        return {s: int((self.possible[:, i] & single).sum()) for i, s in enumerate(self.states)}
+
+    def n_ambiguous(self) -> int:
+        n = self.possible.sum(axis=1)
+        return int(((n > 1) & (n < self.k)).sum())
+
+    def observed_states(self) -> list:
+        """States that at least one taxon is known to be in."""
+        counts = self.state_counts()
+        return [s for s in self.states if counts[s] > 0]
+
+    def tip_partials(self, tree, absent: str = "error") -> np.ndarray:
+        """float64 [tree.n_tips, k]: 1.0 where the tip may be in the state, in tree tip order.
+
+        absent: what to do with a tree tip missing from the table: "error", or
+        "missing" to treat it as unknown.
+        """
+        row = {t: i for i, t in enumerate(self.taxa)}
+        out = np.ones((tree.n_tips, self.k))
+        lacking = []
+        for v, label in enumerate(tree.tip_labels):
+            i = row.get(label)
+            if i is None:
+                lacking.append(label)
+                continue
+            out[v] = self.possible[i]
+        if lacking and absent == "error":
+            shown = ", ".join(f"'{x}'" for x in lacking[:5])
+            more = f" and {len(lacking) - 5} more" if len(lacking) > 5 else ""
+            raise InputError(
+                f"trait '{self.name}': taxon {shown}{more} is in tree {tree.index + 1} but not in "
+                "the trait table. Add a row with '?' for unknown values, or remove the taxon from "
+                "the trees.")
+        return out
+
+
+def _split(value: str, separator: str) -> list:
+    return [p.strip() for p in value.split(separator)] if separator else [value]
+
+
+def code_trait(name: str, values: dict, states=None, missing=DEFAULT_MISSING, separator="|",
+               source: str = "", rows: dict | None = None) -> Trait:
+    """Code a mapping taxon -> cell text.
+
+    states: the state labels in the user's order; None sorts the observed labels.
+    rows: optional taxon -> line number, for error messages.
+    """
+    missing = set(missing)
+    where = f"{source}: " if source else ""
+    cells = {}
+    seen = set()
+    for taxon, raw in values.items():
+        text = "" if raw is None else str(raw).strip()
+        if text in missing:
+            cells[taxon] = None
+            continue
+        parts = _split(text, separator)
+        if any(p in missing for p in parts):
+            at = f" (line {rows[taxon]})" if rows and taxon in rows else ""
+            raise InputError(f"{where}trait '{name}', taxon '{taxon}'{at}: value '{text}' mixes a "
+                             "missing code with states; write only the possible states, or only the missing code.")
+        cells[taxon] = parts
+        seen.update(parts)
+    if states is None:
+        states = sorted(seen)
+    else:
+        states = [str(s) for s in states]
+        if len(set(states)) != len(states):
+            raise InputError(f"{where}trait '{name}': the state order lists a state twice: {states}")
+        unknown = sorted(seen - set(states))
+        if unknown:
+            taxon = next(t for t, p in cells.items() if p and set(p) & set(unknown))
+            at = f" (line {rows[taxon]})" if rows and taxon in rows else ""
+            raise InputError(
+                f"{where}trait '{name}', taxon '{taxon}'{at}: state '{unknown[0]}' is not in the "
+                f"state order given for this trait ({', '.join(states)}). Add it to the order or fix the cell.")
+    index = {s: i for i, s in enumerate(states)}
+    taxa = tuple(values)
+    possible = np.zeros((len(taxa), len(states)), dtype=bool)
+    for r, taxon in enumerate(taxa):
+        parts = cells[taxon]
+        if parts is None:
+            possible[r] = True
+        else:
+            possible[r, [index[p] for p in parts]] = True
+    return Trait(name, tuple(states), taxa, possible)
+
+
+def trait_from_mapping(name: str, values: dict, states=None, missing=DEFAULT_MISSING,
+                       separator="|") -> Trait:
+    """Convenience for tests and notebooks: ``{"taxon": "red|blue", ...}``."""
+    return code_trait(name, values, states, missing, separator)
+
+
+def read_traits(path, taxon_column: str, columns=None, missing=DEFAULT_MISSING, separator="|",
+                state_order: dict | None = None) -> dict:
+    """Read a CSV or TSV trait table (the delimiter is detected from the header line).
+
+    Returns {trait name: Trait} for ``columns`` (all columns but the taxon column when None).
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"trait table '{path}' does not exist.")
+    with open(path, newline="", encoding="utf-8-sig") as fh:
+        header_line = fh.readline()
+        if not header_line.strip():
+            raise InputError(f"trait table '{path}' is empty; line 1 must name the columns.")
+        delimiter = "\t" if header_line.count("\t") >= max(1, header_line.count(",")) else ","
+        fh.seek(0)
+        reader = csv.reader(fh, delimiter=delimiter)
+        header = [h.strip() for h in next(reader)]
+        if taxon_column not in header:
+            raise InputError(f"trait table '{path}', line 1: no column '{taxon_column}' (the taxon "
+                             f"column named in the config); columns are: {', '.join(header)}.")
+        if columns is None:
+            columns = [h for h in header if h != taxon_column]
+        for c in columns:
+            if c not in header:
+                raise InputError(f"trait table '{path}', line 1: no column '{c}' (a trait named in "
+                                 f"the config); columns are: {', '.join(header)}.")
+        ti = header.index(taxon_column)
+        table = {c: {} for c in columns}
+        rows = {}
+        for lineno, row in enumerate(reader, start=2):
+            if not row or all(not x.strip() for x in row):
+                continue
+            if len(row) != len(header):
+                raise InputError(f"trait table '{path}', line {lineno}: {len(row)} fields where the "
+                                 f"header has {len(header)}.")
+            taxon = row[ti].strip()
+            if not taxon:
+                raise InputError(f"trait table '{path}', line {lineno}: the taxon cell is empty.")
+            if taxon in rows:
+                raise InputError(f"trait table '{path}', line {lineno}: taxon '{taxon}' already "
+                                 f"appears on line {rows[taxon]}; each taxon needs one row.")
+            rows[taxon] = lineno
+            for c in columns:
+                table[c][taxon] = row[header.index(c)]
+    if not rows:
+        raise InputError(f"trait table '{path}' has a header but no rows.")
+    state_order = state_order or {}
+    return {c: code_trait(c, table[c], state_order.get(c), missing, separator,
+                          f"trait table '{path}'", rows) for c in columns}
+
+
+def check_variable(trait: Trait) -> None:
+    """Raise InputError when a trait has fewer than two observed states (nothing to fit)."""
+    obs = trait.observed_states()
+    if len(obs) < 2:
+        which = f"only state '{obs[0]}'" if obs else "no observed state"
+        raise InputError(f"trait '{trait.name}' has {which} among its taxa; a model of change needs "
+                         "at least two observed states. Drop it from traits.columns.")

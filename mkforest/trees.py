@@ -1,0 +1,253 @@
+"""Trees as compact arrays.
+
+Trees are read once with DendroPy and turned into plain arrays; the likelihood
+kernel never walks DendroPy objects.
+
+Node numbering (the one convention everything relies on): tips are nodes
+``0 .. n_tips-1`` in ``tip_labels`` order; internal nodes follow in postorder,
+so every child has a smaller index than its parent and the root is the last
+node. Looping ``v = 0 .. n_nodes-1`` is a postorder; the reverse is a preorder.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import dendropy
+import numpy as np
+
+from .errors import InputError
+
+
+@dataclass(frozen=True, eq=False)
+class TreeArrays:
+    """One rooted tree.
+
+    parent    int64 [n_nodes]    parent of each node; -1 at the root
+    length    float64 [n_nodes]  length of the branch above each node; 0 at the root
+    child_ptr int64 [n_nodes+1]  children of v are children[child_ptr[v]:child_ptr[v+1]]
+    children  int64 [n_nodes-1]
+    index     position of the tree in its input file (0-based, before burn-in)
+    """
+
+    tip_labels: tuple
+    parent: np.ndarray
+    length: np.ndarray
+    child_ptr: np.ndarray
+    children: np.ndarray
+    index: int = 0
+    _cache: dict = field(default_factory=dict, repr=False, compare=False)
+
+    @property
+    def n_tips(self) -> int:
+        return len(self.tip_labels)
+
+    @property
+    def n_nodes(self) -> int:
+        return len(self.parent)
+
+    @property
+    def root(self) -> int:
+        return self.n_nodes - 1
+
+    def children_of(self, v: int) -> np.ndarray:
+        return self.children[self.child_ptr[v]:self.child_ptr[v + 1]]
+
+    def depths(self) -> np.ndarray:
+        """Distance from the root to every node."""
+        if "depths" not in self._cache:
+            depth = np.zeros(self.n_nodes)
+            for v in range(self.n_nodes - 2, -1, -1):
+                depth[v] = depth[self.parent[v]] + self.length[v]
+            self._cache["depths"] = depth
+        return self._cache["depths"]
+
+    @property
+    def height(self) -> float:
+        """Largest root-to-tip distance."""
+        return float(self.depths()[: self.n_tips].max())
+
+    @property
+    def total_length(self) -> float:
+        return float(self.length.sum())
+
+    def tip_sets(self) -> list:
+        """For every node, the frozenset of tip labels below it."""
+        sets: list = [None] * self.n_nodes
+        for v in range(self.n_tips):
+            sets[v] = frozenset([self.tip_labels[v]])
+        for v in range(self.n_tips, self.n_nodes):
+            sets[v] = frozenset().union(*(sets[c] for c in self.children_of(v)))
+        return sets
+
+    def node_name(self, v: int) -> str:
+        """A name a person can find in the tree: the tip label, or the tips it joins."""
+        if v < self.n_tips:
+            return f"tip '{self.tip_labels[v]}'"
+        below = sorted(self.tip_sets()[v])
+        return f"the ancestor of '{below[0]}' and '{below[-1]}'"
+
+    def scaled(self, factor: float) -> "TreeArrays":
+        return TreeArrays(self.tip_labels, self.parent, self.length * factor,
+                          self.child_ptr, self.children, self.index)
+
+
+def _build(tip_labels, parent_of, length_of, index) -> TreeArrays:
+    parent = np.asarray(parent_of, dtype=np.int64)
+    n = len(parent)
+    counts = np.bincount(parent[parent >= 0], minlength=n)
+    child_ptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(counts, out=child_ptr[1:])
+    children = np.empty(n - 1, dtype=np.int64)
+    fill = child_ptr[:-1].copy()
+    for v in range(n - 1):
+        p = parent[v]
+        children[fill[p]] = v
+        fill[p] += 1
+    return TreeArrays(tuple(tip_labels), parent, np.asarray(length_of, dtype=np.float64),
+                      child_ptr, children, index)
+
+
+def _describe(node) -> str:
+    if node.is_leaf():
+        return f"tip '{node.taxon.label if node.taxon else '?'}'"
+    leaves = [lf.taxon.label for lf in node.leaf_iter() if lf.taxon is not None]
+    if not leaves:
+        return "an unlabelled internal node"
+    leaves.sort()
+    return f"the ancestor of '{leaves[0]}' and '{leaves[-1]}'"
+
+
+def from_dendropy(tree, index: int = 0, source: str = "tree") -> TreeArrays:
+    """Convert one DendroPy tree, checking what the likelihood needs."""
+    where = f"{source}, tree {index + 1}"
+    root = tree.seed_node
+    if len(root.child_nodes()) > 2 and tree.is_rooted is not True:
+        raise InputError(
+            f"{where}: the tree is unrooted (its base splits {len(root.child_nodes())} ways). "
+            "Trait models need a rooted tree: root it on an outgroup or at its midpoint "
+            "(e.g. DendroPy's Tree.reroot_at_midpoint) and write it again; if the basal "
+            "polytomy is intended, mark the tree as rooted with a [&R] comment before it.")
+    nodes = list(tree.postorder_node_iter())
+    tips = [nd for nd in nodes if nd.is_leaf()]
+    internals = [nd for nd in nodes if not nd.is_leaf()]
+    if len(tips) < 2:
+        raise InputError(f"{where}: the tree has fewer than two tips.")
+    number = {}
+    labels = []
+    for i, nd in enumerate(tips):
+        if nd.taxon is None or not nd.taxon.label:
+            raise InputError(f"{where}: a tip has no label; every tip needs a taxon name.")
+        number[nd] = i
+        labels.append(nd.taxon.label)
+    for i, nd in enumerate(internals):
+        number[nd] = len(tips) + i
+    seen = set()
+    for lab in labels:
+        if lab in seen:
+            raise InputError(f"{where}: tip '{lab}' appears more than once; tip labels must be unique.")
+        seen.add(lab)
+    n = len(nodes)
+    parent = np.full(n, -1, dtype=np.int64)
+    length = np.zeros(n)
+    for nd in nodes:
+        v = number[nd]
+        if nd is root:
+            continue
+        parent[v] = number[nd.parent_node]
+        if nd.edge.length is None:
+            raise InputError(
+                f"{where}: the branch above {_describe(nd)} has no length. Every branch needs "
+                "a length (use a time-calibrated or otherwise dated tree).")
+        bl = float(nd.edge.length)
+        if not np.isfinite(bl) or bl < 0:
+            raise InputError(
+                f"{where}: the branch above {_describe(nd)} has length {bl}; lengths must be "
+                "zero or positive.")
+        length[v] = bl
+    return _build(labels, parent, length, index)
+
+
+def _detect_schema(text: str) -> str:
+    return "nexus" if text.lstrip().upper().startswith("#NEXUS") else "newick"
+
+
+def read_trees(path, schema: str | None = None) -> list:
+    """Read every tree in a Newick or NEXUS file (TRANSLATE tables, [&R]/[&U] and quoted labels handled)."""
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"tree file '{path}' does not exist.")
+    text = path.read_text()
+    schema = schema or _detect_schema(text)
+    if not text.strip():
+        raise InputError(f"tree file '{path}' is empty.")
+    try:
+        trees = dendropy.TreeList.get(data=text, schema=schema, preserve_underscores=True)
+    except Exception as exc:  # DendroPy raises several types; all mean a malformed file
+        line = getattr(exc, "line_num", None)
+        at = f", line {line}" if line else ""
+        msg = getattr(exc, "message", None) or str(exc).splitlines()[0]
+        raise InputError(f"tree file '{path}'{at}: cannot be read as {schema.upper()}: {msg}") from None
+    if len(trees) == 0:
+        raise InputError(f"tree file '{path}' holds no trees.")
+    return [from_dendropy(t, i, f"tree file '{path}'") for i, t in enumerate(trees)]
+
+
+def parse_newick(text: str, index: int = 0) -> TreeArrays:
+    """One tree from a Newick string."""
+    try:
+        tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True)
+    except Exception as exc:
+        raise InputError(f"Newick string cannot be read: {str(exc).splitlines()[0]}") from None
+    return from_dendropy(tree, index, "Newick string")
+
+
+def _quote(label: str) -> str:
+    if any(c in label for c in " ()[]':;,\t"):
+        return "'" + label.replace("'", "''") + "'"
+    return label
+
+
+def to_newick(tree: TreeArrays, digits: int = 10) -> str:
+    """Newick text of a tree (lengths with ``digits`` significant digits)."""
+    parts: list = [None] * tree.n_nodes
+    for v in range(tree.n_nodes):
+        if v < tree.n_tips:
+            s = _quote(tree.tip_labels[v])
+        else:
+            s = "(" + ",".join(parts[c] for c in tree.children_of(v)) + ")"
+        if v != tree.root:
+            s += f":{tree.length[v]:.{digits}g}"
+        parts[v] = s
+    return parts[tree.root] + ";"
+
+
+# --- chunks of trees on disk -------------------------------------------------
+
+def save_trees(path, trees: list) -> None:
+    """Write trees to one .npz file (arrays concatenated, with offsets)."""
+    n_nodes = np.array([t.n_nodes for t in trees], dtype=np.int64)
+    labels = json.dumps([list(t.tip_labels) for t in trees])
+    buf = io.BytesIO()
+    np.savez(buf, n_nodes=n_nodes,
+             index=np.array([t.index for t in trees], dtype=np.int64),
+             parent=np.concatenate([t.parent for t in trees]),
+             length=np.concatenate([t.length for t in trees]),
+             labels=np.array(labels))
+    Path(path).write_bytes(buf.getvalue())
+
+
+def load_trees(path) -> list:
+    with np.load(path) as data:
+        labels = json.loads(str(data["labels"]))
+        out = []
+        start = 0
+        for k, n in enumerate(data["n_nodes"]):
+            parent = data["parent"][start:start + n]
+            length = data["length"][start:start + n]
+            out.append(_build(labels[k], parent, length, int(data["index"][k])))
+            start += n
+    return out

@@ -6,7 +6,14 @@ failing case is reproduced by its seed alone.
 
 from __future__ import annotations
 
+import os
 import sys
+
+# The tests work on tiny matrices (k <= 8); BLAS worker threads only add contention
+# (measured: scipy.linalg.expm of a 3x3 matrix took 20 ms with threads on a loaded
+# 2-core machine, 0.03 ms with one). Must be set before numpy is imported.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 from pathlib import Path
 
 import numpy as np

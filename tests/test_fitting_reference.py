@@ -262,3 +262,40 @@ def test_simulation_respects_zero_length_and_absorbing_states():
             if tree.length[v] == 0:
                 assert s[v] == s[p]
             assert s[v] >= s[p]  # irreversible chain: never goes back
+
+
+# --------------------------------------------------------------------------- rates at a bound
+
+@pytest.mark.parametrize("seed", range(8))
+def test_rate_whose_maximum_is_at_zero_is_flagged(seed):
+    """If moving a fitted rate down to the lower bound of the search (1e-6 changes per
+    tree height, fitting.LOWER / height) *raises* ln L (reference pruning, others held),
+    the maximum lies at the bound: the fit must list that rate in ``at_lower`` so a
+    reader does not take a near-zero estimate for a measured one (project rule:
+    rates at a bound are said plainly). Also the fit must be a maximum to 1e-6.
+    No outside value: a property of the maximum on a box."""
+    from mkforest.fitting import LOWER
+
+    states = ["u", "v", "w"]
+    Q = q_from_rates([[0, 1.0, 0.4], [0.7, 0, 1.2], [0.3, 0.9, 0]])
+    rng = np.random.default_rng(seed)
+    newick = random_newick(rng, 60, p_polytomy=0.1, p_zero=0.05, mean_length=0.3)
+    ref_tree = ref_tree_from_newick(newick)
+    cells = tip_data_mapping(rng, ref_tree, Q, states, p_missing=0.1, p_ambiguous=0.1)
+    tree = parse_newick(newick)
+    model = build_model("all_different", states)
+    fit = fit_model(tree, partials_from_cells(cells, tree.tip_labels, states), model, seed=3)
+    ref_partials = partials_from_cells(cells, ref_tree.tip_labels, states)
+    problems = []
+    for i, label in enumerate(model.labels):
+        rates = fit.rates.copy()
+        rates[i] = LOWER / tree.height
+        Q_bound = model.q_matrix(rates)  # q_matrix is checked against the kind's definition elsewhere
+        gain = pruning_log_likelihood(ref_tree, ref_partials, Q_bound, "flat", states) \
+            - fit.log_likelihood
+        if gain > 1e-6:
+            problems.append(f"{label}: fit {fit.rates[i]:.3g} is not a maximum (ln L +{gain:.2e} at the bound)")
+        if gain > 1e-9 and label not in fit.at_lower:
+            problems.append(f"{label}: fitted {fit.rates[i]:.3g}, ln L rises by {gain:.2e} at the "
+                            f"bound, but at_lower = {fit.at_lower}")
+    assert not problems, "\n".join(problems)

@@ -17,7 +17,6 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 from pathlib import Path
 
 import numpy as np
-import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
@@ -214,8 +213,3 @@ def random_case(seed, n_min=3, n_max=7):
     cells = tip_data_mapping(rng, ref_tree, Q, list(model.states))
     return dict(seed=seed, model=model, rates=rates, Q=np.asarray(Q, dtype=float),
                 newick=newick, ref_tree=ref_tree, cells=cells, states=list(model.states))
-
-
-@pytest.fixture
-def rng():
-    return np.random.default_rng(20240601)

@@ -212,7 +212,7 @@ def brute_force_branch_joint(tree, partials, Q):
     pytest.param(3, 2, ("flat", "equilibrium"), 4, marks=pytest.mark.slow),
 ])
 def test_large_tree_against_pendant_tip_reference(k, seed, roots, n_nodes_checked):
-    """1,000 tips (the likelihood underflows, ~1e-400, without rescaling): the marginal at a
+    """1,000 tips (ln L is about -870: the likelihood underflows without rescaling): the marginal at a
     node equals L(data + a zero-length pendant tip fixed in state i) / sum over i, each
     computed by the plain log-space reference pruning of tests/reference.py
     (P(0) = I, fact of the trade; pruning: Felsenstein 1981, published source)."""

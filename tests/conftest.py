@@ -14,9 +14,10 @@ import sys
 # 2-core machine, 0.03 ms with one). Must be set before numpy is imported.
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")
-from pathlib import Path
 
-import numpy as np
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
@@ -51,8 +52,7 @@ def random_newick(rng, n_tips, p_polytomy=0.3, p_zero=0.15, mean_length=0.4, pre
         m = 2
         if rng.random() < p_polytomy:
             m = int(rng.integers(3, 5))
-        m = min(m, len(pool) - 1) if len(pool) > 2 else 2
-        m = max(m, 2)
+        m = max(2, min(m, len(pool) - 1))  # leave at least two subtrees for the root
         picked = sorted(rng.choice(len(pool), size=m, replace=False), reverse=True)
         v = new_node()
         for i in picked:
@@ -90,7 +90,8 @@ def yule_arrays(rng, n_tips, height=1.0):
         end[v] = t_end
     # renumber: tips first
     tips = sorted(active)
-    inner = [v for v in range(len(parent)) if v not in set(active)]
+    tip_set = set(active)
+    inner = [v for v in range(len(parent)) if v not in tip_set]
     new = {v: i for i, v in enumerate(tips + inner)}
     n = len(parent)
     par = np.full(n, -1, dtype=np.int64)

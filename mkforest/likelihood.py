@@ -159,7 +159,7 @@ def eigensystem(Q):
         Vinv = np.linalg.inv(V)
     except np.linalg.LinAlgError:
         return None
-    if np.linalg.norm(V, 1) * np.linalg.norm(Vinv, 1) >= _MAX_EIGEN_CONDITION:
+    if np.abs(V).sum(axis=0).max() * np.abs(Vinv).sum(axis=0).max() >= _MAX_EIGEN_CONDITION:
         return None
     if not lam.imag.any():
         return lam.real.copy(), np.ascontiguousarray(V.real), np.ascontiguousarray(Vinv.real)

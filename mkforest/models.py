@@ -53,12 +53,15 @@ class RateModel:
 
     def q_matrix(self, rates) -> np.ndarray:
         """Q with the given free rates (in ``labels`` order); rows sum to zero."""
-        rates = np.asarray(rates, dtype=np.float64)
-        idx = self.rate_index
-        q = np.where(idx >= 0, rates[np.maximum(idx, 0)] if rates.size else 0.0, 0.0)
-        q = np.where(idx == FIXED, self.fixed, q)
-        np.fill_diagonal(q, 0.0)
-        np.fill_diagonal(q, -q.sum(axis=1))
+        if "_free" not in self.__dict__:
+            flat = self.rate_index.ravel()
+            base = np.where(self.rate_index == FIXED, self.fixed, 0.0)
+            np.fill_diagonal(base, 0.0)
+            object.__setattr__(self, "_free", (np.flatnonzero(flat >= 0), flat[flat >= 0], base))
+        pos, par, base = self._free
+        q = base.copy()
+        q.ravel()[pos] = np.asarray(rates, dtype=np.float64)[par]
+        q.ravel()[:: self.k + 1] = -q.sum(axis=1)
         return q
 
     def transitions(self):

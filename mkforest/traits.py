@@ -197,3 +197,15 @@ def check_variable(trait: Trait) -> None:
         which = f"only state '{obs[0]}'" if obs else "no observed state"
         raise InputError(f"trait '{trait.name}' has {which} among its taxa; a model of change needs "
                          "at least two observed states. Drop it from traits.columns.")
+
+
+def traits_to_json(traits: dict) -> dict:
+    """Plain data for prepared/traits.json."""
+    return {name: {"states": list(t.states), "taxa": list(t.taxa),
+                   "possible": t.possible.astype(int).tolist()} for name, t in traits.items()}
+
+
+def traits_from_json(data: dict) -> dict:
+    return {name: Trait(name, tuple(d["states"]), tuple(d["taxa"]),
+                        np.array(d["possible"], dtype=bool).reshape(len(d["taxa"]), len(d["states"])))
+            for name, d in data.items()}

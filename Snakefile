@@ -1,0 +1,28 @@
+# mkforest: Markov models of categorical trait evolution over a sample of trees.
+# Edit config/config.yaml (or pass --configfile) and run: snakemake --profile profiles/laptop
+import sys
+
+from snakemake.utils import min_version
+
+min_version("9.0")
+
+sys.path.insert(0, workflow.basedir)
+
+
+configfile: "config/config.yaml"
+
+
+report: "workflow/report/workflow.rst"
+
+
+include: "workflow/rules/common.smk"
+include: "workflow/rules/prepare.smk"
+include: "workflow/rules/fit.smk"
+include: "workflow/rules/aggregate.smk"
+include: "workflow/rules/plots.smk"
+
+
+rule all:
+    input:
+        all_targets,
+    default_target: True

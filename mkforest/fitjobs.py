@@ -1,0 +1,80 @@
+"""One fit job: one analysis x one model x a chunk of trees -> tidy rows."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .compare import information_criteria
+from .errors import InputError
+from .fitting import fit_model
+from .models import build_model
+from .seeds import derive_seed
+
+FIT_COLUMNS = ["analysis", "model", "tree", "n_taxa", "n_params", "log_likelihood", "aic", "aicc",
+               "bic", "converged", "n_starts", "n_agree", "at_lower", "at_upper", "root", "note"]
+RATE_COLUMNS = ["analysis", "model", "tree", "from_state", "to_state", "rate", "parameter",
+                "at_bound"]
+
+
+def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
+    """(Trait to fit, {model name: (RateModel, root)}) for a trait or a pair analysis."""
+    if analysis in config["traits"]["columns"]:
+        from .config import trait_models
+        trait = traits[analysis]
+        models = {}
+        for name in trait_models(config, analysis):
+            spec = config["models"][name]
+            try:
+                model = build_model(spec["kind"], trait.states, spec.get("transitions"), name)
+            except InputError as exc:
+                raise InputError(f"trait '{analysis}': {exc}") from None
+            root = spec.get("root", "flat")
+            if root not in ("flat", "equilibrium", "conditional") and root not in trait.states:
+                raise InputError(f"models.{name}.root is '{root}': use flat, equilibrium, "
+                                 f"conditional, or a state of trait '{analysis}' "
+                                 f"({', '.join(trait.states)}).")
+            models[name] = (model, root)
+        return trait, models
+    if analysis in config.get("pairs", {}):
+        from .pairs import pair_analysis
+        return pair_analysis(analysis, config["pairs"][analysis], traits)
+    raise InputError(f"analysis '{analysis}' is neither a trait in traits.columns nor a pair.")
+
+
+def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, starts: int = 5,
+              lower: float = 1e-6, upper: float = 1e4, absent: str = "error") -> tuple:
+    """Fit one model to one trait on each tree. Returns (fit rows, rate rows) as dicts."""
+    fits, rates = [], []
+    varies = len(trait.observed_states()) >= 2
+    for tree in trees:
+        X = trait.tip_partials(tree, absent=absent)
+        n = int((X.sum(axis=1) < trait.k).sum())
+        row = {"analysis": analysis, "model": model.name, "tree": tree.index, "n_taxa": n,
+               "n_params": model.n_params, "root": root}
+        if not varies:
+            row.update(log_likelihood=np.nan, aic=np.nan, aicc=np.nan, bic=np.nan, converged=False,
+                       n_starts=0, n_agree=0, at_lower="", at_upper="",
+                       note="not fitted: fewer than two observed states")
+            fits.append(row)
+            continue
+        res = fit_model(tree, X, model, root, n_starts=starts,
+                        seed=derive_seed(seed, tree.index, analysis, model.name),
+                        lower=lower, upper=upper)
+        ic = information_criteria(res.log_likelihood, res.n_params, n)
+        notes = list(res.notes)
+        if np.isinf(ic["aicc"]):
+            notes.append(f"AICc undefined: {n} taxa with data for {res.n_params} rates")
+        row.update(log_likelihood=res.log_likelihood, **ic, converged=res.converged,
+                   n_starts=res.n_starts, n_agree=res.n_agree, at_lower=",".join(res.at_lower),
+                   at_upper=",".join(res.at_upper), note="; ".join(notes))
+        fits.append(row)
+        bounds = set(res.at_lower) | set(res.at_upper)
+        for a, b, p in model.transitions():
+            i, j = model.states.index(a), model.states.index(b)
+            label = model.labels[p] if p >= 0 else "fixed"
+            rates.append({"analysis": analysis, "model": model.name, "tree": tree.index,
+                          "from_state": a, "to_state": b, "rate": float(res.q_matrix[i, j]),
+                          "parameter": label,
+                          "at_bound": ("lower" if label in res.at_lower else "upper")
+                          if label in bounds else ""})
+    return fits, rates

@@ -1,0 +1,106 @@
+"""Model support and rates summarised across the tree sample.
+
+On every tree, the models of an analysis are ranked by the chosen criterion
+(AICc by default) and given Akaike weights (Burnham & Anderson 2002). Across
+trees we report, per analysis x model: mean and median weight, the fraction of
+trees on which the model is best, and the median difference to the best model
+with its central 95% interval. Rates are averaged over models with the same
+weights on each tree (a forbidden transition counts as rate 0 in that model).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from .compare import akaike_weights
+
+FEW_TREES = 20   # below this, 95% intervals across trees are rough
+
+
+def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
+    """Add delta (to the best model on the same tree) and weight columns."""
+    fits = fits.copy()
+    fits["delta"] = np.nan
+    fits["weight"] = np.nan
+    for _, idx in fits.groupby(["analysis", "tree"]).groups.items():
+        vals = fits.loc[idx, criterion].to_numpy(dtype=float)
+        finite = np.isfinite(vals)
+        if not finite.any():
+            continue
+        fits.loc[idx, "delta"] = vals - vals[finite].min()
+        fits.loc[idx, "weight"] = akaike_weights(vals)
+    return fits
+
+
+def _q(x, p):
+    x = np.asarray(x, dtype=float)
+    x = x[np.isfinite(x)]
+    return float(np.quantile(x, p)) if x.size else np.nan
+
+
+def model_support(fits: pd.DataFrame) -> pd.DataFrame:
+    """One row per analysis x model (``fits`` must carry delta and weight)."""
+    rows = []
+    for (analysis, model), g in fits.groupby(["analysis", "model"], sort=False):
+        fitted = g[np.isfinite(g["delta"])]
+        n = len(fitted)
+        at_bound = ((g["at_lower"].fillna("") != "") | (g["at_upper"].fillna("") != "")).sum()
+        rows.append({
+            "analysis": analysis, "model": model, "n_params": int(g["n_params"].iloc[0]),
+            "n_trees": n,
+            "mean_weight": fitted["weight"].mean() if n else np.nan,
+            "median_weight": fitted["weight"].median() if n else np.nan,
+            "fraction_best": float((fitted["delta"] == 0).mean()) if n else np.nan,
+            "median_delta": fitted["delta"].median() if n else np.nan,
+            "delta_low95": _q(fitted["delta"], 0.025),
+            "delta_high95": _q(fitted["delta"], 0.975),
+            "median_log_likelihood": fitted["log_likelihood"].median() if n else np.nan,
+            "n_not_converged": int((~g["converged"].astype(bool)).sum()),
+            "n_rates_at_bound": int(at_bound),
+        })
+    out = pd.DataFrame(rows)
+    out["caution"] = [cautions(r) for r in out.to_dict("records")]
+    return out
+
+
+def cautions(row: dict) -> str:
+    """Plain-words warnings for one analysis x model summary row."""
+    words = []
+    if row["n_trees"] == 0:
+        return "not fitted"
+    if row["n_not_converged"]:
+        words.append(f"{row['n_not_converged']} of {row['n_trees']} fits did not converge "
+                     "(starts disagree); treat their likelihoods with care")
+    if row["n_rates_at_bound"]:
+        words.append(f"{row['n_rates_at_bound']} of {row['n_trees']} fits have a rate at a bound "
+                     "(a rate near zero means no such change is supported; at the upper bound "
+                     "the rate cannot be estimated)")
+    if row["n_trees"] < FEW_TREES:
+        words.append(f"only {row['n_trees']} trees: intervals across trees are rough")
+    return "; ".join(words)
+
+
+def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
+    """Model-averaged rate per analysis x tree x transition."""
+    w = fits[["analysis", "model", "tree", "weight"]].dropna()
+    r = rates.merge(w, on=["analysis", "model", "tree"], how="inner")
+    r["weighted"] = r["rate"] * r["weight"]
+    out = (r.groupby(["analysis", "tree", "from_state", "to_state"], sort=False)["weighted"]
+           .sum().reset_index().rename(columns={"weighted": "rate"}))
+    out.insert(1, "model", "averaged")
+    return out
+
+
+def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
+    """Median and 95% interval across trees per analysis x model x transition,
+    for every model and for the model average."""
+    both = pd.concat([rates[["analysis", "model", "tree", "from_state", "to_state", "rate"]],
+                      averaged], ignore_index=True)
+    rows = []
+    for (a, m, f, t), g in both.groupby(["analysis", "model", "from_state", "to_state"], sort=False):
+        x = g["rate"].to_numpy(float)
+        rows.append({"analysis": a, "model": m, "from_state": f, "to_state": t,
+                     "n_trees": len(x), "median_rate": float(np.median(x)),
+                     "rate_low95": _q(x, 0.025), "rate_high95": _q(x, 0.975)})
+    return pd.DataFrame(rows)

@@ -1,0 +1,45 @@
+"""Gather every fit job's rows and summarise model support across trees."""
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
+
+import logging
+
+import pandas as pd
+
+from mkforest.scripting import run_job
+from mkforest.summarise import add_weights, averaged_rates, model_support, rate_summary
+
+
+def _read(paths):
+    frames = [pd.read_csv(p, sep="\t", keep_default_na=False, na_values=[""]) for p in paths]
+    return pd.concat(frames, ignore_index=True)
+
+
+def main(smk):
+    log = logging.getLogger("mkforest")
+    fits = _read(smk.input.fits)
+    rates = _read(smk.input.rates)
+    for col in ("at_lower", "at_upper", "note"):
+        fits[col] = fits[col].fillna("")
+    rates["at_bound"] = rates["at_bound"].fillna("")
+    order = {a: i for i, a in enumerate(smk.params.analyses)}
+    fits = fits.sort_values(["analysis", "model", "tree"],
+                            key=lambda s: s.map(order) if s.name == "analysis" else s)
+    fits = add_weights(fits, smk.params.criterion)
+    rates = rates.sort_values(["analysis", "model", "tree", "from_state", "to_state"])
+    support = model_support(fits)
+    averaged = averaged_rates(fits, rates)
+    fits.to_csv(smk.output.fits, sep="\t", index=False, float_format="%.10g")
+    rates.to_csv(smk.output.rates, sep="\t", index=False, float_format="%.10g")
+    support.to_csv(smk.output.support, sep="\t", index=False, float_format="%.6g")
+    averaged.to_csv(smk.output.averaged, sep="\t", index=False, float_format="%.10g")
+    rate_summary(rates, averaged).to_csv(smk.output.rate_summary, sep="\t", index=False,
+                                         float_format="%.6g")
+    for row in support.to_dict("records"):
+        if row["caution"]:
+            log.warning("%s / %s: %s", row["analysis"], row["model"], row["caution"])
+
+
+run_job(snakemake, main)  # noqa: F821

@@ -1,0 +1,36 @@
+"""Fit one model of one analysis on every tree of one chunk."""
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
+
+import json
+import logging
+
+import pandas as pd
+
+from mkforest.fitjobs import FIT_COLUMNS, RATE_COLUMNS, analysis_setup, fit_chunk
+from mkforest.scripting import run_job
+from mkforest.traits import traits_from_json
+from mkforest.trees import load_trees
+
+
+def main(smk):
+    job = smk.params.job
+    config = job["config"]
+    traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
+    trait, models = analysis_setup(config, job["analysis"], traits)
+    model, root = models[job["model"]]
+    trees = load_trees(smk.input.trees)
+    fit = config["fitting"]
+    fits, rates = fit_chunk(trees, trait, model, root, job["analysis"], config["seed"],
+                            fit["starts"], fit["lower"], fit["upper"],
+                            config["traits"]["absent_taxa"])
+    bad = sum(1 for f in fits if not f["converged"])
+    logging.getLogger("mkforest").info("%s / %s: %d trees fitted, %d not converged",
+                                       job["analysis"], job["model"], len(fits), bad)
+    pd.DataFrame(fits, columns=FIT_COLUMNS).to_csv(smk.output.fits, sep="\t", index=False)
+    pd.DataFrame(rates, columns=RATE_COLUMNS).to_csv(smk.output.rates, sep="\t", index=False)
+
+
+run_job(snakemake, main)  # noqa: F821

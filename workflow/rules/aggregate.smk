@@ -1,0 +1,30 @@
+# Model support and rates across the tree sample.
+
+
+rule aggregate_fits:
+    input:
+        fits=fit_files("fits"),
+        rates=fit_files("rates"),
+    output:
+        fits=report(f"{OUT}/tables/fits.tsv", caption="../report/fits.rst", category="Tables"),
+        rates=report(f"{OUT}/tables/rates.tsv", caption="../report/rates.rst", category="Tables"),
+        support=report(
+            f"{OUT}/tables/model_support.tsv",
+            caption="../report/model_support.rst",
+            category="Tables",
+        ),
+        rate_summary=report(
+            f"{OUT}/tables/rate_summary.tsv",
+            caption="../report/rate_summary.rst",
+            category="Tables",
+        ),
+        averaged=f"{OUT}/tables/averaged_rates.tsv",
+    params:
+        criterion=config["criterion"],
+        analyses=ANALYSES,
+    log:
+        f"{OUT}/logs/aggregate_fits.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/aggregate_fits.py"

@@ -1,0 +1,68 @@
+# Shared definitions and input functions.
+import glob
+import os
+
+from mkforest.config import analyses, validate_config
+from mkforest.errors import InputError
+
+try:
+    config = validate_config(config, "config")
+except InputError as exc:
+    raise WorkflowError(f"mkforest: {exc}")
+
+OUT = f"results/{config['run']}"
+ANALYSES = analyses(config)
+ENV = "../../envs/mkforest.yaml"
+
+
+wildcard_constraints:
+    analysis=r"[A-Za-z0-9_.\-]+",
+    model=r"[A-Za-z0-9_.\-]+",
+    chunk=r"\d+",
+
+
+def chunk_ids(wildcards=None):
+    """Chunk numbers written by the prepare_trees checkpoint."""
+    folder = checkpoints.prepare_trees.get().output.chunks
+    return sorted(glob_wildcards(os.path.join(folder, "chunk_{chunk}.npz")).chunk)
+
+
+def fit_files(kind):
+    """Input function: every fit job's table of one kind ('fits' or 'rates')."""
+
+    def files(wildcards):
+        return [
+            f"{OUT}/fits/{a}/{m}/chunk_{c}.{kind}.tsv"
+            for a, models in ANALYSES.items()
+            for m in models
+            for c in chunk_ids()
+        ]
+
+    return files
+
+
+def fit_params(wildcards):
+    """What one fit job needs from the config."""
+    return {
+        "analysis": wildcards.analysis,
+        "model": wildcards.model,
+        "config": config,
+    }
+
+
+def fit_runtime(wildcards, attempt):
+    """Minutes for one fit job: about 0.1 s per tree and model at 200 tips, with margin."""
+    return 10 + 5 * attempt * max(1, config["trees"]["per_job"] // 50)
+
+
+PLOTS = ["support_weights", "support_heatmap", "rates_across_trees"]
+
+
+def all_targets(wildcards):
+    return [
+        f"{OUT}/tables/fits.tsv",
+        f"{OUT}/tables/rates.tsv",
+        f"{OUT}/tables/model_support.tsv",
+        f"{OUT}/tables/rate_summary.tsv",
+        f"{OUT}/tables/data_check.tsv",
+    ] + [f"{OUT}/plots/{p}.{ext}" for p in PLOTS for ext in ("png", "svg")]

@@ -1,0 +1,23 @@
+# One job per analysis x model x chunk of trees; one row per tree.
+
+
+rule fit:
+    input:
+        trees=f"{OUT}/prepared/trees/chunk_{{chunk}}.npz",
+        traits=f"{OUT}/prepared/traits.json",
+    output:
+        fits=f"{OUT}/fits/{{analysis}}/{{model}}/chunk_{{chunk}}.fits.tsv",
+        rates=f"{OUT}/fits/{{analysis}}/{{model}}/chunk_{{chunk}}.rates.tsv",
+    params:
+        job=fit_params,
+    resources:
+        runtime=fit_runtime,
+        mem_mb=1000,
+    group:
+        "fit"
+    log:
+        f"{OUT}/logs/fit/{{analysis}}/{{model}}/chunk_{{chunk}}.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/fit_chunk.py"

@@ -1,0 +1,26 @@
+# Figures of model support and rates across trees (PNG for reading, SVG for print).
+
+
+rule plot_support:
+    input:
+        fits=f"{OUT}/tables/fits.tsv",
+        rates=f"{OUT}/tables/rates.tsv",
+        support=f"{OUT}/tables/model_support.tsv",
+    output:
+        **{
+            f"{p}_{ext}": report(
+                f"{OUT}/plots/{p}.{ext}",
+                caption=f"../report/{p}.rst",
+                category="Plots",
+            )
+            for p in PLOTS
+            for ext in ("png", "svg")
+        },
+    params:
+        criterion=config["criterion"],
+    log:
+        f"{OUT}/logs/plot_support.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/plot_support.py"

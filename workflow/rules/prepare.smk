@@ -1,0 +1,51 @@
+# Trees into chunks of compact arrays; traits into a coded table with a data check.
+
+
+checkpoint prepare_trees:
+    input:
+        trees=config["trees"]["file"],
+    output:
+        chunks=directory(f"{OUT}/prepared/trees"),
+        used=f"{OUT}/tables/trees_used.tsv",
+    params:
+        trees=config["trees"],
+        seed=config["seed"],
+    log:
+        f"{OUT}/logs/prepare_trees.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/prepare_trees.py"
+
+
+rule prepare_traits:
+    input:
+        traits=config["traits"]["file"],
+        used=f"{OUT}/tables/trees_used.tsv",
+    output:
+        coded=f"{OUT}/prepared/traits.json",
+        check=report(
+            f"{OUT}/tables/data_check.tsv",
+            caption="../report/data_check.rst",
+            category="Data",
+        ),
+    params:
+        config=config,
+    log:
+        f"{OUT}/logs/prepare_traits.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/prepare_traits.py"
+
+
+rule make_demo_data:
+    output:
+        trees="demo/data/trees.nex",
+        traits="demo/data/traits.tsv",
+    log:
+        "demo/data/make_demo_data.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/make_demo_data.py"

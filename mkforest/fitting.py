@@ -92,6 +92,25 @@ def _starting_rate(tree, tip_partials, model) -> float:
     return changes / (tree.total_length * max(model.k - 1, 1))
 
 
+def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
+    """Move each rate that the optimiser left near a bound onto it when that does
+    not lower ln L by more than ``tol``: on a likelihood that is flat towards zero
+    (or towards saturation) the optimiser stops early, and the rate is then
+    reported at the bound instead of at an arbitrary small value."""
+    x = x.copy()
+    span = hi - lo
+    for i in np.argsort(np.minimum(x - lo, hi - x)):
+        for bound in (lo, hi):
+            if x[i] == bound or abs(x[i] - bound) > 0.5 * span:
+                continue
+            trial = x.copy()
+            trial[i] = bound
+            t_ll = f(np.exp(trial))
+            if t_ll >= ll - tol:
+                x, ll = trial, t_ll
+    return x, ll
+
+
 def fit_model(tree, tip_partials, model, root="flat", n_starts: int = 5, seed: int = 0,
               lower: float = LOWER, upper: float = UPPER) -> FitResult:
     """Maximum-likelihood rates of ``model`` on one tree (see the module docstring)."""
@@ -129,9 +148,10 @@ def fit_model(tree, tip_partials, model, root="flat", n_starts: int = 5, seed: i
     converged = bool(np.isfinite(ll) and (n_agree >= 2 or n_starts == 1))
     if np.isfinite(ll) and n_agree < 2 and n_starts > 1:
         notes.append(f"only 1 of {n_starts} starts reached the best log-likelihood")
-    edge = 1e-3 * (hi - lo)
-    at_lower = tuple(model.labels[i] for i in range(p) if best_x[i] - lo <= edge)
-    at_upper = tuple(model.labels[i] for i in range(p) if hi - best_x[i] <= edge)
+    if np.isfinite(ll):
+        best_x, ll = _settle_at_bounds(f, best_x, ll, lo, hi)
+    at_lower = tuple(model.labels[i] for i in range(p) if best_x[i] == lo)
+    at_upper = tuple(model.labels[i] for i in range(p) if best_x[i] == hi)
     rates = np.exp(best_x)
     return FitResult(model.name, ll, rates, model.labels, p, converged, n_starts, n_agree,
                      at_lower, at_upper, root, model.q_matrix(rates), notes)

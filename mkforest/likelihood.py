@@ -30,40 +30,41 @@ _MAX_EIGEN_CONDITION = 1e5
 
 
 @numba.njit(cache=True)
-def _p_from_eigen(lam, V, Vinv, t, out):
-    """out[b] = V diag(exp(lam t_b)) Vinv, real part; exact identity for t_b == 0."""
+def _p_from_eigen(E1, V, Vinv, reach, t, out):
+    """out[b] = I + V diag(E1[b]) Vinv with E1[b] = expm1(lam t_b), real part.
+
+    Writing P = I + V diag(expm1) Vinv keeps the small entries of P accurate to
+    full relative precision on short branches (no cancellation against 1);
+    entries for states that cannot be reached from the start state are exactly
+    zero, and t_b == 0 gives the identity exactly."""
     n = t.shape[0]
     k = V.shape[0]
-    e = np.empty(k, dtype=lam.dtype)
     for b in range(n):
-        if t[b] == 0.0:
-            for i in range(k):
-                for j in range(k):
-                    out[b, i, j] = 1.0 if i == j else 0.0
-            continue
-        for m in range(k):
-            e[m] = np.exp(lam[m] * t[b])
         for i in range(k):
             for j in range(k):
-                s = V[i, 0] * e[0] * Vinv[0, j]
+                if t[b] == 0.0 or not reach[i, j]:
+                    out[b, i, j] = 1.0 if i == j else 0.0
+                    continue
+                s = V[i, 0] * E1[b, 0] * Vinv[0, j]
                 for m in range(1, k):
-                    s += V[i, m] * e[m] * Vinv[m, j]
-                x = s.real
-                # round-off can leave -1e-17 where the probability is 0
+                    s += V[i, m] * E1[b, m] * Vinv[m, j]
+                x = s.real + (1.0 if i == j else 0.0)
+                # round-off can leave -1e-17 where the probability is tiny
                 out[b, i, j] = x if x > 0.0 else 0.0
 
 
 @numba.njit(cache=True)
-def _prune_eigen(child_ptr, children, n_tips, E, V, Vinv, tip_partials, partials, scale_count):
-    """Postorder pass with P(t) = V diag(E) Vinv applied as two small products per
-    branch (E[c] = exp(lam t_c)); real or complex eigensystems.
+def _prune_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, scale_count):
+    """Postorder pass for an irreducible chain, with P(t) L = L + V diag(E1) Vinv L
+    applied as two small products per branch (E1[c] = expm1(lam t_c)); real or
+    complex eigensystems. Zero-length branches pass the partials on unchanged.
 
     Fills partials [n_nodes, k] (scaled) and scale_count [n_nodes] (how many times
     2^256 was factored out at or below each node). Returns False if the data are
     impossible under the model (a partial vector is all zero)."""
     n_nodes = partials.shape[0]
     k = partials.shape[1]
-    y = np.empty(k, dtype=E.dtype)
+    y = np.empty(k, dtype=E1.dtype)
     for v in range(n_tips):
         for i in range(k):
             partials[v, i] = tip_partials[v, i]
@@ -75,17 +76,25 @@ def _prune_eigen(child_ptr, children, n_tips, E, V, Vinv, tip_partials, partials
         for p in range(child_ptr[v], child_ptr[v + 1]):
             c = children[p]
             count += scale_count[c]
+            zero = True
+            for m in range(k):
+                if E1[c, m] != 0.0:
+                    zero = False
+            if zero:
+                for i in range(k):
+                    partials[v, i] *= partials[c, i]
+                continue
             for m in range(k):
                 s = Vinv[m, 0] * partials[c, 0]
                 for j in range(1, k):
                     s += Vinv[m, j] * partials[c, j]
-                y[m] = s * E[c, m]
+                y[m] = s * E1[c, m]
             for i in range(k):
                 s = V[i, 0] * y[0]
                 for m in range(1, k):
                     s += V[i, m] * y[m]
-                x = s.real
-                # round-off can leave -1e-17 where the probability is 0
+                x = s.real + partials[c, i]
+                # round-off can leave -1e-17 where the probability is tiny
                 partials[v, i] *= x if x > 0.0 else 0.0
         count += _rescale(partials, v, k)
         if count < 0:
@@ -166,38 +175,60 @@ def eigensystem(Q):
     return lam, np.ascontiguousarray(V), np.ascontiguousarray(Vinv)
 
 
+def reachable(Q) -> np.ndarray:
+    """bool [k,k]: j can be reached from i (i itself included), i.e. P_ij(t) > 0 for t > 0."""
+    k = Q.shape[0]
+    reach = (Q > 0) | np.eye(k, dtype=bool)
+    for _ in range(max(1, int(np.ceil(np.log2(k))))):
+        reach = reach | ((reach.astype(np.int64) @ reach.astype(np.int64)) > 0)
+    return reach
+
+
 def transition_matrices(Q, t) -> np.ndarray:
     """P[b] = exp(Q t[b]) for every t[b] >= 0; float64 [len(t), k, k].
 
     Right for every valid rate matrix: complex eigenvalues (non-reversible
     cycles) via complex arithmetic, defective or ill-conditioned ones via
-    scaling-and-squaring (scipy.linalg.expm).
+    scaling-and-squaring (scipy.linalg.expm). Unreachable states get exact zeros.
     """
     Q = check_rate_matrix(Q)
     t = np.ascontiguousarray(t, dtype=np.float64)
-    out = np.empty((t.shape[0], Q.shape[0], Q.shape[0]))
+    k = Q.shape[0]
+    out = np.empty((t.shape[0], k, k))
+    reach = reachable(Q)
     es = eigensystem(Q)
     if es is not None:
-        _p_from_eigen(*es, t, out)
+        lam, V, Vinv = es
+        _p_from_eigen(np.expm1(np.multiply.outer(t, lam)), V, Vinv, reach, t, out)
         return out
     out[:] = scipy.linalg.expm(Q[None, :, :] * t[:, None, None])
     np.maximum(out, 0.0, out=out)
+    out[:, ~reach] = 0.0
     zero = t == 0.0
     if zero.any():
-        out[zero] = np.eye(Q.shape[0])
+        out[zero] = np.eye(k)
     return out
 
 
 def stationary_distribution(Q) -> np.ndarray:
-    """pi with pi Q = 0 and sum(pi) = 1 (least squares; for a chain with several
-    closed classes this is the minimum-norm solution)."""
+    """pi with pi Q = 0 and sum(pi) = 1.
+
+    Transient states (those that can reach a state they cannot come back from)
+    get exactly 0. When the chain has several closed classes (e.g. two absorbing
+    states) the stationary distribution is not unique; the least-squares
+    minimum-norm solution is returned, which spreads the weight over the classes.
+    """
     Q = np.asarray(Q, dtype=np.float64)
     k = Q.shape[0]
-    A = np.vstack([Q.T, np.ones((1, k))])
-    b = np.zeros(k + 1)
+    reach = reachable(Q)
+    recurrent = np.array([reach[:, i][reach[i]].all() for i in range(k)])
+    sub = Q[np.ix_(recurrent, recurrent)]
+    m = int(recurrent.sum())
+    A = np.vstack([sub.T, np.ones((1, m))])
+    b = np.zeros(m + 1)
     b[-1] = 1.0
-    pi = np.linalg.lstsq(A, b, rcond=None)[0]
-    pi = np.maximum(pi, 0.0)
+    pi = np.zeros(k)
+    pi[recurrent] = np.maximum(np.linalg.lstsq(A, b, rcond=None)[0], 0.0)
     return pi / pi.sum()
 
 
@@ -239,11 +270,11 @@ def prune(tree, tip_partials, Q):
     n = tree.n_nodes
     partials = np.empty((n, Q.shape[0]))
     count = np.empty(n, dtype=np.int64)
-    es = eigensystem(Q)
+    es = eigensystem(Q) if reachable(Q).all() else None
     if es is not None:
         lam, V, Vinv = es
-        E = np.exp(np.multiply.outer(tree.length, lam))
-        ok = _prune_eigen(tree.child_ptr, tree.children, tree.n_tips, E, V, Vinv,
+        E1 = np.expm1(np.multiply.outer(tree.length, lam))
+        ok = _prune_eigen(tree.child_ptr, tree.children, tree.n_tips, E1, V, Vinv,
                           tip_partials, partials, count)
     else:
         P = transition_matrices(Q, tree.length)

@@ -190,6 +190,10 @@ def read_trees(path, schema: str | None = None) -> list:
         line = getattr(exc, "line_num", None)
         at = f", line {line}" if line else ""
         msg = getattr(exc, "message", None) or str(exc).splitlines()[0]
+        if "Duplicate taxon labels:" in msg:
+            dup = msg.rsplit("Duplicate taxon labels:", 1)[1].strip()
+            msg = (f"tip '{dup}' appears more than once in one tree; tip labels must be unique "
+                   "within a tree")
         raise InputError(f"tree file '{path}'{at}: cannot be read as {schema.upper()}: {msg}") from None
     if len(trees) == 0:
         raise InputError(f"tree file '{path}' holds no trees.")

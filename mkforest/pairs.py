@@ -241,38 +241,66 @@ def custom_hypothesis(pair: TraitPair, name: str, transitions) -> RateModel:
 
 # --------------------------------------------------------------------------- configuration
 
-def build_pair_analysis(name: str, spec: dict, traits: dict, where: str = "config") -> tuple:
-    """(pair, joint Trait, [RateModel, ...]) for one entry of the config's ``pairs`` section.
+def _check_root(root, pair: TraitPair, at: str) -> str:
+    if root in ("flat", "equilibrium", "conditional") or root in pair.states:
+        return root
+    raise InputError(f"{at}.root is '{root}': use flat, equilibrium, conditional, or a joint "
+                     f"state of the pair ({', '.join(pair.states)}).")
 
-    spec: {traits: [first, second], hypotheses: [...], custom: {name: {transitions: {...}}}}
-    traits: {trait name: Trait} as read from the trait table.
-    """
+
+def pair_from_config(name: str, spec: dict, traits: dict, where: str = "config") -> TraitPair:
+    """The TraitPair of one entry of the config's ``pairs`` section."""
     at = f"{where}: pairs.{name}"
     names = spec.get("traits") if isinstance(spec, dict) else None
     if not isinstance(names, (list, tuple)) or len(names) != 2:
-        raise InputError(f"{at}.traits must list exactly two trait columns, e.g. [spur, pollinator].")
+        raise InputError(f"{at}.traits must list exactly two trait columns, e.g. [banding, aperture].")
     for t in names:
         if t not in traits:
             raise InputError(f"{at}.traits: trait '{t}' is not among the traits read from the table "
                              f"({', '.join(traits)}); add it to traits.columns.")
-    pair = make_pair(name, traits[names[0]], traits[names[1]])
-    hypotheses = list(spec.get("hypotheses") or ["independent", "dependent"])
+    return make_pair(name, traits[names[0]], traits[names[1]])
+
+
+def pair_models(name: str, spec: dict, pair: TraitPair, where: str = "config") -> dict:
+    """{hypothesis name: (RateModel, root)} for one pair entry of the config:
+    the built-in ``hypotheses`` and every ``custom`` one (a custom hypothesis may
+    also be named in ``hypotheses``)."""
+    at = f"{where}: pairs.{name}"
     custom = spec.get("custom") or {}
-    models = []
-    for h in hypotheses:
+    root = _check_root(spec.get("root", "flat"), pair, at)
+    models = {}
+    for h in list(spec.get("hypotheses") or ["independent", "dependent"]):
         if h in custom:
             continue
-        models.append(hypothesis_model(pair, h))
+        if h in models:
+            raise InputError(f"{at}.hypotheses lists '{h}' twice.")
+        if h not in HYPOTHESES:
+            raise InputError(f"{at}.hypotheses: '{h}' is neither a built-in hypothesis "
+                             f"({', '.join(HYPOTHESES)}) nor described under {at}.custom.")
+        models[h] = (hypothesis_model(pair, h), root)
     for h, body in custom.items():
         if not isinstance(body, dict) or "transitions" not in body:
             raise InputError(f"{at}.custom.{h} needs a 'transitions' mapping.")
-        models.append(custom_hypothesis(pair, h, body["transitions"]))
-    seen = set()
-    for m in models:
-        if m.name in seen:
-            raise InputError(f"{at}: hypothesis '{m.name}' is listed twice.")
-        seen.add(m.name)
-    return pair, pair.joint_trait(), models
+        h_root = _check_root(body.get("root", root), pair, f"{at}.custom.{h}")
+        models[h] = (custom_hypothesis(pair, h, body["transitions"]), h_root)
+    return models
+
+
+def pair_analysis(name: str, spec: dict, traits: dict, where: str = "config") -> tuple:
+    """(joint Trait, {hypothesis: (RateModel, root)}) for one pair: what the fit jobs
+    need to fit a pair exactly as they fit a single trait."""
+    pair = pair_from_config(name, spec, traits, where)
+    return pair.joint_trait(), pair_models(name, spec, pair, where)
+
+
+def pair_tests(models: dict) -> list:
+    """Nested (null, alternative) tests among a pair's hypotheses, each with the root
+    treatment both share; hypotheses fitted with different roots are not compared."""
+    out = []
+    for n in nested_tests([m for m, _ in models.values()]):
+        if models[n.null][1] == models[n.alternative][1]:
+            out.append(n)
+    return out
 
 
 # --------------------------------------------------------------------------- nesting

@@ -20,6 +20,7 @@ include: "workflow/rules/prepare.smk"
 include: "workflow/rules/fit.smk"
 include: "workflow/rules/aggregate.smk"
 include: "workflow/rules/plots.smk"
+include: "workflow/rules/ancestral.smk"
 
 
 rule all:

@@ -1,0 +1,353 @@
+"""Ancestral states and stochastic maps across a tree sample, as workflow jobs.
+
+Three steps, each a plain function the workflow's scripts call:
+
+1. ``target_clades``: which clades to report -- every clade of the summary tree
+   (majority-rule consensus, or the user's reference tree) and the clades named
+   in the config -- with their frequency in the tree sample.
+2. ``chunk_ancestral``: for each tree of one chunk and one analysis, the model
+   (one named model, the best model on that tree, or every model weighted by
+   its Akaike weight on that tree), the marginal state probabilities at each
+   target clade present in the tree, and N stochastic maps seeded by
+   derive_seed(seed, tree index, analysis, "map").
+3. ``summarise_chunks``: tidy tables across trees (mean probability and the
+   central 95% interval across trees; mean change counts and times in state
+   with the central 95% interval over all maps of all trees), each row with a
+   plain-words ``caution`` where the numbers could mislead.
+
+A clade's probabilities come only from the trees that contain it (for a named
+clade: the MRCA of its taxa, present in every tree).
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+
+from .ancestral import ImpossibleData, averaged_probabilities
+from .clades import (check_same_taxa, clade_key, consensus_names, count_clades, find_mrca,
+                     majority_consensus, mask_of, node_clades, node_masks, taxon_bits)
+from .compare import akaike_weights
+from .errors import InputError
+from .mapping import mixed_stochastic_maps
+from .seeds import derive_seed
+
+CLADE_COLUMNS = ["clade", "kind", "n_tips", "frequency", "n_trees_with_clade", "key", "members"]
+FEW_TREES = 20          # fewer trees than this: intervals across trees are rough
+RARE_CLADE = 0.5        # a clade in fewer trees than this fraction is flagged
+WEAK_WEIGHT = 0.1       # non-converged / at-bound fits carrying more weight than this are flagged
+
+
+# --------------------------------------------------------------------------- 1. target clades
+
+def target_clades(trees, named=(), reference=None, reference_source="reference tree"):
+    """(clade table, summary tree).
+
+    named: list of clades.NamedClade. reference: a TreeArrays to use instead of
+    the majority-rule consensus. The table has one row per clade: ``kind`` is
+    consensus / reference (a node of the summary tree), named (listed members;
+    the MRCA is used and monophyly counted) or named_mrca (MRCA of a few taxa).
+    """
+    taxa = check_same_taxa(trees)
+    bits = taxon_bits(taxa)
+    counts = count_clades(trees, bits)
+    n = len(trees)
+    if reference is not None:
+        ref_taxa = set(reference.tip_labels)
+        if ref_taxa != set(taxa):
+            extra = sorted(ref_taxa - set(taxa))
+            lacking = sorted(set(taxa) - ref_taxa)
+            what = (f"has taxon '{extra[0]}', which is in none of the sampled trees" if extra
+                    else f"lacks taxon '{lacking[0]}' of the sampled trees")
+            raise InputError(f"{reference_source} (ancestral.reference_tree) {what}; the reference "
+                             "tree must have exactly the taxa of the tree sample.")
+        summary, kind = reference, "reference"
+    else:
+        summary, kind = majority_consensus(trees), "consensus"
+    names = consensus_names(summary)
+    sets = node_clades(summary)
+    rows = {}
+    for v in range(summary.n_tips, summary.n_nodes):
+        m = mask_of(sets[v], bits)
+        rows[m] = dict(clade=names[v], kind=kind, n_tips=len(sets[v]), frequency=counts[m] / n,
+                       n_trees_with_clade=counts[m], key=clade_key(sets[v]),
+                       members=",".join(sorted(sets[v])))
+    out = list(rows.values())
+    for nc in named:
+        m = mask_of(nc.members, bits)
+        if not nc.mrca_only and m in rows:
+            # a named clade that is also a node of the summary tree: one row, the config's name
+            rows[m].update(clade=nc.name, kind="named")
+            continue
+        out.append(dict(clade=nc.name, kind="named_mrca" if nc.mrca_only else "named",
+                        n_tips=len(nc.members), frequency=counts[m] / n if not nc.mrca_only else np.nan,
+                        n_trees_with_clade=counts[m] if not nc.mrca_only else n,
+                        key=clade_key(nc.members), members=",".join(sorted(nc.members))))
+    table = pd.DataFrame(out, columns=CLADE_COLUMNS)
+    dup = table["clade"][table["clade"].duplicated()]
+    if len(dup):
+        raise InputError(f"ancestral.clades: the name '{dup.iloc[0]}' is used twice (a named clade "
+                         "and a consensus clade share it); choose another name.")
+    return table, summary
+
+
+# --------------------------------------------------------------------------- 2. one chunk
+
+def q_from_rate_rows(rows: pd.DataFrame, states) -> np.ndarray:
+    """Rate matrix from tidy rate rows (from_state, to_state, rate) of one fit."""
+    index = {s: i for i, s in enumerate(states)}
+    k = len(states)
+    Q = np.zeros((k, k))
+    for a, b, r in zip(rows["from_state"], rows["to_state"], rows["rate"]):
+        Q[index[str(a)], index[str(b)]] = float(r)
+    np.fill_diagonal(Q, -Q.sum(axis=1))
+    return Q
+
+
+def model_weights(criteria, choice: str, names) -> np.ndarray:
+    """Weights of the models on one tree: Akaike weights ('average'), all on the best
+    ('best'), or all on one named model. Models without a finite criterion get 0."""
+    v = np.asarray(criteria, dtype=float)
+    w = np.zeros(len(v))
+    if not np.isfinite(v).any():
+        return w
+    if choice == "average":
+        return akaike_weights(v)
+    if choice == "best":
+        w[int(np.nanargmin(np.where(np.isfinite(v), v, np.nan)))] = 1.0
+        return w
+    i = list(names).index(choice)
+    if np.isfinite(v[i]):
+        w[i] = 1.0
+    return w
+
+
+def resolve_choice(choice: str, model_names, analysis: str) -> tuple:
+    """(choice used for this analysis, caution text). A named model that does not apply to
+    this analysis falls back to the Akaike-weight average, and says so."""
+    if choice in ("average", "best") or choice in model_names:
+        return choice, ""
+    return "average", (f"model '{choice}' (ancestral.model) is not fitted for '{analysis}'; "
+                       "the Akaike-weight average of its models is used instead")
+
+
+def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.DataFrame,
+                    clades: pd.DataFrame, analysis: str, choice: str, n_maps: int, seed: int,
+                    criterion: str = "aicc", absent: str = "error") -> dict:
+    """Probabilities at the target clades and maps on every tree of a chunk.
+
+    models: {model name: (RateModel, root)} in a fixed order; fits / rates: the
+    chunk's fit rows and rate rows of every model of the analysis.
+    Returns plain arrays (see the keys) for ``np.savez``.
+    """
+    names = list(models)
+    states = tuple(trait.states)
+    k = len(states)
+    choice_used, choice_note = resolve_choice(choice, names, analysis)
+    n_trees, n_clades = len(trees), len(clades)
+    prob = np.full((n_trees, n_clades, k), np.nan)
+    extra = np.full((n_trees, n_clades), -1, dtype=np.int64)
+    counts = np.zeros((n_trees, n_maps, k, k), dtype=np.int32)
+    dwell = np.full((n_trees, n_maps, k), np.nan)
+    map_model = np.full((n_trees, n_maps), -1, dtype=np.int16)
+    weights = np.zeros((n_trees, len(names)))
+    unconverged = np.zeros(n_trees)
+    at_bound = np.zeros(n_trees)
+    skipped = np.zeros(n_trees, dtype=bool)
+
+    fit_by = {(r["model"], int(r["tree"])): r for r in fits.to_dict("records")}
+    rate_groups = {key: g for key, g in rates.groupby(["model", "tree"])}
+    bits = taxon_bits(trees[0].tip_labels) if trees else {}
+    members = [m.split(",") for m in clades["members"]]
+    exact = [kind in ("consensus", "reference") for kind in clades["kind"]]
+    masks = [mask_of(mem, bits) for mem in members] if trees else []
+
+    for t, tree in enumerate(trees):
+        X = trait.tip_partials(tree, absent=absent)
+        crit, Qs, roots, conv, bound = [], [], [], [], []
+        for name in names:
+            row = fit_by.get((name, tree.index))
+            if row is None:
+                raise InputError(f"analysis '{analysis}': no fit of model '{name}' for tree "
+                                 f"{tree.index} in this chunk; rerun the fit jobs.")
+            crit.append(float(row[criterion]) if pd.notna(row[criterion]) else np.inf)
+            g = rate_groups.get((name, tree.index))
+            Qs.append(q_from_rate_rows(g, states) if g is not None else np.zeros((k, k)))
+            roots.append(models[name][1])
+            conv.append(str(row["converged"]).lower() == "true")
+            # a rate at the lower bound is a change the data do not support (rate ~ 0), which
+            # maps handle; at the upper bound the rate could not be estimated at all
+            bound.append(str(row.get("at_upper", "") or "").strip() not in ("", "nan"))
+        w = model_weights(crit, choice_used, names)
+        if not (w > 0).any():
+            skipped[t] = True
+            continue
+        weights[t] = w
+        unconverged[t] = float(sum(wi for wi, c in zip(w, conv) if not c))
+        at_bound[t] = float(sum(wi for wi, b in zip(w, bound) if b))
+        mix = [(Q, r, wi) for Q, r, wi in zip(Qs, roots, w)]
+        try:
+            p = averaged_probabilities(tree, X, mix, states)
+        except (ImpossibleData, ValueError):
+            skipped[t] = True
+            continue
+        nm = node_masks(tree, bits)
+        where = {m: v for v, m in enumerate(nm)}
+        for c in range(n_clades):
+            if exact[c]:  # a node of the summary tree: used only where the tree has it
+                v = where.get(masks[c])
+                if v is None:
+                    continue
+                prob[t, c] = p[v]
+                extra[t, c] = 0
+            else:  # a named clade: its MRCA, present in every tree
+                v, n_extra = find_mrca(tree, members[c])
+                prob[t, c] = p[v]
+                extra[t, c] = n_extra
+        if n_maps > 0:
+            rng = np.random.default_rng(derive_seed(seed, tree.index, analysis, "map"))
+            ms = mixed_stochastic_maps(tree, X, mix, n_maps, rng, states)
+            counts[t] = ms.counts
+            dwell[t] = ms.dwell
+            map_model[t] = ms.model
+    return dict(tree=np.array([t.index for t in trees], dtype=np.int64), prob=prob, extra=extra,
+                counts=counts, dwell=dwell, map_model=map_model, weights=weights,
+                unconverged_weight=unconverged, bound_weight=at_bound, skipped=skipped,
+                states=np.array(json.dumps(list(states))), models=np.array(json.dumps(names)),
+                clades=np.array(json.dumps(list(clades["clade"]))),
+                choice=np.array(choice_used), choice_note=np.array(choice_note))
+
+
+# --------------------------------------------------------------------------- 3. across chunks
+
+def load_chunks(paths) -> dict:
+    """Concatenate the arrays of an analysis's chunk files (tree order kept)."""
+    parts = [dict(np.load(p)) for p in sorted(paths)]
+    if not parts:
+        raise ValueError("no chunk files")
+    out = {}
+    for key in parts[0]:
+        if parts[0][key].ndim == 0:
+            out[key] = parts[0][key].item() if parts[0][key].dtype.kind in "UO" else parts[0][key]
+        else:
+            out[key] = np.concatenate([p[key] for p in parts])
+    for key in ("states", "models", "clades"):
+        out[key] = json.loads(out[key])
+    return out
+
+
+def _q(x, p):
+    return float(np.quantile(x, p)) if len(x) else np.nan
+
+
+def _common_cautions(data, n_total) -> list:
+    notes = []
+    used = ~data["skipped"]
+    n_used = int(used.sum())
+    if n_used < n_total:
+        notes.append(f"{n_total - n_used} of {n_total} trees skipped (no model could be fitted "
+                     "or the data are impossible under the fitted models)")
+    if n_used and n_used < FEW_TREES:
+        notes.append(f"only {n_used} trees: intervals across trees are rough")
+    nc = int((data["unconverged_weight"][used] > WEAK_WEIGHT).sum())
+    if nc:
+        notes.append(f"on {nc} of {n_used} trees, fits carrying over {WEAK_WEIGHT:.0%} of the "
+                     "weight did not converge")
+    nb = int((data["bound_weight"][used] > WEAK_WEIGHT).sum())
+    if nb:
+        notes.append(f"on {nb} of {n_used} trees, fits carrying over {WEAK_WEIGHT:.0%} of the "
+                     "weight have a rate at the upper bound (change too fast to estimate: counts "
+                     "of that change are not reliable)")
+    if data.get("choice_note"):
+        notes.append(str(data["choice_note"]))
+    return notes
+
+
+def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -> pd.DataFrame:
+    """ancestral_states rows of one analysis: one row per clade x state."""
+    states, rows = data["states"], []
+    common = _common_cautions(data, n_total)
+    used = ~data["skipped"]
+    for c, crow in enumerate(clades.to_dict("records")):
+        p = data["prob"][used, c]
+        present = np.isfinite(p[:, 0])
+        p = p[present]
+        n = int(present.sum())
+        notes = []
+        kind = crow["kind"]
+        if kind in ("consensus", "reference", "named"):
+            freq = crow["frequency"]
+            if freq < RARE_CLADE:
+                notes.append(f"this clade is in only {freq:.0%} of the trees "
+                             f"({crow['n_trees_with_clade']} of {n_total})"
+                             + ("; probabilities come from those trees only" if kind != "named" else ""))
+        if kind == "named":
+            ex = data["extra"][used, c][present]
+            bad = int((ex > 0).sum())
+            if bad:
+                notes.append(f"the listed taxa are not monophyletic in {bad} of {n} trees; there "
+                             f"their most recent common ancestor is used, which holds up to "
+                             f"{int(ex.max())} other tips")
+        if kind == "named_mrca":
+            size = data["extra"][used, c][present] + crow["n_tips"]
+            if len(size) and size.min() != size.max():
+                notes.append(f"the ancestor of the listed taxa holds {int(size.min())} to "
+                             f"{int(size.max())} tips across trees")
+        if n == 0:
+            notes.append("absent from every tree analysed")
+        if 0 < n < FEW_TREES:
+            notes.append(f"only {n} trees contribute")
+        caution = "; ".join(notes + common)
+        for i, s in enumerate(states):
+            x = p[:, i] if n else np.array([])
+            rows.append(dict(analysis=analysis, clade=crow["clade"], clade_kind=kind,
+                             clade_frequency=crow["frequency"], n_trees=n, state=s,
+                             mean_probability=float(x.mean()) if n else np.nan,
+                             probability_low95=_q(x, 0.025), probability_high95=_q(x, 0.975),
+                             model_choice=data["choice"], caution=caution))
+    return pd.DataFrame(rows)
+
+
+def transition_tables(analysis: str, data: dict, n_total: int) -> tuple:
+    """(transitions rows, state time rows, per-tree transition rows) of one analysis.
+
+    Intervals are the central 95% of all maps of all trees pooled (phylogenetic
+    and mapping uncertainty together); per-tree rows give each tree's mean over maps.
+    """
+    states = data["states"]
+    used = ~data["skipped"]
+    counts = data["counts"][used]          # [T, M, k, k]
+    dwell = data["dwell"][used]            # [T, M, k]
+    tree_ids = data["tree"][used]
+    T, M = counts.shape[:2]
+    caution = "; ".join(_common_cautions(data, n_total)
+                        + (["no maps were drawn (ancestral.maps is 0)"] if M == 0 else []))
+    pooled_c = counts.reshape(T * M, len(states), len(states)).astype(float)
+    pooled_d = dwell.reshape(T * M, len(states))
+    trows, drows, per_tree = [], [], []
+    for i, a in enumerate(states):
+        for j, b in enumerate(states):
+            if i == j:
+                continue
+            x = pooled_c[:, i, j]
+            trows.append(dict(analysis=analysis, from_state=a, to_state=b, n_trees=T, n_maps=T * M,
+                              mean_count=float(x.mean()) if len(x) else np.nan,
+                              count_low95=_q(x, 0.025), count_high95=_q(x, 0.975),
+                              fraction_of_maps_with_change=float((x > 0).mean()) if len(x) else np.nan,
+                              caution=caution))
+            if M:
+                for tid, val in zip(tree_ids, counts[:, :, i, j].mean(axis=1)):
+                    per_tree.append(dict(analysis=analysis, tree=int(tid), from_state=a, to_state=b,
+                                         mean_count=float(val)))
+    total = pooled_d.sum(axis=1, keepdims=True)
+    frac = np.divide(pooled_d, total, out=np.zeros_like(pooled_d), where=total > 0)
+    for i, s in enumerate(states):
+        x = pooled_d[:, i]
+        drows.append(dict(analysis=analysis, state=s, n_trees=T, n_maps=T * M,
+                          mean_time=float(x.mean()) if len(x) else np.nan,
+                          time_low95=_q(x, 0.025), time_high95=_q(x, 0.975),
+                          mean_fraction=float(frac[:, i].mean()) if len(x) else np.nan,
+                          caution=caution))
+    return pd.DataFrame(trows), pd.DataFrame(drows), pd.DataFrame(per_tree)

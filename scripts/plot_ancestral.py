@@ -1,0 +1,31 @@
+"""Summary tree with ancestral state probabilities, and change counts across trees."""
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
+
+import json
+
+import pandas as pd
+
+from mkforest import plots_ancestral
+from mkforest.scripting import run_job
+from mkforest.traits import traits_from_json
+from mkforest.trees import parse_newick
+
+
+def main(smk):
+    out = smk.output
+    states = pd.read_csv(smk.input.states, sep="\t", dtype={"state": str, "clade": str})
+    clades = pd.read_csv(smk.input.clades, sep="\t", dtype={"members": str, "clade": str})
+    per_tree = pd.read_csv(smk.input.per_tree, sep="\t", dtype={"from_state": str, "to_state": str})
+    tree = parse_newick(Path(smk.input.tree).read_text().strip())
+    traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
+    for analysis in smk.params.analyses:
+        fig = plots_ancestral.state_tree(tree, states[states["analysis"] == analysis], clades,
+                                         traits.get(analysis), analysis)
+        plots_ancestral.save(fig, [p for p in out.trees if Path(p).stem == f"ancestral_tree_{analysis}"])
+    plots_ancestral.save(plots_ancestral.change_counts(per_tree), [out.changes_png, out.changes_svg])
+
+
+run_job(snakemake, main)  # noqa: F821

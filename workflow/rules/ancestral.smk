@@ -1,0 +1,168 @@
+# Ancestral states and stochastic maps across the tree sample.
+# One job for the clades to report, one job per analysis x chunk of trees, one
+# summary job and one plot job: the job count grows with trees / per_job, never
+# with the number of trees itself.
+
+ANC = config["ancestral"]
+
+
+def ancestral_chunk_inputs(kind):
+    """Input function: one chunk's fit tables ('fits' or 'rates') of every model of an analysis."""
+
+    def files(wildcards):
+        return [
+            f"{OUT}/fits/{wildcards.analysis}/{m}/chunk_{wildcards.chunk}.{kind}.tsv"
+            for m in ANALYSES[wildcards.analysis]
+        ]
+
+    return files
+
+
+def ancestral_chunk_files(wildcards):
+    return [
+        f"{OUT}/ancestral/{a}/chunk_{c}.npz" for a in ANALYSES for c in chunk_ids()
+    ]
+
+
+def prepared_tree_chunks(wildcards):
+    return [f"{OUT}/prepared/trees/chunk_{c}.npz" for c in chunk_ids()]
+
+
+def ancestral_params(wildcards):
+    return {"analysis": wildcards.analysis, "config": config}
+
+
+def ancestral_runtime(wildcards, attempt):
+    """Minutes for one chunk: maps take ~25 ms per tree at 200 tips and 100 maps."""
+    return 10 + 5 * attempt * max(1, config["trees"]["per_job"] // 100)
+
+
+ANCESTRAL_TREE_PLOTS = [
+    f"{OUT}/plots/ancestral_tree_{a}.{ext}" for a in ANALYSES for ext in ("png", "svg")
+]
+
+
+def ancestral_targets(wildcards):
+    if not ANC["enabled"]:
+        return []
+    return [
+        f"{OUT}/tables/ancestral_states.tsv",
+        f"{OUT}/tables/transitions.tsv",
+        f"{OUT}/tables/state_times.tsv",
+        f"{OUT}/tables/clades.tsv",
+        f"{OUT}/plots/changes.png",
+        f"{OUT}/plots/changes.svg",
+    ] + ANCESTRAL_TREE_PLOTS
+
+
+TARGET_FUNCTIONS.append(ancestral_targets)
+
+
+rule ancestral_clades:
+    input:
+        chunks=prepared_tree_chunks,
+        reference=ANC["reference_tree"] or [],
+    output:
+        clades=report(
+            f"{OUT}/tables/clades.tsv",
+            caption="../report/clades.rst",
+            category="Ancestral states",
+        ),
+        tree=f"{OUT}/ancestral/summary_tree.nwk",
+    params:
+        clades=ANC["clades"],
+        reference=ANC["reference_tree"],
+    log:
+        f"{OUT}/logs/ancestral_clades.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/ancestral_clades.py"
+
+
+rule ancestral_chunk:
+    input:
+        trees=f"{OUT}/prepared/trees/chunk_{{chunk}}.npz",
+        traits=f"{OUT}/prepared/traits.json",
+        clades=f"{OUT}/tables/clades.tsv",
+        fits=ancestral_chunk_inputs("fits"),
+        rates=ancestral_chunk_inputs("rates"),
+    output:
+        f"{OUT}/ancestral/{{analysis}}/chunk_{{chunk}}.npz",
+    params:
+        job=ancestral_params,
+    resources:
+        runtime=ancestral_runtime,
+        mem_mb=1000,
+    log:
+        f"{OUT}/logs/ancestral/{{analysis}}/chunk_{{chunk}}.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/ancestral_chunk.py"
+
+
+rule ancestral_summary:
+    input:
+        chunks=ancestral_chunk_files,
+        clades=f"{OUT}/tables/clades.tsv",
+        used=f"{OUT}/tables/trees_used.tsv",
+    output:
+        states=report(
+            f"{OUT}/tables/ancestral_states.tsv",
+            caption="../report/ancestral_states.rst",
+            category="Ancestral states",
+        ),
+        transitions=report(
+            f"{OUT}/tables/transitions.tsv",
+            caption="../report/transitions.rst",
+            category="Ancestral states",
+        ),
+        times=report(
+            f"{OUT}/tables/state_times.tsv",
+            caption="../report/state_times.rst",
+            category="Ancestral states",
+        ),
+        per_tree=f"{OUT}/tables/transitions_per_tree.tsv",
+    params:
+        analyses=list(ANALYSES),
+    log:
+        f"{OUT}/logs/ancestral_summary.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/ancestral_summary.py"
+
+
+rule plot_ancestral:
+    input:
+        states=f"{OUT}/tables/ancestral_states.tsv",
+        clades=f"{OUT}/tables/clades.tsv",
+        per_tree=f"{OUT}/tables/transitions_per_tree.tsv",
+        tree=f"{OUT}/ancestral/summary_tree.nwk",
+        traits=f"{OUT}/prepared/traits.json",
+    output:
+        trees=[
+            report(p, caption="../report/ancestral_tree.rst", category="Ancestral states")
+            for p in ANCESTRAL_TREE_PLOTS
+        ],
+        changes_png=report(
+            f"{OUT}/plots/changes.png",
+            caption="../report/changes.rst",
+            category="Ancestral states",
+        ),
+        changes_svg=f"{OUT}/plots/changes.svg",
+    params:
+        analyses=list(ANALYSES),
+    log:
+        f"{OUT}/logs/plot_ancestral.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/plot_ancestral.py"
+
+
+rule ancestral:
+    """Only the ancestral-state outputs: snakemake ancestral"""
+    input:
+        ancestral_targets,

@@ -11,7 +11,8 @@ from .models import build_model
 from .seeds import derive_seed
 
 FIT_COLUMNS = ["analysis", "model", "tree", "n_taxa", "n_params", "log_likelihood", "aic", "aicc",
-               "bic", "converged", "n_starts", "n_agree", "at_lower", "at_upper", "root", "note"]
+               "bic", "converged", "n_starts", "n_agree", "at_lower", "at_upper", "root", "note",
+               "structure"]
 RATE_COLUMNS = ["analysis", "model", "tree", "from_state", "to_state", "rate", "parameter",
                 "at_bound"]
 
@@ -36,6 +37,8 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
             models[name] = (model, root)
         return trait, models
     if analysis in config.get("pairs", {}):
+        # contract: pair_analysis(name, pair config (defaults filled), {trait name: Trait})
+        #   -> (joint Trait, {hypothesis name: (RateModel, root)})
         from .pairs import pair_analysis
         return pair_analysis(analysis, config["pairs"][analysis], traits)
     raise InputError(f"analysis '{analysis}' is neither a trait in traits.columns nor a pair.")
@@ -50,7 +53,8 @@ def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, st
         X = trait.tip_partials(tree, absent=absent)
         n = int((X.sum(axis=1) < trait.k).sum())
         row = {"analysis": analysis, "model": model.name, "tree": tree.index, "n_taxa": n,
-               "n_params": model.n_params, "root": root}
+               "n_params": model.n_params, "root": root,
+               "structure": f"{model.signature()} | root {root}"}
         if not varies:
             row.update(log_likelihood=np.nan, aic=np.nan, aicc=np.nan, bic=np.nan, converged=False,
                        n_starts=0, n_agree=0, at_lower="", at_upper="",

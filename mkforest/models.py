@@ -64,6 +64,22 @@ class RateModel:
         q.ravel()[:: self.k + 1] = -q.sum(axis=1)
         return q
 
+    def signature(self) -> str:
+        """The structure alone, independent of names: two models with the same
+        signature are the same hypothesis (e.g. equal and symmetric on two states)."""
+        first = {}
+        parts = []
+        for i in range(self.k):
+            for j in range(self.k):
+                p = int(self.rate_index[i, j])
+                if p >= 0:
+                    parts.append(f"p{first.setdefault(p, len(first))}")
+                elif p == FIXED:
+                    parts.append(f"={self.fixed[i, j]!r}")
+                else:
+                    parts.append("0")
+        return " ".join(parts)
+
     def transitions(self):
         """(from_label, to_label, parameter index or -1/-2) for every allowed transition."""
         out = []

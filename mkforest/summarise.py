@@ -18,12 +18,36 @@ from .compare import akaike_weights
 FEW_TREES = 20   # below this, 95% intervals across trees are rough
 
 
+def mark_duplicates(fits: pd.DataFrame, model_order=None) -> pd.DataFrame:
+    """Add ``same_as``: a model whose structure and root equal those of an earlier
+    model of the same analysis (config order) is the same hypothesis; it is
+    reported but left out of the weights, which it would otherwise split."""
+    fits = fits.copy()
+    fits["same_as"] = ""
+    if "structure" not in fits:
+        return fits
+    for _, g in fits.groupby("analysis", sort=False):
+        models = list(dict.fromkeys(g["model"]))
+        if model_order:
+            models.sort(key=lambda m: model_order.index(m) if m in model_order else len(model_order))
+        first = {}
+        for m in models:
+            sig = g.loc[g["model"] == m, "structure"].iloc[0]
+            if sig in first:
+                fits.loc[g.index[g["model"] == m], "same_as"] = first[sig]
+            else:
+                first[sig] = m
+    return fits
+
+
 def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
-    """Add delta (to the best model on the same tree) and weight columns."""
+    """Add delta (to the best model on the same tree) and weight columns
+    (models marked ``same_as`` another are left out)."""
     fits = fits.copy()
     fits["delta"] = np.nan
     fits["weight"] = np.nan
-    for _, idx in fits.groupby(["analysis", "tree"]).groups.items():
+    use = fits["same_as"].fillna("") == "" if "same_as" in fits else pd.Series(True, fits.index)
+    for _, idx in fits[use].groupby(["analysis", "tree"]).groups.items():
         vals = fits.loc[idx, criterion].to_numpy(dtype=float)
         finite = np.isfinite(vals)
         if not finite.any():
@@ -43,7 +67,7 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
     """One row per analysis x model (``fits`` must carry delta and weight)."""
     rows = []
     for (analysis, model), g in fits.groupby(["analysis", "model"], sort=False):
-        fitted = g[np.isfinite(g["delta"])]
+        fitted = g[np.isfinite(g["delta"].astype(float))]
         n = len(fitted)
         at_bound = ((g["at_lower"].fillna("") != "") | (g["at_upper"].fillna("") != "")).sum()
         rows.append({
@@ -58,6 +82,8 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
             "median_log_likelihood": fitted["log_likelihood"].median() if n else np.nan,
             "n_not_converged": int((~g["converged"].astype(bool)).sum()),
             "n_rates_at_bound": int(at_bound),
+            "n_rates_at_upper": int((g["at_upper"].fillna("") != "").sum()),
+            "same_as": g["same_as"].iloc[0] if "same_as" in g else "",
         })
     out = pd.DataFrame(rows)
     out["caution"] = [cautions(r) for r in out.to_dict("records")]
@@ -67,15 +93,21 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
 def cautions(row: dict) -> str:
     """Plain-words warnings for one analysis x model summary row."""
     words = []
+    if row.get("same_as"):
+        return (f"same hypothesis as '{row['same_as']}' for this analysis (identical rate "
+                "structure); left out of the weights")
     if row["n_trees"] == 0:
         return "not fitted"
     if row["n_not_converged"]:
         words.append(f"{row['n_not_converged']} of {row['n_trees']} fits did not converge "
-                     "(starts disagree); treat their likelihoods with care")
-    if row["n_rates_at_bound"]:
-        words.append(f"{row['n_rates_at_bound']} of {row['n_trees']} fits have a rate at a bound "
-                     "(a rate near zero means no such change is supported; at the upper bound "
-                     "the rate cannot be estimated)")
+                     "(optimiser starts disagree); treat their likelihoods with care")
+    if row.get("n_rates_at_upper"):
+        words.append(f"{row['n_rates_at_upper']} of {row['n_trees']} fits have a rate at the upper "
+                     "bound: that rate cannot be estimated from these data")
+    lower_only = row["n_rates_at_bound"] - row.get("n_rates_at_upper", 0)
+    if lower_only > 0:
+        words.append(f"{lower_only} of {row['n_trees']} fits put a rate at the lower bound "
+                     "(effectively zero: no support for that change)")
     if row["n_trees"] < FEW_TREES:
         words.append(f"only {row['n_trees']} trees: intervals across trees are rough")
     return "; ".join(words)

@@ -9,7 +9,8 @@ import logging
 import pandas as pd
 
 from mkforest.scripting import run_job
-from mkforest.summarise import add_weights, averaged_rates, model_support, rate_summary
+from mkforest.summarise import (add_weights, averaged_rates, mark_duplicates, model_support,
+                                rate_summary)
 
 
 def _read(paths):
@@ -27,16 +28,17 @@ def main(smk):
     order = {a: i for i, a in enumerate(smk.params.analyses)}
     fits = fits.sort_values(["analysis", "model", "tree"],
                             key=lambda s: s.map(order) if s.name == "analysis" else s)
+    fits = mark_duplicates(fits, smk.params.model_order)
     fits = add_weights(fits, smk.params.criterion)
     rates = rates.sort_values(["analysis", "model", "tree", "from_state", "to_state"])
     support = model_support(fits)
     averaged = averaged_rates(fits, rates)
     fits.to_csv(smk.output.fits, sep="\t", index=False, float_format="%.10g")
     rates.to_csv(smk.output.rates, sep="\t", index=False, float_format="%.10g")
-    support.to_csv(smk.output.support, sep="\t", index=False, float_format="%.6g")
+    support.to_csv(smk.output.support, sep="\t", index=False, float_format="%.10g")
     averaged.to_csv(smk.output.averaged, sep="\t", index=False, float_format="%.10g")
     rate_summary(rates, averaged).to_csv(smk.output.rate_summary, sep="\t", index=False,
-                                         float_format="%.6g")
+                                         float_format="%.10g")
     for row in support.to_dict("records"):
         if row["caution"]:
             log.warning("%s / %s: %s", row["analysis"], row["model"], row["caution"])

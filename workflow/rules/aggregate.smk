@@ -22,6 +22,7 @@ rule aggregate_fits:
     params:
         criterion=config["criterion"],
         analyses=ANALYSES,
+        model_order=[m for models in ANALYSES.values() for m in models],
     log:
         f"{OUT}/logs/aggregate_fits.log",
     conda:

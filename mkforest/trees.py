@@ -16,7 +16,6 @@ import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import dendropy
 import numpy as np
 
 from .errors import InputError
@@ -184,6 +183,8 @@ def read_trees(path, schema: str | None = None) -> list:
     schema = schema or _detect_schema(text)
     if not text.strip():
         raise InputError(f"tree file '{path}' is empty.")
+    import dendropy  # imported here: fit jobs only load prepared arrays
+
     try:
         trees = dendropy.TreeList.get(data=text, schema=schema, preserve_underscores=True)
     except Exception as exc:  # DendroPy raises several types; all mean a malformed file
@@ -202,6 +203,8 @@ def read_trees(path, schema: str | None = None) -> list:
 
 def parse_newick(text: str, index: int = 0) -> TreeArrays:
     """One tree from a Newick string."""
+    import dendropy
+
     try:
         tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True)
     except Exception as exc:

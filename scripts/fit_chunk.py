@@ -4,10 +4,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
+import csv
 import json
 import logging
-
-import pandas as pd
 
 from mkforest.fitjobs import FIT_COLUMNS, RATE_COLUMNS, analysis_setup, fit_chunk
 from mkforest.scripting import run_job
@@ -29,8 +28,16 @@ def main(smk):
     bad = sum(1 for f in fits if not f["converged"])
     logging.getLogger("mkforest").info("%s / %s: %d trees fitted, %d not converged",
                                        job["analysis"], job["model"], len(fits), bad)
-    pd.DataFrame(fits, columns=FIT_COLUMNS).to_csv(smk.output.fits, sep="\t", index=False)
-    pd.DataFrame(rates, columns=RATE_COLUMNS).to_csv(smk.output.rates, sep="\t", index=False)
+    write_tsv(smk.output.fits, FIT_COLUMNS, fits)
+    write_tsv(smk.output.rates, RATE_COLUMNS, rates)
+
+
+def write_tsv(path, columns, rows):
+    """Plain csv keeps this job's start-up light (no pandas import); floats in repr form."""
+    with open(path, "w", newline="") as fh:
+        w = csv.DictWriter(fh, columns, delimiter="\t", lineterminator="\n")
+        w.writeheader()
+        w.writerows(rows)
 
 
 run_job(snakemake, main)  # noqa: F821

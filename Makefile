@@ -1,0 +1,36 @@
+# Two entry points for a fresh machine (Python 3.10+ with venv):
+#   make demo   set up .venv, generate the demo data, run the workflow, build the HTML report
+#   make test   set up .venv and run the test suite
+VENV ?= .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.mkforest-installed
+
+.PHONY: demo test test-slow test-cluster setup bench clean-demo
+
+setup: $(STAMP)
+
+$(STAMP): pyproject.toml
+	python3 -m venv $(VENV)
+	$(BIN)/pip install --quiet --upgrade pip
+	$(BIN)/pip install --quiet -e '.[test,cluster]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/snakemake --profile profiles/laptop
+	$(BIN)/snakemake --profile profiles/laptop --report results/demo/report.html
+	@echo "Demo finished: results/demo/ (tables/, plots/, methods.md, report.html)"
+
+test: $(STAMP)
+	$(BIN)/pytest -q
+
+test-slow: $(STAMP)
+	$(BIN)/pytest -q -m slow
+
+test-cluster: $(STAMP)
+	$(BIN)/pytest -q -m slurm
+
+bench: $(STAMP)
+	$(BIN)/python benchmarks/bench_likelihood.py
+
+clean-demo:
+	rm -rf results/demo demo/data

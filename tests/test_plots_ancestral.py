@@ -1,0 +1,71 @@
+"""Ancestral-state figures: real files rendered with matplotlib, and their labels."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from mkforest import plots_ancestral
+from mkforest.clades import consensus_names, node_clades
+from mkforest.traits import trait_from_mapping
+from mkforest.trees import parse_newick
+
+TREE = "(((a:1,b:1):1,c:2):1,((d:1,e:1):1.5,f:2.5):0.5);"
+STATES = ("dry", "wet", "salt")
+
+
+def tables(tree):
+    names = consensus_names(tree)
+    sets = node_clades(tree)
+    clades, rows = [], []
+    rng = np.random.default_rng(0)
+    for v in range(tree.n_tips, tree.n_nodes):
+        clades.append(dict(clade=names[v], kind="consensus", n_tips=len(sets[v]), frequency=0.8,
+                           n_trees_with_clade=8, key="k", members=",".join(sorted(sets[v]))))
+        p = rng.dirichlet(np.ones(3))
+        for s, x in zip(STATES, p):
+            rows.append(dict(analysis="soil", clade=names[v], clade_kind="consensus",
+                             clade_frequency=0.8, n_trees=8, state=s, mean_probability=x))
+    return pd.DataFrame(rows), pd.DataFrame(clades)
+
+
+def test_state_tree_drawn_labelled_and_written(tmp_path):
+    tree = parse_newick(TREE)
+    states, clades = tables(tree)
+    trait = trait_from_mapping("soil", {"a": "dry", "b": "wet", "c": "dry|wet", "d": "?",
+                                        "e": "salt", "f": "salt"}, states=STATES)
+    fig = plots_ancestral.state_tree(tree, states, clades, trait, "soil")
+    ax = fig.axes[0]
+    assert "soil" in ax.get_title()
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert set(STATES) <= set(legend)
+    texts = {t.get_text() for t in ax.texts}
+    assert set("abcdef") <= texts              # every tip labelled
+    assert "0.80" in texts                     # clade frequency shown
+    assert fig.mkforest_nodes_drawn == tree.n_nodes - tree.n_tips
+    paths = [tmp_path / "tree.png", tmp_path / "tree.svg"]
+    plots_ancestral.save(fig, paths)
+    for p in paths:
+        assert p.stat().st_size > 1000
+    assert paths[0].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert b"<svg" in paths[1].read_bytes()[:500]
+
+
+def test_change_counts_panels(tmp_path):
+    rows = []
+    for analysis, states in [("soil", STATES), ("colour", ("red", "blue"))]:
+        for tree in range(10):
+            for a in states:
+                for b in states:
+                    if a != b:
+                        rows.append(dict(analysis=analysis, tree=tree, from_state=a, to_state=b,
+                                         mean_count=float(tree % 3)))
+    fig = plots_ancestral.change_counts(pd.DataFrame(rows))
+    visible = [ax for ax in fig.axes if ax.get_visible()]
+    assert [ax.get_title() for ax in visible] == ["soil (10 trees)", "colour (10 trees)"]
+    ticks = {t.get_text() for t in visible[1].get_xticklabels()}
+    assert ticks == {"red → blue", "blue → red"}
+    assert visible[0].get_ylabel() == "changes on the tree (mean of maps)"
+    path = tmp_path / "changes.png"
+    plots_ancestral.save(fig, [path])
+    assert path.stat().st_size > 1000

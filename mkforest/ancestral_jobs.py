@@ -298,7 +298,7 @@ def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
         if n == 0:
             notes.append("absent from every tree analysed")
         if 0 < n < FEW_TREES:
-            notes.append(f"only {n} trees contribute")
+            notes.append(f"only {n} tree contributes" if n == 1 else f"only {n} trees contribute")
         caution = "; ".join(notes + common)
         for i, s in enumerate(states):
             x = p[:, i] if n else np.array([])

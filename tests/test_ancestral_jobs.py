@@ -1,0 +1,88 @@
+"""Model choice per tree and the cautions of the ancestral-state tables.
+
+Sources: Akaike weights w_i = exp(-d_i/2) / sum_j exp(-d_j/2) (Burnham & Anderson
+2002 -- published source), written out here; rows of a rate matrix sum to zero
+(fact of the trade).
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+
+from mkforest.ancestral_jobs import (model_weights, q_from_rate_rows, resolve_choice, state_table,
+                                     transition_tables)
+
+
+def test_model_weights_follow_akaike_formula():
+    crit = np.array([104.2, 101.0, 107.9, np.inf])
+    d = crit[:3] - crit[:3].min()
+    expected = np.exp(-d / 2) / np.exp(-d / 2).sum()
+    w = model_weights(crit, "average", ["a", "b", "c", "d"])
+    np.testing.assert_allclose(w[:3], expected, rtol=1e-12)
+    assert w[3] == 0.0
+    np.testing.assert_array_equal(model_weights(crit, "best", list("abcd")), [0, 1, 0, 0])
+    np.testing.assert_array_equal(model_weights(crit, "c", list("abcd")), [0, 0, 1, 0])
+    assert not model_weights([np.inf, np.nan], "average", ["a", "b"]).any()
+
+
+def test_rate_rows_to_q_and_model_fallback():
+    rows = pd.DataFrame({"from_state": ["x", "y", "y"], "to_state": ["y", "x", "z"],
+                         "rate": [0.5, 0.2, 1.5]})
+    Q = q_from_rate_rows(rows, ("x", "y", "z"))
+    np.testing.assert_allclose(Q.sum(axis=1), 0.0, atol=1e-15)
+    assert Q[1, 2] == 1.5 and Q[2].sum() == 0 and Q[0, 2] == 0
+    choice, note = resolve_choice("stepwise", ["one_rate", "free"], "habitat")
+    assert choice == "average" and "stepwise" in note and "habitat" in note
+    assert resolve_choice("free", ["one_rate", "free"], "habitat") == ("free", "")
+
+
+def fake_chunk(n_trees=4):
+    k = 2
+    prob = np.full((n_trees, 3, k), np.nan)
+    prob[:, 0] = [0.7, 0.3]            # root: every tree
+    prob[:1, 1] = [0.2, 0.8]           # a rare consensus clade: one tree only
+    prob[:, 2] = [0.5, 0.5]            # a named clade (MRCA): every tree
+    extra = np.zeros((n_trees, 3), dtype=int)
+    extra[1:, 1] = -1
+    extra[2, 2] = 3                    # not monophyletic in one tree
+    counts = np.ones((n_trees, 5, k, k), dtype=np.int32)
+    dwell = np.full((n_trees, 5, k), 2.0)
+    return dict(tree=np.arange(n_trees), prob=prob, extra=extra, counts=counts, dwell=dwell,
+                weights=np.ones((n_trees, 1)), unconverged_weight=np.array([0.0, 0.5, 0, 0])[:n_trees],
+                bound_weight=np.zeros(n_trees), skipped=np.zeros(n_trees, dtype=bool),
+                states=["off", "on"], models=["m"], clades=["root", "rare", "mine"],
+                choice="average", choice_note="")
+
+
+CLADES = pd.DataFrame([
+    dict(clade="root", kind="consensus", n_tips=5, frequency=1.0, n_trees_with_clade=4, key="r",
+         members="a,b,c,d,e"),
+    dict(clade="rare", kind="reference", n_tips=2, frequency=0.25, n_trees_with_clade=1, key="x",
+         members="a,b"),
+    dict(clade="mine", kind="named", n_tips=2, frequency=0.75, n_trees_with_clade=3, key="y",
+         members="c,d"),
+])
+
+
+def test_state_table_says_what_could_mislead():
+    t = state_table("sw", fake_chunk(), CLADES, n_total=4)
+    assert len(t) == 6
+    root = t[t["clade"] == "root"].set_index("state")
+    assert root.loc["off", "mean_probability"] == 0.7 and root.loc["off", "n_trees"] == 4
+    rare = t[t["clade"] == "rare"]["caution"].iloc[0]
+    assert "only 25% of the trees" in rare and "only 1 tree contributes" in rare
+    mine = t[t["clade"] == "mine"]["caution"].iloc[0]
+    assert "not monophyletic in 1 of 4 trees" in mine and "up to 3 other tips" in mine
+    assert "only 4 trees" in mine                     # few trees overall
+    assert "did not converge" in mine                 # tree 2's fits (weight 0.5)
+
+
+def test_transition_tables_pool_maps():
+    trans, times, per_tree = transition_tables("sw", fake_chunk(), n_total=4)
+    assert list(trans["from_state"]) == ["off", "on"] and (trans["n_maps"] == 20).all()
+    assert (trans["mean_count"] == 1.0).all()
+    assert (times["mean_time"] == 2.0).all() and (times["mean_fraction"] == 0.5).all()
+    assert len(per_tree) == 4 * 2

@@ -1,0 +1,55 @@
+# Input functions and targets of the ancestral-state stage (rules in ancestral.smk).
+
+ANC = config["ancestral"]
+
+
+def ancestral_chunk_inputs(kind):
+    """Input function: one chunk's fit tables ('fits' or 'rates') of every model of an analysis."""
+
+    def files(wildcards):
+        return [
+            f"{OUT}/fits/{wildcards.analysis}/{m}/chunk_{wildcards.chunk}.{kind}.tsv"
+            for m in ANALYSES[wildcards.analysis]
+        ]
+
+    return files
+
+
+def ancestral_chunk_files(wildcards):
+    return [
+        f"{OUT}/ancestral/{a}/chunk_{c}.npz" for a in ANALYSES for c in chunk_ids()
+    ]
+
+
+def prepared_tree_chunks(wildcards):
+    return [f"{OUT}/prepared/trees/chunk_{c}.npz" for c in chunk_ids()]
+
+
+def ancestral_params(wildcards):
+    return {"analysis": wildcards.analysis, "config": config}
+
+
+def ancestral_runtime(wildcards, attempt):
+    """Minutes for one chunk: maps take ~25 ms per tree at 200 tips and 100 maps."""
+    return 10 + 5 * attempt * max(1, config["trees"]["per_job"] // 100)
+
+
+ANCESTRAL_TREE_PLOTS = [
+    f"{OUT}/plots/ancestral_tree_{a}.{ext}" for a in ANALYSES for ext in ("png", "svg")
+]
+
+
+def ancestral_targets(wildcards):
+    if not ANC["enabled"]:
+        return []
+    return [
+        f"{OUT}/tables/ancestral_states.tsv",
+        f"{OUT}/tables/transitions.tsv",
+        f"{OUT}/tables/state_times.tsv",
+        f"{OUT}/tables/clades.tsv",
+        f"{OUT}/plots/changes.png",
+        f"{OUT}/plots/changes.svg",
+    ] + ANCESTRAL_TREE_PLOTS
+
+
+TARGET_FUNCTIONS.append(ancestral_targets)

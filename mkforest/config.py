@@ -141,3 +141,22 @@ def analyses(config: dict) -> dict:
     for p in config.get("pairs", {}):
         out[p] = pair_models(config, p)
     return {a: m for a, m in out.items() if m}
+
+
+def fit_job_config(config: dict, analysis: str, model: str) -> dict:
+    """A reduced config holding only what one fit job (analysis x model) reads.
+
+    Snakemake reruns a job when its parameters change; passing the whole config
+    would rerun every fit whenever any model or trait is added.
+    """
+    tcfg = config["traits"]
+    job = {"analysis": analysis, "model": model, "seed": config["seed"],
+           "fitting": config["fitting"],
+           "traits": {"columns": [], "absent_taxa": tcfg["absent_taxa"]},
+           "models": {}, "pairs": {}}
+    if analysis in tcfg["columns"]:
+        job["traits"]["columns"] = [analysis]
+        job["models"] = {model: config["models"][model]}
+    else:
+        job["pairs"] = {analysis: config["pairs"][analysis]}
+    return job

@@ -44,6 +44,23 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     raise InputError(f"analysis '{analysis}' is neither a trait in traits.columns nor a pair.")
 
 
+def check_models_against_table(config: dict) -> None:
+    """Build every analysis's models on the trait table's states, if the table
+    exists yet; raises InputError naming the model, trait and label at fault."""
+    from pathlib import Path
+
+    from .config import analyses
+    from .traits import read_traits
+
+    tcfg = config["traits"]
+    if not Path(tcfg["file"]).is_file():
+        return
+    traits = read_traits(tcfg["file"], tcfg["taxon_column"], tcfg["columns"], tcfg["missing"],
+                         tcfg["separator"], tcfg["order"])
+    for analysis in analyses(config):
+        analysis_setup(config, analysis, traits)
+
+
 def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, starts: int = 5,
               lower: float = 1e-6, upper: float = 1e4, absent: str = "error") -> tuple:
     """Fit one model to one trait on each tree. Returns (fit rows, rate rows) as dicts."""

@@ -16,7 +16,7 @@ from mkforest.trees import load_trees
 
 def main(smk):
     job = smk.params.job
-    config = job["config"]
+    config = job
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
     trait, models = analysis_setup(config, job["analysis"], traits)
     model, root = models[job["model"]]

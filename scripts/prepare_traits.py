@@ -9,9 +9,7 @@ import logging
 
 import pandas as pd
 
-from mkforest.config import analyses
 from mkforest.errors import InputError
-from mkforest.fitjobs import analysis_setup
 from mkforest.prepare import data_check
 from mkforest.scripting import run_job
 from mkforest.traits import read_traits, traits_to_json
@@ -20,11 +18,10 @@ from mkforest.trees import load_trees
 
 def main(smk):
     log = logging.getLogger("mkforest")
-    config = smk.params.config
-    tcfg = config["traits"]
+    tcfg = smk.params.traits
     traits = read_traits(smk.input.traits, tcfg["taxon_column"], tcfg["columns"],
                          tcfg["missing"], tcfg["separator"], tcfg["order"])
-    chunks = sorted(Path(smk.input.used).parent.parent.joinpath("prepared", "trees").glob("chunk_*.npz"))
+    chunks = sorted(Path(smk.input.chunks).glob("chunk_*.npz"))
     tips = load_trees(chunks[0])[0].tip_labels
     rows, problems = data_check(traits, tips, tcfg["absent_taxa"],
                                 f"trait table '{smk.input.traits}'")
@@ -37,8 +34,6 @@ def main(smk):
             log.warning("trait '%s': %s", r["trait"], r["detail"])
     if problems:
         raise InputError(problems[0])
-    for analysis in analyses(config):   # every model must make sense on its trait
-        analysis_setup(config, analysis, traits)
     Path(smk.output.coded).write_text(json.dumps(traits_to_json(traits)))
 
 

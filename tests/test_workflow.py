@@ -128,3 +128,20 @@ def test_rerun_does_nothing_and_new_model_reruns_only_its_jobs(finished_run):
     assert all("/mirrored/" in line for line in fit_jobs)
     assert "rule aggregate_fits" in text
     assert "rule prepare_trees" not in text
+
+
+def test_finished_results_survive_a_bad_edit(finished_run, tmp_path):
+    """A mistake added to a finished run's config fails with a message naming it,
+    and nothing already computed is touched."""
+    work, cfg = finished_run
+    fits = work / "results" / "tiny" / "tables" / "fits.tsv"
+    before = fits.read_text()
+    config = yaml.safe_load(cfg.read_text())
+    config["models"]["bad"] = {"kind": "custom", "applies_to": ["glow"],
+                               "transitions": {"dull -> nowhere": "x"}}
+    cfg2 = tmp_path / "bad.yaml"
+    cfg2.write_text(yaml.safe_dump(config))
+    proc = run_snakemake(work, cfg2)
+    assert proc.returncode != 0
+    assert "nowhere" in proc.stderr + proc.stdout
+    assert fits.read_text() == before

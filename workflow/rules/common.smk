@@ -2,7 +2,8 @@
 import glob
 import os
 
-from mkforest.config import analyses, validate_config
+from mkforest.config import analyses, fit_job_config, validate_config
+from mkforest.fitjobs import check_models_against_table
 from mkforest.errors import InputError
 
 try:
@@ -13,6 +14,23 @@ except InputError as exc:
 OUT = f"results/{config['run']}"
 ANALYSES = analyses(config)
 ENV = "../../envs/mkforest.yaml"
+
+# Check every model against its trait's states now, before any job runs, when
+# the trait table already exists (a typo in a custom model fails at once).
+try:
+    check_models_against_table(config)
+except InputError as exc:
+    raise WorkflowError(f"mkforest: {exc}")
+
+
+def stable(value):
+    """Dicts with sorted keys, recursively: Snakemake reruns a job when its params
+    change, and the order of keys in a YAML file must not count as a change."""
+    if isinstance(value, dict):
+        return {k: stable(value[k]) for k in sorted(value)}
+    if isinstance(value, list):
+        return [stable(v) for v in value]
+    return value
 
 
 wildcard_constraints:
@@ -42,12 +60,9 @@ def fit_files(kind):
 
 
 def fit_params(wildcards):
-    """What one fit job needs from the config."""
-    return {
-        "analysis": wildcards.analysis,
-        "model": wildcards.model,
-        "config": config,
-    }
+    """The part of the config one fit job depends on (and nothing more, so that
+    adding a model or a trait does not rerun the other fits)."""
+    return stable(fit_job_config(config, wildcards.analysis, wildcards.model))
 
 
 def fit_runtime(wildcards, attempt):

@@ -8,7 +8,7 @@ checkpoint prepare_trees:
         chunks=directory(f"{OUT}/prepared/trees"),
         used=f"{OUT}/tables/trees_used.tsv",
     params:
-        trees=config["trees"],
+        trees=stable(config["trees"]),
         seed=config["seed"],
     log:
         f"{OUT}/logs/prepare_trees.log",
@@ -21,7 +21,7 @@ checkpoint prepare_trees:
 rule prepare_traits:
     input:
         traits=config["traits"]["file"],
-        used=f"{OUT}/tables/trees_used.tsv",
+        chunks=rules.prepare_trees.output.chunks,
     output:
         coded=f"{OUT}/prepared/traits.json",
         check=report(
@@ -30,7 +30,7 @@ rule prepare_traits:
             category="Data",
         ),
     params:
-        config=config,
+        traits=stable(config["traits"]),
     log:
         f"{OUT}/logs/prepare_traits.log",
     conda:

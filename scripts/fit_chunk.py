@@ -7,6 +7,7 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 import csv
 import json
 import logging
+import time
 
 from mkforest.fitjobs import FIT_COLUMNS, RATE_COLUMNS, analysis_setup, fit_chunk
 from mkforest.scripting import run_job
@@ -22,9 +23,11 @@ def main(smk):
     model, root = models[job["model"]]
     trees = load_trees(smk.input.trees)
     fit = config["fitting"]
+    start = time.perf_counter()
     fits, rates = fit_chunk(trees, trait, model, root, job["analysis"], config["seed"],
                             fit["starts"], fit["lower"], fit["upper"],
                             config["traits"]["absent_taxa"])
+    logging.getLogger("mkforest").info("fits took %.3f s", time.perf_counter() - start)
     bad = sum(1 for f in fits if not f["converged"])
     logging.getLogger("mkforest").info("%s / %s: %d trees fitted, %d not converged",
                                        job["analysis"], job["model"], len(fits), bad)

@@ -33,6 +33,7 @@ def support_weights(fits: pd.DataFrame, criterion: str = "aicc"):
         order = list(dict.fromkeys(d["model"]))
         sns.boxplot(data=d, x="model", y="weight", order=order, ax=ax, color="#d9e6e1",
                     fliersize=0, width=0.6)
+        np.random.seed(0)  # seaborn jitters from NumPy's global generator: same figure every run
         sns.stripplot(data=d, x="model", y="weight", order=order, ax=ax, size=2.5, alpha=0.6,
                       color="#2b5d52", jitter=0.25)
         ax.set_ylim(-0.03, 1.03)
@@ -88,7 +89,12 @@ def rates_across_trees(rates: pd.DataFrame):
     return fig
 
 
+# SVG element ids from a fixed salt, and no date in the files: a rerun writes the
+# same bytes, so the checksums in manifest.json repeat.
+matplotlib.rcParams["svg.hashsalt"] = "mkforest"
+
+
 def save(fig, paths) -> None:
     for p in paths:
-        fig.savefig(p, dpi=150)
+        fig.savefig(p, dpi=150, metadata={"Date": None} if str(p).endswith(".svg") else None)
     plt.close(fig)

@@ -12,6 +12,7 @@ import textwrap
 from pathlib import Path
 
 import pytest
+import yaml
 
 from slurm_cluster import Cluster, SnakemakeRun, one_node_slurm, run_snakemake_bounded
 
@@ -21,6 +22,7 @@ REPO = Path(__file__).resolve().parents[1]
 SLURM_PROFILE = REPO / "profiles" / "slurm"
 LAPTOP_PROFILE = REPO / "profiles" / "laptop"
 REPO_SNAKEFILE = REPO / "Snakefile"
+
 
 @pytest.fixture(scope="module")
 def slurm_cluster(tmp_path_factory) -> Cluster:
@@ -36,10 +38,11 @@ def run_workflow_on_slurm(
 ) -> SnakemakeRun:
     """Run ``snakefile`` with ``configfile`` in ``workdir`` through profiles/slurm on ``cluster``.
 
-    The profile is used as shipped; ``extra_args`` are appended to the command line
+    The profile is used as shipped; ``extra_args`` go after it on the command line
     (e.g. ``("--slurm-init-seconds-before-status-checks", "20")`` when every job
-    takes longer than the profile's first check at 10 s). Bounded by ``timeout`` seconds (then SIGINT, so Snakemake cancels its jobs).
-    The Snakemake output is in ``workdir/snakemake-slurm.log``.
+    takes longer than the profile's first check at 10 s). Bounded by ``timeout``
+    seconds, then SIGINT, so Snakemake cancels its jobs. Snakemake's output is in
+    ``workdir/snakemake-slurm.log``.
     """
     workdir.mkdir(parents=True, exist_ok=True)
     args = [
@@ -144,3 +147,53 @@ def test_failed_job_is_reported_not_waited_on(slurm_cluster, tmp_path):
     assert run.returncode != 0, output
     assert "Error in rule breaks" in output, output
     assert not (tmp_path / "run" / "never.txt").exists()
+
+
+# --------------------------------------------------------------------------- real workflow
+
+# A small config for the comparison: MKFOREST_SLURM_TEST_CONFIG if set, else config/test*.yaml.
+# Relative input paths in it are read from the run's fresh work folder.
+SMALL_CONFIGS = (
+    [Path(os.environ["MKFOREST_SLURM_TEST_CONFIG"]).resolve()]
+    if os.environ.get("MKFOREST_SLURM_TEST_CONFIG")
+    else sorted((REPO / "config").glob("test*.yaml"))
+)
+
+
+def _first_difference(local: Path, slurm: Path) -> str:
+    """The first differing line of two tables, for a readable failure message."""
+    a, b = local.read_text().splitlines(), slurm.read_text().splitlines()
+    header = a[0] if a else ""
+    for number, (line_a, line_b) in enumerate(zip(a, b), start=1):
+        if line_a != line_b:
+            return f"line {number}\n  columns: {header}\n  local:   {line_a}\n  slurm:   {line_b}"
+    return f"local has {len(a)} lines, slurm has {len(b)}"
+
+
+@pytest.mark.skipif(
+    not REPO_SNAKEFILE.exists() or not SMALL_CONFIGS,
+    reason="needs the workflow's Snakefile and a small config/test*.yaml (or MKFOREST_SLURM_TEST_CONFIG)",
+)
+def test_slurm_run_tables_equal_local_run(slurm_cluster, tmp_path):
+    """The same config run locally and through SLURM gives byte-identical tables.
+
+    Seeds derive from (global seed, tree, analysis, model), never from job order or
+    placement, so where a job runs must not change a single digit.
+    """
+    configfile = SMALL_CONFIGS[0]
+    run_name = yaml.safe_load(configfile.read_text())["run"]
+    local = run_workflow_locally(configfile, tmp_path / "local", timeout=900)
+    assert local.returncode == 0 and not local.timed_out, local.output()
+    slurm = run_workflow_on_slurm(configfile, tmp_path / "slurm", timeout=1500, cluster=slurm_cluster)
+    print(f"real workflow: local {local.seconds:.0f} s, SLURM {slurm.seconds:.0f} s")
+    assert slurm.returncode == 0 and not slurm.timed_out, slurm.output()
+    assert "has been submitted with SLURM jobid" in slurm.log.read_text(), "no job went through SLURM"
+
+    local_tables = tmp_path / "local" / "results" / run_name / "tables"
+    slurm_tables = tmp_path / "slurm" / "results" / run_name / "tables"
+    names = sorted(p.name for p in local_tables.glob("*.tsv"))
+    assert names, f"the local run wrote no tables in {local_tables}"
+    assert sorted(p.name for p in slurm_tables.glob("*.tsv")) == names
+    for name in names:
+        a, b = local_tables / name, slurm_tables / name
+        assert a.read_bytes() == b.read_bytes(), f"{name} differs: {_first_difference(a, b)}"

@@ -1,0 +1,411 @@
+"""Exact gradient of the log-likelihood with respect to the log-rates.
+
+With Q = V diag(lam) V^-1 and P_b = exp(Q t_b), the derivative of P_b with
+respect to a rate theta is (standard result for the derivative of the matrix
+exponential through the eigen-decomposition; e.g. Kalbfleisch & Lawless 1985,
+J. Am. Stat. Assoc. 80:863)
+
+    dP_b/dtheta = V (F_b o (V^-1 dQ/dtheta V)) V^-1,
+    F_b[m, n] = (exp(lam_m t) - exp(lam_n t)) / (lam_m - lam_n),  = t exp(lam_m t) if lam_m = lam_n,
+
+where o is the elementwise product. With D_b the conditional likelihood below
+node b (the down pass, Felsenstein 1981) and u_b the likelihood of everything
+outside b's subtree per state of b's parent (the up pass, started from the
+root weights), every branch satisfies u_b' P_b D_b = L, and
+
+    d lnL / dtheta = sum_b u_b' dP_b D_b / (u_b' P_b D_b)
+                   = sum_ij dQ_ij/dtheta (V^-T G V^T)_ij,
+    G = sum_b ((V' u_b)(V^-1 D_b)') o F_b / (u_b' P_b D_b).
+
+Dividing each branch by its own u_b' P_b D_b makes the sum free of the scale
+factors of the passes, so the vectors need only be kept away from underflow
+(each is normalised as it is made). G is k x k however many parameters there
+are, so the whole gradient costs about as much as two or three likelihoods.
+
+Root treatments: flat and a fixed state start the up pass from their fixed
+weights. Conditional (L = sum L_i^2 / sum L_i, FitzJohn, Maddison & Otto 2009)
+starts it from dL/dL_root,i = (2 L_i - L) / sum_j L_j: the chain rule through
+the root vector. Equilibrium adds d pi / dtheta . L_root / L, with d pi from
+d pi Q = -pi dQ and sum d pi = 0, i.e. d pi = -pi dQ (Q - 1 pi)^-1 (the matrix
+is invertible when the chain has one closed class; standard result).
+
+Where the engine itself leaves the eigen-decomposition (ill-conditioned or
+defective Q, see ``likelihood.eigensystem``), and for the equilibrium root of a
+reducible chain, the gradient is taken by central finite differences of the
+engine's ``log_likelihood`` instead.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+from .likelihood import (_LOG_SCALE, _p_from_eigen, _prune_eigen, _prune_matrices, eigensystem,
+                         log_likelihood, reachable, root_weights)
+
+# How F is computed: F[m, n] off the diagonal is the difference quotient
+# (expm1(lam_m t) - expm1(lam_n t)) / (lam_m - lam_n): the expm1 values carry full
+# relative precision, so its error is about eps * |lam| / |lam_m - lam_n| of the
+# entry's scale t. For a near pair (gap below _NEAR_GAP times the spectral
+# radius, e.g. the repeated eigenvalues of the equal-rates model) with
+# |lam_m - lam_n| t <= _SERIES_LIMIT, t e^{lam_n t} (e^z - 1)/z with
+# z = (lam_m - lam_n) t is used instead, (e^z - 1)/z by its series.
+_NEAR_GAP = 1e-3
+_SERIES_LIMIT = 0.5
+# 1/(n+1)! for n = 0..14: the series of (e^z - 1)/z to z^14 (error < 2e-18 for |z| <= 0.5).
+_PHI1 = np.array([1.0 / math.factorial(n + 1) for n in range(15)])
+_ONE = np.ones(1)
+# Step (in log-rate) of the central finite differences used where the analytic
+# gradient does not apply: about the cube root of the machine epsilon.
+FD_STEP = 1e-5
+
+
+@numba.njit(cache=True)
+def _phi1(z, coef):
+    """(e^z - 1)/z by its series for |z| <= 0.5, real or complex z; as many
+    terms as needed for a relative error below 1e-17."""
+    a = abs(z)
+    n = 4 if a < 1e-4 else (8 if a < 0.02 else coef.shape[0])
+    s = z * 0.0 + coef[n - 1]
+    for i in range(n - 2, -1, -1):
+        s = s * z + coef[i]
+    return s
+
+
+@numba.njit(cache=True)
+def _expm1_real(t, lam, out):
+    """out[b, m] = expm1(lam_m t_b) for real eigenvalues."""
+    for b in range(t.shape[0]):
+        for m in range(lam.shape[0]):
+            out[b, m] = math.expm1(lam[m] * t[b])
+
+
+@numba.njit(cache=True)
+def _expm1_complex(t, lam, out):
+    """out[b, m] = expm1(lam_m t_b) for complex eigenvalues, to full relative precision:
+    e^{x+iy} - 1 = (expm1(x) cos y - 2 sin^2(y/2)) + i e^x sin y. A conjugate pair
+    (as returned by LAPACK, one after the other) is computed once."""
+    k = lam.shape[0]
+    for m in range(k):
+        if m > 0 and lam[m].imag != 0.0 and lam[m] == np.conj(lam[m - 1]):
+            for b in range(t.shape[0]):
+                out[b, m] = np.conj(out[b, m - 1])
+            continue
+        re = lam[m].real
+        im = lam[m].imag
+        for b in range(t.shape[0]):
+            x = re * t[b]
+            if im == 0.0:
+                out[b, m] = math.expm1(x)
+            else:
+                y = im * t[b]
+                h = math.sin(0.5 * y)
+                out[b, m] = complex(math.expm1(x) * math.cos(y) - 2.0 * h * h,
+                                    math.exp(x) * math.sin(y))
+
+
+@numba.njit(cache=True)
+def _reachable(Q):
+    """bool [k,k]: j can be reached from i (i itself included); transitive closure of Q > 0
+    (the same relation as likelihood.reachable)."""
+    k = Q.shape[0]
+    R = np.zeros((k, k), dtype=np.bool_)
+    for i in range(k):
+        for j in range(k):
+            R[i, j] = i == j or Q[i, j] > 0.0
+    for m in range(k):
+        for i in range(k):
+            if R[i, m]:
+                for j in range(k):
+                    if R[m, j]:
+                        R[i, j] = True
+    return R
+
+
+@numba.njit(cache=True)
+def _normalise_abs(x):
+    """Divide x by its largest absolute entry; returns that entry (0 leaves x as it is)."""
+    m = 0.0
+    for i in range(x.shape[0]):
+        a = abs(x[i])
+        if a > m:
+            m = a
+    if m > 0.0:
+        for i in range(x.shape[0]):
+            x[i] /= m
+    return m
+
+
+@numba.njit(cache=True)
+def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use_matrices,
+                   partials, root_outside, coef, G):
+    """Up pass and accumulation of G (see the module docstring).
+
+    partials   [n_nodes, k]  the down pass of the likelihood kernel (scaled per node)
+    E1         [n_nodes, k]  expm1(lam t) per branch (real or complex like V)
+    P          [n_nodes, k, k] explicit transition matrices when ``use_matrices``
+               (reducible chains, as in the likelihood kernel), else unused
+    root_outside [k]         dL / dL_root,i of the root treatment
+    G          [k, k]        filled with the sum over branches (same dtype as V)
+    Returns False if a branch's u' P D is not positive (underflow), so that the
+    caller can fall back to finite differences.
+    """
+    n = partials.shape[0]
+    k = partials.shape[1]
+    # per branch: B[c] = V^-1 D_c and the message P_c D_c to the parent
+    B = np.empty((n, k), dtype=V.dtype)
+    msg = np.empty((n, k))
+    for c in range(n - 1):
+        for m in range(k):
+            s = Vinv[m, 0] * partials[c, 0]
+            for j in range(1, k):
+                s += Vinv[m, j] * partials[c, j]
+            B[c, m] = s
+        for i in range(k):
+            if use_matrices:
+                x = 0.0
+                for j in range(k):
+                    x += P[c, i, j] * partials[c, j]
+            else:
+                s = V[i, 0] * E1[c, 0] * B[c, 0]
+                for m in range(1, k):
+                    s += V[i, m] * E1[c, m] * B[c, m]
+                x = s.real + partials[c, i]
+                x = x if x > 0.0 else 0.0
+            msg[c, i] = x
+    # 1 / (lam_m - lam_n) for the difference quotients, and the near pairs (see 'How F is computed')
+    inv_gap = np.zeros((k, k), dtype=lam.dtype)
+    near = np.zeros((k, k), dtype=np.bool_)
+    radius = 0.0
+    for m in range(k):
+        radius = max(radius, abs(lam[m]))
+    for m in range(k):
+        for q in range(k):
+            gap = abs(lam[m] - lam[q])
+            near[m, q] = gap < _NEAR_GAP * radius or gap == 0.0
+            if gap > 0.0:
+                inv_gap[m, q] = 1.0 / (lam[m] - lam[q])
+    for m in range(k):
+        for q in range(k):
+            G[m, q] = 0.0
+    outside = np.zeros((n, k))
+    for i in range(k):
+        outside[n - 1, i] = root_outside[i]
+    _normalise_abs(outside[n - 1])
+    u = np.empty(k)
+    a = np.empty(k, dtype=V.dtype)
+    for v in range(n - 1, n_tips - 1, -1):
+        for p in range(child_ptr[v], child_ptr[v + 1]):
+            c = children[p]
+            for i in range(k):
+                u[i] = outside[v, i]
+            for r in range(child_ptr[v], child_ptr[v + 1]):
+                s = children[r]
+                if s != c:
+                    for i in range(k):
+                        u[i] *= msg[s, i]
+                    _normalise_abs(u)
+            if _normalise_abs(u) == 0.0:
+                return False
+            den = 0.0
+            for i in range(k):
+                den += u[i] * msg[c, i]
+            if not den > 0.0:
+                return False
+            for m in range(k):
+                s = V[0, m] * u[0]
+                for i in range(1, k):
+                    s += V[i, m] * u[i]
+                a[m] = s
+            t = length[c]
+            if t > 0.0:
+                for m in range(k):
+                    am = a[m] / den
+                    for q in range(k):
+                        if m == q:
+                            f = t * (E1[c, m] + 1.0)
+                        elif near[m, q] and abs(lam[m] - lam[q]) * t <= _SERIES_LIMIT:
+                            f = t * (E1[c, q] + 1.0) * _phi1((lam[m] - lam[q]) * t, coef)
+                        else:
+                            f = (E1[c, m] - E1[c, q]) * inv_gap[m, q]
+                        G[m, q] += am * B[c, q] * f
+            if c >= n_tips:
+                # outside vector over c's states: u' P_c
+                for j in range(k):
+                    if use_matrices:
+                        x = 0.0
+                        for i in range(k):
+                            x += u[i] * P[c, i, j]
+                    else:
+                        s = Vinv[0, j] * E1[c, 0] * a[0]
+                        for m in range(1, k):
+                            s += Vinv[m, j] * E1[c, m] * a[m]
+                        x = u[j] + s.real
+                    outside[c, j] = x
+                _normalise_abs(outside[c])
+    return True
+
+
+@numba.njit(cache=True)
+def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, tip_partials,
+                        conditional, weights, rate_index, coef, root_partial, grad):
+    """Down pass (the likelihood kernel), root, up pass and contraction in one call.
+
+    conditional: root weights L_i / sum L (FitzJohn et al. 2009), else ``weights``.
+    Fills root_partial [k] (scaled) and grad [n_params] (d lnL / d rate, before any
+    equilibrium-root term). Returns (status, lnL): status 0 ok, 1 data impossible,
+    2 gradient not available (underflow in the up pass; use finite differences).
+    """
+    n = child_ptr.shape[0] - 1
+    k = Q.shape[0]
+    reach = _reachable(Q)
+    irreducible = True
+    for i in range(k):
+        for j in range(k):
+            if not reach[i, j]:
+                irreducible = False
+    partials = np.empty((n, k))
+    count = np.empty(n, dtype=np.int64)
+    if irreducible:
+        P = np.empty((0, k, k))
+        ok = _prune_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, count)
+    else:
+        P = np.empty((n, k, k))
+        _p_from_eigen(E1, V, Vinv, reach, length, P)
+        ok = _prune_matrices(child_ptr, children, n_tips, P, tip_partials, partials, count)
+    if not ok:
+        return 1, -np.inf
+    total = 0.0
+    outside = np.empty(k)
+    if conditional:
+        s1 = 0.0
+        s2 = 0.0
+        for i in range(k):
+            s1 += partials[n - 1, i]
+            s2 += partials[n - 1, i] * partials[n - 1, i]
+        if s1 > 0.0:
+            total = s2 / s1
+            for i in range(k):
+                # d/dL_i of sum L^2 / sum L
+                outside[i] = (2.0 * partials[n - 1, i] - total) / s1
+    else:
+        for i in range(k):
+            total += weights[i] * partials[n - 1, i]
+            outside[i] = weights[i]
+    if not total > 0.0:
+        return 1, -np.inf
+    ll = math.log(total) - count[n - 1] * _LOG_SCALE
+    for i in range(k):
+        root_partial[i] = partials[n - 1, i] / total
+    G = np.empty((k, k), dtype=V.dtype)
+    if not _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P,
+                          not irreducible, partials, outside, coef, G):
+        return 2, ll
+    # d lnL/d theta_p = sum over entries (i, j) of parameter p of H_ij - H_ii,
+    # H = Re(V^-T G V^T)
+    H = np.empty((k, k))
+    for i in range(k):
+        for j in range(k):
+            s = G[0, 0] * 0.0
+            for m in range(k):
+                for q in range(k):
+                    s += Vinv[m, i] * G[m, q] * V[j, q]
+            H[i, j] = s.real
+    for p in range(grad.shape[0]):
+        grad[p] = 0.0
+    for i in range(k):
+        for j in range(k):
+            p = rate_index[i, j]
+            if i != j and p >= 0:
+                grad[p] += H[i, j] - H[i, i]
+    return 0, ll
+
+
+def finite_difference_gradient(tree, tip_partials, model, rates, root="flat", states=None,
+                               step: float = FD_STEP):
+    """(lnL, d lnL / d log-rate) with central differences of ``likelihood.log_likelihood``
+    (one-sided where one side is impossible; 0 where both are)."""
+    rates = np.asarray(rates, dtype=np.float64)
+    ll = log_likelihood(tree, tip_partials, model.q_matrix(rates), root, states)
+    grad = np.zeros(model.n_params)
+    if not np.isfinite(ll):
+        return ll, grad
+    x = np.log(rates)
+    for p in range(model.n_params):
+        side = []
+        for h in (step, -step):
+            y = x.copy()
+            y[p] += h
+            side.append(log_likelihood(tree, tip_partials, model.q_matrix(np.exp(y)), root, states))
+        up, down = side
+        if np.isfinite(up) and np.isfinite(down):
+            grad[p] = (up - down) / (2.0 * step)
+        elif np.isfinite(up):
+            grad[p] = (up - ll) / step
+        elif np.isfinite(down):
+            grad[p] = (ll - down) / step
+    return ll, grad
+
+
+def _analytic_eigensystem(Q, root):
+    """The engine's eigensystem of Q when the gradient is taken analytically, else None."""
+    es = eigensystem(Q)
+    if es is None or (root == "equilibrium" and not reachable(Q).all()):
+        return None
+    return es
+
+
+def exact_gradient_applies(Q, root) -> bool:
+    """True when ``log_likelihood_and_gradient`` differentiates analytically at Q
+    (well-conditioned eigenvectors; for the equilibrium root also an irreducible
+    chain); otherwise it takes central finite differences. (It also falls back if
+    the up pass underflows, which needs likelihood ratios beyond 1e-300 between
+    the states of one node.)"""
+    return _analytic_eigensystem(np.asarray(Q, dtype=np.float64), root) is not None
+
+
+def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="flat", states=None):
+    """(lnL, d lnL / d log(rate_p) for every free rate p) of ``model`` at ``rates``.
+
+    lnL is the engine's ``likelihood.log_likelihood`` (same kernels; equal to
+    rounding); -inf (with a zero gradient) when the data are impossible under
+    the rates. ``states`` names the states for a fixed-state root (default: the
+    model's).
+    """
+    rates = np.asarray(rates, dtype=np.float64)
+    tip_partials = np.ascontiguousarray(tip_partials, dtype=np.float64)
+    if states is None:
+        states = model.states
+    Q = model.q_matrix(rates)
+    es = _analytic_eigensystem(Q, root)
+    if es is None:
+        return finite_difference_gradient(tree, tip_partials, model, rates, root, states)
+    equilibrium = root == "equilibrium"
+    lam, V, Vinv = es
+    k = Q.shape[0]
+    E1 = np.empty((tree.n_nodes, k), dtype=lam.dtype)
+    if lam.dtype == np.complex128:
+        _expm1_complex(tree.length, lam, E1)
+    else:
+        _expm1_real(tree.length, lam, E1)
+    conditional = root == "conditional"
+    weights = _ONE if conditional else root_weights(root, Q, None, states)
+    root_partial = np.empty(k)
+    grad = np.empty(model.n_params)
+    status, ll = _value_and_gradient(tree.child_ptr, tree.children, tree.n_tips, tree.length, Q,
+                                     lam, E1, V, Vinv, tip_partials, conditional, weights,
+                                     model.rate_index, _PHI1, root_partial, grad)
+    if status == 1:
+        return -np.inf, np.zeros(model.n_params)
+    if status == 2:
+        return finite_difference_gradient(tree, tip_partials, model, rates, root, states)
+    if equilibrium:
+        # d pi = -pi dQ (Q - 1 pi)^-1, so d pi . L_root / L = -pi dQ z with
+        # z = (Q - 1 pi)^-1 L_root / L (root_partial is already L_root / L)
+        z = np.linalg.solve(Q - weights[None, :], root_partial)
+        M = -weights[:, None] * (z[None, :] - z[:, None])
+        free = model.rate_index >= 0
+        grad += np.bincount(model.rate_index[free], weights=M[free], minlength=model.n_params)
+    return ll, grad * rates

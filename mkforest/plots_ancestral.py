@@ -162,7 +162,14 @@ def change_counts(per_tree: pd.DataFrame):
     return fig
 
 
+# SVG element ids from a fixed salt, and no date in the files: a rerun writes the
+# same bytes, so the checksums in manifest.json repeat.
+matplotlib.rcParams["svg.hashsalt"] = "mkforest"
+
+
 def save(fig, paths) -> None:
     for p in paths:
-        fig.savefig(p, dpi=150 if str(p).endswith(".png") else None, bbox_inches="tight")
+        svg = str(p).endswith(".svg")
+        fig.savefig(p, dpi=None if svg else 150, bbox_inches="tight",
+                    metadata={"Date": None} if svg else None)
     plt.close(fig)

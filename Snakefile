@@ -21,6 +21,7 @@ include: "workflow/rules/fit.smk"
 include: "workflow/rules/aggregate.smk"
 include: "workflow/rules/plots.smk"
 include: "workflow/rules/ancestral.smk"
+include: "workflow/rules/pairs.smk"
 
 
 rule all:

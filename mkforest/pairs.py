@@ -24,6 +24,14 @@ Built-in hypotheses (binary x binary parameter counts in brackets):
                            state; the second's rates do not [6]
   second_depends_on_first  the reverse [6]
 
+Under ``independent`` the joint rate matrix is the Kronecker sum of the two
+traits' all_different matrices, P(t) is the Kronecker product of theirs and the
+joint tip data are outer products, so the conditional likelihoods factor at
+every node, L(i, j) = L1(i) L2(j). With a flat, equilibrium or conditional
+root the joint ln L is then exactly the sum of the two traits' separate ln L
+(for the conditional root because sum_ij (L1i L2j)^2 / sum_ij L1i L2j is the
+product of the two traits' sum L^2 / sum L), and so are the maxima.
+
 Rate labels read as ``trait: from->to`` when the rate holds in every state of
 the other trait and ``trait: from->to | other=state`` when it holds only in
 that state.
@@ -290,7 +298,9 @@ def pair_analysis(name: str, spec: dict, traits: dict, where: str = "config") ->
     """(joint Trait, {hypothesis: (RateModel, root)}) for one pair: what the fit jobs
     need to fit a pair exactly as they fit a single trait."""
     pair = pair_from_config(name, spec, traits, where)
-    return pair.joint_trait(), pair_models(name, spec, pair, where)
+    models = pair_models(name, spec, pair, where)
+    selected_tests(name, spec, models, where)     # a test that cannot be run fails here, early
+    return pair.joint_trait(), models
 
 
 def pair_tests(models: dict) -> list:
@@ -300,6 +310,28 @@ def pair_tests(models: dict) -> list:
     for n in nested_tests([m for m, _ in models.values()]):
         if models[n.null][1] == models[n.alternative][1]:
             out.append(n)
+    return out
+
+
+def selected_tests(name: str, spec: dict, models: dict, where: str = "config") -> list:
+    """The pair's tests: those in ``spec['tests']``, or every nested pair of hypotheses."""
+    nested = {(n.null, n.alternative): n for n in pair_tests(models)}
+    wanted = spec.get("tests")
+    if not wanted:
+        return list(nested.values())
+    out = []
+    for null, alt in wanted:
+        for h in (null, alt):
+            if h not in models:
+                raise InputError(f"{where}: pairs.{name}.tests names hypothesis '{h}', which is not "
+                                 f"among the pair's hypotheses ({', '.join(models)}).")
+        if (null, alt) not in nested:
+            why = ("they use different root treatments" if models[null][1] != models[alt][1]
+                   else f"'{null}' is not nested in '{alt}' (not every rate matrix of the first is "
+                        "one of the second), so their likelihood ratio has no chi-square reference")
+            raise InputError(f"{where}: pairs.{name}.tests: [{null}, {alt}] cannot be tested: {why}. "
+                             "Compare them by AICc weight instead (model_support.tsv).")
+        out.append(nested[(null, alt)])
     return out
 
 
@@ -466,7 +498,7 @@ def _best_fit(tree, tip_partials, model, root, starts, n_random: int, seed: int)
 
 
 def replicate_statistic(tree, tip_partials, null: RateModel, alt: RateModel, null_rates,
-                        root="flat", n_starts: int = 2, seed: int = 0) -> float:
+                        root="flat", n_starts: int = 1, seed: int = 0) -> float:
     """LR statistic of one data set simulated under the null at ``null_rates``.
 
     The null is refitted from the rates it was simulated under and from
@@ -485,7 +517,7 @@ def replicate_statistic(tree, tip_partials, null: RateModel, alt: RateModel, nul
 
 
 def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel, null_rates,
-                         root="flat", replicates=range(0), seed: int = 0, n_starts: int = 2) -> np.ndarray:
+                         root="flat", replicates=range(0), seed: int = 0, n_starts: int = 1) -> np.ndarray:
     """LR statistics of data sets simulated under the fitted null (Goldman 1993).
 
     One value per replicate number r in ``replicates``; replicate r uses the seed

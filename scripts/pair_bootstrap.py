@@ -1,0 +1,54 @@
+"""Parametric bootstrap of a trait pair's tests on one chunk of trees."""
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
+
+import json
+import logging
+
+import pandas as pd
+
+from mkforest.pair_jobs import (BOOTSTRAP_COLUMNS, bootstrap_chunk, bootstrap_tree_indices,
+                                rates_from_rows)
+from mkforest.pairs import pair_from_config, pair_models, selected_tests
+from mkforest.scripting import run_job
+from mkforest.traits import traits_from_json
+from mkforest.trees import load_trees
+
+
+def _read(paths):
+    return pd.concat([pd.read_csv(p, sep="\t") for p in paths], ignore_index=True)
+
+
+def main(smk):
+    log = logging.getLogger("mkforest")
+    job = smk.params.job
+    config, name = job["config"], job["pair"]
+    spec = config["pairs"][name]
+    traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
+    pair = pair_from_config(name, spec, traits)
+    models = pair_models(name, spec, pair)
+    tests = selected_tests(name, spec, models)
+    trees = load_trees(smk.input.trees)
+    used = pd.read_csv(smk.input.used, sep="\t")["tree"].tolist()
+    selected = set(bootstrap_tree_indices(used, spec["bootstrap_trees"]))
+    fits, rates = _read(smk.input.fits), _read(smk.input.rates)
+    null_rates = {}
+    for test in tests:
+        model = models[test.null][0]
+        for t, rows in rates[rates["model"] == test.null].groupby("tree"):
+            r = rates_from_rows(model, rows)
+            ok = fits[(fits["model"] == test.null) & (fits["tree"] == t)]["log_likelihood"]
+            if r is not None and len(ok) and pd.notna(ok.iloc[0]):
+                null_rates[(test.null, int(t))] = r
+    mine = [t.index for t in trees if t.index in selected]
+    log.info("pair %s: bootstrapping %d trees of this chunk (%s), %d tests, %d data sets each",
+             name, len(mine), mine, len(tests), spec["bootstrap"])
+    rows = bootstrap_chunk(pair, models, tests, trees, selected, null_rates, spec["bootstrap"],
+                           config["seed"], spec["bootstrap_starts"])
+    pd.DataFrame(rows, columns=BOOTSTRAP_COLUMNS).to_csv(smk.output[0], sep="\t", index=False,
+                                                         float_format="%.10g")
+
+
+run_job(snakemake, main)  # noqa: F821

@@ -1,0 +1,182 @@
+"""Trait pairs in the real workflow: a Snakemake run on a tiny generated data set.
+
+Checks the pair's rows in the standard tables, the tests recomputed from the
+fits (statistic 2 (ln L_alt - ln L_null); chi-square p-value from
+scipy.stats.chi2, general-purpose reference library; degrees of freedom from
+the parameter counts, Pagel 1994), the bootstrap p-value recomputed from the
+simulated statistics ((1 + #{T* >= T}) / (N + 1), common practice), that the
+bootstrap does not depend on the chunking, and that the figures are written
+and carry their labels.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.stats import chi2
+
+from mkforest import pairs
+from mkforest.errors import InputError
+from mkforest.pair_jobs import bootstrap_tree_indices
+from mkforest.plots_pairs import pair_diagram, pair_tests_figure
+from mkforest.traits import trait_from_mapping, traits_from_json
+from workflow_helpers import run_snakemake, tiny_config
+
+ROUND_FIRST = {"plain+round <-> banded+round": "band",
+               "plain+round <-> plain+toothed": "tooth",
+               "banded+round -> banded+toothed": "tooth"}
+
+
+def pair_config(work, per_job=2):
+    return tiny_config(
+        work,
+        trees={"file": str(work / "data" / "trees.nex"), "burnin": 1, "per_job": per_job},
+        traits={"file": str(work / "data" / "traits.tsv"), "taxon_column": "taxon",
+                "columns": ["banding", "aperture"]},
+        models={"one_rate": {"kind": "equal"}},
+        pairs={"shell": {"traits": ["banding", "aperture"],
+                         "hypotheses": ["independent", "dependent"],
+                         "custom": {"round_first": {"transitions": ROUND_FIRST}},
+                         "bootstrap": 5, "bootstrap_trees": 2}})
+
+
+@pytest.fixture(scope="module")
+def pair_run(tmp_path_factory):
+    work = tmp_path_factory.mktemp("pairs")
+    cfg = pair_config(work)
+    proc = run_snakemake(work, cfg)
+    assert proc.returncode == 0, proc.stderr[-4000:]
+    out = work / "results" / "tiny"
+    tables = {n: pd.read_csv(out / "tables" / f"{n}.tsv", sep="\t")
+              for n in ("fits", "rates", "pair_tests", "pair_summary", "pair_bootstrap",
+                        "trees_used", "rate_summary", "model_support")}
+    return work, out, tables
+
+
+def test_pair_fits_and_rates_in_the_standard_tables(pair_run):
+    _, _, t = pair_run
+    fits = t["fits"][t["fits"]["analysis"] == "shell"]
+    assert set(fits["model"]) == {"independent", "dependent", "round_first"}
+    assert fits.groupby("model")["n_params"].first().to_dict() == {
+        "independent": 4, "dependent": 8, "round_first": 2}          # Pagel 1994: 4 and 8
+    rates = t["rates"][t["rates"]["analysis"] == "shell"]
+    joint = {"plain+round", "plain+toothed", "banded+round", "banded+toothed"}
+    assert set(rates["from_state"]) <= joint and set(rates["to_state"]) <= joint
+    # no change of both traits at once is ever listed as a transition (Pagel 1994)
+    for f, to in zip(rates["from_state"], rates["to_state"]):
+        a, b = f.split("+"), to.split("+")
+        assert (a[0] == b[0]) != (a[1] == b[1])
+
+
+def test_tests_recomputed_from_the_fits(pair_run):
+    _, _, t = pair_run
+    tests, fits = t["pair_tests"], t["fits"]
+    assert set(zip(tests["null"], tests["alternative"])) == {
+        ("independent", "dependent"), ("round_first", "dependent")}
+    ll = fits[fits["analysis"] == "shell"].set_index(["model", "tree"])
+    for row in tests.to_dict("records"):
+        n, a = ll.loc[(row["null"], row["tree"])], ll.loc[(row["alternative"], row["tree"])]
+        stat = max(0.0, 2 * (a["log_likelihood"] - n["log_likelihood"]))
+        assert row["statistic"] == pytest.approx(stat, rel=1e-5, abs=1e-6)
+        assert row["df"] == a["n_params"] - n["n_params"]
+        assert row["p_chi2"] == pytest.approx(chi2.sf(row["statistic"], row["df"]), rel=1e-4)
+        assert row["reject_chi2"] == (row["p_chi2"] <= 0.05)
+    boundary = tests.groupby(["null", "alternative"])["boundary"].first().to_dict()
+    assert boundary == {("independent", "dependent"): False, ("round_first", "dependent"): True}
+    assert tests.loc[tests["boundary"], "note"].str.contains("approximate").all()
+
+
+def test_bootstrap_p_values_and_tree_choice(pair_run):
+    _, _, t = pair_run
+    tests, boot, used = t["pair_tests"], t["pair_bootstrap"], t["trees_used"]
+    chosen = bootstrap_tree_indices(used["tree"].tolist(), 2)
+    assert chosen == [used["tree"].iloc[0], used["tree"].iloc[-1]]
+    assert set(boot["tree"]) == set(chosen)
+    with_boot = tests[tests["n_bootstrap"] > 0]
+    assert set(with_boot["tree"]) == set(chosen)
+    assert (with_boot["n_bootstrap"] == 5).all()
+    assert tests.loc[tests["n_bootstrap"] == 0, "p_bootstrap"].isna().all()
+    for row in with_boot.to_dict("records"):
+        sims = boot[(boot["null"] == row["null"]) & (boot["alternative"] == row["alternative"])
+                    & (boot["tree"] == row["tree"])]["statistic"].to_numpy()
+        assert sorted(boot[(boot["tree"] == row["tree"]) & (boot["null"] == row["null"])
+                           ]["replicate"].unique()) == list(range(5))
+        expected = (1 + np.sum(sims >= row["statistic"] - 1e-6 * abs(row["statistic"]))) / 6
+        assert row["p_bootstrap"] == pytest.approx(expected)
+    assert (boot["statistic"] >= 0).all()
+
+
+def test_summary_across_trees(pair_run):
+    _, _, t = pair_run
+    tests, summary = t["pair_tests"], t["pair_summary"]
+    for row in summary.to_dict("records"):
+        g = tests[(tests["null"] == row["null"]) & (tests["alternative"] == row["alternative"])]
+        assert row["n_trees"] == len(g) == 5
+        assert row["fraction_reject_chi2"] == pytest.approx(g["reject_chi2"].mean())
+        assert row["median_statistic"] == pytest.approx(g["statistic"].median(), rel=1e-5)
+        assert row["critical_chi2"] == pytest.approx(chi2.isf(0.05, row["df"]), rel=1e-5)
+        assert row["n_trees_bootstrap"] == 2
+        assert "only 5 trees" in row["caution"]
+        assert "5 bootstrap data sets per tree" in row["caution"]
+
+
+def test_bootstrap_does_not_depend_on_chunking(pair_run, tmp_path):
+    """Same seed, one chunk of five trees instead of chunks of two: identical statistics."""
+    work, _, t = pair_run
+    (tmp_path / "data").symlink_to(work / "data")
+    cfg = pair_config(tmp_path, per_job=5)
+    proc = run_snakemake(tmp_path, cfg, "results/tiny/tables/pair_bootstrap.tsv")
+    assert proc.returncode == 0, proc.stderr[-4000:]
+    again = pd.read_csv(tmp_path / "results/tiny/tables/pair_bootstrap.tsv", sep="\t")
+    assert (tmp_path / "results/tiny/pairs/shell/bootstrap/chunk_0000.tsv").exists()
+    key = ["null", "alternative", "tree", "replicate"]
+    a = t["pair_bootstrap"].sort_values(key).reset_index(drop=True)
+    b = again.sort_values(key).reset_index(drop=True)
+    assert not (tmp_path / "results/tiny/pairs/shell/bootstrap/chunk_0001.tsv").exists()
+    pd.testing.assert_frame_equal(a[key + ["statistic"]], b[key + ["statistic"]])
+
+
+def test_pair_plots_written_with_their_labels(pair_run):
+    work, out, t = pair_run
+    for kind in ("diagram", "tests"):
+        png = out / "plots" / "pairs" / f"shell.{kind}.png"
+        svg = out / "plots" / "pairs" / f"shell.{kind}.svg"
+        assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and png.stat().st_size > 10_000
+        assert svg.read_text().lstrip().startswith("<?xml") and svg.stat().st_size > 10_000
+    # the same figures rebuilt from the run's tables: their texts name what they show
+    traits = traits_from_json(json.loads((out / "prepared" / "traits.json").read_text()))
+    pair = pairs.make_pair("shell", traits["banding"], traits["aperture"])
+    fig = pair_diagram(pair, t["rate_summary"], t["model_support"])
+    texts = {x.get_text() for ax in fig.axes for x in ax.texts}
+    titles = " ".join(ax.get_title() for ax in fig.axes)
+    assert set(pair.states) <= texts
+    for h in ("independent", "dependent", "round_first", "model average"):
+        assert h in titles
+    legend = {x.get_text() for x in fig.legends[0].get_texts()}
+    assert {"banding changes", "aperture changes"} <= legend
+    fig = pair_tests_figure("shell", t["pair_tests"], t["pair_bootstrap"])
+    titles = " ".join(ax.get_title() for ax in fig.axes)
+    assert "independent vs dependent" in titles and "parametric bootstrap" in titles
+    labels = {ax.get_xlabel() for ax in fig.axes}
+    assert any("likelihood-ratio statistic" in x for x in labels)
+    legend_texts = {x.get_text() for ax in fig.axes if ax.get_legend()
+                    for x in ax.get_legend().get_texts()}
+    assert any(x.startswith("χ² 95% point, df 4") for x in legend_texts)
+    assert any(x.startswith("simulated under independent") for x in legend_texts)
+
+
+def test_untestable_pair_is_refused_early():
+    """A listed test whose null is not nested in its alternative: InputError naming the key."""
+    traits = {"banding": trait_from_mapping("banding", {"a": "plain", "b": "banded"}),
+              "aperture": trait_from_mapping("aperture", {"a": "round", "b": "toothed"})}
+    spec = {"traits": ["banding", "aperture"], "hypotheses": ["independent", "dependent"],
+            "tests": [["dependent", "independent"]]}
+    with pytest.raises(InputError, match=r"pairs.shell.tests: \[dependent, independent\] cannot "
+                                         r"be tested: 'dependent' is not nested in 'independent'"):
+        pairs.pair_analysis("shell", spec, traits)
+    spec["tests"] = [["independent", "linked"]]
+    with pytest.raises(InputError, match=r"names hypothesis 'linked'"):
+        pairs.pair_analysis("shell", spec, traits)

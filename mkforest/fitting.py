@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.optimize import minimize
 
+from .gradient import log_likelihood_and_gradient
 from .likelihood import prune, root_weights
 
 LOWER = 1e-6
@@ -130,12 +131,15 @@ def fit_model(tree, tip_partials, model, root="flat", n_starts: int = 5, seed: i
         starts.append(np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0))
 
     def objective(x):
-        ll = f(np.exp(x))
-        return -ll if np.isfinite(ll) else _IMPOSSIBLE
+        # exact gradient (mkforest.gradient), in log-rate space
+        ll, grad = log_likelihood_and_gradient(tree, f.tip_partials, model, np.exp(x), root)
+        if not np.isfinite(ll):
+            return _IMPOSSIBLE, np.zeros(p)
+        return -ll, -grad
 
     results = []
     for x0 in starts:
-        res = minimize(objective, x0, method="L-BFGS-B", bounds=[(lo, hi)] * p,
+        res = minimize(objective, x0, method="L-BFGS-B", jac=True, bounds=[(lo, hi)] * p,
                        options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6})
         results.append((res.fun, res.x, res.success))
     results.sort(key=lambda r: r[0])

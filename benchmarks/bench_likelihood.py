@@ -1,0 +1,163 @@
+"""Benchmark: log-likelihood, its gradient, and maximum-likelihood fits.
+
+    .venv/bin/python benchmarks/bench_likelihood.py [--repeat 5] [--fit-trees 10]
+
+Sections:
+1. one evaluation of ln L, of ln L + exact gradient (mkforest.gradient) and of
+   ln L + a forward-difference gradient (p + 1 likelihoods, what L-BFGS-B does
+   without a gradient), symmetric (real eigenvalues) and all_different models on
+   4 states, 500 and 2,000 tips;
+2. one all_different 4-state fit on 500 tips with its 5 starts: before (scipy's
+   finite-difference gradient on the same objective, starts and bounds) and
+   after (fit_model, exact gradient);
+3. the workflow's unit of work: fits of equal / symmetric / all_different on
+   200-tip trees, and what 1,000 trees x 4 traits x 3 models cost on 2 cores.
+
+Every timing is the minimum over ``--repeat`` runs (other jobs share the
+machine). numba compilation is done before anything is timed.
+"""
+
+from __future__ import annotations
+
+import os
+
+# the matrices are tiny (k <= 8): BLAS threads only add contention
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ[_var] = "1"
+
+import argparse  # noqa: E402
+import math  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+from scipy.optimize import minimize  # noqa: E402
+
+from bench_mapping import pure_birth_tree  # noqa: E402
+from mkforest import fitting  # noqa: E402
+from mkforest.fitting import LogLikelihood, fit_model  # noqa: E402
+from mkforest.gradient import log_likelihood_and_gradient  # noqa: E402
+from mkforest.models import build_model  # noqa: E402
+from mkforest.simulate import simulate_states, tip_partials_from_states  # noqa: E402
+
+STATES4 = ("w", "x", "y", "z")
+
+
+def best_time(fn, repeat, number=1):
+    """Minimum over ``repeat`` runs of the mean time of ``number`` calls."""
+    best = math.inf
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        for _ in range(number):
+            fn()
+        best = min(best, (time.perf_counter() - t0) / number)
+    return best
+
+
+def make_case(rng, n_tips, model, rates, index=0):
+    tree = pure_birth_tree(rng, n_tips, index=index)
+    s = simulate_states(tree, model.q_matrix(rates), rng)
+    return tree, tip_partials_from_states(s, tree.n_tips, model.k)
+
+
+def fit_finite_difference(tree, X, model, root="flat", n_starts=5, seed=0):
+    """The fit as it was before the exact gradient: the same objective, starts,
+    bounds and options, with scipy's finite-difference gradient. Returns best ln L."""
+    f = LogLikelihood(tree, X, model, root)
+    p = model.n_params
+    height = tree.height
+    lo, hi = math.log(fitting.LOWER / height), math.log(fitting.UPPER / height)
+    guess = math.log(min(max(fitting._starting_rate(tree, X, model), fitting.LOWER / height * 10),
+                         fitting.UPPER / height / 10))
+    rng = np.random.default_rng(seed)
+    starts = [np.full(p, guess)]
+    for _ in range(n_starts - 1):
+        starts.append(np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0))
+
+    def objective(x):
+        ll = f(np.exp(x))
+        return -ll if np.isfinite(ll) else fitting._IMPOSSIBLE
+
+    best = math.inf
+    for x0 in starts:
+        res = minimize(objective, x0, method="L-BFGS-B", bounds=[(lo, hi)] * p,
+                       options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6})
+        best = min(best, res.fun)
+    return -best
+
+
+def section_evaluations(rng, repeat):
+    print("1. one evaluation on 4 states, flat root (all_different here has complex eigenvalues)")
+    print(f"   {'model':<14} {'tips':>5} {'lnL':>10} {'lnL+grad':>10} {'ratio':>6} {'lnL+fwd diff':>13}")
+    for kind, rates in (("symmetric", None), ("all_different", None)):
+        model = build_model(kind, STATES4)
+        rates = rng.uniform(0.3, 1.5, model.n_params)
+        for n_tips in (500, 2000):
+            tree, X = make_case(rng, n_tips, model, rates)
+            f = LogLikelihood(tree, X, model)
+            f(rates)
+            log_likelihood_and_gradient(tree, X, model, rates)
+            number = 200 if n_tips <= 500 else 50
+            t_ll = best_time(lambda: f(rates), repeat, number)
+            t_grad = best_time(lambda: log_likelihood_and_gradient(tree, X, model, rates),
+                               repeat, number)
+            t_fd = t_ll * (model.n_params + 1)
+            print(f"   {kind:<14} {n_tips:>5} {1e3 * t_ll:8.3f}ms {1e3 * t_grad:8.3f}ms "
+                  f"{t_grad / t_ll:6.2f} {1e3 * t_fd:11.3f}ms")
+    lam = np.linalg.eigvals(model.q_matrix(rates))
+    print(f"   (eigenvalues of the last all_different Q: {np.round(lam, 3)})")
+
+
+def section_fit(rng, repeat):
+    model = build_model("all_different", STATES4)
+    rates = rng.uniform(0.3, 1.5, model.n_params)
+    tree, X = make_case(rng, 500, model, rates)
+    fit_model(tree, X, model, seed=1)
+    t_old = best_time(lambda: fit_finite_difference(tree, X, model, seed=1), max(1, repeat // 2))
+    t_new = best_time(lambda: fit_model(tree, X, model, seed=1), repeat)
+    ll_old = fit_finite_difference(tree, X, model, seed=1)
+    ll_new = fit_model(tree, X, model, seed=1).log_likelihood
+    print("2. one fit, all_different on 4 states, 500 tips, 5 starts")
+    print(f"   before (finite differences) {t_old:8.3f} s   ln L {ll_old:.6f}")
+    print(f"   after  (exact gradient)     {t_new:8.3f} s   ln L {ll_new:.6f}")
+    print(f"   speed-up {t_old / t_new:.1f}x")
+
+
+def section_workflow(rng, repeat, n_trees):
+    print(f"3. fits on 200-tip trees (mean over {n_trees} trees, each the minimum of "
+          f"{repeat} runs), 5 starts, flat root")
+    total = 0.0
+    for k in (3, 4):
+        states = STATES4[:k]
+        truth = build_model("all_different", states)
+        rates = rng.uniform(0.3, 1.5, truth.n_params)
+        cases = [make_case(rng, 200, truth, rates, index=i) for i in range(n_trees)]
+        per_model = []
+        for kind in ("equal", "symmetric", "all_different"):
+            model = build_model(kind, states)
+            fit_model(*cases[0], model, seed=0)
+            secs = np.mean([best_time(lambda c=c: fit_model(*c, model, seed=c[0].index), repeat)
+                            for c in cases])
+            per_model.append(secs)
+            print(f"   k={k} {kind:<14} {1e3 * secs:8.1f} ms per fit")
+        total = max(total, sum(per_model))
+    # 1,000 trees x 4 traits x (equal + symmetric + all_different), 2 processes
+    est = 1000 * 4 * total / 2
+    print(f"   1,000 trees x 4 traits x 3 models on 2 cores (slower of k=3/k=4): "
+          f"about {est / 60:.1f} min of fitting")
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeat", type=int, default=5)
+    ap.add_argument("--fit-trees", type=int, default=10)
+    ap.add_argument("--skip-fit", action="store_true", help="only the per-evaluation timings")
+    args = ap.parse_args()
+    rng = np.random.default_rng(7)
+    section_evaluations(rng, args.repeat)
+    if not args.skip_fit:
+        section_fit(rng, args.repeat)
+        section_workflow(rng, args.repeat, args.fit_trees)
+
+
+if __name__ == "__main__":
+    main()

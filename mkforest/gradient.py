@@ -42,7 +42,7 @@ import math
 import numba
 import numpy as np
 
-from .likelihood import (_LOG_SCALE, _p_from_eigen, _prune_eigen, _prune_matrices, eigensystem,
+from .likelihood import (_LOG_SCALE, _p_from_eigen, _prune_matrices, _rescale, eigensystem,
                          log_likelihood, reachable, root_weights)
 
 # How F is computed: F[m, n] off the diagonal is the difference quotient
@@ -139,11 +139,60 @@ def _normalise_abs(x):
 
 
 @numba.njit(cache=True)
+def _down_pass_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, scale_count,
+                     B, msg):
+    """likelihood._prune_eigen (same arithmetic, same rescaling), keeping for every
+    branch c what the up pass needs: B[c] = V^-1 D_c and the message msg[c] = P_c D_c."""
+    n_nodes = partials.shape[0]
+    k = partials.shape[1]
+    for v in range(n_tips):
+        for i in range(k):
+            partials[v, i] = tip_partials[v, i]
+        scale_count[v] = 0
+    for v in range(n_tips, n_nodes):
+        for i in range(k):
+            partials[v, i] = 1.0
+        count = 0
+        for p in range(child_ptr[v], child_ptr[v + 1]):
+            c = children[p]
+            count += scale_count[c]
+            zero = True
+            for m in range(k):
+                if E1[c, m] != 0.0:
+                    zero = False
+            for m in range(k):
+                s = Vinv[m, 0] * partials[c, 0]
+                for j in range(1, k):
+                    s += Vinv[m, j] * partials[c, j]
+                B[c, m] = s
+            if zero:
+                for i in range(k):
+                    msg[c, i] = partials[c, i]
+                    partials[v, i] *= partials[c, i]
+                continue
+            for i in range(k):
+                s = V[i, 0] * (B[c, 0] * E1[c, 0])
+                for m in range(1, k):
+                    s += V[i, m] * (B[c, m] * E1[c, m])
+                x = s.real + partials[c, i]
+                # round-off can leave -1e-17 where the probability is tiny
+                x = x if x > 0.0 else 0.0
+                msg[c, i] = x
+                partials[v, i] *= x
+        count += _rescale(partials, v, k)
+        if count < 0:
+            return False
+        scale_count[v] = count
+    return True
+
+
+@numba.njit(cache=True)
 def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use_matrices,
-                   partials, root_outside, coef, G):
+                   partials, B, msg, root_outside, coef, G):
     """Up pass and accumulation of G (see the module docstring).
 
     partials   [n_nodes, k]  the down pass of the likelihood kernel (scaled per node)
+    B, msg     [n_nodes, k]  V^-1 D_c and P_c D_c per branch (filled here when ``use_matrices``)
     E1         [n_nodes, k]  expm1(lam t) per branch (real or complex like V)
     P          [n_nodes, k, k] explicit transition matrices when ``use_matrices``
                (reducible chains, as in the likelihood kernel), else unused
@@ -154,27 +203,19 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
     """
     n = partials.shape[0]
     k = partials.shape[1]
-    # per branch: B[c] = V^-1 D_c and the message P_c D_c to the parent
-    B = np.empty((n, k), dtype=V.dtype)
-    msg = np.empty((n, k))
-    for c in range(n - 1):
-        for m in range(k):
-            s = Vinv[m, 0] * partials[c, 0]
-            for j in range(1, k):
-                s += Vinv[m, j] * partials[c, j]
-            B[c, m] = s
-        for i in range(k):
-            if use_matrices:
+    if use_matrices:
+        # B[c] = V^-1 D_c and the message P_c D_c (the eigen path fills them in its down pass)
+        for c in range(n - 1):
+            for m in range(k):
+                s = Vinv[m, 0] * partials[c, 0]
+                for j in range(1, k):
+                    s += Vinv[m, j] * partials[c, j]
+                B[c, m] = s
+            for i in range(k):
                 x = 0.0
                 for j in range(k):
                     x += P[c, i, j] * partials[c, j]
-            else:
-                s = V[i, 0] * E1[c, 0] * B[c, 0]
-                for m in range(1, k):
-                    s += V[i, m] * E1[c, m] * B[c, m]
-                x = s.real + partials[c, i]
-                x = x if x > 0.0 else 0.0
-            msg[c, i] = x
+                msg[c, i] = x
     # 1 / (lam_m - lam_n) for the difference quotients, and the near pairs (see 'How F is computed')
     inv_gap = np.zeros((k, k), dtype=lam.dtype)
     near = np.zeros((k, k), dtype=np.bool_)
@@ -268,9 +309,12 @@ def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv
                 irreducible = False
     partials = np.empty((n, k))
     count = np.empty(n, dtype=np.int64)
+    B = np.empty((n, k), dtype=V.dtype)
+    msg = np.empty((n, k))
     if irreducible:
         P = np.empty((0, k, k))
-        ok = _prune_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, count)
+        ok = _down_pass_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials,
+                              count, B, msg)
     else:
         P = np.empty((n, k, k))
         _p_from_eigen(E1, V, Vinv, reach, length, P)
@@ -301,7 +345,7 @@ def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv
         root_partial[i] = partials[n - 1, i] / total
     G = np.empty((k, k), dtype=V.dtype)
     if not _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P,
-                          not irreducible, partials, outside, coef, G):
+                          not irreducible, partials, B, msg, outside, coef, G):
         return 2, ll
     # d lnL/d theta_p = sum over entries (i, j) of parameter p of H_ij - H_ii,
     # H = Re(V^-T G V^T)

@@ -1,0 +1,126 @@
+"""Published methods a run may rest on, as structured references.
+
+The methods text (mkforest.methods) cites them in the text as "Felsenstein
+1981" and lists them in full; the archive's CITATION.cff lists the same works
+under ``references``. The short forms and their roles are those of
+../shared/design/references.md; titles, volumes and pages were recalled from
+memory: check them against the journals before a manuscript goes out.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class Reference:
+    key: str
+    authors: tuple          # ((family names, given initials), ...)
+    year: int
+    title: str
+    journal: str = ""
+    volume: int | None = None
+    pages: tuple | None = None     # (first, last)
+    publisher: str = ""
+    place: str = ""
+    edition: str = ""
+
+    def cite(self) -> str:
+        """In-text form: 'Pagel 1994', 'Hurvich & Tsai 1989', 'Byrd et al. 1995'."""
+        names = [family for family, _ in self.authors]
+        if len(names) == 1:
+            who = names[0]
+        elif len(names) == 2:
+            who = f"{names[0]} & {names[1]}"
+        elif len(names) == 3:
+            who = f"{names[0]}, {names[1]} & {names[2]}"
+        else:
+            who = f"{names[0]} et al."
+        return f"{who} {self.year}"
+
+    def full(self) -> str:
+        """One line of a reference list."""
+        names = [f"{family}, {given}" for family, given in self.authors]
+        who = names[0] if len(names) == 1 else ", ".join(names[:-1]) + " & " + names[-1]
+        if self.journal:
+            where = f"{self.journal} {self.volume}: {self.pages[0]}–{self.pages[1]}."
+        else:
+            edition = f"{self.edition} edition. " if self.edition else ""
+            where = f"{edition}{self.publisher}, {self.place}."
+        return f"{who} ({self.year}) {self.title}. {where}"
+
+    def cff(self) -> dict:
+        """The reference as a CITATION.cff 1.2.0 ``references`` entry."""
+        entry = {"type": "article" if self.journal else "book",
+                 "authors": [{"family-names": f, "given-names": g} for f, g in self.authors],
+                 "title": self.title, "year": self.year}
+        if self.journal:
+            entry.update({"journal": self.journal, "volume": self.volume,
+                          "start": self.pages[0], "end": self.pages[1]})
+        else:
+            entry["publisher"] = {"name": self.publisher, "city": self.place}
+            if self.edition:
+                entry["edition"] = self.edition
+        return entry
+
+
+_ALL = [
+    Reference("felsenstein1981", (("Felsenstein", "J."),), 1981,
+              "Evolutionary trees from DNA sequences: a maximum likelihood approach",
+              "Journal of Molecular Evolution", 17, (368, 376)),
+    Reference("lewis2001", (("Lewis", "P. O."),), 2001,
+              "A likelihood approach to estimating phylogeny from discrete morphological "
+              "character data", "Systematic Biology", 50, (913, 925)),
+    Reference("akaike1974", (("Akaike", "H."),), 1974,
+              "A new look at the statistical model identification",
+              "IEEE Transactions on Automatic Control", 19, (716, 723)),
+    Reference("hurvich1989", (("Hurvich", "C. M."), ("Tsai", "C.-L.")), 1989,
+              "Regression and time series model selection in small samples",
+              "Biometrika", 76, (297, 307)),
+    Reference("schwarz1978", (("Schwarz", "G."),), 1978, "Estimating the dimension of a model",
+              "Annals of Statistics", 6, (461, 464)),
+    Reference("burnham2002", (("Burnham", "K. P."), ("Anderson", "D. R.")), 2002,
+              "Model Selection and Multimodel Inference: A Practical Information-Theoretic "
+              "Approach", publisher="Springer", place="New York", edition="2nd"),
+    Reference("fitzjohn2009", (("FitzJohn", "R. G."), ("Maddison", "W. P."), ("Otto", "S. P.")),
+              2009, "Estimating trait-dependent speciation and extinction rates from incompletely "
+              "resolved phylogenies", "Systematic Biology", 58, (595, 611)),
+    Reference("byrd1995", (("Byrd", "R. H."), ("Lu", "P."), ("Nocedal", "J."), ("Zhu", "C.")),
+              1995, "A limited memory algorithm for bound constrained optimization",
+              "SIAM Journal on Scientific Computing", 16, (1190, 1208)),
+    Reference("pagel1994", (("Pagel", "M."),), 1994,
+              "Detecting correlated evolution on phylogenies: a general method for the "
+              "comparative analysis of discrete characters",
+              "Proceedings of the Royal Society of London B", 255, (37, 45)),
+    Reference("goldman1993", (("Goldman", "N."),), 1993,
+              "Statistical tests of models of DNA substitution",
+              "Journal of Molecular Evolution", 36, (182, 198)),
+    Reference("self1987", (("Self", "S. G."), ("Liang", "K.-Y.")), 1987,
+              "Asymptotic properties of maximum likelihood estimators and likelihood ratio tests "
+              "under nonstandard conditions", "Journal of the American Statistical Association",
+              82, (605, 610)),
+    Reference("yang1995", (("Yang", "Z."), ("Kumar", "S."), ("Nei", "M.")), 1995,
+              "A new method of inference of ancestral nucleotide and amino acid sequences",
+              "Genetics", 141, (1641, 1650)),
+    Reference("nielsen2002", (("Nielsen", "R."),), 2002, "Mapping mutations on phylogenies",
+              "Systematic Biology", 51, (729, 739)),
+    Reference("huelsenbeck2003", (("Huelsenbeck", "J. P."), ("Nielsen", "R."),
+                                  ("Bollback", "J. P.")), 2003,
+              "Stochastic mapping of morphological characters", "Systematic Biology", 52,
+              (131, 158)),
+    Reference("margush1981", (("Margush", "T."), ("McMorris", "F. R.")), 1981, "Consensus n-trees",
+              "Bulletin of Mathematical Biology", 43, (239, 244)),
+]
+
+REFERENCES = {r.key: r for r in _ALL}
+
+
+def cite(*keys) -> str:
+    """'(Akaike 1974; Hurvich & Tsai 1989)' for the given keys, in the given order."""
+    return "(" + "; ".join(REFERENCES[k].cite() for k in keys) + ")"
+
+
+def cited_in(text: str) -> list:
+    """The references whose in-text form occurs in ``text``, sorted by first author and year."""
+    found = [r for r in _ALL if r.cite() in text]
+    return sorted(found, key=lambda r: (r.authors[0][0].lower(), r.year))

@@ -1,0 +1,504 @@
+"""A methods and results text for a manuscript, written from one run's settings and tables.
+
+Every number in the text is read from the run's tables and rounded; every
+setting from the resolved config. Published methods are cited in the text and
+listed in full at the end (mkforest.citations). Stages that did not run (trait
+pairs, ancestral states) are mentioned only when their tables are given.
+
+``methods_text(config, tables, models, software)``:
+  tables   {name: DataFrame}: model_support, fits, trees_used, data_check and
+           rate_summary are needed; pair_summary, ancestral_states, transitions
+           and clades are used when present
+  models   {analysis: {model name: (RateModel, root)}} as built for the fits
+  software {package: version}, from mkforest.provenance.software_versions()
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import pandas as pd
+
+from .citations import REFERENCES, cite, cited_in
+from .fitting import AGREE_TOL
+from .pairs import HYPOTHESES
+
+CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
+CRITERION_REFS = {"aicc": ("akaike1974", "hurvich1989"), "aic": ("akaike1974",),
+                  "bic": ("schwarz1978",)}
+KIND_WORDS = {
+    "equal": "one rate for every change",
+    "symmetric": "one rate per pair of states, the same in both directions",
+    "all_different": "a separate rate for every change",
+}
+
+
+# --------------------------------------------------------------------------- numbers as words
+
+def number(x, digits: int = 2) -> str:
+    """Rounded for the text; 'n/a' when missing, '<0.01' rather than a misleading 0.00."""
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "n/a"
+    x = float(x)
+    if x != 0 and abs(x) < 0.5 * 10 ** -digits:
+        return f"<{10 ** -digits:.{digits}f}" if x > 0 else f"-<{10 ** -digits:.{digits}f}"
+    return f"{x:.{digits}f}"
+
+
+def p_value(p) -> str:
+    if p is None or not math.isfinite(float(p)):
+        return "n/a"
+    return "<0.001" if p < 0.001 else f"{p:.3f}"
+
+
+def count_of(fraction, n: int) -> int:
+    """Trees behind a fraction of n trees (fractions in the tables are k / n)."""
+    return int(round(float(fraction) * n)) if n else 0
+
+
+def plural(n: int, word: str, many: str | None = None) -> str:
+    return f"{n} {word if n == 1 else (many or word + 's')}"
+
+
+def listing(items) -> str:
+    items = list(items)
+    if len(items) <= 2:
+        return " and ".join(items)
+    return ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def _how_often(k: int, n: int) -> str:
+    if n == 0:
+        return "on no tree (no tree could be fitted)"
+    if k == n:
+        return "on every tree" if n > 1 else "on the single tree"
+    if k == 0:
+        return "on no tree"
+    share = k / n
+    if share >= 0.9:
+        return "on nearly every tree"
+    if share > 0.5:
+        return "on most trees"
+    return "on fewer than half of the trees, so the ranking depends on the tree"
+
+
+# --------------------------------------------------------------------------- model structures
+
+def describe_model(model, pair_traits=None) -> str:
+    """Plain-words structure of one candidate model, with its number of rates."""
+    if pair_traits and model.kind in HYPOTHESES:
+        first, second = pair_traits
+        words = {
+            "independent": f"{first} and {second} each change at their own rates, whatever the "
+                           "state of the other",
+            "dependent": f"the rates of {first} depend on the state of {second} and vice versa",
+            "first_depends_on_second": f"the rates of {first} depend on the state of {second}; "
+                                       f"those of {second} do not",
+            "second_depends_on_first": f"the rates of {second} depend on the state of {first}; "
+                                       f"those of {first} do not",
+        }[model.kind]
+    elif model.kind in KIND_WORDS:
+        words = KIND_WORDS[model.kind]
+    else:
+        words = f"only the changes listed are allowed ({model.describe()})"
+    return f"{words} ({plural(model.n_params, 'rate')})"
+
+
+def root_words(root: str) -> str:
+    return {"flat": "every state equally probable at the root",
+            "equilibrium": "the root states at the model's stationary distribution",
+            "conditional": "each root state weighted by its conditional likelihood "
+                           + cite("fitzjohn2009")}.get(root, f"the root fixed in state '{root}'")
+
+
+# --------------------------------------------------------------------------- paragraphs
+
+def _data_paragraph(config, tables) -> str:
+    check = tables["data_check"]
+    used = tables["trees_used"]
+    parts, missing, ambiguous = [], False, False
+    for trait in config["traits"]["columns"]:
+        rows = check[check["trait"] == trait].set_index("item")["value"]
+        states = [i.split(":", 1)[1] for i in rows.index if str(i).startswith("state:")]
+        scored = int(sum(int(rows[f"state:{s}"]) for s in states) + int(rows.get("ambiguous", 0)))
+        extra = []
+        if int(rows.get("ambiguous", 0)):
+            extra.append(f"{int(rows['ambiguous'])} of them ambiguous")
+            ambiguous = True
+        if int(rows.get("missing", 0)):
+            missing = True
+        detail = f"; {', '.join(extra)}" if extra else ""
+        parts.append(f"{trait} ({len(states)} states: {', '.join(states)}; scored for {scored} "
+                     f"taxa{detail})")
+    n_tips = int(used["n_tips"].iloc[0])
+    text = (f"We analysed {plural(len(parts), 'categorical trait')} of {n_tips} taxa: "
+            f"{listing(parts)}.")
+    if missing:
+        text += " Cells scored as unknown were treated as compatible with every state."
+    if ambiguous:
+        text += " Ambiguous cells were treated as compatible with each of their listed states."
+    return text
+
+
+def _trees_paragraph(config, tables) -> str:
+    tcfg = config["trees"]
+    used = tables["trees_used"]
+    positions = sorted(int(t) for t in used["tree"])
+    n = len(positions)
+    name = Path(tcfg["file"]).name
+    if n == 1:
+        return (f"Every model was fitted on one tree, the tree at position {positions[0]} "
+                f"(counted from 0) of {name}; phylogenetic uncertainty was not taken into account.")
+    steps = []
+    burnin = tcfg["burnin"]
+    if burnin == 0:
+        steps.append("no trees were discarded as burn-in")
+    elif burnin < 1:
+        steps.append(f"the first {burnin * 100:g}% of the trees in the file were discarded as burn-in")
+    else:
+        steps.append("the first tree in the file was discarded as burn-in" if int(burnin) == 1 else
+                     f"the first {int(burnin)} trees in the file were discarded as burn-in")
+    if tcfg["thin"] > 1:
+        steps.append(f"every {_ordinal(tcfg['thin'])} tree was kept")
+    regular = all(b - a == tcfg["thin"] for a, b in zip(positions, positions[1:]))
+    if tcfg.get("sample") is not None and not regular:
+        steps.append(f"{n} trees were drawn at random from those left (seed {config['seed']})")
+    span = (f"positions {positions[0]} to {positions[-1]}" if regular and tcfg["thin"] == 1
+            else f"{n} positions from {positions[0]} to {positions[-1]}")
+    return (f"To take phylogenetic uncertainty into account, every model was fitted separately on "
+            f"each of {n} trees from the tree sample in {name}: {listing(steps)}. The trees used "
+            f"are listed in tables/trees_used.tsv by their position in the file ({span}, counted "
+            "from 0).")
+
+
+def _ordinal(n: int) -> str:
+    suffix = "th" if 10 <= n % 100 <= 20 else {1: "st", 2: "nd", 3: "rd"}.get(n % 10, "th")
+    return f"{n}{suffix}"
+
+
+def _models_paragraph(config, models, support) -> str:
+    pairs = config.get("pairs", {})
+    lines = []
+    roots = {}
+    for analysis, named in models.items():
+        pair_traits = tuple(pairs[analysis]["traits"]) if analysis in pairs else None
+        label = (f"the pair {pair_traits[0]} × {pair_traits[1]} ({analysis})" if pair_traits
+                 else analysis)
+        described = [f"{name}, {describe_model(m, pair_traits)}"
+                     for name, (m, _) in named.items()]
+        lines.append(f"for {label}: {'; '.join(described)}")
+        for name, (_, root) in named.items():
+            roots.setdefault(root, []).append(f"{name} ({analysis})")
+    text = ("Each trait was modelled as a continuous-time Markov chain on its states (the Mk "
+            f"model; {REFERENCES['lewis2001'].cite()}), and likelihoods were computed with the "
+            f"pruning algorithm {cite('felsenstein1981')}. The candidate models were, "
+            + "; ".join(lines) + ".")
+    if len(roots) == 1:
+        text += f" Every model was fitted with {root_words(next(iter(roots)))}."
+    else:
+        text += " Root treatment: " + "; ".join(
+            f"{root_words(r)} for {listing(who)}" for r, who in roots.items()) + "."
+    if "same_as" in support:
+        same = support[support["same_as"].fillna("").astype(str) != ""]
+        for row in same.to_dict("records"):
+            text += (f" For {row['analysis']}, {row['model']} has the same rate structure and root "
+                     f"as {row['same_as']}; it is the same hypothesis and was left out of the "
+                     "weights.")
+    return text
+
+
+def _fitting_paragraph(config, software) -> str:
+    fit = config["fitting"]
+    starts = fit["starts"]
+    scipy_version = software.get("scipy", "")
+    text = ("Rates were estimated by maximum likelihood, on a log scale, with the L-BFGS-B "
+            f"algorithm {cite('byrd1995')} of SciPy {scipy_version}, from "
+            f"{plural(starts, 'starting point')} per tree and model. Each rate was bounded between "
+            f"{fit['lower']:g} and {fit['upper']:g} expected changes along the tree's root-to-tip "
+            "height, so the bounds scale with each tree; estimates at a bound are flagged in "
+            "tables/rates.tsv.")
+    if starts > 1:
+        text += (f" A fit counted as converged when at least two starts reached the best "
+                 f"log-likelihood within {AGREE_TOL:g} units.")
+    else:
+        text += " With a single start per fit, convergence could not be checked."
+    return text
+
+
+def _comparison_paragraph(config) -> str:
+    crit = config["criterion"]
+    name = CRITERION_NAMES[crit]
+    return (f"On each tree, the models of each trait were ranked by {name} "
+            f"{cite(*CRITERION_REFS[crit])}, with the number of taxa scored as the sample size, and "
+            f"{name} differences were converted to Akaike weights {cite('burnham2002')}. Support "
+            "across the tree sample is given as the mean Akaike weight over trees and the number "
+            f"of trees on which a model had the lowest {name}; the {name} difference to the best "
+            "model is summarised by its median and central 95% interval across trees. Rates were "
+            "also averaged over models with each tree's Akaike weights.")
+
+
+def _pairs_paragraph(config, pair_summary) -> str:
+    pairs = config["pairs"]
+    described = [f"{p} ({spec['traits'][0]} × {spec['traits'][1]})" for p, spec in pairs.items()]
+    text = (f"For the trait {'pair' if len(pairs) == 1 else 'pairs'} {listing(described)}, the two "
+            "traits were combined into one Markov chain on their joint states in which only one "
+            f"trait changes at a time {cite('pagel1994')}, and the hypotheses listed above were "
+            "fitted on every tree like the models of single traits. Nested hypotheses were "
+            "compared on each tree by likelihood-ratio tests, referring twice the difference in "
+            "log-likelihood to a chi-square distribution with as many degrees of freedom as the "
+            "alternative has extra rates.")
+    if pair_summary is not None and "boundary" in pair_summary and \
+            pair_summary["boundary"].astype(str).str.lower().eq("true").any():
+        text += (" Where the null hypothesis forbids rates that the alternative leaves free, it "
+                 "lies on the boundary of the alternative's parameter space and the chi-square "
+                 f"reference is only approximate {cite('self1987')}.")
+    boot = {p: spec for p, spec in pairs.items() if spec.get("bootstrap", 0) > 0}
+    for p, spec in boot.items():
+        text += (f" For {p}, the statistic was also compared with its distribution in "
+                 f"{spec['bootstrap']} data sets simulated under the fitted null hypothesis on each "
+                 f"of {plural(spec.get('bootstrap_trees', 10), 'tree')} spread evenly through the "
+                 f"sample (parametric bootstrap; {REFERENCES['goldman1993'].cite()}).")
+    alphas = sorted({spec.get("alpha", 0.05) for spec in pairs.values()})
+    text += f" Tests used a significance level of {listing(f'{a:g}' for a in alphas)}."
+    return text
+
+
+def _ancestral_paragraph(config, tables) -> str:
+    anc = config.get("ancestral", {})
+    choice = anc.get("model", "average")
+    how = {"average": "averaged over models with each tree's Akaike weights",
+           "best": f"under the model with the lowest {CRITERION_NAMES[config['criterion']]} on "
+                   "each tree"}.get(choice, f"under the model {choice}")
+    if anc.get("reference_tree"):
+        where = f"the clades of the reference tree {Path(anc['reference_tree']).name}"
+    else:
+        where = ("the clades of the majority-rule consensus of the tree sample "
+                 + cite("margush1981"))
+    named = list(anc.get("clades", {}))
+    if named:
+        where += f" and at the named {'clade' if len(named) == 1 else 'clades'} {listing(named)}"
+    text = ""
+    if "ancestral_states" in tables:
+        text += (f"Marginal ancestral state probabilities {cite('yang1995')} were computed on each "
+                 f"tree at {where}, {how}, and averaged across the trees that contain each clade.")
+    maps = anc.get("maps", 0)
+    if "transitions" in tables and maps:
+        text += (f" {plural(maps, 'stochastic character map')} per tree "
+                 f"{cite('nielsen2002', 'huelsenbeck2003')} gave the expected number of changes "
+                 "between states along the whole tree.")
+    return text.strip()
+
+
+def _software_paragraph(config, software) -> str:
+    libs = [f"{name} {software[key]}" for key, name in
+            (("numpy", "NumPy"), ("scipy", "SciPy"), ("dendropy", "DendroPy"),
+             ("pandas", "pandas"), ("seaborn", "seaborn")) if software.get(key)]
+    return (f"The analysis ran with mkforest {software.get('mkforest', '')} as a Snakemake "
+            f"{software.get('snakemake', '')} workflow under Python {software.get('python', '')} "
+            f"({', '.join(libs)}), with seed {config['seed']}. The file manifest.json beside this "
+            "text lists the complete settings and the SHA-256 checksum of every input and result "
+            "file.")
+
+
+# --------------------------------------------------------------------------- results
+
+def _analysis_results(analysis, support, rate_summary, crit_name) -> str:
+    rows = support[support["analysis"] == analysis]
+    same = rows["same_as"].fillna("").astype(str) if "same_as" in rows else pd.Series("", rows.index)
+    ranked = rows[same == ""].sort_values("mean_weight", ascending=False, na_position="last")
+    n = int(ranked["n_trees"].max()) if len(ranked) else 0
+    if n == 0:
+        return (f"{analysis} was not fitted (see tables/data_check.tsv: a trait needs at least "
+                "two observed states).")
+    best = ranked.iloc[0]
+    k_best = count_of(best["fraction_best"], int(best["n_trees"]))
+    text = (f"Across the {n} trees, {best['model']} received the most support (mean Akaike "
+            f"weight {number(best['mean_weight'])}; lowest {crit_name} on {k_best} of "
+            f"{int(best['n_trees'])} trees): it was the best model "
+            f"{_how_often(k_best, int(best['n_trees']))}.")
+    if best["mean_weight"] < 0.5:
+        text += (" No model carries most of the weight on average: the data do not clearly "
+                 "favour one model.")
+    others = []
+    for row in ranked.iloc[1:].to_dict("records"):
+        m = int(row["n_trees"])
+        others.append(f"{row['model']} (mean weight {number(row['mean_weight'])}; lowest "
+                      f"{crit_name} on {count_of(row['fraction_best'], m)} of {m} trees; median "
+                      f"Δ{crit_name} {number(row['median_delta'])}, 95% interval across trees "
+                      f"{number(row['delta_low95'])} to {number(row['delta_high95'])})")
+    if others:
+        text += (" The other model: " if len(others) == 1 else " The other models: ") \
+            + "; ".join(others) + "."
+    rates = rate_summary[(rate_summary["analysis"] == analysis)
+                         & (rate_summary["model"] == best["model"])]
+    if len(rates):
+        parts = [f"{r['from_state']}→{r['to_state']} {number(r['median_rate'])} "
+                 f"({number(r['rate_low95'])} to {number(r['rate_high95'])})"
+                 for r in rates.to_dict("records")]
+        text += (f" Under {best['model']}, the median rates across trees (central 95% interval; "
+                 f"changes per unit branch length) were: {'; '.join(parts)}.")
+    return text
+
+
+def _cautions(rows: pd.DataFrame, key: str) -> list:
+    out = []
+    for row in rows.to_dict("records"):
+        c = row.get("caution")
+        if isinstance(c, str) and c.strip():
+            out.append(f"{row[key]}: {c.strip()}")
+    return out
+
+
+def _pair_results(pair, summary) -> str:
+    rows = summary[summary["pair"] == pair]
+    sentences = []
+    for r in rows.to_dict("records"):
+        n = int(r["n_trees"])
+        if n == 0:
+            sentences.append(f"{r['null']} against {r['alternative']}: not tested (no tree has "
+                             "both fits).")
+            continue
+        k = count_of(r["fraction_reject_chi2"], n)
+        s = (f"The likelihood-ratio test of {r['null']} against {r['alternative']} "
+             f"({plural(int(r['df']), 'degree')} of freedom, critical value "
+             f"{number(r['critical_chi2'])} at α = {r['alpha']:g}) rejected {r['null']} on {k} of "
+             f"{n} trees (median statistic {number(r['median_statistic'])}, 95% interval across "
+             f"trees {number(r['statistic_low95'])} to {number(r['statistic_high95'])}; median "
+             f"p = {p_value(r['median_p_chi2'])})")
+        nb = int(r.get("n_trees_bootstrap", 0) or 0)
+        if nb:
+            kb = count_of(r["fraction_reject_bootstrap"], nb)
+            s += (f"; the parametric bootstrap rejected it on {kb} of {nb} trees (median p = "
+                  f"{p_value(r['median_p_bootstrap'])})")
+        sentences.append(s + ".")
+    return " ".join(sentences)
+
+
+def _ancestral_results(analysis, tables) -> str:
+    text = []
+    states = tables.get("ancestral_states")
+    clades = tables.get("clades")
+    if states is not None and clades is not None and len(clades):
+        top = clades.sort_values("n_tips", ascending=False).iloc[0]
+        root = states[(states["analysis"] == analysis) & (states["clade"] == top["clade"])]
+        if len(root) and int(top["n_tips"]) == int(clades["n_tips"].max()):
+            parts = [f"{r['state']} {number(r['mean_probability'])} "
+                     f"({number(r['probability_low95'])} to {number(r['probability_high95'])})"
+                     for r in root.to_dict("records")]
+            text.append("Mean probabilities of the states at the root across trees (central 95% "
+                        f"interval): {'; '.join(parts)}.")
+    trans = tables.get("transitions")
+    if trans is not None:
+        rows = trans[trans["analysis"] == analysis]
+        if len(rows) and int(rows["n_maps"].max()) > 0:
+            parts = [f"{r['from_state']}→{r['to_state']} {number(r['mean_count'], 1)} "
+                     f"({number(r['count_low95'], 1)} to {number(r['count_high95'], 1)})"
+                     for r in rows.to_dict("records")]
+            text.append(f"Expected numbers of changes along the whole tree (mean over "
+                        f"{int(rows['n_maps'].max())} maps on {int(rows['n_trees'].max())} trees, "
+                        f"central 95% interval of the maps): {'; '.join(parts)}.")
+    return " ".join(text)
+
+
+def _ancestral_cautions(analysis, tables) -> list:
+    """Run-wide cautions of the ancestral stage (from the transitions table) and a
+    count of the clades whose states carry a caution of their own."""
+    out, common = [], set()
+    trans = tables.get("transitions")
+    if trans is not None:
+        for c in dict.fromkeys(trans.loc[trans["analysis"] == analysis, "caution"].astype(str)):
+            if c.strip():
+                out.append(f"stochastic maps: {c.strip()}")
+                common.update(part.strip() for part in c.split(";"))
+    states = tables.get("ancestral_states")
+    if states is not None:
+        rows = states[states["analysis"] == analysis]
+        per_clade = rows.groupby("clade", sort=False)["caution"].first().astype(str)
+        own = [c for c in per_clade
+               if {part.strip() for part in c.split(";") if part.strip()} - common]
+        if own:
+            out.append(f"ancestral states: {len(own)} of {len(per_clade)} clades carry a caution "
+                       "of their own (few trees contain them, their taxa are not monophyletic, or "
+                       "their fits did not converge); see the caution column of "
+                       "tables/ancestral_states.tsv")
+    return out
+
+
+# --------------------------------------------------------------------------- the whole text
+
+def methods_text(config: dict, tables: dict, models: dict, software: dict) -> str:
+    support = tables["model_support"]
+    crit_name = CRITERION_NAMES[config["criterion"]]
+    pair_summary = tables.get("pair_summary")
+    has_pairs = bool(config.get("pairs")) and ("pair_tests" in tables or pair_summary is not None)
+    has_ancestral = "ancestral_states" in tables or "transitions" in tables
+
+    out = ["# Methods and results", "",
+           f"_Written by mkforest {software.get('mkforest', '')} from this run's settings and "
+           "tables. Every number is rounded from the table named beside it; edit the wording, "
+           "keep the numbers, and check the cautions before citing a result._", "",
+           "## Methods", "",
+           "**Data and trees.** " + _data_paragraph(config, tables) + " "
+           + _trees_paragraph(config, tables), "",
+           "**Models.** " + _models_paragraph(config, models, support), "",
+           "**Fitting.** " + _fitting_paragraph(config, software), "",
+           "**Model comparison.** " + _comparison_paragraph(config), ""]
+    if has_pairs:
+        out += ["**Trait pairs.** " + _pairs_paragraph(config, pair_summary), ""]
+    if has_ancestral:
+        para = _ancestral_paragraph(config, tables)
+        if para:
+            out += ["**Ancestral states.** " + para, ""]
+    out += ["**Software.** " + _software_paragraph(config, software), ""]
+
+    out += ["## Results", "",
+            f"Model support is from tables/model_support.tsv, rates from "
+            f"tables/rate_summary.tsv{', pair tests from tables/pair_summary.tsv' if has_pairs else ''}"
+            f"{', ancestral states and changes from tables/ancestral_states.tsv and tables/transitions.tsv' if has_ancestral else ''}.",
+            ""]
+    rate_summary = tables["rate_summary"]
+    for analysis in models:
+        out += [f"### {analysis}", "", _analysis_results(analysis, support, rate_summary, crit_name)]
+        if has_pairs and pair_summary is not None and analysis in config["pairs"]:
+            pr = _pair_results(analysis, pair_summary)
+            if pr:
+                out += ["", pr]
+        if has_ancestral and analysis in config["traits"]["columns"]:
+            ar = _ancestral_results(analysis, tables)
+            if ar:
+                out += ["", ar]
+        notes = _cautions(support[support["analysis"] == analysis], "model")
+        if has_pairs and pair_summary is not None and analysis in config["pairs"]:
+            rows = pair_summary[pair_summary["pair"] == analysis].copy()
+            rows["test"] = rows["null"] + " against " + rows["alternative"]
+            notes += _cautions(rows, "test")
+        if has_ancestral and analysis in config["traits"]["columns"]:
+            notes += _ancestral_cautions(analysis, tables)
+        if notes:
+            out += ["", "Cautions:", ""] + [f"- {n}" for n in notes]
+        out.append("")
+    body = "\n".join(out)
+    refs = cited_in(body)
+    body += "\n## References\n\n" + "\n".join(f"- {r.full()}" for r in refs) + "\n"
+    return body
+
+
+def read_tables(paths: dict) -> dict:
+    """{name: DataFrame} from {name: path}; state labels and captions stay text."""
+    out = {}
+    for name, path in paths.items():
+        out[name] = pd.read_csv(path, sep="\t", keep_default_na=False,
+                                na_values=["", "nan", "NaN"],
+                                dtype={"state": str, "from_state": str, "to_state": str,
+                                       "caution": str, "same_as": str, "clade": str,
+                                       "model": str, "analysis": str})
+        for col in ("caution", "same_as"):
+            if col in out[name]:
+                out[name][col] = out[name][col].fillna("")
+    return out
+
+
+def table_name(path) -> str:
+    return Path(path).name.removesuffix(".tsv")
+

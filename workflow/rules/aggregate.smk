@@ -18,7 +18,11 @@ rule aggregate_fits:
             caption="../report/rate_summary.rst",
             category="Tables",
         ),
-        averaged=f"{OUT}/tables/averaged_rates.tsv",
+        averaged=report(
+            f"{OUT}/tables/averaged_rates.tsv",
+            caption="../report/averaged_rates.rst",
+            category="Tables",
+        ),
     params:
         criterion=config["criterion"],
         analyses=ANALYSES,

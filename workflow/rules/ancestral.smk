@@ -71,7 +71,11 @@ rule ancestral_summary:
             caption="../report/state_times.rst",
             category="Ancestral states",
         ),
-        per_tree=f"{OUT}/tables/transitions_per_tree.tsv",
+        per_tree=report(
+            f"{OUT}/tables/transitions_per_tree.tsv",
+            caption="../report/transitions_per_tree.rst",
+            category="Ancestral states",
+        ),
     params:
         analyses=list(ANALYSES),
     log:
@@ -99,7 +103,11 @@ rule plot_ancestral:
             caption="../report/changes.rst",
             category="Ancestral states",
         ),
-        changes_svg=f"{OUT}/plots/changes.svg",
+        changes_svg=report(
+            f"{OUT}/plots/changes.svg",
+            caption="../report/changes.rst",
+            category="Ancestral states",
+        ),
     params:
         analyses=list(ANALYSES),
     log:

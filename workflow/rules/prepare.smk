@@ -6,7 +6,11 @@ checkpoint prepare_trees:
         trees=config["trees"]["file"],
     output:
         chunks=directory(f"{OUT}/prepared/trees"),
-        used=f"{OUT}/tables/trees_used.tsv",
+        used=report(
+            f"{OUT}/tables/trees_used.tsv",
+            caption="../report/trees_used.rst",
+            category="Data",
+        ),
     params:
         trees=stable(config["trees"]),
         seed=config["seed"],

@@ -4,6 +4,8 @@ this module only receives the ``snakemake`` object a script is given)."""
 from __future__ import annotations
 
 import logging
+import os
+import shutil
 import sys
 import time
 from pathlib import Path
@@ -16,7 +18,8 @@ def run_job(snakemake, main) -> None:
 
     A user mistake (InputError) is written to the log and to stderr as one plain
     sentence and the job exits with status 2; Snakemake then removes this job's
-    incomplete outputs and keeps everything already finished.
+    incomplete outputs and keeps everything already finished. Outputs take their
+    final names only once ``main`` has returned (see ``staged_outputs``).
     """
     log_path = snakemake.log[0] if len(snakemake.log) else None
     handlers = [logging.StreamHandler(sys.stderr)]
@@ -27,9 +30,49 @@ def run_job(snakemake, main) -> None:
                         force=True)
     log = logging.getLogger("mkforest")
     start = time.perf_counter()
+    final = snakemake.output
+    snakemake.output = staged_outputs(final)
     try:
         main(snakemake)
     except InputError as exc:
         log.error("mkforest: error: %s", exc)
+        discard_staged(snakemake.output)
         sys.exit(2)
+    publish_outputs(snakemake.output, final)
     log.info("done in %.2f s", time.perf_counter() - start)
+
+
+# Outputs are written under a hidden folder beside their final place and moved there
+# (an atomic rename on one file system) only when the job has finished. A job killed
+# midway (power cut, SIGKILL, scancel) therefore never leaves a half-written file under
+# an output's name: Snakemake's own incomplete-file check does not reach the jobs that
+# depend on a checkpoint, which in this workflow is nearly every job.
+
+def _staging_dir(path: str) -> Path:
+    return Path(path).parent / f".mkforest-writing-{os.getpid()}"
+
+
+def staged_outputs(outputs):
+    """A copy of Snakemake's output list (names kept) pointing into the staging folders."""
+    staged = type(outputs)(toclone=outputs,
+                           custom_map=lambda p: str(_staging_dir(p) / Path(p).name))
+    for p in staged:
+        Path(p).parent.mkdir(parents=True, exist_ok=True)
+    return staged
+
+
+def publish_outputs(staged, final) -> None:
+    """Move every finished output to its final name, then remove the staging folders."""
+    for tmp, dest in zip(staged, final):
+        tmp, dest = Path(tmp), Path(dest)
+        if not tmp.exists():
+            continue  # not written: Snakemake reports the missing output
+        if dest.is_dir() and not dest.is_symlink():
+            shutil.rmtree(dest)
+        os.replace(tmp, dest)
+    discard_staged(staged)
+
+
+def discard_staged(staged) -> None:
+    for folder in {Path(p).parent for p in staged}:
+        shutil.rmtree(folder, ignore_errors=True)

@@ -238,6 +238,7 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
     u = np.empty(k)
     a = np.empty(k, dtype=V.dtype)
     for v in range(n - 1, n_tips - 1, -1):
+        polytomy = child_ptr[v + 1] - child_ptr[v] > 2
         for p in range(child_ptr[v], child_ptr[v + 1]):
             c = children[p]
             for i in range(k):
@@ -247,7 +248,8 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
                 if s != c:
                     for i in range(k):
                         u[i] *= msg[s, i]
-                    _normalise_abs(u)
+                    if polytomy:
+                        _normalise_abs(u)  # keep a long product away from underflow
             if _normalise_abs(u) == 0.0:
                 return False
             den = 0.0

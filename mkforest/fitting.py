@@ -14,6 +14,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
+import numba
 import numpy as np
 from scipy.optimize import minimize
 
@@ -72,19 +73,35 @@ class LogLikelihood:
 
 
 def fitch_score(tree, tip_partials) -> int:
-    """Minimum number of changes (Fitch 1971), with tip state sets from tip_partials."""
+    """Minimum number of changes (Fitch 1971), with tip state sets from tip_partials;
+    at a polytomy, the states shared by the most children (Hartigan 1973)."""
     k = tip_partials.shape[1]
-    bits = (tip_partials > 0).astype(np.int64) @ (1 << np.arange(k, dtype=np.int64))
-    sets = np.zeros(tree.n_nodes, dtype=np.int64)
-    sets[: tree.n_tips] = bits
+    bits = (np.asarray(tip_partials) > 0).astype(np.int64) @ (1 << np.arange(k, dtype=np.int64))
+    return int(_fitch(tree.child_ptr, tree.children, tree.n_tips, bits, k))
+
+
+@numba.njit(cache=True)
+def _fitch(child_ptr, children, n_tips, tip_bits, k):
+    n_nodes = child_ptr.shape[0] - 1
+    sets = np.zeros(n_nodes, dtype=np.int64)
+    sets[:n_tips] = tip_bits
+    counts = np.zeros(k, dtype=np.int64)
     score = 0
-    for v in range(tree.n_tips, tree.n_nodes):
-        kids = sets[tree.children_of(v)]
-        # for polytomies: the states shared by the most children (Fitch-Hartigan)
-        counts = [(int(((kids >> s) & 1).sum()), s) for s in range(k)]
-        best = max(c for c, _ in counts)
-        sets[v] = sum(1 << s for c, s in counts if c == best)
-        score += len(kids) - best
+    for v in range(n_tips, n_nodes):
+        counts[:] = 0
+        n_children = child_ptr[v + 1] - child_ptr[v]
+        for p in range(child_ptr[v], child_ptr[v + 1]):
+            c = children[p]
+            for s in range(k):
+                if (sets[c] >> s) & 1:
+                    counts[s] += 1
+        best = counts.max()
+        chosen = 0
+        for s in range(k):
+            if counts[s] == best:
+                chosen |= 1 << s
+        sets[v] = chosen
+        score += n_children - best
     return score
 
 

@@ -43,7 +43,7 @@ import numba
 import numpy as np
 
 from .likelihood import (_LOG_SCALE, _p_from_eigen, _prune_matrices, _rescale, eigensystem,
-                         log_likelihood, reachable, root_weights)
+                         expm1_outer, log_likelihood, reachable, root_weights)
 
 # How F is computed: F[m, n] off the diagonal is the difference quotient
 # (expm1(lam_m t) - expm1(lam_n t)) / (lam_m - lam_n): the expm1 values carry full
@@ -72,38 +72,6 @@ def _phi1(z, coef):
     for i in range(n - 2, -1, -1):
         s = s * z + coef[i]
     return s
-
-
-@numba.njit(cache=True)
-def _expm1_real(t, lam, out):
-    """out[b, m] = expm1(lam_m t_b) for real eigenvalues."""
-    for b in range(t.shape[0]):
-        for m in range(lam.shape[0]):
-            out[b, m] = math.expm1(lam[m] * t[b])
-
-
-@numba.njit(cache=True)
-def _expm1_complex(t, lam, out):
-    """out[b, m] = expm1(lam_m t_b) for complex eigenvalues, to full relative precision:
-    e^{x+iy} - 1 = (expm1(x) cos y - 2 sin^2(y/2)) + i e^x sin y. A conjugate pair
-    (as returned by LAPACK, one after the other) is computed once."""
-    k = lam.shape[0]
-    for m in range(k):
-        if m > 0 and lam[m].imag != 0.0 and lam[m] == np.conj(lam[m - 1]):
-            for b in range(t.shape[0]):
-                out[b, m] = np.conj(out[b, m - 1])
-            continue
-        re = lam[m].real
-        im = lam[m].imag
-        for b in range(t.shape[0]):
-            x = re * t[b]
-            if im == 0.0:
-                out[b, m] = math.expm1(x)
-            else:
-                y = im * t[b]
-                h = math.sin(0.5 * y)
-                out[b, m] = complex(math.expm1(x) * math.cos(y) - 2.0 * h * h,
-                                    math.exp(x) * math.sin(y))
 
 
 @numba.njit(cache=True)
@@ -431,11 +399,7 @@ def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="flat", s
     equilibrium = root == "equilibrium"
     lam, V, Vinv = es
     k = Q.shape[0]
-    E1 = np.empty((tree.n_nodes, k), dtype=lam.dtype)
-    if lam.dtype == np.complex128:
-        _expm1_complex(tree.length, lam, E1)
-    else:
-        _expm1_real(tree.length, lam, E1)
+    E1 = expm1_outer(tree.length, lam)
     conditional = root == "conditional"
     weights = _ONE if conditional else root_weights(root, Q, None, states)
     root_partial = np.empty(k)

@@ -150,6 +150,48 @@ def _rescale(partials, v, k):
     return n
 
 
+@numba.njit(cache=True)
+def _expm1_real(t, lam, out):
+    """out[b, m] = expm1(lam_m t_b) for real eigenvalues."""
+    for b in range(t.shape[0]):
+        for m in range(lam.shape[0]):
+            out[b, m] = math.expm1(lam[m] * t[b])
+
+
+@numba.njit(cache=True)
+def _expm1_complex(t, lam, out):
+    """out[b, m] = expm1(lam_m t_b) for complex eigenvalues, to full relative precision:
+    e^{x+iy} - 1 = (expm1(x) cos y - 2 sin^2(y/2)) + i e^x sin y. A conjugate pair
+    (as returned by LAPACK, one after the other) is computed once."""
+    k = lam.shape[0]
+    for m in range(k):
+        if m > 0 and lam[m].imag != 0.0 and lam[m] == np.conj(lam[m - 1]):
+            for b in range(t.shape[0]):
+                out[b, m] = np.conj(out[b, m - 1])
+            continue
+        re = lam[m].real
+        im = lam[m].imag
+        for b in range(t.shape[0]):
+            x = re * t[b]
+            if im == 0.0:
+                out[b, m] = math.expm1(x)
+            else:
+                y = im * t[b]
+                h = math.sin(0.5 * y)
+                out[b, m] = complex(math.expm1(x) * math.cos(y) - 2.0 * h * h,
+                                    math.exp(x) * math.sin(y))
+
+
+def expm1_outer(t, lam) -> np.ndarray:
+    """E1[b, m] = expm1(lam_m t_b), real or complex like lam, to full relative precision."""
+    out = np.empty((t.shape[0], lam.shape[0]), dtype=lam.dtype)
+    if lam.dtype == np.complex128:
+        _expm1_complex(t, lam, out)
+    else:
+        _expm1_real(t, lam, out)
+    return out
+
+
 def check_rate_matrix(Q) -> np.ndarray:
     Q = np.asarray(Q, dtype=np.float64)
     off = Q - np.diag(np.diag(Q))
@@ -199,7 +241,7 @@ def transition_matrices(Q, t) -> np.ndarray:
     es = eigensystem(Q)
     if es is not None:
         lam, V, Vinv = es
-        _p_from_eigen(np.expm1(np.multiply.outer(t, lam)), V, Vinv, reach, t, out)
+        _p_from_eigen(expm1_outer(t, lam), V, Vinv, reach, t, out)
         return out
     out[:] = scipy.linalg.expm(Q[None, :, :] * t[:, None, None])
     np.maximum(out, 0.0, out=out)
@@ -273,7 +315,7 @@ def prune(tree, tip_partials, Q):
     es = eigensystem(Q) if reachable(Q).all() else None
     if es is not None:
         lam, V, Vinv = es
-        E1 = np.expm1(np.multiply.outer(tree.length, lam))
+        E1 = expm1_outer(tree.length, lam)
         ok = _prune_eigen(tree.child_ptr, tree.children, tree.n_tips, E1, V, Vinv,
                           tip_partials, partials, count)
     else:

@@ -38,6 +38,9 @@ def run_job(snakemake, main) -> None:
         log.error("mkforest: error: %s", exc)
         discard_staged(snakemake.output)
         sys.exit(2)
+    except BaseException:
+        discard_staged(snakemake.output)
+        raise
     publish_outputs(snakemake.output, final)
     log.info("done in %.2f s", time.perf_counter() - start)
 

@@ -72,6 +72,8 @@ def main(smk):
         fh.flush()
         if os.environ.get("DIE_MIDWAY") and smk.wildcards.p == "p1":
             os.killpg(0, signal.SIGKILL)      # the whole run dies in the middle of a write
+        if os.environ.get("FAIL_MIDWAY") and smk.wildcards.p == "p1":
+            raise RuntimeError("a bug in the middle of a write")
         fh.write("x\\t1\\n" * 50)
 
 
@@ -99,6 +101,18 @@ def test_a_job_killed_mid_write_leaves_no_file_under_an_output_name(tmp_path):
     for p in ("p1", "p2"):
         assert len((out / f"{p}.a.tsv").read_text().splitlines()) == 100
         assert len((out / f"{p}.b.tsv").read_text().splitlines()) == 100
+
+
+def test_a_failing_job_leaves_neither_output_nor_staging_folder(tmp_path):
+    (tmp_path / "Snakefile").write_text(KILLER)
+    (tmp_path / "write.py").write_text(WRITER.format(repo=str(REPO)))
+    cmd = [SNAKEMAKE, "--snakefile", str(tmp_path / "Snakefile"), "--cores", "1",
+           "--directory", str(tmp_path), "--keep-going"]
+    env = dict(os.environ, PYTHONPATH=str(REPO), FAIL_MIDWAY="1")
+    failed = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=300)
+    assert failed.returncode != 0 and "a bug in the middle of a write" in failed.stderr
+    out = tmp_path / "out"
+    assert sorted(p.name for p in out.iterdir()) == ["p2.a.tsv", "p2.b.tsv"]
 
 
 def fit_jobs(out: Path) -> tuple:

@@ -7,10 +7,10 @@ name, model = hypothesis name); this module only reads their rows.
 Per tree, a test of null hypothesis N nested in alternative A has statistic
 2 (ln L_A - ln L_N) from the fits, its chi-square p-value on
 n_params(A) - n_params(N) degrees of freedom (Pagel 1994), and, on the trees
-chosen for the bootstrap, a parametric-bootstrap p-value (Goldman 1993). The
-simulated statistics refit the alternative from the null's estimate as well,
-so they are never below what the fit jobs would find; the bootstrap p-value
-errs, if at all, on the conservative side.
+chosen for the bootstrap, a parametric-bootstrap p-value (Goldman 1993):
+data sets simulated under the null at its fitted rates on that tree, each
+refitted with the fit jobs' own settings, so that observed and simulated
+statistics come from one procedure.
 """
 
 from __future__ import annotations
@@ -49,11 +49,13 @@ def rates_from_rows(model, rows: pd.DataFrame) -> np.ndarray | None:
 
 
 def bootstrap_chunk(pair, models: dict, tests: list, trees: list, selected: set,
-                    null_rates: dict, n_replicates: int, seed: int, n_starts: int = 1) -> list:
+                    null_rates: dict, n_replicates: int, seed: int, n_starts: int = 5,
+                    lower: float = 1e-6, upper: float = 1e4) -> list:
     """Bootstrap rows for the trees of one chunk that are in ``selected``.
 
     null_rates: {(null name, tree index): free rates of that null's fit on that tree}
-    (missing when the fit failed; such trees are skipped).
+    (missing when the fit failed; such trees are skipped). n_starts, lower and upper
+    are the fit jobs' settings, so simulated data sets are fitted as the real one was.
     """
     rows = []
     for tree in trees:
@@ -67,7 +69,7 @@ def bootstrap_chunk(pair, models: dict, tests: list, trees: list, selected: set,
                 continue
             stats = bootstrap_statistics(pair, tree, null, alt, rates, root,
                                          replicates=range(n_replicates), seed=seed,
-                                         n_starts=n_starts)
+                                         n_starts=n_starts, lower=lower, upper=upper)
             rows += [{"pair": pair.name, "null": test.null, "alternative": test.alternative,
                       "tree": tree.index, "replicate": r, "statistic": float(s)}
                      for r, s in enumerate(stats)]

@@ -45,8 +45,9 @@ def main(smk):
     mine = [t.index for t in trees if t.index in selected]
     log.info("pair %s: bootstrapping %d trees of this chunk (%s), %d tests, %d data sets each",
              name, len(mine), mine, len(tests), spec["bootstrap"])
+    fit = config["fitting"]
     rows = bootstrap_chunk(pair, models, tests, trees, selected, null_rates, spec["bootstrap"],
-                           config["seed"], spec["bootstrap_starts"])
+                           config["seed"], fit["starts"], fit["lower"], fit["upper"])
     pd.DataFrame(rows, columns=BOOTSTRAP_COLUMNS).to_csv(smk.output[0], sep="\t", index=False,
                                                          float_format="%.10g")
 

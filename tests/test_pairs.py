@@ -512,31 +512,41 @@ def test_pair_analysis_from_config_spec():
 # --------------------------------------------------------------------------- calibration (small)
 
 @pytest.mark.slow
-def test_chi_square_lrt_small_calibration():
-    """A small version of benchmarks/pair_calibration.py: under independent evolution the
-    chi-square LRT (4 df, Pagel 1994) rejects at 5 % about 5 % of the time, and under a
-    strong dependence far more often. Checked with exact binomial tails (scipy.stats.binom)."""
+def test_small_calibration_of_both_tests():
+    """A small version of benchmarks/pair_calibration.py. Under independent evolution the
+    chi-square LRT (4 df, Pagel 1994) and the parametric bootstrap (Goldman 1993; 19 data
+    sets, so p <= 0.05 only when the observed statistic beats all of them) reject about 5 %
+    of the time; under a strong dependence far more often. Checked with exact binomial
+    tails (scipy.stats.binom, general-purpose library)."""
     rng = np.random.default_rng(13)
     tree = parse_newick(yule_newick(rng, 60, height=1.0))
     pair = make_pair(rng, tree.tip_labels)
     ind = pairs.hypothesis_model(pair, "independent")
     dep = pairs.hypothesis_model(pair, "dependent")
     none = (np.zeros(tree.n_tips, bool),) * 2
-    n = 40
+    q_null = ind.q_matrix([1.5, 1.5, 1.0, 1.0])
+    q_dep = dep.q_matrix(rates_by_label(dep, lambda *k: CORRELATED[k], LIMB, VISITOR))
 
-    def rejections(q, seed0):
-        count = 0
+    def rejections(q, seed0, n, n_boot):
+        chi, boot = 0, 0
         for r in range(n):
             states = simulate_states(tree, q, np.random.default_rng(seed0 + r))
             X = pairs.simulate_pair_partials(pair, tree, states, none)
-            stat, _, _ = pairs.lr_statistic(tree, X, ind, dep, n_starts=3, seed=r)
-            count += stat > chi2.ppf(0.95, 4)
-        return count
+            stat, fit_null, _ = pairs.lr_statistic(tree, X, ind, dep, n_starts=3, seed=r)
+            chi += stat > chi2.ppf(0.95, 4)
+            if r < n_boot:
+                sims = pairs.bootstrap_statistics(pair, tree, ind, dep, fit_null.rates,
+                                                  replicates=range(19), seed=seed0 + r,
+                                                  n_starts=3)
+                boot += pairs.bootstrap_p_value(stat, sims) <= 0.05
+        return chi, boot
 
-    null_count = rejections(ind.q_matrix([1.5, 1.5, 1.0, 1.0]), 1000)
-    # P(X >= null_count) under Binomial(40, 0.05) must not be tiny
-    assert binom.sf(null_count - 1, n, 0.05) > 0.001, null_count
-    q_dep = dep.q_matrix(rates_by_label(dep, lambda *k: CORRELATED[k], LIMB, VISITOR))
-    power_count = rejections(q_dep, 5000)
+    n, n_boot = 40, 12
+    chi_null, boot_null = rejections(q_null, 1000, n, n_boot)
+    # P(X >= count) under Binomial(n, 0.05) must not be tiny
+    assert binom.sf(chi_null - 1, n, 0.05) > 0.001, chi_null
+    assert binom.sf(boot_null - 1, n_boot, 0.05) > 0.001, boot_null
+    chi_dep, boot_dep = rejections(q_dep, 5000, n, n_boot)
     # more rejections than a 5 % test could plausibly give
-    assert binom.sf(power_count - 1, n, 0.05) < 0.001, power_count
+    assert binom.sf(chi_dep - 1, n, 0.05) < 0.001, chi_dep
+    assert binom.sf(boot_dep - 1, n_boot, 0.05) < 0.001, boot_dep

@@ -189,7 +189,9 @@ def _models_paragraph(config, models, support) -> str:
                      for name, (m, _) in named.items()]
         lines.append(f"for {label}: {'; '.join(described)}")
         for name, (_, root) in named.items():
-            roots.setdefault(root, []).append(f"{name} ({analysis})")
+            who = roots.setdefault(root, [])
+            if name not in who:          # roots are set per model, whatever the trait
+                who.append(name)
     text = ("Each trait was modelled as a continuous-time Markov chain on its states (the Mk "
             f"model; {REFERENCES['lewis2001'].cite()}), and likelihoods were computed with the "
             f"pruning algorithm {cite('felsenstein1981')}. The candidate models were, "

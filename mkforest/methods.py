@@ -257,10 +257,14 @@ def _pairs_paragraph(config, pair_summary) -> str:
                  f"reference is only approximate {cite('self1987')}.")
     boot = {p: spec for p, spec in pairs.items() if spec.get("bootstrap", 0) > 0}
     for p, spec in boot.items():
+        n_boot = spec.get("bootstrap_trees", 10)
+        if pair_summary is not None and "n_trees_bootstrap" in pair_summary:
+            rows = pair_summary[pair_summary["pair"] == p]["n_trees_bootstrap"]
+            n_boot = int(rows.max()) if len(rows) else n_boot     # as many as were bootstrapped
         text += (f" For {p}, the statistic was also compared with its distribution in "
                  f"{spec['bootstrap']} data sets simulated under the fitted null hypothesis on each "
-                 f"of {plural(spec.get('bootstrap_trees', 10), 'tree')} spread evenly through the "
-                 f"sample (parametric bootstrap; {REFERENCES['goldman1993'].cite()}).")
+                 f"of {plural(n_boot, 'tree')} spread evenly through the sample (parametric "
+                 f"bootstrap; {REFERENCES['goldman1993'].cite()}).")
     alphas = sorted({spec.get("alpha", 0.05) for spec in pairs.values()})
     text += f" Tests used a significance level of {listing(f'{a:g}' for a in alphas)}."
     return text

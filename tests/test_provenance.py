@@ -247,7 +247,8 @@ def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_facto
     cfg = base_config(
         traits={"file": "data/traits.tsv", "taxon_column": "taxon",
                 "columns": ["banding", "aperture"]},
-        pairs={"band_aperture": {"traits": ["banding", "aperture"]}},
+        pairs={"band_aperture": {"traits": ["banding", "aperture"], "bootstrap": 9,
+                                 "bootstrap_trees": 2}},
         ancestral={"enabled": True, "maps": 4},
     )
     work = tmp_path_factory.mktemp("full")
@@ -255,9 +256,10 @@ def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_facto
     proc = run_snakemake(work, path)
     assert proc.returncode == 0, proc.stderr[-4000:]
     text = (out_dir(work) / "methods.md").read_text()
-    for key in ("pagel1994", "yang1995", "nielsen2002", "huelsenbeck2003", "margush1981"):
+    for key in ("pagel1994", "goldman1993", "yang1995", "nielsen2002", "huelsenbeck2003",
+                "margush1981"):
         assert REFERENCES[key].cite() in text and REFERENCES[key].full() in text
-    assert REFERENCES["goldman1993"].cite() not in text          # bootstrap 0: not run
+    assert "9 data sets simulated under the fitted null hypothesis on each of 2 trees" in text
     assert "**Trait pairs.**" in text and "**Ancestral states.**" in text
     assert "4 stochastic character maps per tree" in text
     # the pair test sentence carries the numbers of pair_summary.tsv
@@ -267,6 +269,9 @@ def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_facto
         k = int(round(r["fraction_reject_chi2"] * r["n_trees"]))
         assert (f"rejected {r['null']} on {k} of {r['n_trees']} trees (median statistic "
                 f"{_fmt(r['median_statistic'])}") in sec
+        kb = int(round(r["fraction_reject_bootstrap"] * r["n_trees_bootstrap"]))
+        assert f"the parametric bootstrap rejected it on {kb} of 2 trees" in sec
+        assert f"- {r['null']} against {r['alternative']}: {r['caution']}" in sec
     # transitions: the expected counts per direction, one decimal
     trans = tsv(work, "transitions")
     sec = _section(text, "banding")

@@ -20,6 +20,8 @@ from mkforest.demo import make_demo
 from workflow_helpers import REPO, run_snakemake
 
 MKFOREST = str(Path(sys.executable).with_name("mkforest"))
+# An outside SHA-256 implementation: GNU coreutils' sha256sum, or Perl's shasum (macOS).
+SHA256SUM = ["sha256sum"] if shutil.which("sha256sum") else ["shasum", "-a", "256"]
 RUN = "tiny"
 _CACHE: dict = {}
 

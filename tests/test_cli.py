@@ -12,7 +12,7 @@ import jsonschema
 import pytest
 import yaml
 
-from provenance_runs import RUN, copy_run, finished_run, mkforest
+from provenance_runs import SHA256SUM, RUN, copy_run, finished_run, mkforest
 
 
 @pytest.fixture(scope="module")
@@ -124,13 +124,13 @@ def test_archive_refuses_results_changed_since_the_run(copy, tmp_path):
 
 
 def test_archive_files_and_checksums(archived):
-    """The archive's checksum and the listing inside both agree with GNU coreutils' sha256sum."""
+    """The archive's checksum and the listing inside both agree with an outside sha256sum."""
     out, proc = archived
     archive = out / f"{RUN}-archive.tar.gz"
     side = out / f"{RUN}-archive.tar.gz.sha256"
     assert archive.is_file() and side.is_file() and (out / "CITATION.cff").is_file()
     assert not list(out.glob("*.part"))
-    check = subprocess.run(["sha256sum", "-c", side.name], cwd=out, capture_output=True, text=True)
+    check = subprocess.run([*SHA256SUM, "-c", side.name], cwd=out, capture_output=True, text=True)
     assert check.returncode == 0, check.stdout + check.stderr
     assert hashlib.sha256(archive.read_bytes()).hexdigest() in proc.stdout
     with tarfile.open(archive) as tar:
@@ -145,7 +145,7 @@ def test_archive_files_and_checksums(archived):
         assert f"{top}/{name}" in names, name
     assert not any("/logs/" in n or "/fits/" in n or "/prepared/" in n for n in names)
     unpacked = out / "unpacked" / top
-    sums = subprocess.run(["sha256sum", "-c", "SHA256SUMS"], cwd=unpacked, capture_output=True,
+    sums = subprocess.run([*SHA256SUM, "-c", "SHA256SUMS"], cwd=unpacked, capture_output=True,
                           text=True)
     assert sums.returncode == 0, sums.stdout + sums.stderr
     assert sums.stdout.count(": OK") == n_files - 1       # every file but the listing itself

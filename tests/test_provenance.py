@@ -25,7 +25,7 @@ from mkforest.fitjobs import analysis_setup
 from mkforest.methods import methods_text, read_tables
 from mkforest.provenance import software_versions
 from mkforest.traits import traits_from_json
-from provenance_runs import RUN, finished_run, mkforest, prepare_workdir, base_config
+from provenance_runs import SHA256SUM, RUN, base_config, finished_run, mkforest, prepare_workdir
 from workflow_helpers import REPO, run_snakemake
 
 SNAKEMAKE = str(Path(sys.executable).with_name("snakemake"))
@@ -51,7 +51,7 @@ def tsv(work, name):
 # --------------------------------------------------------------------------- manifest
 
 def test_manifest_hashes_every_result_and_input(run):
-    """Checksums against GNU coreutils' sha256sum (an outside implementation) and hashlib."""
+    """Checksums against an outside implementation (coreutils' sha256sum) and hashlib."""
     work, cfg = run
     m = manifest_of(work)
     listed = {r["path"]: r for r in m["outputs"]}
@@ -61,7 +61,7 @@ def test_manifest_hashes_every_result_and_input(run):
     assert set(listed) == on_disk                  # every table, plot and the methods text
     assert "manifest.json" not in listed
     paths = [out_dir(work) / p for p in sorted(listed)]
-    sums = subprocess.run(["sha256sum", *map(str, paths)], capture_output=True, text=True,
+    sums = subprocess.run([*SHA256SUM, *map(str, paths)], capture_output=True, text=True,
                           check=True).stdout.splitlines()
     for line, p in zip(sums, sorted(listed)):
         assert line.split()[0] == listed[p]["sha256"], p

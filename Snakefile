@@ -9,7 +9,11 @@ min_version("9.0")
 sys.path.insert(0, workflow.basedir)
 
 
-configfile: "config/config.yaml"
+# The demo config is the default; a --configfile on the command line replaces it
+# entirely (never merged with it, so no demo model leaks into a user's run).
+if not workflow.config_settings.configfiles:
+
+    configfile: "config/config.yaml"
 
 
 report: "workflow/report/workflow.rst"

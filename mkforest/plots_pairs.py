@@ -21,6 +21,7 @@ SECOND_COLOUR = "#2c6a8a"    # changes of the second trait (horizontal)
 NODE_FACE = "#f4efe6"
 MAX_WIDTH = 5.0
 MIN_WIDTH = 0.6
+MAX_LABELLED = 16      # above this many arrows in a panel, rates are not written on them
 
 
 def _layout(pair):
@@ -42,7 +43,7 @@ def _panel_diagram(ax, pair, rates: dict, top: float, title: str):
                                     boxstyle="round,pad=0.02,rounding_size=0.18",
                                     facecolor=NODE_FACE, edgecolor="#5a5a5a", lw=0.9, zorder=3))
         ax.text(x, y, pair.states[s], ha="center", va="center", fontsize=8, zorder=4)
-    many = len(rates) > 16
+    many = len(rates) > MAX_LABELLED
     for (a, b), rate in rates.items():
         (i1, j1), (i2, j2) = pair.split(a), pair.split(b)
         vertical = j1 == j2
@@ -134,8 +135,10 @@ def pair_diagram(pair, rate_summary: pd.DataFrame, support: pd.DataFrame | None 
                Line2D([], [], color="#777777", lw=MIN_WIDTH, ls=":",
                       label="rate near zero (< 0.1% of the widest)")]
     fig.legend(handles=handles, loc="lower center", ncol=3, fontsize=7.5, frameon=False)
+    labelled = all(len(rt) <= MAX_LABELLED for _, rt in panels)
     fig.suptitle(f"{pair.name}: median rates across trees between joint states "
-                 f"({pair.first.name}+{pair.second.name}); arrow width ∝ rate", fontsize=10)
+                 f"({pair.first.name}+{pair.second.name})\narrow width ∝ rate"
+                 + ("" if labelled else "; values in tables/rate_summary.tsv"), fontsize=10)
     fig.tight_layout(rect=(0, 0.06, 1, 0.94))
     return fig
 

@@ -15,6 +15,7 @@ import pandas as pd  # noqa: E402
 import seaborn as sns  # noqa: E402
 
 PALETTE = "crest"
+CRITERION_NAMES = {"aic": "AIC", "aicc": "AICc", "bic": "BIC"}
 
 
 def _grid(n):
@@ -39,7 +40,7 @@ def support_weights(fits: pd.DataFrame, criterion: str = "aicc"):
         ax.set_ylim(-0.03, 1.03)
         ax.set_title(a)
         ax.set_xlabel("model")
-        ax.set_ylabel(f"{criterion.upper()} weight per tree")
+        ax.set_ylabel(f"{CRITERION_NAMES.get(criterion, criterion)} weight per tree")
         ax.tick_params(axis="x", rotation=30)
     for ax in list(axes.flat)[len(analyses):]:
         ax.set_visible(False)

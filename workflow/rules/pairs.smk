@@ -4,62 +4,7 @@
 # with bootstrap > 0), one summary job and one plot job per pair. The job count
 # grows with trees / per_job, never with the number of trees itself.
 
-PAIRS = config["pairs"]
-
-
-wildcard_constraints:
-    pair=r"[A-Za-z0-9_.\-]+",
-
-
-def pair_bootstrap_files(wildcards):
-    return [
-        f"{OUT}/pairs/{p}/bootstrap/chunk_{c}.tsv"
-        for p, spec in PAIRS.items()
-        if spec["bootstrap"] > 0
-        for c in chunk_ids()
-    ]
-
-
-def pair_chunk_fits(kind):
-    """Input function: one chunk's fit tables ('fits' or 'rates') of every hypothesis of a pair."""
-
-    def files(wildcards):
-        return [
-            f"{OUT}/fits/{wildcards.pair}/{h}/chunk_{wildcards.chunk}.{kind}.tsv"
-            for h in ANALYSES[wildcards.pair]
-        ]
-
-    return files
-
-
-def pair_params(wildcards):
-    return {"pair": wildcards.pair, "config": config}
-
-
-def pair_bootstrap_runtime(wildcards, attempt):
-    """Minutes for one chunk: about 0.1 s per simulated data set at 100 tips
-    (two fits of 5 starts), for each test on each bootstrapped tree of the chunk,
-    with a wide margin."""
-    spec = PAIRS[wildcards.pair]
-    per_chunk = min(spec["bootstrap_trees"], config["trees"]["per_job"])
-    n_tests = max(1, len(ANALYSES[wildcards.pair]) * (len(ANALYSES[wildcards.pair]) - 1) // 2)
-    return 10 + attempt * int(per_chunk * n_tests * spec["bootstrap"] * 0.5 / 60)
-
-
-PAIR_PLOTS = ["diagram", "tests"]
-
-
-def pair_targets(wildcards):
-    if not PAIRS:
-        return []
-    return [
-        f"{OUT}/tables/pair_tests.tsv",
-        f"{OUT}/tables/pair_summary.tsv",
-    ] + [f"{OUT}/plots/pairs/{p}.{kind}.{ext}" for p in PAIRS for kind in PAIR_PLOTS
-         for ext in ("png", "svg")]
-
-
-TARGET_FUNCTIONS.append(pair_targets)
+include: "pairs_inputs.smk"
 
 
 rule pair_bootstrap:
@@ -102,7 +47,7 @@ rule pair_summary:
         ),
         bootstrap=f"{OUT}/tables/pair_bootstrap.tsv",
     params:
-        config=config,
+        config=stable(config),
     log:
         f"{OUT}/logs/pairs/pair_summary.log",
     conda:

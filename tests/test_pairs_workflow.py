@@ -84,6 +84,12 @@ def test_tests_recomputed_from_the_fits(pair_run):
         assert row["df"] == a["n_params"] - n["n_params"]
         assert row["p_chi2"] == pytest.approx(chi2.sf(row["statistic"], row["df"]), rel=1e-4)
         assert row["reject_chi2"] == (row["p_chi2"] <= 0.05)
+    for row in tests.to_dict("records"):
+        at_lower = ll.loc[(row["null"], row["tree"]), "at_lower"]
+        flagged = isinstance(at_lower, str) and at_lower != ""
+        assert row["null_rate_at_lower_bound"] == flagged
+        if flagged and row["n_bootstrap"] > 0:
+            assert "bootstrap p-value runs too small" in row["note"]
     boundary = tests.groupby(["null", "alternative"])["boundary"].first().to_dict()
     assert boundary == {("independent", "dependent"): False, ("round_first", "dependent"): True}
     assert tests.loc[tests["boundary"], "note"].str.contains("approximate").all()
@@ -180,3 +186,55 @@ def test_untestable_pair_is_refused_early():
     spec["tests"] = [["independent", "linked"]]
     with pytest.raises(InputError, match=r"names hypothesis 'linked'"):
         pairs.pair_analysis("shell", spec, traits)
+
+
+def test_test_rows_and_summary_from_hand_made_tables():
+    """pair_test_rows / summary_rows on tables written here: statistic 2 (ln L_alt - ln L_null)
+    floored at 0, chi-square p from scipy.stats.chi2 (general-purpose library), bootstrap p
+    (1 + #{T* >= T}) / (N + 1) (common practice), and the plain-words flags."""
+    from mkforest.pair_jobs import TEST_COLUMNS, pair_test_rows, summary_rows
+    from mkforest.pairs import Nesting
+
+    fits = pd.DataFrame([
+        # tree 0: an ordinary fit; tree 1: the null has a rate at the lower bound;
+        # tree 2: the alternative's optimiser fell short of its own null
+        dict(analysis="shell", model="independent", tree=0, n_params=4, log_likelihood=-60.0,
+             converged=True, at_lower="", weight=0.2),
+        dict(analysis="shell", model="dependent", tree=0, n_params=8, log_likelihood=-54.0,
+             converged=True, at_lower="", weight=0.8),
+        dict(analysis="shell", model="independent", tree=1, n_params=4, log_likelihood=-50.0,
+             converged=True, at_lower="banding: plain->banded", weight=0.9),
+        dict(analysis="shell", model="dependent", tree=1, n_params=8, log_likelihood=-49.0,
+             converged=False, at_lower="", weight=0.1),
+        dict(analysis="shell", model="independent", tree=2, n_params=4, log_likelihood=-40.0,
+             converged=True, at_lower="", weight=0.95),
+        dict(analysis="shell", model="dependent", tree=2, n_params=8, log_likelihood=-40.5,
+             converged=True, at_lower="", weight=0.05),
+    ])
+    boot = pd.DataFrame([dict(pair="shell", null="independent", alternative="dependent", tree=t,
+                              replicate=r, statistic=s)
+                         for t, sims in ((0, [1.0, 13.0, 2.0, 12.0]), (1, [0.5, 0.1, 3.0, 0.0]))
+                         for r, s in enumerate(sims)])
+    test = Nesting("independent", "dependent", 4, False)
+    rows = {r["tree"]: r for r in pair_test_rows("shell", [test], fits, boot, 0.05)}
+    assert rows[0]["statistic"] == pytest.approx(12.0)
+    assert rows[0]["p_chi2"] == pytest.approx(chi2.sf(12.0, 4))
+    assert rows[0]["p_bootstrap"] == pytest.approx((1 + 2) / 5)   # 13 and 12 are >= 12
+    assert rows[0]["reject_chi2"] and not rows[0]["reject_bootstrap"] and rows[0]["note"] == ""
+    assert rows[1]["statistic"] == pytest.approx(2.0)
+    assert rows[1]["p_bootstrap"] == pytest.approx((1 + 1) / 5)
+    assert rows[1]["null_rate_at_lower_bound"]
+    assert "banding: plain->banded at the lower bound" in rows[1]["note"]
+    assert "fit of dependent not converged" in rows[1]["note"]
+    assert rows[2]["statistic"] == 0.0 and "missed the maximum" in rows[2]["note"]
+    assert np.isnan(rows[2]["p_bootstrap"]) and rows[2]["n_bootstrap"] == 0
+    summary = summary_rows(pd.DataFrame(list(rows.values()), columns=TEST_COLUMNS), fits, 4)
+    (s,) = summary
+    assert s["n_trees"] == 3 and s["n_trees_bootstrap"] == 2
+    assert s["fraction_reject_chi2"] == pytest.approx(1 / 3)
+    assert s["fraction_reject_bootstrap"] == 0.0
+    assert s["median_statistic"] == pytest.approx(2.0)
+    assert s["null_mean_weight"] == pytest.approx((0.2 + 0.9 + 0.95) / 3)
+    assert s["n_bootstrap_null_at_bound"] == 1
+    assert "1 of 2 bootstrapped trees" in s["caution"] and "only 3 trees" in s["caution"]
+    assert "smallest possible bootstrap p-value is 0.2" in s["caution"]

@@ -118,7 +118,9 @@ def pair_diagram(pair, rate_summary: pd.DataFrame, support: pd.DataFrame | None 
     pos, box_w = _layout(pair)
     w = 0.45 * (max(p[0] for p in pos.values()) + box_w + 1.6)
     h = 0.45 * (2.1 * (pair.k1 - 1) + 2.0) + 0.5
-    fig, axes = plt.subplots(rows, cols, figsize=(cols * w + 0.4, rows * h + 1.2), squeeze=False)
+    # at least wide enough for the title and the legend
+    fig, axes = plt.subplots(rows, cols, figsize=(max(cols * w + 0.4, 7.5), rows * h + 1.2),
+                             squeeze=False)
     weights = {}
     if support is not None and len(support):
         s = support[support["analysis"] == pair.name]

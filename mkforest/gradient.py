@@ -42,8 +42,8 @@ import math
 import numba
 import numpy as np
 
-from .likelihood import (_LOG_SCALE, _p_from_eigen, _prune_matrices, _rescale, eigensystem,
-                         expm1_outer, log_likelihood, reachable, root_weights)
+from .likelihood import (_LOG_SCALE, _down_pass_eigen, _p_from_eigen, _prune_matrices, _rescale,
+                         eigensystem, expm1_outer, log_likelihood, reachable, root_weights)
 
 # How F is computed: F[m, n] off the diagonal is the difference quotient
 # (expm1(lam_m t) - expm1(lam_n t)) / (lam_m - lam_n): the expm1 values carry full
@@ -104,54 +104,6 @@ def _normalise_abs(x):
         for i in range(x.shape[0]):
             x[i] /= m
     return m
-
-
-@numba.njit(cache=True)
-def _down_pass_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, scale_count,
-                     B, msg):
-    """likelihood._prune_eigen (same arithmetic, same rescaling), keeping for every
-    branch c what the up pass needs: B[c] = V^-1 D_c and the message msg[c] = P_c D_c."""
-    n_nodes = partials.shape[0]
-    k = partials.shape[1]
-    for v in range(n_tips):
-        for i in range(k):
-            partials[v, i] = tip_partials[v, i]
-        scale_count[v] = 0
-    for v in range(n_tips, n_nodes):
-        for i in range(k):
-            partials[v, i] = 1.0
-        count = 0
-        for p in range(child_ptr[v], child_ptr[v + 1]):
-            c = children[p]
-            count += scale_count[c]
-            zero = True
-            for m in range(k):
-                if E1[c, m] != 0.0:
-                    zero = False
-            for m in range(k):
-                s = Vinv[m, 0] * partials[c, 0]
-                for j in range(1, k):
-                    s += Vinv[m, j] * partials[c, j]
-                B[c, m] = s
-            if zero:
-                for i in range(k):
-                    msg[c, i] = partials[c, i]
-                    partials[v, i] *= partials[c, i]
-                continue
-            for i in range(k):
-                s = V[i, 0] * (B[c, 0] * E1[c, 0])
-                for m in range(1, k):
-                    s += V[i, m] * (B[c, m] * E1[c, m])
-                x = s.real + partials[c, i]
-                # round-off can leave -1e-17 where the probability is tiny
-                x = x if x > 0.0 else 0.0
-                msg[c, i] = x
-                partials[v, i] *= x
-        count += _rescale(partials, v, k)
-        if count < 0:
-            return False
-        scale_count[v] = count
-    return True
 
 
 @numba.njit(cache=True)

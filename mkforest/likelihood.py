@@ -54,17 +54,19 @@ def _p_from_eigen(E1, V, Vinv, reach, t, out):
 
 
 @numba.njit(cache=True)
-def _prune_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, scale_count):
-    """Postorder pass for an irreducible chain, with P(t) L = L + V diag(E1) Vinv L
+def _down_pass_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, scale_count,
+                     B, msg):
+    """Postorder pass for an irreducible chain, with P(t) D = D + V diag(E1) Vinv D
     applied as two small products per branch (E1[c] = expm1(lam t_c)); real or
     complex eigensystems. Zero-length branches pass the partials on unchanged.
 
     Fills partials [n_nodes, k] (scaled) and scale_count [n_nodes] (how many times
-    2^256 was factored out at or below each node). Returns False if the data are
-    impossible under the model (a partial vector is all zero)."""
+    2^256 was factored out at or below each node), and keeps for every branch c
+    what the gradient's up pass needs: B[c] = Vinv D_c and msg[c] = P_c D_c.
+    Returns False if the data are impossible under the model (a partial vector
+    is all zero)."""
     n_nodes = partials.shape[0]
     k = partials.shape[1]
-    y = np.empty(k, dtype=E1.dtype)
     for v in range(n_tips):
         for i in range(k):
             partials[v, i] = tip_partials[v, i]
@@ -80,22 +82,25 @@ def _prune_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partial
             for m in range(k):
                 if E1[c, m] != 0.0:
                     zero = False
-            if zero:
-                for i in range(k):
-                    partials[v, i] *= partials[c, i]
-                continue
             for m in range(k):
                 s = Vinv[m, 0] * partials[c, 0]
                 for j in range(1, k):
                     s += Vinv[m, j] * partials[c, j]
-                y[m] = s * E1[c, m]
+                B[c, m] = s
+            if zero:
+                for i in range(k):
+                    msg[c, i] = partials[c, i]
+                    partials[v, i] *= partials[c, i]
+                continue
             for i in range(k):
-                s = V[i, 0] * y[0]
+                s = V[i, 0] * (B[c, 0] * E1[c, 0])
                 for m in range(1, k):
-                    s += V[i, m] * y[m]
+                    s += V[i, m] * (B[c, m] * E1[c, m])
                 x = s.real + partials[c, i]
                 # round-off can leave -1e-17 where the probability is tiny
-                partials[v, i] *= x if x > 0.0 else 0.0
+                x = x if x > 0.0 else 0.0
+                msg[c, i] = x
+                partials[v, i] *= x
         count += _rescale(partials, v, k)
         if count < 0:
             return False
@@ -316,8 +321,10 @@ def prune(tree, tip_partials, Q):
     if es is not None:
         lam, V, Vinv = es
         E1 = expm1_outer(tree.length, lam)
-        ok = _prune_eigen(tree.child_ptr, tree.children, tree.n_tips, E1, V, Vinv,
-                          tip_partials, partials, count)
+        B = np.empty((n, Q.shape[0]), dtype=E1.dtype)
+        msg = np.empty((n, Q.shape[0]))
+        ok = _down_pass_eigen(tree.child_ptr, tree.children, tree.n_tips, E1, V, Vinv,
+                              tip_partials, partials, count, B, msg)
     else:
         P = transition_matrices(Q, tree.length)
         ok = _prune_matrices(tree.child_ptr, tree.children, tree.n_tips, P,

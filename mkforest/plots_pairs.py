@@ -175,13 +175,13 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
         if stat.size:
             ax.axvline(np.median(stat), color=SECOND_COLOUR, lw=1.2,
                        label=f"median across trees: {np.median(stat):.2f}")
-        ax.set_ylim(-0.6, 0.7)
+        ax.set_ylim(-0.5, 1.35)      # the band above the points holds the legend
         ax.set_yticks([])
         ax.set_xlim(left=0, right=max(crit, stat.max() if stat.size else 0) * 1.12 + 0.5)
         ax.set_xlabel("likelihood-ratio statistic 2 (ln L alternative − ln L null)")
         ax.set_title(f"{null} vs {alt}\n{int(above.sum())} of {stat.size} trees reject "
                      f"at {alpha:g} (χ²)", fontsize=9)
-        ax.legend(fontsize=7, loc="upper right", framealpha=0.85)
+        ax.legend(fontsize=7, loc="upper center", ncol=2, framealpha=0.85)
         ax = axes[row, 1]
         sims = b[(b["null"] == null) & (b["alternative"] == alt)] if len(b) else b
         if len(sims) == 0:

@@ -511,7 +511,6 @@ def test_pair_analysis_from_config_spec():
 
 # --------------------------------------------------------------------------- calibration (small)
 
-@pytest.mark.slow
 def test_small_calibration_of_both_tests():
     """A small version of benchmarks/pair_calibration.py. Under independent evolution the
     chi-square LRT (4 df, Pagel 1994) and the parametric bootstrap (Goldman 1993; 19 data

@@ -20,12 +20,12 @@ import pandas as pd
 from scipy.stats import chi2
 
 from .pairs import bootstrap_p_value, bootstrap_statistics
+from .summarise import FEW_TREES, _q
 
 BOOTSTRAP_COLUMNS = ["pair", "null", "alternative", "tree", "replicate", "statistic"]
 TEST_COLUMNS = ["pair", "null", "alternative", "tree", "statistic", "df", "p_chi2", "p_bootstrap",
                 "n_bootstrap", "reject_chi2", "reject_bootstrap", "alpha", "boundary",
                 "null_rate_at_lower_bound", "null_converged", "alternative_converged", "note"]
-FEW_TREES = 20          # below this, intervals across trees are rough
 FEW_REPLICATES = 99     # below this, a bootstrap p-value cannot resolve 0.01
 LOSS_TOL = 0.01         # an alternative worse than its null by more than this missed its optimum
 
@@ -136,12 +136,6 @@ def _bool(x) -> bool:
     if isinstance(x, str):
         return x.strip().lower() == "true"
     return bool(x)
-
-
-def _q(x, p):
-    x = np.asarray(x, dtype=float)
-    x = x[np.isfinite(x)]
-    return float(np.quantile(x, p)) if x.size else np.nan
 
 
 def summary_rows(tests: pd.DataFrame, fits: pd.DataFrame, n_replicates: int) -> list:

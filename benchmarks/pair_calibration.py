@@ -10,13 +10,19 @@ tips, height 1):
   mild     the same pattern, but a mismatched state is left only 2.5 times
            faster
 
+Both hypotheses are fitted with a flat root. The simulated data draw their
+root state as that model assumes (every joint state 1/4), or, with
+--data-root stationary, from the stationary distribution of the simulating
+chain (a misspecified root, to see what that does to the tests).
+
 For every data set both hypotheses are fitted as the workflow fits them
 (mkforest.fitting.fit_model, 5 starts) and the likelihood-ratio statistic is
 compared with chi-square on 4 df (Pagel 1994); on a subset, the statistic is
 also compared with its parametric-bootstrap distribution (Goldman 1993):
 data sets simulated under the fitted null, each fitted the same way. Reported: rejections at alpha = 0.05 with their counts and an
-exact 95 % binomial interval (Clopper-Pearson, scipy.stats.binomtest), and the
-wall time. Work is spread over worker processes; every data set's seed derives
+exact 95 % binomial interval (Clopper-Pearson, scipy.stats.binomtest), the
+bootstrap's false rejections split by whether the null's fit has a rate at the
+lower bound (the workflow flags those trees), and the CPU and wall time. Work is spread over worker processes; every data set's seed derives
 from (seed, scenario, data set), so the figures do not depend on the number of
 workers.
 
@@ -80,8 +86,9 @@ def setup(n_tips: int, seed: int):
     return dict(tree=tree, pair=pair, ind=ind, dep=dep, q=q, seed=seed)
 
 
-def _init(n_tips, seed):
+def _init(n_tips, seed, data_root):
     _STATE.update(setup(n_tips, seed))
+    _STATE["data_root"] = data_root
 
 
 def one_data_set(task):
@@ -90,13 +97,18 @@ def one_data_set(task):
     s = _STATE
     tree, pair, ind, dep = s["tree"], s["pair"], s["ind"], s["dep"]
     seed = derive_seed(s["seed"], "calibration", scenario, i)
-    states = simulate_states(tree, s["q"][scenario], np.random.default_rng(seed))
+    q = s["q"][scenario]
+    # 'model': the root drawn as the fitted model assumes (flat: every joint state 1/4);
+    # 'stationary': from the stationary distribution of the simulating chain
+    weights = np.full(4, 0.25) if s["data_root"] == "model" else None
+    states = simulate_states(tree, q, np.random.default_rng(seed), root_weights=weights)
     none = (np.zeros(tree.n_tips, bool),) * 2
     X = pairs.simulate_pair_partials(pair, tree, states, none)
     t0, c0 = time.perf_counter(), time.process_time()
     stat, fit_null, _ = pairs.lr_statistic(tree, X, ind, dep, n_starts=STARTS, seed=seed)
     out = {"scenario": scenario, "i": i, "statistic": stat, "p_chi2": float(chi2.sf(stat, 4)),
            "fit_seconds": time.perf_counter() - t0, "fit_cpu_seconds": time.process_time() - c0,
+           "null_at_lower_bound": bool(fit_null.at_lower),
            "tip_states": np.bincount(states[: tree.n_tips], minlength=4).tolist()}
     if n_rep:
         # the bootstrap simulates on this data set's own tree object; tree.index is 0
@@ -128,6 +140,9 @@ def main(argv=None):
     ap.add_argument("--boot-power-sets", type=int, default=50,
                     help="mild data sets with a bootstrap")
     ap.add_argument("--replicates", type=int, default=99, help="bootstrap data sets per test")
+    ap.add_argument("--data-root", choices=["model", "stationary"], default="model",
+                    help="root state of the simulated data: as the fitted model (flat root) "
+                         "assumes, or from the stationary distribution (a misspecified root)")
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--seed", type=int, default=2026)
     ap.add_argument("--quick", action="store_true", help="tiny numbers, to check the script runs")
@@ -143,7 +158,7 @@ def main(argv=None):
     # the longest tasks first, so the workers finish together
     tasks.sort(key=lambda t: -t[2])
     t0 = time.perf_counter()
-    with Pool(a.workers, initializer=_init, initargs=(a.tips, a.seed)) as pool:
+    with Pool(a.workers, initializer=_init, initargs=(a.tips, a.seed, a.data_root)) as pool:
         results = pool.map(one_data_set, tasks, chunksize=1)
     wall = time.perf_counter() - t0
     null = [r for r in results if r["scenario"] == "null"]
@@ -153,11 +168,19 @@ def main(argv=None):
     report = {
         "tips": a.tips, "alpha": ALPHA, "workers": a.workers, "wall_seconds": round(wall, 1),
         "load_average_1min_at_end": round(os.getloadavg()[0], 2),
-        "replicates": a.replicates, "fit_starts": STARTS,
+        "replicates": a.replicates, "fit_starts": STARTS, "data_root": a.data_root,
         "chi2_false_rejection": rejection(null, "p_chi2"),
         "chi2_power_linked": rejection(linked, "p_chi2"),
         "chi2_power_mild": rejection(mild, "p_chi2"),
         "bootstrap_false_rejection": rejection([r for r in null if "p_bootstrap" in r], "p_bootstrap"),
+        # the workflow flags a tree whose null fit has a rate at the lower bound: there the
+        # bootstrap simulates data that never make that change
+        "bootstrap_false_rejection_null_rates_inside": rejection(
+            [r for r in null if "p_bootstrap" in r and not r["null_at_lower_bound"]], "p_bootstrap"),
+        "chi2_false_rejection_same_sets": rejection(
+            [r for r in null if "p_bootstrap" in r and not r["null_at_lower_bound"]], "p_chi2"),
+        "bootstrap_false_rejection_null_rate_at_bound": rejection(
+            [r for r in null if "p_bootstrap" in r and r["null_at_lower_bound"]], "p_bootstrap"),
         "bootstrap_power_mild": rejection([r for r in mild if "p_bootstrap" in r], "p_bootstrap"),
         "chi2_power_mild_same_sets": rejection([r for r in mild if "p_bootstrap" in r], "p_chi2"),
         "mean_statistic_under_null": float(np.mean([r["statistic"] for r in null])),

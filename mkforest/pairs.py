@@ -420,7 +420,9 @@ def _simulation_root(null: RateModel, q, root, tree, tip_partials):
 
 def simulate_pair_partials(pair: TraitPair, tree, joint_states, masks) -> np.ndarray:
     """Joint tip partials from simulated joint tip states, keeping the observed pattern of
-    missing data: a tip missing a trait in the real data is missing it here too."""
+    missing data: a tip missing a trait in the real data is missing it here too. An
+    ambiguous cell (several states, not all) becomes the simulated state: which states
+    a simulated taxon could be confused among has no counterpart in the model."""
     miss1, miss2 = masks
     i, j = np.divmod(np.asarray(joint_states[: tree.n_tips]), pair.k2)
     p1 = np.zeros((tree.n_tips, pair.k1), dtype=bool)

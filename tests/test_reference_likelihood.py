@@ -92,10 +92,10 @@ def test_builtin_model_structures(k):
     q = equal.q_matrix([0.7])
     np.testing.assert_allclose(q, q_from_rates(np.full((k, k), 0.7)), atol=1e-15)
 
-    sym = build_model("symmetric", states)
-    assert sym.n_params == k * (k - 1) // 2
-    rates = rng.uniform(0.1, 2.0, size=sym.n_params)
-    q = sym.q_matrix(rates)
+    symmetric_model = build_model("symmetric", states)
+    assert symmetric_model.n_params == k * (k - 1) // 2
+    rates = rng.uniform(0.1, 2.0, size=symmetric_model.n_params)
+    q = symmetric_model.q_matrix(rates)
     np.testing.assert_allclose(q, q.T, atol=0)
     np.testing.assert_allclose(np.sort(q[np.triu_indices(k, 1)]), np.sort(rates), atol=0)
     np.testing.assert_allclose(q.sum(axis=1), 0.0, atol=1e-14)

@@ -64,14 +64,7 @@ def fit_finite_difference(tree, X, model, root="flat", n_starts=5, seed=0):
     bounds and options, with scipy's finite-difference gradient. Returns best ln L."""
     f = LogLikelihood(tree, X, model, root)
     p = model.n_params
-    height = tree.height
-    lo, hi = math.log(fitting.LOWER / height), math.log(fitting.UPPER / height)
-    guess = math.log(min(max(fitting._starting_rate(tree, X, model), fitting.LOWER / height * 10),
-                         fitting.UPPER / height / 10))
-    rng = np.random.default_rng(seed)
-    starts = [np.full(p, guess)]
-    for _ in range(n_starts - 1):
-        starts.append(np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0))
+    starts, (lo, hi) = fitting.starting_points(tree, X, model, n_starts, seed)
 
     def objective(x):
         ll = f(np.exp(x))

@@ -129,6 +129,24 @@ def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
     return x, ll
 
 
+def starting_points(tree, tip_partials, model, n_starts: int = 5, seed: int = 0,
+                    lower: float = LOWER, upper: float = UPPER):
+    """(starts, (lo, hi)): the optimiser's starting log-rates and its log-rate bounds.
+
+    The first start puts every rate at the parsimony-based guess; the others are
+    seeded random points around it, kept one log-unit inside the bounds."""
+    p = model.n_params
+    height = tree.height if tree.height > 0 else 1.0
+    lo, hi = math.log(lower / height), math.log(upper / height)
+    guess = math.log(min(max(_starting_rate(tree, tip_partials, model), lower / height * 10),
+                         upper / height / 10))
+    rng = np.random.default_rng(seed)
+    starts = [np.full(p, guess)]
+    for _ in range(n_starts - 1):
+        starts.append(np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0))
+    return starts, (lo, hi)
+
+
 def fit_model(tree, tip_partials, model, root="flat", n_starts: int = 5, seed: int = 0,
               lower: float = LOWER, upper: float = UPPER) -> FitResult:
     """Maximum-likelihood rates of ``model`` on one tree (see the module docstring)."""
@@ -138,14 +156,7 @@ def fit_model(tree, tip_partials, model, root="flat", n_starts: int = 5, seed: i
         ll = f(np.zeros(0))
         return FitResult(model.name, ll, np.zeros(0), model.labels, 0, np.isfinite(ll), 1, 1,
                          (), (), root, model.q_matrix(np.zeros(0)))
-    height = tree.height if tree.height > 0 else 1.0
-    lo, hi = math.log(lower / height), math.log(upper / height)
-    guess = math.log(min(max(_starting_rate(tree, tip_partials, model), lower / height * 10),
-                         upper / height / 10))
-    rng = np.random.default_rng(seed)
-    starts = [np.full(p, guess)]
-    for _ in range(n_starts - 1):
-        starts.append(np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0))
+    starts, (lo, hi) = starting_points(tree, tip_partials, model, n_starts, seed, lower, upper)
 
     def objective(x):
         # exact gradient (mkforest.gradient), in log-rate space

@@ -391,14 +391,7 @@ def scipy_fd_fit(tree, partials, model, root, n_starts=5, seed=0):
     """Best ln L of scipy's L-BFGS-B with its own finite-difference gradient, from the
     same starts, bounds and options as fit_model."""
     p = model.n_params
-    height = tree.height
-    lo, hi = math.log(fitting.LOWER / height), math.log(fitting.UPPER / height)
-    guess = math.log(min(max(fitting._starting_rate(tree, partials, model), fitting.LOWER / height * 10),
-                         fitting.UPPER / height / 10))
-    rng = np.random.default_rng(seed)
-    starts = [np.full(p, guess)]
-    for _ in range(n_starts - 1):
-        starts.append(np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0))
+    starts, (lo, hi) = fitting.starting_points(tree, partials, model, n_starts, seed)
 
     def objective(x):
         ll = log_likelihood(tree, partials, model.q_matrix(np.exp(x)), root, model.states)

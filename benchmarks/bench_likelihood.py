@@ -3,7 +3,7 @@
     .venv/bin/python benchmarks/bench_likelihood.py [--repeat 5] [--fit-trees 10]
 
 Sections:
-1. one evaluation of ln L, of ln L + exact gradient (mkforest.gradient) and of
+1. one evaluation of ln L, of ln L + exact gradient (mkforest.engine.gradient) and of
    ln L + a forward-difference gradient (p + 1 likelihoods, what L-BFGS-B does
    without a gradient), symmetric (real eigenvalues) and all_different (a fast
    one-way cycle: complex eigenvalues) models on 4 states, 500 and 2,000 tips;
@@ -30,14 +30,14 @@ import math  # noqa: E402
 import time  # noqa: E402
 
 import numpy as np  # noqa: E402
+from bench_mapping import pure_birth_tree  # noqa: E402
 from scipy.optimize import minimize  # noqa: E402
 
-from bench_mapping import pure_birth_tree  # noqa: E402
-from mkforest import fitting  # noqa: E402
-from mkforest.fitting import LogLikelihood, fit_model  # noqa: E402
-from mkforest.gradient import log_likelihood_and_gradient  # noqa: E402
-from mkforest.models import build_model  # noqa: E402
-from mkforest.simulate import simulate_states, tip_partials_from_states  # noqa: E402
+from mkforest.engine import fitting  # noqa: E402
+from mkforest.engine.fitting import LogLikelihood, fit_model  # noqa: E402
+from mkforest.engine.gradient import log_likelihood_and_gradient  # noqa: E402
+from mkforest.engine.models import build_model  # noqa: E402
+from mkforest.engine.simulate import simulate_states, tip_partials_from_states  # noqa: E402
 
 STATES4 = ("w", "x", "y", "z")
 

@@ -18,12 +18,12 @@ import time
 
 import numpy as np
 
-from mkforest.ancestral import marginal_probabilities
-from mkforest.fitting import fit_model
-from mkforest.mapping import stochastic_maps
-from mkforest.models import build_model
-from mkforest.simulate import simulate_states, tip_partials_from_states
-from mkforest.trees import TreeArrays, _build
+from mkforest.data.trees import TreeArrays, _build
+from mkforest.engine.ancestral import marginal_probabilities
+from mkforest.engine.fitting import fit_model
+from mkforest.engine.mapping import stochastic_maps
+from mkforest.engine.models import build_model
+from mkforest.engine.simulate import simulate_states, tip_partials_from_states
 
 
 def pure_birth_tree(rng, n_tips: int, height: float = 1.0, index: int = 0) -> TreeArrays:

@@ -20,9 +20,10 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "tests"))
 
-from mkforest.demo import make_demo  # noqa: E402
 from slurm_cluster import one_node_slurm  # noqa: E402
 from test_slurm import run_workflow_locally, run_workflow_on_slurm  # noqa: E402
+
+from mkforest.demo import make_demo  # noqa: E402
 
 
 def main() -> int:

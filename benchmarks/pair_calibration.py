@@ -16,7 +16,7 @@ root state as that model assumes (every joint state 1/4), or, with
 chain (a misspecified root, to see what that does to the tests).
 
 For every data set both hypotheses are fitted as the workflow fits them
-(mkforest.fitting.fit_model, 5 starts) and the likelihood-ratio statistic is
+(mkforest.engine.fitting.fit_model, 5 starts) and the likelihood-ratio statistic is
 compared with chi-square on 4 df (Pagel 1994); on a subset, the statistic is
 also compared with its parametric-bootstrap distribution (Goldman 1993):
 data sets simulated under the fitted null, each fitted the same way. Reported: rejections at alpha = 0.05 with their counts and an
@@ -47,12 +47,12 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 import numpy as np  # noqa: E402
 from scipy.stats import binomtest, chi2  # noqa: E402
 
-from mkforest import pairs  # noqa: E402
+from mkforest.data.traits import trait_from_mapping  # noqa: E402
+from mkforest.data.trees import parse_newick  # noqa: E402
 from mkforest.demo import newick, yule_tree  # noqa: E402
+from mkforest.engine import pairs  # noqa: E402
+from mkforest.engine.simulate import simulate_states  # noqa: E402
 from mkforest.seeds import derive_seed  # noqa: E402
-from mkforest.simulate import simulate_states  # noqa: E402
-from mkforest.traits import trait_from_mapping  # noqa: E402
-from mkforest.trees import parse_newick  # noqa: E402
 
 ALPHA = 0.05
 STARTS = 5   # optimiser starts per fit: the workflow's default (fitting.starts)

@@ -47,7 +47,7 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _archive(args) -> int:
-    from .provenance import archive_run
+    from .report.provenance import archive_run
 
     out = archive_run(args.run_folder, args.output, args.author, args.title)
     size = out["archive"].stat().st_size
@@ -61,7 +61,7 @@ def _archive(args) -> int:
 
 
 def _verify(args) -> int:
-    from .provenance import verify
+    from .report.provenance import verify
 
     check = verify(args.path, args.against)
     print("\n".join(check.lines()))

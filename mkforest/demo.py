@@ -27,9 +27,9 @@ from pathlib import Path
 import numpy as np
 import yaml
 
-from .models import build_model
-from .simulate import simulate_states
-from .trees import parse_newick
+from .data.trees import parse_newick
+from .engine.models import build_model
+from .engine.simulate import simulate_states
 
 SYLLABLES = ["ra", "ven", "ti", "lor", "ma", "qu", "sel", "do", "fi", "nar", "cu", "pel", "zo",
              "ria", "mon", "est", "la", "vo", "ki", "ne"]

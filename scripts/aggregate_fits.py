@@ -8,9 +8,14 @@ import logging
 
 import pandas as pd
 
-from mkforest.scripting import run_job
-from mkforest.summarise import (add_weights, averaged_rates, mark_duplicates, model_support,
-                                rate_summary)
+from mkforest.engine.summarise import (
+    add_weights,
+    averaged_rates,
+    mark_duplicates,
+    model_support,
+    rate_summary,
+)
+from mkforest.jobs.scripting import run_job
 
 
 def _read(paths):

@@ -10,11 +10,11 @@ import logging
 import numpy as np
 import pandas as pd
 
-from mkforest.ancestral_jobs import chunk_ancestral
-from mkforest.fitjobs import analysis_setup
-from mkforest.scripting import run_job
-from mkforest.traits import traits_from_json
-from mkforest.trees import load_trees
+from mkforest.data.traits import traits_from_json
+from mkforest.data.trees import load_trees
+from mkforest.jobs.ancestral import chunk_ancestral
+from mkforest.jobs.fit import analysis_setup
+from mkforest.jobs.scripting import run_job
 
 
 def read_all(paths, **kw):

@@ -6,10 +6,10 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import logging
 
-from mkforest.ancestral_jobs import target_clades
-from mkforest.clades import check_same_taxa, parse_named_clades
-from mkforest.scripting import run_job
-from mkforest.trees import load_trees, read_trees, to_newick
+from mkforest.data.clades import check_same_taxa, parse_named_clades
+from mkforest.data.trees import load_trees, read_trees, to_newick
+from mkforest.jobs.ancestral import target_clades
+from mkforest.jobs.scripting import run_job
 
 
 def main(smk):

@@ -6,8 +6,8 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import pandas as pd
 
-from mkforest.ancestral_jobs import load_chunks, state_table, transition_tables
-from mkforest.scripting import run_job
+from mkforest.jobs.ancestral import load_chunks, state_table, transition_tables
+from mkforest.jobs.scripting import run_job
 
 
 def main(smk):

@@ -9,10 +9,10 @@ import json
 import logging
 import time
 
-from mkforest.fitjobs import FIT_COLUMNS, RATE_COLUMNS, analysis_setup, fit_chunk
-from mkforest.scripting import run_job
-from mkforest.traits import traits_from_json
-from mkforest.trees import load_trees
+from mkforest.data.traits import traits_from_json
+from mkforest.data.trees import load_trees
+from mkforest.jobs.fit import FIT_COLUMNS, RATE_COLUMNS, analysis_setup, fit_chunk
+from mkforest.jobs.scripting import run_job
 
 
 def main(smk):

@@ -5,7 +5,7 @@ from pathlib import Path
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 from mkforest.demo import make_demo
-from mkforest.scripting import run_job
+from mkforest.jobs.scripting import run_job
 
 
 def main(smk):

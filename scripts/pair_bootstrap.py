@@ -9,12 +9,16 @@ import logging
 
 import pandas as pd
 
-from mkforest.pair_jobs import (BOOTSTRAP_COLUMNS, bootstrap_chunk, bootstrap_tree_indices,
-                                rates_from_rows)
-from mkforest.pairs import pair_from_config, pair_models, selected_tests
-from mkforest.scripting import run_job
-from mkforest.traits import traits_from_json
-from mkforest.trees import load_trees
+from mkforest.data.traits import traits_from_json
+from mkforest.data.trees import load_trees
+from mkforest.engine.pairs import pair_from_config, pair_models, selected_tests
+from mkforest.jobs.pairs import (
+    BOOTSTRAP_COLUMNS,
+    bootstrap_chunk,
+    bootstrap_tree_indices,
+    rates_from_rows,
+)
+from mkforest.jobs.scripting import run_job
 
 
 def _read(paths):

@@ -9,10 +9,15 @@ import logging
 
 import pandas as pd
 
-from mkforest.pair_jobs import BOOTSTRAP_COLUMNS, TEST_COLUMNS, pair_test_rows, summary_rows
-from mkforest.pairs import pair_from_config, pair_models, selected_tests
-from mkforest.scripting import run_job
-from mkforest.traits import traits_from_json
+from mkforest.data.traits import traits_from_json
+from mkforest.engine.pairs import pair_from_config, pair_models, selected_tests
+from mkforest.jobs.pairs import (
+    BOOTSTRAP_COLUMNS,
+    TEST_COLUMNS,
+    pair_test_rows,
+    summary_rows,
+)
+from mkforest.jobs.scripting import run_job
 
 
 def main(smk):

@@ -8,10 +8,10 @@ import json
 
 import pandas as pd
 
-from mkforest import plots_ancestral
-from mkforest.scripting import run_job
-from mkforest.traits import traits_from_json
-from mkforest.trees import parse_newick
+from mkforest.data.traits import traits_from_json
+from mkforest.data.trees import parse_newick
+from mkforest.jobs.scripting import run_job
+from mkforest.report import plots_ancestral
 
 
 def main(smk):

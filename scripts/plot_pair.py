@@ -8,11 +8,11 @@ import json
 
 import pandas as pd
 
-from mkforest.pairs import pair_from_config
-from mkforest.plots import save
-from mkforest.plots_pairs import pair_diagram, pair_tests_figure
-from mkforest.scripting import run_job
-from mkforest.traits import traits_from_json
+from mkforest.data.traits import traits_from_json
+from mkforest.engine.pairs import pair_from_config
+from mkforest.jobs.scripting import run_job
+from mkforest.report.plots import save
+from mkforest.report.plots_pairs import pair_diagram, pair_tests_figure
 
 
 def main(smk):

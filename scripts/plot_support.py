@@ -6,8 +6,8 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import pandas as pd
 
-from mkforest import plots
-from mkforest.scripting import run_job
+from mkforest.jobs.scripting import run_job
+from mkforest.report import plots
 
 
 def main(smk):

@@ -9,11 +9,11 @@ import logging
 
 import pandas as pd
 
+from mkforest.data.traits import read_traits, traits_to_json
+from mkforest.data.trees import load_trees
 from mkforest.errors import InputError
-from mkforest.prepare import data_check
-from mkforest.scripting import run_job
-from mkforest.traits import read_traits, traits_to_json
-from mkforest.trees import load_trees
+from mkforest.jobs.prepare import data_check
+from mkforest.jobs.scripting import run_job
 
 
 def main(smk):

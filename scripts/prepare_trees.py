@@ -8,9 +8,9 @@ import logging
 
 import pandas as pd
 
-from mkforest.prepare import check_same_tips, chunk, select_trees
-from mkforest.scripting import run_job
-from mkforest.trees import read_trees, save_trees
+from mkforest.data.trees import read_trees, save_trees
+from mkforest.jobs.prepare import check_same_tips, chunk, select_trees
+from mkforest.jobs.scripting import run_job
 
 
 def main(smk):

@@ -6,8 +6,8 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import logging
 
-from mkforest.provenance import build_manifest, now_utc, write_json
-from mkforest.scripting import run_job
+from mkforest.jobs.scripting import run_job
+from mkforest.report.provenance import build_manifest, now_utc, write_json
 
 
 def main(smk):

@@ -6,11 +6,11 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import json
 
-from mkforest.fitjobs import analysis_setup
-from mkforest.methods import methods_text, read_tables, table_name
-from mkforest.provenance import software_versions
-from mkforest.scripting import run_job
-from mkforest.traits import traits_from_json
+from mkforest.data.traits import traits_from_json
+from mkforest.jobs.fit import analysis_setup
+from mkforest.jobs.scripting import run_job
+from mkforest.report.methods import methods_text, read_tables, table_name
+from mkforest.report.provenance import software_versions
 
 
 def main(smk):

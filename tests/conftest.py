@@ -22,9 +22,12 @@ import numpy as np  # noqa: E402
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from reference import (  # noqa: E402
-    newick_from_arrays, q_from_rates, ref_tree_from_newick, reference_custom_q, simulate_reference,
+    newick_from_arrays,
+    q_from_rates,
+    ref_tree_from_newick,
+    reference_custom_q,
+    simulate_reference,
 )
-
 
 # --------------------------------------------------------------------------- trees
 
@@ -137,7 +140,7 @@ KIND_CYCLE = ["equal", "symmetric", "all_different", "custom"]
 
 def make_model_case(rng, seed):
     """(model, rates, Q) for a case. Q is built here from the kind's definition, not by the engine."""
-    from mkforest.models import build_model
+    from mkforest.engine.models import build_model
 
     kind = KIND_CYCLE[seed % len(KIND_CYCLE)]
     if kind == "custom":

@@ -15,9 +15,9 @@ import sys
 from pathlib import Path
 
 import yaml
+from workflow_helpers import REPO, run_snakemake
 
 from mkforest.demo import make_demo
-from workflow_helpers import REPO, run_snakemake
 
 MKFOREST = str(Path(sys.executable).with_name("mkforest"))
 # An outside SHA-256 implementation: GNU coreutils' sha256sum, or Perl's shasum (macOS).

@@ -9,7 +9,7 @@ A tree is anything with ``tip_labels`` (tips are nodes 0..n_tips-1), ``parent``
 (-1 at the root) and ``length`` (branch length above each node). That covers the
 engine's TreeArrays, but the functions never rely on its postorder numbering:
 they work out the traversal from ``parent`` themselves. ``RefTree`` builds such
-a tree straight from Newick with DendroPy, independently of mkforest.trees.
+a tree straight from Newick with DendroPy, independently of mkforest.data.trees.
 
 Sources:
 - the likelihood is the sum over interior-node states of
@@ -32,7 +32,6 @@ from dataclasses import dataclass
 import dendropy
 import numpy as np
 import scipy.linalg
-
 
 # --------------------------------------------------------------------------- trees
 

@@ -24,14 +24,17 @@ import itertools
 import numpy as np
 import pytest
 import scipy.linalg
-
 from conftest import partials_from_cells, random_case, yule_arrays
 from reference import newick_from_arrays, pruning_log_likelihood, q_from_rates
 from reference import root_weights as reference_root_weights
 
-from mkforest.ancestral import (ImpossibleData, averaged_probabilities, marginal_probabilities,
-                                passes)
-from mkforest.trees import parse_newick
+from mkforest.data.trees import parse_newick
+from mkforest.engine.ancestral import (
+    ImpossibleData,
+    averaged_probabilities,
+    marginal_probabilities,
+    passes,
+)
 
 N_CASES = 40
 TOL = 1e-9

@@ -12,8 +12,13 @@ import json
 import numpy as np
 import pandas as pd
 
-from mkforest.ancestral_jobs import (model_weights, q_from_rate_rows, resolve_choice, state_table,
-                                     transition_tables)
+from mkforest.jobs.ancestral import (
+    model_weights,
+    q_from_rate_rows,
+    resolve_choice,
+    state_table,
+    transition_tables,
+)
 
 
 def test_model_weights_follow_akaike_formula():

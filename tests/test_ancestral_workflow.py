@@ -12,7 +12,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-
 from workflow_helpers import run_snakemake, tiny_config
 
 pytestmark = pytest.mark.slow  # two real workflow runs, ~1-2 minutes

@@ -17,14 +17,25 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
 from conftest import random_newick
 
-from mkforest.clades import (check_same_taxa, clade_key, consensus_names, count_clades, find_mrca,
-                             majority_consensus, mask_of, node_clades, node_masks,
-                             parse_named_clades, taxon_bits, tips_in_drawing_order, to_dendropy)
+from mkforest.data.clades import (
+    check_same_taxa,
+    clade_key,
+    consensus_names,
+    count_clades,
+    find_mrca,
+    majority_consensus,
+    mask_of,
+    node_clades,
+    node_masks,
+    parse_named_clades,
+    taxon_bits,
+    tips_in_drawing_order,
+    to_dendropy,
+)
+from mkforest.data.trees import parse_newick
 from mkforest.errors import InputError
-from mkforest.trees import parse_newick
 
 # Six trees on taxa a..f. (a,b) is in all six, (d,e) in four, {c,d,e} in four,
 # (a,b,c) in two, (e,f) in one, (b,c) in none of them.

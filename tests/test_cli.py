@@ -11,8 +11,7 @@ from pathlib import Path
 import jsonschema
 import pytest
 import yaml
-
-from provenance_runs import SHA256SUM, RUN, copy_run, finished_run, mkforest
+from provenance_runs import RUN, SHA256SUM, copy_run, finished_run, mkforest
 
 
 @pytest.fixture(scope="module")

@@ -15,11 +15,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.linalg
-
 from reference import q_from_rates
 
-from mkforest.likelihood import transition_matrices
-from mkforest.models import build_model
+from mkforest.engine.likelihood import transition_matrices
+from mkforest.engine.models import build_model
 
 TIMES = np.array([0.0, 1e-12, 1e-6, 0.013, 0.2, 0.5, 1.0, 2.7, 10.0, 100.0])
 

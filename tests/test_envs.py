@@ -1,9 +1,9 @@
 """The conda environment for cluster jobs mirrors the package's dependencies."""
 
 import re
-import tomllib
 from pathlib import Path
 
+import tomllib
 import yaml
 
 REPO = Path(__file__).resolve().parent.parent

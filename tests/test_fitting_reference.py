@@ -23,18 +23,25 @@ import numpy as np
 import pytest
 import scipy.optimize
 import scipy.stats
-
 from conftest import partials_from_cells, random_newick, tip_data_mapping, yule_newick
-from reference import (pruning_log_likelihood, q_from_rates, ref_tree_from_newick,
-                       reference_custom_q, transition_matrix)
+from reference import (
+    pruning_log_likelihood,
+    q_from_rates,
+    ref_tree_from_newick,
+    reference_custom_q,
+    transition_matrix,
+)
 
-from mkforest.compare import akaike_weights, information_criteria, likelihood_ratio_test
-from mkforest.fitting import fit_model
-from mkforest.likelihood import log_likelihood
-from mkforest.models import build_model
-from mkforest.simulate import simulate_states
-from mkforest.trees import parse_newick
-
+from mkforest.data.trees import parse_newick
+from mkforest.engine.compare import (
+    akaike_weights,
+    information_criteria,
+    likelihood_ratio_test,
+)
+from mkforest.engine.fitting import fit_model
+from mkforest.engine.likelihood import log_likelihood
+from mkforest.engine.models import build_model
+from mkforest.engine.simulate import simulate_states
 
 # --------------------------------------------------------------------------- comparison
 
@@ -274,7 +281,7 @@ def test_rate_whose_maximum_is_at_zero_is_flagged(seed):
     reader does not take a near-zero estimate for a measured one (project rule:
     rates at a bound are said plainly). Also the fit must be a maximum to 1e-6.
     No outside value: a property of the maximum on a box."""
-    from mkforest.fitting import LOWER
+    from mkforest.engine.fitting import LOWER
 
     states = ["u", "v", "w"]
     Q = q_from_rates([[0, 1.0, 0.4], [0.7, 0, 1.2], [0.3, 0.9, 0]])

@@ -1,4 +1,4 @@
-"""The exact gradient of ln L (mkforest.gradient) against outside references.
+"""The exact gradient of ln L (mkforest.engine.gradient) against outside references.
 
 Sources, beside each check:
 - central finite differences with Richardson extrapolation of (a) the engine's
@@ -28,18 +28,28 @@ import math
 import numpy as np
 import pytest
 import scipy.optimize
+from conftest import (
+    CUSTOM_SPECS,
+    make_model_case,
+    partials_from_cells,
+    random_newick,
+    tip_data_mapping,
+    yule_arrays,
+)
+from reference import (
+    newick_from_arrays,
+    pruning_log_likelihood,
+    q_from_rates,
+    ref_tree_from_newick,
+    stationary_is_unique,
+)
 
-from conftest import (CUSTOM_SPECS, make_model_case, partials_from_cells, random_newick,
-                      tip_data_mapping, yule_arrays)
-from reference import (newick_from_arrays, pruning_log_likelihood, q_from_rates,
-                       ref_tree_from_newick, stationary_is_unique)
-
-from mkforest import fitting
-from mkforest.fitting import fit_model
-from mkforest.gradient import exact_gradient_applies, log_likelihood_and_gradient
-from mkforest.likelihood import eigensystem, log_likelihood
-from mkforest.models import build_model
-from mkforest.trees import parse_newick
+from mkforest.data.trees import parse_newick
+from mkforest.engine import fitting
+from mkforest.engine.fitting import fit_model
+from mkforest.engine.gradient import exact_gradient_applies, log_likelihood_and_gradient
+from mkforest.engine.likelihood import eigensystem, log_likelihood
+from mkforest.engine.models import build_model
 
 RTOL = 1e-6   # relative, per component
 ATOL = 1e-8   # absolute floor for components near zero (finite differences reach ~1e-10)

@@ -13,15 +13,14 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
 from conftest import partials_from_cells, random_case, random_newick, tip_data_mapping
 from reference import newick_from_arrays, q_from_rates, ref_tree_from_newick
 
-from mkforest.fitting import fit_model
-from mkforest.likelihood import log_likelihood
-from mkforest.models import build_model
-from mkforest.traits import trait_from_mapping
-from mkforest.trees import parse_newick
+from mkforest.data.traits import trait_from_mapping
+from mkforest.data.trees import parse_newick
+from mkforest.engine.fitting import fit_model
+from mkforest.engine.likelihood import log_likelihood
+from mkforest.engine.models import build_model
 
 TOL = 1e-9
 

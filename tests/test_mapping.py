@@ -34,15 +34,19 @@ import numpy as np
 import pytest
 import scipy.integrate
 import scipy.linalg
-from dendropy.model.parsimony import fitch_down_pass
-
 from conftest import partials_from_cells, random_case, random_newick, yule_arrays
+from dendropy.model.parsimony import fitch_down_pass
 from reference import newick_from_arrays, q_from_rates
 
-from mkforest.ancestral import ImpossibleData
-from mkforest.fitting import fitch_score
-from mkforest.mapping import SEGMENT_JUMPS, mixed_stochastic_maps, stochastic_maps, summarise
-from mkforest.trees import parse_newick
+from mkforest.data.trees import parse_newick
+from mkforest.engine.ancestral import ImpossibleData
+from mkforest.engine.fitting import fitch_score
+from mkforest.engine.mapping import (
+    SEGMENT_JUMPS,
+    mixed_stochastic_maps,
+    stochastic_maps,
+    summarise,
+)
 
 Z = 4.5  # standard errors allowed between a Monte Carlo mean and its expectation
 

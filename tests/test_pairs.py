@@ -1,4 +1,4 @@
-"""Two traits as one chain (mkforest.pairs) against outside references.
+"""Two traits as one chain (mkforest.engine.pairs) against outside references.
 
 Sources, beside each check:
 - two binary traits as one four-state chain; simultaneous change of both traits
@@ -31,19 +31,18 @@ import math
 import numpy as np
 import pytest
 import scipy.linalg
-from scipy.stats import binom, chi2
-
 from conftest import random_newick, yule_newick
 from reference import q_from_rates, ref_tree_from_newick
+from scipy.stats import binom, chi2
 
-from mkforest import pairs
+from mkforest.data.traits import trait_from_mapping
+from mkforest.data.trees import parse_newick
+from mkforest.engine import pairs
+from mkforest.engine.fitting import fit_model
+from mkforest.engine.likelihood import log_likelihood
+from mkforest.engine.models import build_model
+from mkforest.engine.simulate import simulate_states
 from mkforest.errors import InputError
-from mkforest.fitting import fit_model
-from mkforest.likelihood import log_likelihood
-from mkforest.models import build_model
-from mkforest.simulate import simulate_states
-from mkforest.traits import trait_from_mapping
-from mkforest.trees import parse_newick
 
 ROOTS = ("flat", "equilibrium", "conditional")
 LIMB = ("absent", "present")

@@ -17,13 +17,13 @@ import numpy as np
 import pandas as pd
 import pytest
 from scipy.stats import chi2
-
-from mkforest import pairs
-from mkforest.errors import InputError
-from mkforest.pair_jobs import bootstrap_tree_indices
-from mkforest.plots_pairs import pair_diagram, pair_tests_figure
-from mkforest.traits import trait_from_mapping, traits_from_json
 from workflow_helpers import run_snakemake, tiny_config
+
+from mkforest.data.traits import trait_from_mapping, traits_from_json
+from mkforest.engine import pairs
+from mkforest.errors import InputError
+from mkforest.jobs.pairs import bootstrap_tree_indices
+from mkforest.report.plots_pairs import pair_diagram, pair_tests_figure
 
 ROUND_FIRST = {"plain+round <-> banded+round": "band",
                "plain+round <-> plain+toothed": "tooth",
@@ -192,8 +192,8 @@ def test_test_rows_and_summary_from_hand_made_tables():
     """pair_test_rows / summary_rows on tables written here: statistic 2 (ln L_alt - ln L_null)
     floored at 0, chi-square p from scipy.stats.chi2 (general-purpose library), bootstrap p
     (1 + #{T* >= T}) / (N + 1) (common practice), and the plain-words flags."""
-    from mkforest.pair_jobs import TEST_COLUMNS, pair_test_rows, summary_rows
-    from mkforest.pairs import Nesting
+    from mkforest.engine.pairs import Nesting
+    from mkforest.jobs.pairs import TEST_COLUMNS, pair_test_rows, summary_rows
 
     fits = pd.DataFrame([
         # tree 0: an ordinary fit; tree 1: the null has a rate at the lower bound;

@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from mkforest import plots_ancestral
-from mkforest.clades import consensus_names, node_clades
-from mkforest.traits import trait_from_mapping
-from mkforest.trees import parse_newick
+from mkforest.data.clades import consensus_names, node_clades
+from mkforest.data.traits import trait_from_mapping
+from mkforest.data.trees import parse_newick
+from mkforest.report import plots_ancestral
 
 TREE = "(((a:1,b:1):1,c:2):1,((d:1,e:1):1.5,f:2.5):0.5);"
 STATES = ("dry", "wet", "salt")

@@ -18,15 +18,22 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
-
-from mkforest.citations import REFERENCES
-from mkforest.config import validate_config
-from mkforest.fitjobs import analysis_setup
-from mkforest.methods import methods_text, read_tables
-from mkforest.provenance import software_versions
-from mkforest.traits import traits_from_json
-from provenance_runs import SHA256SUM, RUN, base_config, finished_run, mkforest, prepare_workdir
+from provenance_runs import (
+    RUN,
+    SHA256SUM,
+    base_config,
+    finished_run,
+    mkforest,
+    prepare_workdir,
+)
 from workflow_helpers import REPO, run_snakemake
+
+from mkforest.data.config import validate_config
+from mkforest.data.traits import traits_from_json
+from mkforest.jobs.fit import analysis_setup
+from mkforest.report.citations import REFERENCES
+from mkforest.report.methods import methods_text, read_tables
+from mkforest.report.provenance import software_versions
 
 SNAKEMAKE = str(Path(sys.executable).with_name("snakemake"))
 

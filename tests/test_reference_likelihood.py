@@ -19,19 +19,31 @@ import math
 
 import numpy as np
 import pytest
+from conftest import (
+    CUSTOM_SPECS,
+    partials_from_cells,
+    random_case,
+    tip_data_mapping,
+    yule_arrays,
+)
+from reference import (
+    brute_force_log_likelihood,
+    brute_force_root_likelihoods,
+    combine_root,
+    newick_from_arrays,
+    pruning_log_likelihood,
+    q_from_rates,
+    ref_tree_from_newick,
+    reference_custom_q,
+    reference_stationary,
+    stationary_is_unique,
+)
 
-from conftest import (CUSTOM_SPECS, partials_from_cells, random_case, tip_data_mapping,
-                      yule_arrays)
-from reference import (brute_force_log_likelihood, brute_force_root_likelihoods, combine_root,
-                       newick_from_arrays, pruning_log_likelihood, q_from_rates,
-                       ref_tree_from_newick, reference_custom_q, reference_stationary,
-                       stationary_is_unique)
-
+from mkforest.data.traits import trait_from_mapping
+from mkforest.data.trees import parse_newick, read_trees
+from mkforest.engine.likelihood import log_likelihood, stationary_distribution
+from mkforest.engine.models import build_model
 from mkforest.errors import InputError
-from mkforest.likelihood import log_likelihood, stationary_distribution
-from mkforest.models import build_model
-from mkforest.traits import trait_from_mapping
-from mkforest.trees import parse_newick, read_trees
 
 N_CASES = 48
 TOL = 1e-9  # absolute, on ln L
@@ -377,7 +389,7 @@ def test_custom_model_names_state_the_trait_lacks():
 
 
 def test_trait_with_one_state_is_rejected(tmp_path):
-    from mkforest.traits import check_variable, read_traits
+    from mkforest.data.traits import check_variable, read_traits
 
     path = _write(tmp_path, "traits.csv", "taxon,colour,size\na,red,big\nb,red,small\nc,?,big\n")
     traits = read_traits(path, "taxon")

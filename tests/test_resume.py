@@ -7,7 +7,7 @@ group, as a power cut or a killed session leaves things. After a hard kill Snake
 first asks for ``snakemake --unlock`` (its lock on the working directory was left
 behind). Snakemake's own incomplete-file check does not reach jobs that depend on a
 checkpoint (nearly all of ours), so job outputs take their final names only when
-complete (mkforest.scripting.run_job); the first test shows it on a workflow built to
+complete (mkforest.jobs.scripting.run_job); the first test shows it on a workflow built to
 die in the middle of writing a file.
 """
 
@@ -20,10 +20,8 @@ import time
 from pathlib import Path
 
 import pytest
-
 from provenance_runs import RUN, base_config, finished_run, mkforest, prepare_workdir
 from workflow_helpers import REPO, SNAKEMAKE, run_snakemake
-
 
 LAPTOP = REPO / "profiles" / "laptop"
 
@@ -61,7 +59,7 @@ rule write:
 WRITER = """
 import os, signal, sys
 sys.path.insert(0, {repo!r})
-from mkforest.scripting import run_job
+from mkforest.jobs.scripting import run_job
 
 
 def main(smk):

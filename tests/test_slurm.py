@@ -13,7 +13,6 @@ from pathlib import Path
 
 import pytest
 import yaml
-
 from slurm_cluster import Cluster, SnakemakeRun, one_node_slurm, run_snakemake_bounded
 
 pytestmark = pytest.mark.slurm

@@ -8,9 +8,9 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
-
-from mkforest.compare import akaike_weights, information_criteria
 from workflow_helpers import run_snakemake, tiny_config
+
+from mkforest.engine.compare import akaike_weights, information_criteria
 
 FIT_CONTRACT = ["analysis", "model", "tree", "n_taxa", "n_params", "log_likelihood", "aic", "aicc",
                 "bic", "converged"]

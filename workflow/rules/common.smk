@@ -2,8 +2,8 @@
 import glob
 import os
 
-from mkforest.config import analyses, fit_job_config, validate_config
-from mkforest.fitjobs import check_models_against_table
+from mkforest.data.config import analyses, fit_job_config, validate_config
+from mkforest.jobs.fit import check_models_against_table
 from mkforest.errors import InputError
 
 try:

@@ -6,7 +6,7 @@ from datetime import datetime, timezone
 
 from snakemake.io import is_flagged
 
-from mkforest.provenance import input_files
+from mkforest.report.provenance import input_files
 
 # How and when this invocation of Snakemake started, for the manifest. A
 # SimpleNamespace is not a builtin type, so Snakemake leaves it out of its

@@ -10,7 +10,7 @@ import sys
 import time
 from pathlib import Path
 
-from .errors import InputError
+from ..errors import InputError
 
 
 def run_job(snakemake, main) -> None:

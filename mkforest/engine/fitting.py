@@ -159,7 +159,7 @@ def fit_model(tree, tip_partials, model, root="flat", n_starts: int = 5, seed: i
     starts, (lo, hi) = starting_points(tree, tip_partials, model, n_starts, seed, lower, upper)
 
     def objective(x):
-        # exact gradient (mkforest.gradient), in log-rate space
+        # exact gradient (mkforest.engine.gradient), in log-rate space
         ll, grad = log_likelihood_and_gradient(tree, f.tip_partials, model, np.exp(x), root)
         if not np.isfinite(ll):
             return _IMPOSSIBLE, np.zeros(p)

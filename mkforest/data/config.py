@@ -13,9 +13,9 @@ from pathlib import Path
 
 import yaml
 
-from .errors import InputError
+from ..errors import InputError
 
-SCHEMA = Path(__file__).resolve().parent.parent / "workflow" / "schemas" / "config.schema.yaml"
+SCHEMA = Path(__file__).resolve().parents[2] / "workflow" / "schemas" / "config.schema.yaml"
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_.-]+$")
 BUILTIN_KINDS = ("equal", "symmetric", "all_different")
 

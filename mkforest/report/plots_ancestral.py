@@ -25,7 +25,7 @@ import seaborn as sns  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
 
-from .clades import ladder_children, node_clades, tips_in_drawing_order  # noqa: E402
+from ..data.clades import ladder_children, node_clades, tips_in_drawing_order  # noqa: E402
 
 STATE_PALETTE = "Set2"
 BRANCH_COLOUR = "#4a4a4a"

@@ -6,8 +6,8 @@ import math
 
 import numpy as np
 
-from .errors import InputError
-from .seeds import derive_seed
+from ..errors import InputError
+from ..seeds import derive_seed
 
 
 def select_trees(n_total: int, burnin=0, thin: int = 1, sample=None, seed: int = 1,

@@ -2,7 +2,7 @@
 
 Every number in the text is read from the run's tables and rounded; every
 setting from the resolved config. Published methods are cited in the text and
-listed in full at the end (mkforest.citations). Stages that did not run (trait
+listed in full at the end (mkforest.report.citations). Stages that did not run (trait
 pairs, ancestral states) are mentioned only when their tables are given.
 
 ``methods_text(config, tables, models, software)``:
@@ -10,7 +10,7 @@ pairs, ancestral states) are mentioned only when their tables are given.
            rate_summary are needed; pair_summary, ancestral_states, transitions
            and clades are used when present
   models   {analysis: {model name: (RateModel, root)}} as built for the fits
-  software {package: version}, from mkforest.provenance.software_versions()
+  software {package: version}, from mkforest.report.provenance.software_versions()
 """
 
 from __future__ import annotations
@@ -20,9 +20,9 @@ from pathlib import Path
 
 import pandas as pd
 
+from ..engine.fitting import AGREE_TOL
+from ..engine.pairs import HYPOTHESES
 from .citations import REFERENCES, cite, cited_in
-from .fitting import AGREE_TOL
-from .pairs import HYPOTHESES
 
 CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
 CRITERION_REFS = {"aicc": ("akaike1974", "hurvich1989"), "aic": ("akaike1974",),

@@ -11,7 +11,9 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.special import chdtrc  # chi-square survival function; lighter than scipy.stats
+from scipy.special import (
+    chdtrc,  # chi-square survival function; lighter than scipy.stats
+)
 
 CRITERIA = ("aic", "aicc", "bic")
 

@@ -14,7 +14,7 @@ import numba
 import numpy as np
 import scipy.linalg
 
-from .errors import InputError
+from ..errors import InputError
 
 ROOTS = ("flat", "equilibrium", "conditional")
 

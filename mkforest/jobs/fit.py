@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from .compare import information_criteria
-from .errors import InputError
-from .fitting import fit_model
-from .models import build_model
-from .seeds import derive_seed
+from ..engine.compare import information_criteria
+from ..engine.fitting import fit_model
+from ..engine.models import build_model
+from ..errors import InputError
+from ..seeds import derive_seed
 
 FIT_COLUMNS = ["analysis", "model", "tree", "n_taxa", "n_params", "log_likelihood", "aic", "aicc",
                "bic", "converged", "n_starts", "n_agree", "at_lower", "at_upper", "root", "note",
@@ -20,7 +20,7 @@ RATE_COLUMNS = ["analysis", "model", "tree", "from_state", "to_state", "rate", "
 def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     """(Trait to fit, {model name: (RateModel, root)}) for a trait or a pair analysis."""
     if analysis in config["traits"]["columns"]:
-        from .config import trait_models
+        from ..data.config import trait_models
         trait = traits[analysis]
         models = {}
         for name in trait_models(config, analysis):
@@ -39,7 +39,7 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     if analysis in config.get("pairs", {}):
         # contract: pair_analysis(name, pair config (defaults filled), {trait name: Trait})
         #   -> (joint Trait, {hypothesis name: (RateModel, root)})
-        from .pairs import pair_analysis
+        from ..engine.pairs import pair_analysis
         return pair_analysis(analysis, config["pairs"][analysis], traits)
     raise InputError(f"analysis '{analysis}' is neither a trait in traits.columns nor a pair.")
 
@@ -49,8 +49,8 @@ def check_models_against_table(config: dict) -> None:
     exists yet; raises InputError naming the model, trait and label at fault."""
     from pathlib import Path
 
-    from .config import analyses
-    from .traits import read_traits
+    from ..data.config import analyses
+    from ..data.traits import read_traits
 
     tcfg = config["traits"]
     if not Path(tcfg["file"]).is_file():

@@ -35,7 +35,7 @@ from dataclasses import dataclass
 import dendropy
 import numpy as np
 
-from .errors import InputError
+from ..errors import InputError
 from .trees import TreeArrays, from_dendropy, to_newick
 
 

@@ -1,7 +1,7 @@
 """Figures of a trait pair: the joint-state diagram and the tests across trees.
 
 Each function returns a matplotlib Figure (tests read its texts);
-mkforest.plots.save writes it.
+mkforest.report.plots.save writes it.
 """
 
 from __future__ import annotations

@@ -25,7 +25,7 @@ from numbers import Number
 
 import numpy as np
 
-from .errors import InputError
+from ..errors import InputError
 
 KINDS = ("equal", "symmetric", "all_different", "custom")
 FREE_FORBIDDEN = -1

@@ -37,7 +37,7 @@ from pathlib import Path, PurePosixPath
 
 import yaml
 
-from .errors import InputError
+from ..errors import InputError
 
 MANIFEST = "manifest.json"
 SUMS = "SHA256SUMS"

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
+from ..errors import InputError
 
 DEFAULT_MISSING = ("?", "NA", "-", "")
 

@@ -1,6 +1,6 @@
 """Published methods a run may rest on, as structured references.
 
-The methods text (mkforest.methods) cites them in the text as "Felsenstein
+The methods text (mkforest.report.methods) cites them in the text as "Felsenstein
 1981" and lists them in full; the archive's CITATION.cff lists the same works
 under ``references``. The short forms and their roles are those of
 ../shared/design/references.md; titles, volumes and pages were recalled from

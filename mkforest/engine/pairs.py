@@ -11,7 +11,7 @@ Joint state numbering: (i, j) -> i * k2 + j, so the first trait varies slowest.
 
 Within a step of the chain only one trait changes; a simultaneous change of
 both traits has rate 0 (Pagel 1994). Every hypothesis below is an ordinary
-:class:`mkforest.models.RateModel` on the joint states, so fitting, likelihood
+:class:`mkforest.engine.models.RateModel` on the joint states, so fitting, likelihood
 and the workflow treat a pair exactly like one trait.
 
 Built-in hypotheses (binary x binary parameter counts in brackets):
@@ -37,7 +37,7 @@ the other trait and ``trait: from->to | other=state`` when it holds only in
 that state.
 
 Custom hypotheses list transitions between joint states in the syntax of
-single-trait custom models (mkforest.models): ``"absent+bee -> present+bee":
+single-trait custom models (mkforest.engine.models): ``"absent+bee -> present+bee":
 gain_with_bee``, ``<->`` for both directions, chains, a number fixes a rate,
 the same label ties rates, unlisted transitions are forbidden. A transition
 that changes both traits at once is refused.
@@ -59,13 +59,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import InputError
+from ..data.traits import Trait
+from ..errors import InputError
+from ..seeds import derive_seed
 from .fitting import LOWER, UPPER, fit_model
 from .likelihood import prune, root_weights
 from .models import FIXED, FREE_FORBIDDEN, RateModel, build_model, parse_transition
-from .seeds import derive_seed
 from .simulate import simulate_states
-from .traits import Trait
 
 JOINT_SEPARATOR = "+"
 MAX_JOINT_STATES = 12
@@ -217,7 +217,7 @@ def custom_hypothesis(pair: TraitPair, name: str, transitions) -> RateModel:
          "present+generalist -> present+specialist": specialise,
          "present+specialist -> present+generalist": relax}
 
-    Single-trait custom syntax (mkforest.models); a change of both traits at once is refused.
+    Single-trait custom syntax (mkforest.engine.models); a change of both traits at once is refused.
     """
     where = f"trait pair '{pair.name}', hypothesis '{name}'"
     if name in HYPOTHESES:

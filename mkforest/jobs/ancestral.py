@@ -26,13 +26,23 @@ import json
 import numpy as np
 import pandas as pd
 
-from .ancestral import ImpossibleData, averaged_probabilities
-from .clades import (check_same_taxa, clade_key, consensus_names, count_clades, find_mrca,
-                     majority_consensus, mask_of, node_clades, node_masks, taxon_bits)
-from .compare import akaike_weights
-from .errors import InputError
-from .mapping import mixed_stochastic_maps
-from .seeds import derive_seed
+from ..data.clades import (
+    check_same_taxa,
+    clade_key,
+    consensus_names,
+    count_clades,
+    find_mrca,
+    majority_consensus,
+    mask_of,
+    node_clades,
+    node_masks,
+    taxon_bits,
+)
+from ..engine.ancestral import ImpossibleData, averaged_probabilities
+from ..engine.compare import akaike_weights
+from ..engine.mapping import mixed_stochastic_maps
+from ..errors import InputError
+from ..seeds import derive_seed
 
 CLADE_COLUMNS = ["clade", "kind", "n_tips", "frequency", "n_trees_with_clade", "key", "members"]
 FEW_TREES = 20          # fewer trees than this: intervals across trees are rough

@@ -19,8 +19,8 @@ import numpy as np
 import pandas as pd
 from scipy.stats import chi2
 
-from .pairs import bootstrap_p_value, bootstrap_statistics
-from .summarise import FEW_TREES, _q
+from ..engine.pairs import bootstrap_p_value, bootstrap_statistics
+from ..engine.summarise import FEW_TREES, _q
 
 BOOTSTRAP_COLUMNS = ["pair", "null", "alternative", "tree", "replicate", "statistic"]
 TEST_COLUMNS = ["pair", "null", "alternative", "tree", "statistic", "df", "p_chi2", "p_bootstrap",

@@ -42,8 +42,18 @@ import math
 import numba
 import numpy as np
 
-from .likelihood import (_LOG_SCALE, _down_pass_eigen, _p_from_eigen, _prune_matrices, _rescale,
-                         eigensystem, expm1_outer, log_likelihood, reachable, root_weights)
+from .likelihood import (
+    _LOG_SCALE,
+    _down_pass_eigen,
+    _p_from_eigen,
+    _prune_matrices,
+    _rescale,
+    eigensystem,
+    expm1_outer,
+    log_likelihood,
+    reachable,
+    root_weights,
+)
 
 # How F is computed: F[m, n] off the diagonal is the difference quotient
 # (expm1(lam_m t) - expm1(lam_n t)) / (lam_m - lam_n): the expm1 values carry full

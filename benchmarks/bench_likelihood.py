@@ -5,12 +5,12 @@
 Sections:
 1. one evaluation of ln L, of ln L + exact gradient (mkforest.engine.gradient) and of
    ln L + a forward-difference gradient (p + 1 likelihoods, what L-BFGS-B does
-   without a gradient), symmetric (real eigenvalues) and all_different (a fast
+   without a gradient), symmetric (real eigenvalues) and unconstrained (a fast
    one-way cycle: complex eigenvalues) models on 4 states, 500 and 2,000 tips;
-2. one all_different 4-state fit on 500 tips with its 5 starts: before (scipy's
+2. one unconstrained 4-state fit on 500 tips with its 5 starts: before (scipy's
    finite-difference gradient on the same objective, starts and bounds) and
    after (fit_model, exact gradient);
-3. the workflow's unit of work: fits of equal / symmetric / all_different on
+3. the workflow's unit of work: fits of equal / symmetric / unconstrained on
    200-tip trees, and what 1,000 trees x 4 traits x 3 models cost on 2 cores.
 
 Every timing is the minimum over ``--repeat`` runs (other jobs share the
@@ -59,7 +59,7 @@ def make_case(rng, n_tips, model, rates, index=0):
     return tree, tip_partials_from_states(s, tree.n_tips, model.k)
 
 
-def fit_finite_difference(tree, X, model, root="flat", n_starts=5, seed=0):
+def fit_finite_difference(tree, X, model, root="uniform", n_starts=5, seed=0):
     """The fit as it was before the exact gradient: the same objective, starts,
     bounds and options, with scipy's finite-difference gradient. Returns best ln L."""
     f = LogLikelihood(tree, X, model, root)
@@ -79,7 +79,7 @@ def fit_finite_difference(tree, X, model, root="flat", n_starts=5, seed=0):
 
 
 def cycle_rates(model, fast=2.0, slow=0.2):
-    """all_different rates with a fast one-way cycle w -> x -> y -> z -> w: a
+    """unconstrained rates with a fast one-way cycle w -> x -> y -> z -> w: a
     non-reversible chain with complex eigenvalues."""
     k = model.k
     rates = np.full(model.n_params, slow)
@@ -89,10 +89,10 @@ def cycle_rates(model, fast=2.0, slow=0.2):
 
 
 def section_evaluations(rng, repeat):
-    print("1. one evaluation on 4 states, flat root")
+    print("1. one evaluation on 4 states, uniform root")
     print(f"   {'model':<14} {'tips':>5} {'lnL':>10} {'lnL+grad':>10} {'ratio':>6} {'lnL+fwd diff':>13}"
           "  eigenvalues")
-    for kind in ("symmetric", "all_different"):
+    for kind in ("symmetric", "unconstrained"):
         model = build_model(kind, STATES4)
         rates = rng.uniform(0.3, 1.5, model.n_params) if kind == "symmetric" else cycle_rates(model)
         lam = np.linalg.eigvals(model.q_matrix(rates))
@@ -112,7 +112,7 @@ def section_evaluations(rng, repeat):
 
 
 def section_fit(rng, repeat):
-    model = build_model("all_different", STATES4)
+    model = build_model("unconstrained", STATES4)
     rates = rng.uniform(0.3, 1.5, model.n_params)
     tree, X = make_case(rng, 500, model, rates)
     fit_model(tree, X, model, seed=1)
@@ -120,7 +120,7 @@ def section_fit(rng, repeat):
     t_new = best_time(lambda: fit_model(tree, X, model, seed=1), repeat)
     ll_old = fit_finite_difference(tree, X, model, seed=1)
     ll_new = fit_model(tree, X, model, seed=1).log_likelihood
-    print("2. one fit, all_different on 4 states, 500 tips, 5 starts")
+    print("2. one fit, unconstrained on 4 states, 500 tips, 5 starts")
     print(f"   before (finite differences) {t_old:8.3f} s   ln L {ll_old:.6f}")
     print(f"   after  (exact gradient)     {t_new:8.3f} s   ln L {ll_new:.6f}")
     print(f"   speed-up {t_old / t_new:.1f}x")
@@ -128,15 +128,15 @@ def section_fit(rng, repeat):
 
 def section_workflow(rng, repeat, n_trees):
     print(f"3. fits on 200-tip trees (mean over {n_trees} trees, each the minimum of "
-          f"{repeat} runs), 5 starts, flat root")
+          f"{repeat} runs), 5 starts, uniform root")
     total = 0.0
     for k in (3, 4):
         states = STATES4[:k]
-        truth = build_model("all_different", states)
+        truth = build_model("unconstrained", states)
         rates = rng.uniform(0.3, 1.5, truth.n_params)
         cases = [make_case(rng, 200, truth, rates, index=i) for i in range(n_trees)]
         per_model = []
-        for kind in ("equal", "symmetric", "all_different"):
+        for kind in ("equal", "symmetric", "unconstrained"):
             model = build_model(kind, states)
             fit_model(*cases[0], model, seed=0)
             secs = np.mean([best_time(lambda c=c: fit_model(*c, model, seed=c[0].index), repeat)
@@ -144,7 +144,7 @@ def section_workflow(rng, repeat, n_trees):
             per_model.append(secs)
             print(f"   k={k} {kind:<14} {1e3 * secs:8.1f} ms per fit")
         total = max(total, sum(per_model))
-    # 1,000 trees x 4 traits x (equal + symmetric + all_different), 2 processes
+    # 1,000 trees x 4 traits x (equal + symmetric + unconstrained), 2 processes
     est = 1000 * 4 * total / 2
     print(f"   1,000 trees x 4 traits x 3 models on 2 cores (slower of k=3/k=4): "
           f"about {est / 60:.1f} min of fitting")

@@ -41,7 +41,7 @@ def main() -> int:
         "trees": {"file": str(data / "trees.nex"), "per_job": 50},
         "traits": {"file": str(data / "traits.tsv"), "taxon_column": "taxon",
                    "columns": ["glow", "habitat"]},
-        "models": {"one_rate": {"kind": "equal"}, "free": {"kind": "all_different"}},
+        "models": {"one_rate": {"kind": "equal"}, "free": {"kind": "unconstrained"}},
         "ancestral": {"enabled": False},
     }
     cfg = work / "config.yaml"

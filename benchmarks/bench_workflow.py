@@ -51,7 +51,7 @@ def main() -> int:
         "traits": {"file": str(data / "traits.tsv"), "taxon_column": "taxon",
                    "columns": ["habitat", "size", "banding", "glow"]},
         "models": {"one_rate": {"kind": "equal"}, "mirrored": {"kind": "symmetric"},
-                   "free": {"kind": "all_different"}},
+                   "free": {"kind": "unconstrained"}},
         "ancestral": {"enabled": bool(args.ancestral)},
     }
     cfg = work / "config.yaml"

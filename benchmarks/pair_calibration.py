@@ -10,7 +10,7 @@ tips, height 1):
   mild     the same pattern, but a mismatched state is left only 2.5 times
            faster
 
-Both hypotheses are fitted with a flat root. The simulated data draw their
+Both hypotheses are fitted with a uniform root. The simulated data draw their
 root state as that model assumes (every joint state 1/4), or, with
 --data-root stationary, from the stationary distribution of the simulating
 chain (a misspecified root, to see what that does to the tests).
@@ -98,7 +98,7 @@ def one_data_set(task):
     tree, pair, ind, dep = s["tree"], s["pair"], s["ind"], s["dep"]
     seed = derive_seed(s["seed"], "calibration", scenario, i)
     q = s["q"][scenario]
-    # 'model': the root drawn as the fitted model assumes (flat: every joint state 1/4);
+    # 'model': the root drawn as the fitted model assumes (uniform: every joint state 1/4);
     # 'stationary': from the stationary distribution of the simulating chain
     weights = np.full(4, 0.25) if s["data_root"] == "model" else None
     states = simulate_states(tree, q, np.random.default_rng(seed), root_weights=weights)
@@ -113,7 +113,7 @@ def one_data_set(task):
     if n_rep:
         # the bootstrap simulates on this data set's own tree object; tree.index is 0
         t0, c0 = time.perf_counter(), time.process_time()
-        sims = pairs.bootstrap_statistics(pair, tree, ind, dep, fit_null.rates, "flat",
+        sims = pairs.bootstrap_statistics(pair, tree, ind, dep, fit_null.rates, "uniform",
                                           replicates=range(n_rep), seed=seed, n_starts=STARTS)
         out["p_bootstrap"] = pairs.bootstrap_p_value(stat, sims)
         out["bootstrap_seconds"] = time.perf_counter() - t0
@@ -141,7 +141,7 @@ def main(argv=None):
                     help="mild data sets with a bootstrap")
     ap.add_argument("--replicates", type=int, default=99, help="bootstrap data sets per test")
     ap.add_argument("--data-root", choices=["model", "stationary"], default="model",
-                    help="root state of the simulated data: as the fitted model (flat root) "
+                    help="root state of the simulated data: as the fitted model (uniform root) "
                          "assumes, or from the stationary distribution (a misspecified root)")
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--seed", type=int, default=2026)

@@ -5,7 +5,7 @@ Orrin archipelago, a radiation of land snails that colonised leaf litter, rock
 faces and tree canopies. Four traits were simulated on the "true" tree under
 known rates:
 
-  habitat   litter / rock / canopy     (all_different rates)
+  habitat   litter / rock / canopy     (unconstrained rates)
   size      small / medium / large     (ordered: only one step at a time)
   banding   plain / banded             \\ simulated together: bands are gained
   aperture  round / toothed            /  and kept on toothed shells, lost on round ones
@@ -129,13 +129,13 @@ def newick(node: _Node, rename=None) -> str:
 
 
 TRUE_RATES = {
-    "habitat": {"kind": "all_different", "states": ["litter", "rock", "canopy"],
+    "habitat": {"kind": "unconstrained", "states": ["litter", "rock", "canopy"],
                 "rates": {"litter->rock": 1.2, "litter->canopy": 0.6, "rock->litter": 0.4,
                           "rock->canopy": 0.2, "canopy->litter": 0.9, "canopy->rock": 0.3}},
     "size": {"kind": "custom", "states": ["small", "medium", "large"],
              "transitions": {"small -> medium -> large": "grow", "large -> medium -> small": "shrink"},
              "rates": {"grow": 1.5, "shrink": 0.5}},
-    "glow": {"kind": "all_different", "states": ["dull", "glowing"],
+    "glow": {"kind": "unconstrained", "states": ["dull", "glowing"],
              "rates": {"dull->glowing": 0.6, "glowing->dull": 0.9}},
 }
 

@@ -135,7 +135,7 @@ CUSTOM_SPECS = [
                                 "blue -> red": 0.0, "blue -> green": 1.25}),
 ]
 
-KIND_CYCLE = ["equal", "symmetric", "all_different", "custom"]
+KIND_CYCLE = ["equal", "symmetric", "unconstrained", "custom"]
 
 
 def make_model_case(rng, seed):

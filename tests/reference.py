@@ -17,9 +17,9 @@ Sources:
   the algorithm that evaluates it without enumerating (Felsenstein 1981,
   J. Mol. Evol. 17:368) -- published source
 - P(t) = expm(Q t) (scipy.linalg.expm, general-purpose reference library)
-- conditional root: weights L_i / sum_j L_j, so L = sum_i L_i^2 / sum_i L_i
+- data-weighted root: weights L_i / sum_j L_j, so L = sum_i L_i^2 / sum_i L_i
   (FitzJohn, Maddison & Otto 2009, Syst. Biol. 58:595) -- published source
-- equilibrium root: pi with pi Q = 0, sum pi = 1 -- fact of the trade
+- stationary root: pi with pi Q = 0, sum pi = 1 -- fact of the trade
 """
 
 from __future__ import annotations
@@ -204,16 +204,16 @@ def reference_stationary(Q, allow_nonunique=False) -> np.ndarray:
 
 
 def root_weights(root, Q, states=None, allow_nonunique=False) -> np.ndarray | None:
-    """Prior weights on the root state for 'flat', 'equilibrium' or a fixed state label.
+    """Prior weights on the root state for 'uniform', 'stationary' or a fixed state label.
 
-    'conditional' has no fixed weights (they depend on the data): returns None.
+    'data_weighted' has no fixed weights (they depend on the data): returns None.
     """
     k = np.asarray(Q).shape[0]
-    if root == "flat":
+    if root == "uniform":
         return np.full(k, 1.0 / k)
-    if root == "equilibrium":
+    if root == "stationary":
         return reference_stationary(Q, allow_nonunique)
-    if root == "conditional":
+    if root == "data_weighted":
         return None
     w = np.zeros(k)
     w[list(states).index(root)] = 1.0
@@ -223,7 +223,7 @@ def root_weights(root, Q, states=None, allow_nonunique=False) -> np.ndarray | No
 def combine_root(L, root, Q, states=None, allow_nonunique=False) -> float:
     """Total likelihood from the per-root-state likelihoods L_i."""
     L = np.asarray(L, dtype=float)
-    if root == "conditional":
+    if root == "data_weighted":
         # FitzJohn, Maddison & Otto (2009): weights L_i / sum L  =>  sum L_i^2 / sum L_i
         total = L.sum()
         return float((L * L).sum() / total) if total > 0 else 0.0
@@ -270,7 +270,7 @@ def brute_force_root_likelihoods(tree, tip_partials, Q) -> np.ndarray:
     return L
 
 
-def brute_force_log_likelihood(tree, tip_partials, Q, root="flat", states=None) -> float:
+def brute_force_log_likelihood(tree, tip_partials, Q, root="uniform", states=None) -> float:
     L = brute_force_root_likelihoods(tree, tip_partials, Q)
     total = combine_root(L, root, Q, states)
     return math.log(total) if total > 0 else -math.inf
@@ -312,7 +312,7 @@ def pruning_root_log_partials(tree, tip_partials, Q):
     return partial[root_of(tree)], log_scale
 
 
-def pruning_log_likelihood(tree, tip_partials, Q, root="flat", states=None) -> float:
+def pruning_log_likelihood(tree, tip_partials, Q, root="uniform", states=None) -> float:
     """ln L by plain pruning in log space (see pruning_root_log_partials)."""
     p, log_scale = pruning_root_log_partials(tree, tip_partials, Q)
     if not np.isfinite(log_scale):

@@ -7,9 +7,9 @@ Sources:
   published source). The brute force below writes exactly that sum out, node
   by node, with one scipy.linalg.expm per branch (general-purpose reference
   library); it does not call the engine's likelihood code.
-- conditional root: the root prior is L_i / sum_j L_j (FitzJohn, Maddison & Otto
+- data-weighted root: the root prior is L_i / sum_j L_j (FitzJohn, Maddison & Otto
   2009, Syst. Biol. 58:595 -- published source)
-- equilibrium root: pi Q = 0, sum pi = 1 (fact of the trade; minimum-norm
+- stationary root: pi Q = 0, sum pi = 1 (fact of the trade; minimum-norm
   least squares when several closed classes make it non-unique, the engine's
   documented choice, computed independently in tests/reference.py)
 - a zero-length branch has P(0) = I (fact of the trade), so a pendant tip on a
@@ -79,7 +79,7 @@ def brute_force_marginals(tree, partials, Q, root, states):
         assignments.append((state, weight_without_prior(state)))
 
     # prior on the root state
-    if root == "conditional":
+    if root == "data_weighted":
         L = np.zeros(k)
         for state, w in assignments:
             L[state[root_node]] += w
@@ -120,7 +120,7 @@ def match_nodes(engine_tree, ref_tree):
 
 
 def roots_for(states):
-    return ["flat", "conditional", "equilibrium", *states]
+    return ["uniform", "data_weighted", "stationary", *states]
 
 
 # --------------------------------------------------------------------------- tests
@@ -176,13 +176,13 @@ def test_branch_joint_matches_brute_force():
         if len(states) ** tree.n_nodes > 20000:
             continue  # the enumeration below runs over every node, tips included
         try:
-            J = passes(tree, partials, Q, "flat", tuple(states)).branch_joint()
+            J = passes(tree, partials, Q, "uniform", tuple(states)).branch_joint()
         except ImpossibleData:
             continue
         expected = brute_force_branch_joint(tree, partials, Q)
         np.testing.assert_allclose(J[:-1], expected[:-1], rtol=0, atol=TOL)
         # its margins are the two nodes' marginals
-        marg = marginal_probabilities(tree, partials, Q, "flat", tuple(states))
+        marg = marginal_probabilities(tree, partials, Q, "uniform", tuple(states))
         np.testing.assert_allclose(J[:-1].sum(axis=1), marg[:-1], atol=1e-12)
         np.testing.assert_allclose(J[:-1].sum(axis=2), marg[tree.parent[:-1]], atol=1e-12)
         checked += 1
@@ -190,7 +190,7 @@ def test_branch_joint_matches_brute_force():
 
 
 def brute_force_branch_joint(tree, partials, Q):
-    """Flat root; joint posterior of (parent state, child state) for every branch, by enumeration
+    """Uniform root; joint posterior of (parent state, child state) for every branch, by enumeration
     over every node's state (tips too, weighted by their partials)."""
     Q = np.asarray(Q, dtype=float)
     k = Q.shape[0]
@@ -211,8 +211,8 @@ def brute_force_branch_joint(tree, partials, Q):
 
 
 @pytest.mark.parametrize("k,seed,roots,n_nodes_checked", [
-    (2, 1, ("flat",), 2),
-    pytest.param(3, 2, ("flat", "equilibrium"), 4, marks=pytest.mark.slow),
+    (2, 1, ("uniform",), 2),
+    pytest.param(3, 2, ("uniform", "stationary"), 4, marks=pytest.mark.slow),
 ])
 def test_large_tree_against_pendant_tip_reference(k, seed, roots, n_nodes_checked):
     """1,000 tips (ln L is about -870: the likelihood underflows without rescaling): the marginal at a
@@ -264,11 +264,11 @@ def test_model_average_is_weighted_mean_of_brute_force():
     k = len(states)
     Q1 = case["Q"]
     Q2 = q_from_rates(np.full((k, k), 0.8))
-    fits = [(Q1, "flat", 0.7), (Q2, "conditional", 0.2), (Q2, "flat", 0.0)]
+    fits = [(Q1, "uniform", 0.7), (Q2, "data_weighted", 0.2), (Q2, "uniform", 0.0)]
     got = averaged_probabilities(tree, partials, fits, tuple(states))
-    p1, _ = brute_force_marginals(ref_tree, ref_partials, Q1, "flat", states)
-    p2, _ = brute_force_marginals(ref_tree, ref_partials, Q2, "conditional", states)
+    p1, _ = brute_force_marginals(ref_tree, ref_partials, Q1, "uniform", states)
+    p2, _ = brute_force_marginals(ref_tree, ref_partials, Q2, "data_weighted", states)
     expected = (0.7 * p1 + 0.2 * p2) / 0.9
     np.testing.assert_allclose(got, expected[order], rtol=0, atol=TOL)
     with pytest.raises(ValueError):
-        averaged_probabilities(tree, partials, [(Q1, "flat", 0.0)], tuple(states))
+        averaged_probabilities(tree, partials, [(Q1, "uniform", 0.0)], tuple(states))

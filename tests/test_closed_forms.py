@@ -94,11 +94,11 @@ def test_identities(name):
 
 @pytest.mark.parametrize("seed", range(10))
 def test_q_from_models_rows_sum_to_zero_and_chapman_kolmogorov(seed):
-    """Engine-built Q (all_different, random rates): rows sum to 0 and P(s+t) = P(s)P(t)
+    """Engine-built Q (unconstrained, random rates): rows sum to 0 and P(s+t) = P(s)P(t)
     (fact of the trade)."""
     rng = np.random.default_rng(100 + seed)
     k = int(rng.integers(2, 6))
-    model = build_model("all_different", [f"s{i}" for i in range(k)])
+    model = build_model("unconstrained", [f"s{i}" for i in range(k)])
     Q = model.q_matrix(rng.uniform(0.05, 4.0, size=model.n_params))
     np.testing.assert_allclose(Q.sum(axis=1), 0.0, atol=1e-12)
     s, t = rng.exponential(0.5, size=2)

@@ -109,7 +109,7 @@ def engine_fd(tree, partials, model, rates, root):
 
 
 def roots_of(model):
-    return ["flat", "conditional", "equilibrium", *model.states]
+    return ["uniform", "data_weighted", "stationary", *model.states]
 
 
 def make_case(seed, n_min=5, n_max=40):
@@ -135,7 +135,7 @@ N_CASES = 40
 
 @pytest.mark.parametrize("seed", range(N_CASES))
 def test_gradient_equals_finite_differences_of_engine(seed):
-    """Every model kind (equal, symmetric, all_different, custom with ties, fixed and
+    """Every model kind (equal, symmetric, unconstrained, custom with ties, fixed and
     forbidden rates, absorbing states), every root treatment, polytomies, zero-length
     branches, missing and ambiguous tips: exact gradient == Richardson central
     differences of likelihood.log_likelihood, and the returned ln L is the engine's."""
@@ -152,7 +152,7 @@ def test_gradient_equals_finite_differences_of_engine(seed):
         assert_gradient_close(grad, engine_fd(tree, partials, model, rates, root),
                               f"seed {seed} {model.kind} root {root!r} Q=\n{c['Q']}")
         checked += 1
-    assert checked >= 3  # flat, conditional and equilibrium are always possible here
+    assert checked >= 3  # uniform, data_weighted and stationary are always possible here
 
 
 def test_random_cases_cover_the_analytic_routes():
@@ -164,11 +164,11 @@ def test_random_cases_cover_the_analytic_routes():
         kinds.add(c["model"].kind)
         es = eigensystem(c["Q"])
         total += 1
-        if exact_gradient_applies(c["Q"], "flat"):
+        if exact_gradient_applies(c["Q"], "uniform"):
             analytic += 1
             complex_eig += es[0].dtype == np.complex128
             reducible += bool(((c["Q"] == 0) & ~np.eye(len(c["Q"]), dtype=bool)).any())
-    assert kinds == {"equal", "symmetric", "all_different", "custom"}
+    assert kinds == {"equal", "symmetric", "unconstrained", "custom"}
     assert analytic >= total - 3, (analytic, total)
     assert complex_eig >= 1 and reducible >= 3, (complex_eig, reducible)
 
@@ -185,7 +185,7 @@ def test_gradient_equals_finite_differences_of_plain_expm_pruning(seed):
     q_of = reference_q_of(model, c["Q"])
     np.testing.assert_allclose(q_of(rates), c["Q"], atol=1e-14)
     for root in roots_of(model):
-        if root == "equilibrium" and not stationary_is_unique(c["Q"]):
+        if root == "stationary" and not stationary_is_unique(c["Q"]):
             continue
         f = lambda x: pruning_log_likelihood(ref_tree, ref_partials, q_of(np.exp(x)), root,  # noqa: E731
                                              list(model.states))
@@ -203,7 +203,7 @@ CYCLE = (("p", "q", "r"), {"p -> q -> r": "forward", "r -> p": "forward",
                            "q -> p": "backward", "r -> q": "backward", "p -> r": "backward"})
 
 
-@pytest.mark.parametrize("root", ["flat", "conditional", "equilibrium", "q"])
+@pytest.mark.parametrize("root", ["uniform", "data_weighted", "stationary", "q"])
 def test_complex_eigenvalues_nonreversible_cycle(root):
     """A non-reversible three-state cycle (fast one way round, slow the other) has
     complex eigenvalues; its gradient matches finite differences of the engine on a
@@ -235,12 +235,12 @@ def test_complex_eigenvalues_nonreversible_cycle(root):
 @pytest.mark.parametrize("spread", [0.0, 1e-12, 1e-8, 1e-5, 1e-3, 3e-2])
 @pytest.mark.parametrize("k", [3, 4])
 def test_near_equal_eigenvalues(k, spread):
-    """all_different rates 1 + spread * noise: at spread 0 the eigenvalue -k is
+    """unconstrained rates 1 + spread * noise: at spread 0 the eigenvalue -k is
     repeated k-1 times (equal-rates chain, closed form of Lewis 2001), and small
     spreads give eigenvalues closer than any difference quotient could resolve.
     The gradient still matches finite differences."""
     states = [f"s{i}" for i in range(k)]
-    model = build_model("all_different", states)
+    model = build_model("unconstrained", states)
     rng = np.random.default_rng(int(1e6 * spread) + k)
     rates = 1.0 + spread * rng.uniform(-1, 1, model.n_params)
     Q = model.q_matrix(rates)
@@ -253,7 +253,7 @@ def test_near_equal_eigenvalues(k, spread):
     tree = parse_newick(newick_from_arrays(labels, parent, length))
     cells = tip_data_mapping(rng, tree, Q, states, p_missing=0.1, p_ambiguous=0.1)
     partials = partials_from_cells(cells, tree.tip_labels, states)
-    for root in ("flat", "conditional", "equilibrium", states[0]):
+    for root in ("uniform", "data_weighted", "stationary", states[0]):
         _, grad = log_likelihood_and_gradient(tree, partials, model, rates, root)
         assert_gradient_close(grad, engine_fd(tree, partials, model, rates, root),
                               f"k {k} spread {spread} root {root}")
@@ -264,7 +264,7 @@ def test_zero_length_branches():
     zero-length cherry: gradient == finite differences."""
     newick = "[&R] ((a:0,b:0):0.3,(c:0.2,(d:0,(e:0.4,f:0):0):0.5):0.1,(g:0.7,h:0.2):0);"
     tree = parse_newick(newick)
-    model = build_model("all_different", ["x", "y", "z"])
+    model = build_model("unconstrained", ["x", "y", "z"])
     rates = np.array([0.9, 0.3, 1.4, 0.6, 0.2, 1.1])
     cells = {"a": "y", "b": "y", "c": "x", "d": "z", "e": "x|z", "f": "z", "g": "?", "h": "y"}
     partials = partials_from_cells(cells, tree.tip_labels, ["x", "y", "z"])
@@ -295,7 +295,7 @@ def test_reducible_and_defective_chains(index):
     ref_partials = partials_from_cells(cells, ref_tree.tip_labels, list(states))
     q_of = reference_q_of(model, Q)
     checked = 0
-    for root in ["flat", "conditional", *states] + (["equilibrium"] if stationary_is_unique(Q) else []):
+    for root in ["uniform", "data_weighted", *states] + (["stationary"] if stationary_is_unique(Q) else []):
         f = lambda x: pruning_log_likelihood(ref_tree, ref_partials, q_of(np.exp(x)), root,  # noqa: E731
                                              list(states))
         if not np.isfinite(f(np.log(rates))):
@@ -311,14 +311,14 @@ def test_defective_chain_takes_the_fallback_and_others_do_not():
     """The routes claimed in the module docstring: a tied forward chain is defective
     (finite differences); a chain with distinct rates and the irreducible kinds are not."""
     tied = build_model("custom", ["e", "m", "l"], {"e -> m -> l": "step"})
-    assert not exact_gradient_applies(tied.q_matrix([0.7]), "flat")
+    assert not exact_gradient_applies(tied.q_matrix([0.7]), "uniform")
     untied = build_model("custom", ["e", "m", "l"], {"e -> m": "a", "m -> l": "b"})
-    assert exact_gradient_applies(untied.q_matrix([0.7, 1.9]), "flat")
-    assert not exact_gradient_applies(untied.q_matrix([0.7, 1.9]), "equilibrium")  # reducible
-    for kind in ("equal", "symmetric", "all_different"):
+    assert exact_gradient_applies(untied.q_matrix([0.7, 1.9]), "uniform")
+    assert not exact_gradient_applies(untied.q_matrix([0.7, 1.9]), "stationary")  # reducible
+    for kind in ("equal", "symmetric", "unconstrained"):
         m = build_model(kind, ["a", "b", "c", "d"])
         Q = m.q_matrix(np.random.default_rng(0).uniform(0.2, 2.0, m.n_params))
-        assert all(exact_gradient_applies(Q, r) for r in ("flat", "conditional", "equilibrium", "a"))
+        assert all(exact_gradient_applies(Q, r) for r in ("uniform", "data_weighted", "stationary", "a"))
 
 
 # --------------------------------------------------------------------------- closed forms
@@ -326,7 +326,7 @@ def test_defective_chain_takes_the_fallback_and_others_do_not():
 @pytest.mark.parametrize("k", [2, 3, 4])
 @pytest.mark.parametrize("same", [True, False])
 def test_two_tips_equal_rates_closed_form(k, same):
-    """Two tips, equal-rates chain, flat root: L = (1/k) P_{x1 x2}(T), T = t1 + t2
+    """Two tips, equal-rates chain, uniform root: L = (1/k) P_{x1 x2}(T), T = t1 + t2
     (Jukes & Cantor 1969; Lewis 2001 -- published closed form). With E = e^{-kqT}:
     same state:      L = (1/k)(1/k + (k-1)/k E), dL/dq = -(k-1) T E / k
     different state: L = (1/k^2)(1 - E),          dL/dq = T E / k
@@ -343,18 +343,18 @@ def test_two_tips_equal_rates_closed_form(k, same):
     partials = np.zeros((2, k))
     partials[tree.tip_labels.index("a"), 0] = 1.0
     partials[tree.tip_labels.index("b"), 0 if same else 1] = 1.0
-    ll, grad = log_likelihood_and_gradient(tree, partials, build_model("equal", states), [q], "flat")
+    ll, grad = log_likelihood_and_gradient(tree, partials, build_model("equal", states), [q], "uniform")
     assert ll == pytest.approx(math.log(L), rel=1e-13)
     assert grad[0] == pytest.approx(q * dL / L, rel=1e-10)
 
 
-@pytest.mark.parametrize("root", ["flat", "conditional", "equilibrium", "b"])
+@pytest.mark.parametrize("root", ["uniform", "data_weighted", "stationary", "b"])
 def test_all_tips_missing_gives_zero_gradient(root):
     """No data: every row of P(t) sums to one, so L = 1 whatever the rates and the
     gradient is zero (fact of the trade)."""
     rng = np.random.default_rng(3)
     tree = parse_newick(random_newick(rng, 25, p_zero=0.0))
-    model = build_model("all_different", ["a", "b", "c"])
+    model = build_model("unconstrained", ["a", "b", "c"])
     partials = np.ones((tree.n_tips, 3))
     ll, grad = log_likelihood_and_gradient(tree, partials, model, rng.uniform(0.2, 2, 6), root)
     assert abs(ll) < 1e-12
@@ -369,12 +369,12 @@ def test_large_tree_gradient_with_rescaling():
     rng = np.random.default_rng(2000)
     labels, parent, length = yule_arrays(rng, 2000, height=2.0)
     tree = parse_newick(newick_from_arrays(labels, parent, length))
-    model = build_model("all_different", ["x", "y", "z"])
+    model = build_model("unconstrained", ["x", "y", "z"])
     rates = np.array([1.5, 0.4, 0.8, 0.9, 0.3, 1.1])
     Q = model.q_matrix(rates)
     cells = tip_data_mapping(rng, tree, Q, ["x", "y", "z"], p_missing=0.05, p_ambiguous=0.05)
     partials = partials_from_cells(cells, tree.tip_labels, ["x", "y", "z"])
-    for root in ("flat", "conditional", "equilibrium", "y"):
+    for root in ("uniform", "data_weighted", "stationary", "y"):
         ll, grad = log_likelihood_and_gradient(tree, partials, model, rates, root)
         assert ll < -745
         assert_gradient_close(grad, engine_fd(tree, partials, model, rates, root), f"root {root}")
@@ -418,9 +418,9 @@ def test_fit_with_gradient_reaches_the_finite_difference_optimum(seed):
     """fit_model (exact gradient) reaches ln L >= the finite-difference fit's - 1e-6."""
     c = make_case(300 + seed, n_min=20, n_max=50)
     model = c["model"]
-    root = ["flat", "conditional", "equilibrium", model.states[-1]][seed % 4]
+    root = ["uniform", "data_weighted", "stationary", model.states[-1]][seed % 4]
     if not np.isfinite(log_likelihood(c["tree"], c["partials"], c["Q"], root, model.states)):
-        root = "flat"
+        root = "uniform"
     fit = fit_model(c["tree"], c["partials"], model, root, seed=seed)
     old = scipy_fd_fit(c["tree"], c["partials"], model, root, seed=seed)
     assert fit.log_likelihood >= old - 1e-6, (model.kind, root, fit.log_likelihood, old)

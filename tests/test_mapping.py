@@ -166,7 +166,7 @@ def test_maps_respect_data_rates_and_parsimony(seed):
     states, Q = case["states"], case["Q"]
     tree = parse_newick(case["newick"])
     partials = partials_from_cells(case["cells"], tree.tip_labels, states)
-    root = ["flat", "conditional", states[0]][seed % 3]
+    root = ["uniform", "data_weighted", states[0]][seed % 3]
     try:
         maps = stochastic_maps(tree, partials, Q, 300, np.random.default_rng(seed), root, tuple(states))
     except ImpossibleData:
@@ -237,7 +237,7 @@ def test_single_branch_counts_and_dwell(case):
     assert_mc_mean(maps.dwell, exp_dwell, "dwell")
 
 
-@pytest.mark.parametrize("seed,root", [(3, "flat"), (11, "conditional"), (6, "fixed")])
+@pytest.mark.parametrize("seed,root", [(3, "uniform"), (11, "data_weighted"), (6, "fixed")])
 def test_whole_tree_expectation(seed, root):
     """Mean counts and dwell over 20,000 maps on a small random tree (polytomy, ambiguous
     and missing tips) equal sum over branches of the joint end-state posterior times the
@@ -254,10 +254,10 @@ def test_whole_tree_expectation(seed, root):
     partials = partials_from_cells(cells, tree.tip_labels, states)
     if root == "fixed":
         root, prior = "q", np.array([0.0, 1.0, 0.0])
-    elif root == "flat":
+    elif root == "uniform":
         prior = np.full(k, 1.0 / k)
     else:
-        # conditional root: prior = L_i / sum L (FitzJohn et al. 2009), L by enumeration
+        # data-weighted root: prior = L_i / sum L (FitzJohn et al. 2009), L by enumeration
         flat = enumerate_branch_joint(tree, partials, Q, np.ones(k))
         L = flat[tree.children_of(tree.root)[0]].sum(axis=1)  # root marginal under a flat prior
         prior = L / L.sum()
@@ -289,9 +289,9 @@ def test_mixture_draws_models_by_weight():
     a model of weight 0 is never used; the fraction is within 4.5 binomial standard errors."""
     tree = parse_newick("((a:0.3,b:0.2):0.4,(c:0.5,d:0.1):0.2);")
     partials = np.array([[1, 0], [0, 1], [1, 1], [1, 0.0]])
-    fits = [(q_from_rates(np.ones((2, 2))), "flat", 0.75),
-            (q_from_rates([[0, 2.0], [0.5, 0]]), "conditional", 0.25),
-            (q_from_rates([[0, 9.0], [9.0, 0]]), "flat", 0.0)]
+    fits = [(q_from_rates(np.ones((2, 2))), "uniform", 0.75),
+            (q_from_rates([[0, 2.0], [0.5, 0]]), "data_weighted", 0.25),
+            (q_from_rates([[0, 9.0], [9.0, 0]]), "uniform", 0.0)]
     maps = mixed_stochastic_maps(tree, partials, fits, 4000, np.random.default_rng(1))
     assert maps.n_maps == 4000
     assert not (maps.model == 2).any()
@@ -320,7 +320,7 @@ def test_large_tree_maps():
     tree = parse_newick(newick_from_arrays(labels, parent, length))
     Q = q_from_rates([[0, 3.0, 1.0], [2.0, 0, 0.5], [1.0, 1.0, 0]])
     partials = np.eye(3)[rng.integers(0, 3, size=tree.n_tips)]
-    maps = stochastic_maps(tree, partials, Q, 50, rng, "equilibrium")
+    maps = stochastic_maps(tree, partials, Q, 50, rng, "stationary")
     np.testing.assert_allclose(maps.dwell.sum(axis=1), tree.total_length, rtol=1e-10)
     assert (maps.n_changes >= fitch_score(tree, partials)).all()
 

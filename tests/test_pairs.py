@@ -14,7 +14,7 @@ Sources, beside each check:
   Q1 (+) Q2 = Q1 (x) I + I (x) Q2 -- handbook identity of matrix functions
   (e.g. Horn & Johnson, Topics in Matrix Analysis, ch. 4; from memory),
   checked here with scipy.linalg.expm
-- conditional root weights L_i / sum_j L_j (FitzJohn, Maddison & Otto 2009,
+- data-weighted root weights L_i / sum_j L_j (FitzJohn, Maddison & Otto 2009,
   Syst. Biol. 58:595 -- published source)
 - parametric bootstrap p-value (1 + #{T* >= T}) / (N + 1) -- Goldman (1993)
   J. Mol. Evol. 36:182 for the test; the +1 form is common practice (Davison &
@@ -44,7 +44,7 @@ from mkforest.engine.models import build_model
 from mkforest.engine.simulate import simulate_states
 from mkforest.errors import InputError
 
-ROOTS = ("flat", "equilibrium", "conditional")
+ROOTS = ("uniform", "stationary", "data_weighted")
 LIMB = ("absent", "present")
 VISITOR = ("bee", "moth")
 COLOUR = ("white", "pink", "violet")
@@ -133,11 +133,11 @@ def brute_force_lnl(ref_tree, partials, Q, root):
                 a = state[parent[v]]
                 w *= (P[v][a] @ partials[v]) if v < n_tips else P[v][a, state[v]]
             L[r] += w
-    if root == "flat":
+    if root == "uniform":
         total = L.mean()
-    elif root == "conditional":
+    elif root == "data_weighted":
         total = (L * L).sum() / L.sum()
-    else:  # equilibrium: pi Q = 0, sum pi = 1 (fact of the trade), solved here by SVD null space
+    else:  # stationary: pi Q = 0, sum pi = 1 (fact of the trade), solved here by SVD null space
         pi = scipy.linalg.null_space(Q.T)[:, 0]
         total = (pi / pi.sum()) @ L
     return math.log(total)
@@ -177,12 +177,12 @@ def test_binary_parameter_counts(hypothesis, expected):
 
 
 @pytest.mark.parametrize("hypothesis, expected", [
-    # 3-state limb colour x 2-state visitor: each trait all_different within a background
+    # 3-state limb colour x 2-state visitor: each trait unconstrained within a background
     # (k1(k1-1) = 6 and k2(k2-1) = 2 rates), times the number of backgrounds where they vary
     ("independent", 6 + 2), ("dependent", 6 * 2 + 2 * 3),
     ("first_depends_on_second", 6 * 2 + 2), ("second_depends_on_first", 6 + 2 * 3)])
 def test_multistate_parameter_counts(hypothesis, expected):
-    """Counting from the definitions (fact of the trade: all_different on k states has k(k-1) rates)."""
+    """Counting from the definitions (fact of the trade: unconstrained on k states has k(k-1) rates)."""
     pair = make_pair(np.random.default_rng(2), ["a", "b", "c"], COLOUR, VISITOR)
     assert pairs.hypothesis_model(pair, hypothesis).n_params == expected
 
@@ -360,8 +360,8 @@ def test_kronecker_sum_exponential():
     model = pairs.hypothesis_model(pair, "independent")
     rates = rng.uniform(0.1, 2.0, model.n_params)
     q = model.q_matrix(rates)
-    q1 = build_model("all_different", COLOUR).q_matrix(rates[:6])
-    q2 = build_model("all_different", VISITOR).q_matrix(rates[6:])
+    q1 = build_model("unconstrained", COLOUR).q_matrix(rates[:6])
+    q2 = build_model("unconstrained", VISITOR).q_matrix(rates[6:])
     np.testing.assert_allclose(q, np.kron(q1, np.eye(2)) + np.kron(np.eye(3), q2), atol=1e-15)
     for t in (0.1, 0.7, 3.0):
         np.testing.assert_allclose(scipy.linalg.expm(q * t),
@@ -374,11 +374,11 @@ def test_kronecker_sum_exponential():
 def test_independent_is_sum_of_separate_fits(root, states1):
     """Under 'independent', P(t) is a Kronecker product and the tip data an outer product,
     so the conditional likelihoods at every node factor: L(i,j) = L1(i) L2(j). Hence
-    ln L_joint(a, b, c, d) = ln L1(a, b) + ln L2(c, d) for a flat root (1/(k1 k2) = 1/k1 * 1/k2),
-    an equilibrium root (pi = pi1 (x) pi2) and a conditional root
+    ln L_joint(a, b, c, d) = ln L1(a, b) + ln L2(c, d) for a uniform root (1/(k1 k2) = 1/k1 * 1/k2),
+    an stationary root (pi = pi1 (x) pi2) and a data-weighted root
     (sum_ij L1i^2 L2j^2 / sum_ij L1i L2j = (sum L1i^2 / sum L1i)(sum L2j^2 / sum L2j)).
     The joint surface is a sum of two surfaces in disjoint rates, so the maxima agree too.
-    (Pagel 1994 for the model; FitzJohn et al. 2009 for the conditional root.)"""
+    (Pagel 1994 for the model; FitzJohn et al. 2009 for the data-weighted root.)"""
     rng = np.random.default_rng(len(states1) * 10 + ROOTS.index(root))
     tree = parse_newick(yule_newick(rng, 60, height=1.0))
     first = trait_from_mapping("limb", simulated_cells(rng, tree, states1), states=list(states1))
@@ -386,8 +386,8 @@ def test_independent_is_sum_of_separate_fits(root, states1):
     pair = pairs.make_pair("limb_visitor", first, second)
     joint = pair.joint_trait()
     ind = pairs.hypothesis_model(pair, "independent")
-    m1 = build_model("all_different", states1)
-    m2 = build_model("all_different", VISITOR)
+    m1 = build_model("unconstrained", states1)
+    m2 = build_model("unconstrained", VISITOR)
     n1 = m1.n_params
     X, X1, X2 = (joint.tip_partials(tree), pair.first.tip_partials(tree),
                  pair.second.tip_partials(tree))
@@ -472,7 +472,7 @@ def test_bootstrap_is_deterministic_whatever_the_order():
     ind = pairs.hypothesis_model(pair, "independent")
     dep = pairs.hypothesis_model(pair, "dependent")
     null_rates = np.array([0.8, 1.2, 0.6, 0.9])
-    kw = dict(root="conditional", seed=42, n_starts=2)
+    kw = dict(root="data_weighted", seed=42, n_starts=2)
     whole = pairs.bootstrap_statistics(pair, tree, ind, dep, null_rates, replicates=range(6), **kw)
     later = pairs.bootstrap_statistics(pair, tree, ind, dep, null_rates, replicates=[5, 4, 3], **kw)
     early = pairs.bootstrap_statistics(pair, tree, ind, dep, null_rates, replicates=[0, 1, 2], **kw)
@@ -481,7 +481,7 @@ def test_bootstrap_is_deterministic_whatever_the_order():
     assert pairs.bootstrap_p_value(1.0, whole) == pairs.bootstrap_p_value(
         1.0, np.concatenate([later, early]))
     other = pairs.bootstrap_statistics(pair, tree, ind, dep, null_rates, replicates=range(6),
-                                       root="conditional", seed=43, n_starts=2)
+                                       root="data_weighted", seed=43, n_starts=2)
     assert not np.array_equal(other, whole)
 
 
@@ -492,11 +492,11 @@ def test_pair_analysis_from_config_spec():
     pair = make_pair(rng, ["a", "b", "c"])
     traits = {"limb": pair.first, "visitor": pair.second}
     spec = {"traits": ["limb", "visitor"], "hypotheses": ["independent", "dependent", "limb_first"],
-            "custom": {"limb_first": {"transitions": CONTINGENT}}, "root": "equilibrium"}
+            "custom": {"limb_first": {"transitions": CONTINGENT}}, "root": "stationary"}
     trait, models = pairs.pair_analysis("limb_visitor", spec, traits)
     assert trait.states == pair.states and trait.name == "limb_visitor"
     assert set(models) == {"independent", "dependent", "limb_first"}
-    assert all(root == "equilibrium" for _, root in models.values())
+    assert all(root == "stationary" for _, root in models.values())
     tests = {(n.null, n.alternative) for n in pairs.pair_tests(models)}
     assert tests == {("independent", "dependent"), ("limb_first", "dependent")}
 

@@ -177,7 +177,7 @@ def test_methods_cite_what_ran_and_only_that(run):
     for key in ("felsenstein1981", "lewis2001", "akaike1974", "hurvich1989", "burnham2002"):
         r = REFERENCES[key]
         assert r.cite() in text and r.full() in refs
-    # this run has no pairs, no ancestral stage, a flat root and AICc: none of these appear
+    # this run has no pairs, no ancestral stage, a uniform root and AICc: none of these appear
     for key in ("pagel1994", "goldman1993", "yang1995", "nielsen2002", "huelsenbeck2003",
                 "fitzjohn2009", "schwarz1978"):
         assert REFERENCES[key].cite() not in text
@@ -198,7 +198,7 @@ def test_methods_follow_the_settings(run):
     """Root treatment, criterion and starts change the words and the references."""
     work, _ = run
     cfg = base_config()
-    cfg["models"]["free"]["root"] = "conditional"
+    cfg["models"]["free"]["root"] = "data_weighted"
     cfg["criterion"] = "bic"
     cfg["fitting"] = {"starts": 1}
     text = _text_for(work, cfg)

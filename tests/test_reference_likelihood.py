@@ -3,9 +3,9 @@
 - brute-force sum over interior-node states (Felsenstein 1981, J. Mol. Evol.
   17:368 -- published source: the sum that pruning replaces), written in
   tests/reference.py without mkforest
-- conditional root, ln L = ln(sum_i L_i^2 / sum_i L_i) (FitzJohn, Maddison &
+- data-weighted root, ln L = ln(sum_i L_i^2 / sum_i L_i) (FitzJohn, Maddison &
   Otto 2009, Syst. Biol. 58:595 -- published source)
-- equilibrium root: pi Q = 0, sum pi = 1 (fact of the trade), solved here by
+- stationary root: pi Q = 0, sum pi = 1 (fact of the trade), solved here by
   least squares
 - Yang (2014) Molecular Evolution: A Statistical Approach, section 4.2, Fig. 4.2
   (published worked example; values recalled from memory, then reproduced by the
@@ -50,8 +50,8 @@ TOL = 1e-9  # absolute, on ln L
 
 
 def roots_for(case):
-    """Every root treatment: flat, conditional, each fixed state, equilibrium."""
-    return ["flat", "conditional", *case["states"], "equilibrium"]
+    """Every root treatment: uniform, data_weighted, each fixed state, stationary."""
+    return ["uniform", "data_weighted", *case["states"], "stationary"]
 
 
 # --------------------------------------------------------------------------- reference self-check
@@ -65,7 +65,7 @@ def test_reference_brute_force_equals_reference_pruning(seed):
     partials = partials_from_cells(case["cells"], tree.tip_labels, case["states"])
     for root in roots_for(case):
         brute = brute_force_log_likelihood(tree, partials, case["Q"], root, case["states"]) \
-            if root != "equilibrium" or stationary_is_unique(case["Q"]) else None
+            if root != "stationary" or stationary_is_unique(case["Q"]) else None
         if brute is None:
             continue
         pruned = pruning_log_likelihood(tree, partials, case["Q"], root, case["states"])
@@ -92,7 +92,7 @@ def test_custom_model_q_matrix_matches_transition_list(index):
 
 @pytest.mark.parametrize("k", [2, 3, 4, 5])
 def test_builtin_model_structures(k):
-    """equal: 1 rate; symmetric: k(k-1)/2 rates, Q_ij = Q_ji; all_different: k(k-1)
+    """equal: 1 rate; symmetric: k(k-1)/2 rates, Q_ij = Q_ji; unconstrained: k(k-1)
     rates, each off-diagonal its own (Lewis 2001 Mk model and its usual
     constrained forms -- fact of the trade)."""
     states = [f"s{i}" for i in range(k)]
@@ -112,7 +112,7 @@ def test_builtin_model_structures(k):
     np.testing.assert_allclose(np.sort(q[np.triu_indices(k, 1)]), np.sort(rates), atol=0)
     np.testing.assert_allclose(q.sum(axis=1), 0.0, atol=1e-14)
 
-    alld = build_model("all_different", states)
+    alld = build_model("unconstrained", states)
     assert alld.n_params == k * (k - 1)
     rates = rng.uniform(0.1, 2.0, size=alld.n_params)
     q = alld.q_matrix(rates)
@@ -125,7 +125,7 @@ def test_builtin_model_structures(k):
 @pytest.mark.parametrize("seed", range(N_CASES))
 def test_log_likelihood_equals_brute_force(seed):
     """Engine ln L == ln(brute-force sum) to 1e-9 for every root treatment
-    (Felsenstein 1981; FitzJohn et al. 2009 for 'conditional' -- published sources)."""
+    (Felsenstein 1981; FitzJohn et al. 2009 for 'data_weighted' -- published sources)."""
     case = random_case(seed)
     tree = parse_newick(case["newick"])
     states, Q = case["states"], case["Q"]
@@ -141,7 +141,7 @@ def test_log_likelihood_equals_brute_force(seed):
 
     failures = []
     for root in roots_for(case):
-        # equilibrium with several closed classes: the engine documents the minimum-norm
+        # stationary root with several closed classes: the engine documents the minimum-norm
         # least-squares pi; the reference computes the same choice itself
         total = combine_root(L, root, Q, states, allow_nonunique=True)
         expected = math.log(total) if total > 0 else -math.inf
@@ -192,7 +192,7 @@ def test_brute_force_cases_cover_what_they_claim():
         missing |= "?" in case["cells"].values()
         ambiguous |= any("|" in c for c in case["cells"].values())
         absorbing |= bool((np.diag(case["Q"]) == 0).any())
-    assert kinds == {"equal", "symmetric", "all_different", "custom"}
+    assert kinds == {"equal", "symmetric", "unconstrained", "custom"}
     assert polytomy and zero and missing and ambiguous and absorbing
 
 
@@ -214,7 +214,7 @@ def test_impossible_data_give_minus_infinity():
     states = ["x", "y"]
     partials = partials_from_cells(cells, tree.tip_labels, states)
     Q = q_from_rates(np.full((2, 2), 1.0))
-    for root in ["flat", "conditional", "equilibrium", "x", "y"]:
+    for root in ["uniform", "data_weighted", "stationary", "x", "y"]:
         assert brute_force_log_likelihood(tree, partials, Q, root, states) == -math.inf
         assert log_likelihood(tree, partials, Q, root=root, states=tuple(states)) == -math.inf, root
 
@@ -227,7 +227,7 @@ def test_impossible_data_give_minus_infinity():
     assert brute_force_log_likelihood(tree, partials, Q, "absent", states) == -math.inf
     assert log_likelihood(tree, partials, Q, root="absent", states=tuple(states)) == -math.inf
     # while the other root treatments stay finite and match the brute force
-    for root in ["flat", "conditional", "present"]:
+    for root in ["uniform", "data_weighted", "present"]:
         expected = brute_force_log_likelihood(tree, partials, Q, root, states)
         assert abs(log_likelihood(tree, partials, Q, root=root, states=tuple(states))
                    - expected) <= TOL
@@ -294,7 +294,7 @@ def test_yang_2014_k80_five_tip_example():
     tree = parse_newick("(((1:0.2,2:0.2):0.1,3:0.2):0.1,(4:0.2,5:0.2):0.1);")
     data = {"1": "T", "2": "C", "3": "A", "4": "C", "5": "C"}
     partials = trait_from_mapping("site", data, states=states).tip_partials(tree)
-    for root in ("equilibrium", "flat"):  # identical: equal frequencies
+    for root in ("stationary", "uniform"):  # identical: equal frequencies
         lnl = log_likelihood(tree, partials, Q, root=root, states=states)
         assert abs(lnl - (-7.58141)) < 1e-5, (root, lnl)
         assert abs(math.exp(lnl) / 0.000509843 - 1) < 1e-6, (root, math.exp(lnl))
@@ -320,7 +320,7 @@ def test_large_tree_finite_and_equal_to_log_space_reference(n_tips):
     states = ["x", "y", "z"]
     cells = tip_data_mapping(rng, tree, Q, states, p_missing=0.05, p_ambiguous=0.05)
     partials = partials_from_cells(cells, tree.tip_labels, states)
-    for root in ("flat", "conditional", "equilibrium", "y"):
+    for root in ("uniform", "data_weighted", "stationary", "y"):
         expected = pruning_log_likelihood(tree, partials, Q, root, states)
         assert expected < -745  # exp(ln L) would be 0 in double precision
         got = log_likelihood(tree, partials, Q, root=root, states=tuple(states))

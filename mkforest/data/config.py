@@ -17,7 +17,7 @@ from ..errors import InputError
 
 SCHEMA = Path(__file__).resolve().parents[2] / "workflow" / "schemas" / "config.schema.yaml"
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_.-]+$")
-BUILTIN_KINDS = ("equal", "symmetric", "all_different")
+BUILTIN_KINDS = ("equal", "symmetric", "unconstrained")
 
 
 def _fill_defaults(schema: dict, value):
@@ -46,6 +46,7 @@ def validate_config(config: dict, source: str = "config") -> dict:
 
     schema = yaml.safe_load(SCHEMA.read_text())
     config = copy.deepcopy(config or {})
+    check_renamed(config, source)
     errors = sorted(jsonschema.Draft202012Validator(schema).iter_errors(config),
                     key=lambda e: list(e.absolute_path))
     if errors:
@@ -55,6 +56,19 @@ def validate_config(config: dict, source: str = "config") -> dict:
     _fill_defaults(schema, config)
     check_names(config, source)
     return config
+
+
+RENAMED_KINDS = {"all_different": "unconstrained"}
+
+
+def check_renamed(config: dict, source: str = "config") -> None:
+    """Model kinds of the first release: one sentence naming the new word."""
+    models = config.get("models") if isinstance(config, dict) else None
+    for name, model in (models or {}).items():
+        kind = model.get("kind") if isinstance(model, dict) else None
+        if kind in RENAMED_KINDS:
+            raise InputError(f"{source}: models.{name}.kind is '{kind}': this model kind is now "
+                             f"called '{RENAMED_KINDS[kind]}'.")
 
 
 def check_names(config: dict, source: str = "config") -> None:

@@ -8,7 +8,7 @@ where D_v(i) is the conditional likelihood of the data below v given x_v = i
 (the down pass: Felsenstein 1981 pruning, the kernel of ``likelihood``) and U_v(i) is
 the probability of x_v = i jointly with all data outside the subtree of v (the
 up pass). The up pass starts from the root prior pi (the root treatment:
-flat 1/k, equilibrium, a fixed state, or for ``conditional`` the root's own
+uniform 1/k, stationary, a fixed state, or for ``data_weighted`` the root's own
 normalised conditional likelihood D_root / sum D_root, FitzJohn, Maddison & Otto
 2009) and walks to the tips:
 
@@ -129,7 +129,7 @@ def _up_pass(child_ptr, children, n_tips, P, down, root_prior, above, up):
                     up[c, j] /= total
 
 
-def passes(tree, tip_partials, Q, root="flat", states=None) -> Passes:
+def passes(tree, tip_partials, Q, root="uniform", states=None) -> Passes:
     """Down and up passes for one tree (see the module docstring).
 
     Raises ImpossibleData when the tip data have probability zero under Q and
@@ -159,10 +159,10 @@ def passes(tree, tip_partials, Q, root="flat", states=None) -> Passes:
     return Passes(P, down, above, up, prior, log_likelihood)
 
 
-def marginal_probabilities(tree, tip_partials, Q, root="flat", states=None) -> np.ndarray:
+def marginal_probabilities(tree, tip_partials, Q, root="uniform", states=None) -> np.ndarray:
     """Pr(x_v = i | data) for every node v: float64 [n_nodes, k], rows sum to 1.
 
-    root: "flat", "equilibrium", "conditional" or a state label (with ``states``)
+    root: "uniform", "stationary", "data_weighted" or a state label (with ``states``)
     / index; as in ``likelihood.log_likelihood``.
     """
     return passes(tree, tip_partials, Q, root, states).marginals()

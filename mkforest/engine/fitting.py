@@ -53,7 +53,7 @@ class FitResult:
 class LogLikelihood:
     """ln L as a function of a model's free rates, for one tree and one trait."""
 
-    def __init__(self, tree, tip_partials, model, root="flat"):
+    def __init__(self, tree, tip_partials, model, root="uniform"):
         self.tree = tree
         self.tip_partials = np.ascontiguousarray(tip_partials, dtype=np.float64)
         self.model = model
@@ -147,7 +147,7 @@ def starting_points(tree, tip_partials, model, n_starts: int = 5, seed: int = 0,
     return starts, (lo, hi)
 
 
-def fit_model(tree, tip_partials, model, root="flat", n_starts: int = 5, seed: int = 0,
+def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = 5, seed: int = 0,
               lower: float = LOWER, upper: float = UPPER) -> FitResult:
     """Maximum-likelihood rates of ``model`` on one tree (see the module docstring)."""
     f = LogLikelihood(tree, tip_partials, model, root)

@@ -22,7 +22,7 @@ factors of the passes, so the vectors need only be kept away from underflow
 (each is normalised as it is made). G is k x k however many parameters there
 are, so the whole gradient costs about as much as two or three likelihoods.
 
-Root treatments: flat and a fixed state start the up pass from their fixed
+Root treatments: uniform and a fixed state start the up pass from their fixed
 weights. Conditional (L = sum L_i^2 / sum L_i, FitzJohn, Maddison & Otto 2009)
 starts it from dL/dL_root,i = (2 L_i - L) / sum_j L_j: the chain rule through
 the root vector. Equilibrium adds d pi / dtheta . L_root / L, with d pi from
@@ -30,7 +30,7 @@ d pi Q = -pi dQ and sum d pi = 0, i.e. d pi = -pi dQ (Q - 1 pi)^-1 (the matrix
 is invertible when the chain has one closed class; standard result).
 
 Where the engine itself leaves the eigen-decomposition (ill-conditioned or
-defective Q, see ``likelihood.eigensystem``), and for the equilibrium root of a
+defective Q, see ``likelihood.eigensystem``), and for the stationary root of a
 reducible chain, the gradient is taken by central finite differences of the
 engine's ``log_likelihood`` instead.
 """
@@ -47,7 +47,6 @@ from .likelihood import (
     _down_pass_eigen,
     _p_from_eigen,
     _prune_matrices,
-    _rescale,
     eigensystem,
     expm1_outer,
     log_likelihood,
@@ -223,12 +222,12 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
 
 @numba.njit(cache=True)
 def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, tip_partials,
-                        conditional, weights, rate_index, coef, root_partial, grad):
+                        data_weighted, weights, rate_index, coef, root_partial, grad):
     """Down pass (the likelihood kernel), root, up pass and contraction in one call.
 
-    conditional: root weights L_i / sum L (FitzJohn et al. 2009), else ``weights``.
+    data_weighted: root weights L_i / sum L (FitzJohn et al. 2009), else ``weights``.
     Fills root_partial [k] (scaled) and grad [n_params] (d lnL / d rate, before any
-    equilibrium-root term). Returns (status, lnL): status 0 ok, 1 data impossible,
+    stationary-root term). Returns (status, lnL): status 0 ok, 1 data impossible,
     2 gradient not available (underflow in the up pass; use finite differences).
     """
     n = child_ptr.shape[0] - 1
@@ -255,7 +254,7 @@ def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv
         return 1, -np.inf
     total = 0.0
     outside = np.empty(k)
-    if conditional:
+    if data_weighted:
         s1 = 0.0
         s2 = 0.0
         for i in range(k):
@@ -299,7 +298,7 @@ def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv
     return 0, ll
 
 
-def finite_difference_gradient(tree, tip_partials, model, rates, root="flat", states=None,
+def finite_difference_gradient(tree, tip_partials, model, rates, root="uniform", states=None,
                                step: float = FD_STEP):
     """(lnL, d lnL / d log-rate) with central differences of ``likelihood.log_likelihood``
     (one-sided where one side is impossible; 0 where both are)."""
@@ -328,21 +327,21 @@ def finite_difference_gradient(tree, tip_partials, model, rates, root="flat", st
 def _analytic_eigensystem(Q, root):
     """The engine's eigensystem of Q when the gradient is taken analytically, else None."""
     es = eigensystem(Q)
-    if es is None or (root == "equilibrium" and not reachable(Q).all()):
+    if es is None or (root == "stationary" and not reachable(Q).all()):
         return None
     return es
 
 
 def exact_gradient_applies(Q, root) -> bool:
     """True when ``log_likelihood_and_gradient`` differentiates analytically at Q
-    (well-conditioned eigenvectors; for the equilibrium root also an irreducible
+    (well-conditioned eigenvectors; for the stationary root also an irreducible
     chain); otherwise it takes central finite differences. (It also falls back if
     the up pass underflows, which needs likelihood ratios beyond 1e-300 between
     the states of one node.)"""
     return _analytic_eigensystem(np.asarray(Q, dtype=np.float64), root) is not None
 
 
-def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="flat", states=None):
+def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform", states=None):
     """(lnL, d lnL / d log(rate_p) for every free rate p) of ``model`` at ``rates``.
 
     lnL is the engine's ``likelihood.log_likelihood`` (same kernels; equal to
@@ -358,22 +357,22 @@ def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="flat", s
     es = _analytic_eigensystem(Q, root)
     if es is None:
         return finite_difference_gradient(tree, tip_partials, model, rates, root, states)
-    equilibrium = root == "equilibrium"
+    stationary = root == "stationary"
     lam, V, Vinv = es
     k = Q.shape[0]
     E1 = expm1_outer(tree.length, lam)
-    conditional = root == "conditional"
-    weights = _ONE if conditional else root_weights(root, Q, None, states)
+    data_weighted = root == "data_weighted"
+    weights = _ONE if data_weighted else root_weights(root, Q, None, states)
     root_partial = np.empty(k)
     grad = np.empty(model.n_params)
     status, ll = _value_and_gradient(tree.child_ptr, tree.children, tree.n_tips, tree.length, Q,
-                                     lam, E1, V, Vinv, tip_partials, conditional, weights,
+                                     lam, E1, V, Vinv, tip_partials, data_weighted, weights,
                                      model.rate_index, _PHI1, root_partial, grad)
     if status == 1:
         return -np.inf, np.zeros(model.n_params)
     if status == 2:
         return finite_difference_gradient(tree, tip_partials, model, rates, root, states)
-    if equilibrium:
+    if stationary:
         # d pi = -pi dQ (Q - 1 pi)^-1, so d pi . L_root / L = -pi dQ z with
         # z = (Q - 1 pi)^-1 L_root / L (root_partial is already L_root / L)
         z = np.linalg.solve(Q - weights[None, :], root_partial)

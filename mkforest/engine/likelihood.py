@@ -16,7 +16,24 @@ import scipy.linalg
 
 from ..errors import InputError
 
-ROOTS = ("flat", "equilibrium", "conditional")
+ROOTS = ("uniform", "stationary", "data_weighted")
+# Root treatments of the first release, by their present names.
+RENAMED_ROOTS = {"flat": "uniform", "equilibrium": "stationary", "conditional": "data_weighted"}
+
+
+def check_root(root, states, at: str, what: str = "a state of the trait") -> str:
+    """The root treatment of one model, or an InputError naming the key ``at``.
+
+    A state label is a fixed root; a state may be called like an old treatment
+    name (a shell that is 'flat'), so the label wins over the renaming message.
+    """
+    if root in ROOTS or root in states:
+        return root
+    if root in RENAMED_ROOTS:
+        raise InputError(f"{at}.root is '{root}': this root treatment is now called "
+                         f"'{RENAMED_ROOTS[root]}'.")
+    raise InputError(f"{at}.root is '{root}': use uniform, stationary, data_weighted, or "
+                     f"{what} ({', '.join(states)}).")
 
 # Rescale a partial likelihood vector when its largest entry drops below 2^-256;
 # scaling by a power of two is exact in floating point.
@@ -282,11 +299,11 @@ def stationary_distribution(Q) -> np.ndarray:
 def root_weights(root, Q, root_partial, states=None) -> np.ndarray:
     """Weights of each root state under a root treatment (sum to one)."""
     k = Q.shape[0]
-    if root == "flat":
+    if root == "uniform":
         return np.full(k, 1.0 / k)
-    if root == "equilibrium":
+    if root == "stationary":
         return stationary_distribution(Q)
-    if root == "conditional":
+    if root == "data_weighted":
         # FitzJohn, Maddison & Otto (2009): weight each state by its own likelihood
         total = root_partial.sum()
         return root_partial / total if total > 0 else np.full(k, 1.0 / k)
@@ -301,7 +318,7 @@ def _root_state_index(root, states, k) -> int:
     if isinstance(root, (int, np.integer)) and 0 <= root < k:
         return int(root)
     shown = f" or one of the states ({', '.join(states)})" if states is not None else ""
-    raise InputError(f"root treatment '{root}' is not known: use flat, equilibrium, conditional{shown}.")
+    raise InputError(f"root treatment '{root}' is not known: use uniform, stationary, data_weighted{shown}.")
 
 
 def prune(tree, tip_partials, Q):
@@ -334,11 +351,11 @@ def prune(tree, tip_partials, Q):
     return partials, -count * _LOG_SCALE
 
 
-def log_likelihood(tree, tip_partials, Q, root="flat", states=None) -> float:
+def log_likelihood(tree, tip_partials, Q, root="uniform", states=None) -> float:
     """ln L of the tip data on the tree under rate matrix Q and a root treatment.
 
-    root: "flat" (each state 1/k), "equilibrium" (stationary distribution of Q),
-    "conditional" (ln sum_i L_i^2 / sum_i L_i; FitzJohn et al. 2009), or a state
+    root: "uniform" (each state 1/k), "stationary" (stationary distribution of Q),
+    "data_weighted" (ln sum_i L_i^2 / sum_i L_i; FitzJohn et al. 2009), or a state
     label (with ``states``) / index fixing the root state.
     """
     partials, log_scale = prune(tree, tip_partials, Q)

@@ -258,7 +258,7 @@ def _prepare(tree, tip_partials, Q, root, states):
     return mu, powers, n_seg, seg_ptr[:-1].copy(), tau, Ppow, np.ascontiguousarray(node_weights), root_post
 
 
-def stochastic_maps(tree, tip_partials, Q, n_maps: int, rng, root="flat", states=None) -> MapSet:
+def stochastic_maps(tree, tip_partials, Q, n_maps: int, rng, root="uniform", states=None) -> MapSet:
     """``n_maps`` stochastic maps under one rate matrix (see the module docstring).
 
     rng: a numpy Generator (seed it for reproducible maps). Raises

@@ -8,7 +8,7 @@ row of Q sums to zero.
 Built-in kinds:
   equal          one rate for every transition
   symmetric      i -> j and j -> i share a rate
-  all_different  every transition its own rate
+  unconstrained  every transition its own rate
   custom         transitions listed by state labels, e.g.
                    "small -> medium": grow        (one transition, rate label 'grow')
                    "medium <-> large": swap       (both directions, one rate)
@@ -27,7 +27,7 @@ import numpy as np
 
 from ..errors import InputError
 
-KINDS = ("equal", "symmetric", "all_different", "custom")
+KINDS = ("equal", "symmetric", "unconstrained", "custom")
 FREE_FORBIDDEN = -1
 FIXED = -2
 
@@ -155,7 +155,7 @@ def build_model(kind: str, states, transitions=None, name: str | None = None) ->
             for j in range(i + 1, k):
                 idx[i, j] = idx[j, i] = len(labels)
                 labels.append(f"{states[i]}<->{states[j]}")
-    elif kind == "all_different":
+    elif kind == "unconstrained":
         for i in range(k):
             for j in range(k):
                 if i != j:

@@ -25,11 +25,11 @@ Built-in hypotheses (binary x binary parameter counts in brackets):
   second_depends_on_first  the reverse [6]
 
 Under ``independent`` the joint rate matrix is the Kronecker sum of the two
-traits' all_different matrices, P(t) is the Kronecker product of theirs and the
+traits' unconstrained matrices, P(t) is the Kronecker product of theirs and the
 joint tip data are outer products, so the conditional likelihoods factor at
-every node, L(i, j) = L1(i) L2(j). With a flat, equilibrium or conditional
+every node, L(i, j) = L1(i) L2(j). With a uniform, stationary or data-weighted
 root the joint ln L is then exactly the sum of the two traits' separate ln L
-(for the conditional root because sum_ij (L1i L2j)^2 / sum_ij L1i L2j is the
+(for the data-weighted root because sum_ij (L1i L2j)^2 / sum_ij L1i L2j is the
 product of the two traits' sum L^2 / sum L), and so are the maxima.
 
 Rate labels read as ``trait: from->to`` when the rate holds in every state of
@@ -63,7 +63,7 @@ from ..data.traits import Trait
 from ..errors import InputError
 from ..seeds import derive_seed
 from .fitting import LOWER, UPPER, fit_model
-from .likelihood import prune, root_weights
+from .likelihood import check_root, prune, root_weights
 from .models import FIXED, FREE_FORBIDDEN, RateModel, build_model, parse_transition
 from .simulate import simulate_states
 
@@ -248,10 +248,7 @@ def custom_hypothesis(pair: TraitPair, name: str, transitions) -> RateModel:
 # --------------------------------------------------------------------------- configuration
 
 def _check_root(root, pair: TraitPair, at: str) -> str:
-    if root in ("flat", "equilibrium", "conditional") or root in pair.states:
-        return root
-    raise InputError(f"{at}.root is '{root}': use flat, equilibrium, conditional, or a joint "
-                     f"state of the pair ({', '.join(pair.states)}).")
+    return check_root(root, pair.states, at, "a joint state of the pair")
 
 
 def pair_from_config(name: str, spec: dict, traits: dict, where: str = "config") -> TraitPair:
@@ -273,7 +270,7 @@ def pair_models(name: str, spec: dict, pair: TraitPair, where: str = "config") -
     also be named in ``hypotheses``)."""
     at = f"{where}: pairs.{name}"
     custom = spec.get("custom") or {}
-    root = _check_root(spec.get("root", "flat"), pair, at)
+    root = _check_root(spec.get("root", "uniform"), pair, at)
     models = {}
     for h in list(spec.get("hypotheses") or ["independent", "dependent"]):
         if h in custom:
@@ -407,12 +404,12 @@ def bootstrap_p_value(observed: float, simulated) -> float:
 
 def _simulation_root(null: RateModel, q, root, tree, tip_partials):
     """Root state (or weights) for simulating under the fitted null."""
-    if root == "conditional":
+    if root == "data_weighted":
         partials, _ = prune(tree, tip_partials, q)
         if partials is None:
             return None, np.full(null.k, 1.0 / null.k)
-        return None, root_weights("conditional", q, partials[tree.root])
-    if root in ("flat", "equilibrium"):
+        return None, root_weights("data_weighted", q, partials[tree.root])
+    if root in ("uniform", "stationary"):
         return None, root_weights(root, q, np.ones(null.k))
     w = root_weights(root, q, np.ones(null.k), null.states)
     return int(np.argmax(w)), None
@@ -434,7 +431,7 @@ def simulate_pair_partials(pair: TraitPair, tree, joint_states, masks) -> np.nda
     return (p1[:, :, None] & p2[:, None, :]).reshape(tree.n_tips, -1).astype(np.float64)
 
 
-def lr_statistic(tree, tip_partials, null: RateModel, alt: RateModel, root="flat",
+def lr_statistic(tree, tip_partials, null: RateModel, alt: RateModel, root="uniform",
                  n_starts: int = 5, seed: int = 0, lower: float = LOWER,
                  upper: float = UPPER) -> tuple:
     """(statistic, null FitResult, alternative FitResult): both hypotheses fitted by
@@ -449,7 +446,7 @@ def lr_statistic(tree, tip_partials, null: RateModel, alt: RateModel, root="flat
 
 
 def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel, null_rates,
-                         root="flat", replicates=range(0), seed: int = 0, n_starts: int = 5,
+                         root="uniform", replicates=range(0), seed: int = 0, n_starts: int = 5,
                          lower: float = LOWER, upper: float = UPPER) -> np.ndarray:
     """LR statistics of data sets simulated under the fitted null (Goldman 1993).
 

@@ -6,6 +6,7 @@ import numpy as np
 
 from ..engine.compare import information_criteria
 from ..engine.fitting import fit_model
+from ..engine.likelihood import check_root
 from ..engine.models import build_model
 from ..errors import InputError
 from ..seeds import derive_seed
@@ -29,11 +30,8 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
                 model = build_model(spec["kind"], trait.states, spec.get("transitions"), name)
             except InputError as exc:
                 raise InputError(f"trait '{analysis}': {exc}") from None
-            root = spec.get("root", "flat")
-            if root not in ("flat", "equilibrium", "conditional") and root not in trait.states:
-                raise InputError(f"models.{name}.root is '{root}': use flat, equilibrium, "
-                                 f"conditional, or a state of trait '{analysis}' "
-                                 f"({', '.join(trait.states)}).")
+            root = check_root(spec.get("root", "uniform"), trait.states, f"models.{name}",
+                              f"a state of trait '{analysis}'")
             models[name] = (model, root)
         return trait, models
     if analysis in config.get("pairs", {}):

@@ -30,7 +30,7 @@ CRITERION_REFS = {"aicc": ("akaike1974", "hurvich1989"), "aic": ("akaike1974",),
 KIND_WORDS = {
     "equal": "one rate for every change",
     "symmetric": "one rate per pair of states, the same in both directions",
-    "all_different": "a separate rate for every change",
+    "unconstrained": "a separate rate for every change",
 }
 
 
@@ -106,9 +106,9 @@ def describe_model(model, pair_traits=None) -> str:
 
 
 def root_words(root: str) -> str:
-    return {"flat": "every state equally probable at the root",
-            "equilibrium": "the root states at the model's stationary distribution",
-            "conditional": "each root state weighted by its conditional likelihood "
+    return {"uniform": "every state equally probable at the root",
+            "stationary": "the root states at the model's stationary distribution",
+            "data_weighted": "each root state weighted by its conditional likelihood "
                            + cite("fitzjohn2009")}.get(root, f"the root fixed in state '{root}'")
 
 

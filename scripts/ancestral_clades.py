@@ -24,7 +24,7 @@ def main(smk):
         reference = read_trees(smk.params.reference)[0]
     table, summary = target_clades(trees, named, reference, source)
     table.to_csv(smk.output.clades, sep="\t", index=False)
-    Path(smk.output.tree).write_text(to_newick(summary) + "\n")
+    Path(smk.output.tree).write_text("[&R] " + to_newick(summary) + "\n")
     log.info("%d trees; %d clades to report (%s summary tree, %d named)", len(trees), len(table),
              "reference" if reference is not None else "majority-rule consensus", len(named))
 

@@ -19,7 +19,7 @@ def main(smk):
     states = pd.read_csv(smk.input.states, sep="\t", dtype={"state": str, "clade": str})
     clades = pd.read_csv(smk.input.clades, sep="\t", dtype={"members": str, "clade": str})
     per_tree = pd.read_csv(smk.input.per_tree, sep="\t", dtype={"from_state": str, "to_state": str})
-    tree = parse_newick(Path(smk.input.tree).read_text().strip())
+    tree = parse_newick(Path(smk.input.tree).read_text().strip(), rooted=True)
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
     for analysis in smk.params.analyses:
         fig = plots_ancestral.state_tree(tree, states[states["analysis"] == analysis], clades,

@@ -8,7 +8,7 @@ import logging
 
 import pandas as pd
 
-from mkforest.data.trees import read_trees, save_trees
+from mkforest.data.trees import describe_rooting, read_trees, save_trees
 from mkforest.jobs.prepare import check_same_tips, chunk, select_trees
 from mkforest.jobs.scripting import run_job
 
@@ -17,13 +17,14 @@ def main(smk):
     log = logging.getLogger("mkforest")
     cfg = smk.params.trees
     source = f"tree file '{smk.input.trees}'"
-    trees = read_trees(smk.input.trees)
+    trees = read_trees(smk.input.trees, root=cfg.get("root"))
     keep = select_trees(len(trees), cfg["burnin"], cfg["thin"], cfg["sample"], smk.params.seed,
                         source)
     used = [trees[i] for i in keep]
     check_same_tips(used, source)
-    log.info("%d trees in %s; %d used after burn-in %s, thinning %d, sample %s",
-             len(trees), smk.input.trees, len(used), cfg["burnin"], cfg["thin"], cfg["sample"])
+    log.info("%d trees in %s; %d used after burn-in %s, thinning %d, sample %s; rooted %s",
+             len(trees), smk.input.trees, len(used), cfg["burnin"], cfg["thin"], cfg["sample"],
+             describe_rooting(cfg.get("root")))
     out = Path(smk.output.chunks)
     out.mkdir(parents=True, exist_ok=True)
     rows = []

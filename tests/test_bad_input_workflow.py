@@ -58,7 +58,7 @@ def test_trees_with_different_tips_are_named(tmp_path):
     idx = [i for i, line in enumerate(text) if line.strip().startswith("TREE")][2]
     text[idx] = text[idx].replace("(1:", "(Lumasta_intruder:", 1).replace(",1:", ",Lumasta_intruder:", 1)
     trees.write_text("\n".join(text) + "\n")
-    _fails_with(run_snakemake(tmp_path, cfg), "tree 3", "Lumasta_intruder")
+    _fails_with(run_snakemake(tmp_path, cfg), "tree 2", "Lumasta_intruder")
 
 
 def test_burnin_leaving_no_trees(tmp_path):

@@ -103,9 +103,9 @@ def check_same_taxa(trees, source="the tree sample") -> tuple:
         if other != first:
             extra = sorted(other - first)
             lacking = sorted(first - other)
-            what = (f"has taxon '{extra[0]}' that tree {trees[0].index + 1} lacks" if extra
+            what = (f"has taxon '{extra[0]}' that tree {trees[0].index} lacks" if extra
                     else f"lacks taxon '{lacking[0]}'")
-            raise InputError(f"{source}: tree {t.index + 1} {what}; every tree must have the same taxa "
+            raise InputError(f"{source}: tree {t.index} {what}; every tree must have the same taxa "
                              "to match clades across trees.")
     return tuple(sorted(first))
 
@@ -130,7 +130,7 @@ def majority_consensus(trees, min_freq: float = 0.5) -> TreeArrays:
     for nd in con.postorder_node_iter():
         if nd.edge.length is None:
             nd.edge.length = 0.0
-    return from_dendropy(con, 0, "consensus tree")
+    return from_dendropy(con, 0, "consensus tree", rooted=True)
 
 
 # --------------------------------------------------------------------------- drawing order and names
@@ -231,7 +231,7 @@ def find_mrca(tree: TreeArrays, members) -> tuple:
     is_member = np.array([lab in want for lab in tree.tip_labels], dtype=np.int64)
     if is_member.sum() != len(want):
         missing = sorted(want - set(tree.tip_labels))
-        raise InputError(f"tree {tree.index + 1} lacks taxon '{missing[0]}'.")
+        raise InputError(f"tree {tree.index} lacks taxon '{missing[0]}'.")
     below = np.zeros(tree.n_nodes, dtype=np.int64)
     size = np.zeros(tree.n_nodes, dtype=np.int64)
     below[: tree.n_tips] = is_member

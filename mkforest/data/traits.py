@@ -75,7 +75,7 @@ class Trait:
             shown = ", ".join(f"'{x}'" for x in lacking[:5])
             more = f" and {len(lacking) - 5} more" if len(lacking) > 5 else ""
             raise InputError(
-                f"trait '{self.name}': taxon {shown}{more} is in tree {tree.index + 1} but not in "
+                f"trait '{self.name}': taxon {shown}{more} is in tree {tree.index} but not in "
                 "the trait table. Add a row with '?' for unknown values, or remove the taxon from "
                 "the trees.")
         return out

@@ -120,16 +120,20 @@ def _describe(node) -> str:
     return f"the ancestor of '{leaves[0]}' and '{leaves[-1]}'"
 
 
-def from_dendropy(tree, index: int = 0, source: str = "tree") -> TreeArrays:
-    """Convert one DendroPy tree, checking what the likelihood needs."""
-    where = f"{source}, tree {index + 1}"
+def from_dendropy(tree, index: int = 0, source: str = "tree", rooted: bool = False) -> TreeArrays:
+    """Convert one DendroPy tree, checking what the likelihood needs.
+
+    rooted: the tree is known to be rooted (a tree mkforest built or rerooted
+    itself), so a basal polytomy is a polytomy, never a sign of an unrooted tree.
+    """
+    where = f"{source}, tree {index}"
     root = tree.seed_node
-    if len(root.child_nodes()) > 2 and tree.is_rooted is not True:
+    if len(root.child_nodes()) > 2 and tree.is_rooted is not True and not rooted:
         raise InputError(
             f"{where}: the tree is unrooted (its base splits {len(root.child_nodes())} ways). "
-            "Trait models need a rooted tree: root it on an outgroup or at its midpoint "
-            "(e.g. DendroPy's Tree.reroot_at_midpoint) and write it again; if the basal "
-            "polytomy is intended, mark the tree as rooted with a [&R] comment before it.")
+            "Trait models need a rooted tree: set trees.root in the config to midpoint or to "
+            "{outgroup: [taxon, ...]}; if the basal polytomy is intended, mark the tree as "
+            "rooted with a [&R] comment before it.")
     nodes = list(tree.postorder_node_iter())
     tips = [nd for nd in nodes if nd.is_leaf()]
     internals = [nd for nd in nodes if not nd.is_leaf()]
@@ -174,8 +178,12 @@ def _detect_schema(text: str) -> str:
     return "nexus" if text.lstrip().upper().startswith("#NEXUS") else "newick"
 
 
-def read_trees(path, schema: str | None = None) -> list:
-    """Read every tree in a Newick or NEXUS file (TRANSLATE tables, [&R]/[&U] and quoted labels handled)."""
+def read_trees(path, schema: str | None = None, root=None) -> list:
+    """Read every tree in a Newick or NEXUS file (TRANSLATE tables, [&R]/[&U] and quoted labels handled).
+
+    root: None (trees must be rooted as written), "midpoint", or {"outgroup": [taxa]}
+    (the ``trees.root`` config key); see ``reroot``.
+    """
     path = Path(path)
     if not path.is_file():
         raise InputError(f"tree file '{path}' does not exist.")
@@ -198,18 +206,91 @@ def read_trees(path, schema: str | None = None) -> list:
         raise InputError(f"tree file '{path}'{at}: cannot be read as {schema.upper()}: {msg}") from None
     if len(trees) == 0:
         raise InputError(f"tree file '{path}' holds no trees.")
-    return [from_dendropy(t, i, f"tree file '{path}'") for i, t in enumerate(trees)]
+    source = f"tree file '{path}'"
+    if root is not None:
+        for i, t in enumerate(trees):
+            reroot(t, root, f"{source}, tree {i}")
+    return [from_dendropy(t, i, source, rooted=root is not None) for i, t in enumerate(trees)]
 
 
-def parse_newick(text: str, index: int = 0) -> TreeArrays:
-    """One tree from a Newick string."""
+def describe_rooting(root) -> str:
+    """The trees.root setting in words (for logs, the manifest and the methods text)."""
+    if root is None:
+        return "as written in the tree file"
+    if root == "midpoint":
+        return "at the midpoint of the longest tip-to-tip path"
+    return "on the outgroup " + ", ".join(root["outgroup"])
+
+
+def reroot(tree, root, where: str = "tree") -> None:
+    """Root a DendroPy tree in place, as the ``trees.root`` config key asks.
+
+    "midpoint": DendroPy's Tree.reroot_at_midpoint (the root halves the longest
+    tip-to-tip path; common practice for samples without an outgroup).
+    {"outgroup": [taxa]}: the root is placed halfway along the branch that
+    separates the outgroup from the other taxa (common practice). The outgroup
+    must be a clade of the unrooted tree; otherwise InputError names the tree
+    and a taxon that breaks it up.
+    """
+    if tree.seed_node.edge.length is None:
+        tree.seed_node.edge.length = 0.0
+    if root == "midpoint":
+        if any(nd.edge.length is None for nd in tree.preorder_node_iter() if nd is not tree.seed_node):
+            raise InputError(f"{where}: midpoint rooting needs every branch length; a branch has "
+                             "none. Use trees.root: {outgroup: [...]} or give lengths.")
+        tree.reroot_at_midpoint(update_bipartitions=False, suppress_unifurcations=True)
+        tree.is_rooted = True
+        return
+    wanted = list(dict.fromkeys(root["outgroup"]))
+    leaves = {nd.taxon.label: nd for nd in tree.leaf_node_iter() if nd.taxon is not None}
+    unknown = [x for x in wanted if x not in leaves]
+    if unknown:
+        close = sorted(t for t in leaves if t.lower() == unknown[0].lower())
+        hint = f" (did you mean '{close[0]}'?)" if close else ""
+        raise InputError(f"{where}: outgroup taxon '{unknown[0]}' (trees.root.outgroup) is not in "
+                         f"this tree{hint}.")
+    if len(wanted) >= len(leaves):
+        raise InputError(f"{where}: trees.root.outgroup lists every taxon of the tree; the "
+                         "outgroup must leave at least one taxon outside it.")
+    # first hang the tree from a taxon outside the outgroup, so that the outgroup, if it is a
+    # clade of the unrooted tree, is a clade of this rooted one
+    inside = set(wanted)
+    anchor = next(nd for lab, nd in leaves.items() if lab not in inside)
+    _reroot_on_edge(tree, anchor)
+    mrca = tree.mrca(taxon_labels=wanted)
+    below = {nd.taxon.label for nd in mrca.leaf_iter()}
+    if below != inside:
+        intruder = sorted(below - inside)[0]
+        raise InputError(f"{where}: the outgroup ({', '.join(wanted)}) is not a clade in this tree: "
+                         f"the smallest group holding it also holds '{intruder}'. Check the "
+                         "trees.root.outgroup list, or use trees.root: midpoint.")
+    if mrca is not tree.seed_node:
+        _reroot_on_edge(tree, mrca)
+    tree.is_rooted = True
+
+
+def _reroot_on_edge(tree, node) -> None:
+    """Root halfway along the branch above ``node``."""
+    length = node.edge.length or 0.0
+    if node.parent_node is tree.seed_node and len(tree.seed_node.child_nodes()) == 2:
+        # already at the root's side: just split the root's two branches evenly
+        other = next(c for c in tree.seed_node.child_nodes() if c is not node)
+        total = length + (other.edge.length or 0.0)
+        node.edge.length = other.edge.length = total / 2
+        return
+    tree.reroot_at_edge(node.edge, length1=length / 2, length2=length / 2,
+                        update_bipartitions=False, suppress_unifurcations=True)
+
+
+def parse_newick(text: str, index: int = 0, rooted: bool = False) -> TreeArrays:
+    """One tree from a Newick string (``rooted``: a tree mkforest wrote, known to be rooted)."""
     import dendropy
 
     try:
         tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True)
     except Exception as exc:
         raise InputError(f"Newick string cannot be read: {str(exc).splitlines()[0]}") from None
-    return from_dendropy(tree, index, "Newick string")
+    return from_dendropy(tree, index, "Newick string", rooted=rooted)
 
 
 def _quote(label: str) -> str:

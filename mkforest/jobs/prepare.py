@@ -45,10 +45,10 @@ def check_same_tips(trees: list, source: str) -> None:
             parts = []
             if extra:
                 parts.append(f"has {', '.join(repr(x) for x in extra[:5])} that tree "
-                             f"{trees[0].index + 1} lacks")
+                             f"{trees[0].index} lacks")
             if lack:
                 parts.append(f"lacks {', '.join(repr(x) for x in lack[:5])}")
-            raise InputError(f"{source}: tree {t.index + 1} {' and '.join(parts)}; every tree in "
+            raise InputError(f"{source}: tree {t.index} {' and '.join(parts)}; every tree in "
                              "the sample must have the same tips.")
 
 

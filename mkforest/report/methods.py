@@ -149,7 +149,8 @@ def _trees_paragraph(config, tables) -> str:
     name = Path(tcfg["file"]).name
     if n == 1:
         return (f"Every model was fitted on one tree, the tree at position {positions[0]} "
-                f"(counted from 0) of {name}; phylogenetic uncertainty was not taken into account.")
+                f"(counted from 0) of {name}; phylogenetic uncertainty was not taken into account."
+                + _rooting_sentence(tcfg))
     steps = []
     burnin = tcfg["burnin"]
     if burnin == 0:
@@ -169,7 +170,20 @@ def _trees_paragraph(config, tables) -> str:
     return (f"To take phylogenetic uncertainty into account, every model was fitted separately on "
             f"each of {n} trees from the tree sample in {name}: {listing(steps)}. The trees used "
             f"are listed in tables/trees_used.tsv by their position in the file ({span}, counted "
-            "from 0).")
+            "from 0)." + _rooting_sentence(tcfg))
+
+
+def _rooting_sentence(tcfg) -> str:
+    root = tcfg.get("root")
+    if root is None:
+        return ""
+    if root == "midpoint":
+        return (" The trees were rooted at the midpoint of their longest tip-to-tip path before "
+                "fitting.")
+    out = root["outgroup"]
+    return (f" The trees were rooted on the {'outgroup' if len(out) > 1 else 'outgroup taxon'} "
+            f"{listing(out)}, with the root placed halfway along the branch that separates "
+            f"{'it' if len(out) == 1 else 'them'} from the other taxa.")
 
 
 def _ordinal(n: int) -> str:

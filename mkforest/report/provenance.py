@@ -37,6 +37,7 @@ from pathlib import Path, PurePosixPath
 
 import yaml
 
+from ..data.trees import describe_rooting
 from ..errors import InputError
 
 MANIFEST = "manifest.json"
@@ -134,6 +135,7 @@ def build_manifest(config: dict, run_dir, outputs, inputs, trees_used, invocatio
         "trees": {
             "file": tcfg["file"], "sha256": trees_record["sha256"],
             "burnin": tcfg["burnin"], "thin": tcfg["thin"], "sample": tcfg.get("sample"),
+            "root": tcfg.get("root"), "rooted": describe_rooting(tcfg.get("root")),
             "n_used": len(positions),
             "positions": positions,
             "positions_are": "0-based positions of the trees used in the tree file, after "

@@ -2,9 +2,11 @@
 
 Rates are optimised on the log scale within bounds set relative to the tree's
 height H: every rate lies in [lower/H, upper/H] (by default 1e-6 and 1e4
-expected changes along a root-to-tip path). Several starts are run from seeded
-random points around a parsimony-based guess; the fit is called converged when
-at least two starts reach the best log-likelihood within ``agree_tol``.
+expected changes along a root-to-tip path). Starts are tried one after another
+in a fixed seeded order (the first at a parsimony-based guess, the others
+random points around it): at least ``n_starts``, then more, up to
+``max_starts``, while the two best disagree. The fit is called converged when
+at least two starts reach the best log-likelihood within ``AGREE_TOL``.
 A fit depends only on (tree, data, model, root, seed): never on other trees,
 on run order or on how the work is split.
 """
@@ -24,6 +26,9 @@ from .likelihood import prune, root_weights
 LOWER = 1e-6
 UPPER = 1e4
 AGREE_TOL = 0.01
+# Starts run at least (two can agree) and at most (while the best two disagree).
+MIN_STARTS = 2
+MAX_STARTS = 20
 # Objective value where the data are impossible under the rates tried (e.g. an
 # irreversible loss so fast that exp(-rate t) underflows). Large but finite, so
 # the line search backs off instead of failing on inf.
@@ -45,6 +50,7 @@ class FitResult:
     root: str
     q_matrix: np.ndarray = None
     notes: list = field(default_factory=list)
+    start_log_likelihoods: tuple = ()  # the best ln L each start reached, in start order
 
     def rate_of(self, label: str) -> float:
         return float(self.rates[self.labels.index(label)])
@@ -129,34 +135,52 @@ def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
     return x, ll
 
 
-def starting_points(tree, tip_partials, model, n_starts: int = 5, seed: int = 0,
-                    lower: float = LOWER, upper: float = UPPER):
-    """(starts, (lo, hi)): the optimiser's starting log-rates and its log-rate bounds.
+def start_sequence(tree, tip_partials, model, seed: int = 0, lower: float = LOWER,
+                   upper: float = UPPER):
+    """(starts, (lo, hi)): an endless iterator of starting log-rates and the
+    log-rate bounds.
 
     The first start puts every rate at the parsimony-based guess; the others are
-    seeded random points around it, kept one log-unit inside the bounds."""
+    seeded random points around it, kept one log-unit inside the bounds. Start i
+    is the same however many are drawn, so a fit that needs more starts extends
+    the same sequence."""
     p = model.n_params
     height = tree.height if tree.height > 0 else 1.0
     lo, hi = math.log(lower / height), math.log(upper / height)
     guess = math.log(min(max(_starting_rate(tree, tip_partials, model), lower / height * 10),
                          upper / height / 10))
-    rng = np.random.default_rng(seed)
-    starts = [np.full(p, guess)]
-    for _ in range(n_starts - 1):
-        starts.append(np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0))
-    return starts, (lo, hi)
+
+    def starts():
+        rng = np.random.default_rng(seed)
+        yield np.full(p, guess)
+        while True:
+            yield np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0)
+
+    return starts(), (lo, hi)
 
 
-def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = 5, seed: int = 0,
-              lower: float = LOWER, upper: float = UPPER) -> FitResult:
-    """Maximum-likelihood rates of ``model`` on one tree (see the module docstring)."""
+def starting_points(tree, tip_partials, model, n_starts: int = 5, seed: int = 0,
+                    lower: float = LOWER, upper: float = UPPER):
+    """(the first ``n_starts`` of ``start_sequence``, (lo, hi))."""
+    starts, bounds = start_sequence(tree, tip_partials, model, seed, lower, upper)
+    return [next(starts) for _ in range(n_starts)], bounds
+
+
+def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STARTS, seed: int = 0,
+              lower: float = LOWER, upper: float = UPPER, max_starts: int = MAX_STARTS) -> FitResult:
+    """Maximum-likelihood rates of ``model`` on one tree (see the module docstring).
+
+    Runs the seeded starts in order: at least ``n_starts``; after that it stops
+    as soon as the two best starts so far agree within AGREE_TOL, or when
+    ``max_starts`` (raised to ``n_starts`` if lower) have run."""
     f = LogLikelihood(tree, tip_partials, model, root)
     p = model.n_params
     if p == 0:
         ll = f(np.zeros(0))
         return FitResult(model.name, ll, np.zeros(0), model.labels, 0, np.isfinite(ll), 1, 1,
                          (), (), root, model.q_matrix(np.zeros(0)))
-    starts, (lo, hi) = starting_points(tree, tip_partials, model, n_starts, seed, lower, upper)
+    starts, (lo, hi) = start_sequence(tree, tip_partials, model, seed, lower, upper)
+    max_starts = max(max_starts, n_starts)
 
     def objective(x):
         # exact gradient (mkforest.engine.gradient), in log-rate space
@@ -169,21 +193,32 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = 5, seed
     for x0 in starts:
         res = minimize(objective, x0, method="L-BFGS-B", jac=True, bounds=[(lo, hi)] * p,
                        options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6})
-        results.append((res.fun, res.x, res.success))
-    results.sort(key=lambda r: r[0])
-    best_fun, best_x, best_ok = results[0]
+        results.append((res.fun, res.x))
+        if len(results) >= max_starts:
+            break
+        if len(results) >= n_starts and _best_two_agree(results):
+            break
+    run = len(results)
+    best_fun, best_x = min(results, key=lambda r: r[0])
     ll = -best_fun if best_fun < _IMPOSSIBLE else -np.inf
     n_agree = sum(1 for r in results if r[0] - best_fun <= AGREE_TOL)
     notes = []
     if not np.isfinite(ll):
-        notes.append("the data are impossible under this model at every start")
-    converged = bool(np.isfinite(ll) and (n_agree >= 2 or n_starts == 1))
-    if np.isfinite(ll) and n_agree < 2 and n_starts > 1:
-        notes.append(f"only 1 of {n_starts} starts reached the best log-likelihood")
+        notes.append(f"the data are impossible under this model at every start ({run} tried)")
+    converged = bool(np.isfinite(ll) and (n_agree >= 2 or max_starts == 1))
+    if np.isfinite(ll) and n_agree < 2 and max_starts > 1:
+        notes.append(f"only 1 of {run} starts reached the best log-likelihood")
     if np.isfinite(ll):
         best_x, ll = _settle_at_bounds(f, best_x, ll, lo, hi)
     at_lower = tuple(model.labels[i] for i in range(p) if best_x[i] == lo)
     at_upper = tuple(model.labels[i] for i in range(p) if best_x[i] == hi)
     rates = np.exp(best_x)
-    return FitResult(model.name, ll, rates, model.labels, p, converged, n_starts, n_agree,
-                     at_lower, at_upper, root, model.q_matrix(rates), notes)
+    per_start = tuple(-r[0] if r[0] < _IMPOSSIBLE else -np.inf for r in results)
+    return FitResult(model.name, ll, rates, model.labels, p, converged, run, n_agree,
+                     at_lower, at_upper, root, model.q_matrix(rates), notes, per_start)
+
+
+def _best_two_agree(results) -> bool:
+    """The two lowest objective values are within AGREE_TOL of each other."""
+    a, b = sorted(r[0] for r in results)[:2]
+    return b - a <= AGREE_TOL

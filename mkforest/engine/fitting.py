@@ -21,6 +21,7 @@ import numpy as np
 from scipy.optimize import minimize
 
 from .gradient import log_likelihood_and_gradient
+from .hidden import relabel_classes, spread_classes
 from .likelihood import prune, root_weights
 
 LOWER = 1e-6
@@ -61,7 +62,7 @@ class LogLikelihood:
 
     def __init__(self, tree, tip_partials, model, root="uniform"):
         self.tree = tree
-        self.tip_partials = np.ascontiguousarray(tip_partials, dtype=np.float64)
+        self.tip_partials = np.ascontiguousarray(model.expand_tips(tip_partials), dtype=np.float64)
         self.model = model
         self.root = root
         root_weights(root, model.q_matrix(np.ones(model.n_params)), np.ones(model.k), model.states)
@@ -112,8 +113,12 @@ def _fitch(child_ptr, children, n_tips, tip_bits, k):
 
 
 def _starting_rate(tree, tip_partials, model) -> float:
-    changes = max(fitch_score(tree, tip_partials), 1)
-    return changes / (tree.total_length * max(model.k - 1, 1))
+    k_obs = len(model.observed_states)
+    X = np.asarray(tip_partials)
+    if X.shape[1] != k_obs:          # a hidden-class model's combined states: back to observed
+        X = model.collapse(X)
+    changes = max(fitch_score(tree, X), 1)
+    return changes / (tree.total_length * max(k_obs - 1, 1))
 
 
 def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
@@ -152,7 +157,9 @@ def start_sequence(tree, tip_partials, model, seed: int = 0, lower: float = LOWE
 
     def starts():
         rng = np.random.default_rng(seed)
-        yield np.full(p, guess)
+        # hidden classes: the first start spreads the classes apart (all classes equal is a
+        # saddle that the optimiser would not leave)
+        yield np.clip(spread_classes(model, np.full(p, guess)), lo, hi)
         while True:
             yield np.clip(guess + rng.normal(0.0, 1.5, p), lo + 1.0, hi - 1.0)
 
@@ -172,7 +179,11 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
 
     Runs the seeded starts in order: at least ``n_starts``; after that it stops
     as soon as the two best starts so far agree within AGREE_TOL, or when
-    ``max_starts`` (raised to ``n_starts`` if lower) have run."""
+    ``max_starts`` (raised to ``n_starts`` if lower) have run.
+
+    tip_partials are over the observed states (or already over a hidden-class
+    model's combined states); the classes of a hidden-class model come back
+    numbered slowest first (mkforest.engine.hidden)."""
     f = LogLikelihood(tree, tip_partials, model, root)
     p = model.n_params
     if p == 0:
@@ -210,6 +221,8 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
         notes.append(f"only 1 of {run} starts reached the best log-likelihood")
     if np.isfinite(ll):
         best_x, ll = _settle_at_bounds(f, best_x, ll, lo, hi)
+    # hidden rate classes: number the classes slowest first (same ln L, same meaning on every tree)
+    best_x = best_x[relabel_classes(model, np.exp(best_x))]
     at_lower = tuple(model.labels[i] for i in range(p) if best_x[i] == lo)
     at_upper = tuple(model.labels[i] for i in range(p) if best_x[i] == hi)
     rates = np.exp(best_x)

@@ -308,15 +308,24 @@ def root_weights(root, Q, root_partial, states=None) -> np.ndarray:
         total = root_partial.sum()
         return root_partial / total if total > 0 else np.full(k, 1.0 / k)
     w = np.zeros(k)
-    w[_root_state_index(root, states, k)] = 1.0
+    at = _root_state_index(root, states, k)
+    w[at] = 1.0 / len(at)
     return w
 
 
-def _root_state_index(root, states, k) -> int:
+def _root_state_index(root, states, k) -> list:
+    """Indices of the fixed root state: the state itself, or with hidden rate classes
+    every combined state 'root@c' of that observed state (equal weights 1/R; the
+    root's class is not fixed)."""
     if states is not None and root in states:
-        return list(states).index(root)
+        return [list(states).index(root)]
+    if states is not None and isinstance(root, str):
+        at = [i for i, s in enumerate(states)
+              if s.rpartition("@")[0] == root and s.rpartition("@")[2].isdigit()]
+        if at:
+            return at
     if isinstance(root, (int, np.integer)) and 0 <= root < k:
-        return int(root)
+        return [int(root)]
     shown = f" or one of the states ({', '.join(states)})" if states is not None else ""
     raise InputError(f"root treatment '{root}' is not known: use uniform, stationary, data_weighted{shown}.")
 

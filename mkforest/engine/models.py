@@ -34,7 +34,14 @@ FIXED = -2
 
 @dataclass(frozen=True, eq=False)
 class RateModel:
-    """rate_index int64 [k,k]: >= 0 parameter number, -1 forbidden, -2 fixed (value in ``fixed``)."""
+    """rate_index int64 [k,k]: >= 0 parameter number, -1 forbidden, -2 fixed (value in ``fixed``).
+
+    A model with hidden rate classes (``n_classes`` R > 1, built by
+    ``mkforest.engine.hidden``) is the same table on its k_obs * R combined states
+    ``state@class``, numbered class-major (combined index = class * k_obs + state);
+    ``observed`` holds the k_obs observed state labels. A plain model has
+    n_classes 1 and its own states as the observed ones.
+    """
 
     name: str
     kind: str
@@ -42,10 +49,41 @@ class RateModel:
     rate_index: np.ndarray
     fixed: np.ndarray
     labels: tuple
+    n_classes: int = 1
+    observed: tuple = ()
+    class_switch: str = ""
 
     @property
     def k(self) -> int:
         return len(self.states)
+
+    @property
+    def observed_states(self) -> tuple:
+        """The trait's own state labels (the combined states without their class)."""
+        return self.observed or self.states
+
+    def expand_tips(self, tip_partials) -> np.ndarray:
+        """Tip partials over the model's states from tip partials over the observed states:
+        a tip possible in state s is possible in every class of s (class unknown)."""
+        X = np.asarray(tip_partials, dtype=np.float64)
+        k_obs = len(self.observed_states)
+        if X.shape[-1] == self.k:
+            return X
+        if X.shape[-1] != k_obs:
+            raise ValueError(f"model '{self.name}': tip partials have {X.shape[-1]} states, "
+                             f"expected {k_obs}")
+        return np.tile(X, (1,) * (X.ndim - 1) + (self.n_classes,))
+
+    def collapse(self, x, axis: int = -1) -> np.ndarray:
+        """Sum an array over the classes of each observed state along ``axis``
+        (probabilities of combined states -> of observed states)."""
+        x = np.asarray(x)
+        if self.n_classes == 1:
+            return x
+        x = np.moveaxis(x, axis, -1)
+        k_obs = len(self.observed_states)
+        out = x.reshape(x.shape[:-1] + (self.n_classes, k_obs)).sum(axis=-2)
+        return np.moveaxis(out, -1, axis)
 
     @property
     def n_params(self) -> int:

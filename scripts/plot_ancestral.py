@@ -26,6 +26,14 @@ def main(smk):
                                          traits.get(analysis), analysis)
         plots_ancestral.save(fig, [p for p in out.trees if Path(p).stem == f"ancestral_tree_{analysis}"])
     plots_ancestral.save(plots_ancestral.change_counts(per_tree), [out.changes_png, out.changes_svg])
+    classes = pd.read_csv(smk.input.classes, sep="\t", dtype={"state": str, "clade": str},
+                          keep_default_na=False, na_values=[""])
+    for analysis, models in smk.params.hidden.items():
+        for model in models:
+            rows = classes[(classes["analysis"] == analysis) & (classes["model"] == model)]
+            fig = plots_ancestral.class_tree(tree, rows, clades, analysis, model)
+            plots_ancestral.save(fig, [p for p in out.class_trees
+                                       if Path(p).stem == f"class_tree_{analysis}_{model}"])
 
 
 run_job(snakemake, main)  # noqa: F821

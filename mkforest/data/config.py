@@ -20,6 +20,18 @@ SAFE_NAME = re.compile(r"^[A-Za-z0-9_.-]+$")
 BUILTIN_KINDS = ("equal", "symmetric", "unconstrained")
 
 
+MAX_CLASSES = 4
+
+
+def check_classes(n_classes, where: str) -> int:
+    """Hidden rate classes R as an int in 1..MAX_CLASSES, or an InputError naming ``where``."""
+    if isinstance(n_classes, bool) or not isinstance(n_classes, int) \
+            or not 1 <= n_classes <= MAX_CLASSES:
+        raise InputError(f"{where}: hidden_classes is {n_classes!r}; use a whole number from 1 "
+                         f"(no hidden classes) to {MAX_CLASSES}.")
+    return n_classes
+
+
 def _fill_defaults(schema: dict, value):
     """Fill defaults from a JSON schema, recursively into objects that exist."""
     if not isinstance(value, dict) or schema.get("type") != "object":
@@ -93,6 +105,7 @@ def check_names(config: dict, source: str = "config") -> None:
                 raise InputError(f"{source}: models.{name}: a custom model needs 'transitions'.")
         elif "transitions" in model:
             raise InputError(f"{source}: models.{name}: 'transitions' only goes with kind: custom.")
+        check_classes(model.get("hidden_classes", 1), f"{source}: models.{name}")
         for t in model.get("applies_to", []):
             if t not in traits:
                 raise InputError(f"{source}: models.{name}.applies_to names trait '{t}', which is "
@@ -107,6 +120,7 @@ def check_names(config: dict, source: str = "config") -> None:
             if t not in traits:
                 raise InputError(f"{source}: pairs.{name}.traits names '{t}', which is not in "
                                  f"traits.columns ({', '.join(traits)}).")
+        check_classes(pair.get("hidden_classes", 1), f"{source}: pairs.{name}")
         if pair["traits"][0] == pair["traits"][1]:
             raise InputError(f"{source}: pairs.{name}: the two traits must differ.")
         for h in list(pair.get("hypotheses", [])) + list(pair.get("custom", {})):
@@ -155,6 +169,20 @@ def analyses(config: dict) -> dict:
     for p in config.get("pairs", {}):
         out[p] = pair_models(config, p)
     return {a: m for a, m in out.items() if m}
+
+
+def hidden_class_models(config: dict) -> dict:
+    """{analysis: [model names with hidden rate classes (hidden_classes > 1)]}, only
+    analyses that have such a model."""
+    out = {}
+    for analysis, names in analyses(config).items():
+        if analysis in config["traits"]["columns"]:
+            hid = [m for m in names if config["models"][m].get("hidden_classes", 1) > 1]
+        else:
+            hid = names if config["pairs"][analysis].get("hidden_classes", 1) > 1 else []
+        if hid:
+            out[analysis] = hid
+    return out
 
 
 def fit_job_config(config: dict, analysis: str, model: str) -> dict:

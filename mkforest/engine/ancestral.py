@@ -168,20 +168,33 @@ def marginal_probabilities(tree, tip_partials, Q, root="uniform", states=None) -
     return passes(tree, tip_partials, Q, root, states).marginals()
 
 
+def observed_marginals(tree, tip_partials, Q, root, model) -> np.ndarray:
+    """Marginal probabilities of the observed states under ``model`` (a RateModel):
+    with hidden rate classes, computed on the combined states from tip partials
+    repeated over the classes, then summed over the classes of each state."""
+    combined = marginal_probabilities(tree, model.expand_tips(tip_partials), Q, root, model.states)
+    return model.collapse(combined)
+
+
 def averaged_probabilities(tree, tip_partials, fits, states=None) -> np.ndarray:
     """Model-averaged marginal probabilities: sum_m w_m Pr_m(x_v = i | data) / sum_m w_m.
 
     fits: iterable of (Q, root, weight), e.g. one per model with its Akaike
-    weight on this tree. Models with weight 0 (or not finite) are skipped;
+    weight on this tree, or (Q, root, weight, RateModel) where a model may have
+    hidden rate classes (its probabilities are summed over the classes of each
+    observed state). Models with weight 0 (or not finite) are skipped;
     models under which the data are impossible must have weight 0.
     """
     total = None
     wsum = 0.0
-    for Q, root, weight in fits:
+    for Q, root, weight, *model in fits:
         weight = float(weight)
         if not np.isfinite(weight) or weight <= 0.0:
             continue
-        m = marginal_probabilities(tree, tip_partials, Q, root, states)
+        if model:
+            m = observed_marginals(tree, tip_partials, Q, root, model[0])
+        else:
+            m = marginal_probabilities(tree, tip_partials, Q, root, states)
         total = m * weight if total is None else total + m * weight
         wsum += weight
     if total is None:

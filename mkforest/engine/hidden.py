@@ -29,10 +29,11 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..data.config import check_classes
 from ..errors import InputError
-from .models import FIXED, FREE_FORBIDDEN, RateModel
+from .models import _ARROW, FIXED, FREE_FORBIDDEN, RateModel
 
-MAX_CLASSES = 4
+MAX_COMBINED_STATES = 32
 CLASS_SEPARATOR = "@"
 SWITCH_KINDS = ("equal", "symmetric", "unconstrained")
 
@@ -42,15 +43,6 @@ def combined_label(state: str, cls: int) -> str:
     return f"{state}{CLASS_SEPARATOR}{cls}"
 
 
-def check_classes(n_classes, where: str) -> int:
-    """R as an int in 1..MAX_CLASSES, or an InputError naming ``where``."""
-    if isinstance(n_classes, bool) or not isinstance(n_classes, (int, np.integer)) \
-            or not 1 <= int(n_classes) <= MAX_CLASSES:
-        raise InputError(f"{where}: hidden_classes is {n_classes!r}; use a whole number from 1 "
-                         f"(no hidden classes) to {MAX_CLASSES}.")
-    return int(n_classes)
-
-
 def check_switch(class_switch, where: str) -> str:
     if class_switch not in SWITCH_KINDS:
         raise InputError(f"{where}: class_switch is {class_switch!r}; use one of "
@@ -58,14 +50,18 @@ def check_switch(class_switch, where: str) -> str:
     return class_switch
 
 
-def check_no_class_in_transitions(transitions, where: str) -> None:
-    """A custom model's transitions name observed states only; the classes are added for it."""
+def check_no_class_in_transitions(transitions, states, where: str) -> None:
+    """A custom model's transitions name observed states only (InputError naming the model
+    when one names a combined state such as 'rock@2'): the classes are added for it."""
     for key in dict(transitions or {}):
-        if CLASS_SEPARATOR in str(key):
-            raise InputError(
-                f"{where}: transition '{key}' names a hidden class ('{CLASS_SEPARATOR}'); list "
-                "transitions between observed states only: with hidden_classes every class gets "
-                "the same structure with its own rates, and class_switch sets how classes change.")
+        for name in _ARROW.split(str(key).strip())[0::2]:
+            state, sep, cls = name.rpartition(CLASS_SEPARATOR)
+            if name not in states and sep and cls.isdigit() and state in states:
+                raise InputError(
+                    f"{where}: transition '{key}' names hidden class {cls} ('{name}'); list "
+                    "transitions between observed states only: with hidden_classes every class "
+                    "gets the same structure with its own rates, and class_switch sets how "
+                    "lineages change class.")
 
 
 def with_hidden_classes(base: RateModel, n_classes: int, class_switch: str = "equal",

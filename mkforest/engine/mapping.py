@@ -281,7 +281,10 @@ def mixed_stochastic_maps(tree, tip_partials, fits, n_maps: int, rng, states=Non
     """Maps under a mixture of models: each map's model is drawn with probability
     proportional to its weight (e.g. Akaike weights), then the map under it.
 
-    fits: list of (Q, root, weight). ``MapSet.model`` holds each map's index in fits.
+    fits: list of (Q, root, weight) or (Q, root, weight, RateModel). ``MapSet.model`` holds
+    each map's index in fits. A model with hidden rate classes is mapped on its combined
+    states and the maps are reported over the observed states: changes of state within a
+    class are counted (class switches are not), time is summed over the classes.
     """
     fits = list(fits)
     w = np.array([float(f[2]) for f in fits])
@@ -290,16 +293,31 @@ def mixed_stochastic_maps(tree, tip_partials, fits, n_maps: int, rng, states=Non
         raise ValueError("mapping under a mixture needs at least one model with a positive weight")
     per_model = rng.multinomial(n_maps, w / w.sum())
     parts = []
-    for i, ((Q, root, _), n) in enumerate(zip(fits, per_model)):
+    for i, ((Q, root, _, *model), n) in enumerate(zip(fits, per_model)):
         if n == 0:
             continue
-        ms = stochastic_maps(tree, tip_partials, Q, int(n), rng, root, states)
+        if model and model[0].n_classes > 1:
+            ms = observed_maps(stochastic_maps(tree, model[0].expand_tips(tip_partials), Q, int(n),
+                                               rng, root, model[0].states), model[0])
+        else:
+            ms = stochastic_maps(tree, tip_partials, Q, int(n), rng, root, states)
         ms.model[:] = i
         parts.append(ms)
     return MapSet(np.concatenate([p.counts for p in parts]),
                   np.concatenate([p.dwell for p in parts]),
                   np.concatenate([p.node_states for p in parts]),
                   np.concatenate([p.model for p in parts]))
+
+
+def observed_maps(ms: MapSet, model) -> MapSet:
+    """Maps on a hidden-class model's combined states (class-major, k observed states x R
+    classes) seen over the observed states: s@c -> s'@c counts as s -> s', a switch
+    s@c -> s@d is not a change of state; time in s is the time in every s@c."""
+    k, R = len(model.observed_states), model.n_classes
+    n = ms.counts.shape[0]
+    counts = ms.counts.reshape(n, R, k, R, k).sum(axis=(1, 3))
+    counts[:, np.arange(k), np.arange(k)] = 0
+    return MapSet(counts, model.collapse(ms.dwell), ms.node_states % k, ms.model)
 
 
 def summarise(counts, dwell, states, quantiles=(0.025, 0.975)) -> dict:

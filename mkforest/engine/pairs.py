@@ -59,11 +59,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..data.config import check_classes
 from ..data.traits import Trait
 from ..errors import InputError
 from ..seeds import derive_seed
 from .fitting import LOWER, UPPER, fit_model
 from .likelihood import check_root, prune, root_weights
+from .hidden import MAX_COMBINED_STATES, check_no_class_in_transitions, with_hidden_classes
 from .models import FIXED, FREE_FORBIDDEN, RateModel, build_model, parse_transition
 from .simulate import simulate_states
 
@@ -229,6 +231,7 @@ def custom_hypothesis(pair: TraitPair, name: str, transitions) -> RateModel:
     cleaned = {}
     for key, value in transitions.items():
         key_text = _PLUS.sub(JOINT_SEPARATOR, str(key).strip())
+        check_no_class_in_transitions({key_text: value}, states, where)
         for i, j in parse_transition(key_text, states, where):
             (a1, a2), (b1, b2) = pair.split(i), pair.split(j)
             if a1 != b1 and a2 != b2:
@@ -271,6 +274,12 @@ def pair_models(name: str, spec: dict, pair: TraitPair, where: str = "config") -
     at = f"{where}: pairs.{name}"
     custom = spec.get("custom") or {}
     root = _check_root(spec.get("root", "uniform"), pair, at)
+    n_classes = check_hidden_pair(pair, spec.get("hidden_classes", 1), at)
+    switch = spec.get("class_switch", "equal")
+
+    def classes(model):
+        return with_hidden_classes(model, n_classes, switch, model.name)
+
     models = {}
     for h in list(spec.get("hypotheses") or ["independent", "dependent"]):
         if h in custom:
@@ -280,13 +289,26 @@ def pair_models(name: str, spec: dict, pair: TraitPair, where: str = "config") -
         if h not in HYPOTHESES:
             raise InputError(f"{at}.hypotheses: '{h}' is neither a built-in hypothesis "
                              f"({', '.join(HYPOTHESES)}) nor described under {at}.custom.")
-        models[h] = (hypothesis_model(pair, h), root)
+        models[h] = (classes(hypothesis_model(pair, h)), root)
     for h, body in custom.items():
         if not isinstance(body, dict) or "transitions" not in body:
             raise InputError(f"{at}.custom.{h} needs a 'transitions' mapping.")
         h_root = _check_root(body.get("root", root), pair, f"{at}.custom.{h}")
-        models[h] = (custom_hypothesis(pair, h, body["transitions"]), h_root)
+        models[h] = (classes(custom_hypothesis(pair, h, body["transitions"])), h_root)
     return models
+
+
+def check_hidden_pair(pair: TraitPair, n_classes, at: str) -> int:
+    """Hidden classes of a pair: R in 1..4 and at most MAX_COMBINED_STATES combined states."""
+    R = check_classes(n_classes, at)
+    n = pair.k1 * pair.k2 * R
+    if n > MAX_COMBINED_STATES:
+        raise InputError(
+            f"{at}.hidden_classes is {R}: traits '{pair.first.name}' ({pair.k1} states) and "
+            f"'{pair.second.name}' ({pair.k2} states) make {pair.k1 * pair.k2} joint states, "
+            f"{n} with {R} classes; at most {MAX_COMBINED_STATES} combined states are supported. "
+            "Use fewer classes or merge states of one trait.")
+    return R
 
 
 def pair_analysis(name: str, spec: dict, traits: dict, where: str = "config") -> tuple:
@@ -412,6 +434,8 @@ def _simulation_root(null: RateModel, q, root, tree, tip_partials):
     if root in ("uniform", "stationary"):
         return None, root_weights(root, q, np.ones(null.k))
     w = root_weights(root, q, np.ones(null.k), null.states)
+    if np.count_nonzero(w) > 1:      # a fixed observed state with hidden classes: draw the class
+        return None, w
     return int(np.argmax(w)), None
 
 
@@ -457,16 +481,18 @@ def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel,
     "bootstrap", null.name, alt.name, r), so its value does not depend on which
     other replicates are run, in which order or in which job.
     """
-    tip_partials = pair.joint_trait().tip_partials(tree, absent="missing")
+    tip_partials = null.expand_tips(pair.joint_trait().tip_partials(tree, absent="missing"))
     q = null.q_matrix(null_rates)
     root_state, weights = _simulation_root(null, q, root, tree, tip_partials)
     masks = pair.missing_masks(tree)
+    n_joint = pair.k1 * pair.k2
     out = []
     for r in replicates:
         s = derive_seed(seed, tree.index, pair.name, "bootstrap", null.name, alt.name, int(r))
         rng = np.random.default_rng(s)
         states = simulate_states(tree, q, rng, root_state=root_state, root_weights=weights)
-        sim = simulate_pair_partials(pair, tree, states, masks)
+        # hidden classes: the tips show the joint state only (combined index = class * n + joint)
+        sim = simulate_pair_partials(pair, tree, states % n_joint, masks)
         stat, _, _ = lr_statistic(tree, sim, null, alt, root, n_starts, s, lower, upper)
         out.append(stat)
     return np.asarray(out, dtype=float)

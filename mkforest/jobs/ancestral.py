@@ -38,7 +38,7 @@ from ..data.clades import (
     node_masks,
     taxon_bits,
 )
-from ..engine.ancestral import ImpossibleData, averaged_probabilities
+from ..engine.ancestral import ImpossibleData, averaged_probabilities, marginal_probabilities
 from ..engine.compare import akaike_weights
 from ..engine.mapping import mixed_stochastic_maps
 from ..errors import InputError
@@ -167,6 +167,11 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
     at_bound = np.zeros(n_trees)
     skipped = np.zeros(n_trees, dtype=bool)
 
+    # models with hidden rate classes: probabilities of every combined state state@class at
+    # each clade under that model alone (the classes of different models do not match up)
+    hidden = [n for n in names if models[n][0].n_classes > 1]
+    combined = {n: np.full((n_trees, n_clades, models[n][0].k), np.nan) for n in hidden}
+
     fit_by = {(r["model"], int(r["tree"])): r for r in fits.to_dict("records")}
     rate_groups = {key: g for key, g in rates.groupby(["model", "tree"])}
     bits = taxon_bits(trees[0].tip_labels) if trees else {}
@@ -184,7 +189,9 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
                                  f"{tree.index} in this chunk; rerun the fit jobs.")
             crit.append(float(row[criterion]) if pd.notna(row[criterion]) else np.inf)
             g = rate_groups.get((name, tree.index))
-            Qs.append(q_from_rate_rows(g, states) if g is not None else np.zeros((k, k)))
+            mstates = models[name][0].states
+            Qs.append(q_from_rate_rows(g, mstates) if g is not None
+                      else np.zeros((len(mstates), len(mstates))))
             roots.append(models[name][1])
             conv.append(str(row["converged"]).lower() == "true")
             # a rate at the lower bound is a change the data do not support (rate ~ 0), which
@@ -197,7 +204,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
         weights[t] = w
         unconverged[t] = float(sum(wi for wi, c in zip(w, conv) if not c))
         at_bound[t] = float(sum(wi for wi, b in zip(w, bound) if b))
-        mix = [(Q, r, wi) for Q, r, wi in zip(Qs, roots, w)]
+        mix = [(Q, r, wi, models[name][0]) for Q, r, wi, name in zip(Qs, roots, w, names)]
         try:
             p = averaged_probabilities(tree, X, mix, states)
         except (ImpossibleData, ValueError):
@@ -205,17 +212,28 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             continue
         nm = node_masks(tree, bits)
         where = {m: v for v, m in enumerate(nm)}
+        per_model = {}
+        for name in hidden:
+            i = names.index(name)
+            if not np.isfinite(crit[i]):
+                continue
+            try:
+                per_model[name] = marginal_probabilities(tree, models[name][0].expand_tips(X),
+                                                         Qs[i], roots[i], models[name][0].states)
+            except ImpossibleData:
+                continue
         for c in range(n_clades):
             if exact[c]:  # a node of the summary tree: used only where the tree has it
                 v = where.get(masks[c])
                 if v is None:
                     continue
-                prob[t, c] = p[v]
                 extra[t, c] = 0
             else:  # a named clade: its MRCA, present in every tree
                 v, n_extra = find_mrca(tree, members[c])
-                prob[t, c] = p[v]
                 extra[t, c] = n_extra
+            prob[t, c] = p[v]
+            for name, pm in per_model.items():
+                combined[name][t, c] = pm[v]
         if n_maps > 0:
             rng = np.random.default_rng(derive_seed(seed, tree.index, analysis, "map"))
             ms = mixed_stochastic_maps(tree, X, mix, n_maps, rng, states)
@@ -227,7 +245,9 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
                 unconverged_weight=unconverged, bound_weight=at_bound, skipped=skipped,
                 states=np.array(json.dumps(list(states))), models=np.array(json.dumps(names)),
                 clades=np.array(json.dumps(list(clades["clade"]))),
-                choice=np.array(choice_used), choice_note=np.array(choice_note))
+                choice=np.array(choice_used), choice_note=np.array(choice_note),
+                hidden_models=np.array(json.dumps({n: list(models[n][0].states) for n in hidden})),
+                **{f"combined::{n}": combined[n] for n in hidden})
 
 
 # --------------------------------------------------------------------------- 3. across chunks
@@ -245,6 +265,7 @@ def load_chunks(paths) -> dict:
             out[key] = np.concatenate([p[key] for p in parts])
     for key in ("states", "models", "clades"):
         out[key] = json.loads(out[key])
+    out["hidden_models"] = json.loads(out["hidden_models"]) if "hidden_models" in out else {}
     return out
 
 
@@ -361,3 +382,44 @@ def transition_tables(analysis: str, data: dict, n_total: int) -> tuple:
                           mean_fraction=float(frac[:, i].mean()) if len(x) else np.nan,
                           caution=caution))
     return pd.DataFrame(trows), pd.DataFrame(drows), pd.DataFrame(per_tree)
+
+
+CLASS_COLUMNS = ["analysis", "model", "clade", "clade_kind", "clade_frequency", "n_trees", "class",
+                 "state", "mean_probability", "probability_low95", "probability_high95", "caution"]
+
+
+def class_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -> pd.DataFrame:
+    """ancestral_classes rows of one analysis: for every model with hidden rate classes,
+    one row per clade x class (``state`` empty: the class whatever the state) and one per
+    clade x combined state ``state@class`` (``state`` set), each the mean probability
+    across the trees that contain the clade under that model alone, with the central 95%
+    interval. Classes are numbered slowest first on every tree (mkforest.engine.hidden)."""
+    rows = []
+    common = _common_cautions(data, n_total)
+    for model, combined_states in data.get("hidden_models", {}).items():
+        arr = data[f"combined::{model}"]                 # [trees, clades, K]
+        cls = [int(c.rpartition("@")[2]) for c in combined_states]
+        R = max(cls)
+        for c, crow in enumerate(clades.to_dict("records")):
+            p = arr[:, c]
+            p = p[np.isfinite(p[:, 0])]
+            n = len(p)
+            notes = ([] if n >= FEW_TREES or n == 0 else [f"only {n} trees contribute"]) + common
+            if n == 0:
+                notes.insert(0, "absent from every tree analysed, or the model was not fitted")
+            caution = "; ".join(notes)
+            base = dict(analysis=analysis, model=model, clade=crow["clade"],
+                        clade_kind=crow["kind"], clade_frequency=crow["frequency"], n_trees=n)
+            for r in range(1, R + 1):
+                x = p[:, [i for i, q in enumerate(cls) if q == r]].sum(axis=1) if n else np.array([])
+                rows.append(dict(base, **{"class": r}, state="",
+                                 mean_probability=float(x.mean()) if n else np.nan,
+                                 probability_low95=_q(x, 0.025), probability_high95=_q(x, 0.975),
+                                 caution=caution))
+            for i, label in enumerate(combined_states):
+                x = p[:, i] if n else np.array([])
+                rows.append(dict(base, **{"class": cls[i]}, state=label,
+                                 mean_probability=float(x.mean()) if n else np.nan,
+                                 probability_low95=_q(x, 0.025), probability_high95=_q(x, 0.975),
+                                 caution=caution))
+    return pd.DataFrame(rows, columns=CLASS_COLUMNS)

@@ -7,6 +7,7 @@ import numpy as np
 from ..engine.compare import information_criteria
 from ..engine.fitting import fit_model
 from ..engine.likelihood import check_root
+from ..engine.hidden import check_no_class_in_transitions, with_hidden_classes
 from ..engine.models import build_model
 from ..errors import InputError
 from ..seeds import derive_seed
@@ -27,7 +28,11 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
         for name in trait_models(config, analysis):
             spec = config["models"][name]
             try:
+                check_no_class_in_transitions(spec.get("transitions"), trait.states,
+                                              f"model '{name}'")
                 model = build_model(spec["kind"], trait.states, spec.get("transitions"), name)
+                model = with_hidden_classes(model, spec.get("hidden_classes", 1),
+                                            spec.get("class_switch", "equal"), name)
             except InputError as exc:
                 raise InputError(f"trait '{analysis}': {exc}") from None
             root = check_root(spec.get("root", "uniform"), trait.states, f"models.{name}",

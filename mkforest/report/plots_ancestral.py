@@ -48,14 +48,16 @@ def _layout(tree):
     return x, y, kids
 
 
-def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, analysis: str = ""):
+def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, analysis: str = "",
+               colours: dict | None = None, title: str | None = None, legend_title: str = "state"):
     """Summary tree with mean ancestral state probabilities at its nodes.
 
     states: ancestral_states rows of one analysis; clades: the clade table
     (members, clade, frequency); trait: the Trait, to mark tip states (optional).
+    colours, title, legend_title: for other categories drawn the same way (hidden classes).
     """
     labels = list(dict.fromkeys(states["state"].astype(str)))
-    colours = state_colours(labels)
+    colours = colours or state_colours(labels)
     x, y, kids = _layout(tree)
     span = max(float(x.max()), 1e-12)
     n = tree.n_tips
@@ -121,7 +123,7 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
         handles.append(Patch(facecolor="white", edgecolor="black", label="tip: several states possible"))
     handles.append(Line2D([], [], ls="none", marker="$0.9$", color=SUPPORT_COLOUR, markersize=12,
                           label="clade frequency in the tree sample"))
-    ax.legend(handles=handles, title="state", loc="upper left", bbox_to_anchor=(1.0, 1.0),
+    ax.legend(handles=handles, title=legend_title, loc="upper left", bbox_to_anchor=(1.0, 1.0),
               frameon=False, fontsize=8, title_fontsize=9)
     ax.set_ylim(n - 0.4, -0.8)
     ax.set_xlim(-0.08 * span, 1.35 * span)
@@ -130,11 +132,38 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
         ax.spines[side].set_visible(False)
     n_trees = int(states["n_trees"].max()) if len(states) else 0
     ax.set_xlabel("distance from the root (branch length units)")
-    ax.set_title(f"Ancestral states of '{analysis}': mean probability across trees "
+    ax.set_title(title or f"Ancestral states of '{analysis}': mean probability across trees "
                  f"(up to {n_trees} trees)", fontsize=10)
     fig.tight_layout()
     fig.mkforest_nodes_drawn = n_drawn  # for tests: how many node bars carry probabilities
     return fig
+
+
+CLASS_PALETTE = "coolwarm"   # blue = slow, red = fast
+
+
+def class_label(cls: int, n_classes: int) -> str:
+    if cls == 1:
+        return "class 1 (slowest)"
+    return f"class {cls} (fastest)" if cls == n_classes else f"class {cls}"
+
+
+def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str, model: str):
+    """Summary tree with the mean probability of each hidden rate class at its nodes
+    (blue = slow, red = fast), so the clades that sit in the fast class stand out.
+
+    classes: ancestral_classes rows of one analysis and model (the per-class rows,
+    ``state`` empty, are drawn; the combined-state rows are left to the table)."""
+    rows = classes[classes["state"].isna() | (classes["state"].astype(str) == "")].copy()
+    n_classes = int(rows["class"].max()) if len(rows) else 1
+    rows["state"] = [class_label(int(c), n_classes) for c in rows["class"]]
+    labels = [class_label(c, n_classes) for c in range(1, n_classes + 1)]
+    colours = dict(zip(labels, sns.color_palette(CLASS_PALETTE, n_colors=n_classes)))
+    n_trees = int(rows["n_trees"].max()) if len(rows) else 0
+    return state_tree(tree, rows, clades, None, analysis, colours=colours,
+                      title=f"Hidden rate classes of '{analysis}' under model '{model}': mean "
+                            f"probability across trees (up to {n_trees} trees)",
+                      legend_title="rate class")
 
 
 def change_counts(per_tree: pd.DataFrame):

@@ -76,6 +76,11 @@ rule ancestral_summary:
             caption="../report/transitions_per_tree.rst",
             category="Ancestral states",
         ),
+        classes=report(
+            f"{OUT}/tables/ancestral_classes.tsv",
+            caption="../report/ancestral_classes.rst",
+            category="Ancestral states",
+        ),
     params:
         analyses=list(ANALYSES),
     log:
@@ -91,12 +96,17 @@ rule plot_ancestral:
         states=f"{OUT}/tables/ancestral_states.tsv",
         clades=f"{OUT}/tables/clades.tsv",
         per_tree=f"{OUT}/tables/transitions_per_tree.tsv",
+        classes=f"{OUT}/tables/ancestral_classes.tsv",
         tree=f"{OUT}/ancestral/summary_tree.nwk",
         traits=f"{OUT}/prepared/traits.json",
     output:
         trees=[
             report(p, caption="../report/ancestral_tree.rst", category="Ancestral states")
             for p in ANCESTRAL_TREE_PLOTS
+        ],
+        class_trees=[
+            report(p, caption="../report/class_tree.rst", category="Ancestral states")
+            for p in CLASS_TREE_PLOTS
         ],
         changes_png=report(
             f"{OUT}/plots/changes.png",
@@ -110,6 +120,7 @@ rule plot_ancestral:
         ),
     params:
         analyses=list(ANALYSES),
+        hidden=HIDDEN_CLASS_MODELS,
     log:
         f"{OUT}/logs/plot_ancestral.log",
     conda:

@@ -39,6 +39,16 @@ ANCESTRAL_TREE_PLOTS = [
 ]
 
 
+# {analysis: [models with hidden rate classes]}: one class tree per analysis x such model
+HIDDEN_CLASS_MODELS = hidden_class_models(config)
+CLASS_TREE_PLOTS = [
+    f"{OUT}/plots/class_tree_{a}_{m}.{ext}"
+    for a, ms in HIDDEN_CLASS_MODELS.items()
+    for m in ms
+    for ext in ("png", "svg")
+]
+
+
 def ancestral_targets(wildcards):
     if not ANC["enabled"]:
         return []
@@ -47,9 +57,10 @@ def ancestral_targets(wildcards):
         f"{OUT}/tables/transitions.tsv",
         f"{OUT}/tables/state_times.tsv",
         f"{OUT}/tables/clades.tsv",
+        f"{OUT}/tables/ancestral_classes.tsv",
         f"{OUT}/plots/changes.png",
         f"{OUT}/plots/changes.svg",
-    ] + ANCESTRAL_TREE_PLOTS
+    ] + ANCESTRAL_TREE_PLOTS + CLASS_TREE_PLOTS
 
 
 TARGET_FUNCTIONS.append(ancestral_targets)

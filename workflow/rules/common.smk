@@ -2,7 +2,7 @@
 import glob
 import os
 
-from mkforest.data.config import analyses, fit_job_config, validate_config
+from mkforest.data.config import analyses, fit_job_config, hidden_class_models, validate_config
 from mkforest.jobs.fit import check_models_against_table
 from mkforest.errors import InputError
 

@@ -108,6 +108,22 @@ _ALL = [
                                   ("Bollback", "J. P.")), 2003,
               "Stochastic mapping of morphological characters", "Systematic Biology", 52,
               (131, 158)),
+    Reference("beaulieu2013", (("Beaulieu", "J. M."), ("O'Meara", "B. C."), ("Donoghue", "M. J.")),
+              2013, "Identifying hidden rate changes in the evolution of a binary morphological "
+              "character: the evolution of plant habit in campanulid angiosperms",
+              "Systematic Biology", 62, (725, 737)),
+    Reference("tuffley1998", (("Tuffley", "C."), ("Steel", "M.")), 1998,
+              "Modeling the covarion hypothesis of nucleotide substitution",
+              "Mathematical Biosciences", 147, (63, 91)),
+    Reference("galtier2001", (("Galtier", "N."),), 2001,
+              "Maximum-likelihood phylogenetic analysis under a covarion-like model",
+              "Molecular Biology and Evolution", 18, (866, 873)),
+    Reference("maddison2015", (("Maddison", "W. P."), ("FitzJohn", "R. G.")), 2015,
+              "The unsolved challenge to phylogenetic correlation tests for categorical "
+              "characters", "Systematic Biology", 64, (127, 136)),
+    Reference("boyko2021", (("Boyko", "J. D."), ("Beaulieu", "J. M.")), 2021,
+              "Generalized hidden Markov models for phylogenetic comparative datasets",
+              "Methods in Ecology and Evolution", 12, (468, 478)),
     Reference("margush1981", (("Margush", "T."), ("McMorris", "F. R.")), 1981, "Consensus n-trees",
               "Bulletin of Mathematical Biology", 43, (239, 244)),
 ]

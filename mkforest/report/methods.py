@@ -100,9 +100,32 @@ def describe_model(model, pair_traits=None) -> str:
         }[model.kind]
     elif model.kind in KIND_WORDS:
         words = KIND_WORDS[model.kind]
+    elif model.n_classes > 1:
+        words = f"only the changes listed are allowed ({_first_class(model)})"
     else:
         words = f"only the changes listed are allowed ({model.describe()})"
+    if model.n_classes > 1:
+        switch = {"equal": "one rate for every switch", "symmetric": "a shared rate in each "
+                  "direction between two classes", "unconstrained": "a rate of its own for "
+                  "every switch"}[model.class_switch]
+        words += (f", in each of {model.n_classes} hidden rate classes, each with rates of its own; "
+                  f"lineages switch class without changing state ({switch}) "
+                  + cite("beaulieu2013", "tuffley1998", "galtier2001"))
     return f"{words} ({plural(model.n_params, 'rate')})"
+
+
+def _first_class(model) -> str:
+    """describe() of a hidden-class model's first class, without the class marks: every
+    class has the same structure."""
+    parts = []
+    for part in model.describe().split("; "):
+        label, _, body = part.partition(": ")
+        if label.endswith("@1"):
+            parts.append(f"{label[:-2]}: {body.replace('@1', '')}")
+        elif label == "fixed":
+            parts.append("fixed: " + ", ".join(x.replace("@1", "") for x in body.split(", ")
+                                               if "@1" in x.split("=")[0]))
+    return "; ".join(parts)
 
 
 def root_words(root: str) -> str:
@@ -264,6 +287,11 @@ def _pairs_paragraph(config, pair_summary) -> str:
             "compared on each tree by likelihood-ratio tests, referring twice the difference in "
             "log-likelihood to a chi-square distribution with as many degrees of freedom as the "
             "alternative has extra rates.")
+    hidden = [p for p, spec in pairs.items() if spec.get("hidden_classes", 1) > 1]
+    if hidden:
+        text += (f" For {listing(hidden)}, every hypothesis was fitted with hidden rate classes "
+                 f"{cite('beaulieu2013')}, so that a burst of change in one clade is not taken "
+                 f"for correlated evolution {cite('maddison2015', 'boyko2021')}.")
     if pair_summary is not None and "boundary" in pair_summary and \
             pair_summary["boundary"].astype(str).str.lower().eq("true").any():
         text += (" Where the null hypothesis forbids rates that the alternative leaves free, it "

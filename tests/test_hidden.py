@@ -222,3 +222,103 @@ def test_class_count_outside_one_to_four_is_refused(bad):
 def test_unknown_switch_kind_is_refused():
     with pytest.raises(InputError, match="model 'fs'.*class_switch.*equal, symmetric, unconstrained"):
         with_hidden_classes(build_model("equal", ["a", "b"]), 2, "sideways", name="fs")
+
+
+# --------------------------------------------------------------------------- config and tables
+
+def _config(models=None, pairs=None):
+    return {"run": "x", "trees": {"file": "t.nex"},
+            "traits": {"file": "t.tsv", "columns": ["glow", "habitat", "banding"]},
+            "models": models or {"one_rate": {"kind": "equal"}}, "pairs": pairs or {}}
+
+
+@pytest.mark.parametrize("bad", [0, 5, 9])
+def test_config_with_classes_outside_one_to_four_names_the_model(bad):
+    from mkforest.data.config import validate_config
+    with pytest.raises(InputError, match=rf"models\.two_speed: hidden_classes is {bad}; use a "
+                                         r"whole number from 1 \(no hidden classes\) to 4"):
+        validate_config(_config({"two_speed": {"kind": "equal", "hidden_classes": bad}}))
+
+
+def test_config_class_switch_and_defaults():
+    from mkforest.data.config import hidden_class_models, validate_config
+    cfg = validate_config(_config({"two_speed": {"kind": "equal", "hidden_classes": 2},
+                                   "plain": {"kind": "equal"}},
+                                  {"pp": {"traits": ["glow", "banding"], "hidden_classes": 3}}))
+    assert cfg["models"]["plain"]["hidden_classes"] == 1
+    assert cfg["models"]["two_speed"]["class_switch"] == "equal"
+    assert hidden_class_models(cfg) == {"glow": ["two_speed"], "habitat": ["two_speed"],
+                                        "banding": ["two_speed"],
+                                        "pp": ["independent", "dependent"]}
+    with pytest.raises(InputError, match=r"models\.two_speed\.class_switch"):
+        validate_config(_config({"two_speed": {"kind": "equal", "hidden_classes": 2,
+                                               "class_switch": "sideways"}}))
+
+
+def _traits():
+    from mkforest.data.traits import trait_from_mapping
+    taxa = [f"t{i}" for i in range(6)]
+    return {"glow": trait_from_mapping("glow", dict(zip(taxa, ["dull", "glowing"] * 3))),
+            "habitat": trait_from_mapping("habitat", dict(zip(taxa, ["litter", "rock", "canopy"] * 2))),
+            "banding": trait_from_mapping("banding", dict(zip(taxa, ["a", "b", "c"] * 2)))}
+
+
+def test_custom_transition_naming_a_class_is_refused():
+    from mkforest.data.config import validate_config
+    from mkforest.jobs.fit import analysis_setup
+    cfg = validate_config(_config({"loss_only": {
+        "kind": "custom", "applies_to": ["glow"], "hidden_classes": 2,
+        "transitions": {"glowing@2 -> dull@2": "loss"}}}))
+    with pytest.raises(InputError, match=r"model 'loss_only'.*'glowing@2 -> dull@2' names hidden "
+                                         r"class 2.*observed states only"):
+        analysis_setup(cfg, "glow", _traits())
+
+
+def test_pair_with_too_many_combined_states_is_refused():
+    """3 x 3 joint states x 4 classes = 36 > 32: one sentence naming the pair."""
+    from mkforest.data.config import validate_config
+    from mkforest.jobs.fit import analysis_setup
+    cfg = validate_config(_config(pairs={"shells": {"traits": ["habitat", "banding"],
+                                                    "hidden_classes": 4}}))
+    with pytest.raises(InputError, match=r"pairs\.shells\.hidden_classes is 4: .*9 joint states, "
+                                         r"36 with 4 classes; at most 32"):
+        analysis_setup(cfg, "shells", _traits())
+    cfg["pairs"]["shells"]["hidden_classes"] = 3
+    joint, models = analysis_setup(cfg, "shells", _traits())
+    assert models["independent"][0].k == 27 and models["independent"][0].n_classes == 3
+
+
+def test_pair_hypotheses_with_classes_stay_nested():
+    """independent with classes is nested in dependent with classes (8 extra rates for
+    two binary traits and two classes: 2 x (8 - 4); Pagel 1994 per class)."""
+    from mkforest.data.config import validate_config
+    from mkforest.engine.pairs import pair_tests
+    from mkforest.jobs.fit import analysis_setup
+    traits = _traits()
+    from mkforest.data.traits import trait_from_mapping
+    traits["banding"] = trait_from_mapping("banding", {f"t{i}": ["plain", "banded"][i % 2]
+                                                       for i in range(6)})
+    cfg = validate_config(_config(pairs={"pp": {"traits": ["glow", "banding"],
+                                                "hidden_classes": 2}}))
+    _, models = analysis_setup(cfg, "pp", traits)
+    assert models["independent"][0].n_params == 9 and models["dependent"][0].n_params == 17
+    (test,) = pair_tests(models)
+    assert (test.null, test.alternative, test.df) == ("independent", "dependent", 8)
+
+
+def test_model_average_keeps_plain_and_class_rates_apart():
+    """Rates are averaged among models on the same states, weights renormalised within
+    them: plain a->b = (0.2 x 1 + 0.2 x 3) / 0.4 = 2; the class rate is the one model's."""
+    import pandas as pd
+
+    from mkforest.engine.summarise import averaged_rates
+    fits = pd.DataFrame({"analysis": "t", "model": ["m1", "m2", "h"], "tree": 0,
+                         "weight": [0.2, 0.2, 0.6]})
+    rates = pd.DataFrame({"analysis": "t", "model": ["m1", "m2", "h", "h", "h"], "tree": 0,
+                          "from_state": ["a", "a", "a@1", "a@2", "a@1"],
+                          "to_state": ["b", "b", "b@1", "b@2", "a@2"],
+                          "rate": [1.0, 3.0, 0.5, 4.0, 0.1]})
+    out = averaged_rates(fits, rates).set_index(["from_state", "to_state"])["rate"]
+    assert out[("a", "b")] == pytest.approx(2.0)
+    assert out[("a@1", "b@1")] == pytest.approx(0.5)
+    assert out[("a@1", "a@2")] == pytest.approx(0.1)

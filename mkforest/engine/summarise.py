@@ -113,11 +113,36 @@ def cautions(row: dict) -> str:
     return "; ".join(words)
 
 
+def class_count(states) -> int:
+    """Hidden rate classes R of a model from its state labels: R distinct '@c' suffixes
+    on every label ('rock@1', 'rock@2') when R > 1, else 1."""
+    suffixes = set()
+    for label in states:
+        _, sep, cls = str(label).rpartition("@")
+        if not (sep and cls.isdigit()):
+            return 1
+        suffixes.add(cls)
+    return len(suffixes) if len(suffixes) > 1 else 1
+
+
 def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
-    """Model-averaged rate per analysis x tree x transition."""
+    """Model-averaged rate per analysis x tree x transition.
+
+    Models are averaged with others on the same states: the plain models of an
+    analysis together, and the models with R hidden rate classes (states
+    ``state@class``) together, each group's Akaike weights renormalised to sum
+    to one within the group (a combined-state rate has no counterpart in a plain
+    model, and classes are numbered slowest first in every model)."""
     w = fits[["analysis", "model", "tree", "weight"]].dropna()
     r = rates.merge(w, on=["analysis", "model", "tree"], how="inner")
-    r["weighted"] = r["rate"] * r["weight"]
+    groups = {key: class_count(set(g["from_state"]) | set(g["to_state"]))
+              for key, g in rates.groupby(["analysis", "model"], sort=False)}
+    r["classes"] = [groups[(a, m)] for a, m in zip(r["analysis"], r["model"])]
+    wg = w.copy()
+    wg["classes"] = [groups.get((a, m), 1) for a, m in zip(wg["analysis"], wg["model"])]
+    total = wg.groupby(["analysis", "tree", "classes"])["weight"].sum().rename("group_weight")
+    r = r.merge(total.reset_index(), on=["analysis", "tree", "classes"], how="left")
+    r["weighted"] = r["rate"] * np.where(r["group_weight"] > 0, r["weight"] / r["group_weight"], 0.0)
     out = (r.groupby(["analysis", "tree", "from_state", "to_state"], sort=False)["weighted"]
            .sum().reset_index().rename(columns={"weighted": "rate"}))
     out.insert(1, "model", "averaged")

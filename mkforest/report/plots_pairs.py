@@ -94,6 +94,12 @@ def width_scale(values) -> float:
     return float(min(v.max(), 20.0 * np.median(v)))
 
 
+def _split_class(label: str) -> tuple:
+    """'a+b@2' -> ('a+b', '@', '2'); a label without a class -> (label, '', '')."""
+    state, sep, cls = label.rpartition("@")
+    return (state, sep, cls) if sep and cls.isdigit() else (label, "", "")
+
+
 def pair_diagram(pair, rate_summary: pd.DataFrame, support: pd.DataFrame | None = None):
     """One panel per hypothesis (and the model average when present): median rate across
     trees of every allowed change between joint states, as arrow widths on one shared
@@ -107,10 +113,16 @@ def pair_diagram(pair, rate_summary: pd.DataFrame, support: pd.DataFrame | None 
     panels = []
     for m in models:
         d = r[r["model"] == m]
-        rates = {(index[f], index[t]): float(x) for f, t, x in
-                 zip(d["from_state"], d["to_state"], d["median_rate"])
-                 if f in index and t in index and np.isfinite(x) and (m != "averaged" or x > 0)}
-        panels.append((m, rates))
+        # with hidden rate classes the states are 'joint@class': one panel per class, its
+        # changes within the class (class switches do not change the joint state)
+        by_class = {}
+        for f, t, x in zip(d["from_state"].astype(str), d["to_state"].astype(str), d["median_rate"]):
+            (f, _, cf), (t, _, ct) = _split_class(f), _split_class(t)
+            if cf == ct and f in index and t in index and np.isfinite(x) \
+                    and (m != "averaged" or x > 0):
+                by_class.setdefault(cf, {})[(index[f], index[t])] = float(x)
+        for c in sorted(by_class) or [""]:
+            panels.append((f"{m}, class {c}" if c else m, by_class.get(c, {})))
     top = width_scale([x for _, rt in panels for x in rt.values()])
     n = max(len(panels), 1)
     cols = min(n, 3)
@@ -126,9 +138,10 @@ def pair_diagram(pair, rate_summary: pd.DataFrame, support: pd.DataFrame | None 
         s = support[support["analysis"] == pair.name]
         weights = dict(zip(s["model"], s["mean_weight"]))
     for ax, (m, rates) in zip(axes.flat, panels):
-        title = "model average" if m == "averaged" else m
-        if m in weights and np.isfinite(weights[m]):
-            title += f"\nmean weight {weights[m]:.2f}"
+        title = m.replace("averaged", "model average", 1) if m.startswith("averaged") else m
+        name = m.split(", class ")[0]
+        if name in weights and np.isfinite(weights[name]):
+            title += f"\nmean weight {weights[name]:.2f}"
         _panel_diagram(ax, pair, rates, top, title)
     for ax in list(axes.flat)[len(panels):]:
         ax.set_visible(False)

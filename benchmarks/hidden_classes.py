@@ -121,6 +121,7 @@ def recovery_set(i):
     w = akaike_weights(np.array(aicc))
     two = fits[2]
     return {"i": i, "weights": w.tolist(), "best": int(np.argmax(w)),
+            "log_likelihoods": [f.log_likelihood for f in fits],
             "rates": dict(zip(two.labels, two.rates.tolist())), "converged": two.converged,
             "at_upper": list(two.at_upper), "at_lower": list(two.at_lower),
             "n_state1": int(states[:n].sum())}
@@ -142,6 +143,7 @@ def calibration_set(i):
         c0 = time.process_time()
         stat, fn, fa = pairs.lr_statistic(s["tree"], X, null, alt, n_starts=STARTS, seed=seed)
         out[name] = {"statistic": stat, "p": float(chi2.sf(stat, df)), "df": df,
+                     "null_log_likelihood": fn.log_likelihood,
                      "converged": bool(fn.converged and fa.converged),
                      "cpu_seconds": time.process_time() - c0}
     return out

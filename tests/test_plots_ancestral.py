@@ -69,3 +69,27 @@ def test_change_counts_panels(tmp_path):
     path = tmp_path / "changes.png"
     plots_ancestral.save(fig, [path])
     assert path.stat().st_size > 1000
+
+
+def test_class_tree_draws_class_rows_only(tmp_path):
+    """The class tree draws one bar segment per class (slowest first), ignores the
+    combined-state rows, and names slow and fast in its legend."""
+    tree = parse_newick(TREE)
+    _, clades = tables(tree)
+    rows = []
+    for c in clades.to_dict("records"):
+        fast = 0.9 if "d" in c["members"].split(",") else 0.1
+        for cls, x in ((1, 1 - fast), (2, fast)):
+            rows.append(dict(analysis="soil", model="two_speed", clade=c["clade"], n_trees=8,
+                             state=np.nan, mean_probability=x, **{"class": cls}))
+            rows.append(dict(analysis="soil", model="two_speed", clade=c["clade"], n_trees=8,
+                             state=f"dry@{cls}", mean_probability=x, **{"class": cls}))
+    fig = plots_ancestral.class_tree(tree, pd.DataFrame(rows), clades, "soil", "two_speed")
+    ax = fig.axes[0]
+    assert "two_speed" in ax.get_title() and "classes" in ax.get_title()
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert legend[:2] == ["class 1 (slowest)", "class 2 (fastest)"]
+    assert fig.mkforest_nodes_drawn == tree.n_nodes - tree.n_tips
+    path = tmp_path / "classes.png"
+    plots_ancestral.save(fig, [path])
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -22,7 +22,7 @@ propose the hidden-class null for this). Reported: false rejections at alpha =
 Work is spread over ``--workers`` processes; every data set's seed derives from
 (seed, section, data set), so the figures do not depend on the number of workers.
 
-Run:  python benchmarks/hidden_classes.py --recovery --calibration
+Run:  python benchmarks/hidden_classes.py --recovery --calibration --figure calibration.png
       python benchmarks/hidden_classes.py --calibration --sets 10   (a quick look)
 """
 
@@ -194,6 +194,49 @@ def _worker_init(section, seed, burst):
     _STATE["seed"] = seed
 
 
+def calibration_figure(summary, rows, path):
+    """Two panels: the p-values of both tests against the uniform distribution they
+    should follow (empirical CDF), and the false-rejection rate at alpha with its
+    exact 95% interval."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    colours = {"plain": "#b2182b", "hidden": "#2166ac"}
+    words = {"plain": f"plain ({summary['df'][0]} df)",
+             "hidden": f"two hidden classes ({summary['df'][1]} df)"}
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(9.5, 4.0), gridspec_kw={"width_ratios": [3, 2]})
+    for kind in ("plain", "hidden"):
+        p = np.sort([r[kind]["p"] for r in rows])
+        ax1.step(p, np.arange(1, len(p) + 1) / len(p), where="post", color=colours[kind],
+                 label=words[kind])
+    ax1.plot([0, 1], [0, 1], color="#777777", ls=":", label="calibrated test")
+    ax1.axvline(ALPHA, color="#444444", lw=0.8)
+    ax1.set_xlabel("chi-square p-value, independent vs dependent")
+    ax1.set_ylabel("fraction of data sets")
+    ax1.legend(frameon=False, fontsize=8, loc="lower right")
+    ax1.set_xlim(0, 1)
+    ax1.set_ylim(0, 1)
+    for i, kind in enumerate(("plain", "hidden")):
+        rej = summary[f"{kind}_false_rejection"]
+        lo, hi = rej["ci95"]
+        ax2.bar(i, rej["rate"], color=colours[kind], width=0.6)
+        ax2.errorbar(i, rej["rate"], yerr=[[rej["rate"] - lo], [hi - rej["rate"]]], color="black",
+                     capsize=5, lw=1)
+        ax2.text(i, hi + 0.01, f"{rej['rejected']} of {rej['n']}", ha="center", va="bottom",
+                 fontsize=8)
+    ax2.axhline(ALPHA, color="#444444", lw=0.8, ls="--")
+    ax2.text(1.45, ALPHA, f"α = {ALPHA}", va="bottom", ha="right", fontsize=8)
+    ax2.set_xticks([0, 1], ["plain", "two hidden\nclasses"])
+    ax2.set_ylabel(f"false rejections at α = {ALPHA} (95% interval)")
+    ax2.set_ylim(0, max(0.1, summary["plain_false_rejection"]["ci95"][1] + 0.08))
+    fig.suptitle(f"Independent traits, one clade of {summary['clade_size']} of 100 tips "
+                 f"{summary['burst']:g}× faster in both: {summary['sets']} data sets", fontsize=10)
+    fig.tight_layout()
+    fig.savefig(path, dpi=150)
+    plt.close(fig)
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--recovery", action="store_true")
@@ -204,13 +247,22 @@ def main(argv=None):
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--seed", type=int, default=2026)
     ap.add_argument("--out", default=None, help="write every result as JSON here")
+    ap.add_argument("--figure", default=None, help="draw the calibration figure (PNG) here")
+    ap.add_argument("--from-json", default=None,
+                    help="only draw the figure from a JSON file written by --out")
     a = ap.parse_args(argv)
+    if a.from_json:
+        saved = json.loads(Path(a.from_json).read_text())["calibration"]
+        calibration_figure(saved["summary"], saved["results"], a.figure or "hidden_calibration.png")
+        return 0
     everything = {}
     for section, default in (("recovery", 50), ("calibration", 200)):
         if getattr(a, section):
             report, rows = run(section, a.sets or default, a.workers, a.seed, a.burst)
             print(json.dumps(report, indent=2), flush=True)
             everything[section] = {"summary": report, "results": rows}
+            if section == "calibration" and a.figure:
+                calibration_figure(report, rows, a.figure)
     if a.out:
         Path(a.out).write_text(json.dumps(everything, indent=1))
     return 0

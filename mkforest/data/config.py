@@ -13,7 +13,7 @@ from pathlib import Path
 
 import yaml
 
-from ..errors import InputError
+from ..errors import InputError, did_you_mean, join_problems
 
 SCHEMA = Path(__file__).resolve().parents[2] / "workflow" / "schemas" / "config.schema.yaml"
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_.-]+$")
@@ -49,88 +49,167 @@ def _fill_defaults(schema: dict, value):
     return value
 
 
-def validate_config(config: dict, source: str = "config") -> dict:
-    """Validate against the schema, fill defaults, and check cross-references.
+def _dotted(path) -> str:
+    return ".".join(str(p) for p in path)
 
-    Returns a new dict; raises InputError naming the key at fault.
+
+def _schema_problem(error, source: str) -> list:
+    """Our sentence(s) for one jsonschema error, with a suggestion where a word is misspelt."""
+    path = list(error.absolute_path)
+    key = _dotted(path) or "(top level)"
+    if error.validator == "additionalProperties" and isinstance(error.instance, dict):
+        known = list(error.schema.get("properties", {}))
+        out = []
+        for extra in error.instance:
+            if extra in known:
+                continue
+            where = f"{key}." if path else ""
+            out.append(f"{source}: key '{where}{extra}' is not a known key."
+                       f"{did_you_mean(where + extra, [where + k for k in known])} "
+                       f"Keys allowed here: {', '.join(known)}.")
+        return out
+    if error.validator == "enum":
+        return [f"{source}: key '{key}' is '{error.instance}'; choose one of "
+                f"{', '.join(map(str, error.validator_value))}.{did_you_mean(error.instance, error.validator_value)}"]
+    if error.validator == "required":
+        missing = error.message.split("'")[1] if "'" in error.message else error.message
+        where = f"{key}." if path else ""
+        return [f"{source}: key '{where}{missing}' is required and missing."]
+    return [f"{source}: key '{key}': {error.message}"]
+
+
+def config_problems(config: dict, source: str = "config") -> tuple:
+    """(config with defaults filled, [one sentence per mistake]) — every mistake at once.
+
+    Schema mistakes (unknown or misspelt keys, wrong types, unknown choices) and
+    cross-references (traits, models, pairs) are all collected; nothing stops at
+    the first one.
     """
     import jsonschema
 
     schema = yaml.safe_load(SCHEMA.read_text())
     config = copy.deepcopy(config or {})
-    check_renamed(config, source)
-    errors = sorted(jsonschema.Draft202012Validator(schema).iter_errors(config),
-                    key=lambda e: list(e.absolute_path))
-    if errors:
-        e = errors[0]
-        key = ".".join(str(p) for p in e.absolute_path) or "(top level)"
-        raise InputError(f"{source}: key '{key}': {e.message}")
+    if not isinstance(config, dict):
+        return config, [f"{source}: the config must be a mapping of keys (run, trees, traits, models, ...)."]
+    problems, renamed_at = renamed_problems(config, source)
+    for e in sorted(jsonschema.Draft202012Validator(schema).iter_errors(config),
+                    key=lambda e: [str(p) for p in e.absolute_path]):
+        if tuple(e.absolute_path) not in renamed_at:
+            problems += _schema_problem(e, source)
     _fill_defaults(schema, config)
-    check_names(config, source)
+    problems += name_problems(config, source)
+    return config, problems
+
+
+def validate_config(config: dict, source: str = "config") -> dict:
+    """Validate against the schema, fill defaults, and check cross-references.
+
+    Returns a new dict; raises one InputError listing every mistake (one
+    sentence per line), each naming the key at fault.
+    """
+    config, problems = config_problems(config, source)
+    if problems:
+        raise InputError(join_problems(problems))
     return config
 
 
 RENAMED_KINDS = {"all_different": "unconstrained"}
 
 
-def check_renamed(config: dict, source: str = "config") -> None:
-    """Model kinds of the first release: one sentence naming the new word."""
-    models = config.get("models") if isinstance(config, dict) else None
-    for name, model in (models or {}).items():
+def renamed_problems(config: dict, source: str = "config") -> tuple:
+    """Model kinds of the first release: one sentence naming the new word.
+
+    Returns (sentences, {paths already explained}).
+    """
+    out, at = [], set()
+    models = config.get("models")
+    for name, model in (models if isinstance(models, dict) else {}).items():
         kind = model.get("kind") if isinstance(model, dict) else None
-        if kind in RENAMED_KINDS:
-            raise InputError(f"{source}: models.{name}.kind is '{kind}': this model kind is now "
-                             f"called '{RENAMED_KINDS[kind]}'.")
+        if isinstance(kind, str) and kind in RENAMED_KINDS:
+            out.append(f"{source}: models.{name}.kind is '{kind}': this model kind is now "
+                       f"called '{RENAMED_KINDS[kind]}'.")
+            at.add(("models", name, "kind"))
+    return out, at
 
 
-def check_names(config: dict, source: str = "config") -> None:
-    """Names used in file paths must be plain; models and pairs must name known traits."""
-    traits = config["traits"]["columns"]
+def _names(value) -> list:
+    return [v for v in value if isinstance(v, str)] if isinstance(value, list) else []
+
+
+def _entries(value) -> dict:
+    return {k: v for k, v in value.items() if isinstance(v, dict)} if isinstance(value, dict) else {}
+
+
+def name_problems(config: dict, source: str = "config") -> list:
+    """Names used in file paths must be plain; models, pairs, state orders and
+    the ancestral stage must name known traits and models. One sentence per mistake."""
+    problems = []
+    tcfg = config.get("traits") if isinstance(config.get("traits"), dict) else {}
+    traits = _names(tcfg.get("columns"))
+    models = _entries(config.get("models"))
     for t in traits:
         if not SAFE_NAME.match(t):
-            raise InputError(f"{source}: trait column '{t}' (traits.columns) has characters that "
-                             "cannot be used in file names; rename the column using letters, "
-                             "digits, '_', '-' or '.'.")
+            problems.append(f"{source}: trait column '{t}' (traits.columns) has characters that "
+                            "cannot be used in file names; rename the column using letters, "
+                            "digits, '_', '-' or '.'.")
     if len(set(traits)) != len(traits):
-        raise InputError(f"{source}: traits.columns lists a trait twice.")
-    for name, model in config["models"].items():
+        twice = sorted({t for t in traits if traits.count(t) > 1})
+        problems.append(f"{source}: traits.columns lists trait '{twice[0]}' twice.")
+    listed = f"traits.columns ({', '.join(traits)})"
+
+    def classes_problem(value, where):
+        try:
+            check_classes(value, where)
+        except InputError as exc:
+            problems.append(str(exc))
+
+    def unknown_trait(t, key):
+        problems.append(f"{source}: {key} names trait '{t}', which is not in {listed}."
+                        f"{did_you_mean(t, traits)}")
+
+    for t in (tcfg.get("order") if isinstance(tcfg.get("order"), dict) else {}):
+        if traits and t not in traits:
+            unknown_trait(t, "traits.order")
+    for name, model in models.items():
         if not SAFE_NAME.match(name):
-            raise InputError(f"{source}: model name '{name}' (models) must use only letters, "
-                             "digits, '_', '-' or '.'.")
-        if model["kind"] == "custom":
+            problems.append(f"{source}: model name '{name}' (models) must use only letters, "
+                            "digits, '_', '-' or '.'.")
+        if model.get("kind") == "custom":
             if "applies_to" not in model:
-                raise InputError(f"{source}: models.{name}: a custom model must say which traits it "
-                                 "applies to (applies_to: [trait, ...]).")
+                problems.append(f"{source}: models.{name}: a custom model must say which traits "
+                                "it applies to (applies_to: [trait, ...]).")
             if "transitions" not in model:
-                raise InputError(f"{source}: models.{name}: a custom model needs 'transitions'.")
+                problems.append(f"{source}: models.{name}: a custom model needs 'transitions'.")
         elif "transitions" in model:
-            raise InputError(f"{source}: models.{name}: 'transitions' only goes with kind: custom.")
-        check_classes(model.get("hidden_classes", 1), f"{source}: models.{name}")
-        for t in model.get("applies_to", []):
-            if t not in traits:
-                raise InputError(f"{source}: models.{name}.applies_to names trait '{t}', which is "
-                                 f"not in traits.columns ({', '.join(traits)}).")
-    for name, pair in config.get("pairs", {}).items():
+            problems.append(f"{source}: models.{name}: 'transitions' only goes with kind: custom.")
+        classes_problem(model.get("hidden_classes", 1), f"{source}: models.{name}")
+        for t in _names(model.get("applies_to")):
+            if traits and t not in traits:
+                unknown_trait(t, f"models.{name}.applies_to")
+    for name, pair in _entries(config.get("pairs")).items():
         if not SAFE_NAME.match(name):
-            raise InputError(f"{source}: pair name '{name}' (pairs) must use only letters, "
-                             "digits, '_', '-' or '.'.")
+            problems.append(f"{source}: pair name '{name}' (pairs) must use only letters, "
+                            "digits, '_', '-' or '.'.")
         if name in traits:
-            raise InputError(f"{source}: pair name '{name}' is also a trait name; choose another.")
-        for t in pair["traits"]:
-            if t not in traits:
-                raise InputError(f"{source}: pairs.{name}.traits names '{t}', which is not in "
-                                 f"traits.columns ({', '.join(traits)}).")
-        check_classes(pair.get("hidden_classes", 1), f"{source}: pairs.{name}")
-        if pair["traits"][0] == pair["traits"][1]:
-            raise InputError(f"{source}: pairs.{name}: the two traits must differ.")
-        for h in list(pair.get("hypotheses", [])) + list(pair.get("custom", {})):
+            problems.append(f"{source}: pair name '{name}' is also a trait name; choose another.")
+        pt = _names(pair.get("traits"))
+        for t in pt:
+            if traits and t not in traits:
+                unknown_trait(t, f"pairs.{name}.traits")
+        classes_problem(pair.get("hidden_classes", 1), f"{source}: pairs.{name}")
+        if len(pt) == 2 and pt[0] == pt[1]:
+            problems.append(f"{source}: pairs.{name}: the two traits must differ.")
+        for h in _names(pair.get("hypotheses")) + list(_entries(pair.get("custom"))):
             if not SAFE_NAME.match(h):
-                raise InputError(f"{source}: pairs.{name}: hypothesis name '{h}' must use only "
-                                 "letters, digits, '_', '-' or '.'.")
-    anc = config.get("ancestral", {}).get("model", "average")
-    if anc not in ("average", "best") and anc not in config["models"]:
-        raise InputError(f"{source}: ancestral.model is '{anc}': use average, best, or a model "
-                         f"name from models ({', '.join(config['models'])}).")
+                problems.append(f"{source}: pairs.{name}: hypothesis name '{h}' must use only "
+                                "letters, digits, '_', '-' or '.'.")
+    anc = config.get("ancestral") if isinstance(config.get("ancestral"), dict) else {}
+    anc_model = anc.get("model", "average")
+    if isinstance(anc_model, str) and anc_model not in ("average", "best") and anc_model not in models:
+        problems.append(f"{source}: ancestral.model is '{anc_model}': use average, best, or a model "
+                        f"name from models ({', '.join(models)})."
+                        f"{did_you_mean(anc_model, ['average', 'best', *models])}")
+    return problems
 
 
 def load_config(path) -> dict:

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputError
+from ..errors import InputError, did_you_mean
 
 DEFAULT_MISSING = ("?", "NA", "-", "")
 
@@ -120,7 +120,8 @@ def code_trait(name: str, values: dict, states=None, missing=DEFAULT_MISSING, se
             at = f" (line {rows[taxon]})" if rows and taxon in rows else ""
             raise InputError(
                 f"{where}trait '{name}', taxon '{taxon}'{at}: state '{unknown[0]}' is not in the "
-                f"state order given for this trait ({', '.join(states)}). Add it to the order or fix the cell.")
+                f"state order given for this trait ({', '.join(states)}). Add it to the order or "
+                f"fix the cell.{did_you_mean(unknown[0], states)}")
     index = {s: i for i, s in enumerate(states)}
     taxa = tuple(values)
     possible = np.zeros((len(taxa), len(states)), dtype=bool)
@@ -158,13 +159,15 @@ def read_traits(path, taxon_column: str, columns=None, missing=DEFAULT_MISSING, 
         header = [h.strip() for h in next(reader)]
         if taxon_column not in header:
             raise InputError(f"trait table '{path}', line 1: no column '{taxon_column}' (the taxon "
-                             f"column named in the config); columns are: {', '.join(header)}.")
+                             f"column named in the config); columns are: {', '.join(header)}."
+                             f"{did_you_mean(taxon_column, header)}")
         if columns is None:
             columns = [h for h in header if h != taxon_column]
         for c in columns:
             if c not in header:
                 raise InputError(f"trait table '{path}', line 1: no column '{c}' (a trait named in "
-                                 f"the config); columns are: {', '.join(header)}.")
+                                 f"the config); columns are: {', '.join(header)}."
+                                 f"{did_you_mean(c, header)}")
         ti = header.index(taxon_column)
         table = {c: {} for c in columns}
         rows = {}

@@ -14,7 +14,7 @@ import numba
 import numpy as np
 import scipy.linalg
 
-from ..errors import InputError
+from ..errors import InputError, did_you_mean
 
 ROOTS = ("uniform", "stationary", "data_weighted")
 # Root treatments of the first release, by their present names.
@@ -33,7 +33,7 @@ def check_root(root, states, at: str, what: str = "a state of the trait") -> str
         raise InputError(f"{at}.root is '{root}': this root treatment is now called "
                          f"'{RENAMED_ROOTS[root]}'.")
     raise InputError(f"{at}.root is '{root}': use uniform, stationary, data_weighted, or "
-                     f"{what} ({', '.join(states)}).")
+                     f"{what} ({', '.join(states)}).{did_you_mean(root, [*ROOTS, *states])}")
 
 # Rescale a partial likelihood vector when its largest entry drops below 2^-256;
 # scaling by a power of two is exact in floating point.

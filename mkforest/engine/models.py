@@ -25,7 +25,7 @@ from numbers import Number
 
 import numpy as np
 
-from ..errors import InputError
+from ..errors import InputError, did_you_mean
 
 KINDS = ("equal", "symmetric", "unconstrained", "custom")
 FREE_FORBIDDEN = -1
@@ -162,7 +162,8 @@ def parse_transition(key: str, states, where: str) -> list:
     for n in names:
         if n not in index:
             raise InputError(f"{where}: transition '{key}' names state '{n}', which this trait "
-                             f"does not have (its states: {', '.join(states)}).")
+                             f"does not have (its states: {', '.join(states)})."
+                             f"{did_you_mean(n, states)}")
     pairs = []
     for a, arrow, b in zip(names[:-1], arrows, names[1:]):
         if a == b:

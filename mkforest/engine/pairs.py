@@ -61,7 +61,7 @@ import numpy as np
 
 from ..data.config import check_classes
 from ..data.traits import Trait
-from ..errors import InputError
+from ..errors import InputError, did_you_mean
 from ..seeds import derive_seed
 from .fitting import LOWER, UPPER, fit_model
 from .likelihood import check_root, prune, root_weights
@@ -182,7 +182,8 @@ def hypothesis_model(pair: TraitPair, hypothesis: str, transitions=None, name: s
         return custom_hypothesis(pair, name or hypothesis, transitions)
     if hypothesis not in HYPOTHESES:
         raise InputError(f"trait pair '{pair.name}': unknown hypothesis '{hypothesis}'; choose one of "
-                         f"{', '.join(HYPOTHESES)}, or describe it under 'custom'.")
+                         f"{', '.join(HYPOTHESES)}, or describe it under 'custom'."
+                         f"{did_you_mean(hypothesis, HYPOTHESES)}")
     first_varies = hypothesis in ("dependent", "first_depends_on_second")
     second_varies = hypothesis in ("dependent", "second_depends_on_first")
     n = pair.k1 * pair.k2

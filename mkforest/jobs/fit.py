@@ -8,8 +8,8 @@ from ..engine.compare import information_criteria
 from ..engine.fitting import fit_model
 from ..engine.likelihood import check_root
 from ..engine.hidden import check_no_class_in_transitions, with_hidden_classes
-from ..engine.models import build_model
-from ..errors import InputError
+from ..engine.models import KINDS, build_model
+from ..errors import InputError, join_problems
 from ..seeds import derive_seed
 
 FIT_COLUMNS = ["analysis", "model", "tree", "n_taxa", "n_params", "log_likelihood", "aic", "aicc",
@@ -47,21 +47,51 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     raise InputError(f"analysis '{analysis}' is neither a trait in traits.columns nor a pair.")
 
 
-def check_models_against_table(config: dict) -> None:
-    """Build every analysis's models on the trait table's states, if the table
-    exists yet; raises InputError naming the model, trait and label at fault."""
+def table_problems(config: dict, source: str = "config") -> list:
+    """Every model and pair checked against the trait table's states, if the
+    table exists yet: one sentence per mistake, naming the model, trait and label."""
     from pathlib import Path
 
-    from ..data.config import analyses
+    from ..data.config import analyses, trait_models
     from ..data.traits import read_traits
 
     tcfg = config["traits"]
     if not Path(tcfg["file"]).is_file():
-        return
-    traits = read_traits(tcfg["file"], tcfg["taxon_column"], tcfg["columns"], tcfg["missing"],
-                         tcfg["separator"], tcfg["order"])
+        return []
+    try:
+        traits = read_traits(tcfg["file"], tcfg["taxon_column"], tcfg["columns"], tcfg["missing"],
+                             tcfg["separator"], tcfg["order"])
+    except InputError as exc:
+        return [str(exc)]
+    problems = []
     for analysis in analyses(config):
-        analysis_setup(config, analysis, traits)
+        # one model at a time, so that every faulty model is named, not only the first
+        names = trait_models(config, analysis) if analysis in traits else [None]
+        for name in names:
+            if name and config["models"][name].get("kind") not in KINDS:
+                continue  # the schema check has named it
+            one = dict(config, models={name: config["models"][name]}) if name else config
+            try:
+                analysis_setup(one, analysis, traits)
+            except InputError as exc:
+                problems.append(f"{source}: {exc}")
+    return problems
+
+
+def check_config(raw: dict, source: str = "config") -> dict:
+    """The workflow's check before any job: the config (schema, names) and its
+    models against the trait table, every mistake at once in one InputError."""
+    from ..data.config import config_problems
+
+    config, problems = config_problems(raw, source)
+    try:
+        problems += table_problems(config, source)
+    except Exception:  # a config already found faulty may not reach the table check
+        if not problems:
+            raise
+    if problems:
+        raise InputError(join_problems(problems))
+    return config
 
 
 def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, starts: int = 5,

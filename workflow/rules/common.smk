@@ -1,26 +1,28 @@
 # Shared definitions and input functions.
 import glob
 import os
+import sys
 
-from mkforest.data.config import analyses, fit_job_config, hidden_class_models, validate_config
-from mkforest.jobs.fit import check_models_against_table
+from mkforest.data.config import analyses, fit_job_config, hidden_class_models
 from mkforest.errors import InputError
+from mkforest.jobs.fit import check_config
 
+# Check the config (schema, names, and every model against the trait table when
+# the table exists) before any job runs. Every mistake is reported at once, one
+# sentence per line, and the run stops with status 2 without the workflow
+# engine's traceback or wrapper text around our sentences.
+_CONFIG_SOURCE = (f"config file '{workflow.config_settings.configfiles[-1]}'"
+                  if workflow.config_settings.configfiles else "config")
 try:
-    config = validate_config(config, "config")
+    config = check_config(config, _CONFIG_SOURCE)
 except InputError as exc:
-    raise WorkflowError(f"mkforest: {exc}")
+    for line in str(exc).splitlines():
+        print(f"mkforest: {line}", file=sys.stderr)
+    sys.exit(2)
 
 OUT = f"results/{config['run']}"
 ANALYSES = analyses(config)
 ENV = "../../envs/mkforest.yaml"
-
-# Check every model against its trait's states now, before any job runs, when
-# the trait table already exists (a typo in a custom model fails at once).
-try:
-    check_models_against_table(config)
-except InputError as exc:
-    raise WorkflowError(f"mkforest: {exc}")
 
 
 def stable(value):

@@ -1,11 +1,13 @@
-# Two entry points for a fresh machine (Python 3.10+ with venv):
+# Entry points for a fresh machine (Python 3.10+ with venv):
 #   make demo   set up .venv, generate the demo data, run the workflow, build the HTML report
 #   make test   set up .venv and run the test suite
+#   make run CONFIG=my_config.yaml   run the workflow on your own config (mkforest init writes one);
+#               PROFILE=slurm for a cluster, ARGS="..." for more snakemake options
 VENV ?= .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.mkforest-installed
 
-.PHONY: demo test test-slow test-cluster setup bench clean-demo
+.PHONY: demo run test test-slow test-cluster setup bench clean-demo
 
 setup: $(STAMP)
 
@@ -19,6 +21,12 @@ demo: $(STAMP)
 	$(BIN)/snakemake --profile profiles/laptop
 	$(BIN)/snakemake --profile profiles/laptop --report results/demo/report.html
 	@echo "Demo finished: results/demo/ (tables/, plots/, methods.md, report.html)"
+
+# make run CONFIG=my_config.yaml [PROFILE=slurm] [ARGS="--report report.html"]
+PROFILE ?= laptop
+run: $(STAMP)
+	@test -n "$(CONFIG)" || { echo "usage: make run CONFIG=my_config.yaml (write one with: $(BIN)/mkforest init --trees FILE --traits FILE)"; exit 2; }
+	$(BIN)/snakemake --profile profiles/$(PROFILE) --configfile $(CONFIG) $(ARGS)
 
 test: $(STAMP)
 	$(BIN)/pytest -q

@@ -1,5 +1,7 @@
-"""The mkforest command: pack a finished run into a citable archive, and check one.
+"""The mkforest command: write a starting config, pack a finished run into a
+citable archive, and check one.
 
+  mkforest init --trees FILE --traits FILE [--taxon-column NAME] [--output PATH] [--force]
   mkforest archive results/<run> --author "Family, Given" [--author ...] [--title T] [--output DIR]
   mkforest verify <archive.tar.gz | unpacked archive | results/<run>> [--against manifest.json]
 
@@ -23,9 +25,21 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="mkforest", description="Archive and verify mkforest runs. The analysis "
-                "itself runs as a Snakemake workflow: snakemake --profile profiles/laptop")
+    p = _Parser(prog="mkforest", description="Write a starting config, archive and verify "
+                "mkforest runs. The analysis itself runs as a Snakemake workflow: "
+                "make run CONFIG=my_config.yaml")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    i = sub.add_parser("init", help="write a commented starting config for your trees and traits",
+                       description="Read your tree file and trait table, describe them, and write "
+                       "a commented config that runs as written; print the command to run it.")
+    i.add_argument("--trees", required=True, metavar="FILE", help="Newick or NEXUS tree file")
+    i.add_argument("--traits", required=True, metavar="FILE", help="CSV or TSV trait table")
+    i.add_argument("--taxon-column", metavar="NAME",
+                   help="the table's taxon column (default: 'taxon', else the column whose "
+                        "values match the most tree tips)")
+    i.add_argument("--output", default="my_config.yaml", metavar="PATH",
+                   help="config file to write (default: my_config.yaml); its name is the run's")
+    i.add_argument("--force", action="store_true", help="replace the output file if it exists")
     a = sub.add_parser("archive", help="pack a finished run with its inputs, config and manifest",
                        description="Pack results/<run> with its inputs, config and manifest into "
                        "<run>-archive.tar.gz, and write its SHA-256 and a CITATION.cff beside it.")
@@ -44,6 +58,17 @@ def _parser() -> argparse.ArgumentParser:
                    help="compare the run folder's results with another run's manifest.json "
                         "(a rerun with the original)")
     return p
+
+
+def _init(args) -> int:
+    from .starter import write_starter
+
+    starter, command = write_starter(args.trees, args.traits, args.taxon_column, args.output,
+                                     args.force)
+    print("\n".join(starter.summary))
+    print(f"wrote   {args.output} (run: {starter.run}); read its comments, then run:")
+    print(command)
+    return 0
 
 
 def _archive(args) -> int:
@@ -71,7 +96,7 @@ def _verify(args) -> int:
 def main(argv=None) -> int:
     args = _parser().parse_args(argv)
     try:
-        return {"archive": _archive, "verify": _verify}[args.command](args)
+        return {"init": _init, "archive": _archive, "verify": _verify}[args.command](args)
     except InputError as exc:
         print(f"mkforest: error: {exc}", file=sys.stderr)
         return 2

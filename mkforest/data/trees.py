@@ -120,6 +120,11 @@ def _describe(node) -> str:
     return f"the ancestor of '{leaves[0]}' and '{leaves[-1]}'"
 
 
+def looks_unrooted(tree) -> bool:
+    """A DendroPy tree whose base splits three or more ways and is not marked [&R]."""
+    return len(tree.seed_node.child_nodes()) > 2 and tree.is_rooted is not True
+
+
 def from_dendropy(tree, index: int = 0, source: str = "tree", rooted: bool = False) -> TreeArrays:
     """Convert one DendroPy tree, checking what the likelihood needs.
 
@@ -128,7 +133,7 @@ def from_dendropy(tree, index: int = 0, source: str = "tree", rooted: bool = Fal
     """
     where = f"{source}, tree {index}"
     root = tree.seed_node
-    if len(root.child_nodes()) > 2 and tree.is_rooted is not True and not rooted:
+    if not rooted and looks_unrooted(tree):
         raise InputError(
             f"{where}: the tree is unrooted (its base splits {len(root.child_nodes())} ways). "
             "Trait models need a rooted tree: set trees.root in the config to midpoint or to "
@@ -178,12 +183,9 @@ def _detect_schema(text: str) -> str:
     return "nexus" if text.lstrip().upper().startswith("#NEXUS") else "newick"
 
 
-def read_trees(path, schema: str | None = None, root=None) -> list:
-    """Read every tree in a Newick or NEXUS file (TRANSLATE tables, [&R]/[&U] and quoted labels handled).
-
-    root: None (trees must be rooted as written), "midpoint", or {"outgroup": [taxa]}
-    (the ``trees.root`` config key); see ``reroot``.
-    """
+def parse_tree_file(path, schema: str | None = None):
+    """Every tree of a Newick or NEXUS file as a DendroPy TreeList, unchecked
+    (InputError naming the file and line when it cannot be read)."""
     path = Path(path)
     if not path.is_file():
         raise InputError(f"tree file '{path}' does not exist.")
@@ -206,6 +208,17 @@ def read_trees(path, schema: str | None = None, root=None) -> list:
         raise InputError(f"tree file '{path}'{at}: cannot be read as {schema.upper()}: {msg}") from None
     if len(trees) == 0:
         raise InputError(f"tree file '{path}' holds no trees.")
+    return trees
+
+
+def read_trees(path, schema: str | None = None, root=None) -> list:
+    """Read every tree in a Newick or NEXUS file (TRANSLATE tables, [&R]/[&U] and quoted labels handled).
+
+    root: None (trees must be rooted as written), "midpoint", or {"outgroup": [taxa]}
+    (the ``trees.root`` config key); see ``reroot``.
+    """
+    path = Path(path)
+    trees = parse_tree_file(path, schema)
     source = f"tree file '{path}'"
     if root is not None:
         for i, t in enumerate(trees):

@@ -1,0 +1,175 @@
+"""`mkforest init`: the config it writes for the user's files runs without edits
+through the real workflow (demo-shaped data, mismatched taxa, unrooted trees),
+and what it reports about the files is right."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import dendropy
+import pandas as pd
+import pytest
+import yaml
+from workflow_helpers import REPO, run_snakemake
+
+from mkforest.demo import make_demo
+from mkforest.errors import InputError
+from mkforest.starter import starting_config, survey_trees
+
+MKFOREST = str(Path(sys.executable).with_name("mkforest"))
+
+
+def init(cwd: Path, *args):
+    return subprocess.run([MKFOREST, "init", *map(str, args)], cwd=cwd, capture_output=True,
+                          text=True, timeout=300)
+
+
+def demo_data(folder: Path, n_tips: int = 14, n_trees: int = 4) -> Path:
+    make_demo(folder, n_tips=n_tips, n_trees=n_trees, seed=5)
+    return folder
+
+
+def run_written_config(tmp_path: Path, config: Path):
+    proc = run_snakemake(tmp_path, config)
+    assert proc.returncode == 0, (proc.stdout + proc.stderr)[-4000:]
+    return yaml.safe_load(config.read_text())
+
+
+def test_demo_data_config_runs_without_edits(tmp_path):
+    data = demo_data(tmp_path / "data")
+    proc = init(tmp_path, "--trees", data / "trees.nex", "--traits", data / "traits.tsv",
+                "--output", "start.yaml")
+    assert proc.returncode == 0, proc.stderr
+    out = proc.stdout.splitlines()
+    # the one command to run next, and the summary of what was found
+    assert out[-1] == f"make -C {REPO} run CONFIG={tmp_path / 'start.yaml'}"
+    assert out[0].startswith(f"trees   {data / 'trees.nex'}: 4 tree(s), 14 tips, rooted")
+    cfg = run_written_config(tmp_path, tmp_path / "start.yaml")
+    assert cfg["run"] == "start" and cfg["ancestral"]["enabled"] is True
+    fits = pd.read_csv(tmp_path / "results/start/tables/fits.tsv", sep="\t")
+    assert set(fits["analysis"]) == set(cfg["traits"]["columns"])
+    assert {"one_rate", "free"} <= set(fits["model"])
+    assert (tmp_path / "results/start/tables/ancestral_states.tsv").is_file()
+    # the pairs example is commented out but names two real columns, ready to uncomment
+    text = (tmp_path / "start.yaml").read_text()
+    example = [line[2:] for line in text.splitlines() if line.startswith("# pairs:")
+               or line.startswith("#   ") and "traits: [" in line]
+    pair_traits = yaml.safe_load(example[-1].strip())["traits"]
+    assert set(pair_traits) <= set(cfg["traits"]["columns"]) and len(set(pair_traits)) == 2
+
+
+def test_mismatched_taxa_config_runs_and_lists_them(tmp_path):
+    data = demo_data(tmp_path / "data")
+    table = data / "traits.tsv"
+    lines = table.read_text().splitlines()
+    dropped = [lines[2].split("\t")[0], lines[5].split("\t")[0]]
+    extra = "Lumasta_nowhere\t" + "\t".join(["?"] * (len(lines[0].split("\t")) - 1))
+    table.write_text("\n".join([ln for ln in lines if ln.split("\t")[0] not in dropped]
+                               + [extra]) + "\n")
+    proc = init(tmp_path, "--trees", data / "trees.nex", "--traits", table)
+    assert proc.returncode == 0, proc.stderr
+    assert "2 in the trees only -> absent_taxa: missing" in proc.stdout
+    assert "1 in the table only" in proc.stdout
+    text = (tmp_path / "my_config.yaml").read_text()
+    assert "absent_taxa: missing" in text
+    for taxon in dropped + ["Lumasta_nowhere"]:
+        assert taxon in text
+    run_written_config(tmp_path, tmp_path / "my_config.yaml")
+    check = pd.read_csv(tmp_path / "results/my_config/tables/data_check.tsv", sep="\t")
+    only_tree = check[check["item"] == "taxa_in_trees_only"]
+    assert set(only_tree["value"]) == {2}
+
+
+def _unrooted_copy(src: Path, dst: Path) -> None:
+    """The trees with their root removed (a basal trichotomy), written as [&U] Newick."""
+    trees = dendropy.TreeList.get(path=str(src), schema="nexus", preserve_underscores=True)
+    for t in trees:
+        t.is_rooted = False
+        t.deroot()
+    trees.write(path=str(dst), schema="newick", unquoted_underscores=True,
+                suppress_rooting=False)
+
+
+def test_unrooted_trees_are_reported_and_rooted_so_the_config_runs(tmp_path):
+    data = demo_data(tmp_path / "data")
+    _unrooted_copy(data / "trees.nex", data / "unrooted.nwk")
+    # the workflow itself refuses these trees as written (the check init answers)
+    survey = survey_trees(data / "unrooted.nwk")
+    assert survey.unrooted == [0, 1, 2, 3]
+    proc = init(tmp_path, "--trees", data / "unrooted.nwk", "--traits", data / "traits.tsv")
+    assert proc.returncode == 0, proc.stderr
+    assert "4 unrooted -> root: midpoint" in proc.stdout
+    text = (tmp_path / "my_config.yaml").read_text()
+    assert "4 of 4 UNROOTED" in text and "outgroup" in text
+    cfg = run_written_config(tmp_path, tmp_path / "my_config.yaml")
+    assert cfg["trees"]["root"] == "midpoint"
+    assert (tmp_path / "results/my_config/tables/fits.tsv").is_file()
+
+
+# --------------------------------------------------------------------------- what init reads
+
+def test_ultrametric_agrees_with_dendropy(tmp_path):
+    """Reference: DendroPy's Tree.calc_node_ages refuses a tree whose tips are not
+    equally far from the root (general-purpose library)."""
+    data = demo_data(tmp_path / "data")
+    for name, schema in (("trees.nex", "nexus"), ("true_tree.nwk", "newick")):
+        ours = survey_trees(data / name)
+        for i, t in enumerate(dendropy.TreeList.get(path=str(data / name), schema=schema)):
+            try:
+                t.calc_node_ages(ultrametricity_precision=1e-3 * t.max_distance_from_root())
+                theirs = True
+            except ValueError:
+                theirs = False
+            assert (i not in ours.not_ultrametric) == theirs, (name, i)
+    assert survey_trees(data / "true_tree.nwk").not_ultrametric == []
+    assert survey_trees(data / "trees.nex").not_ultrametric  # the demo sample is perturbed
+
+
+def _table(path: Path, rows: list) -> Path:
+    path.write_text("\n".join(",".join(r) for r in rows) + "\n")
+    return path
+
+
+def test_odd_table_columns_are_left_out_with_reasons(tmp_path):
+    trees = tmp_path / "t.nwk"
+    trees.write_text("((a:1,b:1):1,(c:1,(d:0.5,e:0.5):1.5):0);\n")
+    rows = [["species", "colour", "note", "all_same", "size"],
+            ["a", "red", "n1", "x", "small"], ["b", "blue", "n2", "x", "unknown"],
+            ["c", "red", "n3", "x", "large"], ["d", "blue", "n4", "x", "medium"],
+            ["e", "N/A", "n5", "x", "small"],
+            ["f", "red", "n6", "x", "large"], ["g", "red", "n7", "x", "large"],
+            ["h", "red", "n8", "x", "medium"], ["i", "red", "n9", "x", "small"]]
+    starter = starting_config(trees, _table(tmp_path / "t.csv", rows), base=tmp_path)
+    cfg = yaml.safe_load(starter.text)
+    # no 'taxon' column: the one matching the tree tips is chosen
+    assert cfg["traits"]["taxon_column"] == "species"
+    assert cfg["traits"]["columns"] == ["colour", "size"]
+    assert "N/A" in cfg["traits"]["missing"] and "unknown" in cfg["traits"]["missing"]
+    assert "note: 9 distinct values" in starter.text and "left out: only state 'x'" in starter.text
+    # the three-state trait gets the symmetric model and the ordered-chain example
+    assert cfg["models"]["mirrored"]["applies_to"] == ["size"]
+    assert '#     "large -> medium -> small": up' in starter.text
+    # rows f, g, h and i are in no tree: listed
+    assert "4 row(s) of the table are in no tree" in starter.text
+
+
+def test_misspelt_taxon_column_and_missing_lengths(tmp_path):
+    trees = tmp_path / "t.nwk"
+    trees.write_text("((a,b),(c,d));\n")
+    table = _table(tmp_path / "t.csv", [["taxon", "colour"], ["a", "red"], ["b", "blue"],
+                                        ["c", "red"], ["d", "blue"]])
+    with pytest.raises(InputError, match="no column 'taxa'.*Did you mean 'taxon'"):
+        starting_config(trees, table, "taxa", base=tmp_path)
+    starter = starting_config(trees, table, base=tmp_path)
+    assert "MISSING in 1 tree(s)" in starter.text and "The run will stop" in starter.text
+
+
+def test_init_refuses_to_replace_a_file(tmp_path):
+    data = demo_data(tmp_path / "data", n_tips=8, n_trees=2)
+    (tmp_path / "my_config.yaml").write_text("mine\n")
+    proc = init(tmp_path, "--trees", data / "trees.nex", "--traits", data / "traits.tsv")
+    assert proc.returncode == 2
+    assert proc.stderr.strip().splitlines()[-1].startswith("mkforest: error: 'my_config.yaml' exists")
+    assert (tmp_path / "my_config.yaml").read_text() == "mine\n"

@@ -208,7 +208,7 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
                          f"tip of the trees in '{trees_file}'; check the taxon column and the "
                          f"spelling of the names (a tip: '{ts.tips[0]}', a row: '{taxa[0]}').")
     n_used = ts.n_trees
-    per_job = max(1, min(250, math.ceil(n_used / 4)))
+    per_job = min(250, max(50, math.ceil(n_used / 4)))  # 50: the schema's default
     L = []
 
     def w(line: str) -> None:

@@ -26,8 +26,14 @@ def init(cwd: Path, *args):
                           text=True, timeout=300)
 
 
-def demo_data(folder: Path, n_tips: int = 14, n_trees: int = 4) -> Path:
+def demo_data(folder: Path, n_tips: int = 14, n_trees: int = 4, columns=None) -> Path:
+    """Demo-shaped data (the demo's generator, smaller); ``columns`` keeps only those traits."""
     make_demo(folder, n_tips=n_tips, n_trees=n_trees, seed=5)
+    if columns:
+        table = folder / "traits.tsv"
+        rows = [line.split("\t") for line in table.read_text().splitlines()]
+        keep = [0] + [rows[0].index(c) for c in columns]
+        table.write_text("".join("\t".join(r[i] for i in keep) + "\n" for r in rows))
     return folder
 
 
@@ -61,7 +67,7 @@ def test_demo_data_config_runs_without_edits(tmp_path):
 
 
 def test_mismatched_taxa_config_runs_and_lists_them(tmp_path):
-    data = demo_data(tmp_path / "data")
+    data = demo_data(tmp_path / "data", columns=["glow", "habitat"])
     table = data / "traits.tsv"
     lines = table.read_text().splitlines()
     dropped = [lines[2].split("\t")[0], lines[5].split("\t")[0]]
@@ -93,7 +99,7 @@ def _unrooted_copy(src: Path, dst: Path) -> None:
 
 
 def test_unrooted_trees_are_reported_and_rooted_so_the_config_runs(tmp_path):
-    data = demo_data(tmp_path / "data")
+    data = demo_data(tmp_path / "data", columns=["glow", "habitat"])
     _unrooted_copy(data / "trees.nex", data / "unrooted.nwk")
     # the workflow itself refuses these trees as written (the check init answers)
     survey = survey_trees(data / "unrooted.nwk")

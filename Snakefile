@@ -1,5 +1,6 @@
 # mkforest: Markov models of categorical trait evolution over a sample of trees.
-# Edit config/config.yaml (or pass --configfile) and run: snakemake --profile profiles/laptop
+# The demo: make demo. Your data: .venv/bin/mkforest init --trees FILE --traits FILE, then
+# make run CONFIG=my_config.yaml (both from this folder).
 import sys
 
 from snakemake.utils import min_version

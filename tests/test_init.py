@@ -16,6 +16,7 @@ from workflow_helpers import REPO, run_snakemake
 
 from mkforest.demo import make_demo
 from mkforest.errors import InputError
+from mkforest.jobs.fit import check_config
 from mkforest.starter import starting_config, survey_trees
 
 MKFOREST = str(Path(sys.executable).with_name("mkforest"))
@@ -58,12 +59,29 @@ def test_demo_data_config_runs_without_edits(tmp_path):
     assert set(fits["analysis"]) == set(cfg["traits"]["columns"])
     assert {"one_rate", "free"} <= set(fits["model"])
     assert (tmp_path / "results/start/tables/ancestral_states.tsv").is_file()
-    # the pairs example is commented out but names two real columns, ready to uncomment
-    text = (tmp_path / "start.yaml").read_text()
-    example = [line[2:] for line in text.splitlines() if line.startswith("# pairs:")
-               or line.startswith("#   ") and "traits: [" in line]
-    pair_traits = yaml.safe_load(example[-1].strip())["traits"]
-    assert set(pair_traits) <= set(cfg["traits"]["columns"]) and len(set(pair_traits)) == 2
+    # the pairs example is commented out; uncommented, it names two real columns and passes
+    # the workflow's own check against the trait table
+    lines = (tmp_path / "start.yaml").read_text().splitlines()
+    start = lines.index("# pairs:")
+    end = lines.index("pairs: {}")
+    block = [ln[2:] for ln in lines[start:end]]
+    with_pair = check_config(yaml.safe_load("\n".join(lines[:start] + block + lines[end + 1:])),
+                             "uncommented")
+    (pair,) = with_pair["pairs"].values()
+    assert len(set(pair["traits"])) == 2 and set(pair["traits"]) <= set(cfg["traits"]["columns"])
+
+
+@pytest.mark.slow  # the full demo: 90 species, 120 trees, five traits, ancestral maps
+def test_full_demo_data_config_runs_without_edits(tmp_path):
+    make_demo(tmp_path / "data")
+    proc = init(tmp_path, "--trees", tmp_path / "data/trees.nex",
+                "--traits", tmp_path / "data/traits.tsv")
+    assert proc.returncode == 0, proc.stderr
+    cfg = run_written_config(tmp_path, tmp_path / "my_config.yaml")
+    assert cfg["traits"]["columns"] == ["habitat", "size", "banding", "aperture", "glow"]
+    fits = pd.read_csv(tmp_path / "results/my_config/tables/fits.tsv", sep="\t")
+    assert fits["tree"].nunique() == 120
+    assert set(fits.loc[fits["analysis"] == "size", "model"]) == {"one_rate", "mirrored", "free"}
 
 
 def test_mismatched_taxa_config_runs_and_lists_them(tmp_path):

@@ -28,8 +28,8 @@ def main(smk):
     fits = _read(smk.input.fits)
     rates = _read(smk.input.rates)
     for col in ("at_lower", "at_upper", "note"):
-        fits[col] = fits[col].fillna("")
-    rates["at_bound"] = rates["at_bound"].fillna("")
+        fits[col] = fits[col].astype(object).fillna("")
+    rates["at_bound"] = rates["at_bound"].astype(object).fillna("")
     order = {a: i for i, a in enumerate(smk.params.analyses)}
     fits = fits.sort_values(["analysis", "model", "tree"],
                             key=lambda s: s.map(order) if s.name == "analysis" else s)

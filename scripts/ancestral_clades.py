@@ -22,11 +22,11 @@ def main(smk):
     if smk.params.reference:
         source = f"reference tree file '{smk.params.reference}'"
         reference = read_trees(smk.params.reference)[0]
-    table, summary = target_clades(trees, named, reference, source)
+    table, summary = target_clades(trees, named, reference, source, smk.params.summary)
     table.to_csv(smk.output.clades, sep="\t", index=False)
     Path(smk.output.tree).write_text("[&R] " + to_newick(summary) + "\n")
-    log.info("%d trees; %d clades to report (%s summary tree, %d named)", len(trees), len(table),
-             "reference" if reference is not None else "majority-rule consensus", len(named))
+    log.info("%d trees; %d clades to report (summary tree: %s; %d named)", len(trees), len(table),
+             table["summary_tree"].iloc[0] if len(table) else "none", len(named))
 
 
 run_job(snakemake, main)  # noqa: F821

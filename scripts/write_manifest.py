@@ -7,12 +7,12 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 import logging
 
 from mkforest.jobs.scripting import run_job
-from mkforest.report.provenance import build_manifest, now_utc, write_json
+from mkforest.report.provenance import build_manifest, now_utc, relative_command, write_json
 
 
 def main(smk):
     inv = smk.params.invocation
-    invocation = {"command": list(inv.command), "working_directory": inv.directory,
+    invocation = {"command": relative_command(inv.command, inv.directory),
                   "started": inv.started, "finished": now_utc()}
     inputs = list(smk.params.inputs) + [("config", p) for p in smk.params.configfiles]
     manifest = build_manifest(smk.params.config, smk.params.run_folder, smk.input.outputs, inputs,

@@ -100,8 +100,18 @@ def test_manifest_settings_trees_software_and_times(run):
     assert sw["python"] == ".".join(map(str, sys.version_info[:3]))
     assert m["platform"]["machine"] and m["platform"]["system"]
     inv = m["invocation"]
-    assert "--configfile" in inv["command"] and str(cfg) in inv["command"]
-    assert Path(inv["working_directory"]).resolve() == work.resolve()
+    # paths relative to the project: the config file by its name, no absolute working directory
+    assert "--configfile" in inv["command"] and cfg.name in inv["command"]
+    assert "working_directory" not in inv
+    assert str(work.resolve()) not in json.dumps(inv) and str(work) not in json.dumps(inv)
+    # the code that ran: its version and, from a git checkout, the commit
+    src = m["mkforest_source"]
+    assert src["version"] == importlib.metadata.version("mkforest")
+    head = subprocess.run(["git", "-C", str(REPO), "rev-parse", "HEAD"], capture_output=True,
+                          text=True)
+    if head.returncode == 0:
+        assert src["git_commit"] == head.stdout.strip()
+        assert isinstance(src["uncommitted_changes"], bool)
     started, finished = (datetime.fromisoformat(inv[k]) for k in ("started", "finished"))
     assert started <= finished
 

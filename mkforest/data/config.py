@@ -281,3 +281,21 @@ def fit_job_config(config: dict, analysis: str, model: str) -> dict:
     else:
         job["pairs"] = {analysis: config["pairs"][analysis]}
     return job
+
+
+def ancestral_job_config(config: dict, analysis: str) -> dict:
+    """A reduced config holding only what one ancestral job (one analysis) reads: its models
+    (or its pair), the criterion, the seed and the ancestral settings. Changing another
+    analysis's model, or a setting of another stage, leaves this job's params unchanged."""
+    tcfg = config["traits"]
+    anc = config["ancestral"]
+    job = {"analysis": analysis, "seed": config["seed"], "criterion": config["criterion"],
+           "traits": {"columns": [], "absent_taxa": tcfg["absent_taxa"]},
+           "models": {}, "pairs": {},
+           "ancestral": {"model": anc["model"], "maps": anc["maps"]}}
+    if analysis in tcfg["columns"]:
+        job["traits"]["columns"] = [analysis]
+        job["models"] = {m: config["models"][m] for m in trait_models(config, analysis)}
+    else:
+        job["pairs"] = {analysis: config["pairs"][analysis]}
+    return job

@@ -110,6 +110,7 @@ def code_trait(name: str, values: dict, states=None, missing=DEFAULT_MISSING, se
         seen.update(parts)
     if states is None:
         states = sorted(seen)
+        _check_case(name, cells, states, where, rows)
     else:
         states = [str(s) for s in states]
         if len(set(states)) != len(states):
@@ -132,6 +133,26 @@ def code_trait(name: str, values: dict, states=None, missing=DEFAULT_MISSING, se
         else:
             possible[r, [index[p] for p in parts]] = True
     return Trait(name, tuple(states), taxa, possible)
+
+
+def _check_case(name, cells, states, where, rows) -> None:
+    """Two labels that differ only in case or inner spacing ('Red', 'red') are almost always one
+    state typed two ways; stop rather than fit a spurious extra state."""
+    by_key = {}
+    for s in states:
+        key = " ".join(s.lower().split())
+        if key in by_key:
+            first, second = by_key[key], s
+            shown = []
+            for label in (first, second):
+                taxon = next(t for t, p in cells.items() if p and label in p)
+                at = f", line {rows[taxon]}" if rows and taxon in rows else ""
+                shown.append(f"'{label}' (taxon '{taxon}'{at})")
+            raise InputError(
+                f"{where}trait '{name}': states {shown[0]} and {shown[1]} differ only in case or "
+                "spacing. Write them the same way, or list both in traits.order."
+                f"{name} if they are different states.")
+        by_key[key] = s
 
 
 def trait_from_mapping(name: str, values: dict, states=None, missing=DEFAULT_MISSING,

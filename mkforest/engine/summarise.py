@@ -69,6 +69,9 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
     for (analysis, model), g in fits.groupby(["analysis", "model"], sort=False):
         fitted = g[np.isfinite(g["delta"].astype(float))]
         n = len(fitted)
+        ll = g["log_likelihood"].astype(float)
+        impossible = ll == -np.inf                 # the data cannot arise under the model
+        tried = ~ll.isna()                          # NaN: not fitted (trait does not vary)
         at_bound = ((g["at_lower"].fillna("") != "") | (g["at_upper"].fillna("") != "")).sum()
         rows.append({
             "analysis": analysis, "model": model, "n_params": int(g["n_params"].iloc[0]),
@@ -80,7 +83,9 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
             "delta_low95": _q(fitted["delta"], 0.025),
             "delta_high95": _q(fitted["delta"], 0.975),
             "median_log_likelihood": fitted["log_likelihood"].median() if n else np.nan,
-            "n_not_converged": int((~g["converged"].astype(bool)).sum()),
+            "n_fits": int(len(g)),
+            "n_impossible": int(impossible.sum()),
+            "n_not_converged": int((~g["converged"].astype(bool) & tried & ~impossible).sum()),
             "n_rates_at_bound": int(at_bound),
             "n_rates_at_upper": int((g["at_upper"].fillna("") != "").sum()),
             "same_as": g["same_as"].iloc[0] if "same_as" in g else "",
@@ -96,20 +101,26 @@ def cautions(row: dict) -> str:
     if row.get("same_as"):
         return (f"same hypothesis as '{row['same_as']}' for this analysis (identical rate "
                 "structure); left out of the weights")
+    total = row.get("n_fits", row["n_trees"])     # every tree tried, fitted or not
+    if row.get("n_impossible"):
+        words.append(f"{row['n_impossible']} of {total} fits are impossible (ln L = -inf: the "
+                     "data cannot arise under this model on those trees, e.g. tips joined by "
+                     "zero-length branches in different states; see tables/data_check.tsv and "
+                     "trees.min_branch_length); those trees are left out of the weights")
     if row["n_trees"] == 0:
-        return "not fitted"
+        return "; ".join(words) if words else "not fitted"
     if row["n_not_converged"]:
-        words.append(f"{row['n_not_converged']} of {row['n_trees']} fits did not converge "
+        words.append(f"{row['n_not_converged']} of {total} fits did not converge "
                      "(optimiser starts disagree); treat their likelihoods with care")
     if row.get("n_rates_at_upper"):
-        words.append(f"{row['n_rates_at_upper']} of {row['n_trees']} fits have a rate at the upper "
+        words.append(f"{row['n_rates_at_upper']} of {total} fits have a rate at the upper "
                      "bound: that rate cannot be estimated from these data")
     lower_only = row["n_rates_at_bound"] - row.get("n_rates_at_upper", 0)
     if lower_only > 0:
-        words.append(f"{lower_only} of {row['n_trees']} fits put a rate at the lower bound "
+        words.append(f"{lower_only} of {total} fits put a rate at the lower bound "
                      "(effectively zero: no support for that change)")
     if row["n_trees"] < FEW_TREES:
-        words.append(f"only {row['n_trees']} trees: intervals across trees are rough")
+        words.append(f"only {row['n_trees']} tree{'' if row['n_trees'] == 1 else 's'}: intervals across trees are rough")
     return "; ".join(words)
 
 

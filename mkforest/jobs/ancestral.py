@@ -44,7 +44,10 @@ from ..engine.mapping import mixed_stochastic_maps
 from ..errors import InputError
 from ..seeds import derive_seed
 
-CLADE_COLUMNS = ["clade", "kind", "n_tips", "frequency", "n_trees_with_clade", "key", "members"]
+CLADE_COLUMNS = ["clade", "kind", "n_tips", "frequency", "n_trees_with_clade", "key", "members",
+                 "summary_tree"]
+# kinds of clade that are nodes of the summary tree (matched exactly in every tree)
+TREE_KINDS = ("consensus", "sampled", "reference")
 FEW_TREES = 20          # fewer trees than this: intervals across trees are rough
 RARE_CLADE = 0.5        # a clade in fewer trees than this fraction is flagged
 WEAK_WEIGHT = 0.1       # non-converged / at-bound fits carrying more weight than this are flagged
@@ -52,13 +55,33 @@ WEAK_WEIGHT = 0.1       # non-converged / at-bound fits carrying more weight tha
 
 # --------------------------------------------------------------------------- 1. target clades
 
-def target_clades(trees, named=(), reference=None, reference_source="reference tree"):
+def most_supported_tree(trees, counts, bits):
+    """(position in ``trees``, log product of clade frequencies): the sampled tree whose
+    clades have the highest product of their frequencies in the sample (common practice
+    for choosing one sampled tree to summarise a posterior sample). Ties go to the first
+    tree in the file; the root (in every tree) does not count."""
+    n = len(trees)
+    best, best_score = 0, -np.inf
+    for i, tree in enumerate(trees):
+        masks = node_masks(tree, bits)[tree.n_tips:-1]
+        score = float(sum(np.log(counts[m] / n) for m in masks))
+        if score > best_score + 1e-12:
+            best, best_score = i, score
+    return best, best_score
+
+
+def target_clades(trees, named=(), reference=None, reference_source="reference tree",
+                  summary="consensus"):
     """(clade table, summary tree).
 
     named: list of clades.NamedClade. reference: a TreeArrays to use instead of
-    the majority-rule consensus. The table has one row per clade: ``kind`` is
-    consensus / reference (a node of the summary tree), named (listed members;
-    the MRCA is used and monophyly counted) or named_mrca (MRCA of a few taxa).
+    the majority-rule consensus. summary: "consensus" (majority-rule consensus,
+    polytomies where no clade is in more than half of the trees) or
+    "most_supported" (the sampled tree with the highest product of clade
+    frequencies). The table has one row per clade: ``kind`` is consensus /
+    sampled / reference (a node of the summary tree), named (listed members;
+    the MRCA is used and monophyly counted) or named_mrca (MRCA of a few taxa);
+    ``summary_tree`` says in words which tree the clades come from.
     """
     taxa = check_same_taxa(trees)
     bits = taxon_bits(taxa)
@@ -74,8 +97,18 @@ def target_clades(trees, named=(), reference=None, reference_source="reference t
             raise InputError(f"{reference_source} (ancestral.reference_tree) {what}; the reference "
                              "tree must have exactly the taxa of the tree sample.")
         summary, kind = reference, "reference"
+        described = f"{reference_source}"
+    elif summary == "most_supported":
+        pick, _ = most_supported_tree(trees, counts, bits)
+        summary, kind = trees[pick], "sampled"
+        described = (f"sampled tree {trees[pick].index} (highest product of clade frequencies "
+                     f"among {n} trees)")
     else:
         summary, kind = majority_consensus(trees), "consensus"
+        n_clades = summary.n_nodes - summary.n_tips - 1
+        described = (f"majority-rule consensus of {n} trees"
+                     + ("; no clade is in more than half of them, so it is unresolved"
+                        if n_clades == 0 else ""))
     names = consensus_names(summary)
     sets = node_clades(summary)
     rows = {}
@@ -83,7 +116,7 @@ def target_clades(trees, named=(), reference=None, reference_source="reference t
         m = mask_of(sets[v], bits)
         rows[m] = dict(clade=names[v], kind=kind, n_tips=len(sets[v]), frequency=counts[m] / n,
                        n_trees_with_clade=counts[m], key=clade_key(sets[v]),
-                       members=",".join(sorted(sets[v])))
+                       members=",".join(sorted(sets[v])), summary_tree=described)
     out = list(rows.values())
     for nc in named:
         m = mask_of(nc.members, bits)
@@ -94,7 +127,8 @@ def target_clades(trees, named=(), reference=None, reference_source="reference t
         out.append(dict(clade=nc.name, kind="named_mrca" if nc.mrca_only else "named",
                         n_tips=len(nc.members), frequency=counts[m] / n if not nc.mrca_only else np.nan,
                         n_trees_with_clade=counts[m] if not nc.mrca_only else n,
-                        key=clade_key(nc.members), members=",".join(sorted(nc.members))))
+                        key=clade_key(nc.members), members=",".join(sorted(nc.members)),
+                        summary_tree=described))
     table = pd.DataFrame(out, columns=CLADE_COLUMNS)
     dup = table["clade"][table["clade"].duplicated()]
     if len(dup):
@@ -176,7 +210,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
     rate_groups = {key: g for key, g in rates.groupby(["model", "tree"])}
     bits = taxon_bits(trees[0].tip_labels) if trees else {}
     members = [m.split(",") for m in clades["members"]]
-    exact = [kind in ("consensus", "reference") for kind in clades["kind"]]
+    exact = [kind in TREE_KINDS for kind in clades["kind"]]
     masks = [mask_of(mem, bits) for mem in members] if trees else []
 
     for t, tree in enumerate(trees):
@@ -281,7 +315,7 @@ def _common_cautions(data, n_total) -> list:
         notes.append(f"{n_total - n_used} of {n_total} trees skipped (no model could be fitted "
                      "or the data are impossible under the fitted models)")
     if n_used and n_used < FEW_TREES:
-        notes.append(f"only {n_used} trees: intervals across trees are rough")
+        notes.append(f"only {n_used} tree{'' if n_used == 1 else 's'}: intervals across trees are rough")
     nc = int((data["unconverged_weight"][used] > WEAK_WEIGHT).sum())
     if nc:
         notes.append(f"on {nc} of {n_used} trees, fits carrying over {WEAK_WEIGHT:.0%} of the "
@@ -308,7 +342,7 @@ def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
         n = int(present.sum())
         notes = []
         kind = crow["kind"]
-        if kind in ("consensus", "reference", "named"):
+        if kind in TREE_KINDS + ("named",):
             freq = crow["frequency"]
             if freq < RARE_CLADE:
                 notes.append(f"this clade is in only {freq:.0%} of the trees "

@@ -64,8 +64,16 @@ def table_problems(config: dict, source: str = "config") -> list:
     except InputError as exc:
         return [str(exc)]
     problems = []
+    for name, trait in traits.items():
+        if trait.k < 2:
+            which = f"only the state '{trait.states[0]}'" if trait.k else "no state at all"
+            problems.append(f"trait table '{tcfg['file']}': trait '{name}' has {which} in its "
+                            "column, so there is no change to model. Drop it from traits.columns "
+                            f"(or list its possible states in traits.order.{name}).")
     for analysis in analyses(config):
         # one model at a time, so that every faulty model is named, not only the first
+        if analysis in traits and traits[analysis].k < 2:
+            continue  # named above
         names = trait_models(config, analysis) if analysis in traits else [None]
         for name in names:
             if name and config["models"][name].get("kind") not in KINDS:

@@ -181,7 +181,7 @@ def summary_cautions(row: dict, n_replicates: int) -> str:
         words.append(f"{row['n_not_converged']} of {row['n_trees']} trees have a fit that did not "
                      "converge; their statistics may be off")
     if row["n_trees"] < FEW_TREES:
-        words.append(f"only {row['n_trees']} trees: the spread across trees is rough")
+        words.append(f"only {row['n_trees']} tree{'' if row['n_trees'] == 1 else 's'}: the spread across trees is rough")
     if row["boundary"]:
         words.append("the null sits on the boundary of the alternative (it forbids rates the "
                      "alternative leaves free): the chi-square p-value is only approximate")

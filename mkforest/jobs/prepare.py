@@ -6,8 +6,14 @@ import math
 
 import numpy as np
 
+from ..data.trees import TreeArrays
 from ..errors import InputError
 from ..seeds import derive_seed
+
+
+def burnin_count(n_total: int, burnin) -> int:
+    """Trees dropped from the start: a fraction below 1 of n_total (rounded down), or a count."""
+    return min(n_total, int(math.floor(burnin * n_total)) if burnin < 1 else int(burnin))
 
 
 def select_trees(n_total: int, burnin=0, thin: int = 1, sample=None, seed: int = 1,
@@ -20,7 +26,7 @@ def select_trees(n_total: int, burnin=0, thin: int = 1, sample=None, seed: int =
     """
     if burnin < 0:
         raise InputError(f"{source}: trees.burnin must not be negative (got {burnin}).")
-    drop = int(math.floor(burnin * n_total)) if burnin < 1 else int(burnin)
+    drop = burnin_count(n_total, burnin)
     if burnin >= 1 and burnin != int(burnin):
         raise InputError(f"{source}: trees.burnin {burnin} is neither a fraction below 1 nor a "
                          "whole number of trees.")
@@ -52,8 +58,105 @@ def check_same_tips(trees: list, source: str) -> None:
                              "the sample must have the same tips.")
 
 
+def short_branches(tree: TreeArrays, minimum: float = 0.0) -> dict:
+    """What a tree holds of zero-length (or, with ``minimum``, shorter) branches, as read.
+
+    zero_tips: labels of tips on a zero-length branch; zero_internal: internal
+    branches of length zero; below_minimum: branches (any) shorter than ``minimum``.
+    The root has no branch and is never counted.
+    """
+    lengths = tree.length[:-1]           # every node but the root (the last node)
+    zero = lengths == 0
+    return {"zero_tips": [tree.tip_labels[v] for v in np.flatnonzero(zero[: tree.n_tips])],
+            "zero_internal": int(zero[tree.n_tips:].sum()),
+            "below_minimum": int((lengths < minimum).sum()) if minimum else 0}
+
+
+def lengthen_branches(tree: TreeArrays, minimum) -> TreeArrays:
+    """Every branch shorter than ``minimum`` set to ``minimum`` (trees.min_branch_length).
+
+    Tips joined by zero-length branches are at distance zero: a trait that differs
+    between them has likelihood zero under every model. Giving every branch a small
+    positive length is the usual remedy (common practice); the count of branches
+    changed is reported in the data check and the methods text.
+    """
+    if not minimum:
+        return tree
+    length = tree.length.copy()
+    body = length[:-1]
+    body[body < minimum] = minimum
+    return TreeArrays(tree.tip_labels, tree.parent, length, tree.child_ptr, tree.children,
+                      tree.index)
+
+
+def zero_distance_groups(tree: TreeArrays) -> list:
+    """Groups (lists of tip numbers, two or more) of tips at distance zero from one another:
+    joined through branches of length zero only."""
+    parent = tree.parent
+    top = np.arange(tree.n_nodes)
+    for v in range(tree.n_nodes - 2, -1, -1):       # preorder: a parent's group is known first
+        if tree.length[v] == 0:
+            top[v] = top[parent[v]]
+    groups: dict = {}
+    for v in range(tree.n_tips):
+        groups.setdefault(int(top[v]), []).append(v)
+    return [g for g in groups.values() if len(g) > 1]
+
+
+def impossible_tips(tree: TreeArrays, trait) -> list:
+    """Groups of tips at distance zero whose data share no state: [(label, cell text), ...] per
+    group. On such a tree the trait's likelihood is zero under every model."""
+    row = {t: i for i, t in enumerate(trait.taxa)}
+    out = []
+    for group in zero_distance_groups(tree):
+        labels = [tree.tip_labels[v] for v in group if tree.tip_labels[v] in row]
+        possible = [trait.possible[row[lab]] for lab in labels]
+        if len(possible) > 1 and not np.logical_and.reduce(possible).any():
+            out.append([(lab, "|".join(s for s, ok in zip(trait.states, p) if ok))
+                        for lab, p in zip(labels, possible) if not p.all()])
+    return out
+
+
+def tree_check_rows(summary: dict, used: list) -> list:
+    """data_check rows about the tree sample (trait '(trees)'): trees in the file, dropped as
+    burn-in, used, rooting, and per tree the tips on zero-length branches."""
+    rows = [dict(trait="(trees)", item="trees_in_file", value=summary["n_in_file"], detail=""),
+            dict(trait="(trees)", item="dropped_as_burnin", value=summary["burnin_dropped"],
+                 detail=""),
+            dict(trait="(trees)", item="trees_used", value=len(used), detail=""),
+            dict(trait="(trees)", item="rooted", value=int(summary.get("root") is not None),
+                 detail=summary.get("rooting", ""))]
+    total_zero = sum(len(r["zero_tips"]) + r["zero_internal"] for r in used)
+    rows.append(dict(trait="(trees)", item="zero_length_branches", value=total_zero,
+                     detail=f"on {sum(1 for r in used if r['zero_tips'] or r['zero_internal'])} "
+                            "trees, as read"))
+    minimum = summary.get("min_branch_length")
+    rows.append(dict(trait="(trees)", item="branches_lengthened",
+                     value=sum(r["below_minimum"] for r in used),
+                     detail=f"to trees.min_branch_length {minimum:g}" if minimum else
+                     "none (trees.min_branch_length not set)"))
+    for r in used:
+        if r["zero_tips"]:
+            rows.append(dict(trait="(trees)", item="zero_length_tips", tree=r["tree"],
+                             value=len(r["zero_tips"]), detail=", ".join(r["zero_tips"])))
+    return rows
+
+
 def chunk(items: list, per_job: int) -> list:
     return [items[i:i + per_job] for i in range(0, len(items), per_job)]
+
+
+def impossible_rows(traits: dict, trees: list) -> list:
+    """data_check rows, per trait and tree, naming tips at distance zero with no state in common."""
+    rows = []
+    for name, t in traits.items():
+        for tree in trees:
+            groups = impossible_tips(tree, t)
+            if groups:
+                detail = "; ".join(" vs ".join(f"{lab} ({cell})" for lab, cell in g) for g in groups)
+                rows.append(dict(trait=name, item="impossible_zero_length_tips", tree=tree.index,
+                                 value=sum(len(g) for g in groups), detail=detail))
+    return rows
 
 
 def data_check(traits: dict, tree_tips, absent: str = "error", source: str = "traits") -> tuple:
@@ -76,9 +179,14 @@ def data_check(traits: dict, tree_tips, absent: str = "error", source: str = "tr
         if only_tree and absent == "error":
             shown = ", ".join(f"'{x}'" for x in only_tree[:5])
             more = f" and {len(only_tree) - 5} more" if len(only_tree) > 5 else ""
+            near = {" ".join(x.lower().split()): x for x in only_table}
+            close = [(x, near[" ".join(x.lower().split())]) for x in only_tree
+                     if " ".join(x.lower().split()) in near]
+            hint = (f" The table has '{close[0][1]}' where the trees have '{close[0][0]}': names "
+                    "must match exactly, including case and spaces." if close else "")
             problems.append(f"{source}: taxon {shown}{more} is in the trees but has no row in the "
                             "trait table. Add rows with '?' for unknown values, or set "
-                            "traits.absent_taxa: missing.")
+                            f"traits.absent_taxa: missing.{hint}")
         in_tree = np.array([x in tips for x in t.taxa], dtype=bool)
         p = t.possible[in_tree]
         n_states = p.sum(axis=1)

@@ -157,6 +157,15 @@ def _data_paragraph(config, tables) -> str:
     n_tips = int(used["n_tips"].iloc[0])
     text = (f"We analysed {plural(len(parts), 'categorical trait')} of {n_tips} taxa: "
             f"{listing(parts)}.")
+    only = check[check["item"] == "taxa_in_table_only"]
+    if len(only) and int(only["value"].max()) > 0:
+        row = only.sort_values("value").iloc[-1]
+        names = [x for x in str(row["detail"]).split(",") if x]
+        shown = listing(names[:10]) + (f" and {len(names) - 10} more" if len(names) > 10 else "")
+        text += (f" {plural(int(row['value']), 'taxon', 'taxa')} of the trait table "
+                 f"{'is' if int(row['value']) == 1 else 'are'} in none of the trees and "
+                 f"{'was' if int(row['value']) == 1 else 'were'} not analysed ({shown}; "
+                 "tables/data_check.tsv).")
     if missing:
         text += " Cells scored as unknown were treated as compatible with every state."
     if ambiguous:
@@ -176,13 +185,22 @@ def _trees_paragraph(config, tables) -> str:
                 + _rooting_sentence(tcfg))
     steps = []
     burnin = tcfg["burnin"]
-    if burnin == 0:
-        steps.append("no trees were discarded as burn-in")
+    counts = _tree_counts(tables)
+    dropped = counts.get("dropped_as_burnin")
+    in_file = counts.get("trees_in_file")
+    if dropped is None:              # a run from before these counts were recorded
+        dropped = positions[0] if burnin else 0
+    of_file = f" of the {in_file} in the file" if in_file is not None else " in the file"
+    if dropped == 0:
+        steps.append("no trees were discarded as burn-in" if burnin == 0 else
+                     f"the burn-in setting ({burnin:g}) discarded none of the trees")
     elif burnin < 1:
-        steps.append(f"the first {burnin * 100:g}% of the trees in the file were discarded as burn-in")
+        steps.append(f"the first {dropped} trees{of_file} ({burnin * 100:g}%) were discarded as "
+                     "burn-in" if dropped > 1 else
+                     f"the first tree{of_file} ({burnin * 100:g}%) was discarded as burn-in")
     else:
-        steps.append("the first tree in the file was discarded as burn-in" if int(burnin) == 1 else
-                     f"the first {int(burnin)} trees in the file were discarded as burn-in")
+        steps.append(f"the first tree{of_file} was discarded as burn-in" if dropped == 1 else
+                     f"the first {dropped} trees{of_file} were discarded as burn-in")
     if tcfg["thin"] > 1:
         steps.append(f"every {_ordinal(tcfg['thin'])} tree was kept")
     regular = all(b - a == tcfg["thin"] for a, b in zip(positions, positions[1:]))
@@ -193,7 +211,43 @@ def _trees_paragraph(config, tables) -> str:
     return (f"To take phylogenetic uncertainty into account, every model was fitted separately on "
             f"each of {n} trees from the tree sample in {name}: {listing(steps)}. The trees used "
             f"are listed in tables/trees_used.tsv by their position in the file ({span}, counted "
-            "from 0)." + _rooting_sentence(tcfg))
+            "from 0)." + _rooting_sentence(tcfg) + _branch_sentence(tcfg, tables, n))
+
+
+def _tree_counts(tables) -> dict:
+    """{item: value} of the tree rows of data_check.tsv (trait '(trees)'), when present."""
+    check = tables.get("data_check")
+    if check is None or "trait" not in check:
+        return {}
+    rows = check[(check["trait"] == "(trees)") & (check["item"] != "zero_length_tips")]
+    return {r["item"]: int(r["value"]) for r in rows.to_dict("records")}
+
+
+def _branch_sentence(tcfg, tables, n) -> str:
+    """Zero-length branches as read, the minimum length applied, and the trees on which
+    tips at distance zero make a trait impossible: counted from data_check.tsv."""
+    check = tables.get("data_check")
+    if check is None or "item" not in check:
+        return ""
+    text = ""
+    per_tree = check[check["item"] == "zero_length_tips"]
+    if len(per_tree):
+        text += (f" {len(per_tree)} of the {n} trees had tips on branches of length zero "
+                 f"({int(per_tree['value'].sum())} such tips in all; named per tree in "
+                 "tables/data_check.tsv).")
+    counts = _tree_counts(tables)
+    minimum = tcfg.get("min_branch_length") or 0
+    if minimum:
+        text += (f" Branches shorter than {minimum:g} were lengthened to {minimum:g} before "
+                 f"fitting ({plural(counts.get('branches_lengthened', 0), 'branch', 'branches')} "
+                 "in all).")
+    bad = check[check["item"] == "impossible_zero_length_tips"]
+    for trait, g in bad.groupby("trait", sort=False):
+        k = g["tree"].nunique()
+        text += (f" On {k} of the {n} trees, tips joined by zero-length branches differ in "
+                 f"{trait}, which no model allows (likelihood zero); those trees were left out "
+                 f"of the comparison of {trait}'s models.")
+    return text
 
 
 def _rooting_sentence(tcfg) -> str:
@@ -318,11 +372,22 @@ def _ancestral_paragraph(config, tables) -> str:
     how = {"average": "averaged over models with each tree's Akaike weights",
            "best": f"under the model with the lowest {CRITERION_NAMES[config['criterion']]} on "
                    "each tree"}.get(choice, f"under the model {choice}")
+    clades = tables.get("clades")
+    sampled = (clades[clades["kind"] == "sampled"] if clades is not None and "kind" in clades
+               else None)
     if anc.get("reference_tree"):
         where = f"the clades of the reference tree {Path(anc['reference_tree']).name}"
+    elif sampled is not None and len(sampled):
+        where = (f"the clades of the {sampled['summary_tree'].iloc[0]}, counted from 0 in the "
+                 "file")
     else:
         where = ("the clades of the majority-rule consensus of the tree sample "
                  + cite("margush1981"))
+        consensus = (clades[clades["kind"] == "consensus"] if clades is not None and "kind" in clades
+                     else None)
+        if consensus is not None and len(consensus) == 1:
+            where += (" (no clade is in more than half of the trees, so the consensus is "
+                      "unresolved and only its root is reported)")
     named = list(anc.get("clades", {}))
     if named:
         where += f" and at the named {'clade' if len(named) == 1 else 'clades'} {listing(named)}"
@@ -351,7 +416,7 @@ def _software_paragraph(config, software) -> str:
 
 # --------------------------------------------------------------------------- results
 
-def _analysis_results(analysis, support, rate_summary, crit_name) -> str:
+def _analysis_results(analysis, support, rate_summary, crit_name, n_used=None) -> str:
     rows = support[support["analysis"] == analysis]
     same = rows["same_as"].fillna("").astype(str) if "same_as" in rows else pd.Series("", rows.index)
     ranked = rows[same == ""].sort_values("mean_weight", ascending=False, na_position="last")
@@ -361,7 +426,9 @@ def _analysis_results(analysis, support, rate_summary, crit_name) -> str:
                 "two observed states).")
     best = ranked.iloc[0]
     k_best = count_of(best["fraction_best"], int(best["n_trees"]))
-    text = (f"Across the {n} trees, {best['model']} received the most support (mean Akaike "
+    across = (f"Across the {n} trees" if n_used is None or n == n_used else
+              f"Across the {n} of {n_used} trees on which {analysis} could be fitted")
+    text = (f"{across}, {best['model']} received the most support (mean Akaike "
             f"weight {number(best['mean_weight'])}; lowest {crit_name} on {k_best} of "
             f"{int(best['n_trees'])} trees): it was the best model "
             f"{_how_often(k_best, int(best['n_trees']))}.")
@@ -444,7 +511,7 @@ def _ancestral_results(analysis, tables) -> str:
                      f"({number(r['count_low95'], 1)} to {number(r['count_high95'], 1)})"
                      for r in rows.to_dict("records")]
             text.append(f"Expected numbers of changes along the whole tree (mean over "
-                        f"{int(rows['n_maps'].max())} maps on {int(rows['n_trees'].max())} trees, "
+                        f"{int(rows['n_maps'].max())} maps on {plural(int(rows['n_trees'].max()), 'tree')}, "
                         f"central 95% interval of the maps): {'; '.join(parts)}.")
     return " ".join(text)
 
@@ -507,7 +574,8 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
             ""]
     rate_summary = tables["rate_summary"]
     for analysis in models:
-        out += [f"### {analysis}", "", _analysis_results(analysis, support, rate_summary, crit_name)]
+        out += [f"### {analysis}", "", _analysis_results(analysis, support, rate_summary, crit_name,
+                                                        len(tables["trees_used"]))]
         if has_pairs and pair_summary is not None and analysis in config["pairs"]:
             pr = _pair_results(analysis, pair_summary)
             if pr:
@@ -550,3 +618,24 @@ def read_tables(paths: dict) -> dict:
 def table_name(path) -> str:
     return Path(path).name.removesuffix(".tsv")
 
+
+
+def run_warnings(run_dir) -> list:
+    """Plain sentences for the end of a run: fits that are impossible (ln L = -inf) and the
+    number of models whose summary carries a caution. Empty when the tables are not there."""
+    path = Path(run_dir) / "tables" / "model_support.tsv"
+    if not path.is_file():
+        return []
+    support = read_tables({"model_support": path})["model_support"]
+    out = []
+    if "n_impossible" in support:
+        for row in support[support["n_impossible"] > 0].to_dict("records"):
+            out.append(f"{row['analysis']} / {row['model']}: {int(row['n_impossible'])} of "
+                       f"{int(row['n_fits'])} fits are impossible (ln L = -inf); see "
+                       f"{Path(run_dir) / 'tables' / 'data_check.tsv'} and trees.min_branch_length.")
+    cautious = support[support["caution"].str.strip() != ""]
+    if len(cautious):
+        out.append(f"{len(cautious)} of {len(support)} model summaries carry a caution: read the "
+                   f"caution column of {path} and the Cautions in {Path(run_dir) / 'methods.md'} "
+                   "before citing a result.")
+    return out

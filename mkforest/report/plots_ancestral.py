@@ -75,7 +75,7 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
     # node bars: mean probability of each state, stacked left to right
     by_members = {}
     for row in clades.to_dict("records"):
-        if row["kind"] in ("consensus", "reference", "named"):
+        if row["kind"] in ("consensus", "sampled", "reference", "named"):
             by_members[frozenset(str(row["members"]).split(","))] = row
     table = states.set_index(["clade", "state"])["mean_probability"]
     sets = node_clades(tree)
@@ -132,8 +132,12 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
         ax.spines[side].set_visible(False)
     n_trees = int(states["n_trees"].max()) if len(states) else 0
     ax.set_xlabel("distance from the root (branch length units)")
-    ax.set_title(title or f"Ancestral states of '{analysis}': mean probability across trees "
-                 f"(up to {n_trees} trees)", fontsize=10)
+    drawn_on = (str(clades["summary_tree"].iloc[0]) if "summary_tree" in clades and len(clades)
+                else "")
+    default = (f"Ancestral states of '{analysis}': mean probability across trees "
+               f"(up to {n_trees} tree{'' if n_trees == 1 else 's'})"
+               + (f"\ndrawn on the {drawn_on}" if drawn_on else ""))
+    ax.set_title(title or default, fontsize=10)
     fig.tight_layout()
     fig.mkforest_nodes_drawn = n_drawn  # for tests: how many node bars carry probabilities
     return fig

@@ -101,6 +101,44 @@ def software_versions() -> dict:
     return out
 
 
+def source_revision() -> dict:
+    """mkforest's version and, when it runs from a git checkout, the commit (and whether
+    tracked files differ from it). Recorded so a result can be traced to the exact code."""
+    import subprocess
+
+    out = {"version": software_versions().get("mkforest", "not installed"), "git_commit": None,
+           "uncommitted_changes": None}
+    repo = Path(__file__).resolve().parents[2]
+    if not (repo / ".git").exists():
+        return out
+    try:
+        head = subprocess.run(["git", "-C", str(repo), "rev-parse", "HEAD"], capture_output=True,
+                              text=True, timeout=20)
+        dirty = subprocess.run(["git", "-C", str(repo), "status", "--porcelain",
+                                "--untracked-files=no"], capture_output=True, text=True, timeout=20)
+    except (OSError, subprocess.SubprocessError):
+        return out
+    if head.returncode == 0:
+        out["git_commit"] = head.stdout.strip()
+        out["uncommitted_changes"] = bool(dirty.stdout.strip()) if dirty.returncode == 0 else None
+    return out
+
+
+def relative_command(command, directory) -> list:
+    """The command line with the working directory written as '.', so the manifest holds no
+    absolute path of the machine it ran on."""
+    base = str(Path(directory).resolve())
+    out = []
+    for arg in command:
+        arg = str(arg)
+        if arg == base:
+            arg = "."
+        elif arg.startswith(base + os.sep):
+            arg = os.path.relpath(arg, base)
+        out.append(arg)
+    return out
+
+
 def platform_info() -> dict:
     return {"system": platform.system(), "release": platform.release(),
             "machine": platform.machine(), "platform": platform.platform(),
@@ -145,6 +183,7 @@ def build_manifest(config: dict, run_dir, outputs, inputs, trees_used, invocatio
         "outputs": records,
         "config": config,
         "software": software_versions(),
+        "mkforest_source": source_revision(),
         "platform": platform_info(),
         "invocation": invocation,
     }

@@ -20,6 +20,7 @@ rule ancestral_clades:
     params:
         clades=ANC["clades"],
         reference=ANC["reference_tree"],
+        summary=ANC["summary_tree"],
     log:
         f"{OUT}/logs/ancestral_clades.log",
     conda:

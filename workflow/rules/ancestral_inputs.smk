@@ -26,7 +26,9 @@ def prepared_tree_chunks(wildcards):
 
 
 def ancestral_params(wildcards):
-    return {"analysis": wildcards.analysis, "config": config}
+    """Only this analysis's slice of the config (see fit_params)."""
+    return stable({"analysis": wildcards.analysis,
+                   "config": ancestral_job_config(config, wildcards.analysis)})
 
 
 def ancestral_runtime(wildcards, attempt):

@@ -3,7 +3,7 @@ import glob
 import os
 import sys
 
-from mkforest.data.config import analyses, fit_job_config, hidden_class_models
+from mkforest.data.config import analyses, ancestral_job_config, fit_job_config, hidden_class_models
 from mkforest.errors import InputError
 from mkforest.jobs.fit import check_config
 

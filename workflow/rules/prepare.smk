@@ -47,6 +47,8 @@ rule make_demo_data:
     output:
         trees="demo/data/trees.nex",
         traits="demo/data/traits.tsv",
+        truth="demo/data/truth.yaml",
+        true_tree="demo/data/true_tree.nwk",
     log:
         "demo/data/make_demo_data.log",
     conda:

@@ -47,3 +47,10 @@ rule manifest:
         ENV
     script:
         "../../scripts/write_manifest.py"
+
+
+onsuccess:
+    # The run's last words: anything that makes a result unusable is repeated here,
+    # so it is not lost in the job logs.
+    for line in run_warnings(OUT):
+        print(f"mkforest: warning: {line}", file=sys.stderr)

@@ -61,13 +61,4 @@ def test_trees_with_different_tips_are_named(tmp_path):
     _fails_with(run_snakemake(tmp_path, cfg), "tree 2", "Lumasta_intruder")
 
 
-def test_burnin_leaving_no_trees(tmp_path):
-    cfg = tiny_config(tmp_path, trees={"file": str(tmp_path / "data" / "trees.nex"), "burnin": 6})
-    _fails_with(run_snakemake(tmp_path, cfg), "burn-in", "leave no trees")
-
-
-def test_unrooted_tree_says_how_to_root(tmp_path):
-    bad = tmp_path / "unrooted.nwk"
-    bad.write_text("(a:1,b:1,c:1);\n")
-    cfg = tiny_config(tmp_path, trees={"file": str(bad)})
-    _fails_with(run_snakemake(tmp_path, cfg), "unrooted", "[&R]")
+# Burn-in leaving no trees and unrooted samples: tests/test_catalogue.py (cases 22, 30).

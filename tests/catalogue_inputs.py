@@ -7,7 +7,6 @@ tree files, as programs that write posterior samples do.
 
 from __future__ import annotations
 
-import itertools
 from pathlib import Path
 
 import numpy as np
@@ -67,7 +66,3 @@ def posterior_nexus(path: Path, newicks: list, taxa: list, rooted: str = "[&R] "
     lines.append("END;")
     path.write_text("\n".join(lines) + "\n")
     return path
-
-
-def pairs_of(items):
-    return list(itertools.combinations(items, 2))

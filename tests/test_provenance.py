@@ -149,7 +149,11 @@ def test_methods_numbers_are_those_of_the_tables(run):
     n = len(used)
     assert f"each of {n} trees" in text
     assert f"positions {used['tree'].min()} to {used['tree'].max()}" in text
-    assert "the first tree in the file was discarded as burn-in" in text
+    # burn-in counted from the file itself: trees in it, and the first position used
+    in_file = sum(1 for line in (work / "data" / "trees.nex").read_text().splitlines()
+                  if line.strip().upper().startswith("TREE "))
+    assert used["tree"].min() == 1
+    assert f"the first tree of the {in_file} in the file was discarded as burn-in" in text
     assert "2 starting points" in text and "between 1e-06 and 10000" in text
     for analysis, g in fits.groupby("analysis"):
         sec = _section(text, analysis)
@@ -219,7 +223,8 @@ def test_methods_follow_the_settings(run):
     assert "convergence could not be checked" in text
     cfg = base_config(trees={"file": "data/trees.nex", "burnin": 0.25, "thin": 2})
     text = _text_for(work, cfg)
-    assert "the first 25% of the trees in the file were discarded as burn-in" in text
+    # 25% of the 6 trees in the file is 1.5: one tree dropped, and the text says one
+    assert "the first tree of the 6 in the file (25%) was discarded as burn-in" in text
     assert "every 2nd tree was kept" in text
 
 

@@ -322,3 +322,50 @@ def test_model_average_keeps_plain_and_class_rates_apart():
     assert out[("a", "b")] == pytest.approx(2.0)
     assert out[("a@1", "b@1")] == pytest.approx(0.5)
     assert out[("a@1", "a@2")] == pytest.approx(0.1)
+
+
+# --------------------------------------------------------------------------- ancestral states and maps
+
+def _lumpable_case(seed=21, n=30):
+    rng = np.random.default_rng(seed)
+    labels, parent, length = yule_arrays(rng, n)
+    tree = parse_newick(newick_from_arrays(labels, parent, length))
+    base = build_model("unconstrained", ["x", "y", "z"])
+    plain_rates = rng.uniform(0.3, 2.0, size=base.n_params)
+    X = np.eye(3)[simulate_states(tree, base.q_matrix(plain_rates), rng)[: tree.n_tips]]
+    X[0] = [1, 1, 0]                                   # an ambiguous tip
+    model = with_hidden_classes(base, 2, "symmetric")
+    rates = np.concatenate([plain_rates, plain_rates, [0.7]])
+    return tree, base, plain_rates, model, rates, X
+
+
+@pytest.mark.parametrize("root", ["uniform", "stationary", "data_weighted", "z"])
+def test_observed_marginals_of_equal_classes_are_the_plain_marginals(root):
+    """Lumpability (fact of the trade): with equal classes the probabilities of the
+    observed states, summed over classes, are the plain model's at every node."""
+    from mkforest.engine.ancestral import averaged_probabilities, marginal_probabilities
+    tree, base, plain_rates, model, rates, X = _lumpable_case()
+    plain = marginal_probabilities(tree, X, base.q_matrix(plain_rates), root, base.states)
+    mixed = averaged_probabilities(tree, X, [(model.q_matrix(rates), root, 1.0, model)],
+                                   base.states)
+    np.testing.assert_allclose(mixed, plain, atol=1e-10)
+
+
+def test_maps_under_equal_classes_count_like_the_plain_model():
+    """Lumpability again: the number of changes of observed state per map has the same
+    distribution as under the plain model (means within 4 standard errors over 1,500
+    maps each); class switches are not counted and time is summed over classes."""
+    from mkforest.engine.mapping import mixed_stochastic_maps
+    tree, base, plain_rates, model, rates, X = _lumpable_case()
+    n = 1500
+    plain = mixed_stochastic_maps(tree, X, [(base.q_matrix(plain_rates), "uniform", 1.0)], n,
+                                  np.random.default_rng(1), base.states)
+    hidden = mixed_stochastic_maps(tree, X, [(model.q_matrix(rates), "uniform", 1.0, model)], n,
+                                   np.random.default_rng(2), base.states)
+    assert hidden.counts.shape == (n, 3, 3) and hidden.dwell.shape == (n, 3)
+    assert (hidden.counts[:, np.arange(3), np.arange(3)] == 0).all()
+    np.testing.assert_allclose(hidden.dwell.sum(axis=1), tree.total_length, rtol=1e-9)
+    a, b = plain.n_changes.astype(float), hidden.n_changes.astype(float)
+    se = np.sqrt(a.var() / n + b.var() / n)
+    assert abs(a.mean() - b.mean()) < 4 * se, (a.mean(), b.mean(), se)
+    assert hidden.node_states.max() < 3

@@ -45,6 +45,7 @@ import numpy as np
 from .likelihood import (
     _LOG_SCALE,
     _down_pass_eigen,
+    _reachable,
     _p_from_eigen,
     _prune_matrices,
     eigensystem,
@@ -81,24 +82,6 @@ def _phi1(z, coef):
     for i in range(n - 2, -1, -1):
         s = s * z + coef[i]
     return s
-
-
-@numba.njit(cache=True)
-def _reachable(Q):
-    """bool [k,k]: j can be reached from i (i itself included); transitive closure of Q > 0
-    (the same relation as likelihood.reachable)."""
-    k = Q.shape[0]
-    R = np.zeros((k, k), dtype=np.bool_)
-    for i in range(k):
-        for j in range(k):
-            R[i, j] = i == j or Q[i, j] > 0.0
-    for m in range(k):
-        for i in range(k):
-            if R[i, m]:
-                for j in range(k):
-                    if R[m, j]:
-                        R[i, j] = True
-    return R
 
 
 @numba.njit(cache=True)

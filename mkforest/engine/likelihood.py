@@ -239,13 +239,27 @@ def eigensystem(Q):
     return lam, np.ascontiguousarray(V), np.ascontiguousarray(Vinv)
 
 
+@numba.njit(cache=True)
+def _reachable(Q):
+    """bool [k,k]: j can be reached from i (i itself included); the transitive closure
+    of Q > 0 (Warshall's algorithm)."""
+    k = Q.shape[0]
+    R = np.zeros((k, k), dtype=np.bool_)
+    for i in range(k):
+        for j in range(k):
+            R[i, j] = i == j or Q[i, j] > 0.0
+    for m in range(k):
+        for i in range(k):
+            if R[i, m]:
+                for j in range(k):
+                    if R[m, j]:
+                        R[i, j] = True
+    return R
+
+
 def reachable(Q) -> np.ndarray:
     """bool [k,k]: j can be reached from i (i itself included), i.e. P_ij(t) > 0 for t > 0."""
-    k = Q.shape[0]
-    reach = (Q > 0) | np.eye(k, dtype=bool)
-    for _ in range(max(1, int(np.ceil(np.log2(k))))):
-        reach = reach | ((reach.astype(np.int64) @ reach.astype(np.int64)) > 0)
-    return reach
+    return _reachable(np.ascontiguousarray(Q, dtype=np.float64))
 
 
 def transition_matrices(Q, t) -> np.ndarray:

@@ -86,3 +86,19 @@ def test_class_figures_and_methods(run):
     assert "hidden rate classes" in text
     assert "Beaulieu, O'Meara & Donoghue 2013" in text
     assert "Maddison & FitzJohn 2015" in text
+
+
+def test_pair_diagram_one_panel_per_class(run):
+    import json
+
+    from mkforest.data.traits import traits_from_json
+    from mkforest.engine import pairs
+    from mkforest.report.plots_pairs import pair_diagram
+    traits = traits_from_json(json.loads((run / "prepared" / "traits.json").read_text()))
+    pair = pairs.make_pair("shells", traits["banding"], traits["aperture"])
+    fig = pair_diagram(pair, read(run, "rate_summary"), read(run, "model_support"))
+    titles = [ax.get_title().split("\n")[0] for ax in fig.axes if ax.get_visible()]
+    for h in ("independent", "dependent", "model average"):
+        assert f"{h}, class 1" in titles and f"{h}, class 2" in titles
+    texts = {x.get_text() for ax in fig.axes for x in ax.texts}
+    assert set(pair.states) <= texts

@@ -162,7 +162,8 @@ def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str,
     n_classes = int(rows["class"].max()) if len(rows) else 1
     rows["state"] = [class_label(int(c), n_classes) for c in rows["class"]]
     labels = [class_label(c, n_classes) for c in range(1, n_classes + 1)]
-    colours = dict(zip(labels, sns.color_palette(CLASS_PALETTE, n_colors=n_classes)))
+    cmap = sns.color_palette(CLASS_PALETTE, as_cmap=True)   # the palette's full range: strong ends
+    colours = dict(zip(labels, [cmap(x) for x in np.linspace(0.0, 1.0, n_classes)]))
     n_trees = int(rows["n_trees"].max()) if len(rows) else 0
     return state_tree(tree, rows, clades, None, analysis, colours=colours,
                       title=f"Hidden rate classes of '{analysis}' under model '{model}': mean "

@@ -369,3 +369,23 @@ def test_maps_under_equal_classes_count_like_the_plain_model():
     se = np.sqrt(a.var() / n + b.var() / n)
     assert abs(a.mean() - b.mean()) < 4 * se, (a.mean(), b.mean(), se)
     assert hidden.node_states.max() < 3
+
+
+def test_notes_when_classes_cannot_mean_much():
+    """A fit whose classes have the same rates, or whose switching is at the upper bound,
+    gets a plain-words note; a fit with clearly different classes gets none."""
+    from types import SimpleNamespace
+
+    from mkforest.engine.hidden import class_notes
+    model = with_hidden_classes(build_model("unconstrained", ["a", "b"]), 2, "equal")
+
+    def fit(rates, at_upper=()):
+        return SimpleNamespace(log_likelihood=-10.0, q_matrix=model.q_matrix(rates),
+                               at_upper=tuple(at_upper))
+
+    assert class_notes(model, fit([1.0, 2.0, 1.02, 2.01, 0.5]))[0].startswith(
+        "the 2 hidden classes have nearly the same rates")
+    assert "upper rate bound" in class_notes(model, fit([1.0, 2.0, 9.0, 8.0, 1e4],
+                                                        ["class switch"]))[0]
+    assert class_notes(model, fit([1.0, 2.0, 9.0, 8.0, 0.5])) == []
+    assert class_notes(build_model("equal", ["a", "b"]), fit([1.0, 2.0, 9.0, 8.0, 0.5])) == []

@@ -179,3 +179,25 @@ def classes_of(model: RateModel) -> np.ndarray:
 def observed_index(model: RateModel) -> np.ndarray:
     """Observed state index of every combined state."""
     return np.arange(model.k) % len(model.observed_states)
+
+
+# Classes whose mean leaving rates differ by less than this factor are called alike.
+ALIKE_FACTOR = 1.1
+
+
+def class_notes(model: RateModel, fit) -> list:
+    """Plain-words warnings for a fitted hidden-class model whose classes cannot mean much:
+    classes with nearly the same rates (no sign of rate variation among lineages), or
+    switching at the upper rate bound (lineages change class too fast to tell classes apart)."""
+    if model.n_classes == 1 or not np.isfinite(fit.log_likelihood):
+        return []
+    notes = []
+    leave = class_leaving_rates(model, fit.q_matrix)
+    if leave.min() > 0 and leave.max() / leave.min() < ALIKE_FACTOR:
+        notes.append(f"the {model.n_classes} hidden classes have nearly the same rates (within "
+                     f"{ALIKE_FACTOR - 1:.0%}): the data show no rate variation among lineages")
+    switching = [lab for lab in fit.at_upper if lab.startswith("class ")]
+    if switching:
+        notes.append("switching between hidden classes is at the upper rate bound: lineages "
+                     "change class too fast for the classes to be told apart")
+    return notes

@@ -7,7 +7,7 @@ import numpy as np
 from ..engine.compare import information_criteria
 from ..engine.fitting import fit_model
 from ..engine.likelihood import check_root
-from ..engine.hidden import check_no_class_in_transitions, with_hidden_classes
+from ..engine.hidden import class_notes, check_no_class_in_transitions, with_hidden_classes
 from ..engine.models import KINDS, build_model
 from ..errors import InputError, join_problems
 from ..seeds import derive_seed
@@ -123,7 +123,7 @@ def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, st
                         seed=derive_seed(seed, tree.index, analysis, model.name),
                         lower=lower, upper=upper)
         ic = information_criteria(res.log_likelihood, res.n_params, n)
-        notes = list(res.notes)
+        notes = list(res.notes) + class_notes(model, res)
         if np.isinf(ic["aicc"]):
             notes.append(f"AICc undefined: {n} taxa with data for {res.n_params} rates")
         row.update(log_likelihood=res.log_likelihood, **ic, converged=res.converged,

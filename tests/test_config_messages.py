@@ -76,3 +76,16 @@ def test_misspelt_top_level_and_nested_keys_each_named():
 def test_no_suggestion_when_nothing_is_close():
     assert did_you_mean("zzz", ["equal", "symmetric"]) == ""
     assert did_you_mean("Glow", ["glow", "habitat"]) == " Did you mean 'glow'?"
+
+
+def test_pair_hypothesis_and_test_names_get_suggestions(tmp_path):
+    pairs = {"glow_habitat": {"traits": ["glow", "habitat"],
+                              "hypotheses": ["independent", "dependant"]}}
+    with pytest.raises(InputError, match=r"'dependant' is neither a built-in hypothesis.*"
+                                         r"Did you mean 'dependent'\?"):
+        check_config(_tiny(tmp_path, pairs=pairs), "my.yaml")
+    pairs["glow_habitat"].update(hypotheses=["independent", "dependent"],
+                                 tests=[["independant", "dependent"]])
+    with pytest.raises(InputError, match=r"tests names hypothesis 'independant'.*"
+                                         r"Did you mean 'independent'\?"):
+        check_config(_tiny(tmp_path, pairs=pairs), "my.yaml")

@@ -289,7 +289,8 @@ def pair_models(name: str, spec: dict, pair: TraitPair, where: str = "config") -
             raise InputError(f"{at}.hypotheses lists '{h}' twice.")
         if h not in HYPOTHESES:
             raise InputError(f"{at}.hypotheses: '{h}' is neither a built-in hypothesis "
-                             f"({', '.join(HYPOTHESES)}) nor described under {at}.custom.")
+                             f"({', '.join(HYPOTHESES)}) nor described under pairs.{name}.custom."
+                             f"{did_you_mean(h, [*HYPOTHESES, *custom])}")
         models[h] = (classes(hypothesis_model(pair, h)), root)
     for h, body in custom.items():
         if not isinstance(body, dict) or "transitions" not in body:
@@ -342,7 +343,8 @@ def selected_tests(name: str, spec: dict, models: dict, where: str = "config") -
         for h in (null, alt):
             if h not in models:
                 raise InputError(f"{where}: pairs.{name}.tests names hypothesis '{h}', which is not "
-                                 f"among the pair's hypotheses ({', '.join(models)}).")
+                                 f"among the pair's hypotheses ({', '.join(models)})."
+                                 f"{did_you_mean(h, models)}")
         if (null, alt) not in nested:
             why = ("they use different root treatments" if models[null][1] != models[alt][1]
                    else f"'{null}' is not nested in '{alt}' (not every rate matrix of the first is "

@@ -63,6 +63,8 @@ def survey_trees(path) -> TreeSurvey:
         if any(x is None for x in edges):
             out.without_lengths.append(i)
             continue
+        if i in out.unrooted:
+            continue  # distances from an arbitrary base say nothing about a clock
         depth = {tree.seed_node: 0.0}
         for nd in tree.preorder_node_iter():
             if nd is not tree.seed_node:
@@ -239,11 +241,15 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     w("  #   branch lengths: " + ("on every branch" if not ts.without_lengths else
       f"MISSING in {len(ts.without_lengths)} tree(s) (first: tree {ts.without_lengths[0]}). The run "
       "will stop: every branch needs a length (use dated or otherwise measured trees)."))
-    if not ts.without_lengths:
+    n_rooted = ts.n_trees - len(ts.unrooted)
+    if not ts.without_lengths and n_rooted == 0:
+        w("  #   ultrametric: not judged (no tree is rooted)")
+    elif not ts.without_lengths:
         w("  #   ultrametric: " + ("yes (every tip equally far from the root)" if not ts.not_ultrametric
-          else f"no in {len(ts.not_ultrametric)} tree(s): tips lie at different distances from the "
-          "root. The models run on any branch lengths; rates are per unit of length, and the "
-          "rate bounds (fitting) are scaled to each tree's root-to-tip height."))
+          else f"no, in {len(ts.not_ultrametric)} of {n_rooted} rooted tree(s): tips lie at "
+          "different distances from the root. The models run on any branch lengths; rates are "
+          "per unit of length, and the rate bounds (fitting) are scaled to each tree's "
+          "root-to-tip height."))
     if ts.other_tips:
         w(f"  #   WARNING: {len(ts.other_tips)} tree(s) have other tips than the first (first: tree "
           f"{ts.other_tips[0]}). The run will stop: every tree of a sample must have the same tips.")
@@ -333,7 +339,7 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
         f"trees   {trees_file}: {ts.n_trees} tree(s), {len(ts.tips)} tips, "
         + ("rooted" if not ts.unrooted else f"{len(ts.unrooted)} unrooted -> root: midpoint")
         + ("" if not ts.without_lengths else ", BRANCH LENGTHS MISSING (the run will stop)")
-        + ("" if ts.without_lengths else
+        + ("" if ts.without_lengths or len(ts.unrooted) == ts.n_trees else
            (", ultrametric" if not ts.not_ultrametric else ", not ultrametric")),
         f"traits  {traits_file}: {len(taxa)} rows, taxon column '{taxon_column}', "
         f"{len(used)} trait(s): {', '.join(s.name for s in used)}"

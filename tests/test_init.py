@@ -197,3 +197,14 @@ def test_init_refuses_to_replace_a_file(tmp_path):
     assert proc.returncode == 2
     assert proc.stderr.strip().splitlines()[-1].startswith("mkforest: error: 'my_config.yaml' exists")
     assert (tmp_path / "my_config.yaml").read_text() == "mine\n"
+
+
+def test_make_run_calls_the_workflow_with_the_config():
+    dry = subprocess.run(["make", "-s", "-n", "-C", str(REPO), "run", "CONFIG=my.yaml",
+                          "ARGS=--dry-run"], capture_output=True, text=True, timeout=60)
+    assert dry.returncode == 0, dry.stderr
+    assert ".venv/bin/snakemake --profile profiles/laptop --configfile my.yaml --dry-run" \
+        in dry.stdout.splitlines()
+    bare = subprocess.run(["make", "-s", "-C", str(REPO), "run"], capture_output=True,
+                          text=True, timeout=60)
+    assert bare.returncode != 0 and "usage: make run CONFIG=my_config.yaml" in bare.stdout

@@ -43,6 +43,7 @@ class TreeSurvey:
     without_lengths: list = field(default_factory=list)
     not_ultrametric: list = field(default_factory=list)
     other_tips: list = field(default_factory=list)      # trees whose tips differ from the first
+    zero_length: list = field(default_factory=list)     # trees with a branch of length 0
 
 
 def survey_trees(path) -> TreeSurvey:
@@ -63,6 +64,8 @@ def survey_trees(path) -> TreeSurvey:
         if any(x is None for x in edges):
             out.without_lengths.append(i)
             continue
+        if any(float(x) == 0.0 for x in edges):
+            out.zero_length.append(i)
         if i in out.unrooted:
             continue  # distances from an arbitrary base say nothing about a clock
         depth = {tree.seed_node: 0.0}
@@ -115,6 +118,7 @@ class TraitSurvey:
     ambiguous: int
     use: bool
     why_not: str = ""
+    short: str = ""       # why_not in a few words, for the printed summary
 
 
 def survey_traits(path: Path, taxon_column: str, header: list, missing: list) -> tuple:
@@ -123,33 +127,45 @@ def survey_traits(path: Path, taxon_column: str, header: list, missing: list) ->
     if not columns:
         raise InputError(f"trait table '{path}' has no column besides the taxon column "
                          f"'{taxon_column}'.")
-    traits = read_traits(path, taxon_column, columns, missing)
+    read_traits(path, taxon_column, [], missing)  # the table as a whole: rows, taxa, fields
     out = {}
-    taxa = ()
-    for name, t in traits.items():
-        taxa = t.taxa
+    for name in columns:
+        try:
+            t = read_traits(path, taxon_column, [name], missing)[name]
+        except InputError as exc:
+            # a column the workflow would refuse (states differing only in case, a cell
+            # mixing a missing code with states): left out, with the workflow's sentence
+            out[name] = TraitSurvey(name, (), {}, 0, 0, False, str(exc).rstrip("."),
+                                    "the workflow would refuse it")
+            continue
         counts = t.state_counts()
         n_missing = int(t.possible.all(axis=1).sum())
         observed = [s for s in t.states if counts[s] > 0]
-        why = ""
+        why = short = ""
         if not SAFE_NAME.match(name):
+            short = "name unfit for file names"
             why = ("its name has characters that cannot be used in file names; rename the "
                    "column with letters, digits, '_', '-' or '.' to analyse it")
         elif t.k > MAX_STATES:
+            short = f"{t.k} distinct values"
             why = (f"{t.k} distinct values: more like a label or a measurement than a "
                    f"categorical trait (an Mk model of k states has up to k(k-1) rates)")
         elif len(observed) < 2:
-            why = (f"only state '{observed[0]}' observed" if observed else "no observed value") + \
-                  ": nothing changes, so there is nothing to fit"
-        out[name] = TraitSurvey(name, t.states, counts, n_missing, t.n_ambiguous(), not why, why)
-    return out, taxa
+            short = f"only state '{observed[0]}' observed" if observed else "no observed value"
+            why = short + ": nothing changes, so there is nothing to fit"
+        out[name] = TraitSurvey(name, t.states, counts, n_missing, t.n_ambiguous(), not why, why,
+                                short)
+    _, rows = _read_table(path)
+    ti = header.index(taxon_column)
+    return out, tuple(r[ti].strip() for r in rows)
 
 
-def _missing_lookalikes(path: Path, taxon_column: str, header: list) -> list:
-    traits = read_traits(path, taxon_column, [c for c in header if c != taxon_column],
-                         DEFAULT_MISSING)
-    found = {s for t in traits.values() for s in t.states if s in MISSING_LOOKALIKES}
-    return sorted(found)
+def _missing_lookalikes(path: Path, taxon_column: str) -> list:
+    """Cells such as 'N/A' or 'unknown' found in the trait columns."""
+    header, rows = _read_table(path)
+    ti = header.index(taxon_column)
+    found = {cell.strip() for r in rows for i, cell in enumerate(r) if i != ti}
+    return sorted(found & set(MISSING_LOOKALIKES))
 
 
 def _y(value) -> str:
@@ -195,7 +211,7 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     ts = survey_trees(trees_file)
     taxon_column = choose_taxon_column(traits_file, ts.tips, taxon_column)
     header = _read_table(traits_file)[0]
-    extra_missing = _missing_lookalikes(traits_file, taxon_column, header)
+    extra_missing = _missing_lookalikes(traits_file, taxon_column)
     missing = list(DEFAULT_MISSING) + extra_missing
     surveys, taxa = survey_traits(traits_file, taxon_column, header, missing)
     used = [s for s in surveys.values() if s.use]
@@ -254,6 +270,10 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
         w(f"  #   WARNING: {len(ts.other_tips)} tree(s) have other tips than the first (first: tree "
           f"{ts.other_tips[0]}). The run will stop: every tree of a sample must have the same tips.")
     w(f"  file: {_y(_config_path(trees_file, base))}")
+    if ts.zero_length:
+        w(f"  #   zero-length branches: in {len(ts.zero_length)} of {ts.n_trees} tree(s). Tips joined "
+          "by them that differ in state make every model impossible on that tree (the run says "
+          "so in its cautions); min_branch_length below lengthens such branches.")
     w("  # Trees dropped from the start of the file: a fraction below 1 (0.1 = the first 10%)")
     w("  # or a count. Set it if the file still holds the burn-in of the tree search.")
     w("  burnin: 0")
@@ -264,6 +284,9 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     w(f"  # Trees fitted by one job ({n_used} trees -> {math.ceil(n_used / per_job)} job(s) per "
       "trait and model).")
     w(f"  per_job: {per_job}")
+    w("  # Branches shorter than this (in the trees' own units) are lengthened to it; 0 keeps")
+    w("  # the trees as they are.")
+    w("  min_branch_length: 0")
     if ts.unrooted:
         w("  # Your trees are unrooted, and trait models need a root: they are rooted at the")
         w("  # midpoint of each tree's longest tip-to-tip path. If you know an outgroup, root on")
@@ -288,7 +311,7 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
         counts = ", ".join(f"{k} {v}" for k, v in s.counts.items()) if len(s.states) <= MAX_STATES \
             else f"{len(s.states)} distinct values"
         tail = f"; ambiguous {s.ambiguous}" if s.ambiguous else ""
-        w(f"  #   {s.name}: {counts}; missing {s.missing}{tail}")
+        w(f"  #   {s.name}: {counts}; missing {s.missing}{tail}" if s.states else f"  #   {s.name}:")
         if not s.use:
             w(f"  #     left out: {s.why_not}")
     w(f"  columns: {_y([s.name for s in used])}")
@@ -343,8 +366,7 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
            (", ultrametric" if not ts.not_ultrametric else ", not ultrametric")),
         f"traits  {traits_file}: {len(taxa)} rows, taxon column '{taxon_column}', "
         f"{len(used)} trait(s): {', '.join(s.name for s in used)}"
-        + "".join(f"; left out '{s.name}' ({s.why_not.split(':')[0]})" for s in surveys.values()
-                  if not s.use),
+        + "".join(f"; left out '{s.name}' ({s.short})" for s in surveys.values() if not s.use),
         f"taxa    {matched} matched"
         + (f", {len(trees_only)} in the trees only -> absent_taxa: missing" if trees_only else "")
         + (f", {len(table_only)} in the table only (not used)" if table_only else ""),

@@ -208,3 +208,19 @@ def test_make_run_calls_the_workflow_with_the_config():
     bare = subprocess.run(["make", "-s", "-C", str(REPO), "run"], capture_output=True,
                           text=True, timeout=60)
     assert bare.returncode != 0 and "usage: make run CONFIG=my_config.yaml" in bare.stdout
+
+
+def test_columns_the_workflow_would_refuse_are_left_out_and_zero_lengths_reported(tmp_path):
+    trees = tmp_path / "t.nwk"
+    trees.write_text("((a:1,b:0):1,(c:1,d:1):1);\n")
+    table = _table(tmp_path / "t.csv", [["taxon", "colour", "shape"], ["a", "Red", "round"],
+                                        ["b", "red", "flat"], ["c", "blue", "round"],
+                                        ["d", "blue", "flat"]])
+    starter = starting_config(trees, table, base=tmp_path)
+    cfg = yaml.safe_load(starter.text)
+    assert cfg["traits"]["columns"] == ["shape"]
+    words = " ".join(starter.text.replace("#", " ").split())  # comments wrap at 92 characters
+    assert "left out: trait table" in words and "differ only in case" in words
+    assert "left out 'colour' (the workflow would refuse it)" in starter.summary[1]
+    assert "zero-length branches: in 1 of 1 tree(s)" in words
+    assert check_config(cfg, "init")["traits"]["columns"] == ["shape"]

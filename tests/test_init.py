@@ -38,8 +38,8 @@ def demo_data(folder: Path, n_tips: int = 14, n_trees: int = 4, columns=None) ->
     return folder
 
 
-def run_written_config(tmp_path: Path, config: Path):
-    proc = run_snakemake(tmp_path, config)
+def run_written_config(tmp_path: Path, config: Path, timeout: int = 600):
+    proc = run_snakemake(tmp_path, config, timeout=timeout)
     assert proc.returncode == 0, (proc.stdout + proc.stderr)[-4000:]
     return yaml.safe_load(config.read_text())
 
@@ -77,7 +77,7 @@ def test_full_demo_data_config_runs_without_edits(tmp_path):
     proc = init(tmp_path, "--trees", tmp_path / "data/trees.nex",
                 "--traits", tmp_path / "data/traits.tsv")
     assert proc.returncode == 0, proc.stderr
-    cfg = run_written_config(tmp_path, tmp_path / "my_config.yaml")
+    cfg = run_written_config(tmp_path, tmp_path / "my_config.yaml", timeout=3600)
     assert cfg["traits"]["columns"] == ["habitat", "size", "banding", "aperture", "glow"]
     fits = pd.read_csv(tmp_path / "results/my_config/tables/fits.tsv", sep="\t")
     assert fits["tree"].nunique() == 120

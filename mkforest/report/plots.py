@@ -13,8 +13,12 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 import seaborn as sns  # noqa: E402
+from matplotlib.collections import LineCollection  # noqa: E402
+from matplotlib.lines import Line2D  # noqa: E402
 
-PALETTE = "crest"
+from . import style  # noqa: E402
+
+PALETTE = "cividis"
 CRITERION_NAMES = {"aic": "AIC", "aicc": "AICc", "bic": "BIC"}
 
 
@@ -64,38 +68,120 @@ def support_heatmap(support: pd.DataFrame):
     return fig
 
 
-def rates_across_trees(rates: pd.DataFrame):
-    """Rate estimates across trees per transition (log scale), one panel per analysis."""
-    r = rates[rates["rate"] > 0].copy()
-    r["transition"] = r["from_state"].astype(str) + "→" + r["to_state"].astype(str)
-    analyses = list(dict.fromkeys(rates["analysis"]))
-    rows, cols = _grid(len(analyses))
-    fig, axes = plt.subplots(rows, cols, figsize=(5.0 * cols, 3.6 * rows), squeeze=False)
-    for ax, a in zip(axes.flat, analyses):
-        d = r[r["analysis"] == a]
-        if d.empty:
-            ax.set_title(f"{a} (no rates)")
+SERIES_HEIGHT = 0.14     # inches per model in a row of an interval panel
+
+
+def interval_panel(ax, rows: list, stats: pd.DataFrame, series: list, colours: dict,
+                   markers: dict, xlim=None) -> None:
+    """Rates on a log axis, one row per item, one sub-row per series (model or
+    hypothesis): the median across trees as a marker, the central 95% interval across
+    trees as a line. Trees whose rate sits at an optimiser bound are not values: they
+    are counted in grey columns at the ends of the axis ("at lower bound" on the
+    left, "at upper bound" on the right), at the height of the series' sub-row.
+
+    The axis is drawn in log10 units (one axes per panel keeps large figures fast);
+    its ticks are written as plain rates. rows: [(key, label)] top to bottom; stats:
+    rows of style.rate_intervals with ``row`` (the key) and ``series`` columns.
+    """
+    m = max(len(series), 1)
+    step = min(0.8 / m, 0.3)
+    y_of = {}
+    for i, (key, _) in enumerate(rows):
+        for j, s in enumerate(series):
+            y_of[(key, s)] = i + (j - (m - 1) / 2) * step
+    free = stats[np.isfinite(stats["median"])]
+    if xlim is None:
+        values = np.concatenate([free["low"].to_numpy(float), free["high"].to_numpy(float)])
+        values = values[np.isfinite(values) & (values > 0)]
+        lo, hi = (values.min(), values.max()) if values.size else (0.1, 10.0)
+        xlim = (lo / 2.0, hi * 2.0)
+    a, b = np.log10(xlim[0]), np.log10(xlim[1])
+    col = max(0.16 * (b - a), 0.35)                # width of a bound column, log10 units
+    gap = 0.25 * col
+    lower_x, upper_x = a - gap - col / 2, b + gap + col / 2
+    for x0 in (a - gap - col, b + gap):
+        ax.axvspan(x0, x0 + col, color="#f0f0f0", lw=0, zorder=0, gid=style.BACKGROUND)
+    segments, points = {}, {}
+    for r in stats.to_dict("records"):
+        y = y_of.get((r["row"], r["series"]))
+        if y is None:
             continue
-        sns.boxplot(data=d, x="transition", y="rate", hue="model", ax=ax, log_scale=True,
-                    palette=PALETTE, fliersize=1.5, linewidth=0.8)
-        ax.set_title(a)
-        ax.set_xlabel("transition")
-        ax.set_ylabel("rate (per unit branch length)")
-        ax.tick_params(axis="x", rotation=30)
-        ax.legend(fontsize=7, title="model", title_fontsize=7)
-    for ax in list(axes.flat)[len(analyses):]:
-        ax.set_visible(False)
-    fig.suptitle("Rate estimates across trees")
-    fig.tight_layout()
+        if np.isfinite(r["median"]):
+            segments.setdefault(r["series"], []).append(
+                [(np.log10(r["low"]), y), (np.log10(r["high"]), y)])
+            points.setdefault(r["series"], []).append((np.log10(r["median"]), y))
+        for x, n in ((lower_x, r["n_lower"]), (upper_x, r["n_upper"])):
+            if n:
+                ax.text(x, y, f"{n}/{r['n_trees']}", ha="center", va="center", fontsize=6,
+                        color=colours[r["series"]], zorder=3)
+    for s in series:          # one collection per series: fast on large figures
+        if s in segments:
+            ax.add_collection(LineCollection(segments[s], colors=colours[s], linewidths=1.4,
+                                             capstyle="butt", zorder=2))
+            xy = np.asarray(points[s])
+            ax.scatter(xy[:, 0], xy[:, 1], marker=markers[s], color=colours[s], s=20,
+                       edgecolors="white", linewidths=0.5, zorder=3)
+    for i in range(1, len(rows)):
+        ax.axhline(i - 0.5, color="#dddddd", lw=0.6, zorder=0, gid=style.BACKGROUND)
+    ax.set_ylim(len(rows) - 0.5, -0.5)
+    ax.set_xlim(a - gap - col, b + gap + col)
+    ticks = style.log_ticks(*xlim)
+    ax.set_xticks([lower_x, *np.log10(ticks), upper_x],
+                  ["at lower\nbound", *[style.plain_number(t) for t in ticks], "at upper\nbound"],
+                  fontsize=7)
+    for t in (ax.get_xticklabels()[0], ax.get_xticklabels()[-1]):
+        t.set_color(style.BOUND_COLOUR)
+        t.set_fontsize(6)
+    for x in np.log10(ticks):
+        ax.axvline(x, color="#eeeeee", lw=0.6, zorder=0, gid=style.BACKGROUND)
+    ax.set_yticks(range(len(rows)), [label for _, label in rows], fontsize=7.5)
+    ax.tick_params(axis="y", length=0)
+
+
+def rates_across_trees(rates: pd.DataFrame, support: pd.DataFrame | None = None,
+                       pairs: dict | None = None):
+    """Rates across trees per change, one panel per analysis, one colour and marker per
+    model (models reported ``same_as`` another are not drawn twice); median and
+    central 95% interval across the trees where the rate is not at a bound, and
+    the number of trees at each bound beside the axis. pairs: {pair: (first, second)}
+    to name joint-state changes by the trait that changes."""
+    pairs = pairs or {}
+    r = rates[rates["rate"].notna()].copy()
+    analyses = list(dict.fromkeys(r["analysis"]))
+    repeats = {a: style.same_as(support, a) for a in analyses}
+    drawn = {a: [m for m in dict.fromkeys(r.loc[r["analysis"] == a, "model"]) if m not in repeats[a]]
+             for a in analyses}
+    stats = style.rate_intervals(r)
+    heights = []
+    for a in analyses:
+        n_rows = stats.loc[stats["analysis"] == a, ["from_state", "to_state"]].drop_duplicates()
+        heights.append(len(n_rows) * (0.06 + SERIES_HEIGHT * len(drawn[a])))
+    fig, axes = plt.subplots(len(analyses), 1, squeeze=False, layout="constrained",
+                             figsize=(9.0, sum(heights) + 0.75 * len(analyses) + 0.5),
+                             gridspec_kw={"height_ratios": heights})
+    for ax, a in zip(axes[:, 0], analyses):
+        models = drawn[a]
+        colours = dict(zip(models, style.categorical(len(models))))
+        markers = {m: style.MARKERS[i % len(style.MARKERS)] for i, m in enumerate(models)}
+        d = stats[(stats["analysis"] == a) & stats["model"].isin(models)].copy()
+        keys = sorted(dict.fromkeys(zip(d["from_state"], d["to_state"])),
+                      key=lambda k: style.change_order(k, pairs.get(a)))
+        rows = [(key, style.change_label(*key, pairs.get(a))) for key in keys]
+        d["row"] = list(zip(d["from_state"], d["to_state"]))
+        d["series"] = d["model"]
+        interval_panel(ax, rows, d, models, colours, markers)
+        ax.set_title(a, fontsize=9, loc="left", fontweight="bold")
+        ax.set_xlabel("rate (changes per unit branch length)", fontsize=8)
+        handles = [Line2D([], [], color=colours[m], marker=markers[m], lw=1.4, label=m)
+                   for m in models]
+        handles += [Line2D([], [], ls="none", label=f"{m} = {other}: drawn once")
+                    for m, other in repeats[a].items()]
+        ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7.5,
+                  frameon=False, title="model", title_fontsize=7.5, alignment="left",
+                  handlelength=1.8)
+    fig.suptitle("Rates across trees: median (marker) and central 95% of trees (line); "
+                 "trees with the rate at a bound counted at the ends", fontsize=9)
     return fig
 
 
-# SVG element ids from a fixed salt, and no date in the files: a rerun writes the
-# same bytes, so the checksums in manifest.json repeat.
-matplotlib.rcParams["svg.hashsalt"] = "mkforest"
-
-
-def save(fig, paths) -> None:
-    for p in paths:
-        fig.savefig(p, dpi=150, metadata={"Date": None} if str(p).endswith(".svg") else None)
-    plt.close(fig)
+save = style.save

@@ -18,6 +18,7 @@ rule plot_support:
         },
     params:
         criterion=config["criterion"],
+        pairs={name: spec["traits"] for name, spec in config.get("pairs", {}).items()},
     log:
         f"{OUT}/logs/plot_support.log",
     conda:

@@ -1,0 +1,208 @@
+"""What every figure shares: colour-blind-safe palettes, plain-number log axes,
+rates written to display precision, readable names of joint-state changes,
+rates at an optimiser bound kept apart from estimates, and saving.
+
+Palettes: the eight colours of Okabe & Ito (2008), recommended for readers with
+colour-vision deficiencies by Wong (2011, Nature Methods 8:441), for categories;
+cividis (Nuñez, Anderton & Renslow 2018, PLOS ONE 13:e0199239) for ordered
+states and continuous scales.
+"""
+
+from __future__ import annotations
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+from matplotlib import colormaps  # noqa: E402
+from matplotlib.colors import to_hex, to_rgb  # noqa: E402
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
+
+# Okabe & Ito (2008), in an order where neighbours differ most; yellow last (faint
+# as a line or text on white) and black kept apart for model averages and text.
+CATEGORICAL = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442"]
+MARKERS = ["o", "s", "D", "^", "v", "P", "X", "*"]
+ORDERED_MAP = "cividis"
+AVERAGE_COLOUR = "#000000"
+BOUND_COLOUR = "#555555"
+BACKGROUND = "background"   # gid of guides (grid lines, shaded columns) that text may sit on
+PRECISION = 0.001          # rates below it are written "< 0.001"
+
+
+def categorical(n: int) -> list:
+    """n distinct colours; beyond eight, lighter versions of the eight follow."""
+    out = []
+    for i in range(n):
+        base = np.array(to_rgb(CATEGORICAL[i % len(CATEGORICAL)]))
+        mix = 0.45 * (i // len(CATEGORICAL))
+        out.append(to_hex(base + (1 - base) * min(mix, 0.8)))
+    return out
+
+
+def ordered(n: int) -> list:
+    """n colours along cividis, dark to light (skipping its palest end so the
+    lightest state still shows on white)."""
+    cmap = colormaps[ORDERED_MAP]
+    return [to_hex(cmap(x)) for x in np.linspace(0.0, 0.85, max(n, 2))][:n]
+
+
+def state_colours(states, is_ordered: bool = False) -> dict:
+    states = list(states)
+    return dict(zip(states, ordered(len(states)) if is_ordered else categorical(len(states))))
+
+
+def joint_colours(first_states, second_states) -> dict:
+    """Colours of joint states 'a+b': the first trait's state gives the hue (Okabe &
+    Ito), the second trait's state the shade, dark to light."""
+    out = {}
+    hues = categorical(len(first_states))
+    n2 = len(second_states)
+    for a, hue in zip(first_states, hues):
+        base = np.array(to_rgb(hue))
+        for j, b in enumerate(second_states):
+            mix = 0.6 * j / max(n2 - 1, 1)
+            out[f"{a}+{b}"] = to_hex(base + (1 - base) * mix)
+    return out
+
+
+def text_colour_on(colour) -> str:
+    """Black or white, whichever reads better on the colour (relative luminance)."""
+    r, g, b = to_rgb(colour)
+    return "black" if 0.2126 * r + 0.7152 * g + 0.0722 * b > 0.45 else "white"
+
+
+# --------------------------------------------------------------------------- numbers
+
+def rate_text(x, precision: float = PRECISION) -> str:
+    """A rate as written in figures: three significant digits, never an exponent;
+    below the display precision '< 0.001'."""
+    if x is None or not np.isfinite(x):
+        return "n/a"
+    x = float(x)
+    if x == 0:
+        return "0"
+    if abs(x) < precision:
+        return f"< {precision:g}"
+    if abs(x) >= 100:
+        return f"{x:,.0f}"
+    digits = max(0, 2 - int(np.floor(np.log10(abs(x)))))
+    digits = min(digits, len(f"{precision:g}".split(".")[-1]) if precision < 1 else 0)
+    return f"{x:.{digits}f}"
+
+
+def plain_number(x: float) -> str:
+    """A tick value as a plain number (0.001, 0.5, 20, 1,000)."""
+    if x == 0:
+        return "0"
+    if abs(x) >= 1:
+        return f"{x:,.0f}" if abs(x - round(x)) < 1e-9 * abs(x) else f"{x:g}"
+    return np.format_float_positional(x, precision=12, trim="-")
+
+
+def log_ticks(lo: float, hi: float) -> list:
+    """Tick values between lo and hi: 1, 2 and 5 times powers of ten, or only the
+    powers of ten when the range spans more than three decades."""
+    decades = np.log10(hi) - np.log10(lo)
+    subs = (1,) if decades > 3 else (1, 2, 5) if decades > 1 else (1, 1.5, 2, 3, 5, 7)
+    out = [s * 10.0 ** e for e in range(int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi))) + 1)
+           for s in subs]
+    return [x for x in out if lo <= x <= hi]
+
+
+def plain_log_axis(ax, axis: str = "x") -> None:
+    """Log axis with ticks at 1, 2, 5 times powers of ten (at 1 only when the range
+    spans more than three decades), written as plain numbers."""
+    target = ax.xaxis if axis == "x" else ax.yaxis
+    lo, hi = (ax.get_xlim() if axis == "x" else ax.get_ylim())
+    decades = np.log10(max(hi, 1e-300)) - np.log10(max(lo, 1e-300))
+    subs = (1.0,) if decades > 3 else (1.0, 2.0, 5.0) if decades > 1.2 else \
+        (1.0, 1.5, 2.0, 3.0, 5.0, 7.0)
+    target.set_major_locator(LogLocator(base=10, subs=subs))
+    target.set_major_formatter(FuncFormatter(lambda v, _: plain_number(v)))
+    target.set_minor_formatter(NullFormatter())
+
+
+# --------------------------------------------------------------------------- names of changes
+
+def change_label(from_state: str, to_state: str, pair_traits=None) -> str:
+    """'a → b'; for a trait pair, the one trait that changes and the other's state:
+    'banding: plain → banded (aperture round)'. A double change keeps both."""
+    if pair_traits and "+" in str(from_state) and "+" in str(to_state):
+        (a1, a2), (b1, b2) = str(from_state).split("+", 1), str(to_state).split("+", 1)
+        first, second = pair_traits
+        if a2 == b2 and a1 != b1:
+            return f"{first}: {a1} → {b1} ({second} {a2})"
+        if a1 == b1 and a2 != b2:
+            return f"{second}: {a2} → {b2} ({first} {a1})"
+    return f"{from_state} → {to_state}"
+
+
+def is_double_change(from_state: str, to_state: str) -> bool:
+    """Both traits of a pair change at once (joint labels 'a+b'): rate 0 by construction."""
+    a, b = str(from_state).split("+", 1), str(to_state).split("+", 1)
+    return len(a) == 2 and len(b) == 2 and a[0] != b[0] and a[1] != b[1]
+
+
+# --------------------------------------------------------------------------- rates at bounds
+
+def rate_intervals(rates: pd.DataFrame, keys=("analysis", "model", "from_state", "to_state")):
+    """Per key: median and central 95% interval across trees of the rates NOT at an
+    optimiser bound, and how many trees put the rate at the lower or upper bound.
+
+    A rate at a bound is not an estimate (lower: the data carry no sign of that
+    change; upper: too fast to estimate), so it is counted, not averaged in.
+    ``rates`` is rates.tsv: ``at_bound`` is 'lower', 'upper' or empty.
+    """
+    r = rates.copy()
+    bound = r["at_bound"].fillna("").astype(str) if "at_bound" in r else pd.Series("", r.index)
+    keys = list(keys)
+    r["n_lower"] = bound.eq("lower")
+    r["n_upper"] = bound.eq("upper")
+    g = r.groupby(keys, sort=False)
+    out = g[["n_lower", "n_upper"]].sum().astype(int)
+    out.insert(0, "n_trees", g.size())
+    rate = r["rate"].to_numpy(float)
+    free = r[~(r["n_lower"] | r["n_upper"]) & np.isfinite(rate) & (rate > 0)]
+    fg = free.groupby(keys, sort=False)["rate"]
+    out["n_free"] = fg.size().reindex(out.index).fillna(0).astype(int)
+    out["median"] = fg.median().reindex(out.index)
+    out["low"] = fg.quantile(0.025).reindex(out.index)
+    out["high"] = fg.quantile(0.975).reindex(out.index)
+    return out.reset_index()
+
+
+def same_as(support: pd.DataFrame | None, analysis: str) -> dict:
+    """{model: the model it repeats} for an analysis (model_support's ``same_as``)."""
+    if support is None or "same_as" not in support:
+        return {}
+    s = support[(support["analysis"] == analysis) & (support["same_as"].fillna("").astype(str) != "")]
+    return dict(zip(s["model"], s["same_as"]))
+
+
+def change_order(key, pair_traits=None):
+    """Sort key of a change (from, to): for a pair, the changes of the first trait,
+    then those of the second, each next to itself in the other trait's other states,
+    so a dependence reads as a shift between neighbouring rows."""
+    a, b = str(key[0]), str(key[1])
+    if pair_traits and "+" in a and "+" in b:
+        (a1, a2), (b1, b2) = a.split("+", 1), b.split("+", 1)
+        return (0, a1, b1, a2) if a2 == b2 else (1, a2, b2, a1)
+    return (0,)
+
+
+# --------------------------------------------------------------------------- saving
+
+# SVG element ids from a fixed salt, and no date in the files: a rerun writes the
+# same bytes, so the checksums in manifest.json repeat.
+matplotlib.rcParams["svg.hashsalt"] = "mkforest"
+matplotlib.rcParams["svg.fonttype"] = "none"     # text stays text in SVG: smaller, editable
+
+
+def save(fig, paths, dpi: int = 150) -> None:
+    for p in paths:
+        svg = str(p).endswith(".svg")
+        fig.savefig(p, dpi=None if svg else dpi, bbox_inches="tight",
+                    metadata={"Date": None} if svg else None)
+    plt.close(fig)

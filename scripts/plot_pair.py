@@ -1,4 +1,5 @@
-"""Figures of one trait pair: joint-state diagram and tests across trees."""
+"""Figures of one trait pair: rates in each state of the other trait, joint-rate grid,
+tests across trees."""
 import sys
 from pathlib import Path
 
@@ -9,23 +10,32 @@ import json
 import pandas as pd
 
 from mkforest.data.traits import traits_from_json
-from mkforest.engine.pairs import pair_from_config
+from mkforest.engine.pairs import pair_from_config, pair_models
 from mkforest.jobs.scripting import run_job
 from mkforest.report.plots import save
-from mkforest.report.plots_pairs import pair_diagram, pair_tests_figure
+from mkforest.report.plots_pairs import joint_rate_grid, pair_tests_figure, rates_by_state
+
+TEXT = {"model": str, "analysis": str, "from_state": str, "to_state": str, "same_as": str,
+        "at_bound": str}
 
 
 def main(smk):
     job = smk.params.job
     name = job["pair"]
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
-    pair = pair_from_config(name, job["config"]["pairs"][name], traits)
-    rates = pd.read_csv(smk.input.rates, sep="\t")
-    support = pd.read_csv(smk.input.support, sep="\t")
+    spec = job["config"]["pairs"][name]
+    pair = pair_from_config(name, spec, traits)
+    models = {h: m for h, (m, _) in pair_models(name, spec, pair).items()}
+    rates = pd.read_csv(smk.input.rates, sep="\t", dtype=TEXT, keep_default_na=False,
+                        na_values=["nan", "NaN"])
+    support = pd.read_csv(smk.input.support, sep="\t", dtype=TEXT, keep_default_na=False,
+                          na_values=["nan", "NaN"])
     tests = pd.read_csv(smk.input.tests, sep="\t")
     boot = pd.read_csv(smk.input.bootstrap, sep="\t")
     out = smk.output
-    save(pair_diagram(pair, rates, support), [out.diagram_png, out.diagram_svg])
+    save(rates_by_state(pair, rates, support, models),
+         [out.rates_by_state_png, out.rates_by_state_svg])
+    save(joint_rate_grid(pair, rates, support, models), [out.joint_rates_png, out.joint_rates_svg])
     save(pair_tests_figure(name, tests, boot), [out.tests_png, out.tests_svg])
 
 

@@ -17,17 +17,21 @@ import numpy as np
 import pandas as pd
 import pytest
 from scipy.stats import chi2
+from figure_checks import overlaps
 from workflow_helpers import run_snakemake, tiny_config
 
 from mkforest.data.traits import trait_from_mapping, traits_from_json
 from mkforest.engine import pairs
 from mkforest.errors import InputError
 from mkforest.jobs.pairs import bootstrap_tree_indices
-from mkforest.report.plots_pairs import pair_diagram, pair_tests_figure
+from mkforest.report.plots_pairs import joint_rate_grid, pair_tests_figure, rates_by_state
 
 ROUND_FIRST = {"plain+round <-> banded+round": "band",
                "plain+round <-> plain+toothed": "tooth",
                "banded+round -> banded+toothed": "tooth"}
+PAIR_SPEC = {"traits": ["banding", "aperture"], "hypotheses": ["independent", "dependent"],
+             "custom": {"round_first": {"transitions": ROUND_FIRST}},
+             "bootstrap": 5, "bootstrap_trees": 2}
 
 
 def pair_config(work, per_job=2):
@@ -37,10 +41,7 @@ def pair_config(work, per_job=2):
         traits={"file": str(work / "data" / "traits.tsv"), "taxon_column": "taxon",
                 "columns": ["banding", "aperture"]},
         models={"one_rate": {"kind": "equal"}},
-        pairs={"shell": {"traits": ["banding", "aperture"],
-                         "hypotheses": ["independent", "dependent"],
-                         "custom": {"round_first": {"transitions": ROUND_FIRST}},
-                         "bootstrap": 5, "bootstrap_trees": 2}})
+        pairs={"shell": PAIR_SPEC})
 
 
 @pytest.fixture(scope="module")
@@ -147,7 +148,7 @@ def test_bootstrap_does_not_depend_on_chunking(pair_run, tmp_path):
 
 def test_pair_plots_written_with_their_labels(pair_run):
     work, out, t = pair_run
-    for kind in ("diagram", "tests"):
+    for kind in ("rates_by_state", "joint_rates", "tests"):
         png = out / "plots" / "pairs" / f"shell.{kind}.png"
         svg = out / "plots" / "pairs" / f"shell.{kind}.svg"
         assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and png.stat().st_size > 10_000
@@ -155,15 +156,23 @@ def test_pair_plots_written_with_their_labels(pair_run):
     # the same figures rebuilt from the run's tables: their texts name what they show
     traits = traits_from_json(json.loads((out / "prepared" / "traits.json").read_text()))
     pair = pairs.make_pair("shell", traits["banding"], traits["aperture"])
-    fig = pair_diagram(pair, t["rate_summary"], t["model_support"])
-    texts = {x.get_text() for ax in fig.axes for x in ax.texts}
+    models = {h: m for h, (m, _) in pairs.pair_models("shell", PAIR_SPEC, pair).items()}
+    fig = rates_by_state(pair, t["rates"], t["model_support"], models)
+    assert overlaps(fig) == []
+    ticks = {x.get_text() for ax in fig.axes for x in ax.get_yticklabels()}
+    assert "plain → banded  (aperture toothed)" in ticks
+    assert "round → toothed  (banding plain)" in ticks
+    legend = " ".join(x.get_text() for x in fig.legends[0].get_texts())
+    assert "independent: banding and aperture change independently" in legend
+    assert "'round_first' (custom" in legend
+    fig = joint_rate_grid(pair, t["rates"], t["model_support"], models)
+    assert overlaps(fig) == []
     titles = " ".join(ax.get_title() for ax in fig.axes)
-    assert set(pair.states) <= texts
-    for h in ("independent", "dependent", "round_first", "model average"):
+    for h in ("independent", "dependent", "round_first"):
         assert h in titles
-    legend = {x.get_text() for x in fig.legends[0].get_texts()}
-    assert {"banding changes", "aperture changes"} <= legend
+    assert "both traits at once: never allowed" in {x.get_text() for x in fig.legends[0].get_texts()}
     fig = pair_tests_figure("shell", t["pair_tests"], t["pair_bootstrap"])
+    assert overlaps(fig) == []
     titles = " ".join(ax.get_title() for ax in fig.axes)
     assert "independent vs dependent" in titles and "parametric bootstrap" in titles
     labels = {ax.get_xlabel() for ax in fig.axes}

@@ -1,4 +1,5 @@
-"""Figures of a trait pair: the joint-state diagram and the tests across trees.
+"""Figures of a trait pair: each trait's rates in each state of the other, the
+grid of joint-state rates, and the tests across trees.
 
 Each function returns a matplotlib Figure (tests read its texts);
 mkforest.report.plots.save writes it.
@@ -6,92 +7,39 @@ mkforest.report.plots.save writes it.
 
 from __future__ import annotations
 
+import itertools
+
 import matplotlib
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
+from matplotlib import colormaps  # noqa: E402
+from matplotlib.colors import LogNorm  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
-from matplotlib.patches import FancyArrowPatch, FancyBboxPatch  # noqa: E402
+from matplotlib.patches import Patch, Rectangle  # noqa: E402
+from matplotlib.ticker import NullFormatter  # noqa: E402
 from scipy.stats import chi2  # noqa: E402
 
-FIRST_COLOUR = "#9a4f2c"     # changes of the first trait (vertical in the diagram)
-SECOND_COLOUR = "#2c6a8a"    # changes of the second trait (horizontal)
-NODE_FACE = "#f4efe6"
-MAX_WIDTH = 5.0
-MIN_WIDTH = 0.6
-MAX_LABELLED = 16      # above this many arrows in a panel, rates are not written on them
+from ..engine.models import FREE_FORBIDDEN  # noqa: E402
+
+from . import style  # noqa: E402
+from .plots import interval_panel  # noqa: E402
+
+FIRST_COLOUR = style.CATEGORICAL[5]     # vermillion: the first trait's side of a test
+SECOND_COLOUR = style.CATEGORICAL[0]    # blue
+DOUBLE_HATCH = "xxxx"
 
 
-def _layout(pair):
-    """Centre of every joint state's box, and the box size, from the label lengths."""
-    longest = max(len(s) for s in pair.states)
-    box_w = 0.13 * longest + 0.35
-    dx, dy = box_w + 1.5, 2.1
-    pos = {pair.joint(i, j): (j * dx, -i * dy) for i in range(pair.k1) for j in range(pair.k2)}
-    return pos, box_w
-
-
-def _panel_diagram(ax, pair, rates: dict, top: float, title: str):
-    """One hypothesis: joint states on a grid (first trait down, second across),
-    an arrow per allowed change with width proportional to its median rate
-    (full width at ``top`` and above)."""
-    pos, box_w = _layout(pair)
-    for s, (x, y) in pos.items():
-        ax.add_patch(FancyBboxPatch((x - box_w / 2, y - 0.3), box_w, 0.6,
-                                    boxstyle="round,pad=0.02,rounding_size=0.18",
-                                    facecolor=NODE_FACE, edgecolor="#5a5a5a", lw=0.9, zorder=3))
-        ax.text(x, y, pair.states[s], ha="center", va="center", fontsize=8, zorder=4)
-    many = len(rates) > MAX_LABELLED
-    for (a, b), rate in rates.items():
-        (i1, j1), (i2, j2) = pair.split(a), pair.split(b)
-        vertical = j1 == j2
-        colour = FIRST_COLOUR if vertical else SECOND_COLOUR
-        steps = abs(i1 - i2) + abs(j1 - j2)
-        rad = 0.2 + 0.22 * (steps - 1)
-        share = min(rate / top, 1.0) if top > 0 else 0.0
-        width = MIN_WIDTH + (MAX_WIDTH - MIN_WIDTH) * share
-        faint = top > 0 and rate < 1e-3 * top
-        (xa, ya), (xb, yb) = pos[a], pos[b]
-        # start and end just outside the boxes, along the direction of travel
-        ux, uy = np.sign(xb - xa), np.sign(yb - ya)
-        gap_x, gap_y = box_w / 2 + 0.08, 0.38
-        start = (xa + ux * gap_x, ya + uy * gap_y)
-        end = (xb - ux * gap_x, yb - uy * gap_y)
-        arrow = FancyArrowPatch(start, end, connectionstyle=f"arc3,rad={rad}",
-                                arrowstyle="-|>", mutation_scale=7 + width * 1.4,
-                                lw=MIN_WIDTH if faint else width, color=colour,
-                                alpha=0.45 if faint else 0.85, linestyle=":" if faint else "-",
-                                shrinkA=0, shrinkB=0, zorder=2)
-        ax.add_patch(arrow)
-        if not many:
-            # the arc bulges to the right of the direction of travel; the label sits beyond it
-            dx, dy = xb - xa, yb - ya
-            dist = np.hypot(dx, dy) or 1.0
-            nx, ny = dy / dist, -dx / dist
-            off = 0.5 * rad * dist + (0.42 if vertical else 0.22)
-            text = f"{rate:.2g}" + ("+" if rate > top else "")
-            ax.text((xa + xb) / 2 + nx * off, (ya + yb) / 2 + ny * off, text, ha="center",
-                    va="center", fontsize=6.5, color=colour, zorder=5,
-                    bbox=dict(boxstyle="round,pad=0.1", fc="white", ec="none", alpha=0.8))
-    xs = [p[0] for p in pos.values()]
-    ys = [p[1] for p in pos.values()]
-    ax.set_xlim(min(xs) - box_w / 2 - 0.8, max(xs) + box_w / 2 + 0.8)
-    ax.set_ylim(min(ys) - 1.0, max(ys) + 1.0)
-    ax.set_aspect("equal")
-    ax.axis("off")
-    ax.set_title(title, fontsize=9)
-
-
-def width_scale(values) -> float:
-    """Rate drawn at full width: the largest rate, but at most 20 times the median
-    positive rate, so one runaway estimate (a rate at its upper bound) does not
-    shrink every other arrow to a hairline. Larger rates are labelled with '+'."""
-    v = np.asarray([x for x in values if np.isfinite(x) and x > 0], dtype=float)
-    if not v.size:
-        return 0.0
-    return float(min(v.max(), 20.0 * np.median(v)))
+def hypothesis_words(name: str, kind: str, first: str, second: str) -> str:
+    """A hypothesis in words of the trade (its config name only for custom ones)."""
+    return {
+        "independent": f"{first} and {second} change independently",
+        "dependent": f"changes in each of {first} and {second} depend on the other",
+        "first_depends_on_second": f"changes in {first} depend on {second}",
+        "second_depends_on_first": f"changes in {second} depend on {first}",
+    }.get(kind, f"'{name}' (custom: only the changes listed)")
 
 
 def _split_class(label: str) -> tuple:
@@ -100,61 +48,200 @@ def _split_class(label: str) -> tuple:
     return (state, sep, cls) if sep and cls.isdigit() else (label, "", "")
 
 
-def pair_diagram(pair, rate_summary: pd.DataFrame, support: pd.DataFrame | None = None):
-    """One panel per hypothesis (and the model average when present): median rate across
-    trees of every allowed change between joint states, as arrow widths on one shared
-    scale. ``rate_summary``: the rate_summary.tsv rows of this pair."""
-    r = rate_summary[rate_summary["analysis"] == pair.name]
-    models = list(dict.fromkeys(r["model"]))
-    if "averaged" in models:          # the model average last
-        models.remove("averaged")
-        models.append("averaged")
-    index = {s: i for i, s in enumerate(pair.states)}
+def _within_classes(rates: pd.DataFrame) -> pd.DataFrame:
+    """With hidden rate classes the states are 'joint@class': keep the changes within a
+    class (a class switch does not change the joint state), as the series
+    'hypothesis, class c' on the plain joint states. Without classes: unchanged."""
+    f = [_split_class(str(x)) for x in rates["from_state"]]
+    t = [_split_class(str(x)) for x in rates["to_state"]]
+    if not any(c for _, _, c in f):
+        return rates
+    keep = [a[2] == b[2] for a, b in zip(f, t)]
+    out = rates[keep].copy()
+    out["model"] = [f"{m}, class {a[2]}" for m, a, k in zip(rates["model"], f, keep) if k]
+    out["from_state"] = [a[0] for a, k in zip(f, keep) if k]
+    out["to_state"] = [b[0] for b, k in zip(t, keep) if k]
+    return out
+
+
+def _base(series: str) -> str:
+    return series.split(", class ")[0]
+
+
+def _hypotheses(pair, rates: pd.DataFrame, support, models=None) -> list:
+    """Series of the pair in table order (hypotheses, or hypothesis x hidden class),
+    without hypotheses reported ``same_as`` another."""
+    names = list(dict.fromkeys(rates.loc[rates["analysis"] == pair.name, "model"]))
+    repeats = style.same_as(support, pair.name)
+    return [h for h in names if _base(h) not in repeats and (models is None or _base(h) in models)]
+
+
+def _legend_label(h, models, pair, weights) -> str:
+    base = _base(h)
+    kind = models[base].kind if models and base in models else base
+    text = f"{h}: {hypothesis_words(base, kind, pair.first.name, pair.second.name)}"
+    if base in weights and np.isfinite(weights[base]):
+        text += f" (mean weight {weights[base]:.2f})"
+    return text
+
+
+def _weights(pair, support) -> dict:
+    if support is None or not len(support) or "mean_weight" not in support:
+        return {}
+    s = support[support["analysis"] == pair.name]
+    return dict(zip(s["model"], s["mean_weight"].astype(float)))
+
+
+def rates_by_state(pair, rates: pd.DataFrame, support: pd.DataFrame | None = None,
+                   models: dict | None = None):
+    """For each trait of the pair, each of its changes in each state of the other
+    trait: the median rate across trees and the central 95% interval across trees,
+    one colour per hypothesis. Under independence a change has one rate whatever the
+    other trait's state, so dependence shows as a shift between neighbouring rows.
+    rates: rates.tsv (per tree, with ``at_bound``); models: {hypothesis: RateModel}."""
+    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
+    hyps = _hypotheses(pair, r, support, models)
+    colours = dict(zip(hyps, style.categorical(len(hyps))))
+    markers = {h: style.MARKERS[i % len(style.MARKERS)] for i, h in enumerate(hyps)}
+    stats = style.rate_intervals(r[r["model"].isin(hyps)])
+    stats["series"] = stats["model"]
+    stats["row"] = list(zip(stats["from_state"], stats["to_state"]))
+    values = np.concatenate([stats["low"].to_numpy(float), stats["high"].to_numpy(float)])
+    values = values[np.isfinite(values) & (values > 0)]
+    xlim = (values.min() / 2, values.max() * 2) if values.size else (0.1, 10.0)
     panels = []
-    for m in models:
-        d = r[r["model"] == m]
-        # with hidden rate classes the states are 'joint@class': one panel per class, its
-        # changes within the class (class switches do not change the joint state)
-        by_class = {}
-        for f, t, x in zip(d["from_state"].astype(str), d["to_state"].astype(str), d["median_rate"]):
-            (f, _, cf), (t, _, ct) = _split_class(f), _split_class(t)
-            if cf == ct and f in index and t in index and np.isfinite(x) \
-                    and (m != "averaged" or x > 0):
-                by_class.setdefault(cf, {})[(index[f], index[t])] = float(x)
-        for c in sorted(by_class) or [""]:
-            panels.append((f"{m}, class {c}" if c else m, by_class.get(c, {})))
-    top = width_scale([x for _, rt in panels for x in rt.values()])
-    n = max(len(panels), 1)
-    cols = min(n, 3)
-    rows = int(np.ceil(n / cols))
-    pos, box_w = _layout(pair)
-    w = 0.45 * (max(p[0] for p in pos.values()) + box_w + 1.6)
-    h = 0.45 * (2.1 * (pair.k1 - 1) + 2.0) + 0.5
-    # at least wide enough for the title and the legend
-    fig, axes = plt.subplots(rows, cols, figsize=(max(cols * w + 0.4, 7.5), rows * h + 1.2),
-                             squeeze=False)
-    weights = {}
-    if support is not None and len(support):
-        s = support[support["analysis"] == pair.name]
-        weights = dict(zip(s["model"], s["mean_weight"]))
-    for ax, (m, rates) in zip(axes.flat, panels):
-        title = m.replace("averaged", "model average", 1) if m.startswith("averaged") else m
-        name = m.split(", class ")[0]
-        if name in weights and np.isfinite(weights[name]):
-            title += f"\nmean weight {weights[name]:.2f}"
-        _panel_diagram(ax, pair, rates, top, title)
-    for ax in list(axes.flat)[len(panels):]:
+    for which, (trait, other) in enumerate(((pair.first, pair.second), (pair.second, pair.first))):
+        rows = []
+        for a, b in itertools.permutations(range(trait.k), 2):
+            for c in range(other.k):
+                i, j = (pair.joint(a, c), pair.joint(b, c)) if which == 0 else \
+                    (pair.joint(c, a), pair.joint(c, b))
+                rows.append(((pair.states[i], pair.states[j]),
+                             f"{trait.states[a]} → {trait.states[b]}  ({other.name} {other.states[c]})"))
+        panels.append((trait, rows))
+    m = max(len(hyps), 1)
+    heights = [len(rows) * (0.06 + 0.14 * m) for _, rows in panels]
+    fig, axes = plt.subplots(2, 1, figsize=(9.0, sum(heights) + 2.0), layout="constrained",
+                             gridspec_kw={"height_ratios": heights})
+    weights = _weights(pair, support)
+    for ax, (trait, rows) in zip(axes, panels):
+        interval_panel(ax, rows, stats, hyps, colours, markers, xlim=xlim)
+        ax.set_title(f"changes in {trait.name}", fontsize=9, loc="left", fontweight="bold")
+        ax.set_xlabel("rate (changes per unit branch length)", fontsize=8)
+    handles = [Line2D([], [], color=colours[h], marker=markers[h], lw=1.4,
+                      label=_legend_label(h, models, pair, weights)) for h in hyps]
+    fig.legend(handles=handles, loc="outside lower center", ncol=1, fontsize=7.5, frameon=False,
+               title="hypothesis: median across trees (marker), central 95% of trees (line)",
+               title_fontsize=7.5)
+    fig.suptitle(f"{pair.name}: rates of each trait in each state of the other, across trees",
+                 fontsize=10)
+    return fig
+
+
+def _grid_cells(pair, model, stats):
+    """(k x k medians, k x k texts, allowed mask, double-change mask) for one hypothesis."""
+    k = len(pair.states)
+    med = np.full((k, k), np.nan)
+    text = np.full((k, k), "", dtype=object)
+    double = np.zeros((k, k), bool)
+    allowed = np.zeros((k, k), bool)
+    index = {s: i for i, s in enumerate(pair.states)}
+    for i in range(k):
+        for j in range(k):
+            (a1, a2), (b1, b2) = pair.split(i), pair.split(j)
+            double[i, j] = i != j and a1 != b1 and a2 != b2
+            if model is not None:
+                allowed[i, j] = i != j and model.rate_index[i, j] != FREE_FORBIDDEN
+    for row in stats.to_dict("records"):
+        i, j = index.get(row["from_state"]), index.get(row["to_state"])
+        if i is None or j is None:
+            continue
+        allowed[i, j] = allowed[i, j] or model is None
+        med[i, j] = row["median_all"]
+        text[i, j] = style.rate_text(row["median_all"])
+        n_bound = row["n_lower"] + row["n_upper"]
+        if n_bound:
+            text[i, j] += f"\n{n_bound}/{row['n_trees']} bound"
+    return med, text, allowed, double
+
+
+def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = None,
+                    models: dict | None = None):
+    """One from-state x to-state grid of joint rates per hypothesis: each allowed
+    cell coloured and written with the median rate across trees (all trees, those at
+    a bound included, counted below the value); changes of both traits at once
+    cross-hatched; changes the hypothesis forbids in plain grey."""
+    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
+    hyps = _hypotheses(pair, r, support, models)
+    stats = style.rate_intervals(r[r["model"].isin(hyps)])
+    med_all = r.groupby(["model", "from_state", "to_state"], sort=False)["rate"].median()
+    stats["median_all"] = [med_all.get((m, f, t), np.nan) for m, f, t in
+                           zip(stats["model"], stats["from_state"], stats["to_state"])]
+    positive = stats["median_all"].to_numpy(float)
+    positive = positive[np.isfinite(positive) & (positive > 0)]
+    lo, hi = (max(positive.min(), style.PRECISION / 10), positive.max()) if positive.size else (0.1, 1)
+    norm = LogNorm(vmin=lo, vmax=max(hi, lo * 10))
+    cmap = colormaps[style.ORDERED_MAP]
+    k = len(pair.states)
+    n = max(len(hyps), 1)
+    cols = min(n, 2)
+    rows_n = int(np.ceil(n / cols))
+    cell = 0.62
+    size = k * cell + 1.4
+    fig, axes = plt.subplots(rows_n, cols, squeeze=False, layout="constrained",
+                             figsize=(cols * size + 1.0, rows_n * (size + 0.5) + 1.3))
+    weights = _weights(pair, support)
+    labels = [s.replace("+", " + ") for s in pair.states]
+    for ax, h in zip(axes.flat, hyps):
+        # with hidden classes the model's matrix is on combined states: cells from the data
+        model = models.get(h) if models and h in models else None
+        med, text, allowed, double = _grid_cells(pair, model, stats[stats["model"] == h])
+        rgba = np.ones((k, k, 4))
+        for i in range(k):
+            for j in range(k):
+                if allowed[i, j] and np.isfinite(med[i, j]):
+                    rgba[i, j] = cmap(norm(max(med[i, j], lo)))
+                elif i == j:
+                    rgba[i, j] = (1, 1, 1, 1)
+                else:
+                    rgba[i, j] = (0.9, 0.9, 0.9, 1)
+        ax.imshow(rgba, interpolation="nearest", aspect="equal")
+        for i in range(k):
+            for j in range(k):
+                if double[i, j]:
+                    ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch=DOUBLE_HATCH,
+                                           edgecolor="#b0b0b0", lw=0))
+                elif allowed[i, j] and text[i, j]:
+                    ax.text(j, i, text[i, j], ha="center", va="center", fontsize=6,
+                            color=style.text_colour_on(rgba[i, j][:3]), linespacing=1.1)
+        ax.set_xticks(range(k), labels, rotation=90, fontsize=7)
+        ax.set_yticks(range(k), labels, fontsize=7)
+        ax.set_xticks(np.arange(-0.5, k), minor=True)
+        ax.set_yticks(np.arange(-0.5, k), minor=True)
+        ax.grid(which="minor", color="white", lw=1.0)
+        ax.tick_params(which="both", length=0)
+        ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=7.5)
+        ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=7.5)
+        b = _base(h)
+        w = f", mean weight {weights[b]:.2f}" if b in weights and np.isfinite(weights[b]) else ""
+        ax.set_title(f"{h}{w}", fontsize=8.5)
+    for ax in list(axes.flat)[len(hyps):]:
         ax.set_visible(False)
-    handles = [Line2D([], [], color=FIRST_COLOUR, lw=3, label=f"{pair.first.name} changes"),
-               Line2D([], [], color=SECOND_COLOUR, lw=3, label=f"{pair.second.name} changes"),
-               Line2D([], [], color="#777777", lw=MIN_WIDTH, ls=":",
-                      label="rate near zero (< 0.1% of the widest)")]
-    fig.legend(handles=handles, loc="lower center", ncol=3, fontsize=7.5, frameon=False)
-    labelled = all(len(rt) <= MAX_LABELLED for _, rt in panels)
-    fig.suptitle(f"{pair.name}: median rates across trees between joint states "
-                 f"({pair.first.name}+{pair.second.name})\narrow width ∝ rate"
-                 + ("" if labelled else "; values in tables/rate_summary.tsv"), fontsize=10)
-    fig.tight_layout(rect=(0, 0.06, 1, 0.94))
+    sm = plt.cm.ScalarMappable(norm=norm, cmap=cmap)
+    bar = fig.colorbar(sm, ax=axes.ravel().tolist(), shrink=0.5, pad=0.02)
+    bar.set_label("median rate across trees", fontsize=7.5)
+    bar.ax.tick_params(labelsize=7)
+    bar.set_ticks(style.log_ticks(norm.vmin, norm.vmax),
+                  labels=[style.plain_number(v) for v in style.log_ticks(norm.vmin, norm.vmax)])
+    bar.ax.yaxis.set_minor_formatter(NullFormatter())
+    handles = [Patch(facecolor="white", edgecolor="#b0b0b0", hatch=DOUBLE_HATCH,
+                     label="both traits at once: never allowed"),
+               Patch(facecolor="#e6e6e6", edgecolor="none", label="not allowed by this hypothesis"),
+               Line2D([], [], ls="none", label=f"values below {style.PRECISION:g} written "
+                                                f"\"< {style.PRECISION:g}\"; "
+                                                "'k/n bound': trees with the rate at a bound")]
+    fig.legend(handles=handles, loc="outside lower center", ncol=1, fontsize=7, frameon=False)
+    fig.suptitle(f"{pair.name}: joint-state rates, from (rows) to (columns)", fontsize=10)
     return fig
 
 
@@ -165,7 +252,7 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
     b = bootstrap[bootstrap["pair"] == pair_name] if len(bootstrap) else bootstrap
     keys = list(dict.fromkeys(zip(t["null"], t["alternative"])))
     n = max(len(keys), 1)
-    fig, axes = plt.subplots(n, 2, figsize=(10, 3.4 * n), squeeze=False)
+    fig, axes = plt.subplots(n, 2, figsize=(10, 4.2 * n), squeeze=False, layout="constrained")
     if not keys:
         for ax in axes.flat:
             ax.axis("off")
@@ -188,13 +275,14 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
         if stat.size:
             ax.axvline(np.median(stat), color=SECOND_COLOUR, lw=1.2,
                        label=f"median across trees: {np.median(stat):.2f}")
-        ax.set_ylim(-0.5, 1.35)      # the band above the points holds the legend
+        ax.set_ylim(-0.5, 0.5)
         ax.set_yticks([])
         ax.set_xlim(left=0, right=max(crit, stat.max() if stat.size else 0) * 1.12 + 0.5)
         ax.set_xlabel("likelihood-ratio statistic 2 (ln L alternative − ln L null)")
         ax.set_title(f"{null} vs {alt}\n{int(above.sum())} of {stat.size} trees reject "
                      f"at {alpha:g} (χ²)", fontsize=9)
-        ax.legend(fontsize=7, loc="upper center", ncol=2, framealpha=0.85)
+        ax.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.22), ncol=2,
+                  frameon=False)
         ax = axes[row, 1]
         sims = b[(b["null"] == null) & (b["alternative"] == alt)] if len(b) else b
         if len(sims) == 0:
@@ -218,11 +306,11 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
             ax.axvline(o, color=FIRST_COLOUR, lw=1.3, alpha=0.8,
                        label="observed (per tree)" if i == 0 else None)
         ax.set_xlim(0, hi)
-        ax.set_ylim(0, 1.3 * max(heights.max(), 1e-9))
+        ax.set_ylim(0, 1.05 * max(heights.max(), 1e-9))
         ax.set_xlabel("likelihood-ratio statistic")
         ax.set_ylabel("density")
         ax.set_title(f"parametric bootstrap\n{null} vs {alt}", fontsize=9)
-        ax.legend(fontsize=6.5, loc="upper right", framealpha=0.85)
+        ax.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.22), ncol=2,
+                  frameon=False)
     fig.suptitle(f"{pair_name}: likelihood-ratio tests across trees", fontsize=10)
-    fig.tight_layout(rect=(0, 0, 1, 0.96))
     return fig

@@ -61,7 +61,7 @@ rule plot_pair:
         tests=f"{OUT}/tables/pair_tests.tsv",
         summary=f"{OUT}/tables/pair_summary.tsv",
         bootstrap=f"{OUT}/tables/pair_bootstrap.tsv",
-        rates=f"{OUT}/tables/rate_summary.tsv",
+        rates=f"{OUT}/tables/rates.tsv",
         support=f"{OUT}/tables/model_support.tsv",
         traits=f"{OUT}/prepared/traits.json",
     output:

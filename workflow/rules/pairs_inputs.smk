@@ -46,7 +46,7 @@ def pair_bootstrap_runtime(wildcards, attempt):
     return 10 + attempt * int(per_chunk * n_tests * spec["bootstrap"] * 0.5 / 60)
 
 
-PAIR_PLOTS = ["diagram", "tests"]
+PAIR_PLOTS = ["rates_by_state", "joint_rates", "tests"]
 
 
 def pair_targets(wildcards):

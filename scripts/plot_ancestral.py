@@ -10,6 +10,7 @@ import pandas as pd
 
 from mkforest.data.traits import traits_from_json
 from mkforest.data.trees import parse_newick
+from mkforest.jobs.fit import analysis_setup
 from mkforest.jobs.scripting import run_job
 from mkforest.report import plots_ancestral
 
@@ -21,11 +22,18 @@ def main(smk):
     per_tree = pd.read_csv(smk.input.per_tree, sep="\t", dtype={"from_state": str, "to_state": str})
     tree = parse_newick(Path(smk.input.tree).read_text().strip(), rooted=True)
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
+    setup = smk.params.setup
+    pairs = {name: spec["traits"] for name, spec in setup["pairs"].items()}
     for analysis in smk.params.analyses:
+        trait, models = analysis_setup(setup, analysis, traits)   # a pair: its joint trait
+        ordered = analysis not in pairs and plots_ancestral.is_ordered_trait(
+            [m for m, _ in models.values()], trait.k)
         fig = plots_ancestral.state_tree(tree, states[states["analysis"] == analysis], clades,
-                                         traits.get(analysis), analysis)
-        plots_ancestral.save(fig, [p for p in out.trees if Path(p).stem == f"ancestral_tree_{analysis}"])
-    plots_ancestral.save(plots_ancestral.change_counts(per_tree), [out.changes_png, out.changes_svg])
+                                         trait, analysis, ordered)
+        plots_ancestral.save(fig, [p for p in out.trees
+                                   if Path(p).stem == f"ancestral_tree_{analysis}"])
+    plots_ancestral.save(plots_ancestral.change_counts(per_tree, pairs),
+                         [out.changes_png, out.changes_svg])
     classes = pd.read_csv(smk.input.classes, sep="\t", dtype={"state": str, "clade": str},
                           keep_default_na=False, na_values=[""])
     for analysis, models in smk.params.hidden.items():

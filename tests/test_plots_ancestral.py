@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from figure_checks import overlaps
 
 from mkforest.data.clades import consensus_names, node_clades
 from mkforest.data.traits import trait_from_mapping
@@ -36,13 +37,16 @@ def test_state_tree_drawn_labelled_and_written(tmp_path):
                                         "e": "salt", "f": "salt"}, states=STATES)
     fig = plots_ancestral.state_tree(tree, states, clades, trait, "soil")
     ax = fig.axes[0]
-    assert "soil" in ax.get_title()
+    assert "soil" in ax.get_title(loc="left")
     legend = [t.get_text() for t in ax.get_legend().get_texts()]
     assert set(STATES) <= set(legend)
+    # c is 'dry|wet' (its two states side by side), d is unknown (hatched)
+    assert {"tip: several states possible", "tip: state unknown"} <= set(legend)
     texts = {t.get_text() for t in ax.texts}
     assert set("abcdef") <= texts              # every tip labelled
     assert "0.80" in texts                     # clade frequency shown
     assert fig.mkforest_nodes_drawn == tree.n_nodes - tree.n_tips
+    assert overlaps(fig) == []
     paths = [tmp_path / "tree.png", tmp_path / "tree.svg"]
     plots_ancestral.save(fig, paths)
     for p in paths:
@@ -62,10 +66,11 @@ def test_change_counts_panels(tmp_path):
                                          mean_count=float(tree % 3)))
     fig = plots_ancestral.change_counts(pd.DataFrame(rows))
     visible = [ax for ax in fig.axes if ax.get_visible()]
-    assert [ax.get_title() for ax in visible] == ["soil (10 trees)", "colour (10 trees)"]
-    ticks = {t.get_text() for t in visible[1].get_xticklabels()}
+    assert [ax.get_title(loc="left") for ax in visible] == ["soil (10 trees)", "colour (10 trees)"]
+    ticks = {t.get_text() for t in visible[1].get_yticklabels()}
     assert ticks == {"red → blue", "blue → red"}
-    assert visible[0].get_ylabel() == "changes on the tree (mean of maps)"
+    assert visible[0].get_xlabel() == "changes on the tree (mean of the tree's maps)"
+    assert overlaps(fig) == []
     path = tmp_path / "changes.png"
     plots_ancestral.save(fig, [path])
     assert path.stat().st_size > 1000

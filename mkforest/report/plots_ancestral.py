@@ -22,18 +22,53 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 import seaborn as sns  # noqa: E402
+from matplotlib.collections import LineCollection  # noqa: E402
+from matplotlib.legend_handler import HandlerTuple  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
 
 from ..data.clades import ladder_children, node_clades, tips_in_drawing_order  # noqa: E402
+from ..engine.models import FIXED  # noqa: E402
+from . import style  # noqa: E402
 
-STATE_PALETTE = "Set2"
 BRANCH_COLOUR = "#4a4a4a"
 SUPPORT_COLOUR = "#6b4f2a"
+UNKNOWN_HATCH = "////"
+
+# Sizes in inches: the tree is laid out on a known canvas so that bars and labels
+# can be placed where they collide with nothing already drawn.
+ROW = 0.2            # height of one tip row (300 tips: 60 inches, 7-point labels legible)
+BAR_W, BAR_H = 0.34, 0.11
+TIP_W = 0.11
+FONT_TIP, FONT_FREQ = 7.0, 6.0
+LEGEND_W = 2.6
 
 
-def state_colours(states) -> dict:
-    return dict(zip(states, sns.color_palette(STATE_PALETTE, n_colors=max(len(states), 3))))
+def state_colours(states, is_ordered: bool = False) -> dict:
+    """Categorical (Okabe & Ito) colours, an ordered ramp for ordered traits, and for
+    joint states 'a+b' of a pair the first state's hue in the second state's shade."""
+    states = list(states)
+    if states and all("+" in s for s in states):
+        firsts = list(dict.fromkeys(s.split("+", 1)[0] for s in states))
+        seconds = list(dict.fromkeys(s.split("+", 1)[1] for s in states))
+        if len(firsts) * len(seconds) == len(states):
+            return style.joint_colours(firsts, seconds)
+    return style.state_colours(states, is_ordered)
+
+
+def is_ordered_trait(models, k: int) -> bool:
+    """True when some model of the trait lets it change only one step at a time along
+    its declared state order (a stepwise model), covering every step: then the
+    states have an order worth a sequential palette."""
+    if k < 3:
+        return False
+    for m in models:
+        allowed = [(i, j) for i in range(k) for j in range(k) if i != j and (
+            m.rate_index[i, j] >= 0 or (m.rate_index[i, j] == FIXED and m.fixed[i, j] > 0))]
+        if allowed and all(abs(i - j) == 1 for i, j in allowed) and \
+                {min(i, j) for i, j in allowed} == set(range(k - 1)):
+            return True
+    return False
 
 
 def _layout(tree):
@@ -48,29 +83,106 @@ def _layout(tree):
     return x, y, kids
 
 
+class _Occupied:
+    """Boxes (x0, y0, x1, y1, in inches) already taken on the canvas."""
+
+    def __init__(self):
+        self.boxes = np.empty((0, 4))
+
+    def add(self, boxes):
+        self.boxes = np.vstack([self.boxes, np.asarray(boxes, float).reshape(-1, 4)])
+
+    def free(self, box, pad=0.01) -> bool:
+        b = self.boxes
+        if not len(b):
+            return True
+        return not np.any((b[:, 0] < box[2] + pad) & (b[:, 2] > box[0] - pad)
+                          & (b[:, 1] < box[3] + pad) & (b[:, 3] > box[1] - pad))
+
+
+def _text_size(text: str, points: float):
+    """Generous width and height (inches) of a one-line text in DejaVu Sans."""
+    return 0.62 * len(text) * points / 72 + 0.02, 1.3 * points / 72
+
+
 def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, analysis: str = "",
-               colours: dict | None = None, title: str | None = None, legend_title: str = "state"):
+               ordered: bool = False, colours: dict | None = None, title: str | None = None,
+               legend_title: str | None = None):
     """Summary tree with mean ancestral state probabilities at its nodes.
 
     states: ancestral_states rows of one analysis; clades: the clade table
-    (members, clade, frequency); trait: the Trait, to mark tip states (optional).
+    (members, clade, frequency); trait: the Trait (for a pair, its joint Trait) to
+    mark tip states: one colour for a known state, the possible states side by side
+    for an ambiguous cell, hatching for unknown; ordered: an ordered palette.
+
+    Every node bar is placed at its node, or slid along its own branch toward the
+    root, where it touches no other bar, tip mark or label; a clade frequency below
+    1 is written beside its bar where it touches nothing (all are in clades.tsv).
     colours, title, legend_title: for other categories drawn the same way (hidden classes).
     """
     labels = list(dict.fromkeys(states["state"].astype(str)))
-    colours = colours or state_colours(labels)
+    if trait is not None:
+        labels = list(trait.states)
+    colours = colours or state_colours(labels, ordered)
     x, y, kids = _layout(tree)
-    span = max(float(x.max()), 1e-12)
     n = tree.n_tips
-    fig_h = min(max(4.0, 0.22 * n + 1.5), 60.0)
-    fig, ax = plt.subplots(figsize=(9.0, fig_h))
+    span = max(float(x.max()), 1e-12)
+    longest = max((len(t) for t in tree.tip_labels), default=1)
+    label_w = _text_size("M" * longest, FONT_TIP)[0] * 0.85
+    tree_w = 6.2
+    top, bottom = 0.55, 0.6
+    height = n * ROW + top + bottom
+    width = 0.35 + tree_w + 0.15 + TIP_W * 2 + label_w + LEGEND_W
+    fig = plt.figure(figsize=(width, height))
+    ax_w = tree_w + 0.3 + TIP_W * 2 + label_w + 0.1          # inches of the axes
+    ax = fig.add_axes((0.3 / width, bottom / height, ax_w / width, (n * ROW) / height))
+    per_in = span / tree_w
+    x_lo = -0.25 * per_in
+    ax.set_xlim(x_lo, x_lo + ax_w * per_in)
+    ax.set_ylim(n - 0.5, -0.5)
 
+    def inch(xd, yd):
+        return (xd - x_lo) / per_in, (n - 0.5 - yd) * ROW
+
+    occupied = _Occupied()
+    segments = []
     for v in range(tree.n_nodes):
         if v != tree.root:
-            p = tree.parent[v]
-            ax.plot([x[p], x[v]], [y[v], y[v]], color=BRANCH_COLOUR, lw=1.0, zorder=1)
+            segments.append([(x[tree.parent[v]], y[v]), (x[v], y[v])])
         if v >= tree.n_tips:
             ys = [y[c] for c in kids[v]]
-            ax.plot([x[v], x[v]], [min(ys), max(ys)], color=BRANCH_COLOUR, lw=1.0, zorder=1)
+            segments.append([(x[v], min(ys)), (x[v], max(ys))])
+    ax.add_collection(LineCollection(segments, colors=BRANCH_COLOUR, linewidths=0.9, zorder=1))
+    branch_boxes = []
+    for (xa, ya), (xb, yb) in segments:
+        (x0, y0), (x1, y1) = inch(xa, ya), inch(xb, yb)
+        branch_boxes.append([min(x0, x1), min(y0, y1) - 0.01, max(x0, x1), max(y0, y1) + 0.01])
+
+    # tips: a mark of the observed state(s), then the label
+    tip_row = {t: i for i, t in enumerate(trait.taxa)} if trait is not None else {}
+    tip_x = span + 0.08 * per_in
+    unknown = ambiguous = False
+    for v in range(n):
+        label = tree.tip_labels[v]
+        xi, yi = inch(tip_x, y[v])
+        occupied.add([xi, yi - ROW * 0.4, xi + TIP_W + 0.04 + _text_size(label, FONT_TIP)[0],
+                      yi + ROW * 0.4])
+        ax.text(tip_x + (TIP_W + 0.05) * per_in, y[v], label, va="center", fontsize=FONT_TIP)
+        i = tip_row.get(label)
+        if i is None:
+            continue
+        possible = np.flatnonzero(trait.possible[i])
+        h = 0.7
+        if len(possible) == len(trait.states):
+            ax.add_patch(Rectangle((tip_x, y[v] - h / 2), TIP_W * per_in, h, facecolor="white",
+                                   edgecolor="#777777", hatch=UNKNOWN_HATCH, lw=0.5, zorder=3))
+            unknown = True
+            continue
+        ambiguous |= len(possible) > 1
+        w = TIP_W * per_in / len(possible)
+        for k, s in enumerate(possible):
+            ax.add_patch(Rectangle((tip_x + k * w, y[v] - h / 2), w, h,
+                                   facecolor=colours[trait.states[s]], edgecolor="none", zorder=3))
 
     # node bars: mean probability of each state, stacked left to right
     by_members = {}
@@ -79,67 +191,111 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
             by_members[frozenset(str(row["members"]).split(","))] = row
     table = states.set_index(["clade", "state"])["mean_probability"]
     sets = node_clades(tree)
-    bar_w, bar_h = 0.07 * span, 0.55
-    n_drawn = 0
-    for v in range(tree.n_tips, tree.n_nodes):
+    full_w = BAR_W * per_in
+    placed = {}
+    order = sorted(range(n, tree.n_nodes), key=lambda v: (x[v], y[v]))     # root side first
+    for v in order:
         row = by_members.get(sets[v])
         if row is None:
             continue
-        probs = [float(table.get((row["clade"], s), np.nan)) for s in labels]
-        left = x[v] - bar_w / 2
+        probs = np.array([float(table.get((row["clade"], s), np.nan)) for s in labels])
+        parent_x = x[tree.parent[v]] if v != tree.root else x[v] - 0.6 * full_w
+        centre = None
+        for scale in (1.0, 0.6):              # a narrower bar where a full one has no room
+            w_in = BAR_W * scale
+            for shift in np.arange(0.0, max(x[v] - parent_x, 0.0) + 1e-12, 0.1 * full_w):
+                cx = x[v] - shift
+                x0, yc = inch(cx - w_in * per_in / 2, y[v])
+                box = (x0, yc - BAR_H / 2, x0 + w_in, yc + BAR_H / 2)
+                if occupied.free(box):
+                    centre = cx
+                    break
+            if centre is not None:
+                break
+        if centre is None:
+            continue
+        bar_w = w_in * per_in
+        occupied.add(box)
+        placed[v] = (centre, probs, row, bar_w)
+        left = centre - bar_w / 2
+        hh = BAR_H / ROW
         if np.all(np.isfinite(probs)):
             for s, pr in zip(labels, probs):
-                ax.add_patch(Rectangle((left, y[v] - bar_h / 2), bar_w * pr, bar_h,
-                                       facecolor=colours[s], edgecolor="none", zorder=3))
+                ax.add_patch(Rectangle((left, y[v] - hh / 2), bar_w * pr, hh, facecolor=colours[s],
+                                       edgecolor="none", zorder=3))
                 left += bar_w * pr
-            n_drawn += 1
-        ax.add_patch(Rectangle((x[v] - bar_w / 2, y[v] - bar_h / 2), bar_w, bar_h, fill=False,
-                               edgecolor="black", lw=0.6, zorder=4))
-        if v != tree.root and np.isfinite(row["frequency"]):
-            ax.text(x[v] - bar_w / 2 - 0.01 * span, y[v] - bar_h / 2 - 0.05, f"{row['frequency']:.2f}",
-                    ha="right", va="bottom", fontsize=7, color=SUPPORT_COLOUR, zorder=5)
-
-    # tips: label and observed state
-    tip_row = {t: i for i, t in enumerate(trait.taxa)} if trait is not None else {}
-    for v in range(tree.n_tips):
-        label = tree.tip_labels[v]
-        ax.text(x[v] + 0.05 * span, y[v], label, va="center", fontsize=7)
-        i = tip_row.get(label)
-        if i is None:
+        ax.add_patch(Rectangle((centre - bar_w / 2, y[v] - hh / 2), bar_w, hh, fill=False,
+                               edgecolor="black", lw=0.5, zorder=4))
+    occupied.add(branch_boxes)
+    n_freq = n_hidden = 0
+    for v in order:
+        if v not in placed or v == tree.root:
             continue
-        possible = trait.possible[i]
-        if possible.all():
+        centre, _, row, bar_w = placed[v]
+        f = row["frequency"]
+        if not np.isfinite(f) or f >= 0.995:
             continue
-        if possible.sum() == 1:
-            ax.add_patch(Rectangle((x[v] + 0.012 * span, y[v] - 0.3), 0.025 * span, 0.6,
-                                   facecolor=colours[trait.states[int(np.flatnonzero(possible)[0])]],
-                                   edgecolor="none", zorder=3))
+        text = f"{f:.2f}"
+        tw, th = _text_size(text, FONT_FREQ)
+        bx, by = inch(centre - bar_w / 2, y[v])
+        bw = bar_w / per_in
+        candidates = [(bx - tw - 0.03 - dx, y0, va) for dx in (0.0, 0.12, 0.24)
+                      for y0, va in ((by + 0.03, "bottom"), (by - th - 0.03, "top"))]
+        candidates += [(bx + (bw - tw) / 2, by + BAR_H / 2 + 0.02, "bottom"),
+                       (bx + (bw - tw) / 2, by - BAR_H / 2 - th - 0.02, "top")]
+        for x0, y0, va in candidates:
+            box = (x0, y0, x0 + tw, y0 + th)
+            if occupied.free(box, pad=0.015):
+                occupied.add(box)
+                yt = n - 0.5 - (y0 + (0 if va == "bottom" else th)) / ROW
+                ax.text(x_lo + (x0 + tw / 2) * per_in, yt, text, ha="center", va=va,
+                        fontsize=FONT_FREQ, color=SUPPORT_COLOUR, zorder=5)
+                n_freq += 1
+                break
         else:
-            ax.add_patch(Rectangle((x[v] + 0.012 * span, y[v] - 0.3), 0.025 * span, 0.6,
-                                   facecolor="white", edgecolor="black", lw=0.6, zorder=3))
+            n_hidden += 1
 
-    handles = [Patch(facecolor=colours[s], label=s) for s in labels]
+    handles = [Patch(facecolor=colours[s], label=s.replace("+", " + ")) for s in labels]
     if trait is not None:
-        handles.append(Patch(facecolor="white", edgecolor="black", label="tip: several states possible"))
-    handles.append(Line2D([], [], ls="none", marker="$0.9$", color=SUPPORT_COLOUR, markersize=12,
-                          label="clade frequency in the tree sample"))
-    ax.legend(handles=handles, title=legend_title, loc="upper left", bbox_to_anchor=(1.0, 1.0),
-              frameon=False, fontsize=8, title_fontsize=9)
-    ax.set_ylim(n - 0.4, -0.8)
-    ax.set_xlim(-0.08 * span, 1.35 * span)
+        if ambiguous:
+            handles.append((Patch(facecolor=colours[labels[0]]), Patch(facecolor=colours[labels[-1]])))
+        if unknown:
+            handles.append(Patch(facecolor="white", edgecolor="#777777", hatch=UNKNOWN_HATCH))
+    names = [h.get_label() if not isinstance(h, tuple) else "tip: several states possible"
+             for h in handles]
+    if trait is not None and unknown:
+        names[-1] = "tip: state unknown"
+    handles.append(Line2D([], [], ls="none", marker="$0.9$", color=SUPPORT_COLOUR, markersize=12))
+    names.append("clade frequency in the tree sample\n(written when below 1 and where it fits;"
+                 "\nall in tables/clades.tsv)")
+    left_out = len([v for v in order if by_members.get(sets[v]) is not None and v not in placed])
+    if left_out:
+        handles.append(Line2D([], [], ls="none"))
+        names.append(f"{left_out} node bars left out: branches too\nshort to draw them apart "
+                     "(values in\ntables/ancestral_states.tsv)")
+    if legend_title is None:
+        legend_title = ("state" if trait is None or "+" not in labels[0]
+                        else f"{analysis} (joint state)")
+    ax.legend(handles, names, title=legend_title, loc="upper left", bbox_to_anchor=(1.0, 1.0),
+              frameon=False, fontsize=8, title_fontsize=9, alignment="left",
+              handler_map={tuple: HandlerTuple(ndivide=None, pad=0)})
     ax.set_yticks([])
     for side in ("left", "right", "top"):
         ax.spines[side].set_visible(False)
+    ax.spines["bottom"].set_bounds(0, span)
+    ax.set_xticks([t for t in ax.get_xticks() if 0 <= t <= span])
+    ax.tick_params(axis="x", labelsize=7.5)
     n_trees = int(states["n_trees"].max()) if len(states) else 0
-    ax.set_xlabel("distance from the root (branch length units)")
+    ax.set_xlabel("distance from the root (branch length units)", fontsize=8, loc="left")
     drawn_on = (str(clades["summary_tree"].iloc[0]) if "summary_tree" in clades and len(clades)
                 else "")
     default = (f"Ancestral states of '{analysis}': mean probability across trees "
                f"(up to {n_trees} tree{'' if n_trees == 1 else 's'})"
                + (f"\ndrawn on the {drawn_on}" if drawn_on else ""))
-    ax.set_title(title or default, fontsize=10)
-    fig.tight_layout()
-    fig.mkforest_nodes_drawn = n_drawn  # for tests: how many node bars carry probabilities
+    ax.set_title(title or default, fontsize=10, loc="left")
+    fig.mkforest_nodes_drawn = sum(np.all(np.isfinite(p[1])) for p in placed.values())
+    fig.mkforest_bars_left_out = left_out
+    fig.mkforest_frequencies = (n_freq, n_hidden)
     return fig
 
 
@@ -171,39 +327,45 @@ def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str,
                       legend_title="rate class")
 
 
-def change_counts(per_tree: pd.DataFrame):
-    """Expected number of changes per direction across trees, one panel per analysis."""
+def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None):
+    """Expected number of changes per direction across trees, one panel per analysis,
+    one row per direction: a box of the trees' values (each tree: the mean over its
+    maps) with the trees as points. Changes of both traits of a pair at once are
+    impossible by construction and left out. pairs: {pair: (first, second)}."""
+    pairs = pairs or {}
     d = per_tree.copy()
-    d["direction"] = d["from_state"].astype(str) + " → " + d["to_state"].astype(str)
+    double = [a in pairs and style.is_double_change(f, t)
+              for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])]
+    d = d[~np.asarray(double, bool)]
     analyses = list(dict.fromkeys(d["analysis"]))
-    cols = min(max(len(analyses), 1), 3)
-    rows = int(np.ceil(max(len(analyses), 1) / cols))
-    fig, axes = plt.subplots(rows, cols, figsize=(4.8 * cols, 3.6 * rows), squeeze=False)
-    for ax, a in zip(axes.flat, analyses):
-        g = d[d["analysis"] == a]
-        order = list(dict.fromkeys(g["direction"]))
-        sns.violinplot(data=g, x="direction", y="mean_count", order=order, ax=ax, cut=0,
-                       inner="quart", density_norm="width", linewidth=0.8,
-                       color=sns.color_palette(STATE_PALETTE)[1])
-        ax.set_title(f"{a} ({g['tree'].nunique()} trees)")
-        ax.set_xlabel("change (from → to)")
-        ax.set_ylabel("changes on the tree (mean of maps)")
-        ax.tick_params(axis="x", rotation=35)
-    for ax in list(axes.flat)[len(analyses):]:
-        ax.set_visible(False)
-    fig.suptitle("Stochastic maps: number of changes by direction across trees")
-    fig.tight_layout()
+    n_rows = [d.loc[d["analysis"] == a, ["from_state", "to_state"]].drop_duplicates().shape[0]
+              for a in analyses] or [1]
+    fig, axes = plt.subplots(len(n_rows), 1, squeeze=False, layout="constrained",
+                             figsize=(7.5, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
+                             gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]})
+    for ax, a in zip(axes[:, 0], analyses):
+        g = d[d["analysis"] == a].copy()
+        keys = sorted(dict.fromkeys(zip(g["from_state"], g["to_state"])),
+                      key=lambda k: style.change_order(k, pairs.get(a)))
+        label = {k: style.change_label(*k, pairs.get(a)) for k in keys}
+        g["direction"] = [label[k] for k in zip(g["from_state"], g["to_state"])]
+        order = [label[k] for k in keys]
+        sns.boxplot(data=g, y="direction", x="mean_count", order=order, ax=ax, orient="h",
+                    color="#cfe8f7", fliersize=0, width=0.6, linewidth=0.8)
+        np.random.seed(0)  # seaborn jitters from NumPy's global generator: same figure every run
+        sns.stripplot(data=g, y="direction", x="mean_count", order=order, ax=ax, orient="h",
+                      size=2.2, alpha=0.6, color=style.CATEGORICAL[0], jitter=0.2)
+        ax.set_title(f"{a} ({g['tree'].nunique()} trees)", fontsize=9, loc="left",
+                     fontweight="bold")
+        ax.set_ylabel("")
+        ax.set_xlabel("changes on the tree (mean of the tree's maps)", fontsize=8)
+        ax.set_xlim(left=0)
+        ax.tick_params(axis="y", labelsize=7.5, length=0)
+        ax.tick_params(axis="x", labelsize=7.5)
+        ax.grid(axis="x", color="#eeeeee", lw=0.6)
+        ax.set_axisbelow(True)
+    fig.suptitle("Stochastic maps: number of changes by direction across trees", fontsize=10)
     return fig
 
 
-# SVG element ids from a fixed salt, and no date in the files: a rerun writes the
-# same bytes, so the checksums in manifest.json repeat.
-matplotlib.rcParams["svg.hashsalt"] = "mkforest"
-
-
-def save(fig, paths) -> None:
-    for p in paths:
-        svg = str(p).endswith(".svg")
-        fig.savefig(p, dpi=None if svg else 150, bbox_inches="tight",
-                    metadata={"Date": None} if svg else None)
-    plt.close(fig)
+save = style.save

@@ -122,6 +122,13 @@ rule plot_ancestral:
     params:
         analyses=list(ANALYSES),
         hidden=HIDDEN_CLASS_MODELS,
+        setup=stable(
+            {
+                "traits": {"columns": config["traits"]["columns"]},
+                "models": config["models"],
+                "pairs": config["pairs"],
+            }
+        ),
     log:
         f"{OUT}/logs/plot_ancestral.log",
     conda:

@@ -200,6 +200,48 @@ def test_methods_cite_what_ran_and_only_that(run):
     assert "only 5 trees: intervals across trees are rough" in text
 
 
+def _paragraph(text):
+    m = re.search(r"^## Methods in one paragraph\n\n(.+?)\n\n## Methods in full\n", text, re.S | re.M)
+    assert m, "no paste-ready paragraph under its own heading"
+    assert "\n" not in m.group(1)                      # one paragraph
+    return m.group(1)
+
+
+IDENTIFIERS = ("first_depends_on_second", "second_depends_on_first", "data_weighted",
+               "unconstrained", "aicc", "kind:", "per_job", "burnin")
+
+
+def test_methods_open_with_one_paragraph_from_the_tables(run):
+    """<= 250 words; the numbers are those of trees_used.tsv, data_check.tsv and the
+    config; each model's name in quotes once, with its structure in words."""
+    work, _ = run
+    text = (out_dir(work) / "methods.md").read_text()
+    para = _paragraph(text)
+    assert text.index("## Methods in one paragraph") < text.index("## Methods in full") < \
+        text.index("## Results") < text.index("## References")
+    assert len([w for w in para.split() if any(c.isalnum() for c in w)]) <= 250
+    used, check = tsv(work, "trees_used"), tsv(work, "data_check")
+    assert f"for {used['n_tips'].iloc[0]} taxa on each of {len(used)} trees" in para
+    assert "first tree discarded as burn-in" in para        # burnin: 1 in base_config
+    k = {t: int(check[(check["trait"] == t) & check["item"].str.startswith("state:")].shape[0])
+         for t in ("glow", "habitat")}
+    assert k == {"glow": 2, "habitat": 3}
+    assert "glow (2 states)" in para and "habitat (3 states)" in para
+    assert "from 2 starting points per fit" in para
+    assert para.count('"one_rate"') == 1 and para.count('"free"') == 1
+    assert '"one_rate" (one rate for all changes)' in para
+    assert '"free" (a separate rate for every change)' in para
+    assert "ranked by AICc" in para and "mean Akaike weight" in para
+    assert "every state equally probable at the root" in para
+    sw = manifest_of(work)["software"]
+    assert f"mkforest {sw['mkforest']}" in para and f"Snakemake {sw['snakemake']}" in para
+    assert REFERENCES["molder2021"].full() in text.split("## References", 1)[1]
+    for word in IDENTIFIERS:
+        assert word not in para
+    # nothing of stages that did not run
+    assert "ancestral" not in para.lower() and "likelihood-ratio" not in para
+
+
 def _text_for(work, config):
     tables = read_tables({p.stem: p for p in (out_dir(work) / "tables").glob("*.tsv")})
     traits = traits_from_json(json.loads((out_dir(work) / "prepared" / "traits.json").read_text()))
@@ -284,6 +326,15 @@ def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_facto
     assert "9 data sets simulated under the fitted null hypothesis on each of 2 trees" in text
     assert "**Trait pairs.**" in text and "**Ancestral states.**" in text
     assert "4 stochastic character maps per tree" in text
+    para = _paragraph(text)
+    assert len([w for w in para.split() if any(c.isalnum() for c in w)]) <= 250
+    assert ("For banding with aperture, hypotheses of joint change (one trait changing at a "
+            "time; Pagel 1994) were compared on each tree by likelihood-ratio tests: independent "
+            "change and mutual dependence; a parametric bootstrap (Goldman 1993) simulated 9 data "
+            "sets on each of 2 trees.") in para
+    assert "4 stochastic character maps per tree" in para
+    for word in IDENTIFIERS:
+        assert word not in para
     # the pair test sentence carries the numbers of pair_summary.tsv
     summary = tsv(work, "pair_summary")
     sec = _section(text, "band_aperture")

@@ -43,7 +43,9 @@ class Reference:
         names = [f"{family}, {given}" for family, given in self.authors]
         who = names[0] if len(names) == 1 else ", ".join(names[:-1]) + " & " + names[-1]
         if self.journal:
-            where = f"{self.journal} {self.volume}: {self.pages[0]}–{self.pages[1]}."
+            pages = (str(self.pages[0]) if self.pages[0] == self.pages[1]     # an article number
+                     else f"{self.pages[0]}–{self.pages[1]}")
+            where = f"{self.journal} {self.volume}: {pages}."
         else:
             edition = f"{self.edition} edition. " if self.edition else ""
             where = f"{edition}{self.publisher}, {self.place}."
@@ -124,6 +126,12 @@ _ALL = [
     Reference("boyko2021", (("Boyko", "J. D."), ("Beaulieu", "J. M.")), 2021,
               "Generalized hidden Markov models for phylogenetic comparative datasets",
               "Methods in Ecology and Evolution", 12, (468, 478)),
+    Reference("molder2021", (("Mölder", "F."), ("Jablonski", "K. P."), ("Letcher", "B."),
+                             ("Hall", "M. B."), ("Tomkins-Tinch", "C. H."), ("Sochat", "V."),
+                             ("Forster", "J."), ("Lee", "S."), ("Twardziok", "S. O."),
+                             ("Kanitz", "A."), ("Wilm", "A."), ("Holtgrewe", "M."),
+                             ("Rahmann", "S."), ("Nahnsen", "S."), ("Köster", "J.")), 2021,
+              "Sustainable data analysis with Snakemake", "F1000Research", 10, (33, 33)),
     Reference("margush1981", (("Margush", "T."), ("McMorris", "F. R.")), 1981, "Consensus n-trees",
               "Bulletin of Mathematical Biology", 43, (239, 244)),
 ]

@@ -23,6 +23,7 @@ import pandas as pd
 from ..engine.fitting import AGREE_TOL
 from ..engine.pairs import HYPOTHESES
 from .citations import REFERENCES, cite, cited_in
+from .words import hypothesis_words, model_words
 
 CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
 CRITERION_REFS = {"aicc": ("akaike1974", "hurvich1989"), "aic": ("akaike1974",),
@@ -414,6 +415,154 @@ def _software_paragraph(config, software) -> str:
             "file.")
 
 
+# --------------------------------------------------------------------------- the paragraph
+
+BRIEF_HEADING = "## Methods in one paragraph"
+BRIEF_MAX_WORDS = 250
+
+
+def _quoted_models(config, models) -> list:
+    """'"one_rate" (one rate for all changes)' once per model name, in config order."""
+    pairs = config.get("pairs", {})
+    out, seen = [], set()
+    for analysis, named in models.items():
+        if analysis in pairs:
+            continue
+        for name, (model, _) in named.items():
+            if name not in seen:
+                seen.add(name)
+                out.append(f"{_quote(name)} ({model_words(model)})")
+    return out
+
+
+def _quote(name: str) -> str:
+    return f"\"{name}\""
+
+
+def _brief_roots(config, models) -> str:
+    roots = {}
+    for analysis, named in models.items():
+        if analysis in config.get("pairs", {}):
+            continue
+        for name, (_, root) in named.items():
+            roots.setdefault(root, [])
+            if name not in roots[root]:
+                roots[root].append(name)
+    if len(roots) == 1:
+        return f"with {root_words(next(iter(roots)))}"
+    main = max(roots, key=lambda r: len(roots[r]))
+    others = "; ".join(f"{root_words(r)} for {listing(_quote(w) for w in who)}"
+                       for r, who in roots.items() if r != main)
+    return f"with {root_words(main)} ({others})"
+
+
+def _brief_pairs(config, models, tables) -> str:
+    pairs = config.get("pairs", {})
+    if not pairs or ("pair_tests" not in tables and tables.get("pair_summary") is None):
+        return ""
+    kinds = {"independent": "independent change", "dependent": "mutual dependence"}
+    hyps, boots = [], []
+    for name, spec in pairs.items():
+        first, second = spec["traits"]
+        for h, (m, _) in models.get(name, {}).items():
+            words = kinds.get(m.kind) or (hypothesis_words(h, m.kind, first, second)
+                                          if m.kind in HYPOTHESES else _quote(h))
+            if words not in hyps:
+                hyps.append(words)
+        if spec.get("bootstrap", 0) > 0:
+            n_boot = spec.get("bootstrap_trees", 0)
+            summary = tables.get("pair_summary")
+            if summary is not None and "n_trees_bootstrap" in summary:
+                rows = summary[summary["pair"] == name]["n_trees_bootstrap"]
+                n_boot = int(rows.max()) if len(rows) else n_boot
+            boots.append((spec["bootstrap"], n_boot))
+    who = listing(f"{spec['traits'][0]} with {spec['traits'][1]}" for spec in pairs.values())
+    text = (f" For {who}, hypotheses of joint change (one trait changing at a time; "
+            f"{REFERENCES['pagel1994'].cite()}) were compared on each tree by likelihood-ratio "
+            f"tests: {listing(hyps)}")
+    if boots:
+        n_sets, n_trees = max(boots)
+        text += (f"; a parametric bootstrap {cite('goldman1993')} simulated {n_sets} data sets "
+                 f"on each of {plural(n_trees, 'tree')}")
+    return text + "."
+
+
+def _brief_ancestral(config, tables) -> str:
+    if "ancestral_states" not in tables:
+        return ""
+    anc = config.get("ancestral", {})
+    maps = anc.get("maps", 0)
+    text = f" Marginal ancestral states {cite('yang1995')}"
+    if anc.get("model", "average") == "average":
+        text += ", averaged over models by Akaike weight,"
+    text += " were summarised at the clades of the majority-rule consensus"
+    if maps and "transitions" in tables:
+        text += (f", and {maps} stochastic character maps per tree "
+                 f"{cite('nielsen2002', 'huelsenbeck2003')} counted changes")
+    return text + "."
+
+
+def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) -> str:
+    """One paragraph an author pastes into a methods section (at most 250 words):
+    data, trees, models in words, root, optimiser, criterion, support across trees,
+    pair tests and ancestral states when they ran, software with versions. Every
+    number is read from the tables or the resolved config."""
+    used = tables["trees_used"]
+    check = tables["data_check"]
+    n_trees = len(used)
+    n_taxa = int(used["n_tips"].iloc[0])
+    by_k = {}
+    for trait in config["traits"]["columns"]:
+        rows = check[check["trait"] == trait]
+        k = int(sum(str(i).startswith("state:") for i in rows["item"]))
+        by_k.setdefault(k, []).append(trait)
+    traits = [f"{listing(names)} ({k} states{' each' if len(names) > 1 else ''})"
+              for k, names in by_k.items()]
+    tcfg = config["trees"]
+    burn = tcfg["burnin"]
+    first = (f"first {burn * 100:g}%" if 0 < burn < 1 else "first tree" if int(burn) == 1
+             else f"first {int(burn)} trees")
+    how = f"{first} discarded as burn-in" if burn else "no burn-in"
+    if tcfg["thin"] > 1:
+        how += f", every {_ordinal(tcfg['thin'])} tree kept"
+    if tcfg.get("sample") is not None:
+        how += f", {n_trees} drawn at random"
+    crit = CRITERION_NAMES[config["criterion"]]
+    fit = config["fitting"]
+    if n_trees > 1:
+        trees = f"on each of {n_trees} trees of a posterior sample ({how})"
+    else:
+        trees = "on a single tree"
+    n_models = len(_model_names(config, models))
+    text = (f"We analysed {'; '.join(traits)} for {n_taxa} taxa {trees}. We fitted "
+            f"{n_models} continuous-time Markov (Mk) {'model' if n_models == 1 else 'models'} "
+            f"{cite('lewis2001')}: {listing(_quoted_models(config, models))}, by maximum "
+            f"likelihood {_brief_roots(config, models)}, using L-BFGS-B {cite('byrd1995')} from "
+            f"{plural(fit['starts'], 'starting point')} per fit. Models were ranked by {crit} "
+            f"{cite(*CRITERION_REFS[config['criterion']])} on each tree; support across trees is "
+            f"the mean Akaike weight {cite('burnham2002')} and the share of trees where each "
+            "model ranked best.")
+    text += _brief_pairs(config, models, tables)
+    text += _brief_ancestral(config, tables)
+    text += (f" Analyses ran in mkforest {software.get('mkforest', '')} (citation in the run's "
+             f"CITATION.cff) with Snakemake {software.get('snakemake', '')} "
+             f"{cite('molder2021')} and SciPy {software.get('scipy', '')}.")
+    if word_count(text) > BRIEF_MAX_WORDS:      # many models: their names without the words
+        text = text.replace(listing(_quoted_models(config, models)),
+                            listing(_quote(m) for m in _model_names(config, models))
+                            + " (described below)")
+    return text
+
+
+def _model_names(config, models) -> list:
+    pairs = config.get("pairs", {})
+    return list(dict.fromkeys(n for a, named in models.items() if a not in pairs for n in named))
+
+
+def word_count(text: str) -> int:
+    return len([w for w in text.split() if any(ch.isalnum() for ch in w)])
+
+
 # --------------------------------------------------------------------------- results
 
 def _analysis_results(analysis, support, rate_summary, crit_name, n_used=None) -> str:
@@ -553,7 +702,9 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
            f"_Written by mkforest {software.get('mkforest', '')} from this run's settings and "
            "tables. Every number is rounded from the table named beside it; edit the wording, "
            "keep the numbers, and check the cautions before citing a result._", "",
-           "## Methods", "",
+           BRIEF_HEADING, "",
+           brief_paragraph(config, tables, models, software), "",
+           "## Methods in full", "",
            "**Data and trees.** " + _data_paragraph(config, tables) + " "
            + _trees_paragraph(config, tables), "",
            "**Models.** " + _models_paragraph(config, models, support), "",

@@ -29,42 +29,56 @@ def _grid(n):
 
 
 def support_weights(fits: pd.DataFrame, criterion: str = "aicc"):
-    """Akaike weights across trees per model, one panel per analysis."""
+    """Akaike weights across trees per model (one row each), one panel per analysis.
+    Models reported ``same_as`` another have no weight and are not drawn."""
     analyses = list(dict.fromkeys(fits["analysis"]))
-    rows, cols = _grid(len(analyses))
-    fig, axes = plt.subplots(rows, cols, figsize=(4.2 * cols, 3.4 * rows), squeeze=False)
+    d_all = fits[fits["weight"].notna()]
+    counts = [max(d_all.loc[d_all["analysis"] == a, "model"].nunique(), 1) for a in analyses]
+    cols = min(len(analyses), 2)
+    rows = int(np.ceil(len(analyses) / cols))
+    per_row = [max(counts[r * cols:(r + 1) * cols]) for r in range(rows)]
+    fig, axes = plt.subplots(rows, cols, squeeze=False, layout="constrained",
+                             figsize=(4.6 * cols, sum(0.32 * n + 1.0 for n in per_row) + 0.5),
+                             gridspec_kw={"height_ratios": [n + 2.5 for n in per_row]})
+    name = CRITERION_NAMES.get(criterion, criterion)
     for ax, a in zip(axes.flat, analyses):
-        d = fits[(fits["analysis"] == a) & fits["weight"].notna()]
+        d = d_all[d_all["analysis"] == a]
         order = list(dict.fromkeys(d["model"]))
-        sns.boxplot(data=d, x="model", y="weight", order=order, ax=ax, color="#d9e6e1",
-                    fliersize=0, width=0.6)
-        np.random.seed(0)  # seaborn jitters from NumPy's global generator: same figure every run
-        sns.stripplot(data=d, x="model", y="weight", order=order, ax=ax, size=2.5, alpha=0.6,
-                      color="#2b5d52", jitter=0.25)
-        ax.set_ylim(-0.03, 1.03)
-        ax.set_title(a)
-        ax.set_xlabel("model")
-        ax.set_ylabel(f"{CRITERION_NAMES.get(criterion, criterion)} weight per tree")
-        ax.tick_params(axis="x", rotation=30)
+        if order:
+            sns.boxplot(data=d, y="model", x="weight", order=order, ax=ax, orient="h",
+                        color="#cfe8f7", fliersize=0, width=0.6, linewidth=0.8)
+            np.random.seed(0)  # seaborn jitters from NumPy's global generator: same figure every run
+            sns.stripplot(data=d, y="model", x="weight", order=order, ax=ax, orient="h",
+                          size=2.5, alpha=0.6, color=style.CATEGORICAL[0], jitter=0.25)
+        ax.set_xlim(-0.03, 1.03)
+        ax.set_title(a, fontsize=9, loc="left", fontweight="bold")
+        ax.set_ylabel("")
+        ax.set_xlabel(f"{name} weight per tree", fontsize=8)
+        ax.tick_params(labelsize=7.5)
+        ax.tick_params(axis="y", length=0)
     for ax in list(axes.flat)[len(analyses):]:
         ax.set_visible(False)
-    fig.suptitle(f"Model support across {fits['tree'].nunique()} trees")
-    fig.tight_layout()
+    fig.suptitle(f"Model support across {fits['tree'].nunique()} trees", fontsize=10)
     return fig
 
 
 def support_heatmap(support: pd.DataFrame):
-    """Mean Akaike weight, analysis x model."""
+    """Mean Akaike weight, analysis x model (models reported ``same_as`` another: blank)."""
     table = support.pivot(index="analysis", columns="model", values="mean_weight")
     table = table.reindex(index=list(dict.fromkeys(support["analysis"])),
                           columns=list(dict.fromkeys(support["model"])))
-    fig, ax = plt.subplots(figsize=(1.2 + 1.1 * table.shape[1], 1.2 + 0.6 * table.shape[0]))
+    longest = max((len(str(c)) for c in table.columns), default=5)
+    fig, ax = plt.subplots(figsize=(2.2 + 0.75 * table.shape[1], 1.6 + 0.45 * table.shape[0]
+                                    + 0.07 * longest), layout="constrained")
     sns.heatmap(table, annot=True, fmt=".2f", vmin=0, vmax=1, cmap=PALETTE, ax=ax,
-                cbar_kws={"label": "mean weight across trees"}, linewidths=0.5)
-    ax.set_title("Mean model weight")
+                cbar_kws={"label": "mean weight across trees"}, linewidths=0.5,
+                annot_kws={"fontsize": 7.5})
+    ax.set_title("Mean model weight across trees (blank: model not fitted to that analysis or "
+                 "the same as another)", fontsize=9, loc="left", wrap=True)
     ax.set_xlabel("model")
     ax.set_ylabel("analysis")
-    fig.tight_layout()
+    ax.tick_params(axis="x", rotation=90, labelsize=7.5)
+    ax.tick_params(axis="y", rotation=0, labelsize=7.5)
     return fig
 
 

@@ -28,8 +28,8 @@ from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
 
 from ..data.clades import ladder_children, node_clades, tips_in_drawing_order  # noqa: E402
-from ..engine.models import FIXED  # noqa: E402
 from . import style  # noqa: E402
+from .words import is_stepwise  # noqa: E402
 
 BRANCH_COLOUR = "#4a4a4a"
 SUPPORT_COLOUR = "#6b4f2a"
@@ -58,17 +58,9 @@ def state_colours(states, is_ordered: bool = False) -> dict:
 
 def is_ordered_trait(models, k: int) -> bool:
     """True when some model of the trait lets it change only one step at a time along
-    its declared state order (a stepwise model), covering every step: then the
-    states have an order worth a sequential palette."""
-    if k < 3:
-        return False
-    for m in models:
-        allowed = [(i, j) for i in range(k) for j in range(k) if i != j and (
-            m.rate_index[i, j] >= 0 or (m.rate_index[i, j] == FIXED and m.fixed[i, j] > 0))]
-        if allowed and all(abs(i - j) == 1 for i, j in allowed) and \
-                {min(i, j) for i, j in allowed} == set(range(k - 1)):
-            return True
-    return False
+    its declared state order (a stepwise model): then the states have an order worth
+    a sequential palette."""
+    return k >= 3 and any(is_stepwise(m) for m in models)
 
 
 def _layout(tree):

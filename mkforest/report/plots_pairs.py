@@ -26,20 +26,11 @@ from ..engine.models import FREE_FORBIDDEN  # noqa: E402
 
 from . import style  # noqa: E402
 from .plots import interval_panel  # noqa: E402
+from .words import hypothesis_words  # noqa: E402
 
 FIRST_COLOUR = style.CATEGORICAL[5]     # vermillion: the first trait's side of a test
 SECOND_COLOUR = style.CATEGORICAL[0]    # blue
 DOUBLE_HATCH = "xxxx"
-
-
-def hypothesis_words(name: str, kind: str, first: str, second: str) -> str:
-    """A hypothesis in words of the trade (its config name only for custom ones)."""
-    return {
-        "independent": f"{first} and {second} change independently",
-        "dependent": f"changes in each of {first} and {second} depend on the other",
-        "first_depends_on_second": f"changes in {first} depend on {second}",
-        "second_depends_on_first": f"changes in {second} depend on {first}",
-    }.get(kind, f"'{name}' (custom: only the changes listed)")
 
 
 def _split_class(label: str) -> tuple:

@@ -1,0 +1,247 @@
+"""Every figure rendered on two invented data sets and read as a reviewer would.
+
+For each figure: no two texts overlap and no text or legend lies on the data
+(matplotlib's own bounding boxes after drawing, tests/figure_checks.py); the
+labels name what is drawn; PNG and SVG are written. Data sets (tests/figure_data.py):
+one in the demo's shape (90 tips, 2-3 states, two binary pairs) and one with a
+300-tip tree, a 4-state trait and a 4 x 2 pair. The 300-tip ancestral tree of one
+trait renders in the default suite; the other trees of that set are marked slow.
+"""
+
+from __future__ import annotations
+
+import pytest
+from figure_checks import all_text, overlaps
+from figure_data import demo_like, large
+from matplotlib import colormaps
+from matplotlib.colors import to_hex
+
+from mkforest.report import plots, plots_ancestral, plots_pairs, style
+
+
+@pytest.fixture(scope="module")
+def demo():
+    return demo_like()
+
+
+@pytest.fixture(scope="module")
+def big():
+    return large()
+
+
+def pair_names(data):
+    return {p: (pr.first.name, pr.second.name) for p, pr in data.pairs.items()}
+
+
+def written(fig, tmp_path, name):
+    paths = [tmp_path / f"{name}.png", tmp_path / f"{name}.svg"]
+    style.save(fig, paths)
+    assert paths[0].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and paths[0].stat().st_size > 5000
+    assert "<svg" in paths[1].read_text()[:1000]
+
+
+# --------------------------------------------------------------------------- support and rates
+
+@pytest.mark.parametrize("which", ["demo", "big"])
+def test_support_figures(which, demo, big, tmp_path):
+    data = demo if which == "demo" else big
+    fig = plots.support_weights(data.tables["fits"])
+    assert overlaps(fig) == []
+    written(fig, tmp_path, "weights")
+    fig = plots.support_heatmap(data.tables["model_support"])
+    assert overlaps(fig) == []
+    written(fig, tmp_path, "heatmap")
+
+
+@pytest.mark.parametrize("which", ["demo", "big"])
+def test_rates_across_trees(which, demo, big, tmp_path):
+    data = demo if which == "demo" else big
+    rates, support = data.tables["rates"], data.tables["model_support"]
+    fig = plots.rates_across_trees(rates, support, pair_names(data))
+    assert overlaps(fig) == []
+    titles = [ax.get_title(loc="left") for ax in fig.axes]
+    assert titles == list(data.models)                     # one panel per analysis
+    for ax, analysis in zip(fig.axes, data.models):
+        legend = [t.get_text() for t in ax.get_legend().get_texts()]
+        repeated = {m for (a, m) in data.same_as if a == analysis}
+        # a model reported same_as another is named once, not drawn again
+        assert [m for m in legend if " = " not in m] == [m for m in data.models[analysis]
+                                                        if m not in repeated]
+        for m in repeated:
+            assert f"{m} = {data.same_as[(analysis, m)]}: drawn once" in legend
+        ticks = [t.get_text() for t in ax.get_xticklabels()]
+        assert ticks[0] == "at lower\nbound" and ticks[-1] == "at upper\nbound"
+        for t in ticks[1:-1]:                                # plain numbers, never 2×10⁰
+            float(t.replace(",", ""))
+    # joint changes read as the trait that changes, in the other trait's state
+    first, second = next(iter(pair_names(data).values()))
+    pair_ax = fig.axes[list(data.models).index(next(iter(data.pairs)))]
+    rows = [t.get_text() for t in pair_ax.get_yticklabels()]
+    assert all(r.startswith((f"{first}: ", f"{second}: ")) for r in rows)
+    assert "+" not in " ".join(rows)
+    written(fig, tmp_path, "rates")
+
+
+def test_rates_at_a_bound_are_counted_not_drawn(demo):
+    """Trees with a rate at the bound appear as 'k/n' counts at the axis ends; the
+    interval is drawn from the other trees only (so 1e-6 never stretches the axis)."""
+    rates = demo.tables["rates"]
+    one = rates[(rates["analysis"] == "habitat") & (rates["model"] == "free")]
+    fig = plots.rates_across_trees(one, None)
+    stats = style.rate_intervals(one)
+    counts = {t.get_text() for t in fig.axes[0].texts}
+    expected = {f"{n}/{m}" for n, m in zip(stats["n_lower"], stats["n_trees"]) if n} | \
+               {f"{n}/{m}" for n, m in zip(stats["n_upper"], stats["n_trees"]) if n}
+    assert expected and counts == expected
+    lo, hi = fig.axes[0].get_xlim()
+    free = one[one["at_bound"] == ""]["rate"]
+    assert 10 ** lo > 1e-4 and 10 ** lo < free.min()       # the axis starts near the estimates
+    assert 10 ** hi < 9000                                 # the upper-bound rate is not a value
+
+
+def test_rate_text_and_ticks():
+    assert style.rate_text(8.4e-07) == "< 0.001"
+    assert style.rate_text(0.0123) == "0.012"
+    assert style.rate_text(2.345) == "2.35"
+    assert style.rate_text(1234.5) == "1,234"
+    assert style.log_ticks(0.05, 30) == [0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20]
+    assert [style.plain_number(x) for x in (0.001, 0.5, 2.0, 1000.0)] == ["0.001", "0.5", "2",
+                                                                           "1,000"]
+
+
+def test_palettes_are_the_colour_blind_safe_ones():
+    """Okabe & Ito (2008) as recommended by Wong (2011, Nature Methods 8:441, Fig. 2):
+    the seven colours besides black (hex values from memory of the published table);
+    cividis from matplotlib (Nuñez et al. 2018)."""
+    published = {"#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
+    assert {c.upper() for c in style.categorical(7)} == published
+    assert len(set(style.categorical(12))) == 12
+    ramp = style.ordered(4)
+    assert len(set(ramp)) == 4 and ramp[0] == to_hex(colormaps["cividis"](0.0))
+
+
+# --------------------------------------------------------------------------- pairs
+
+@pytest.mark.parametrize("which", ["demo", "big"])
+def test_pair_figures(which, demo, big, tmp_path):
+    data = demo if which == "demo" else big
+    name, pair = next(iter(data.pairs.items()))
+    rates, support = data.tables["rates"], data.tables["model_support"]
+    fig = plots_pairs.rates_by_state(pair, rates, support, data.models[name])
+    assert overlaps(fig) == []
+    assert [ax.get_title(loc="left") for ax in fig.axes] == [
+        f"changes in {pair.first.name}", f"changes in {pair.second.name}"]
+    rows = [t.get_text() for t in fig.axes[0].get_yticklabels()]
+    # every change of the first trait, once in each state of the second
+    assert len(rows) == pair.k1 * (pair.k1 - 1) * pair.k2
+    assert rows[0] == (f"{pair.first.states[0]} → {pair.first.states[1]}  "
+                       f"({pair.second.name} {pair.second.states[0]})")
+    legend = " ".join(t.get_text() for t in fig.legends[0].get_texts())
+    assert f"changes in {pair.first.name} depend on {pair.second.name}" in legend
+    assert "first_depends_on_second:" in legend
+    written(fig, tmp_path, "by_state")
+
+    fig = plots_pairs.joint_rate_grid(pair, rates, support, data.models[name])
+    assert overlaps(fig) == []
+    texts = all_text(fig)
+    assert not any("e-0" in t for t in texts)              # never 8.4e-07
+    hatched = [p for ax in fig.axes for p in ax.patches if p.get_hatch()]
+    k = len(pair.states)
+    doubles = sum(1 for i in range(k) for j in range(k)
+                  if all(a != b for a, b in zip(pair.split(i), pair.split(j))))
+    shown = [h for h in data.models[name] if h not in {m for (a, m) in data.same_as if a == name}]
+    assert len(hatched) == doubles * len(shown)            # every double change marked
+    written(fig, tmp_path, "grid")
+
+
+def test_pair_grid_writes_tiny_rates_as_below_precision(demo):
+    name, pair = next(iter(demo.pairs.items()))
+    rates = demo.tables["rates"].copy()
+    sel = (rates["analysis"] == name) & (rates["model"] == "dependent")
+    rates.loc[sel, "rate"] = 8.4e-07
+    fig = plots_pairs.joint_rate_grid(pair, rates, None, demo.models[name])
+    texts = all_text(fig)
+    assert any(t.startswith("< 0.001") for t in texts)
+    assert not any("8.4" in t for t in texts)
+
+
+def test_pair_tests_figure(demo, tmp_path):
+    fig = plots_pairs.pair_tests_figure("shell_pattern", demo.tables["pair_tests"],
+                                        demo.tables["pair_bootstrap"])
+    assert overlaps(fig) == []
+    written(fig, tmp_path, "tests")
+
+
+# --------------------------------------------------------------------------- ancestral
+
+@pytest.mark.parametrize("which", ["demo", "big"])
+def test_changes(which, demo, big, tmp_path):
+    data = demo if which == "demo" else big
+    per_tree = data.tables["transitions_per_tree"]
+    fig = plots_ancestral.change_counts(per_tree, pair_names(data))
+    assert overlaps(fig) == []
+    name, pair = next(iter(data.pairs.items()))
+    ax = fig.axes[list(data.models).index(name)]
+    rows = [t.get_text() for t in ax.get_yticklabels()]
+    n_single = len(pair.states) * (pair.k1 - 1 + pair.k2 - 1)
+    assert len(rows) == n_single                           # no double changes drawn
+    written(fig, tmp_path, "changes")
+
+
+def _tree(data, analysis):
+    trait = data.traits.get(analysis) or data.pairs[analysis].joint_trait()
+    states = data.tables["ancestral_states"]
+    ordered = plots_ancestral.is_ordered_trait(data.models[analysis].values(), trait.k)
+    fig = plots_ancestral.state_tree(data.tree, states[states["analysis"] == analysis],
+                                     data.tables["clades"], trait, analysis, ordered)
+    return fig, ordered
+
+
+def _check_tree(fig, data, analysis):
+    assert overlaps(fig) == []
+    ax = fig.axes[0]
+    texts = {t.get_text() for t in ax.texts}
+    assert set(data.tree.tip_labels) <= texts             # every tip labelled
+    n_internal = data.tree.n_nodes - data.tree.n_tips
+    # nearly every node carries its bar; any left out are counted in the legend
+    assert fig.mkforest_nodes_drawn + fig.mkforest_bars_left_out == n_internal
+    assert fig.mkforest_bars_left_out <= 0.05 * n_internal
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    if fig.mkforest_bars_left_out:
+        assert any(t.startswith(f"{fig.mkforest_bars_left_out} node bars left out") for t in legend)
+    return legend
+
+
+@pytest.mark.parametrize("analysis", ["habitat", "size", "shell_pattern"])
+def test_ancestral_trees_demo(analysis, demo, tmp_path):
+    fig, ordered = _tree(demo, analysis)
+    legend = _check_tree(fig, demo, analysis)
+    assert ordered == (analysis == "size")                 # stepwise model: ordered states
+    if analysis in demo.pairs:
+        pair = demo.pairs[analysis]
+        assert {s.replace("+", " + ") for s in pair.states} <= set(legend)
+        tip_marks = [p for p in fig.axes[0].patches if p.get_x() > demo.tree.depths().max()]
+        assert len(tip_marks) >= demo.tree.n_tips          # pair trees show tip states
+    else:
+        assert "tip: state unknown" in legend            # both traits have unknown cells
+    if analysis == "habitat":                            # and habitat ambiguous ones
+        assert "tip: several states possible" in legend
+    written(fig, tmp_path, f"tree_{analysis}")
+
+
+def test_ancestral_tree_300_tips(big, tmp_path):
+    """300 tips, 4 states: labels stay 7-point on 0.2-inch rows, nothing overlaps."""
+    fig, ordered = _tree(big, "substrate")
+    assert not ordered
+    _check_tree(fig, big, "substrate")
+    assert fig.get_size_inches()[1] >= 300 * plots_ancestral.ROW
+    written(fig, tmp_path, "tree_substrate")
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("analysis", ["depth", "shell", "substrate_shell"])
+def test_ancestral_trees_300_tips_others(analysis, big, tmp_path):
+    fig, ordered = _tree(big, analysis)
+    assert ordered == (analysis == "depth")
+    _check_tree(fig, big, analysis)
+    written(fig, tmp_path, f"tree_{analysis}")

@@ -52,7 +52,7 @@ def random_tree(rng, n_tips: int, prefix: str):
         la, lb = h - a[1], h - b[1]
         text = f"({a[0]}:{la:.5f},{b[0]}:{lb:.5f})"
         nodes.append((text, h))
-    return parse_newick(nodes[0][0] + ";")
+    return parse_newick(nodes[0][0] + ";", rooted=True)
 
 
 def _trait(rng, name, states, taxa, p_missing=0.0, p_ambiguous=0.0):

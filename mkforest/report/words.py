@@ -37,6 +37,12 @@ def is_stepwise(model) -> bool:
 
 def model_words(model) -> str:
     """A single-trait model's rate structure in a few words."""
+    words = _structure_words(model)
+    n = getattr(model, "n_classes", 1)
+    return words + (f", with {n} hidden rate classes" if n > 1 else "")
+
+
+def _structure_words(model) -> str:
     kind = model.kind
     if kind == "equal":
         return "one rate for all changes"
@@ -44,6 +50,8 @@ def model_words(model) -> str:
         return "symmetric rates"
     if kind == "unconstrained":
         return "a separate rate for every change"
+    if getattr(model, "n_classes", 1) > 1:
+        return "only the changes listed"
     allowed = allowed_changes(model)
     if is_stepwise(model):
         return "one step at a time: " + " – ".join(model.states)

@@ -295,9 +295,13 @@ def test_report_builds_offline_with_every_table_and_plot(run, tmp_path):
     assert proc.returncode == 0, proc.stderr[-3000:]
     html = report.read_text()
     entries = _report_entries(html)
-    expected = {f"results/{RUN}/{r['path']}" for r in manifest_of(work)["outputs"]}
-    expected.add(f"results/{RUN}/manifest.json")
+    outputs = {f"results/{RUN}/{r['path']}" for r in manifest_of(work)["outputs"]}
+    # every table and figure, each figure once: its PNG (the SVG for print stays on disk)
+    expected = {p for p in outputs if not p.endswith(".svg")} | {f"results/{RUN}/manifest.json"}
     assert expected <= set(entries), sorted(expected - set(entries))
+    assert not [p for p in entries if p.endswith(".svg")]
+    assert {p[:-4] for p in outputs if p.endswith(".svg")} == \
+        {p[:-4] for p in outputs if p.endswith(".png")}
     for path in expected:
         assert len(entries[path]) > 40, f"{path} has no caption"
     # the page loads nothing from elsewhere

@@ -19,6 +19,7 @@ import pandas as pd  # noqa: E402
 from matplotlib import colormaps  # noqa: E402
 from matplotlib.colors import to_hex, to_rgb  # noqa: E402
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
+from PIL import Image  # noqa: E402  (installed with matplotlib)
 
 # Okabe & Ito (2008), in an order where neighbours differ most; yellow last (faint
 # as a line or text on white) and black kept apart for model averages and text.
@@ -201,8 +202,15 @@ matplotlib.rcParams["svg.fonttype"] = "none"     # text stays text in SVG: small
 
 
 def save(fig, paths, dpi: int = 150) -> None:
+    """PNG (for reading and the HTML report) and SVG (for print), as the names say.
+    A PNG is stored with a 256-colour palette: the figures are flat colours and text,
+    and the files shrink about threefold (the report carries every figure)."""
     for p in paths:
         svg = str(p).endswith(".svg")
         fig.savefig(p, dpi=None if svg else dpi, bbox_inches="tight",
                     metadata={"Date": None} if svg else None)
+        if str(p).endswith(".png"):
+            with Image.open(p) as img:
+                flat = img.convert("RGB").quantize(colors=256, dither=Image.Dither.NONE)
+            flat.save(p, optimize=True)
     plt.close(fig)

@@ -102,19 +102,19 @@ rule plot_ancestral:
         traits=f"{OUT}/prepared/traits.json",
     output:
         trees=[
-            report(p, caption="../report/ancestral_tree.rst", category="Ancestral states")
+            figure(p, caption="../report/ancestral_tree.rst", category="Ancestral states")
             for p in ANCESTRAL_TREE_PLOTS
         ],
         class_trees=[
-            report(p, caption="../report/class_tree.rst", category="Ancestral states")
+            figure(p, caption="../report/class_tree.rst", category="Ancestral states")
             for p in CLASS_TREE_PLOTS
         ],
-        changes_png=report(
+        changes_png=figure(
             f"{OUT}/plots/changes.png",
             caption="../report/changes.rst",
             category="Ancestral states",
         ),
-        changes_svg=report(
+        changes_svg=figure(
             f"{OUT}/plots/changes.svg",
             caption="../report/changes.rst",
             category="Ancestral states",

@@ -25,6 +25,14 @@ ANALYSES = analyses(config)
 ENV = "../../envs/mkforest.yaml"
 
 
+def figure(path, caption, category, **kwargs):
+    """A figure output: its PNG goes into the HTML report, its SVG (for print) only to
+    disk, so the report carries each figure once (report size)."""
+    if str(path).endswith(".svg"):
+        return path
+    return report(path, caption=caption, category=category, **kwargs)
+
+
 def stable(value):
     """Dicts with sorted keys, recursively: Snakemake reruns a job when its params
     change, and the order of keys in a YAML file must not count as a change."""

@@ -66,7 +66,7 @@ rule plot_pair:
         traits=f"{OUT}/prepared/traits.json",
     output:
         **{
-            f"{kind}_{ext}": report(
+            f"{kind}_{ext}": figure(
                 f"{OUT}/plots/pairs/{{pair}}.{kind}.{ext}",
                 caption=f"../report/pair_plot_{kind}.rst",
                 category="Trait pairs",

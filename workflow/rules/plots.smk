@@ -8,7 +8,7 @@ rule plot_support:
         support=f"{OUT}/tables/model_support.tsv",
     output:
         **{
-            f"{p}_{ext}": report(
+            f"{p}_{ext}": figure(
                 f"{OUT}/plots/{p}.{ext}",
                 caption=f"../report/{p}.rst",
                 category="Plots",

@@ -91,10 +91,12 @@ def test_class_tree_draws_class_rows_only(tmp_path):
                              state=f"dry@{cls}", mean_probability=x, **{"class": cls}))
     fig = plots_ancestral.class_tree(tree, pd.DataFrame(rows), clades, "soil", "two_speed")
     ax = fig.axes[0]
-    assert "two_speed" in ax.get_title() and "classes" in ax.get_title()
+    title = ax.get_title(loc="left")
+    assert "two_speed" in title and "classes" in title
     legend = [t.get_text() for t in ax.get_legend().get_texts()]
     assert legend[:2] == ["class 1 (slowest)", "class 2 (fastest)"]
     assert fig.mkforest_nodes_drawn == tree.n_nodes - tree.n_tips
+    assert overlaps(fig) == []
     path = tmp_path / "classes.png"
     plots_ancestral.save(fig, [path])
     assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -178,8 +178,7 @@ def rates_across_trees(rates: pd.DataFrame, support: pd.DataFrame | None = None,
         colours = dict(zip(models, style.categorical(len(models))))
         markers = {m: style.MARKERS[i % len(style.MARKERS)] for i, m in enumerate(models)}
         d = stats[(stats["analysis"] == a) & stats["model"].isin(models)].copy()
-        keys = sorted(dict.fromkeys(zip(d["from_state"], d["to_state"])),
-                      key=lambda k: style.change_order(k, pairs.get(a)))
+        keys = style.ordered_changes(zip(d["from_state"], d["to_state"]), pairs.get(a))
         rows = [(key, style.change_label(*key, pairs.get(a))) for key in keys]
         d["row"] = list(zip(d["from_state"], d["to_state"]))
         d["series"] = d["model"]

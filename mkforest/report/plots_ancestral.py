@@ -337,8 +337,7 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None):
                              gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]})
     for ax, a in zip(axes[:, 0], analyses):
         g = d[d["analysis"] == a].copy()
-        keys = sorted(dict.fromkeys(zip(g["from_state"], g["to_state"])),
-                      key=lambda k: style.change_order(k, pairs.get(a)))
+        keys = style.ordered_changes(zip(g["from_state"], g["to_state"]), pairs.get(a))
         label = {k: style.change_label(*k, pairs.get(a)) for k in keys}
         g["direction"] = [label[k] for k in zip(g["from_state"], g["to_state"])]
         order = [label[k] for k in keys]

@@ -182,15 +182,25 @@ def same_as(support: pd.DataFrame | None, analysis: str) -> dict:
     return dict(zip(s["model"], s["same_as"]))
 
 
-def change_order(key, pair_traits=None):
-    """Sort key of a change (from, to): for a pair, the changes of the first trait,
-    then those of the second, each next to itself in the other trait's other states,
-    so a dependence reads as a shift between neighbouring rows."""
-    a, b = str(key[0]), str(key[1])
-    if pair_traits and "+" in a and "+" in b:
-        (a1, a2), (b1, b2) = a.split("+", 1), b.split("+", 1)
-        return (0, a1, b1, a2) if a2 == b2 else (1, a2, b2, a1)
-    return (0,)
+def ordered_changes(keys, pair_traits=None) -> list:
+    """Changes (from, to) in reading order. A single trait keeps the table's order
+    (the declared state order). For a pair: the changes of the first trait, then those
+    of the second, each next to itself in the other trait's other states, so a
+    dependence reads as a shift between neighbouring rows; states in table order."""
+    keys = list(dict.fromkeys(keys))
+    if not pair_traits or not all("+" in str(a) and "+" in str(b) for a, b in keys):
+        return keys
+    rank = {}
+    for a, b in keys:
+        for part in (*str(a).split("+", 1), *str(b).split("+", 1)):
+            rank.setdefault(part, len(rank))
+
+    def order(key):
+        (a1, a2), (b1, b2) = str(key[0]).split("+", 1), str(key[1]).split("+", 1)
+        if a2 == b2:
+            return (0, rank[a1], rank[b1], rank[a2])
+        return (1, rank[a2], rank[b2], rank[a1])
+    return sorted(keys, key=order)
 
 
 # --------------------------------------------------------------------------- saving

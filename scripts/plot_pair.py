@@ -27,9 +27,9 @@ def main(smk):
     pair = pair_from_config(name, spec, traits)
     models = {h: m for h, (m, _) in pair_models(name, spec, pair).items()}
     rates = pd.read_csv(smk.input.rates, sep="\t", dtype=TEXT, keep_default_na=False,
-                        na_values=["nan", "NaN"])
+                        na_values=["", "nan", "NaN"])
     support = pd.read_csv(smk.input.support, sep="\t", dtype=TEXT, keep_default_na=False,
-                          na_values=["nan", "NaN"])
+                          na_values=["", "nan", "NaN"])
     tests = pd.read_csv(smk.input.tests, sep="\t")
     boot = pd.read_csv(smk.input.bootstrap, sep="\t")
     out = smk.output

@@ -16,9 +16,9 @@ def main(smk):
     fits = pd.read_csv(smk.input.fits, sep="\t", dtype=text, keep_default_na=False,
                        na_values=["", "nan", "NaN"])
     rates = pd.read_csv(smk.input.rates, sep="\t", dtype=text, keep_default_na=False,
-                        na_values=["nan", "NaN"])
+                        na_values=["", "nan", "NaN"])
     support = pd.read_csv(smk.input.support, sep="\t", dtype=text, keep_default_na=False,
-                          na_values=["nan", "NaN"])
+                          na_values=["", "nan", "NaN"])
     out = smk.output
     plots.save(plots.support_weights(fits, smk.params.criterion),
                [out.support_weights_png, out.support_weights_svg])

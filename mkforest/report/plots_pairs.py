@@ -64,6 +64,9 @@ def _hypotheses(pair, rates: pd.DataFrame, support, models=None) -> list:
     without hypotheses reported ``same_as`` another."""
     names = list(dict.fromkeys(rates.loc[rates["analysis"] == pair.name, "model"]))
     repeats = style.same_as(support, pair.name)
+    if models:                         # the config's order, not the table's
+        order = list(models)
+        names.sort(key=lambda h: (order.index(_base(h)) if _base(h) in order else len(order), h))
     return [h for h in names if _base(h) not in repeats and (models is None or _base(h) in models)]
 
 

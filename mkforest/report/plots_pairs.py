@@ -216,9 +216,8 @@ def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = No
         ax.tick_params(which="both", length=0)
         ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=7.5)
         ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=7.5)
-        b = _base(h)
-        w = f", mean weight {weights[b]:.2f}" if b in weights and np.isfinite(weights[b]) else ""
-        ax.set_title(f"{h}{w}", fontsize=8.5)
+        label = _legend_label(h, models, pair, weights).split(": ", 1)
+        ax.set_title(f"{label[0]}\n{label[1]}", fontsize=8)
     for ax in list(axes.flat)[len(hyps):]:
         ax.set_visible(False)
     sm = plt.cm.ScalarMappable(norm=norm, cmap=cmap)

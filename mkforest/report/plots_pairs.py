@@ -217,7 +217,8 @@ def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = No
         ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=7.5)
         ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=7.5)
         label = _legend_label(h, models, pair, weights).split(": ", 1)
-        ax.set_title(f"{label[0]}\n{label[1]}", fontsize=8)
+        ax.set_title(f"{label[0]}\n{label[1].replace(' (mean weight', chr(10) + '(mean weight')}",
+                     fontsize=8)
     for ax in list(axes.flat)[len(hyps):]:
         ax.set_visible(False)
     sm = plt.cm.ScalarMappable(norm=norm, cmap=cmap)

@@ -296,9 +296,17 @@ def test_report_builds_offline_with_every_table_and_plot(run, tmp_path):
     html = report.read_text()
     entries = _report_entries(html)
     outputs = {f"results/{RUN}/{r['path']}" for r in manifest_of(work)["outputs"]}
-    # every table and figure, each figure once: its PNG (the SVG for print stays on disk)
-    expected = {p for p in outputs if not p.endswith(".svg")} | {f"results/{RUN}/manifest.json"}
+    # every table and figure, each figure once: its PNG (the SVG for print stays on disk);
+    # the per-tree tables stay on disk, named in the captions of their summaries
+    per_tree = {f"results/{RUN}/tables/{t}.tsv" for t in ("fits", "rates", "averaged_rates")}
+    expected = {p for p in outputs if not p.endswith(".svg")} - per_tree
+    expected.add(f"results/{RUN}/manifest.json")
     assert expected <= set(entries), sorted(expected - set(entries))
+    assert not per_tree & set(entries)
+    captions = " ".join(entries.values())
+    for path in per_tree:
+        assert path.replace(f"results/{RUN}/", "results/&lt;run&gt;/") in captions or \
+            path.replace(f"results/{RUN}/", "results/<run>/") in captions, path
     assert not [p for p in entries if p.endswith(".svg")]
     assert {p[:-4] for p in outputs if p.endswith(".svg")} == \
         {p[:-4] for p in outputs if p.endswith(".png")}

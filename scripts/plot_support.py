@@ -4,7 +4,11 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
+import json
+
 import pandas as pd
+
+from mkforest.data.traits import traits_from_json
 
 from mkforest.jobs.scripting import run_job
 from mkforest.report import plots
@@ -19,11 +23,15 @@ def main(smk):
                         na_values=["", "nan", "NaN"])
     support = pd.read_csv(smk.input.support, sep="\t", dtype=text, keep_default_na=False,
                           na_values=["", "nan", "NaN"])
+    traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
+    states = {name: list(t.states) for name, t in traits.items()}
+    for pair, (first, second) in smk.params.pairs.items():   # joint states, first slowest
+        states[pair] = [f"{a}+{b}" for a in states.get(first, []) for b in states.get(second, [])]
     out = smk.output
     plots.save(plots.support_weights(fits, smk.params.criterion),
                [out.support_weights_png, out.support_weights_svg])
     plots.save(plots.support_heatmap(support), [out.support_heatmap_png, out.support_heatmap_svg])
-    plots.save(plots.rates_across_trees(rates, support, smk.params.pairs),
+    plots.save(plots.rates_across_trees(rates, support, smk.params.pairs, states),
                [out.rates_across_trees_png, out.rates_across_trees_svg])
 
 

@@ -109,6 +109,20 @@ def test_rate_text_and_ticks():
                                                                            "1,000"]
 
 
+def test_changes_read_in_state_order():
+    """Rows follow the declared state order, not the alphabet; a pair's changes of one
+    trait sit next to each other across the other trait's states."""
+    keys = [("canopy", "litter"), ("litter", "rock"), ("rock", "canopy"), ("litter", "canopy")]
+    assert style.ordered_changes(keys, None, ["litter", "rock", "canopy"]) == [
+        ("litter", "rock"), ("litter", "canopy"), ("rock", "canopy"), ("canopy", "litter")]
+    joint = ["plain+round", "plain+toothed", "banded+round", "banded+toothed"]
+    keys = [("plain+round", "plain+toothed"), ("banded+toothed", "plain+toothed"),
+            ("plain+round", "banded+round")]
+    assert style.ordered_changes(keys, ("banding", "aperture"), joint) == [
+        ("plain+round", "banded+round"), ("banded+toothed", "plain+toothed"),
+        ("plain+round", "plain+toothed")]
+
+
 def test_palettes_are_the_colour_blind_safe_ones():
     """Okabe & Ito (2008) as recommended by Wong (2011, Nature Methods 8:441, Fig. 2):
     the seven colours besides black (hex values from memory of the published table);

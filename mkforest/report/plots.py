@@ -153,12 +153,14 @@ def interval_panel(ax, rows: list, stats: pd.DataFrame, series: list, colours: d
 
 
 def rates_across_trees(rates: pd.DataFrame, support: pd.DataFrame | None = None,
-                       pairs: dict | None = None):
+                       pairs: dict | None = None, states: dict | None = None):
     """Rates across trees per change, one panel per analysis, one colour and marker per
     model (models reported ``same_as`` another are not drawn twice); median and
     central 95% interval across the trees where the rate is not at a bound, and
     the number of trees at each bound beside the axis. pairs: {pair: (first, second)}
-    to name joint-state changes by the trait that changes."""
+    to name joint-state changes by the trait that changes; states: {analysis: states
+    in their declared order} for the order of the rows. A model keeps its colour in
+    every panel (single traits and pairs have their own sets of colours)."""
     pairs = pairs or {}
     r = rates[rates["rate"].notna()].copy()
     analyses = list(dict.fromkeys(r["analysis"]))
@@ -173,19 +175,27 @@ def rates_across_trees(rates: pd.DataFrame, support: pd.DataFrame | None = None,
     fig, axes = plt.subplots(len(analyses), 1, squeeze=False, layout="constrained",
                              figsize=(9.0, sum(heights) + 0.75 * len(analyses) + 0.5),
                              gridspec_kw={"height_ratios": heights})
+    states = states or {}
+    colours, markers = {}, {}
+    for group in ([a for a in analyses if a not in pairs], [a for a in analyses if a in pairs]):
+        names = list(dict.fromkeys(m for a in group for m in drawn[a]))
+        for i, (m, c) in enumerate(zip(names, style.categorical(len(names)))):
+            for a in group:
+                colours[(a, m)], markers[(a, m)] = c, style.MARKERS[i % len(style.MARKERS)]
     for ax, a in zip(axes[:, 0], analyses):
         models = drawn[a]
-        colours = dict(zip(models, style.categorical(len(models))))
-        markers = {m: style.MARKERS[i % len(style.MARKERS)] for i, m in enumerate(models)}
+        colour = {m: colours[(a, m)] for m in models}
+        marker = {m: markers[(a, m)] for m in models}
         d = stats[(stats["analysis"] == a) & stats["model"].isin(models)].copy()
-        keys = style.ordered_changes(zip(d["from_state"], d["to_state"]), pairs.get(a))
+        keys = style.ordered_changes(zip(d["from_state"], d["to_state"]), pairs.get(a),
+                                     states.get(a))
         rows = [(key, style.change_label(*key, pairs.get(a))) for key in keys]
         d["row"] = list(zip(d["from_state"], d["to_state"]))
         d["series"] = d["model"]
-        interval_panel(ax, rows, d, models, colours, markers)
+        interval_panel(ax, rows, d, models, colour, marker)
         ax.set_title(a, fontsize=9, loc="left", fontweight="bold")
         ax.set_xlabel("rate (changes per unit branch length)", fontsize=8)
-        handles = [Line2D([], [], color=colours[m], marker=markers[m], lw=1.4, label=m)
+        handles = [Line2D([], [], color=colour[m], marker=marker[m], lw=1.4, label=m)
                    for m in models]
         handles += [Line2D([], [], ls="none", label=f"{m} = {other}: drawn once")
                     for m, other in repeats[a].items()]

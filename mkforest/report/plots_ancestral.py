@@ -319,12 +319,13 @@ def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str,
                       legend_title="rate class")
 
 
-def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None):
+def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dict | None = None):
     """Expected number of changes per direction across trees, one panel per analysis,
     one row per direction: a box of the trees' values (each tree: the mean over its
     maps) with the trees as points. Changes of both traits of a pair at once are
-    impossible by construction and left out. pairs: {pair: (first, second)}."""
-    pairs = pairs or {}
+    impossible by construction and left out. pairs: {pair: (first, second)}; states:
+    {analysis: states in their declared order}, for the order of the rows."""
+    pairs, states = pairs or {}, states or {}
     d = per_tree.copy()
     double = [a in pairs and style.is_double_change(f, t)
               for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])]
@@ -337,7 +338,8 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None):
                              gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]})
     for ax, a in zip(axes[:, 0], analyses):
         g = d[d["analysis"] == a].copy()
-        keys = style.ordered_changes(zip(g["from_state"], g["to_state"]), pairs.get(a))
+        keys = style.ordered_changes(zip(g["from_state"], g["to_state"]), pairs.get(a),
+                                     states.get(a))
         label = {k: style.change_label(*k, pairs.get(a)) for k in keys}
         g["direction"] = [label[k] for k in zip(g["from_state"], g["to_state"])]
         order = [label[k] for k in keys]

@@ -182,20 +182,25 @@ def same_as(support: pd.DataFrame | None, analysis: str) -> dict:
     return dict(zip(s["model"], s["same_as"]))
 
 
-def ordered_changes(keys, pair_traits=None) -> list:
-    """Changes (from, to) in reading order. A single trait keeps the table's order
-    (the declared state order). For a pair: the changes of the first trait, then those
-    of the second, each next to itself in the other trait's other states, so a
-    dependence reads as a shift between neighbouring rows; states in table order."""
+def ordered_changes(keys, pair_traits=None, states=None) -> list:
+    """Changes (from, to) in reading order: by the trait's state order (``states``,
+    else the order met in ``keys``). For a pair: the changes of the first trait, then
+    those of the second, each next to itself in the other trait's other states, so a
+    dependence reads as a shift between neighbouring rows. ``states`` of a pair: its
+    joint states, first trait varying slowest."""
     keys = list(dict.fromkeys(keys))
-    if not pair_traits or not all("+" in str(a) and "+" in str(b) for a, b in keys):
-        return keys
+    pair = bool(pair_traits) and all("+" in str(a) and "+" in str(b) for a, b in keys)
     rank = {}
+    for s in states or []:
+        for part in (str(s).split("+", 1) if pair else [str(s)]):
+            rank.setdefault(part, len(rank))
     for a, b in keys:
-        for part in (*str(a).split("+", 1), *str(b).split("+", 1)):
+        for part in ((*str(a).split("+", 1), *str(b).split("+", 1)) if pair else (str(a), str(b))):
             rank.setdefault(part, len(rank))
 
     def order(key):
+        if not pair:
+            return (rank[str(key[0])], rank[str(key[1])])
         (a1, a2), (b1, b2) = str(key[0]).split("+", 1), str(key[1]).split("+", 1)
         if a2 == b2:
             return (0, rank[a1], rank[b1], rank[a2])

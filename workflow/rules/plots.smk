@@ -6,6 +6,7 @@ rule plot_support:
         fits=f"{OUT}/tables/fits.tsv",
         rates=f"{OUT}/tables/rates.tsv",
         support=f"{OUT}/tables/model_support.tsv",
+        traits=f"{OUT}/prepared/traits.json",
     output:
         **{
             f"{p}_{ext}": figure(

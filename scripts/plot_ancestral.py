@@ -24,17 +24,17 @@ def main(smk):
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
     setup = smk.params.setup
     pairs = {name: spec["traits"] for name, spec in setup["pairs"].items()}
-    states = {}
+    orders = {}
     for analysis in smk.params.analyses:
         trait, models = analysis_setup(setup, analysis, traits)   # a pair: its joint trait
-        states[analysis] = list(trait.states)
+        orders[analysis] = list(trait.states)
         ordered = analysis not in pairs and plots_ancestral.is_ordered_trait(
             [m for m, _ in models.values()], trait.k)
         fig = plots_ancestral.state_tree(tree, states[states["analysis"] == analysis], clades,
                                          trait, analysis, ordered)
         plots_ancestral.save(fig, [p for p in out.trees
                                    if Path(p).stem == f"ancestral_tree_{analysis}"])
-    plots_ancestral.save(plots_ancestral.change_counts(per_tree, pairs, states),
+    plots_ancestral.save(plots_ancestral.change_counts(per_tree, pairs, orders),
                          [out.changes_png, out.changes_svg])
     classes = pd.read_csv(smk.input.classes, sep="\t", dtype={"state": str, "clade": str},
                           keep_default_na=False, na_values=[""])

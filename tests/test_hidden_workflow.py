@@ -88,17 +88,29 @@ def test_class_figures_and_methods(run):
     assert "Maddison & FitzJohn 2015" in text
 
 
-def test_pair_diagram_one_panel_per_class(run):
+def test_pair_figures_one_series_per_class(run):
+    """With hidden classes each hypothesis is drawn once per class (changes within a
+    class): a grid per hypothesis and class, a series per hypothesis and class."""
     import json
+
+    from figure_checks import overlaps
 
     from mkforest.data.traits import traits_from_json
     from mkforest.engine import pairs
-    from mkforest.report.plots_pairs import pair_diagram
+    from mkforest.report.plots_pairs import joint_rate_grid, rates_by_state
     traits = traits_from_json(json.loads((run / "prepared" / "traits.json").read_text()))
     pair = pairs.make_pair("shells", traits["banding"], traits["aperture"])
-    fig = pair_diagram(pair, read(run, "rate_summary"), read(run, "model_support"))
+    rates, support = read(run, "rates"), read(run, "model_support")
+    fig = joint_rate_grid(pair, rates, support)
+    assert overlaps(fig) == []
     titles = [ax.get_title().split("\n")[0] for ax in fig.axes if ax.get_visible()]
-    for h in ("independent", "dependent", "model average"):
+    for h in ("independent", "dependent"):
         assert f"{h}, class 1" in titles and f"{h}, class 2" in titles
-    texts = {x.get_text() for ax in fig.axes for x in ax.texts}
-    assert set(pair.states) <= texts
+    ticks = {x.get_text() for ax in fig.axes for x in ax.get_yticklabels()}
+    assert {s.replace("+", " + ") for s in pair.states} <= ticks
+    fig = rates_by_state(pair, rates, support)
+    assert overlaps(fig) == []
+    legend = [x.get_text() for x in fig.legends[0].get_texts()]
+    for h in ("independent", "dependent"):
+        for c in (1, 2):
+            assert any(t.startswith(f"{h}, class {c}: ") for t in legend)

@@ -66,3 +66,14 @@ def posterior_nexus(path: Path, newicks: list, taxa: list, rooted: str = "[&R] "
     lines.append("END;")
     path.write_text("\n".join(lines) + "\n")
     return path
+
+
+def unrooted(newick: str) -> str:
+    """The same tree written unrooted (its base split three ways), as analyses without a
+    clock write it."""
+    import dendropy
+
+    tree = dendropy.Tree.get(data=newick, schema="newick", rooting="force-unrooted",
+                             preserve_underscores=True)
+    tree.deroot()
+    return tree.as_string(schema="newick", suppress_rooting=True).strip()

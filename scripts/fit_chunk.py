@@ -26,7 +26,7 @@ def main(smk):
     start = time.perf_counter()
     fits, rates = fit_chunk(trees, trait, model, root, job["analysis"], config["seed"],
                             fit["starts"], fit["lower"], fit["upper"],
-                            config["traits"]["absent_taxa"])
+                            config["traits"]["absent_taxa"], fit["max_starts"])
     logging.getLogger("mkforest").info("fits took %.3f s", time.perf_counter() - start)
     bad = sum(1 for f in fits if not f["converged"])
     logging.getLogger("mkforest").info("%s / %s: %d trees fitted, %d not converged",

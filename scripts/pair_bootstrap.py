@@ -51,7 +51,8 @@ def main(smk):
              name, len(mine), mine, len(tests), spec["bootstrap"])
     fit = config["fitting"]
     rows = bootstrap_chunk(pair, models, tests, trees, selected, null_rates, spec["bootstrap"],
-                           config["seed"], fit["starts"], fit["lower"], fit["upper"])
+                           config["seed"], fit["starts"], fit["lower"], fit["upper"],
+                           fit["max_starts"])
     pd.DataFrame(rows, columns=BOOTSTRAP_COLUMNS).to_csv(smk.output[0], sep="\t", index=False,
                                                          float_format="%.10g")
 

@@ -256,7 +256,7 @@ def test_methods_follow_the_settings(run):
     cfg = base_config()
     cfg["models"]["free"]["root"] = "data_weighted"
     cfg["criterion"] = "bic"
-    cfg["fitting"] = {"starts": 1}
+    cfg["fitting"] = {"starts": 1, "max_starts": 1}
     text = _text_for(work, cfg)
     assert REFERENCES["fitzjohn2009"].cite() in text and REFERENCES["fitzjohn2009"].full() in text
     assert "each root state weighted by its conditional likelihood" in text

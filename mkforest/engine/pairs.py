@@ -63,7 +63,7 @@ from ..data.config import check_classes
 from ..data.traits import Trait
 from ..errors import InputError, did_you_mean
 from ..seeds import derive_seed
-from .fitting import LOWER, UPPER, fit_model
+from .fitting import LOWER, MAX_STARTS, UPPER, fit_model
 from .likelihood import check_root, prune, root_weights
 from .hidden import MAX_COMBINED_STATES, check_no_class_in_transitions, with_hidden_classes
 from .models import FIXED, FREE_FORBIDDEN, RateModel, build_model, parse_transition
@@ -460,21 +460,24 @@ def simulate_pair_partials(pair: TraitPair, tree, joint_states, masks) -> np.nda
 
 def lr_statistic(tree, tip_partials, null: RateModel, alt: RateModel, root="uniform",
                  n_starts: int = 5, seed: int = 0, lower: float = LOWER,
-                 upper: float = UPPER) -> tuple:
+                 upper: float = UPPER, max_starts: int = MAX_STARTS) -> tuple:
     """(statistic, null FitResult, alternative FitResult): both hypotheses fitted by
     fit_model exactly as the fit jobs fit them, statistic 2 (ln L_alt - ln L_null)
     floored at 0 (a nested alternative cannot do worse than its null)."""
     fit_null = fit_model(tree, tip_partials, null, root=root, n_starts=n_starts,
-                         seed=derive_seed(seed, "null"), lower=lower, upper=upper)
+                         seed=derive_seed(seed, "null"), lower=lower, upper=upper,
+                         max_starts=max_starts)
     fit_alt = fit_model(tree, tip_partials, alt, root=root, n_starts=n_starts,
-                        seed=derive_seed(seed, "alternative"), lower=lower, upper=upper)
+                        seed=derive_seed(seed, "alternative"), lower=lower, upper=upper,
+                        max_starts=max_starts)
     stat = 2.0 * (fit_alt.log_likelihood - fit_null.log_likelihood)
     return (max(0.0, stat) if np.isfinite(stat) else float("nan")), fit_null, fit_alt
 
 
 def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel, null_rates,
                          root="uniform", replicates=range(0), seed: int = 0, n_starts: int = 5,
-                         lower: float = LOWER, upper: float = UPPER) -> np.ndarray:
+                         lower: float = LOWER, upper: float = UPPER,
+                         max_starts: int = MAX_STARTS) -> np.ndarray:
     """LR statistics of data sets simulated under the fitted null (Goldman 1993).
 
     Each simulated data set is refitted exactly as the observed one is (fit_model,
@@ -496,6 +499,7 @@ def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel,
         states = simulate_states(tree, q, rng, root_state=root_state, root_weights=weights)
         # hidden classes: the tips show the joint state only (combined index = class * n + joint)
         sim = simulate_pair_partials(pair, tree, states % n_joint, masks)
-        stat, _, _ = lr_statistic(tree, sim, null, alt, root, n_starts, s, lower, upper)
+        stat, _, _ = lr_statistic(tree, sim, null, alt, root, n_starts, s, lower, upper,
+                                  max_starts)
         out.append(stat)
     return np.asarray(out, dtype=float)

@@ -103,7 +103,8 @@ def check_config(raw: dict, source: str = "config") -> dict:
 
 
 def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, starts: int = 5,
-              lower: float = 1e-6, upper: float = 1e4, absent: str = "error") -> tuple:
+              lower: float = 1e-6, upper: float = 1e4, absent: str = "error",
+              max_starts: int = 20) -> tuple:
     """Fit one model to one trait on each tree. Returns (fit rows, rate rows) as dicts."""
     fits, rates = [], []
     varies = len(trait.observed_states()) >= 2
@@ -121,7 +122,7 @@ def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, st
             continue
         res = fit_model(tree, X, model, root, n_starts=starts,
                         seed=derive_seed(seed, tree.index, analysis, model.name),
-                        lower=lower, upper=upper)
+                        lower=lower, upper=upper, max_starts=max_starts)
         ic = information_criteria(res.log_likelihood, res.n_params, n)
         notes = list(res.notes) + class_notes(model, res)
         if np.isinf(ic["aicc"]):

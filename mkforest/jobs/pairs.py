@@ -50,12 +50,12 @@ def rates_from_rows(model, rows: pd.DataFrame) -> np.ndarray | None:
 
 def bootstrap_chunk(pair, models: dict, tests: list, trees: list, selected: set,
                     null_rates: dict, n_replicates: int, seed: int, n_starts: int = 5,
-                    lower: float = 1e-6, upper: float = 1e4) -> list:
+                    lower: float = 1e-6, upper: float = 1e4, max_starts: int = 20) -> list:
     """Bootstrap rows for the trees of one chunk that are in ``selected``.
 
     null_rates: {(null name, tree index): free rates of that null's fit on that tree}
-    (missing when the fit failed; such trees are skipped). n_starts, lower and upper
-    are the fit jobs' settings, so simulated data sets are fitted as the real one was.
+    (missing when the fit failed; such trees are skipped). n_starts, max_starts, lower
+    and upper are the fit jobs' settings, so simulated data sets are fitted as the real one was.
     """
     rows = []
     for tree in trees:
@@ -69,7 +69,8 @@ def bootstrap_chunk(pair, models: dict, tests: list, trees: list, selected: set,
                 continue
             stats = bootstrap_statistics(pair, tree, null, alt, rates, root,
                                          replicates=range(n_replicates), seed=seed,
-                                         n_starts=n_starts, lower=lower, upper=upper)
+                                         n_starts=n_starts, lower=lower, upper=upper,
+                                         max_starts=max_starts)
             rows += [{"pair": pair.name, "null": test.null, "alternative": test.alternative,
                       "tree": tree.index, "replicate": r, "statistic": float(s)}
                      for r, s in enumerate(stats)]

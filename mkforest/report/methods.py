@@ -305,14 +305,22 @@ def _models_paragraph(config, models, support) -> str:
 def _fitting_paragraph(config, software) -> str:
     fit = config["fitting"]
     starts = fit["starts"]
+    most = max(fit.get("max_starts", starts), starts)
     scipy_version = software.get("scipy", "")
+    if most > starts:
+        begun = (f"from at least {plural(starts, 'starting point')} per tree and model, tried in a "
+                 "fixed seeded order, with further starts (at most "
+                 f"{most} in all) while the two best disagreed by more than {AGREE_TOL:g} "
+                 "log-likelihood units")
+    else:
+        begun = f"from {plural(starts, 'starting point')} per tree and model"
     text = ("Rates were estimated by maximum likelihood, on a log scale, with the L-BFGS-B "
-            f"algorithm {cite('byrd1995')} of SciPy {scipy_version}, from "
-            f"{plural(starts, 'starting point')} per tree and model. Each rate was bounded between "
+            f"algorithm {cite('byrd1995')} of SciPy {scipy_version}, {begun}. "
+            "Each rate was bounded between "
             f"{fit['lower']:g} and {fit['upper']:g} expected changes along the tree's root-to-tip "
             "height, so the bounds scale with each tree; estimates at a bound are flagged in "
             "tables/rates.tsv.")
-    if starts > 1:
+    if most > 1:
         text += (f" A fit counted as converged when at least two starts reached the best "
                  f"log-likelihood within {AGREE_TOL:g} units.")
     else:

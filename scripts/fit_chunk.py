@@ -23,11 +23,12 @@ def main(smk):
     model, root = models[job["model"]]
     trees = load_trees(smk.input.trees)
     fit = config["fitting"]
-    start = time.perf_counter()
+    start, cpu = time.perf_counter(), time.process_time()
     fits, rates = fit_chunk(trees, trait, model, root, job["analysis"], config["seed"],
                             fit["starts"], fit["lower"], fit["upper"],
                             config["traits"]["absent_taxa"], fit["max_starts"])
-    logging.getLogger("mkforest").info("fits took %.3f s", time.perf_counter() - start)
+    logging.getLogger("mkforest").info("fits took %.3f s (CPU %.3f s)", time.perf_counter() - start,
+                                       time.process_time() - cpu)
     bad = sum(1 for f in fits if not f["converged"])
     logging.getLogger("mkforest").info("%s / %s: %d trees fitted, %d not converged",
                                        job["analysis"], job["model"], len(fits), bad)

@@ -12,6 +12,7 @@ import pandas as pd
 
 from mkforest.data.trees import describe_rooting, read_trees, save_trees
 from mkforest.jobs.prepare import (
+    auto_trees_per_job,
     burnin_count,
     check_same_tips,
     chunk,
@@ -44,8 +45,17 @@ def main(smk):
                     f"; branches shorter than {minimum:g} were lengthened to it" if minimum else "")
     out = Path(smk.output.chunks)
     out.mkdir(parents=True, exist_ok=True)
+    per_job = cfg["per_job"]
+    if per_job == "auto":
+        # resources, not params: the layout is chosen once, by the run that prepares the
+        # trees; resuming with other cores keeps it (and every finished fit)
+        res = smk.resources
+        per_job = auto_trees_per_job(len(used), used[0].n_tips, res.fits_per_tree, res.fit_slots)
+        log.info("trees.per_job auto: %d trees per job (%d trees, %d fits per tree, %d slots)",
+                 per_job, len(used), res.fits_per_tree, res.fit_slots)
+    (out / "layout.json").write_text(json.dumps({"per_job": per_job, "trees": len(used)}))
     rows = []
-    for c, part in enumerate(chunk(used, cfg["per_job"])):
+    for c, part in enumerate(chunk(used, per_job)):
         save_trees(out / f"chunk_{c:04d}.npz", part)
         rows += [{"tree": t.index, "chunk": c, "n_tips": t.n_tips, "height": t.height,
                   "total_length": t.total_length} for t in part]

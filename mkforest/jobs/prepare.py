@@ -142,6 +142,28 @@ def tree_check_rows(summary: dict, used: list) -> list:
     return rows
 
 
+# trees.per_job: auto. Every job pays a start-up (Python, NumPy, SciPy, numba and the
+# package: about 1.3 s of CPU, measured in benchmarks/bench_workflow.py), so a job
+# gets at least this many trees when there are that many ...
+AUTO_MIN_TREES = 250
+# ... and at most this many tree-tips, which bounds a job's memory (measured: see
+# README, "How the work divides at scale").
+AUTO_MAX_TREE_TIPS = 1_000_000
+
+
+def auto_trees_per_job(n_trees: int, n_tips: int, fits_per_tree: int, slots: int) -> int:
+    """Trees per fit job for ``trees.per_job: auto``.
+
+    Aims at two fit jobs per slot (cores, or cluster jobs) so that no slot idles
+    while another finishes a long job; then at least AUTO_MIN_TREES trees per job
+    (start-up is paid once per job) and at most AUTO_MAX_TREE_TIPS / n_tips.
+    The result depends on the machine, never the fits: a tree's fit depends only
+    on its own seed."""
+    chunks = max(1, math.ceil(2 * max(1, slots) / max(1, fits_per_tree)))
+    per_job = max(math.ceil(n_trees / chunks), min(n_trees, AUTO_MIN_TREES))
+    return max(1, min(per_job, AUTO_MAX_TREE_TIPS // max(1, n_tips)))
+
+
 def chunk(items: list, per_job: int) -> list:
     return [items[i:i + per_job] for i in range(0, len(items), per_job)]
 

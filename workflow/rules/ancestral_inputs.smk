@@ -33,7 +33,7 @@ def ancestral_params(wildcards):
 
 def ancestral_runtime(wildcards, attempt):
     """Minutes for one chunk: maps take ~25 ms per tree at 200 tips and 100 maps."""
-    return 10 + 5 * attempt * max(1, config["trees"]["per_job"] // 100)
+    return 10 + 5 * attempt * max(1, trees_per_job() // 100)
 
 
 ANCESTRAL_TREE_PLOTS = [

@@ -1,5 +1,6 @@
 # Shared definitions and input functions.
 import glob
+import json
 import os
 import sys
 
@@ -75,9 +76,22 @@ def fit_params(wildcards):
     return stable(fit_job_config(config, wildcards.analysis, wildcards.model))
 
 
+# Jobs that can run at once: cores on one machine, jobs in flight on a cluster.
+FIT_SLOTS = max(workflow._cores or 1, workflow.nodes or 1)
+
+
+def trees_per_job():
+    """Trees per chunk: trees.per_job, or what prepare_trees chose for 'auto'."""
+    if config["trees"]["per_job"] != "auto":
+        return config["trees"]["per_job"]
+    folder = checkpoints.prepare_trees.get().output.chunks
+    with open(os.path.join(folder, "layout.json")) as fh:
+        return json.load(fh)["per_job"]
+
+
 def fit_runtime(wildcards, attempt):
     """Minutes for one fit job: about 0.1 s per tree and model at 200 tips, with margin."""
-    return 10 + 5 * attempt * max(1, config["trees"]["per_job"] // 50)
+    return 10 + 5 * attempt * max(1, trees_per_job() // 50)
 
 
 PLOTS = ["support_weights", "support_heatmap", "rates_across_trees"]

@@ -41,7 +41,7 @@ def pair_bootstrap_runtime(wildcards, attempt):
     (two fits of 5 starts), for each test on each bootstrapped tree of the chunk,
     with a wide margin."""
     spec = PAIRS[wildcards.pair]
-    per_chunk = min(spec["bootstrap_trees"], config["trees"]["per_job"])
+    per_chunk = min(spec["bootstrap_trees"], trees_per_job())
     n_tests = max(1, len(ANALYSES[wildcards.pair]) * (len(ANALYSES[wildcards.pair]) - 1) // 2)
     return 10 + attempt * int(per_chunk * n_tests * spec["bootstrap"] * 0.5 / 60)
 

@@ -14,6 +14,10 @@ checkpoint prepare_trees:
     params:
         trees=stable(config["trees"]),
         seed=config["seed"],
+    resources:
+        # read by trees.per_job: auto (resources are no rerun trigger, params are)
+        fit_slots=FIT_SLOTS,
+        fits_per_tree=sum(len(models) for models in ANALYSES.values()),
     log:
         f"{OUT}/logs/prepare_trees.log",
     conda:

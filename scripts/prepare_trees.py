@@ -53,7 +53,8 @@ def main(smk):
         per_job = auto_trees_per_job(len(used), used[0].n_tips, res.fits_per_tree, res.fit_slots)
         log.info("trees.per_job auto: %d trees per job (%d trees, %d fits per tree, %d slots)",
                  per_job, len(used), res.fits_per_tree, res.fit_slots)
-    (out / "layout.json").write_text(json.dumps({"per_job": per_job, "trees": len(used)}))
+    (out / "layout.json").write_text(json.dumps({"per_job": per_job, "trees": len(used),
+                                                   "tips": used[0].n_tips}))
     rows = []
     for c, part in enumerate(chunk(used, per_job)):
         save_trees(out / f"chunk_{c:04d}.npz", part)

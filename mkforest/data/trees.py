@@ -100,12 +100,8 @@ def _build(tip_labels, parent_of, length_of, index) -> TreeArrays:
     counts = np.bincount(parent[parent >= 0], minlength=n)
     child_ptr = np.zeros(n + 1, dtype=np.int64)
     np.cumsum(counts, out=child_ptr[1:])
-    children = np.empty(n - 1, dtype=np.int64)
-    fill = child_ptr[:-1].copy()
-    for v in range(n - 1):
-        p = parent[v]
-        children[fill[p]] = v
-        fill[p] += 1
+    # children grouped by parent, each group in increasing node order (the root is last)
+    children = np.argsort(parent[:n - 1], kind="stable").astype(np.int64)
     return TreeArrays(tuple(tip_labels), parent, np.asarray(length_of, dtype=np.float64),
                       child_ptr, children, index)
 
@@ -343,12 +339,16 @@ def save_trees(path, trees: list) -> None:
 
 def load_trees(path) -> list:
     with np.load(path) as data:
+        # each data[...] reads the whole array from the file: read each once
         labels = json.loads(str(data["labels"]))
-        out = []
-        start = 0
-        for k, n in enumerate(data["n_nodes"]):
-            parent = data["parent"][start:start + n]
-            length = data["length"][start:start + n]
-            out.append(_build(labels[k], parent, length, int(data["index"][k])))
-            start += n
+        n_nodes, index = data["n_nodes"], data["index"]
+        parents, lengths = data["parent"], data["length"]
+    out = []
+    shared = {}  # trees of a sample list the same tips, often in the same order: one tuple
+    start = 0
+    for k, n in enumerate(n_nodes):
+        tips = shared.setdefault(tuple(labels[k]), tuple(labels[k]))
+        out.append(_build(tips, parents[start:start + n].copy(), lengths[start:start + n].copy(),
+                          int(index[k])))
+        start += n
     return out

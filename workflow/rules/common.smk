@@ -1,6 +1,7 @@
 # Shared definitions and input functions.
 import glob
 import json
+import math
 import os
 import sys
 
@@ -78,20 +79,51 @@ def fit_params(wildcards):
 
 # Jobs that can run at once: cores on one machine, jobs in flight on a cluster.
 FIT_SLOTS = max(workflow._cores or 1, workflow.nodes or 1)
+# Memory of one fit job (measured peak: README, "How the work divides at scale").
+FIT_MEM_MB = 1000
+
+
+def _default_mem_mb():
+    try:
+        value = workflow.resource_settings._parsed_default_resources.get("mem_mb").value
+        return int(value) if isinstance(value, (int, float)) else 0
+    except Exception:
+        return 0
+
+
+onstart:
+    # On SLURM, a submission larger than every node would wait for ever: say so now.
+    from mkforest.jobs.cluster import group_request, query_nodes, request_problem
+
+    plugin = getattr(workflow.executor_plugin, "name", "") or ""
+    if plugin.split("-")[-1] == "slurm":
+        size = dict(workflow.group_settings.group_components).get("fit", 1)
+        asked = group_request(size, workflow._cores, FIT_MEM_MB, _default_mem_mb())
+        nodes = query_nodes()
+        problem = request_problem(*asked, nodes, size, workflow._cores) if nodes else None
+        if problem:
+            raise WorkflowError(problem)
+
+
+def tree_layout():
+    """{per_job, trees, tips} written by prepare_trees (per_job as chosen for 'auto')."""
+    folder = checkpoints.prepare_trees.get().output.chunks
+    with open(os.path.join(folder, "layout.json")) as fh:
+        return json.load(fh)
 
 
 def trees_per_job():
     """Trees per chunk: trees.per_job, or what prepare_trees chose for 'auto'."""
     if config["trees"]["per_job"] != "auto":
         return config["trees"]["per_job"]
-    folder = checkpoints.prepare_trees.get().output.chunks
-    with open(os.path.join(folder, "layout.json")) as fh:
-        return json.load(fh)["per_job"]
+    return tree_layout()["per_job"]
 
 
 def fit_runtime(wildcards, attempt):
-    """Minutes for one fit job: about 0.1 s per tree and model at 200 tips, with margin."""
-    return 10 + 5 * attempt * max(1, trees_per_job() // 50)
+    """Minutes for one fit job: 0.5 s per tree at 200 tips (measured: 3-60 ms per fit
+    with adaptive starts, benchmarks/bench_reference.py; pairs cost more), plus 2 min."""
+    per_tree = 0.5 * max(1.0, tree_layout()["tips"] / 200)
+    return 2 + attempt * math.ceil(trees_per_job() * per_tree / 60)
 
 
 PLOTS = ["support_weights", "support_heatmap", "rates_across_trees"]

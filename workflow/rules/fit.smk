@@ -12,7 +12,7 @@ rule fit:
         job=fit_params,
     resources:
         runtime=fit_runtime,
-        mem_mb=1000,
+        mem_mb=FIT_MEM_MB,
     group:
         "fit"
     log:

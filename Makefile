@@ -15,6 +15,7 @@ $(STAMP): pyproject.toml
 	python3 -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
 	$(BIN)/pip install --quiet -e '.[test,cluster]'
+	$(BIN)/python -m mkforest.engine.warm
 	touch $(STAMP)
 
 demo: $(STAMP)

@@ -79,7 +79,9 @@ def main() -> int:
             "fit_jobs"]
     for i, r in enumerate(runs):
         print(f"run {i + 1}: " + ", ".join(f"{k} {r[k]:.1f}" for k in keys)
-              + "; CPU by stage (s) " + ", ".join(f"{k} {v:.1f}" for k, v in sorted(r["stages"].items())))
+              + "; CPU by stage (s) " + ", ".join(f"{k} {v:.1f}" for k, v in sorted(r["stages"].items()))
+              + "; peak memory by stage (MB) "
+              + ", ".join(f"{k} {v:.0f}" for k, v in sorted(r["peaks"].items())))
     med = {k: statistics.median(r[k] for r in runs) for k in keys}
     print(f"median of {len(runs)}: wall {med['wall']:.1f} s, CPU {med['cpu']:.1f} s, "
           f"fitting {med['fit_seconds']:.1f} s summed over {med['fit_jobs']:.0f} fit jobs "
@@ -117,16 +119,21 @@ def one_run(args, work, cfg):
         if m:
             fit_seconds += float(m.group(1))
             fit_cpu += float(m.group(2) or "nan")
-    stages = {}
+    stages, peaks = {}, {}
     for p in logs:
-        m = re.search(r"done in ([0-9.]+) s(?: \(CPU ([0-9.]+) s)?", p.read_text())
+        text = p.read_text()
+        m = re.search(r"done in ([0-9.]+) s(?: \(CPU ([0-9.]+) s)?", text)
+        key = "fit" if "/fit/" in str(p) else p.stem
         if m:
-            key = "fit" if "/fit/" in str(p) else p.stem
             stages[key] = stages.get(key, 0.0) + float(m.group(2) or "nan")
+        m = re.search(r"peak memory ([0-9]+) MB", text)
+        if m:
+            peaks[key] = max(peaks.get(key, 0.0), float(m.group(1)))
     outside = max(0.0, 1.0 - (fit_seconds / args.cores) / wall)
     return {"wall": wall, "cpu": cpu, "load": load, "fit_seconds": fit_seconds, "fit_cpu": fit_cpu,
             "outside": outside, "outside_cpu": 1.0 - fit_cpu / cpu, "jobs": len(logs),
-            "fit_jobs": len(fit_logs), "stages": stages}
+            "fit_jobs": len(fit_logs), "stages": stages,
+            "peak_mb": max(peaks.values(), default=float("nan")), "peaks": peaks}
 
 if __name__ == "__main__":
     sys.exit(main())

@@ -20,6 +20,7 @@ of all ``--starts`` starts (a poorer optimum reported).
 from __future__ import annotations
 
 import argparse
+import json
 import sys
 import tempfile
 import time
@@ -60,12 +61,14 @@ def record_starts(config: dict, n_starts: int) -> list:
                 fit = fit_model(tree, X, model, root, n_starts=n_starts, max_starts=n_starts,
                                 seed=derive_seed(config["seed"], tree.index, analysis, name),
                                 lower=config["fitting"]["lower"], upper=config["fitting"]["upper"])
-                out.append((analysis, name, tree.index, list(fit.start_log_likelihoods)))
+                out.append((analysis, name, tree.index, list(fit.start_log_likelihoods),
+                            model.n_params))
     return out
 
 
 def policy(lls: list, least: int, most: int) -> tuple:
     """(best ln L, starts run, flagged) of the adaptive rule on one fit's record."""
+    lls = [x if x is not None else -np.inf for x in lls]
     run = []
     for ll in lls[:most]:
         run.append(ll)
@@ -82,8 +85,8 @@ def report(records: list, label: str, n_starts: int) -> None:
     print(f"\n{label}: {n} fits, {n_starts} starts recorded per fit")
     print(f"  {'policy':<16} {'flagged':>14} {'starts/fit':>10} {'poorer optimum':>15}"
           f" {'differs from fixed 5':>21}")
-    rules = [("fixed 5", 5, 5), ("adaptive 2..10", 2, 10), ("adaptive 2..20", 2, 20),
-             ("adaptive 3..20", 3, 20)]
+    rules = [("fixed 5", 5, 5), ("adaptive 2..20", 2, 20), ("adaptive 3..20", 3, 20),
+             ("adaptive 4..20", 4, 20), ("adaptive 5..20", 5, 20)]
     old = [policy(r[3], 5, 5)[0] for r in records]
     for name, least, most in rules:
         if most > n_starts:
@@ -96,14 +99,24 @@ def report(records: list, label: str, n_starts: int) -> None:
         differs = sum(1 for r, o in zip(res, old) if np.isfinite(o) and abs(r[0] - o) > AGREE_TOL)
         print(f"  {name:<16} {flagged:6d} ({100 * flagged / n:4.2f}%) {starts:10.2f} "
               f"{poorer:15d} {differs:21d}")
-    flagged_models = {}
-    for r in records:
-        if policy(r[3], 2, 20)[2]:
-            key = f"{r[0]}/{r[1]}"
-            flagged_models[key] = flagged_models.get(key, 0) + 1
-    if flagged_models:
-        print("  still flagged under adaptive 2..20, by analysis/model:",
-              ", ".join(f"{k} {v}" for k, v in sorted(flagged_models.items())))
+    by_model = {}
+    for rec in records:
+        key = f"{rec[0]}/{rec[1]} ({rec[4]} rates)"
+        row = by_model.setdefault(key, [0, 0, 0, 0])
+        best = max(x if x is not None else -np.inf for x in rec[3])
+        row[0] += 1
+        row[1] += policy(rec[3], 2, most_starts(n_starts))[2]
+        row[2] += best - policy(rec[3], 2, most_starts(n_starts))[0] > AGREE_TOL
+        row[3] += best - policy(rec[3], 5, 5)[0] > AGREE_TOL
+    print("  by analysis/model: fits, flagged (adaptive 2..20), poorer optimum (adaptive 2..20), "
+          "poorer optimum (fixed 5)")
+    for key, row in sorted(by_model.items()):
+        if any(row[1:]):
+            print(f"    {key:<48} {row[0]:5d} {row[1]:4d} {row[2]:4d} {row[3]:4d}")
+
+
+def most_starts(n_starts):
+    return min(20, n_starts)
 
 
 def main() -> int:
@@ -112,7 +125,14 @@ def main() -> int:
     ap.add_argument("--seeds", type=int, nargs="+", default=[2026, 7],
                     help="demo-data seeds (2026 is the demo itself)")
     ap.add_argument("--config", default=str(REPO / "config" / "config.yaml"))
+    ap.add_argument("--save", help="write the records of every seed to this JSON file")
+    ap.add_argument("--load", help="read records from a JSON file written by --save")
     args = ap.parse_args()
+    if args.load:
+        for label, records in json.loads(Path(args.load).read_text()).items():
+            report(records, label, len(records[0][3]))
+        return 0
+    saved = {}
     for seed in args.seeds:
         with tempfile.TemporaryDirectory() as tmp:
             paths = make_demo(Path(tmp), seed=seed)
@@ -124,6 +144,10 @@ def main() -> int:
             cpu = time.process_time() - t0
         label = "demo data" if seed == 2026 else f"simulated like the demo (seed {seed})"
         report(records, f"{label}, {cpu:.0f} s CPU", args.starts)
+        saved[label] = [(a, m, t, [x if np.isfinite(x) else None for x in lls], p)
+                        for a, m, t, lls, p in records]
+        if args.save:
+            Path(args.save).write_text(json.dumps(saved))
     return 0
 
 

@@ -196,3 +196,18 @@ def test_slurm_run_tables_equal_local_run(slurm_cluster, tmp_path):
     for name in names:
         a, b = local_tables / name, slurm_tables / name
         assert a.read_bytes() == b.read_bytes(), f"{name} differs: {_first_difference(a, b)}"
+
+
+@pytest.mark.skipif(not SMALL_CONFIGS, reason="needs a small config/test*.yaml")
+def test_request_larger_than_every_node_stops_before_submission(slurm_cluster, tmp_path):
+    """Node size set above the test node's cores: the run stops before anything is
+    submitted, with one sentence naming the setting (sinfo reports the node)."""
+    too_many = slurm_cluster.cpus * 8
+    run = run_workflow_on_slurm(SMALL_CONFIGS[0], tmp_path / "big", timeout=300,
+                                cluster=slurm_cluster, extra_args=("--cores", str(too_many)))
+    output = run.output(200)
+    assert not run.timed_out, f"timed out after {run.seconds:.0f} s:\n{output}"
+    assert run.returncode != 0, output
+    assert f"largest node has {slurm_cluster.cpus} cores" in output, output
+    assert "profiles/slurm/config.yaml" in output and f"cores: {too_many}" in output, output
+    assert "has been submitted with SLURM jobid" not in run.log.read_text()

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import logging
 import os
+import resource
 import shutil
 import sys
 import time
@@ -43,8 +44,9 @@ def run_job(snakemake, main) -> None:
         raise
     publish_outputs(snakemake.output, final)
     # process CPU time counts from the interpreter's start: imports included
-    log.info("done in %.2f s (CPU %.2f s since the process started)", time.perf_counter() - start,
-             time.process_time())
+    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # KiB on Linux
+    log.info("done in %.2f s (CPU %.2f s since the process started, peak memory %.0f MB)",
+             time.perf_counter() - start, time.process_time(), peak_mb)
 
 
 # Outputs are written under a hidden folder beside their final place and moved there

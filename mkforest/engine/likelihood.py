@@ -226,7 +226,19 @@ def check_rate_matrix(Q) -> np.ndarray:
 
 def eigensystem(Q):
     """(lam, V, Vinv) with Q = V diag(lam) Vinv, real when every eigenvalue is real;
-    None when V is ill-conditioned (defective or nearly defective Q)."""
+    None when V is ill-conditioned (defective or nearly defective Q).
+
+    Two states in closed form (a = Q01, b = Q10, s = a + b > 0): lam = (0, -s),
+    V = [[1, a/s], [1, -b/s]], Vinv = [[b/s, a/s], [1, -1]] (det V = -1, so V is
+    well conditioned whatever the rates); it skips LAPACK's general solver, whose
+    call overhead dominates a two-state likelihood."""
+    if Q.shape == (2, 2):
+        a, b = float(Q[0, 1]), float(Q[1, 0])
+        s = a + b
+        if s > 0.0:
+            pa, pb = a / s, b / s
+            return (np.array([0.0, -s]), np.array([[1.0, pa], [1.0, -pb]]),
+                    np.array([[pb, pa], [1.0, -1.0]]))
     lam, V = np.linalg.eig(Q)
     try:
         Vinv = np.linalg.inv(V)

@@ -179,47 +179,76 @@ def _detect_schema(text: str) -> str:
     return "nexus" if text.lstrip().upper().startswith("#NEXUS") else "newick"
 
 
-def parse_tree_file(path, schema: str | None = None):
-    """Every tree of a Newick or NEXUS file as a DendroPy TreeList, unchecked
-    (InputError naming the file and line when it cannot be read)."""
-    path = Path(path)
+def _tree_file_text(path: Path, schema):
+    """(text, schema) of a tree file, or InputError when it is missing or empty."""
     if not path.is_file():
         raise InputError(f"tree file '{path}' does not exist.")
     text = path.read_text()
     schema = schema or _detect_schema(text)
     if not text.strip():
         raise InputError(f"tree file '{path}' is empty.")
+    return text, schema
+
+
+def _unreadable(exc, path: Path, schema: str) -> InputError:
+    """DendroPy raises several types; all mean a malformed file: one sentence."""
+    line = getattr(exc, "line_num", None)
+    at = f", line {line}" if line else ""
+    msg = getattr(exc, "message", None) or str(exc).splitlines()[0]
+    if "Duplicate taxon labels:" in msg:
+        dup = msg.rsplit("Duplicate taxon labels:", 1)[1].strip()
+        msg = (f"tip '{dup}' appears more than once in one tree; tip labels must be unique "
+               "within a tree")
+    return InputError(f"tree file '{path}'{at}: cannot be read as {schema.upper()}: {msg}")
+
+
+def parse_tree_file(path, schema: str | None = None):
+    """Every tree of a Newick or NEXUS file as a DendroPy TreeList, unchecked
+    (InputError naming the file and line when it cannot be read)."""
+    path = Path(path)
+    text, schema = _tree_file_text(path, schema)
     import dendropy  # imported here: fit jobs only load prepared arrays
 
     try:
         trees = dendropy.TreeList.get(data=text, schema=schema, preserve_underscores=True)
-    except Exception as exc:  # DendroPy raises several types; all mean a malformed file
-        line = getattr(exc, "line_num", None)
-        at = f", line {line}" if line else ""
-        msg = getattr(exc, "message", None) or str(exc).splitlines()[0]
-        if "Duplicate taxon labels:" in msg:
-            dup = msg.rsplit("Duplicate taxon labels:", 1)[1].strip()
-            msg = (f"tip '{dup}' appears more than once in one tree; tip labels must be unique "
-                   "within a tree")
-        raise InputError(f"tree file '{path}'{at}: cannot be read as {schema.upper()}: {msg}") from None
+    except Exception as exc:
+        raise _unreadable(exc, path, schema) from None
     if len(trees) == 0:
         raise InputError(f"tree file '{path}' holds no trees.")
     return trees
+
+
+def iter_tree_file(path, schema: str | None = None):
+    """The trees of a Newick or NEXUS file one at a time, as DendroPy trees: a sample
+    of 1,000 trees of 1,000 tips held at once as DendroPy objects took 1.3 GB."""
+    path = Path(path)
+    text, schema = _tree_file_text(path, schema)
+    import dendropy
+
+    try:
+        yield from dendropy.Tree.yield_from_files(files=[io.StringIO(text)], schema=schema,
+                                                  preserve_underscores=True)
+    except Exception as exc:
+        raise _unreadable(exc, path, schema) from None
 
 
 def read_trees(path, schema: str | None = None, root=None) -> list:
     """Read every tree in a Newick or NEXUS file (TRANSLATE tables, [&R]/[&U] and quoted labels handled).
 
     root: None (trees must be rooted as written), "midpoint", or {"outgroup": [taxa]}
-    (the ``trees.root`` config key); see ``reroot``.
+    (the ``trees.root`` config key); see ``reroot``. Trees are converted one at a
+    time, so only the arrays of the whole sample are held.
     """
     path = Path(path)
-    trees = parse_tree_file(path, schema)
     source = f"tree file '{path}'"
-    if root is not None:
-        for i, t in enumerate(trees):
+    out = []
+    for i, t in enumerate(iter_tree_file(path, schema)):
+        if root is not None:
             reroot(t, root, f"{source}, tree {i}")
-    return [from_dendropy(t, i, source, rooted=root is not None) for i, t in enumerate(trees)]
+        out.append(from_dendropy(t, i, source, rooted=root is not None))
+    if not out:
+        raise InputError(f"tree file '{path}' holds no trees.")
+    return out
 
 
 def describe_rooting(root) -> str:

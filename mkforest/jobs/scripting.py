@@ -44,9 +44,21 @@ def run_job(snakemake, main) -> None:
         raise
     publish_outputs(snakemake.output, final)
     # process CPU time counts from the interpreter's start: imports included
-    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # KiB on Linux
     log.info("done in %.2f s (CPU %.2f s since the process started, peak memory %.0f MB)",
-             time.perf_counter() - start, time.process_time(), peak_mb)
+             time.perf_counter() - start, time.process_time(), peak_memory_mb())
+
+
+def peak_memory_mb() -> float:
+    """Peak resident memory of this process in MB: VmHWM on Linux (ru_maxrss would
+    also count the forking parent: Linux carries it over an exec), else ru_maxrss."""
+    try:
+        with open("/proc/self/status") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 
 
 # Outputs are written under a hidden folder beside their final place and moved there

@@ -8,7 +8,9 @@ policy is then read off the same record:
 
 - ``fixed N``: always N starts (the first release: 5);
 - ``adaptive m..M``: at least m starts, then more while the two best disagree,
-  at most M (``fitting.fit_model``).
+  at most M;
+- ``fit_model m..M``: the same, with at least as many starts as the model has
+  free rates, up to 5 (``fitting.fit_model``'s rule).
 
 For each policy: fits flagged (fewer than two starts within 0.01 of the best),
 mean starts per fit, and fits whose best ln L is more than 0.01 below the best
@@ -35,7 +37,7 @@ from mkforest.data.config import analyses, load_config  # noqa: E402
 from mkforest.data.traits import read_traits  # noqa: E402
 from mkforest.data.trees import read_trees  # noqa: E402
 from mkforest.demo import make_demo  # noqa: E402
-from mkforest.engine.fitting import AGREE_TOL, fit_model  # noqa: E402
+from mkforest.engine.fitting import AGREE_TOL, fit_model, min_starts  # noqa: E402
 from mkforest.jobs.fit import analysis_setup  # noqa: E402
 from mkforest.jobs.prepare import select_trees  # noqa: E402
 from mkforest.seeds import derive_seed  # noqa: E402
@@ -66,8 +68,11 @@ def record_starts(config: dict, n_starts: int) -> list:
     return out
 
 
-def policy(lls: list, least: int, most: int) -> tuple:
-    """(best ln L, starts run, flagged) of the adaptive rule on one fit's record."""
+def policy(lls: list, least: int, most: int, n_params: int = 0) -> tuple:
+    """(best ln L, starts run, flagged) of the adaptive rule on one fit's record;
+    with n_params, at least min_starts(n_params, least, most) starts (fit_model's rule)."""
+    if n_params:
+        least = min_starts(n_params, least, most)
     lls = [x if x is not None else -np.inf for x in lls]
     run = []
     for ll in lls[:most]:
@@ -85,13 +90,14 @@ def report(records: list, label: str, n_starts: int) -> None:
     print(f"\n{label}: {n} fits, {n_starts} starts recorded per fit")
     print(f"  {'policy':<16} {'flagged':>14} {'starts/fit':>10} {'poorer optimum':>15}"
           f" {'differs from fixed 5':>21}")
-    rules = [("fixed 5", 5, 5), ("adaptive 2..20", 2, 20), ("adaptive 3..20", 3, 20),
-             ("adaptive 4..20", 4, 20), ("adaptive 5..20", 5, 20)]
+    rules = [("fixed 5", 5, 5, False), ("adaptive 2..20", 2, 20, False),
+             ("adaptive 3..20", 3, 20, False), ("adaptive 5..20", 5, 20, False),
+             ("fit_model 2..20", 2, 20, True)]
     old = [policy(r[3], 5, 5)[0] for r in records]
-    for name, least, most in rules:
+    for name, least, most, by_rates in rules:
         if most > n_starts:
             continue
-        res = [policy(r[3], least, most) for r in records]
+        res = [policy(r[3], least, most, r[4] if by_rates else 0) for r in records]
         flagged = sum(1 for r in res if r[2])
         starts = np.mean([r[1] for r in res])
         poorer = sum(1 for r, rec in zip(res, records)
@@ -105,10 +111,10 @@ def report(records: list, label: str, n_starts: int) -> None:
         row = by_model.setdefault(key, [0, 0, 0, 0])
         best = max(x if x is not None else -np.inf for x in rec[3])
         row[0] += 1
-        row[1] += policy(rec[3], 2, most_starts(n_starts))[2]
-        row[2] += best - policy(rec[3], 2, most_starts(n_starts))[0] > AGREE_TOL
+        row[1] += policy(rec[3], 2, most_starts(n_starts), rec[4])[2]
+        row[2] += best - policy(rec[3], 2, most_starts(n_starts), rec[4])[0] > AGREE_TOL
         row[3] += best - policy(rec[3], 5, 5)[0] > AGREE_TOL
-    print("  by analysis/model: fits, flagged (adaptive 2..20), poorer optimum (adaptive 2..20), "
+    print("  by analysis/model: fits, flagged (fit_model 2..20), poorer optimum (fit_model 2..20), "
           "poorer optimum (fixed 5)")
     for key, row in sorted(by_model.items()):
         if any(row[1:]):

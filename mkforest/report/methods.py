@@ -20,7 +20,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from ..engine.fitting import AGREE_TOL
+from ..engine.fitting import AGREE_TOL, RATE_STARTS
 from ..engine.pairs import HYPOTHESES
 from .citations import REFERENCES, cite, cited_in
 from .words import hypothesis_words, model_words
@@ -308,7 +308,8 @@ def _fitting_paragraph(config, software) -> str:
     most = max(fit.get("max_starts", starts), starts)
     scipy_version = software.get("scipy", "")
     if most > starts:
-        begun = (f"from at least {plural(starts, 'starting point')} per tree and model, tried in a "
+        begun = (f"from at least {plural(starts, 'starting point')} per tree and model (and at "
+                 f"least as many as the model has free rates, up to {RATE_STARTS}), tried in a "
                  "fixed seeded order, with further starts (at most "
                  f"{most} in all) while the two best disagreed by more than {AGREE_TOL:g} "
                  "log-likelihood units")

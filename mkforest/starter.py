@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import csv
 import json
-import math
 import re
 import textwrap
 from dataclasses import dataclass, field
@@ -226,7 +225,6 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
                          f"tip of the trees in '{trees_file}'; check the taxon column and the "
                          f"spelling of the names (a tip: '{ts.tips[0]}', a row: '{taxa[0]}').")
     n_used = ts.n_trees
-    per_job = min(250, max(50, math.ceil(n_used / 4)))  # 50: the schema's default
     L = []
 
     def w(line: str) -> None:
@@ -281,9 +279,9 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     w("  thin: 1")
     w("  # Draw this many trees (seeded) from those left; null keeps them all.")
     w("  sample: null")
-    w(f"  # Trees fitted by one job ({n_used} trees -> {math.ceil(n_used / per_job)} job(s) per "
-      "trait and model).")
-    w(f"  per_job: {per_job}")
+    w("  # Trees fitted by one job: auto chooses it from the trees, the fits per tree and the")
+    w("  # cores (or cluster jobs); a number is used as given.")
+    w("  per_job: auto")
     w("  # Branches shorter than this (in the trees' own units) are lengthened to it; 0 keeps")
     w("  # the trees as they are.")
     w("  min_branch_length: 0")
@@ -338,8 +336,10 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     w("criterion: aicc")
     w("")
     w("fitting:")
-    w("  # Optimiser starts per fit; a fit is converged when two starts agree.")
-    w("  starts: 5")
+    w("  # Optimiser starts per fit: at least `starts` (and one per free rate, up to 5), then")
+    w("  # more while the two best disagree, up to `max_starts`; converged = two agree.")
+    w("  starts: 2")
+    w("  max_starts: 20")
     w("  # Rate bounds, in expected changes along the tree's root-to-tip height.")
     w("  lower: 1.0e-6")
     w("  upper: 1.0e+4")

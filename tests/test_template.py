@@ -101,7 +101,7 @@ def test_drift_check_names_a_new_key_and_a_wrong_default():
     schema = yaml.safe_load(SCHEMA.read_text())
     schema["properties"]["models"]["additionalProperties"]["properties"]["made_up"] = {
         "type": "string", "default": "x"}
-    text = TEMPLATE.read_text().replace("  per_job: 50\n", "  per_job: 7\n")
+    text = TEMPLATE.read_text().replace("  per_job: auto\n", "  per_job: 7\n")
     missing, wrong = template_problems(schema, text)
     assert missing == ["models.<name>.made_up"]
-    assert wrong == ["'trees.per_job' is 7 in the template, but its default in the schema is 50"]
+    assert wrong == ["'trees.per_job' is 7 in the template, but its default in the schema is 'auto'"]

@@ -77,8 +77,9 @@ def fit_params(wildcards):
     return stable(fit_job_config(config, wildcards.analysis, wildcards.model))
 
 
-# Jobs that can run at once: cores on one machine, jobs in flight on a cluster.
-FIT_SLOTS = max(workflow._cores or 1, workflow.nodes or 1)
+# Fits that can run at once: cores on one machine; on a cluster, submissions in
+# flight (jobs) x fits side by side in each (cores, the node size).
+FIT_SLOTS = (workflow._cores or 1) * (workflow.nodes or 1)
 # Memory of one fit job (measured peak: README, "How the work divides at scale").
 FIT_MEM_MB = 1000
 

@@ -136,6 +136,8 @@ def main() -> int:
     args = ap.parse_args()
     if args.load:
         for label, records in json.loads(Path(args.load).read_text()).items():
+            records = [(a, m, t, [-np.inf if x is None else x for x in lls], p)
+                       for a, m, t, lls, p in records]
             report(records, label, len(records[0][3]))
         return 0
     saved = {}

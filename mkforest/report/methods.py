@@ -529,9 +529,12 @@ def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) ->
               for k, names in by_k.items()]
     tcfg = config["trees"]
     burn = tcfg["burnin"]
-    first = (f"first {burn * 100:g}%" if 0 < burn < 1 else "first tree" if int(burn) == 1
-             else f"first {int(burn)} trees")
-    how = f"{first} discarded as burn-in" if burn else "no burn-in"
+    dropped = _tree_counts(tables).get("dropped_as_burnin")     # counted, not the setting
+    if dropped is None:              # a run from before these counts were recorded
+        dropped = int(used["tree"].min()) if burn else 0
+    how = ("no burn-in" if not burn else "none discarded as burn-in" if dropped == 0 else
+           "first tree discarded as burn-in" if dropped == 1 else
+           f"first {dropped} trees discarded as burn-in")
     if tcfg["thin"] > 1:
         how += f", every {_ordinal(tcfg['thin'])} tree kept"
     if tcfg.get("sample") is not None:

@@ -58,6 +58,8 @@ def fake_chunk(n_trees=4):
     return dict(tree=np.arange(n_trees), prob=prob, extra=extra, counts=counts, dwell=dwell,
                 weights=np.ones((n_trees, 1)), unconverged_weight=np.array([0.0, 0.5, 0, 0])[:n_trees],
                 bound_weight=np.zeros(n_trees), skipped=np.zeros(n_trees, dtype=bool),
+                map_model=np.zeros((n_trees, 5), dtype=np.int16),
+                model_at_upper=np.zeros((n_trees, 1), dtype=bool),
                 states=["off", "on"], models=["m"], clades=["root", "rare", "mine"],
                 choice="average", choice_note="")
 

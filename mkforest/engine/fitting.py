@@ -53,7 +53,8 @@ class FitResult:
     n_starts: int
     n_agree: int               # starts within AGREE_TOL of the best
     at_lower: tuple            # labels of rates at the lower bound (effectively zero)
-    at_upper: tuple            # labels of rates at the upper bound (change too fast to estimate)
+    at_upper: tuple            # labels of rates at the upper bound, or moving with one there
+                               # (change too fast to estimate; only their ratios are)
     root: str
     q_matrix: np.ndarray = None
     notes: list = field(default_factory=list)
@@ -146,6 +147,33 @@ def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
     return x, ll
 
 
+def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
+    """(x, ll, tied): rates the data bound only in ratio, moved up with the bound.
+
+    When the data saturate (e.g. states that alternate between sisters), ln L
+    rises towards a limit as a set of rates grows together, and the optimiser
+    stops anywhere on that plateau (749, 8,707 or 150 times the tree height on
+    the same data): moving one rate alone changes their ratio and lowers ln L, so
+    ``_settle_at_bounds`` keeps them. For the m largest rates (m = 1..p, rates at
+    a bound left as they are), this shifts their log-rates together until the
+    largest reaches the upper bound; the largest m for which ln L does not drop
+    by more than ``tol`` is kept. Those rates are bound-limited: only their ratios
+    are estimated, and their values follow the bound (``tied``, their indices).
+    """
+    free = [i for i in np.argsort(-x) if lo < x[i] < hi]
+    best = None
+    for m in range(1, len(free) + 1):
+        chosen = free[:m]
+        trial = x.copy()
+        trial[chosen] += hi - x[chosen].max()
+        t_ll = f(np.exp(trial))
+        if t_ll >= ll - tol:
+            best = (trial, t_ll, tuple(chosen))
+    if best is None:
+        return x, ll, ()
+    return best
+
+
 def start_sequence(tree, tip_partials, model, seed: int = 0, lower: float = LOWER,
                    upper: float = UPPER):
     """(starts, (lo, hi)): an endless iterator of starting log-rates and the
@@ -227,12 +255,16 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
     converged = bool(np.isfinite(ll) and (n_agree >= 2 or max_starts == 1))
     if np.isfinite(ll) and n_agree < 2 and max_starts > 1:
         notes.append(f"only 1 of {run} starts reached the best log-likelihood")
+    tied = ()
     if np.isfinite(ll):
         best_x, ll = _settle_at_bounds(f, best_x, ll, lo, hi)
+        best_x, ll, tied = _settle_jointly_at_upper(f, best_x, ll, lo, hi)
     # hidden rate classes: number the classes slowest first (same ln L, same meaning on every tree)
-    best_x = best_x[relabel_classes(model, np.exp(best_x))]
+    order = relabel_classes(model, np.exp(best_x))
+    best_x = best_x[order]
+    tied = tuple(j for j in range(p) if order[j] in tied)
     at_lower = tuple(model.labels[i] for i in range(p) if best_x[i] == lo)
-    at_upper = tuple(model.labels[i] for i in range(p) if best_x[i] == hi)
+    at_upper = tuple(model.labels[i] for i in range(p) if best_x[i] == hi or i in tied)
     rates = np.exp(best_x)
     per_start = tuple(-r[0] if r[0] < _IMPOSSIBLE else -np.inf for r in results)
     return FitResult(model.name, ll, rates, model.labels, p, converged, run, n_agree,

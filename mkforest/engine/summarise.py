@@ -6,6 +6,23 @@ trees we report, per analysis x model: mean and median weight, the fraction of
 trees on which the model is best, and the median difference to the best model
 with its central 95% interval. Rates are averaged over models with the same
 weights on each tree (a forbidden transition counts as rate 0 in that model).
+
+Rates at the upper bound. A rate the optimiser leaves at the upper bound is one
+the data cannot bound: the likelihood keeps rising (or stays flat) as the rate
+grows, so the maximum-likelihood estimate is "at least the bound", not the
+bound. The number written in rates.tsv is the bound, an artefact of the
+optimiser's box. So, across trees, a rate's median and 95% interval are computed
+only over the trees where it was estimated (not at the upper bound), and the
+trees where it was at the upper bound are counted beside them (``n_at_upper``)
+with the smallest bound reached (``at_upper_min``: on those trees the rate is at
+least this). The same holds for the model-averaged rate of a tree: when the
+models whose rate is at the upper bound make up at least BOUND_SHARE of the
+averaged value, that value is set by the bound and is flagged. Reporting an
+estimate that runs to the optimiser's box as a one-sided limit ("at least the
+bound") rather than as a value is common practice (a fact of the trade; no
+single source). A rate at the lower bound is different: it is an estimate
+of (effectively) zero, a value the data do support, so it stays in the medians
+and is counted (``n_at_lower``).
 """
 
 from __future__ import annotations
@@ -16,6 +33,10 @@ import pandas as pd
 from .compare import akaike_weights
 
 FEW_TREES = 20   # below this, 95% intervals across trees are rough
+BOUND_SHARE = 0.01  # an averaged rate is bound-limited when bound-limited models make this share of it
+STATUS_WORDS = {"estimated": "estimated on every tree",
+                "partly_at_upper": "at the upper bound on some trees",
+                "all_at_upper": "at the upper bound on every tree: not estimable from these data"}
 
 
 def mark_duplicates(fits: pd.DataFrame, model_order=None) -> pd.DataFrame:
@@ -143,7 +164,12 @@ def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
     analysis together, and the models with R hidden rate classes (states
     ``state@class``) together, each group's Akaike weights renormalised to sum
     to one within the group (a combined-state rate has no counterpart in a plain
-    model, and classes are numbered slowest first in every model)."""
+    model, and classes are numbered slowest first in every model).
+
+    ``weight_at_upper`` is the (group) Akaike weight of the models whose rate for
+    this transition is at the upper bound on this tree; ``at_upper`` is True when
+    their part of the averaged rate is at least BOUND_SHARE of it (the averaged
+    value is then set by the bound, see the module docstring)."""
     w = fits[["analysis", "model", "tree", "weight"]].dropna()
     r = rates.merge(w, on=["analysis", "model", "tree"], how="inner")
     groups = {key: class_count(set(g["from_state"]) | set(g["to_state"]))
@@ -153,22 +179,62 @@ def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
     wg["classes"] = [groups.get((a, m), 1) for a, m in zip(wg["analysis"], wg["model"])]
     total = wg.groupby(["analysis", "tree", "classes"])["weight"].sum().rename("group_weight")
     r = r.merge(total.reset_index(), on=["analysis", "tree", "classes"], how="left")
-    r["weighted"] = r["rate"] * np.where(r["group_weight"] > 0, r["weight"] / r["group_weight"], 0.0)
-    out = (r.groupby(["analysis", "tree", "from_state", "to_state"], sort=False)["weighted"]
-           .sum().reset_index().rename(columns={"weighted": "rate"}))
+    r["group_w"] = np.where(r["group_weight"] > 0, r["weight"] / r["group_weight"], 0.0)
+    r["weighted"] = r["rate"] * r["group_w"]
+    upper = _upper_flags(r)
+    r["weighted_upper"] = r["weighted"].where(upper, 0.0)
+    r["weight_upper"] = r["group_w"].where(upper, 0.0)
+    out = (r.groupby(["analysis", "tree", "from_state", "to_state"], sort=False)
+           [["weighted", "weighted_upper", "weight_upper"]].sum().reset_index()
+           .rename(columns={"weighted": "rate", "weight_upper": "weight_at_upper"}))
+    out["at_upper"] = (out["weighted_upper"] > 0) & \
+        (out["weighted_upper"] >= BOUND_SHARE * out["rate"])
     out.insert(1, "model", "averaged")
-    return out
+    return out.drop(columns="weighted_upper")
+
+
+def _upper_flags(rates: pd.DataFrame) -> pd.Series:
+    """True where a rate row is at the upper bound (rates.tsv's ``at_bound`` column)."""
+    if "at_bound" in rates:
+        return rates["at_bound"].fillna("").astype(str).str.strip().eq("upper")
+    if "at_upper" in rates:
+        return rates["at_upper"].fillna(False).astype(str).str.lower().eq("true")
+    return pd.Series(False, index=rates.index)
+
+
+def _lower_flags(rates: pd.DataFrame) -> pd.Series:
+    if "at_bound" in rates:
+        return rates["at_bound"].fillna("").astype(str).str.strip().eq("lower")
+    return pd.Series(False, index=rates.index)
 
 
 def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
     """Median and 95% interval across trees per analysis x model x transition,
-    for every model and for the model average."""
-    both = pd.concat([rates[["analysis", "model", "tree", "from_state", "to_state", "rate"]],
-                      averaged], ignore_index=True)
+    for every model and for the model average, over the trees where the rate was
+    estimated; ``n_at_upper`` trees where it ran to the upper bound are left out
+    of the median and interval and counted, with ``at_upper_min`` the smallest
+    value it reached there (the rate is at least that). ``status`` says which:
+    estimated, partly_at_upper or all_at_upper."""
+    per_model = rates[["analysis", "model", "tree", "from_state", "to_state", "rate"]].copy()
+    per_model["upper"] = _upper_flags(rates).to_numpy()
+    per_model["lower"] = _lower_flags(rates).to_numpy()
+    avg = averaged[["analysis", "model", "tree", "from_state", "to_state", "rate"]].copy()
+    avg["upper"] = _upper_flags(averaged).to_numpy()
+    avg["lower"] = False
+    both = pd.concat([per_model, avg], ignore_index=True)
     rows = []
     for (a, m, f, t), g in both.groupby(["analysis", "model", "from_state", "to_state"], sort=False):
         x = g["rate"].to_numpy(float)
+        upper = g["upper"].to_numpy(bool)
+        est = x[~upper]
+        n_up = int(upper.sum())
+        status = "estimated" if n_up == 0 else ("all_at_upper" if est.size == 0
+                                                else "partly_at_upper")
         rows.append({"analysis": a, "model": m, "from_state": f, "to_state": t,
-                     "n_trees": len(x), "median_rate": float(np.median(x)),
-                     "rate_low95": _q(x, 0.025), "rate_high95": _q(x, 0.975)})
+                     "n_trees": len(x), "n_estimated": int(est.size), "n_at_upper": n_up,
+                     "n_at_lower": int(g["lower"].sum()),
+                     "median_rate": float(np.median(est)) if est.size else np.nan,
+                     "rate_low95": _q(est, 0.025), "rate_high95": _q(est, 0.975),
+                     "at_upper_min": float(x[upper].min()) if n_up else np.nan,
+                     "status": status})
     return pd.DataFrame(rows)

@@ -320,7 +320,10 @@ def _fitting_paragraph(config, software) -> str:
             "Each rate was bounded between "
             f"{fit['lower']:g} and {fit['upper']:g} expected changes along the tree's root-to-tip "
             "height, so the bounds scale with each tree; estimates at a bound are flagged in "
-            "tables/rates.tsv.")
+            "tables/rates.tsv. A rate at the upper bound is one the data cannot bound (the "
+            "likelihood does not fall as it grows): it is reported as at least the bound, never "
+            "as an estimate, and is left out of medians, intervals and averages, with the "
+            "number of trees where it occurred given beside them.")
     if most > 1:
         text += (f" A fit counted as converged when at least two starts reached the best "
                  f"log-likelihood within {AGREE_TOL:g} units.")
@@ -609,12 +612,30 @@ def _analysis_results(analysis, support, rate_summary, crit_name, n_used=None) -
     rates = rate_summary[(rate_summary["analysis"] == analysis)
                          & (rate_summary["model"] == best["model"])]
     if len(rates):
-        parts = [f"{r['from_state']}→{r['to_state']} {number(r['median_rate'])} "
-                 f"({number(r['rate_low95'])} to {number(r['rate_high95'])})"
-                 for r in rates.to_dict("records")]
+        parts = [rate_words(r) for r in rates.to_dict("records")]
         text += (f" Under {best['model']}, the median rates across trees (central 95% interval; "
                  f"changes per unit branch length) were: {'; '.join(parts)}.")
     return text
+
+
+def rate_words(r: dict) -> str:
+    """One transition of rate_summary.tsv in words. Trees where the rate ran to the
+    upper bound are left out of the median and interval and named beside them with
+    the smallest bound reached ("at the upper bound (≥ X)"): there the data give
+    only a lower limit, never a value (mkforest.engine.summarise)."""
+    head = f"{r['from_state']}→{r['to_state']}"
+    n_up = int(r.get("n_at_upper", 0) or 0)
+    n_est = int(r.get("n_estimated", r.get("n_trees", 0)) or 0)
+    if n_up == 0:
+        return f"{head} {number(r['median_rate'])} ({number(r['rate_low95'])} to " \
+               f"{number(r['rate_high95'])})"
+    limit = f"≥ {number(r['at_upper_min'])}"
+    if n_est == 0:
+        return (f"{head} at the upper bound on every tree ({limit}; not estimable from these "
+                "data)")
+    return (f"{head} {number(r['median_rate'])} ({number(r['rate_low95'])} to "
+            f"{number(r['rate_high95'])}) over the {plural(n_est, 'tree')} where it was "
+            f"estimated, at the upper bound on {n_up} ({limit})")
 
 
 def _cautions(rows: pd.DataFrame, key: str) -> list:
@@ -667,13 +688,21 @@ def _ancestral_results(analysis, tables) -> str:
     trans = tables.get("transitions")
     if trans is not None:
         rows = trans[trans["analysis"] == analysis]
+        n_out = int(rows["n_maps_at_upper"].max()) if "n_maps_at_upper" in rows and len(rows) \
+            else 0
+        left_out = (f"; {plural(n_out, 'map')} drawn under fits with a rate at the upper bound "
+                    "left out" if n_out else "")
         if len(rows) and int(rows["n_maps"].max()) > 0:
             parts = [f"{r['from_state']}→{r['to_state']} {number(r['mean_count'], 1)} "
                      f"({number(r['count_low95'], 1)} to {number(r['count_high95'], 1)})"
                      for r in rows.to_dict("records")]
             text.append(f"Expected numbers of changes along the whole tree (mean over "
-                        f"{int(rows['n_maps'].max())} maps on {plural(int(rows['n_trees'].max()), 'tree')}, "
-                        f"central 95% interval of the maps): {'; '.join(parts)}.")
+                        f"{int(rows['n_maps'].max())} maps on {plural(int(rows['n_trees'].max()), 'tree')}"
+                        f"{left_out}, central 95% interval of the maps): {'; '.join(parts)}.")
+        elif len(rows) and n_out:
+            text.append(f"No numbers of changes are given: all {n_out} stochastic maps were drawn "
+                        "under fits with a rate at the upper bound, whose change counts grow "
+                        "with the bound, not with the data.")
     return " ".join(text)
 
 

@@ -54,10 +54,12 @@ from memory): the bootstrap is the better guide there.
 from __future__ import annotations
 
 import itertools
+import math
 import re
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.optimize import brentq
 
 from ..data.config import check_classes
 from ..data.traits import Trait
@@ -458,6 +460,53 @@ def simulate_pair_partials(pair: TraitPair, tree, joint_states, masks) -> np.nda
     return (p1[:, :, None] & p2[:, None, :]).reshape(tree.n_tips, -1).astype(np.float64)
 
 
+SIMULATION_LIMIT = 1.92   # half the chi-square 95% point on 1 df: a one-rate 95% interval's edge
+
+
+def simulation_rates(tree, tip_partials, null: RateModel, rates, root="uniform",
+                     lower: float = LOWER, upper: float = UPPER) -> tuple:
+    """(rates to simulate the bootstrap data from, labels of the rates moved).
+
+    A null rate fitted at, or indistinguishable from, the lower bound (ln L with
+    that rate at the lower bound is within SIMULATION_LIMIT of the maximum, the
+    other rates held at their estimates) is moved up to the edge of its 95%
+    interval: the largest value whose ln L is SIMULATION_LIMIT below the maximum.
+
+    Why: a parametric bootstrap from a nuisance estimate on the boundary of the
+    parameter space is not consistent (Andrews 2000, Econometrica 68:399, from
+    memory): simulated from a rate of zero, the data never make that change,
+    their statistics run small and the test rejects too often (measured 21.7% at
+    alpha = 0.05 on such trees, benchmarks/pair_calibration.py). Taking the
+    nuisance rate at the least favourable value the data still allow follows the
+    confidence-set p-value of Berger & Boos (1994, J. Am. Stat. Assoc. 89:1012,
+    from memory), which maximises the p-value over a confidence set for the
+    nuisance parameters; here one point of that set, the one that matters, is
+    used instead of the maximum over the whole set. Rates estimated clearly above
+    the bound are left at their estimates.
+    """
+    from .fitting import LogLikelihood
+    rates = np.asarray(rates, dtype=float).copy()
+    height = tree.height if tree.height > 0 else 1.0
+    lo, hi = math.log(lower / height), math.log(upper / height)
+    f = LogLikelihood(tree, tip_partials, null, root)
+    best = f(rates)
+    if not np.isfinite(best):
+        return rates, ()
+    target = best - SIMULATION_LIMIT
+    out, moved = rates.copy(), []
+    for i, label in enumerate(null.labels):
+        def ll_at(log_rate, i=i):
+            trial = rates.copy()
+            trial[i] = math.exp(log_rate)
+            return f(trial) - target
+        start = max(math.log(rates[i]), lo)
+        if ll_at(lo) < 0 or ll_at(hi) >= 0:
+            continue        # clearly above the bound, or not bounded by the data at all
+        out[i] = math.exp(brentq(ll_at, start, hi, xtol=1e-6))
+        moved.append(label)
+    return out, tuple(moved)
+
+
 def lr_statistic(tree, tip_partials, null: RateModel, alt: RateModel, root="uniform",
                  n_starts: int = 5, seed: int = 0, lower: float = LOWER,
                  upper: float = UPPER, max_starts: int = MAX_STARTS) -> tuple:
@@ -477,8 +526,11 @@ def lr_statistic(tree, tip_partials, null: RateModel, alt: RateModel, root="unif
 def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel, null_rates,
                          root="uniform", replicates=range(0), seed: int = 0, n_starts: int = 5,
                          lower: float = LOWER, upper: float = UPPER,
-                         max_starts: int = MAX_STARTS) -> np.ndarray:
-    """LR statistics of data sets simulated under the fitted null (Goldman 1993).
+                         max_starts: int = MAX_STARTS,
+                         from_interval_edge: bool = True) -> np.ndarray:
+    """LR statistics of data sets simulated under the fitted null (Goldman 1993), with
+    rates at or near the lower bound moved to the edge of their 95% interval
+    (``simulation_rates``).
 
     Each simulated data set is refitted exactly as the observed one is (fit_model,
     ``n_starts`` starts, the same bounds), so simulated and observed statistics
@@ -488,6 +540,8 @@ def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel,
     other replicates are run, in which order or in which job.
     """
     tip_partials = null.expand_tips(pair.joint_trait().tip_partials(tree, absent="missing"))
+    if from_interval_edge:      # False: simulate at the estimates (the first release's way)
+        null_rates, _ = simulation_rates(tree, tip_partials, null, null_rates, root, lower, upper)
     q = null.q_matrix(null_rates)
     root_state, weights = _simulation_root(null, q, root, tree, tip_partials)
     masks = pair.missing_masks(tree)

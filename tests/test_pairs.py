@@ -38,7 +38,7 @@ from scipy.stats import binom, chi2
 from mkforest.data.traits import trait_from_mapping
 from mkforest.data.trees import parse_newick
 from mkforest.engine import pairs
-from mkforest.engine.fitting import fit_model
+from mkforest.engine.fitting import LogLikelihood, fit_model
 from mkforest.engine.likelihood import log_likelihood
 from mkforest.engine.models import build_model
 from mkforest.engine.simulate import simulate_states
@@ -483,6 +483,39 @@ def test_bootstrap_is_deterministic_whatever_the_order():
     other = pairs.bootstrap_statistics(pair, tree, ind, dep, null_rates, replicates=range(6),
                                        root="data_weighted", seed=43, n_starts=2)
     assert not np.array_equal(other, whole)
+
+
+def test_bootstrap_simulates_boundary_rates_from_their_interval_edge():
+    """A null rate fitted at the lower bound is simulated from the edge of its 95% interval:
+    the value where ln L, the other rates held, is chi2(0.95, 1 df) / 2 below the maximum
+    (scipy.stats.chi2, general-purpose library). A rate estimated well inside is kept."""
+    rng = np.random.default_rng(5)
+    tree = parse_newick(yule_newick(rng, 40, height=1.0))
+    # the first trait never changes back to 'absent' in these data: a clade of 'present'
+    limb = trait_from_mapping("limb", {t: ("absent", "present")[i >= 30]
+                                       for i, t in enumerate(tree.tip_labels)})
+    visitor = trait_from_mapping("visitor", {t: ("bee", "moth")[int(rng.integers(2))]
+                                             for t in tree.tip_labels})
+    pair = pairs.make_pair("lv", limb, visitor)
+    ind = pairs.hypothesis_model(pair, "independent")
+    X = pair.joint_trait().tip_partials(tree)
+    fit = fit_model(tree, X, ind, n_starts=3, seed=2)
+    new, moved = pairs.simulation_rates(tree, X, ind, fit.rates)
+    assert set(fit.at_lower) <= set(moved) and fit.at_lower
+    f = LogLikelihood(tree, X, ind)
+    drop = chi2.ppf(0.95, 1) / 2
+    for i, label in enumerate(ind.labels):
+        if label in moved:
+            trial = fit.rates.copy()
+            trial[i] = new[i]
+            assert new[i] > fit.rates[i]
+            assert f(trial) == pytest.approx(fit.log_likelihood - drop, abs=1e-4)
+        else:
+            assert new[i] == fit.rates[i]
+            trial = fit.rates.copy()
+            trial[i] = 1e-6 / tree.height     # at the lower bound: clearly worse
+            assert f(trial) < fit.log_likelihood - drop
+    assert len(moved) < len(ind.labels)
 
 
 # --------------------------------------------------------------------------- configuration

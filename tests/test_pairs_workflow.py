@@ -90,7 +90,9 @@ def test_tests_recomputed_from_the_fits(pair_run):
         flagged = isinstance(at_lower, str) and at_lower != ""
         assert row["null_rate_at_lower_bound"] == flagged
         if flagged and row["n_bootstrap"] > 0:
-            assert "bootstrap p-value runs too small" in row["note"]
+            # a rate at the lower bound is always simulated from its interval edge
+            assert set(at_lower.split(",")) <= set(row["bootstrap_rates_moved"].split(","))
+            assert "at the edge of its 95% interval" in row["note"]
     boundary = tests.groupby(["null", "alternative"])["boundary"].first().to_dict()
     assert boundary == {("independent", "dependent"): False, ("round_first", "dependent"): True}
     assert tests.loc[tests["boundary"], "note"].str.contains("approximate").all()
@@ -221,8 +223,9 @@ def test_test_rows_and_summary_from_hand_made_tables():
              converged=True, at_lower="", weight=0.05),
     ])
     boot = pd.DataFrame([dict(pair="shell", null="independent", alternative="dependent", tree=t,
-                              replicate=r, statistic=s)
-                         for t, sims in ((0, [1.0, 13.0, 2.0, 12.0]), (1, [0.5, 0.1, 3.0, 0.0]))
+                              replicate=r, statistic=s, null_rates_moved=moved)
+                         for t, sims, moved in ((0, [1.0, 13.0, 2.0, 12.0], ""),
+                                                (1, [0.5, 0.1, 3.0, 0.0], "banding: plain->banded"))
                          for r, s in enumerate(sims)])
     test = Nesting("independent", "dependent", 4, False)
     rows = {r["tree"]: r for r in pair_test_rows("shell", [test], fits, boot, 0.05)}
@@ -233,7 +236,9 @@ def test_test_rows_and_summary_from_hand_made_tables():
     assert rows[1]["statistic"] == pytest.approx(2.0)
     assert rows[1]["p_bootstrap"] == pytest.approx((1 + 1) / 5)
     assert rows[1]["null_rate_at_lower_bound"]
-    assert "banding: plain->banded at the lower bound" in rows[1]["note"]
+    assert rows[1]["bootstrap_rates_moved"] == "banding: plain->banded"
+    assert ("simulated banding: plain->banded at the edge of its 95% interval" in rows[1]["note"]
+            and "banding: plain->banded at it" in rows[1]["note"])
     assert "fit of dependent not converged" in rows[1]["note"]
     assert rows[2]["statistic"] == 0.0 and "missed the maximum" in rows[2]["note"]
     assert np.isnan(rows[2]["p_bootstrap"]) and rows[2]["n_bootstrap"] == 0

@@ -193,7 +193,7 @@ def test_methods_cite_what_ran_and_only_that(run):
         assert r.cite() in text and r.full() in refs
     # this run has no pairs, no ancestral stage, a uniform root and AICc: none of these appear
     for key in ("pagel1994", "goldman1993", "yang1995", "nielsen2002", "huelsenbeck2003",
-                "fitzjohn2009", "schwarz1978"):
+                "fitzjohn2009", "schwarz1978", "andrews2000", "berger1994"):
         assert REFERENCES[key].cite() not in text
     assert "Ancestral states" not in text and "Trait pairs" not in text
     # few trees: the text says so (summarise.FEW_TREES is 20; this run has 5)
@@ -333,7 +333,7 @@ def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_facto
     assert proc.returncode == 0, proc.stderr[-4000:]
     text = (out_dir(work) / "methods.md").read_text()
     for key in ("pagel1994", "goldman1993", "yang1995", "nielsen2002", "huelsenbeck2003",
-                "margush1981"):
+                "margush1981", "andrews2000", "berger1994"):
         assert REFERENCES[key].cite() in text and REFERENCES[key].full() in text
     assert "9 data sets simulated under the fitted null hypothesis on each of 2 trees" in text
     assert "**Trait pairs.**" in text and "**Ancestral states.**" in text

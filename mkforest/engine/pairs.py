@@ -60,6 +60,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import brentq
+from scipy.stats import chi2
 
 from ..data.config import check_classes
 from ..data.traits import Trait
@@ -460,7 +461,8 @@ def simulate_pair_partials(pair: TraitPair, tree, joint_states, masks) -> np.nda
     return (p1[:, :, None] & p2[:, None, :]).reshape(tree.n_tips, -1).astype(np.float64)
 
 
-SIMULATION_LIMIT = 1.92   # half the chi-square 95% point on 1 df: a one-rate 95% interval's edge
+# half the chi-square 95% point on 1 df (1.92): where a one-rate 95% likelihood interval ends
+SIMULATION_LIMIT = float(chi2.isf(0.05, 1)) / 2
 
 
 def simulation_rates(tree, tip_partials, null: RateModel, rates, root="uniform",

@@ -101,6 +101,12 @@ _ALL = [
               "Asymptotic properties of maximum likelihood estimators and likelihood ratio tests "
               "under nonstandard conditions", "Journal of the American Statistical Association",
               82, (605, 610)),
+    Reference("andrews2000", (("Andrews", "D. W. K."),), 2000,
+              "Inconsistency of the bootstrap when a parameter is on the boundary of the "
+              "parameter space", "Econometrica", 68, (399, 405)),
+    Reference("berger1994", (("Berger", "R. L."), ("Boos", "D. D.")), 1994,
+              "P values maximized over a confidence set for the nuisance parameter",
+              "Journal of the American Statistical Association", 89, (1012, 1016)),
     Reference("yang1995", (("Yang", "Z."), ("Kumar", "S."), ("Nei", "M.")), 1995,
               "A new method of inference of ancestral nucleotide and amino acid sequences",
               "Genetics", 141, (1641, 1650)),

@@ -374,6 +374,13 @@ def _pairs_paragraph(config, pair_summary) -> str:
                  f"{spec['bootstrap']} data sets simulated under the fitted null hypothesis on each "
                  f"of {plural(n_boot, 'tree')} spread evenly through the sample (parametric "
                  f"bootstrap; {REFERENCES['goldman1993'].cite()}).")
+    if boot:
+        text += (" A null rate estimated at or near zero (its likelihood at the lower bound within "
+                 "1.92 log-units of the maximum) was simulated at the upper edge of its 95% "
+                 "interval rather than at its estimate, since a bootstrap from an estimate on the "
+                 f"boundary rejects too often {cite('andrews2000', 'berger1994')}; p-values are "
+                 "(1 + the number of simulated statistics at least as large as the observed one) "
+                 "/ (1 + the number of data sets).")
     alphas = sorted({spec.get("alpha", 0.05) for spec in pairs.values()})
     text += f" Tests used a significance level of {listing(f'{a:g}' for a in alphas)}."
     return text

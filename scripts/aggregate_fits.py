@@ -27,8 +27,9 @@ def main(smk):
     log = logging.getLogger("mkforest")
     fits = _read(smk.input.fits)
     rates = _read(smk.input.rates)
-    for col in ("at_lower", "at_upper", "note"):
-        fits[col] = fits[col].astype(object).fillna("")
+    for col in ("at_lower", "at_upper", "open_upper", "note"):
+        if col in fits:
+            fits[col] = fits[col].astype(object).fillna("")
     rates["at_bound"] = rates["at_bound"].astype(object).fillna("")
     order = {a: i for i, a in enumerate(smk.params.analyses)}
     fits = fits.sort_values(["analysis", "model", "tree"],

@@ -16,6 +16,7 @@ import math
 import numpy as np
 import pandas as pd
 from conftest import yule_newick
+from scipy.stats import chi2
 
 from mkforest.data.traits import trait_from_mapping
 from mkforest.data.trees import parse_newick
@@ -52,11 +53,11 @@ def test_alternating_states_drive_the_equal_rate_to_the_upper_bound():
         pd.DataFrame(fits).assign(weight=1.0), rates)).set_index(["model", "from_state", "to_state"])
     row = summary.loc[("one_rate", "small", "medium")]
     # the bound is not an estimate: no median, no interval; the limit is given instead
-    assert row["status"] == "all_at_upper" and row["n_at_upper"] == 1 and row["n_estimated"] == 0
+    assert row["status"] == "unbounded" and row["n_at_upper"] == 1 and row["n_estimated"] == 0
     assert np.isnan(row["median_rate"]) and np.isnan(row["rate_low95"])
     assert row["at_upper_min"] == rates["rate"].min()
     avg = summary.loc[("averaged", "small", "medium")]
-    assert avg["status"] == "all_at_upper" and np.isnan(avg["median_rate"])
+    assert avg["status"] == "unbounded" and np.isnan(avg["median_rate"])
 
 
 def test_rates_that_only_have_a_ratio_are_flagged_with_the_bound():
@@ -85,6 +86,33 @@ def test_rates_that_only_have_a_ratio_are_flagged_with_the_bound():
     assert fits[0]["at_upper"] == "" and all(r["at_bound"] != "upper" for r in rates)
 
 
+def test_estimates_whose_interval_reaches_the_bound_are_not_reported_as_bounded():
+    """Three states assigned in turn along the tips: the unconstrained model finds an
+    interior maximum, but with its rates scaled up together to the bound ln L falls by
+    less than chi2(0.95, 1 df) / 2 (scipy.stats.chi2, general-purpose library): their 95%
+    likelihood interval reaches the bound, so they are listed in open_upper."""
+    tree, trait = alternating_case(seed=0)
+    model = build_model("unconstrained", trait.states, None, "free")
+    fits, rates = fit_chunk([tree], trait, model, "uniform", "size", seed=3, starts=3)
+    (fit,) = fits
+    assert fit["at_upper"] == "" and fit["open_upper"] != ""
+    from mkforest.engine.fitting import LogLikelihood
+    f = LogLikelihood(tree, trait.tip_partials(tree), model)
+    r = pd.DataFrame(rates)
+    opened = set(fit["open_upper"].split(","))
+    assert set(r.loc[r["at_bound"] == "open", "parameter"]) == opened
+    x = np.array([r.loc[r["parameter"] == lab, "rate"].iloc[0] for lab in model.labels])
+    moved = np.array([lab in opened for lab in model.labels])
+    scaled = x.copy()
+    scaled[moved] *= (UPPER / tree.height) / x[moved].max()
+    assert f(scaled) > fit["log_likelihood"] - chi2.isf(0.05, 1) / 2
+    assert fit["log_likelihood"] >= f(scaled) - 1e-9       # the estimate is interior
+    summary = rate_summary(r, averaged_rates(pd.DataFrame(fits).assign(weight=1.0), r))
+    row = summary[(summary["model"] == "free") & summary.apply(
+        lambda q: f"{q['from_state']}->{q['to_state']}" in opened, axis=1)].iloc[0]
+    assert row["status"] == "unbounded" and row["n_at_upper"] == 0 and np.isnan(row["median_rate"])
+
+
 def _rates(values, bounds, model="free", a="x", b="y"):
     return pd.DataFrame({"analysis": "t", "model": model, "tree": range(len(values)),
                          "from_state": a, "to_state": b, "rate": values, "parameter": "q",
@@ -92,14 +120,15 @@ def _rates(values, bounds, model="free", a="x", b="y"):
 
 
 def test_rate_summary_keeps_bound_limited_trees_out_of_the_interval():
-    values = [0.5, 0.7, 0.9, 1.1, 0.000001, 9000.0, 8000.0]
-    bounds = ["", "", "", "", "lower", "upper", "upper"]
+    values = [0.5, 0.7, 0.9, 1.1, 0.000001, 9000.0, 8000.0, 600.0]
+    bounds = ["", "", "", "", "lower", "upper", "upper", "open"]
     rates = _rates(values, bounds)
     row = rate_summary(rates, averaged_rates(pd.DataFrame(columns=["analysis", "model", "tree",
                                                                    "weight"]), rates)).iloc[0]
     estimated = np.array(values[:5])
-    assert row["n_trees"] == 7 and row["n_estimated"] == 5 and row["n_at_upper"] == 2
-    assert row["n_at_lower"] == 1 and row["status"] == "partly_at_upper"
+    assert row["n_trees"] == 8 and row["n_estimated"] == 5 and row["n_unbounded"] == 3
+    assert row["n_at_upper"] == 2
+    assert row["n_at_lower"] == 1 and row["status"] == "partly_unbounded"
     assert row["median_rate"] == np.median(estimated) == 0.7
     assert row["rate_high95"] == np.quantile(estimated, 0.975) < 1.2
     assert row["at_upper_min"] == 8000.0
@@ -120,11 +149,11 @@ def test_averaged_rate_is_flagged_when_the_bound_shapes_it():
     np.testing.assert_allclose(avg["rate"], [0.2 * 9000 + 0.8 * 0.4,
                                              1e-12 * 9000 + (1 - 1e-12) * 0.4,
                                              1e-4 * 9000 + (1 - 1e-4) * 0.4])
-    np.testing.assert_allclose(avg["weight_at_upper"], [0.2, 1e-12, 1e-4])
-    assert avg["at_upper"].tolist() == [True, False, True]
+    np.testing.assert_allclose(avg["weight_unbounded"], [0.2, 1e-12, 1e-4])
+    assert avg["unbounded"].tolist() == [True, False, True]
     assert 1e-12 * 9000 < BOUND_SHARE * avg.loc[1, "rate"]
     row = rate_summary(rates, averaged_rates(fits, rates)).set_index("model").loc["averaged"]
-    assert row["n_estimated"] == 1 and row["n_at_upper"] == 2
+    assert row["n_estimated"] == 1 and row["n_unbounded"] == 2
     assert row["median_rate"] == avg.loc[1, "rate"]
 
 
@@ -161,13 +190,16 @@ def test_maps_under_a_bound_limited_fit_are_left_out_and_counted():
 
 
 def test_methods_words_never_give_the_bound_as_a_rate():
-    est = dict(from_state="a", to_state="b", n_trees=5, n_estimated=5, n_at_upper=0,
-               median_rate=0.5, rate_low95=0.25, rate_high95=0.75, at_upper_min=np.nan)
+    est = dict(from_state="a", to_state="b", n_trees=5, n_estimated=5, n_unbounded=0,
+               n_at_upper=0, median_rate=0.5, rate_low95=0.25, rate_high95=0.75,
+               at_upper_min=np.nan)
     assert rate_words(est) == "a→b 0.50 (0.25 to 0.75)"
-    part = {**est, "n_estimated": 3, "n_at_upper": 2, "at_upper_min": 8256.0}
-    assert rate_words(part) == ("a→b 0.50 (0.25 to 0.75) over the 3 trees where it was "
-                                "estimated, at the upper bound on 2 (≥ 8256.00)")
-    every = {**est, "n_estimated": 0, "n_at_upper": 5, "median_rate": np.nan,
+    part = {**est, "n_estimated": 2, "n_unbounded": 3, "n_at_upper": 2, "at_upper_min": 8256.0}
+    assert rate_words(part) == ("a→b 0.50 (0.25 to 0.75) over the 2 trees where the data bound "
+                                "it; not bounded above on 3, at the upper bound (≥ 8256.00) on 2")
+    every = {**est, "n_estimated": 0, "n_unbounded": 5, "n_at_upper": 5, "median_rate": np.nan,
              "rate_low95": np.nan, "rate_high95": np.nan, "at_upper_min": 8256.0}
-    assert rate_words(every) == ("a→b at the upper bound on every tree (≥ 8256.00; not "
-                                 "estimable from these data)")
+    assert rate_words(every) == ("a→b not bounded above by the data on any tree, at the upper "
+                                 "bound (≥ 8256.00) on 5; not estimable from these data")
+    open_only = {**every, "n_at_upper": 0, "at_upper_min": np.nan}
+    assert "≥" not in rate_words(open_only) and "not estimable" in rate_words(open_only)

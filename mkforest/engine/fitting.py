@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 import numba
 import numpy as np
 from scipy.optimize import minimize
+from scipy.stats import chi2
 
 from .gradient import log_likelihood_and_gradient
 from .hidden import relabel_classes, spread_classes
@@ -59,6 +60,13 @@ class FitResult:
     q_matrix: np.ndarray = None
     notes: list = field(default_factory=list)
     start_log_likelihoods: tuple = ()  # the best ln L each start reached, in start order
+    open_upper: tuple = ()     # labels of rates inside the bounds whose 95% likelihood interval
+                               # reaches the upper bound: the data do not bound them from above
+
+    @property
+    def unbounded(self) -> tuple:
+        """Labels of rates the data do not bound from above (at_upper, then open_upper)."""
+        return self.at_upper + tuple(x for x in self.open_upper if x not in self.at_upper)
 
     def rate_of(self, label: str) -> float:
         return float(self.rates[self.labels.index(label)])
@@ -147,31 +155,43 @@ def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
     return x, ll
 
 
+# ln L drop that still lies inside a one-rate 95% likelihood interval: chi2(0.95, 1 df) / 2
+OPEN_DROP = float(chi2.isf(0.05, 1)) / 2
+
+
 def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
-    """(x, ll, tied): rates the data bound only in ratio, moved up with the bound.
+    """(x, ll, tied, open): rates the data bound only in ratio, moved up with the
+    bound, and rates whose 95% likelihood interval reaches the upper bound.
 
     When the data saturate (e.g. states that alternate between sisters), ln L
     rises towards a limit as a set of rates grows together, and the optimiser
     stops anywhere on that plateau (749, 8,707 or 150 times the tree height on
     the same data): moving one rate alone changes their ratio and lowers ln L, so
-    ``_settle_at_bounds`` keeps them. For the m largest rates (m = 1..p, rates at
-    a bound left as they are), this shifts their log-rates together until the
-    largest reaches the upper bound; the largest m for which ln L does not drop
-    by more than ``tol`` is kept. Those rates are bound-limited: only their ratios
-    are estimated, and their values follow the bound (``tied``, their indices).
+    ``_settle_at_bounds`` keeps them. Candidate sets are each rate alone and the
+    m largest rates together (m = 1..p; rates at a bound left as they are); a set
+    is shifted on the log scale until its largest rate reaches the upper bound.
+    ``tied``: the largest set whose shift lowers ln L by at most ``tol`` (moved:
+    only their ratios are estimated). ``open``: every rate of a set whose shift
+    lowers ln L by less than OPEN_DROP, i.e. the rates' 95% likelihood interval
+    (others held, or moved with them) reaches the bound: an estimate exists but
+    the data do not bound it from above. Holding the other rates makes this a
+    conservative check of the profile interval (the profile can only be higher).
     """
     free = [i for i in np.argsort(-x) if lo < x[i] < hi]
-    best = None
-    for m in range(1, len(free) + 1):
-        chosen = free[:m]
+    sets = [tuple(free[:m]) for m in range(1, len(free) + 1)] + [(i,) for i in free[1:]]
+    best, open_ = None, set()
+    for chosen in sets:
+        idx = list(chosen)
         trial = x.copy()
-        trial[chosen] += hi - x[chosen].max()
+        trial[idx] += hi - x[idx].max()
         t_ll = f(np.exp(trial))
-        if t_ll >= ll - tol:
-            best = (trial, t_ll, tuple(chosen))
+        if t_ll >= ll - OPEN_DROP:
+            open_.update(chosen)
+        if t_ll >= ll - tol and len(chosen) >= len(best[2] if best else ()):
+            best = (trial, t_ll, chosen)
     if best is None:
-        return x, ll, ()
-    return best
+        return x, ll, (), tuple(sorted(open_))
+    return best[0], best[1], best[2], tuple(sorted(open_ - set(best[2])))
 
 
 def start_sequence(tree, tip_partials, model, seed: int = 0, lower: float = LOWER,
@@ -255,20 +275,23 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
     converged = bool(np.isfinite(ll) and (n_agree >= 2 or max_starts == 1))
     if np.isfinite(ll) and n_agree < 2 and max_starts > 1:
         notes.append(f"only 1 of {run} starts reached the best log-likelihood")
-    tied = ()
+    tied = open_ = ()
     if np.isfinite(ll):
         best_x, ll = _settle_at_bounds(f, best_x, ll, lo, hi)
-        best_x, ll, tied = _settle_jointly_at_upper(f, best_x, ll, lo, hi)
+        best_x, ll, tied, open_ = _settle_jointly_at_upper(f, best_x, ll, lo, hi)
     # hidden rate classes: number the classes slowest first (same ln L, same meaning on every tree)
     order = relabel_classes(model, np.exp(best_x))
     best_x = best_x[order]
     tied = tuple(j for j in range(p) if order[j] in tied)
+    open_ = tuple(j for j in range(p) if order[j] in open_)
     at_lower = tuple(model.labels[i] for i in range(p) if best_x[i] == lo)
     at_upper = tuple(model.labels[i] for i in range(p) if best_x[i] == hi or i in tied)
+    open_upper = tuple(model.labels[i] for i in open_ if model.labels[i] not in at_upper)
     rates = np.exp(best_x)
     per_start = tuple(-r[0] if r[0] < _IMPOSSIBLE else -np.inf for r in results)
     return FitResult(model.name, ll, rates, model.labels, p, converged, run, n_agree,
-                     at_lower, at_upper, root, model.q_matrix(rates), notes, per_start)
+                     at_lower, at_upper, root, model.q_matrix(rates), notes, per_start,
+                     open_upper)
 
 
 def min_starts(n_params: int, n_starts: int = MIN_STARTS, max_starts: int = MAX_STARTS) -> int:

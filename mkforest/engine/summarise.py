@@ -7,17 +7,20 @@ trees on which the model is best, and the median difference to the best model
 with its central 95% interval. Rates are averaged over models with the same
 weights on each tree (a forbidden transition counts as rate 0 in that model).
 
-Rates at the upper bound. A rate the optimiser leaves at the upper bound is one
-the data cannot bound: the likelihood keeps rising (or stays flat) as the rate
-grows, so the maximum-likelihood estimate is "at least the bound", not the
-bound. The number written in rates.tsv is the bound, an artefact of the
-optimiser's box. So, across trees, a rate's median and 95% interval are computed
-only over the trees where it was estimated (not at the upper bound), and the
-trees where it was at the upper bound are counted beside them (``n_at_upper``)
-with the smallest bound reached (``at_upper_min``: on those trees the rate is at
-least this). The same holds for the model-averaged rate of a tree: when the
-models whose rate is at the upper bound make up at least BOUND_SHARE of the
-averaged value, that value is set by the bound and is flagged. Reporting an
+Rates the data do not bound from above. A rate the optimiser leaves at the
+upper bound (rates.tsv ``at_bound`` = upper) is one the data cannot bound: the
+likelihood keeps rising (or stays flat) as the rate grows, so the
+maximum-likelihood estimate is "at least the bound", not the bound, and the
+number written is an artefact of the optimiser's box. A rate estimated inside
+the bounds whose 95% likelihood interval reaches the upper bound (``open``) has
+a value but no upper limit: the data are as happy with a rate 10 or 100 times
+larger. So, across trees, a rate's median and 95% interval are computed only
+over the trees where the data bound it (``n_estimated``), and the others are
+counted beside them (``n_unbounded``, of which ``n_at_upper`` at the bound
+itself), with the smallest bound reached (``at_upper_min``: on those trees the
+rate is at least this). The same
+holds for the model-averaged rate of a tree: when the models whose rate is
+unbounded make up at least BOUND_SHARE of the averaged value, it is flagged. Reporting an
 estimate that runs to the optimiser's box as a one-sided limit ("at least the
 bound") rather than as a value is common practice (a fact of the trade; no
 single source). A rate at the lower bound is different: it is an estimate
@@ -34,9 +37,6 @@ from .compare import akaike_weights
 
 FEW_TREES = 20   # below this, 95% intervals across trees are rough
 BOUND_SHARE = 0.01  # an averaged rate is bound-limited when bound-limited models make this share of it
-STATUS_WORDS = {"estimated": "estimated on every tree",
-                "partly_at_upper": "at the upper bound on some trees",
-                "all_at_upper": "at the upper bound on every tree: not estimable from these data"}
 
 
 def mark_duplicates(fits: pd.DataFrame, model_order=None) -> pd.DataFrame:
@@ -109,6 +109,9 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
             "n_not_converged": int((~g["converged"].astype(bool) & tried & ~impossible).sum()),
             "n_rates_at_bound": int(at_bound),
             "n_rates_at_upper": int((g["at_upper"].fillna("") != "").sum()),
+            "n_rates_open_upper": int(((g["open_upper"].fillna("") != "")
+                                       & (g["at_upper"].fillna("") == "")).sum())
+            if "open_upper" in g else 0,
             "same_as": g["same_as"].iloc[0] if "same_as" in g else "",
         })
     out = pd.DataFrame(rows)
@@ -136,6 +139,9 @@ def cautions(row: dict) -> str:
     if row.get("n_rates_at_upper"):
         words.append(f"{row['n_rates_at_upper']} of {total} fits have a rate at the upper "
                      "bound: that rate cannot be estimated from these data")
+    if row.get("n_rates_open_upper"):
+        words.append(f"{row['n_rates_open_upper']} of {row['n_trees']} fits have a rate whose 95% "
+                     "interval reaches the upper bound: the data do not bound it from above")
     lower_only = row["n_rates_at_bound"] - row.get("n_rates_at_upper", 0)
     if lower_only > 0:
         words.append(f"{lower_only} of {total} fits put a rate at the lower bound "
@@ -166,10 +172,11 @@ def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
     to one within the group (a combined-state rate has no counterpart in a plain
     model, and classes are numbered slowest first in every model).
 
-    ``weight_at_upper`` is the (group) Akaike weight of the models whose rate for
-    this transition is at the upper bound on this tree; ``at_upper`` is True when
-    their part of the averaged rate is at least BOUND_SHARE of it (the averaged
-    value is then set by the bound, see the module docstring)."""
+    ``weight_unbounded`` is the (group) Akaike weight of the models whose rate for
+    this transition the data do not bound from above on this tree (at the upper
+    bound or with a 95% interval reaching it); ``unbounded`` is True when their
+    part of the averaged rate is at least BOUND_SHARE of it (the averaged value
+    then rests on rates the data cannot bound, see the module docstring)."""
     w = fits[["analysis", "model", "tree", "weight"]].dropna()
     r = rates.merge(w, on=["analysis", "model", "tree"], how="inner")
     groups = {key: class_count(set(g["from_state"]) | set(g["to_state"]))
@@ -186,19 +193,20 @@ def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
     r["weight_upper"] = r["group_w"].where(upper, 0.0)
     out = (r.groupby(["analysis", "tree", "from_state", "to_state"], sort=False)
            [["weighted", "weighted_upper", "weight_upper"]].sum().reset_index()
-           .rename(columns={"weighted": "rate", "weight_upper": "weight_at_upper"}))
-    out["at_upper"] = (out["weighted_upper"] > 0) & \
+           .rename(columns={"weighted": "rate", "weight_upper": "weight_unbounded"}))
+    out["unbounded"] = (out["weighted_upper"] > 0) & \
         (out["weighted_upper"] >= BOUND_SHARE * out["rate"])
     out.insert(1, "model", "averaged")
     return out.drop(columns="weighted_upper")
 
 
 def _upper_flags(rates: pd.DataFrame) -> pd.Series:
-    """True where a rate row is at the upper bound (rates.tsv's ``at_bound`` column)."""
+    """True where the data do not bound a rate row from above (rates.tsv's ``at_bound``
+    column is upper or open)."""
     if "at_bound" in rates:
-        return rates["at_bound"].fillna("").astype(str).str.strip().eq("upper")
-    if "at_upper" in rates:
-        return rates["at_upper"].fillna(False).astype(str).str.lower().eq("true")
+        return rates["at_bound"].fillna("").astype(str).str.strip().isin(["upper", "open"])
+    if "unbounded" in rates:
+        return rates["unbounded"].fillna(False).astype(str).str.lower().eq("true")
     return pd.Series(False, index=rates.index)
 
 
@@ -210,31 +218,38 @@ def _lower_flags(rates: pd.DataFrame) -> pd.Series:
 
 def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
     """Median and 95% interval across trees per analysis x model x transition,
-    for every model and for the model average, over the trees where the rate was
-    estimated; ``n_at_upper`` trees where it ran to the upper bound are left out
-    of the median and interval and counted, with ``at_upper_min`` the smallest
-    value it reached there (the rate is at least that). ``status`` says which:
-    estimated, partly_at_upper or all_at_upper."""
+    for every model and for the model average, over the trees where the data
+    bound the rate (``n_estimated``). Trees where they do not (``n_unbounded``:
+    the rate ran to the upper bound, ``n_at_upper`` of them, or its 95% interval
+    reaches it) are left out of the median and interval and counted, with
+    ``at_upper_min`` the smallest value reached at the bound (the rate is at
+    least that there). ``status``: estimated, partly_unbounded or unbounded.
+    For the model average, the trees flagged ``unbounded`` in averaged_rates
+    count as unbounded."""
     per_model = rates[["analysis", "model", "tree", "from_state", "to_state", "rate"]].copy()
     per_model["upper"] = _upper_flags(rates).to_numpy()
     per_model["lower"] = _lower_flags(rates).to_numpy()
+    per_model["at_upper"] = rates["at_bound"].fillna("").astype(str).str.strip().eq(
+        "upper").to_numpy() if "at_bound" in rates else False
     avg = averaged[["analysis", "model", "tree", "from_state", "to_state", "rate"]].copy()
     avg["upper"] = _upper_flags(averaged).to_numpy()
     avg["lower"] = False
+    avg["at_upper"] = False
     both = pd.concat([per_model, avg], ignore_index=True)
     rows = []
     for (a, m, f, t), g in both.groupby(["analysis", "model", "from_state", "to_state"], sort=False):
         x = g["rate"].to_numpy(float)
         upper = g["upper"].to_numpy(bool)
+        at_upper = g["at_upper"].to_numpy(bool)
         est = x[~upper]
-        n_up = int(upper.sum())
-        status = "estimated" if n_up == 0 else ("all_at_upper" if est.size == 0
-                                                else "partly_at_upper")
+        status = "estimated" if not upper.any() else ("unbounded" if est.size == 0
+                                                      else "partly_unbounded")
         rows.append({"analysis": a, "model": m, "from_state": f, "to_state": t,
-                     "n_trees": len(x), "n_estimated": int(est.size), "n_at_upper": n_up,
+                     "n_trees": len(x), "n_estimated": int(est.size),
+                     "n_unbounded": int(upper.sum()), "n_at_upper": int(at_upper.sum()),
                      "n_at_lower": int(g["lower"].sum()),
                      "median_rate": float(np.median(est)) if est.size else np.nan,
                      "rate_low95": _q(est, 0.025), "rate_high95": _q(est, 0.975),
-                     "at_upper_min": float(x[upper].min()) if n_up else np.nan,
+                     "at_upper_min": float(x[at_upper].min()) if at_upper.any() else np.nan,
                      "status": status})
     return pd.DataFrame(rows)

@@ -15,11 +15,12 @@ Three steps, each a plain function the workflow's scripts call:
    with the central 95% interval over all maps of all trees), each row with a
    plain-words ``caution`` where the numbers could mislead.
 
-A map drawn under a fit with a rate at the upper bound is left out of the
+A map drawn under a fit with a rate the data do not bound from above (at the
+upper bound, or with a 95% likelihood interval reaching it) is left out of the
 change counts and times in state, and counted (``n_maps_at_upper``): such a
-rate is only known to be at least the bound, and the number of changes a map
-draws grows with it without limit (1,848 changes on a 90-tip tree were seen),
-so those counts measure the optimiser's box, not the data. State probabilities
+rate is only known to be large, and the number of changes a map draws grows
+with it without limit (1,848 changes on a 90-tip tree were seen), so those
+counts measure the optimiser's box, not the data. State probabilities
 are kept: as a rate grows without bound the transition probabilities, and so
 the marginal probabilities, approach a limit; they carry a caution instead.
 
@@ -238,8 +239,10 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             roots.append(models[name][1])
             conv.append(str(row["converged"]).lower() == "true")
             # a rate at the lower bound is a change the data do not support (rate ~ 0), which
-            # maps handle; at the upper bound the rate could not be estimated at all
-            bound.append(str(row.get("at_upper", "") or "").strip() not in ("", "nan"))
+            # maps handle; a rate at the upper bound, or whose 95% interval reaches it, has no
+            # upper limit in the data, and neither have the changes a map draws under it
+            bound.append(any(str(row.get(col, "") or "").strip() not in ("", "nan")
+                             for col in ("at_upper", "open_upper")))
         w = model_weights(crit, choice_used, names)
         if not (w > 0).any():
             skipped[t] = True
@@ -334,8 +337,8 @@ def _common_cautions(data, n_total) -> list:
     nb = int((data["bound_weight"][used] > WEAK_WEIGHT).sum())
     if nb:
         notes.append(f"on {nb} of {n_used} trees, fits carrying over {WEAK_WEIGHT:.0%} of the "
-                     "weight have a rate at the upper bound (a change too fast to estimate; "
-                     "maps from those fits are left out of the change counts)")
+                     "weight have a rate the data do not bound from above (a change too fast to "
+                     "estimate; maps from those fits are left out of the change counts)")
     if data.get("choice_note"):
         notes.append(str(data["choice_note"]))
     return notes
@@ -387,7 +390,8 @@ def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
 
 
 def bound_limited_maps(data: dict) -> np.ndarray:
-    """[trees, maps] True where a map was drawn under a fit with a rate at the upper bound."""
+    """[trees, maps] True where a map was drawn under a fit with a rate the data do not bound
+    from above (fits.tsv at_upper or open_upper)."""
     if "model_at_upper" not in data:
         raise ValueError("ancestral chunk files without 'model_at_upper' (written by an older "
                          "mkforest): rerun the ancestral chunk jobs (snakemake --forcerun "
@@ -404,11 +408,12 @@ def _bound_caution(n_out: int, n_maps: int, n_trees_out: int, n_trees: int) -> l
     if not n_out:
         return []
     if n_out == n_maps:
-        return [f"every map ({n_maps}) was drawn under a fit with a rate at the upper bound: "
-                "the change counts cannot be estimated from these data and are not given"]
+        return [f"every map ({n_maps}) was drawn under a fit with a rate the data do not bound "
+                "from above: the change counts cannot be estimated from these data and are not "
+                "given"]
     return [f"{n_out} of {n_maps} maps (on {n_trees_out} of {n_trees} trees) were drawn under a "
-            "fit with a rate at the upper bound and are left out: their counts grow with the "
-            "bound, not with the data"]
+            "fit with a rate the data do not bound from above and are left out: their counts "
+            "grow with that rate, not with the data"]
 
 
 def transition_tables(analysis: str, data: dict, n_total: int) -> tuple:

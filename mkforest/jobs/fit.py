@@ -13,7 +13,8 @@ from ..errors import InputError, join_problems
 from ..seeds import derive_seed
 
 FIT_COLUMNS = ["analysis", "model", "tree", "n_taxa", "n_params", "log_likelihood", "aic", "aicc",
-               "bic", "converged", "n_starts", "n_agree", "at_lower", "at_upper", "root", "note",
+               "bic", "converged", "n_starts", "n_agree", "at_lower", "at_upper", "open_upper", "root",
+               "note",
                "structure"]
 RATE_COLUMNS = ["analysis", "model", "tree", "from_state", "to_state", "rate", "parameter",
                 "at_bound"]
@@ -116,7 +117,7 @@ def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, st
                "structure": f"{model.signature()} | root {root}"}
         if not varies:
             row.update(log_likelihood=np.nan, aic=np.nan, aicc=np.nan, bic=np.nan, converged=False,
-                       n_starts=0, n_agree=0, at_lower="", at_upper="",
+                       n_starts=0, n_agree=0, at_lower="", at_upper="", open_upper="",
                        note="not fitted: fewer than two observed states")
             fits.append(row)
             continue
@@ -129,15 +130,16 @@ def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, st
             notes.append(f"AICc undefined: {n} taxa with data for {res.n_params} rates")
         row.update(log_likelihood=res.log_likelihood, **ic, converged=res.converged,
                    n_starts=res.n_starts, n_agree=res.n_agree, at_lower=",".join(res.at_lower),
-                   at_upper=",".join(res.at_upper), note="; ".join(notes))
+                   at_upper=",".join(res.at_upper), open_upper=",".join(res.open_upper),
+                   note="; ".join(notes))
         fits.append(row)
-        bounds = set(res.at_lower) | set(res.at_upper)
+        bound_of = {**{x: "lower" for x in res.at_lower}, **{x: "open" for x in res.open_upper},
+                    **{x: "upper" for x in res.at_upper}}
         for a, b, p in model.transitions():
             i, j = model.states.index(a), model.states.index(b)
             label = model.labels[p] if p >= 0 else "fixed"
             rates.append({"analysis": analysis, "model": model.name, "tree": tree.index,
                           "from_state": a, "to_state": b, "rate": float(res.q_matrix[i, j]),
                           "parameter": label,
-                          "at_bound": ("lower" if label in res.at_lower else "upper")
-                          if label in bounds else ""})
+                          "at_bound": bound_of.get(label, "")})
     return fits, rates

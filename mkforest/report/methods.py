@@ -320,10 +320,10 @@ def _fitting_paragraph(config, software) -> str:
             "Each rate was bounded between "
             f"{fit['lower']:g} and {fit['upper']:g} expected changes along the tree's root-to-tip "
             "height, so the bounds scale with each tree; estimates at a bound are flagged in "
-            "tables/rates.tsv. A rate at the upper bound is one the data cannot bound (the "
-            "likelihood does not fall as it grows): it is reported as at least the bound, never "
-            "as an estimate, and is left out of medians, intervals and averages, with the "
-            "number of trees where it occurred given beside them.")
+            "tables/rates.tsv. A rate at the upper bound, or whose 95% likelihood interval "
+            "reaches it, is one the data do not bound from above: it is never reported as an "
+            "estimate (at the bound, as at least the bound) and is left out of medians, "
+            "intervals and averages, with the number of trees where it occurred beside them.")
     if most > 1:
         text += (f" A fit counted as converged when at least two starts reached the best "
                  f"log-likelihood within {AGREE_TOL:g} units.")
@@ -626,23 +626,24 @@ def _analysis_results(analysis, support, rate_summary, crit_name, n_used=None) -
 
 
 def rate_words(r: dict) -> str:
-    """One transition of rate_summary.tsv in words. Trees where the rate ran to the
-    upper bound are left out of the median and interval and named beside them with
-    the smallest bound reached ("at the upper bound (≥ X)"): there the data give
-    only a lower limit, never a value (mkforest.engine.summarise)."""
+    """One transition of rate_summary.tsv in words. Trees where the data do not bound
+    the rate from above are left out of the median and interval and counted beside
+    them, with the smallest bound reached where it ran to the bound ("≥ X"): there
+    the data give only a lower limit, never a value (mkforest.engine.summarise)."""
     head = f"{r['from_state']}→{r['to_state']}"
+    n_unb = int(r.get("n_unbounded", 0) or 0)
     n_up = int(r.get("n_at_upper", 0) or 0)
     n_est = int(r.get("n_estimated", r.get("n_trees", 0)) or 0)
-    if n_up == 0:
+    if n_unb == 0:
         return f"{head} {number(r['median_rate'])} ({number(r['rate_low95'])} to " \
                f"{number(r['rate_high95'])})"
-    limit = f"≥ {number(r['at_upper_min'])}"
+    at_bound = f", at the upper bound (≥ {number(r['at_upper_min'])}) on {n_up}" if n_up else ""
     if n_est == 0:
-        return (f"{head} at the upper bound on every tree ({limit}; not estimable from these "
-                "data)")
+        return (f"{head} not bounded above by the data on any tree{at_bound}; not estimable "
+                "from these data")
     return (f"{head} {number(r['median_rate'])} ({number(r['rate_low95'])} to "
-            f"{number(r['rate_high95'])}) over the {plural(n_est, 'tree')} where it was "
-            f"estimated, at the upper bound on {n_up} ({limit})")
+            f"{number(r['rate_high95'])}) over the {plural(n_est, 'tree')} where the data bound "
+            f"it; not bounded above on {n_unb}{at_bound}")
 
 
 def _cautions(rows: pd.DataFrame, key: str) -> list:
@@ -697,8 +698,8 @@ def _ancestral_results(analysis, tables) -> str:
         rows = trans[trans["analysis"] == analysis]
         n_out = int(rows["n_maps_at_upper"].max()) if "n_maps_at_upper" in rows and len(rows) \
             else 0
-        left_out = (f"; {plural(n_out, 'map')} drawn under fits with a rate at the upper bound "
-                    "left out" if n_out else "")
+        left_out = (f"; {plural(n_out, 'map')} drawn under fits with a rate the data do not "
+                    "bound from above left out" if n_out else "")
         if len(rows) and int(rows["n_maps"].max()) > 0:
             parts = [f"{r['from_state']}→{r['to_state']} {number(r['mean_count'], 1)} "
                      f"({number(r['count_low95'], 1)} to {number(r['count_high95'], 1)})"
@@ -708,8 +709,8 @@ def _ancestral_results(analysis, tables) -> str:
                         f"{left_out}, central 95% interval of the maps): {'; '.join(parts)}.")
         elif len(rows) and n_out:
             text.append(f"No numbers of changes are given: all {n_out} stochastic maps were drawn "
-                        "under fits with a rate at the upper bound, whose change counts grow "
-                        "with the bound, not with the data.")
+                        "under fits with a rate the data do not bound from above, whose change "
+                        "counts grow with that rate, not with the data.")
     return " ".join(text)
 
 

@@ -68,10 +68,16 @@ def test_tables_and_plots(ancestral_run):
     for a, g in trans.groupby("analysis"):
         k = states[states["analysis"] == a]["state"].nunique()
         assert len(g) == k * (k - 1)
-        assert (g["n_maps"] == 20 * len(used)).all()
+        # maps under fits with a rate the data do not bound from above are counted apart
+        assert (g["n_maps"] + g["n_maps_at_upper"] == 20 * len(used)).all()
     times = read(work, "state_times")
-    total = times.groupby("analysis")["mean_time"].sum()
-    np.testing.assert_allclose(total.to_numpy(), used["total_length"].mean(), rtol=1e-4)
+    for a, g in times.groupby("analysis"):
+        # each map's times in state add up to its tree's length
+        total = g["mean_time"].sum()
+        if (g["n_maps_at_upper"] == 0).all():
+            np.testing.assert_allclose(total, used["total_length"].mean(), rtol=1e-4)
+        else:
+            assert used["total_length"].min() - 1e-9 <= total <= used["total_length"].max() + 1e-9
 
     plots = work / "results" / "tiny" / "plots"
     for name in ["changes.png", "changes.svg", "ancestral_tree_glow.png", "ancestral_tree_habitat.svg"]:

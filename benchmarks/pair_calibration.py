@@ -114,15 +114,24 @@ def one_data_set(task):
     if n_rep:
         # the bootstrap simulates on this data set's own tree object; tree.index is 0
         t0, c0 = time.perf_counter(), time.process_time()
-        at_edge = s["simulate_from"] == "interval-edge"
         out["null_rates_moved"] = len(pairs.simulation_rates(tree, X, ind, fit_null.rates)[1])
-        sims = pairs.bootstrap_statistics(pair, tree, ind, dep, fit_null.rates, "uniform",
-                                          replicates=range(n_rep), seed=seed, n_starts=STARTS,
-                                          from_interval_edge=at_edge)
-        out["p_bootstrap"] = pairs.bootstrap_p_value(stat, sims)
+        modes = {"interval-edge": [True], "estimate": [False], "both": [True, False]}
+        for at_edge in modes[s["simulate_from"]]:
+            key = "" if at_edge else "_at_estimate"
+            if not at_edge and "p_bootstrap" in out and not out["null_rates_moved"]:
+                # no rate moved: the same simulated data sets, the same statistics
+                out["p_bootstrap" + key] = out["p_bootstrap"]
+                continue
+            sims = pairs.bootstrap_statistics(pair, tree, ind, dep, fit_null.rates, "uniform",
+                                              replicates=range(n_rep), seed=seed,
+                                              n_starts=STARTS, from_interval_edge=at_edge)
+            out["p_bootstrap" + key] = pairs.bootstrap_p_value(stat, sims)
+            out["simulated" + key] = sims.tolist()
+        if "p_bootstrap" not in out:
+            out["p_bootstrap"] = out["p_bootstrap_at_estimate"]
+            out["simulated"] = out.pop("simulated_at_estimate")
         out["bootstrap_seconds"] = time.perf_counter() - t0
         out["bootstrap_cpu_seconds"] = time.process_time() - c0
-        out["simulated"] = sims.tolist()
     return out
 
 
@@ -147,12 +156,13 @@ def main(argv=None):
     ap.add_argument("--data-root", choices=["model", "stationary"], default="model",
                     help="root state of the simulated data: as the fitted model (uniform root) "
                          "assumes, or from the stationary distribution (a misspecified root)")
-    ap.add_argument("--simulate-from", choices=["interval-edge", "estimate"],
+    ap.add_argument("--simulate-from", choices=["interval-edge", "estimate", "both"],
                     default="interval-edge",
                     help="bootstrap null rates: the workflow's way (rates at or near the lower "
                          "bound moved to the edge of their 95%% interval, "
-                         "mkforest.engine.pairs.simulation_rates) or the fitted estimates as "
-                         "they are (the first release)")
+                         "mkforest.engine.pairs.simulation_rates), the fitted estimates as "
+                         "they are (the first release), or both on the same data sets (the "
+                         "second bootstrap only where a rate moves; reported as *_at_estimate)")
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--seed", type=int, default=2026)
     ap.add_argument("--quick", action="store_true", help="tiny numbers, to check the script runs")
@@ -185,6 +195,8 @@ def main(argv=None):
         "chi2_power_linked": rejection(linked, "p_chi2"),
         "chi2_power_mild": rejection(mild, "p_chi2"),
         "bootstrap_false_rejection": rejection([r for r in null if "p_bootstrap" in r], "p_bootstrap"),
+        "chi2_false_rejection_bootstrap_sets": rejection(
+            [r for r in null if "p_bootstrap" in r], "p_chi2"),
         # the workflow flags a tree whose null fit has a rate at the lower bound: there the
         # bootstrap simulates data that never make that change
         "bootstrap_false_rejection_null_rates_inside": rejection(
@@ -199,6 +211,8 @@ def main(argv=None):
         "bootstrap_false_rejection_no_rate_moved": rejection(
             [r for r in null if "p_bootstrap" in r and not r["null_rates_moved"]], "p_bootstrap"),
         "bootstrap_power_mild": rejection([r for r in mild if "p_bootstrap" in r], "p_bootstrap"),
+        "bootstrap_power_mild_at_estimate": rejection(
+            [r for r in mild if "p_bootstrap_at_estimate" in r], "p_bootstrap_at_estimate"),
         "chi2_power_mild_same_sets": rejection([r for r in mild if "p_bootstrap" in r], "p_chi2"),
         "mean_statistic_under_null": float(np.mean([r["statistic"] for r in null])),
         "median_fit_cpu_seconds": float(np.median([r["fit_cpu_seconds"] for r in results])),
@@ -207,6 +221,16 @@ def main(argv=None):
         "total_cpu_seconds": round(sum(r["fit_cpu_seconds"] + r.get("bootstrap_cpu_seconds", 0.0)
                                        for r in results), 1),
     }
+    if a.simulate_from == "both":
+        # the first release's way (simulated at the estimates) on the same data sets
+        est = [r for r in null if "p_bootstrap_at_estimate" in r]
+        report["at_estimate_false_rejection"] = rejection(est, "p_bootstrap_at_estimate")
+        report["at_estimate_false_rejection_null_rate_at_bound"] = rejection(
+            [r for r in est if r["null_at_lower_bound"]], "p_bootstrap_at_estimate")
+        report["at_estimate_false_rejection_null_rates_moved"] = rejection(
+            [r for r in est if r["null_rates_moved"]], "p_bootstrap_at_estimate")
+        report["at_estimate_false_rejection_no_rate_moved"] = rejection(
+            [r for r in est if not r["null_rates_moved"]], "p_bootstrap_at_estimate")
     sims = [x for r in null if "simulated" in r for x in r["simulated"]]
     if sims:
         # how the pooled bootstrap null compares with chi-square on 4 df

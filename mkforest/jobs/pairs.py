@@ -74,8 +74,8 @@ def bootstrap_chunk(pair, models: dict, tests: list, trees: list, selected: set,
                                          replicates=range(n_replicates), seed=seed,
                                          n_starts=n_starts, lower=lower, upper=upper,
                                          max_starts=max_starts)
-            _, moved = simulation_rates(tree, pair.joint_trait().tip_partials(tree, absent="missing"),
-                                        null, rates, root, lower, upper)
+            tips = null.expand_tips(pair.joint_trait().tip_partials(tree, absent="missing"))
+            _, moved = simulation_rates(tree, tips, null, rates, root, lower, upper)
             rows += [{"pair": pair.name, "null": test.null, "alternative": test.alternative,
                       "tree": tree.index, "replicate": r, "statistic": float(s),
                       "null_rates_moved": ",".join(moved)}

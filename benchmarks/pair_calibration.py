@@ -19,7 +19,11 @@ For every data set both hypotheses are fitted as the workflow fits them
 (mkforest.engine.fitting.fit_model, 5 starts) and the likelihood-ratio statistic is
 compared with chi-square on 4 df (Pagel 1994); on a subset, the statistic is
 also compared with its parametric-bootstrap distribution (Goldman 1993):
-data sets simulated under the fitted null, each fitted the same way. Reported: rejections at alpha = 0.05 with their counts and an
+data sets simulated under the fitted null, each fitted the same way (null rates at
+or near the lower bound taken at the edge of their 95% interval, as the workflow
+does: mkforest.engine.pairs.simulation_rates; --simulate-from estimate uses the
+estimates as they are, the first release's way, and --simulate-from both runs the
+two on the same data sets). Reported: rejections at alpha = 0.05 with their counts and an
 exact 95 % binomial interval (Clopper-Pearson, scipy.stats.binomtest), the
 bootstrap's false rejections split by whether the null's fit has a rate at the
 lower bound (the workflow flags those trees), and the CPU and wall time. Work is spread over worker processes; every data set's seed derives

@@ -343,6 +343,17 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
         label = {k: style.change_label(*k, pairs.get(a)) for k in keys}
         g["direction"] = [label[k] for k in zip(g["from_state"], g["to_state"])]
         order = [label[k] for k in keys]
+        # a tree whose every map came from a fit with a rate the data do not bound has no
+        # count (mkforest.jobs.ancestral.transition_tables): it is left out of the panel
+        g = g[np.isfinite(g["mean_count"].astype(float))]
+        if g.empty:
+            ax.set_title(f"{a}", fontsize=9, loc="left", fontweight="bold")
+            ax.text(0.5, 0.5, "no change counts: every map was drawn under a fit with a rate\n"
+                    "the data do not bound from above (tables/transitions.tsv)",
+                    ha="center", va="center", transform=ax.transAxes, fontsize=8)
+            ax.set_xticks([])
+            ax.set_yticks([])
+            continue
         sns.boxplot(data=g, y="direction", x="mean_count", order=order, ax=ax, orient="h",
                     color="#cfe8f7", fliersize=0, width=0.6, linewidth=0.8)
         np.random.seed(0)  # seaborn jitters from NumPy's global generator: same figure every run

@@ -8,6 +8,7 @@ import logging
 
 import pandas as pd
 
+from mkforest.engine.branch_support import branch_tests, tree_set_support, treatment_support
 from mkforest.engine.summarise import (
     add_weights,
     averaged_rates,
@@ -27,16 +28,19 @@ def main(smk):
     log = logging.getLogger("mkforest")
     fits = _read(smk.input.fits)
     rates = _read(smk.input.rates)
-    for col in ("at_lower", "at_upper", "open_upper", "note"):
+    for col in ("at_lower", "at_upper", "open_upper", "note", "branch_at_bound", "tree_set"):
         if col in fits:
             fits[col] = fits[col].astype(object).fillna("")
     rates["at_bound"] = rates["at_bound"].astype(object).fillna("")
     order = {a: i for i, a in enumerate(smk.params.analyses)}
-    fits = fits.sort_values(["analysis", "model", "tree"],
-                            key=lambda s: s.map(order) if s.name == "analysis" else s)
+    sets = {s: i for i, s in enumerate(smk.params.tree_sets)}
+    rank = {"analysis": order, "tree_set": sets}
+    fits = fits.sort_values(["tree_set", "analysis", "model", "tree"],
+                            key=lambda s: s.map(rank[s.name]) if s.name in rank else s)
     fits = mark_duplicates(fits, smk.params.model_order)
     fits = add_weights(fits, smk.params.criterion)
-    rates = rates.sort_values(["analysis", "model", "tree", "from_state", "to_state"])
+    rates = rates.sort_values(["tree_set", "analysis", "model", "tree", "from_state", "to_state"],
+                              key=lambda s: s.map(sets) if s.name == "tree_set" else s)
     support = model_support(fits)
     averaged = averaged_rates(fits, rates)
     fits.to_csv(smk.output.fits, sep="\t", index=False, float_format="%.10g")
@@ -45,9 +49,16 @@ def main(smk):
     averaged.to_csv(smk.output.averaged, sep="\t", index=False, float_format="%.10g")
     rate_summary(rates, averaged).to_csv(smk.output.rate_summary, sep="\t", index=False,
                                          float_format="%.10g")
+    tests, test_summary = branch_tests(fits)
+    write = dict(sep="\t", index=False, float_format="%.10g")
+    treatment_support(fits).to_csv(smk.output.treatments, **write)
+    tests.to_csv(smk.output.branch_tests, **write)
+    test_summary.to_csv(smk.output.branch_test_summary, **write)
+    tree_set_support(fits, smk.params.criterion).to_csv(smk.output.tree_sets, **write)
     for row in support.to_dict("records"):
         if row["caution"]:
-            log.warning("%s / %s: %s", row["analysis"], row["model"], row["caution"])
+            log.warning("%s / %s / %s: %s", row["tree_set"], row["analysis"], row["model"],
+                        row["caution"])
 
 
 run_job(snakemake, main)  # noqa: F821

@@ -12,7 +12,10 @@ from mkforest.jobs.scripting import run_job
 
 def main(smk):
     clades = pd.read_csv(smk.input.clades, sep="\t", dtype={"members": str, "clade": str})
-    n_total = len(pd.read_csv(smk.input.used, sep="\t"))
+    used = pd.read_csv(smk.input.used, sep="\t", keep_default_na=False)
+    if "tree_set" in used:  # ancestral states are reconstructed on the first tree set
+        used = used[used["tree_set"] == used["tree_set"].iloc[0]]
+    n_total = len(used)
     states, trans, times, per_tree, classes = [], [], [], [], []
     for analysis in smk.params.analyses:
         paths = [p for p in smk.input.chunks if Path(p).parent.name == analysis]

@@ -11,7 +11,7 @@ import time
 
 from mkforest.data.traits import traits_from_json
 from mkforest.data.trees import load_trees
-from mkforest.jobs.fit import FIT_COLUMNS, RATE_COLUMNS, analysis_setup, fit_chunk
+from mkforest.jobs.fit import FIT_COLUMNS, RATE_COLUMNS, analysis_setup, branch_treatment, fit_chunk
 from mkforest.jobs.scripting import run_job
 
 
@@ -26,7 +26,8 @@ def main(smk):
     start, cpu = time.perf_counter(), time.process_time()
     fits, rates = fit_chunk(trees, trait, model, root, job["analysis"], config["seed"],
                             fit["starts"], fit["lower"], fit["upper"],
-                            config["traits"]["absent_taxa"], fit["max_starts"])
+                            config["traits"]["absent_taxa"], fit["max_starts"],
+                            branch_treatment(config, job["analysis"], job["model"]))
     logging.getLogger("mkforest").info("fits took %.3f s (CPU %.3f s)", time.perf_counter() - start,
                                        time.process_time() - cpu)
     bad = sum(1 for f in fits if not f["converged"])

@@ -18,13 +18,14 @@ from mkforest.jobs.pairs import (
     summary_rows,
 )
 from mkforest.jobs.scripting import run_job
+from mkforest.report.methods_branches import first_set
 
 
 def main(smk):
     log = logging.getLogger("mkforest")
     config = smk.params.config
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
-    fits = pd.read_csv(smk.input.fits, sep="\t")
+    fits = first_set(pd.read_csv(smk.input.fits, sep="\t"))  # pair tests use the first tree set
     frames = [pd.read_csv(p, sep="\t") for p in smk.input.bootstrap]
     boot = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=BOOTSTRAP_COLUMNS)
     test_table, summary = [], []

@@ -12,6 +12,7 @@ from mkforest.data.traits import traits_from_json
 
 from mkforest.jobs.scripting import run_job
 from mkforest.report import plots
+from mkforest.report.methods_branches import first_set
 
 
 def main(smk):
@@ -27,6 +28,8 @@ def main(smk):
     states = {name: list(t.states) for name, t in traits.items()}
     for pair, (first, second) in smk.params.pairs.items():   # joint states, first slowest
         states[pair] = [f"{a}+{b}" for a in states.get(first, []) for b in states.get(second, [])]
+    # these figures show the first tree set; plot_branches compares the sets
+    fits, rates, support = first_set(fits), first_set(rates), first_set(support)
     out = smk.output
     plots.save(plots.support_weights(fits, smk.params.criterion),
                [out.support_weights_png, out.support_weights_svg])

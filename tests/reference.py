@@ -389,3 +389,55 @@ def reference_hidden_log_likelihood(tree, tip_partials, Q, root, n_classes, stat
         s = list(states).index(root)
         total = sum(L[c * k + s] for c in range(n_classes)) / n_classes
     return math.log(total) if total > 0 else -math.inf
+
+
+# --------------------------------------------------------------------------- branch-length treatments
+
+def transformed_newick(text: str, treatment: str, theta: float | None = None) -> str:
+    """The tree with its branch lengths transformed, done node by node on a DendroPy tree
+    (independently of mkforest.engine.branches) and written back as Newick.
+
+    Formulas as published, evaluated plainly (math module, no special cases beyond a
+    zero-length branch staying zero under unit and kappa):
+    - unit: every branch 1 -- change per speciation event
+    - kappa: t -> t^kappa (Pagel 1994, Proc. R. Soc. B 255:37)
+    - lambda: internal branches x lambda, each tip branch set so the tip keeps its
+      distance from the root (Pagel 1999, Nature 401:877)
+    - delta: node height from the root d -> H (d/H)^delta, H the largest root-to-tip
+      distance, branch = difference of the new heights (Pagel 1999)
+    - early_burst: a branch from s0 to s1 -> integral of e^(a s) ds from s0 to s1 =
+      (e^(a s1) - e^(a s0)) / a (Harmon et al. 2010, Evolution 64:2385), here by
+      scipy.integrate.quad, the integral itself rather than its closed form
+    """
+    import scipy.integrate
+
+    tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True,
+                             rooting="force-rooted")
+    root = tree.seed_node
+    dist = {}
+    for nd in tree.preorder_node_iter():
+        dist[nd] = 0.0 if nd is root else dist[nd.parent_node] + nd.edge.length
+    height = max(dist[nd] for nd in tree.leaf_node_iter())
+    new = {}
+    for nd in tree.preorder_node_iter():
+        if nd is root:
+            continue
+        t = nd.edge.length
+        s0, s1 = dist[nd.parent_node], dist[nd]
+        if treatment == "unit":
+            new[nd] = 1.0 if t > 0 else 0.0
+        elif treatment == "kappa":
+            new[nd] = t ** theta if t > 0 else 0.0
+        elif treatment == "lambda":
+            new[nd] = (s1 - theta * s0) if nd.is_leaf() else theta * t
+        elif treatment == "delta":
+            new[nd] = height * ((s1 / height) ** theta - (s0 / height) ** theta)
+        elif treatment == "early_burst":
+            new[nd] = scipy.integrate.quad(lambda s: math.exp(theta * s), s0, s1,
+                                           epsabs=0.0, epsrel=1e-13)[0]
+        else:
+            raise ValueError(treatment)
+    for nd, length in new.items():
+        nd.edge.length = length
+    return tree.as_string(schema="newick", suppress_rooting=True,
+                          real_value_format_specifier=".17g").strip()

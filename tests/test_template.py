@@ -13,6 +13,9 @@ from mkforest.data.config import SCHEMA, validate_config
 
 TEMPLATE = REPO / "config" / "template.yaml"
 NAME = "<name>"
+# Top-level keys used instead of another (tree_sets replaces trees): a valid
+# config has one or the other, so the template shows these in a comment.
+INSTEAD = ("tree_sets",)
 
 
 def _objects(schema: dict) -> list:
@@ -65,6 +68,7 @@ def template_problems(schema: dict, text: str) -> tuple:
     found = template_values(yaml.safe_load(text), schema)
     missing, wrong = [], []
     for key, (sub, alternative) in schema_keys(schema).items():
+        alternative = alternative or key.split(".")[0] in INSTEAD
         last = key.rsplit(".", 1)[-1]
         # a key of an alternative form (trees.root: {outgroup: [...]}) may be shown in a comment
         if key not in found and not (alternative and re.search(rf"\b{re.escape(last)}:", comments)):

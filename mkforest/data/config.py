@@ -143,7 +143,7 @@ def _entries(value) -> dict:
 def name_problems(config: dict, source: str = "config") -> list:
     """Names used in file paths must be plain; models, pairs, state orders and
     the ancestral stage must name known traits and models. One sentence per mistake."""
-    problems = []
+    problems = tree_set_problems(config, source)
     tcfg = config.get("traits") if isinstance(config.get("traits"), dict) else {}
     traits = _names(tcfg.get("columns"))
     models = _entries(config.get("models"))
@@ -210,6 +210,29 @@ def name_problems(config: dict, source: str = "config") -> list:
                         f"name from models ({', '.join(models)})."
                         f"{did_you_mean(anc_model, ['average', 'best', *models])}")
     return problems
+
+
+def tree_set_problems(config: dict, source: str = "config") -> list:
+    """Exactly one of trees and tree_sets; set names usable in file names."""
+    problems = []
+    if ("trees" in config) == ("tree_sets" in config):
+        problems.append(f"{source}: give either 'trees' (one tree sample) or 'tree_sets' "
+                        "(several samples to compare), "
+                        + ("not both." if "trees" in config else "and neither is present."))
+    for name in _entries(config.get("tree_sets")):
+        if not SAFE_NAME.match(name):
+            problems.append(f"{source}: tree set name '{name}' (tree_sets) must use only "
+                            "letters, digits, '_', '-' or '.'.")
+    return problems
+
+
+def tree_sets(config: dict) -> dict:
+    """{set name: {file, burnin, thin, sample, root, per_job}} in config order; a config
+    with ``trees`` has one set, named by trees.name (default 'trees')."""
+    if "tree_sets" in config:
+        return dict(config["tree_sets"])
+    spec = dict(config["trees"])
+    return {spec.pop("name", "trees"): spec}
 
 
 def load_config(path) -> dict:

@@ -11,6 +11,7 @@ node. Looping ``v = 0 .. n_nodes-1`` is a postorder; the reverse is a preorder.
 
 from __future__ import annotations
 
+import dataclasses
 import io
 import json
 from dataclasses import dataclass, field
@@ -30,6 +31,7 @@ class TreeArrays:
     child_ptr int64 [n_nodes+1]  children of v are children[child_ptr[v]:child_ptr[v+1]]
     children  int64 [n_nodes-1]
     index     position of the tree in its input file (0-based, before burn-in)
+    tree_set  name of the tree set it belongs to (config ``tree_sets``; "" when unnamed)
     """
 
     tip_labels: tuple
@@ -38,6 +40,7 @@ class TreeArrays:
     child_ptr: np.ndarray
     children: np.ndarray
     index: int = 0
+    tree_set: str = ""
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
@@ -90,8 +93,17 @@ class TreeArrays:
         return f"the ancestor of '{below[0]}' and '{below[-1]}'"
 
     def scaled(self, factor: float) -> "TreeArrays":
-        return TreeArrays(self.tip_labels, self.parent, self.length * factor,
-                          self.child_ptr, self.children, self.index)
+        return self.with_lengths(self.length * factor)
+
+    def with_tree_set(self, name: str) -> "TreeArrays":
+        return TreeArrays(self.tip_labels, self.parent, self.length, self.child_ptr,
+                          self.children, self.index, name)
+
+    def with_lengths(self, lengths) -> "TreeArrays":
+        """The same tree (topology, index, set) with other branch lengths."""
+        return TreeArrays(self.tip_labels, self.parent,
+                          np.ascontiguousarray(lengths, dtype=np.float64), self.child_ptr,
+                          self.children, self.index, self.tree_set)
 
 
 def _build(tip_labels, parent_of, length_of, index) -> TreeArrays:
@@ -362,7 +374,8 @@ def save_trees(path, trees: list) -> None:
              index=np.array([t.index for t in trees], dtype=np.int64),
              parent=np.concatenate([t.parent for t in trees]),
              length=np.concatenate([t.length for t in trees]),
-             labels=np.array(labels))
+             labels=np.array(labels),
+             tree_set=np.array(json.dumps([t.tree_set for t in trees])))
     Path(path).write_bytes(buf.getvalue())
 
 
@@ -372,12 +385,14 @@ def load_trees(path) -> list:
         labels = json.loads(str(data["labels"]))
         n_nodes, index = data["n_nodes"], data["index"]
         parents, lengths = data["parent"], data["length"]
+        sets = json.loads(str(data["tree_set"])) if "tree_set" in data else [""] * len(labels)
     out = []
     shared = {}  # trees of a sample list the same tips, often in the same order: one tuple
     start = 0
     for k, n in enumerate(n_nodes):
         tips = shared.setdefault(tuple(labels[k]), tuple(labels[k]))
-        out.append(_build(tips, parents[start:start + n].copy(), lengths[start:start + n].copy(),
-                          int(index[k])))
+        tree = _build(tips, parents[start:start + n].copy(), lengths[start:start + n].copy(),
+                      int(index[k]))
+        out.append(dataclasses.replace(tree, tree_set=sets[k], _cache={}) if sets[k] else tree)
         start += n
     return out

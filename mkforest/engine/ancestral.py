@@ -182,19 +182,23 @@ def averaged_probabilities(tree, tip_partials, fits, states=None) -> np.ndarray:
     fits: iterable of (Q, root, weight), e.g. one per model with its Akaike
     weight on this tree, or (Q, root, weight, RateModel) where a model may have
     hidden rate classes (its probabilities are summed over the classes of each
-    observed state). Models with weight 0 (or not finite) are skipped;
-    models under which the data are impossible must have weight 0.
+    observed state), or (Q, root, weight, RateModel or None, tree of that model)
+    for a model on its own branch lengths (mkforest.engine.branches). Models with
+    weight 0 (or not finite) are skipped; models under which the data are
+    impossible must have weight 0.
     """
     total = None
     wsum = 0.0
-    for Q, root, weight, *model in fits:
+    for Q, root, weight, *extra in fits:
         weight = float(weight)
         if not np.isfinite(weight) or weight <= 0.0:
             continue
-        if model:
-            m = observed_marginals(tree, tip_partials, Q, root, model[0])
+        model = extra[0] if extra else None
+        on = extra[1] if len(extra) > 1 and extra[1] is not None else tree
+        if model is not None:
+            m = observed_marginals(on, tip_partials, Q, root, model)
         else:
-            m = marginal_probabilities(tree, tip_partials, Q, root, states)
+            m = marginal_probabilities(on, tip_partials, Q, root, states)
         total = m * weight if total is None else total + m * weight
         wsum += weight
     if total is None:

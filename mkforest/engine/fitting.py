@@ -22,9 +22,10 @@ import numpy as np
 from scipy.optimize import minimize
 from scipy.stats import chi2
 
-from .gradient import log_likelihood_and_gradient
+from .branches import NULL_VALUE, Treatment, effective_lengths, transformed_tree, with_lengths
+from .gradient import FD_STEP, log_likelihood_and_gradient
 from .hidden import relabel_classes, spread_classes
-from .likelihood import prune, root_weights
+from .likelihood import log_likelihood, prune, root_weights
 
 LOWER = 1e-6
 UPPER = 1e4
@@ -67,6 +68,9 @@ class FitResult:
     def unbounded(self) -> tuple:
         """Labels of rates the data do not bound from above (at_upper, then open_upper)."""
         return self.at_upper + tuple(x for x in self.open_upper if x not in self.at_upper)
+    branches: str = "as_given"           # the treatment's label (mkforest.engine.branches)
+    branch_parameter: float = math.nan   # its estimate (or fixed value); nan when it has none
+    branch_at_bound: str = ""            # "lower" / "upper" when the estimate is at a bound
 
     def rate_of(self, label: str) -> float:
         return float(self.rates[self.labels.index(label)])
@@ -137,19 +141,22 @@ def _starting_rate(tree, tip_partials, model) -> float:
 
 
 def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
-    """Move each rate that the optimiser left near a bound onto it when that does
-    not lower ln L by more than ``tol``: on a likelihood that is flat towards zero
-    (or towards saturation) the optimiser stops early, and the rate is then
-    reported at the bound instead of at an arbitrary small value."""
+    """Move each parameter that the optimiser left near a bound onto it when that
+    does not lower ln L (``f`` of the optimiser's x) by more than ``tol``: on a
+    likelihood that is flat towards zero (or towards saturation) the optimiser
+    stops early, and the rate is then reported at the bound instead of at an
+    arbitrary small value. lo, hi: one bound for all, or one per parameter."""
     x = x.copy()
+    lo = np.broadcast_to(lo, x.shape)
+    hi = np.broadcast_to(hi, x.shape)
     span = hi - lo
     for i in np.argsort(np.minimum(x - lo, hi - x)):
-        for bound in (lo, hi):
-            if x[i] == bound or abs(x[i] - bound) > 0.5 * span:
+        for bound in (lo[i], hi[i]):
+            if x[i] == bound or abs(x[i] - bound) > 0.5 * span[i]:
                 continue
             trial = x.copy()
             trial[i] = bound
-            t_ll = f(np.exp(trial))
+            t_ll = f(trial)
             if t_ll >= ll - tol:
                 x, ll = trial, t_ll
     return x, ll
@@ -227,8 +234,55 @@ def starting_points(tree, tip_partials, model, n_starts: int = 5, seed: int = 0,
     return [next(starts) for _ in range(n_starts)], bounds
 
 
+def _branch_starts(tree, treatment, starts, seed):
+    """The starts with the branch parameter appended (a generator, like start_sequence): its null value (the given lengths)
+    first, then seeded uniform draws within its bounds; each start's log-rates are
+    shifted by the log ratio of given to transformed total length, so the expected
+    number of changes stays that of the parsimony guess."""
+    blo, bhi = treatment.bounds()
+    rng = np.random.default_rng([seed, 14])
+    total = max(tree.total_length, 1e-300)
+    for i, s in enumerate(starts):
+        xb = NULL_VALUE[treatment.name] if i == 0 else float(rng.uniform(blo, bhi))
+        lengths = effective_lengths(tree, treatment, xb)[0]
+        shift = math.log(total / lengths.sum()) if lengths.sum() > 0 else 0.0
+        yield np.append(s + shift, xb)
+
+
+def _treatment_objective(tree, tip_partials, model, root, treatment):
+    """(objective(x) -> (-lnL, -gradient), value(x) -> lnL) over x = (log-rates, branch x):
+    d lnL / d x_branch = sum_b d lnL / d t_b * d t_b / d x (chain rule), or a central
+    difference where the rate gradient itself falls back to finite differences."""
+    p = model.n_params
+
+    def value(x):
+        lengths = effective_lengths(tree, treatment, x[p])[0]
+        return log_likelihood(with_lengths(tree, lengths), tip_partials, model.q_matrix(np.exp(x[:p])),
+                              root, model.states)
+
+    def objective(x):
+        lengths, dl = effective_lengths(tree, treatment, x[p])
+        ll, grad, dlen = log_likelihood_and_gradient(with_lengths(tree, lengths), tip_partials,
+                                                     model, np.exp(x[:p]), root,
+                                                     lengths_gradient=True)
+        if not np.isfinite(ll):
+            return _IMPOSSIBLE, np.zeros(p + 1)
+        if dlen is not None:
+            g = float(dlen @ dl)
+        else:
+            lo, hi = treatment.bounds()
+            up, down = x.copy(), x.copy()
+            up[p] = min(x[p] + FD_STEP, hi)
+            down[p] = max(x[p] - FD_STEP, lo)
+            g = (value(up) - value(down)) / (up[p] - down[p])
+        return -ll, -np.append(grad, g)
+
+    return objective, value
+
+
 def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STARTS, seed: int = 0,
-              lower: float = LOWER, upper: float = UPPER, max_starts: int = MAX_STARTS) -> FitResult:
+              lower: float = LOWER, upper: float = UPPER, max_starts: int = MAX_STARTS,
+              branches: Treatment | None = None) -> FitResult:
     """Maximum-likelihood rates of ``model`` on one tree (see the module docstring).
 
     Runs the seeded starts in order: at least ``n_starts`` and min(free rates,
@@ -238,27 +292,46 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
 
     tip_partials are over the observed states (or already over a hidden-class
     model's combined states); the classes of a hidden-class model come back
-    numbered slowest first (mkforest.engine.hidden)."""
+    numbered slowest first (mkforest.engine.hidden).
+
+    branches: the branch-length treatment (mkforest.engine.branches); a fixed or
+    parameter-free one transforms the tree once, an estimated one adds its
+    parameter to the optimiser's (bounds in ``branches.BOUNDS``)."""
+    treatment = branches or Treatment()
+    if not treatment.free:
+        tree = transformed_tree(tree, treatment)
     f = LogLikelihood(tree, tip_partials, model, root)
     p = model.n_params
-    if p == 0:
+    q = treatment.n_params
+    fixed = treatment.fixed if treatment.fixed is not None else math.nan
+    if p + q == 0:
         ll = f(np.zeros(0))
         return FitResult(model.name, ll, np.zeros(0), model.labels, 0, np.isfinite(ll), 1, 1,
-                         (), (), root, model.q_matrix(np.zeros(0)))
+                         (), (), root, model.q_matrix(np.zeros(0)), branches=treatment.label,
+                         branch_parameter=fixed)
     starts, (lo, hi) = start_sequence(tree, tip_partials, model, seed, lower, upper)
     max_starts = max(max_starts, n_starts)
     least = min_starts(model.n_params, n_starts, max_starts)
+    bounds = [(lo, hi)] * p
 
-    def objective(x):
-        # exact gradient (mkforest.engine.gradient), in log-rate space
-        ll, grad = log_likelihood_and_gradient(tree, f.tip_partials, model, np.exp(x), root)
-        if not np.isfinite(ll):
-            return _IMPOSSIBLE, np.zeros(p)
-        return -ll, -grad
+    if q:
+        starts = _branch_starts(tree, treatment, starts, seed)
+        bounds.append(treatment.bounds())
+        objective, value = _treatment_objective(tree, f.tip_partials, model, root, treatment)
+    else:
+        def objective(x):
+            # exact gradient (mkforest.engine.gradient), in log-rate space
+            ll, grad = log_likelihood_and_gradient(tree, f.tip_partials, model, np.exp(x), root)
+            if not np.isfinite(ll):
+                return _IMPOSSIBLE, np.zeros(p)
+            return -ll, -grad
+
+        def value(x):
+            return f(np.exp(x))
 
     results = []
     for x0 in starts:
-        res = minimize(objective, x0, method="L-BFGS-B", jac=True, bounds=[(lo, hi)] * p,
+        res = minimize(objective, x0, method="L-BFGS-B", jac=True, bounds=bounds,
                        options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6})
         results.append((res.fun, res.x))
         if len(results) >= max_starts:
@@ -277,21 +350,31 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
         notes.append(f"only 1 of {run} starts reached the best log-likelihood")
     tied = open_ = ()
     if np.isfinite(ll):
-        best_x, ll = _settle_at_bounds(f, best_x, ll, lo, hi)
-        best_x, ll, tied, open_ = _settle_jointly_at_upper(f, best_x, ll, lo, hi)
+        best_x, ll = _settle_at_bounds(value, best_x, ll, [b[0] for b in bounds],
+                                       [b[1] for b in bounds])
+        tied, open_ = (), ()
+        if not q:  # rates that move together at the upper bound (fits on given lengths)
+            best_x, ll, tied, open_ = _settle_jointly_at_upper(f, best_x, ll, lo, hi)
+    else:
+        tied, open_ = (), ()
     # hidden rate classes: number the classes slowest first (same ln L, same meaning on every tree)
-    order = relabel_classes(model, np.exp(best_x))
-    best_x = best_x[order]
+    order = relabel_classes(model, np.exp(best_x[:p]))
+    best_x = np.concatenate([best_x[:p][order], best_x[p:]])
     tied = tuple(j for j in range(p) if order[j] in tied)
     open_ = tuple(j for j in range(p) if order[j] in open_)
     at_lower = tuple(model.labels[i] for i in range(p) if best_x[i] == lo)
     at_upper = tuple(model.labels[i] for i in range(p) if best_x[i] == hi or i in tied)
     open_upper = tuple(model.labels[i] for i in open_ if model.labels[i] not in at_upper)
-    rates = np.exp(best_x)
+    rates = np.exp(best_x[:p])
     per_start = tuple(-r[0] if r[0] < _IMPOSSIBLE else -np.inf for r in results)
-    return FitResult(model.name, ll, rates, model.labels, p, converged, run, n_agree,
+    theta, side = fixed, ""
+    if q:
+        theta = treatment.theta(best_x[p], tree)
+        blo, bhi = treatment.bounds()
+        side = "lower" if best_x[p] == blo else ("upper" if best_x[p] == bhi else "")
+    return FitResult(model.name, ll, rates, model.labels, p + q, converged, run, n_agree,
                      at_lower, at_upper, root, model.q_matrix(rates), notes, per_start,
-                     open_upper)
+                     open_upper, treatment.label, theta, side)
 
 
 def min_starts(n_params: int, n_starts: int = MIN_STARTS, max_starts: int = MAX_STARTS) -> int:

@@ -100,7 +100,7 @@ def _normalise_abs(x):
 
 @numba.njit(cache=True)
 def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use_matrices,
-                   partials, B, msg, root_outside, coef, G):
+                   partials, B, msg, root_outside, coef, G, dlen):
     """Up pass and accumulation of G (see the module docstring).
 
     partials   [n_nodes, k]  the down pass of the likelihood kernel (scaled per node)
@@ -110,6 +110,9 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
                (reducible chains, as in the likelihood kernel), else unused
     root_outside [k]         dL / dL_root,i of the root treatment
     G          [k, k]        filled with the sum over branches (same dtype as V)
+    dlen       [n_nodes]     filled with d lnL / d t_c per branch: dP/dt = Q P, so
+               u' Q P_c D_c / u' P_c D_c = sum_m (V'u)_m lam_m e^(lam_m t) (V^-1 D_c)_m / den
+               (used by branch-length treatments; 0 at the root)
     Returns False if a branch's u' P D is not positive (underflow), so that the
     caller can fall back to finite differences.
     """
@@ -144,6 +147,7 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
         for q in range(k):
             G[m, q] = 0.0
     outside = np.zeros((n, k))
+    dlen[n - 1] = 0.0
     for i in range(k):
         outside[n - 1, i] = root_outside[i]
     _normalise_abs(outside[n - 1])
@@ -175,6 +179,10 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
                     s += V[i, m] * u[i]
                 a[m] = s
             t = length[c]
+            s = a[0] * lam[0] * (E1[c, 0] + 1.0) * B[c, 0]
+            for m in range(1, k):
+                s += a[m] * lam[m] * (E1[c, m] + 1.0) * B[c, m]
+            dlen[c] = s.real / den
             if t > 0.0:
                 for m in range(k):
                     am = a[m] / den
@@ -205,12 +213,12 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
 
 @numba.njit(cache=True)
 def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, tip_partials,
-                        data_weighted, weights, rate_index, coef, root_partial, grad):
+                        data_weighted, weights, rate_index, coef, root_partial, grad, dlen):
     """Down pass (the likelihood kernel), root, up pass and contraction in one call.
 
     data_weighted: root weights L_i / sum L (FitzJohn et al. 2009), else ``weights``.
-    Fills root_partial [k] (scaled) and grad [n_params] (d lnL / d rate, before any
-    stationary-root term). Returns (status, lnL): status 0 ok, 1 data impossible,
+    Fills root_partial [k] (scaled), grad [n_params] (d lnL / d rate, before any
+    stationary-root term) and dlen [n_nodes] (d lnL / d branch length). Returns (status, lnL): status 0 ok, 1 data impossible,
     2 gradient not available (underflow in the up pass; use finite differences).
     """
     n = child_ptr.shape[0] - 1
@@ -259,7 +267,7 @@ def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv
         root_partial[i] = partials[n - 1, i] / total
     G = np.empty((k, k), dtype=V.dtype)
     if not _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P,
-                          not irreducible, partials, B, msg, outside, coef, G):
+                          not irreducible, partials, B, msg, outside, coef, G, dlen):
         return 2, ll
     # d lnL/d theta_p = sum over entries (i, j) of parameter p of H_ij - H_ii,
     # H = Re(V^-T G V^T)
@@ -324,14 +332,21 @@ def exact_gradient_applies(Q, root) -> bool:
     return _analytic_eigensystem(np.asarray(Q, dtype=np.float64), root) is not None
 
 
-def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform", states=None):
+def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform", states=None,
+                                lengths_gradient: bool = False):
     """(lnL, d lnL / d log(rate_p) for every free rate p) of ``model`` at ``rates``.
 
     lnL is the engine's ``likelihood.log_likelihood`` (same kernels; equal to
     rounding); -inf (with a zero gradient) when the data are impossible under
     the rates. ``states`` names the states for a fixed-state root (default: the
-    model's).
+    model's). With ``lengths_gradient`` a third item, d lnL / d t_b for every
+    branch [n_nodes], or None where the gradient falls back to finite differences.
     """
+    out = _value_and_gradients(tree, tip_partials, model, rates, root, states)
+    return out if lengths_gradient else out[:2]
+
+
+def _value_and_gradients(tree, tip_partials, model, rates, root, states):
     rates = np.asarray(rates, dtype=np.float64)
     tip_partials = np.ascontiguousarray(tip_partials, dtype=np.float64)
     if states is None:
@@ -339,7 +354,7 @@ def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform"
     Q = model.q_matrix(rates)
     es = _analytic_eigensystem(Q, root)
     if es is None:
-        return finite_difference_gradient(tree, tip_partials, model, rates, root, states)
+        return (*finite_difference_gradient(tree, tip_partials, model, rates, root, states), None)
     stationary = root == "stationary"
     lam, V, Vinv = es
     k = Q.shape[0]
@@ -348,13 +363,14 @@ def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform"
     weights = _ONE if data_weighted else root_weights(root, Q, None, states)
     root_partial = np.empty(k)
     grad = np.empty(model.n_params)
+    dlen = np.empty(tree.n_nodes)
     status, ll = _value_and_gradient(tree.child_ptr, tree.children, tree.n_tips, tree.length, Q,
                                      lam, E1, V, Vinv, tip_partials, data_weighted, weights,
-                                     model.rate_index, _PHI1, root_partial, grad)
+                                     model.rate_index, _PHI1, root_partial, grad, dlen)
     if status == 1:
-        return -np.inf, np.zeros(model.n_params)
+        return -np.inf, np.zeros(model.n_params), np.zeros(tree.n_nodes)
     if status == 2:
-        return finite_difference_gradient(tree, tip_partials, model, rates, root, states)
+        return (*finite_difference_gradient(tree, tip_partials, model, rates, root, states), None)
     if stationary:
         # d pi = -pi dQ (Q - 1 pi)^-1, so d pi . L_root / L = -pi dQ z with
         # z = (Q - 1 pi)^-1 L_root / L (root_partial is already L_root / L)
@@ -362,4 +378,4 @@ def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform"
         M = -weights[:, None] * (z[None, :] - z[:, None])
         free = model.rate_index >= 0
         grad += np.bincount(model.rate_index[free], weights=M[free], minlength=model.n_params)
-    return ll, grad * rates
+    return ll, grad * rates, dlen

@@ -285,6 +285,9 @@ def mixed_stochastic_maps(tree, tip_partials, fits, n_maps: int, rng, states=Non
     each map's index in fits. A model with hidden rate classes is mapped on its combined
     states and the maps are reported over the observed states: changes of state within a
     class are counted (class switches are not), time is summed over the classes.
+    A fifth item, the tree of that model (its own branch lengths, mkforest.engine.branches),
+    maps on that tree, with dwell times scaled to the given tree's total length so they
+    stay fractions of the same whole.
     """
     fits = list(fits)
     w = np.array([float(f[2]) for f in fits])
@@ -293,14 +296,18 @@ def mixed_stochastic_maps(tree, tip_partials, fits, n_maps: int, rng, states=Non
         raise ValueError("mapping under a mixture needs at least one model with a positive weight")
     per_model = rng.multinomial(n_maps, w / w.sum())
     parts = []
-    for i, ((Q, root, _, *model), n) in enumerate(zip(fits, per_model)):
+    for i, ((Q, root, _, *extra), n) in enumerate(zip(fits, per_model)):
         if n == 0:
             continue
-        if model and model[0].n_classes > 1:
-            ms = observed_maps(stochastic_maps(tree, model[0].expand_tips(tip_partials), Q, int(n),
-                                               rng, root, model[0].states), model[0])
+        model = extra[0] if extra else None
+        on = extra[1] if len(extra) > 1 and extra[1] is not None else tree
+        if model is not None and model.n_classes > 1:
+            ms = observed_maps(stochastic_maps(on, model.expand_tips(tip_partials), Q, int(n),
+                                               rng, root, model.states), model)
         else:
-            ms = stochastic_maps(tree, tip_partials, Q, int(n), rng, root, states)
+            ms = stochastic_maps(on, tip_partials, Q, int(n), rng, root, states)
+        if on is not tree and on.total_length > 0:
+            ms.dwell *= tree.total_length / on.total_length
         ms.model[:] = i
         parts.append(ms)
     return MapSet(np.concatenate([p.counts for p in parts]),

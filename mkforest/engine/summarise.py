@@ -68,7 +68,7 @@ def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
     fits["delta"] = np.nan
     fits["weight"] = np.nan
     use = fits["same_as"].fillna("") == "" if "same_as" in fits else pd.Series(True, fits.index)
-    for _, idx in fits[use].groupby(["analysis", "tree"]).groups.items():
+    for _, idx in fits[use].groupby(_keys(fits, "analysis", "tree")).groups.items():
         vals = fits.loc[idx, criterion].to_numpy(dtype=float)
         finite = np.isfinite(vals)
         if not finite.any():
@@ -76,6 +76,12 @@ def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
         fits.loc[idx, "delta"] = vals - vals[finite].min()
         fits.loc[idx, "weight"] = akaike_weights(vals)
     return fits
+
+
+def _keys(frame, *names) -> list:
+    """Group keys, with the tree set first when the table has one (several tree
+    sets share tree positions, so every per-tree grouping includes the set)."""
+    return (["tree_set"] if "tree_set" in frame else []) + list(names)
 
 
 def _q(x, p):
@@ -87,7 +93,8 @@ def _q(x, p):
 def model_support(fits: pd.DataFrame) -> pd.DataFrame:
     """One row per analysis x model (``fits`` must carry delta and weight)."""
     rows = []
-    for (analysis, model), g in fits.groupby(["analysis", "model"], sort=False):
+    for key, g in fits.groupby(_keys(fits, "analysis", "model"), sort=False):
+        analysis, model = key[-2:]
         fitted = g[np.isfinite(g["delta"].astype(float))]
         n = len(fitted)
         ll = g["log_likelihood"].astype(float)
@@ -95,7 +102,9 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
         tried = ~ll.isna()                          # NaN: not fitted (trait does not vary)
         at_bound = ((g["at_lower"].fillna("") != "") | (g["at_upper"].fillna("") != "")).sum()
         rows.append({
+            **({"tree_set": key[0]} if len(key) == 3 else {}),
             "analysis": analysis, "model": model, "n_params": int(g["n_params"].iloc[0]),
+            **branch_columns(g, fitted),
             "n_trees": n,
             "mean_weight": fitted["weight"].mean() if n else np.nan,
             "median_weight": fitted["weight"].median() if n else np.nan,
@@ -112,11 +121,26 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
             "n_rates_open_upper": int(((g["open_upper"].fillna("") != "")
                                        & (g["at_upper"].fillna("") == "")).sum())
             if "open_upper" in g else 0,
+            "n_branch_at_bound": int((g["branch_at_bound"].fillna("") != "").sum())
+            if "branch_at_bound" in g else 0,
             "same_as": g["same_as"].iloc[0] if "same_as" in g else "",
         })
     out = pd.DataFrame(rows)
     out["caution"] = [cautions(r) for r in out.to_dict("records")]
     return out
+
+
+def branch_columns(g: pd.DataFrame, fitted: pd.DataFrame) -> dict:
+    """The treatment of one model and, when it has a parameter, its median and central 95%
+    interval across the fitted trees."""
+    if "branches" not in g:
+        return {}
+    est = fitted["branch_parameter"].astype(float) if "branch_parameter" in fitted else []
+    return {"branches": g["branches"].iloc[0],
+            "branch_parameter_median": float(np.median(est[np.isfinite(est)]))
+            if np.isfinite(est).any() else np.nan,
+            "branch_parameter_low95": _q(est, 0.025),
+            "branch_parameter_high95": _q(est, 0.975)}
 
 
 def cautions(row: dict) -> str:
@@ -146,6 +170,9 @@ def cautions(row: dict) -> str:
     if lower_only > 0:
         words.append(f"{lower_only} of {total} fits put a rate at the lower bound "
                      "(effectively zero: no support for that change)")
+    if row.get("n_branch_at_bound"):
+        words.append(f"{row['n_branch_at_bound']} of {row['n_trees']} fits put the branch-length "
+                     f"parameter ({row.get('branches', '')}) at a bound of its range")
     if row["n_trees"] < FEW_TREES:
         words.append(f"only {row['n_trees']} tree{'' if row['n_trees'] == 1 else 's'}: intervals across trees are rough")
     return "; ".join(words)
@@ -164,7 +191,7 @@ def class_count(states) -> int:
 
 
 def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
-    """Model-averaged rate per analysis x tree x transition.
+    """Model-averaged rate per (tree set x) analysis x tree x transition.
 
     Models are averaged with others on the same states: the plain models of an
     analysis together, and the models with R hidden rate classes (states
@@ -177,26 +204,28 @@ def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
     bound or with a 95% interval reaching it); ``unbounded`` is True when their
     part of the averaged rate is at least BOUND_SHARE of it (the averaged value
     then rests on rates the data cannot bound, see the module docstring)."""
-    w = fits[["analysis", "model", "tree", "weight"]].dropna()
-    r = rates.merge(w, on=["analysis", "model", "tree"], how="inner")
+    keys = _keys(fits, "analysis", "model", "tree")
+    w = fits[keys + ["weight"]].dropna()
+    r = rates.merge(w, on=keys, how="inner")
     groups = {key: class_count(set(g["from_state"]) | set(g["to_state"]))
               for key, g in rates.groupby(["analysis", "model"], sort=False)}
     r["classes"] = [groups[(a, m)] for a, m in zip(r["analysis"], r["model"])]
     wg = w.copy()
     wg["classes"] = [groups.get((a, m), 1) for a, m in zip(wg["analysis"], wg["model"])]
-    total = wg.groupby(["analysis", "tree", "classes"])["weight"].sum().rename("group_weight")
-    r = r.merge(total.reset_index(), on=["analysis", "tree", "classes"], how="left")
+    per = _keys(fits, "analysis", "tree", "classes")
+    total = wg.groupby(per)["weight"].sum().rename("group_weight")
+    r = r.merge(total.reset_index(), on=per, how="left")
     r["group_w"] = np.where(r["group_weight"] > 0, r["weight"] / r["group_weight"], 0.0)
     r["weighted"] = r["rate"] * r["group_w"]
     upper = _upper_flags(r)
     r["weighted_upper"] = r["weighted"].where(upper, 0.0)
     r["weight_upper"] = r["group_w"].where(upper, 0.0)
-    out = (r.groupby(["analysis", "tree", "from_state", "to_state"], sort=False)
+    out = (r.groupby(_keys(fits, "analysis", "tree", "from_state", "to_state"), sort=False)
            [["weighted", "weighted_upper", "weight_upper"]].sum().reset_index()
            .rename(columns={"weighted": "rate", "weight_upper": "weight_unbounded"}))
     out["unbounded"] = (out["weighted_upper"] > 0) & \
         (out["weighted_upper"] >= BOUND_SHARE * out["rate"])
-    out.insert(1, "model", "averaged")
+    out.insert(out.columns.get_loc("analysis") + 1, "model", "averaged")
     return out.drop(columns="weighted_upper")
 
 
@@ -226,25 +255,28 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
     least that there). ``status``: estimated, partly_unbounded or unbounded.
     For the model average, the trees flagged ``unbounded`` in averaged_rates
     count as unbounded."""
-    per_model = rates[["analysis", "model", "tree", "from_state", "to_state", "rate"]].copy()
+    per_model = rates[_keys(rates, "analysis", "model", "tree", "from_state", "to_state", "rate")].copy()
     per_model["upper"] = _upper_flags(rates).to_numpy()
     per_model["lower"] = _lower_flags(rates).to_numpy()
     per_model["at_upper"] = rates["at_bound"].fillna("").astype(str).str.strip().eq(
         "upper").to_numpy() if "at_bound" in rates else False
-    avg = averaged[["analysis", "model", "tree", "from_state", "to_state", "rate"]].copy()
+    avg = averaged[_keys(averaged, "analysis", "model", "tree", "from_state", "to_state", "rate")].copy()
     avg["upper"] = _upper_flags(averaged).to_numpy()
     avg["lower"] = False
     avg["at_upper"] = False
     both = pd.concat([per_model, avg], ignore_index=True)
     rows = []
-    for (a, m, f, t), g in both.groupby(["analysis", "model", "from_state", "to_state"], sort=False):
+    for key, g in both.groupby(_keys(both, "analysis", "model", "from_state", "to_state"),
+                               sort=False):
+        a, m, f, t = key[-4:]
         x = g["rate"].to_numpy(float)
         upper = g["upper"].to_numpy(bool)
         at_upper = g["at_upper"].to_numpy(bool)
         est = x[~upper]
         status = "estimated" if not upper.any() else ("unbounded" if est.size == 0
                                                       else "partly_unbounded")
-        rows.append({"analysis": a, "model": m, "from_state": f, "to_state": t,
+        rows.append({**({"tree_set": key[0]} if len(key) == 5 else {}),
+                     "analysis": a, "model": m, "from_state": f, "to_state": t,
                      "n_trees": len(x), "n_estimated": int(est.size),
                      "n_unbounded": int(upper.sum()), "n_at_upper": int(at_upper.sum()),
                      "n_at_lower": int(g["lower"].sum()),

@@ -48,6 +48,7 @@ from ..data.clades import (
     taxon_bits,
 )
 from ..engine.ancestral import ImpossibleData, averaged_probabilities, marginal_probabilities
+from ..engine.branches import tree_of_fit
 from ..engine.compare import akaike_weights
 from ..engine.mapping import mixed_stochastic_maps
 from ..errors import InputError
@@ -225,7 +226,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
 
     for t, tree in enumerate(trees):
         X = trait.tip_partials(tree, absent=absent)
-        crit, Qs, roots, conv, bound = [], [], [], [], []
+        crit, Qs, roots, conv, bound, own = [], [], [], [], [], []
         for name in names:
             row = fit_by.get((name, tree.index))
             if row is None:
@@ -237,6 +238,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             Qs.append(q_from_rate_rows(g, mstates) if g is not None
                       else np.zeros((len(mstates), len(mstates))))
             roots.append(models[name][1])
+            own.append(tree_of_fit(tree, row.get("branches"), row.get("branch_parameter")))
             conv.append(str(row["converged"]).lower() == "true")
             # a rate at the lower bound is a change the data do not support (rate ~ 0), which
             # maps handle; a rate at the upper bound, or whose 95% interval reaches it, has no
@@ -251,7 +253,8 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
         model_at_upper[t] = bound
         unconverged[t] = float(sum(wi for wi, c in zip(w, conv) if not c))
         at_bound[t] = float(sum(wi for wi, b in zip(w, bound) if b))
-        mix = [(Q, r, wi, models[name][0]) for Q, r, wi, name in zip(Qs, roots, w, names)]
+        mix = [(Q, r, wi, models[name][0], tr)
+               for Q, r, wi, name, tr in zip(Qs, roots, w, names, own)]
         try:
             p = averaged_probabilities(tree, X, mix, states)
         except (ImpossibleData, ValueError):
@@ -265,7 +268,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             if not np.isfinite(crit[i]):
                 continue
             try:
-                per_model[name] = marginal_probabilities(tree, models[name][0].expand_tips(X),
+                per_model[name] = marginal_probabilities(own[i], models[name][0].expand_tips(X),
                                                          Qs[i], roots[i], models[name][0].states)
             except ImpossibleData:
                 continue

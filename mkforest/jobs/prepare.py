@@ -141,6 +141,25 @@ def tree_check_rows(summary: dict, used: list) -> list:
                              value=len(r["zero_tips"]), detail=", ".join(r["zero_tips"])))
     return rows
 
+def check_same_taxa_across_sets(firsts: dict) -> None:
+    """Every tree set must hold the same taxa. firsts: {set name: (a tree, its source)}."""
+    items = list(firsts.items())
+    name0, (tree0, source0) = items[0]
+    tips0 = set(tree0.tip_labels)
+    for name, (tree, source) in items[1:]:
+        tips = set(tree.tip_labels)
+        if tips != tips0:
+            extra = sorted(tips - tips0)
+            lack = sorted(tips0 - tips)
+            parts = []
+            if extra:
+                parts.append(f"has {', '.join(repr(x) for x in extra[:5])}")
+            if lack:
+                parts.append(f"lacks {', '.join(repr(x) for x in lack[:5])}")
+            raise InputError(f"tree set '{name}' ({source}) {' and '.join(parts)} compared with "
+                             f"tree set '{name0}' ({source0}); tree sets are compared on the same "
+                             "taxa, so every set must have the same tips.")
+
 
 # trees.per_job: auto. Every job pays a start-up (Python, NumPy, SciPy, numba and the
 # package: about 1.3 s of CPU, measured in benchmarks/bench_workflow.py), so a job

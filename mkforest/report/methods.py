@@ -20,9 +20,11 @@ from pathlib import Path
 
 import pandas as pd
 
+from ..data.config import tree_sets
 from ..engine.fitting import AGREE_TOL, RATE_STARTS
 from ..engine.pairs import HYPOTHESES
 from .citations import REFERENCES, cite, cited_in
+from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
 from .words import hypothesis_words, model_words
 
 CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
@@ -175,8 +177,8 @@ def _data_paragraph(config, tables) -> str:
 
 
 def _trees_paragraph(config, tables) -> str:
-    tcfg = config["trees"]
-    used = tables["trees_used"]
+    tcfg = next(iter(tree_sets(config).values()))
+    used = first_set(tables["trees_used"])
     positions = sorted(int(t) for t in used["tree"])
     n = len(positions)
     name = Path(tcfg["file"]).name
@@ -537,7 +539,7 @@ def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) ->
         by_k.setdefault(k, []).append(trait)
     traits = [f"{listing(names)} ({k} states{' each' if len(names) > 1 else ''})"
               for k, names in by_k.items()]
-    tcfg = config["trees"]
+    tcfg = next(iter(tree_sets(config).values()))  # the first tree set
     burn = tcfg["burnin"]
     dropped = _tree_counts(tables).get("dropped_as_burnin")     # counted, not the setting
     if dropped is None:              # a run from before these counts were recorded
@@ -741,6 +743,10 @@ def _ancestral_cautions(analysis, tables) -> list:
 # --------------------------------------------------------------------------- the whole text
 
 def methods_text(config: dict, tables: dict, models: dict, software: dict) -> str:
+    sets = tree_sets(config)
+    # the sections below describe the first tree set; the comparison of sets has its own
+    tables = {name: (t if name in ("tree_set_support", "treatment_support") else first_set(t))
+              for name, t in tables.items()}
     support = tables["model_support"]
     crit_name = CRITERION_NAMES[config["criterion"]]
     pair_summary = tables.get("pair_summary")
@@ -755,10 +761,14 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
            brief_paragraph(config, tables, models, software), "",
            "## Methods in full", "",
            "**Data and trees.** " + _data_paragraph(config, tables) + " "
-           + _trees_paragraph(config, tables), "",
+           + (f"Tree set '{next(iter(sets))}'. " if len(sets) > 1 else "")
+           + _trees_paragraph(config, tables)
+           + (" " + tree_sets_paragraph(sets) if len(sets) > 1 else ""), "",
            "**Models.** " + _models_paragraph(config, models, support), "",
            "**Fitting.** " + _fitting_paragraph(config, software), "",
            "**Model comparison.** " + _comparison_paragraph(config), ""]
+    if branches_paragraph(config):
+        out += ["**Branch lengths.** " + branches_paragraph(config), ""]
     if has_pairs:
         out += ["**Trait pairs.** " + _pairs_paragraph(config, pair_summary), ""]
     if has_ancestral:
@@ -776,6 +786,9 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
     for analysis in models:
         out += [f"### {analysis}", "", _analysis_results(analysis, support, rate_summary, crit_name,
                                                         len(tables["trees_used"]))]
+        extra = results_lines(analysis, tables)
+        if extra:
+            out += ["", " ".join(extra)]
         if has_pairs and pair_summary is not None and analysis in config["pairs"]:
             pr = _pair_results(analysis, pair_summary)
             if pr:

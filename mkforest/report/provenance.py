@@ -37,6 +37,7 @@ from pathlib import Path, PurePosixPath
 
 import yaml
 
+from ..data.config import tree_sets
 from ..data.trees import describe_rooting
 from ..errors import InputError
 
@@ -79,10 +80,16 @@ def now_utc() -> str:
 
 # --------------------------------------------------------------------------- the manifest
 
+def input_keys(config: dict) -> tuple:
+    """INPUT_KEYS plus one ('tree_set.<name>', key path) per tree set of ``tree_sets``."""
+    return INPUT_KEYS + tuple((f"tree_set.{n}", ("tree_sets", n, "file"))
+                              for n in (config.get("tree_sets") or {}))
+
+
 def input_files(config: dict) -> list:
     """[(role, path)] of the input files a config names."""
     out = []
-    for role, keys in INPUT_KEYS:
+    for role, keys in input_keys(config):
         value = config
         for k in keys:
             value = value.get(k) if isinstance(value, dict) else None
@@ -162,9 +169,11 @@ def build_manifest(config: dict, run_dir, outputs, inputs, trees_used, invocatio
         rel = Path(p).resolve().relative_to(run_dir.resolve())
         records.append(file_record(p, rel.as_posix()))
     input_records = [{"role": role, **file_record(path, str(path))} for role, path in inputs]
-    positions = _tree_positions(trees_used)
-    tcfg = config["trees"]
-    trees_record = next(r for r in input_records if r["role"] == "trees")
+    positions, per_set = _tree_positions(trees_used)
+    sets = tree_sets(config)
+    tcfg = next(iter(sets.values()))
+    trees_record = next(r for r in input_records
+                        if r["role"] == "trees" or r["role"].startswith("tree_set."))
     return {
         "mkforest_manifest": FORMAT_VERSION,
         "run": config["run"],
@@ -179,6 +188,8 @@ def build_manifest(config: dict, run_dir, outputs, inputs, trees_used, invocatio
             "positions_are": "0-based positions of the trees used in the tree file, after "
                              "burn-in, thinning and sampling (tables/trees_used.tsv)",
         },
+        "tree_sets": {name: {"file": spec["file"], "n_used": per_set.get(name, 0)}
+                      for name, spec in sets.items()},
         "inputs": input_records,
         "outputs": records,
         "config": config,
@@ -189,11 +200,20 @@ def build_manifest(config: dict, run_dir, outputs, inputs, trees_used, invocatio
     }
 
 
-def _tree_positions(path) -> list:
+def _tree_positions(path) -> tuple:
+    """(positions of the first tree set's trees, {set name: trees used})."""
     lines = Path(path).read_text().splitlines()
     header = lines[0].split("\t")
     col = header.index("tree")
-    return [int(line.split("\t")[col]) for line in lines[1:] if line.strip()]
+    rows = [line.split("\t") for line in lines[1:] if line.strip()]
+    if "tree_set" not in header:
+        return [int(r[col]) for r in rows], {}
+    sc = header.index("tree_set")
+    counts = {}
+    for r in rows:
+        counts[r[sc]] = counts.get(r[sc], 0) + 1
+    first = rows[0][sc] if rows else ""
+    return [int(r[col]) for r in rows if r[sc] == first], counts
 
 
 def write_json(path, data) -> None:
@@ -499,7 +519,7 @@ def citation_cff(manifest: dict, methods: str, authors, title: str | None, date:
 
 def _rerun_config(config: dict, packed_inputs: dict) -> str:
     cfg = copy.deepcopy(config)
-    for role, keys in INPUT_KEYS:
+    for role, keys in input_keys(config):
         if role in packed_inputs:
             node = cfg
             for k in keys[:-1]:

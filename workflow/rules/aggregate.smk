@@ -19,8 +19,29 @@ rule aggregate_fits:
             category="Tables",
         ),
         averaged=f"{OUT}/tables/averaged_rates.tsv",  # on disk; its summary is in the report
+        treatments=report(
+            f"{OUT}/tables/treatment_support.tsv",
+            caption="../report/treatment_support.rst",
+            category="Tables",
+        ),
+        branch_tests=report(
+            f"{OUT}/tables/branch_tests.tsv",
+            caption="../report/branch_tests.rst",
+            category="Tables",
+        ),
+        branch_test_summary=report(
+            f"{OUT}/tables/branch_test_summary.tsv",
+            caption="../report/branch_test_summary.rst",
+            category="Tables",
+        ),
+        tree_sets=report(
+            f"{OUT}/tables/tree_set_support.tsv",
+            caption="../report/tree_set_support.rst",
+            category="Tables",
+        ),
     params:
         criterion=config["criterion"],
+        tree_sets=list(TREE_SETS),
         analyses=ANALYSES,
         model_order=[m for models in ANALYSES.values() for m in models],
     log:

@@ -17,12 +17,14 @@ def ancestral_chunk_inputs(kind):
 
 def ancestral_chunk_files(wildcards):
     return [
-        f"{OUT}/ancestral/{a}/chunk_{c}.npz" for a in ANALYSES for c in chunk_ids()
+        f"{OUT}/ancestral/{a}/chunk_{c}.npz"
+        for a in ANALYSES
+        for c in chunk_ids(first_set_only=True)
     ]
 
 
 def prepared_tree_chunks(wildcards):
-    return [f"{OUT}/prepared/trees/chunk_{c}.npz" for c in chunk_ids()]
+    return [f"{OUT}/prepared/trees/chunk_{c}.npz" for c in chunk_ids(first_set_only=True)]
 
 
 def ancestral_params(wildcards):

@@ -5,7 +5,13 @@ import math
 import os
 import sys
 
-from mkforest.data.config import analyses, ancestral_job_config, fit_job_config, hidden_class_models
+from mkforest.data.config import (
+    analyses,
+    ancestral_job_config,
+    fit_job_config,
+    hidden_class_models,
+    tree_sets,
+)
 from mkforest.errors import InputError
 from mkforest.jobs.fit import check_config
 
@@ -24,6 +30,8 @@ except InputError as exc:
 
 OUT = f"results/{config['run']}"
 ANALYSES = analyses(config)
+TREE_SETS = tree_sets(config)
+FIRST_SET = next(iter(TREE_SETS))
 ENV = "../../envs/mkforest.yaml"
 
 
@@ -51,10 +59,16 @@ wildcard_constraints:
     chunk=r"\d+",
 
 
-def chunk_ids(wildcards=None):
-    """Chunk numbers written by the prepare_trees checkpoint."""
+def chunk_ids(wildcards=None, first_set_only=False):
+    """Chunk numbers written by the prepare_trees checkpoint (every tree set's, numbered
+    on from one set to the next; with first_set_only, those of the first set)."""
     folder = checkpoints.prepare_trees.get().output.chunks
-    return sorted(glob_wildcards(os.path.join(folder, "chunk_{chunk}.npz")).chunk)
+    ids = sorted(glob_wildcards(os.path.join(folder, "chunk_{chunk}.npz")).chunk)
+    if first_set_only:
+        with open(os.path.join(folder, "sets.json")) as fh:
+            first = set(json.load(fh)[FIRST_SET])
+        ids = [c for c in ids if c in first]
+    return ids
 
 
 def fit_files(kind):
@@ -142,4 +156,10 @@ def all_targets(wildcards):
         f"{OUT}/tables/model_support.tsv",
         f"{OUT}/tables/rate_summary.tsv",
         f"{OUT}/tables/data_check.tsv",
+        f"{OUT}/tables/treatment_support.tsv",
+        f"{OUT}/tables/branch_tests.tsv",
+        f"{OUT}/tables/branch_test_summary.tsv",
+        f"{OUT}/tables/tree_set_support.tsv",
+        f"{OUT}/plots/support_branches.png",
+        f"{OUT}/plots/support_branches.svg",
     ] + [f"{OUT}/plots/{p}.{ext}" for p in PLOTS for ext in ("png", "svg")]

@@ -26,3 +26,23 @@ rule plot_support:
         ENV
     script:
         "../../scripts/plot_support.py"
+
+
+rule plot_branches:
+    input:
+        fits=f"{OUT}/tables/fits.tsv",
+    output:
+        png=report(
+            f"{OUT}/plots/support_branches.png",
+            caption="../report/support_branches.rst",
+            category="Plots",
+        ),
+        svg=f"{OUT}/plots/support_branches.svg",  # for print; the report shows the PNG
+    params:
+        criterion=config["criterion"],
+    log:
+        f"{OUT}/logs/plot_branches.log",
+    conda:
+        ENV
+    script:
+        "../../scripts/plot_branches.py"

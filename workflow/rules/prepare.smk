@@ -3,7 +3,7 @@
 
 checkpoint prepare_trees:
     input:
-        trees=config["trees"]["file"],
+        trees=[s["file"] for s in TREE_SETS.values()],
     output:
         chunks=directory(f"{OUT}/prepared/trees"),
         used=report(
@@ -12,7 +12,7 @@ checkpoint prepare_trees:
             category="Data",
         ),
     params:
-        trees=stable(config["trees"]),
+        tree_sets=stable(TREE_SETS),
         seed=config["seed"],
     resources:
         # read by trees.per_job: auto (resources are no rerun trigger, params are)
@@ -53,6 +53,7 @@ rule make_demo_data:
         traits="demo/data/traits.tsv",
         truth="demo/data/truth.yaml",
         true_tree="demo/data/true_tree.nwk",
+        molecular="demo/data/trees_molecular.nex",
     log:
         "demo/data/make_demo_data.log",
     conda:

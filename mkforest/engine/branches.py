@@ -1,0 +1,239 @@
+"""Branch-length treatments: effective branch lengths as a function of one parameter.
+
+The likelihood sees a tree only through its branch lengths, so a treatment is a
+pure function (tree arrays, theta) -> (lengths t'_b, d t'_b / d theta); fitting
+treats theta as one more parameter and chains d lnL / d t'_b (the gradient's
+per-branch term) with d t'_b / d theta. t_b is the given length above node b,
+d(v) the root-to-node distance and H the largest root-to-tip distance.
+
+  as_given      t'_b = t_b
+  unit          t'_b = 1 (change per speciation event); zero-length branches stay 0
+  kappa         t'_b = t_b^kappa, 0 for t_b = 0 (Pagel 1994, Proc. R. Soc. B 255:37)
+  lambda        internal t'_b = lambda t_b; a tip's branch is lengthened to keep its
+                distance from the root: t'_b = d(b) - lambda d(parent) (Pagel 1999,
+                Nature 401:877)
+  delta         d'(v) = H (d(v)/H)^delta, t'_b = d'(b) - d'(parent) (Pagel 1999)
+  early_burst   rate e^(a s) at distance s from the root: a branch from s0 to s1 has
+                t'_b = (e^(a s1) - e^(a s0)) / a, t_b when a = 0 (the discrete-trait
+                form of Harmon et al. 2010, Evolution 64:2385)
+
+kappa = lambda = delta = 1 and a = 0 give the tree's own lengths (exactly), so a
+model with an estimated treatment is nested in the same model on the given
+lengths. The optimiser works on x: x = theta for kappa, lambda and delta, and
+x = a H for early_burst (so its bounds do not depend on the unit of length).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from numbers import Number
+
+import numba
+import numpy as np
+
+from ..errors import InputError
+
+TREATMENTS = ("as_given", "unit", "kappa", "lambda", "delta", "early_burst")
+ESTIMABLE = ("kappa", "lambda", "delta", "early_burst")
+# Optimiser bounds on x (see the module docstring) and the value giving the tree's lengths.
+BOUNDS = {"kappa": (0.0, 3.0), "lambda": (0.0, 1.0), "delta": (0.01, 3.0),
+          "early_burst": (-10.0, 10.0)}
+NULL_VALUE = {"kappa": 1.0, "lambda": 1.0, "delta": 1.0, "early_burst": 0.0}
+
+# 1/(n+1)! and n/(n+1)! for the series of phi(z) = (e^z - 1)/z and phi'(z), |z| <= 0.5
+# (18 terms: truncation error below 1e-20).
+_PHI = np.array([1.0 / math.factorial(n + 1) for n in range(18)])
+_DPHI = np.array([(n + 1) / math.factorial(n + 2) for n in range(18)])
+
+
+@dataclass(frozen=True)
+class Treatment:
+    """One model's branch-length treatment: its name, and the fixed parameter value
+    (None when the parameter is estimated, or when the treatment has none)."""
+
+    name: str = "as_given"
+    fixed: float | None = None
+
+    @property
+    def free(self) -> bool:
+        """True when the treatment adds an estimated parameter."""
+        return self.name in ESTIMABLE and self.fixed is None
+
+    @property
+    def n_params(self) -> int:
+        return 1 if self.free else 0
+
+    @property
+    def label(self) -> str:
+        """'kappa', or 'kappa=0' for a fixed value (the `branches` column of fits.tsv)."""
+        return self.name if self.fixed is None else f"{self.name}={self.fixed:g}"
+
+    def bounds(self) -> tuple:
+        return BOUNDS[self.name]
+
+    def theta(self, x: float, tree) -> float:
+        """The reported parameter for optimiser value x (a = x / H for early_burst)."""
+        return x / _height(tree) if self.name == "early_burst" else float(x)
+
+    def x_of(self, theta: float, tree) -> float:
+        return theta * _height(tree) if self.name == "early_burst" else float(theta)
+
+
+def parse_treatment(spec, at: str) -> Treatment:
+    """A treatment from the config value of ``models.<name>.branches`` (named ``at``):
+    a treatment name, or {name: value} for a fixed parameter."""
+    if spec is None:
+        return Treatment()
+    if isinstance(spec, str):
+        if spec not in TREATMENTS:
+            raise InputError(f"{at} is '{spec}': use one of {', '.join(TREATMENTS)}, or a fixed "
+                             "value such as {kappa: 0}.")
+        return Treatment(spec)
+    if isinstance(spec, dict) and len(spec) == 1:
+        (name, value), = spec.items()
+        if name not in ESTIMABLE:
+            raise InputError(f"{at}: '{name}' has no parameter to fix; a fixed value goes with "
+                             f"{', '.join(ESTIMABLE)}.")
+        if not isinstance(value, Number) or isinstance(value, bool) or not math.isfinite(value):
+            raise InputError(f"{at}.{name} is '{value}': give a number.")
+        lo, hi = {"kappa": (0.0, math.inf), "lambda": (0.0, 1.0), "delta": (0.0, math.inf),
+                  "early_burst": (-math.inf, math.inf)}[name]
+        if not lo <= value <= hi:
+            raise InputError(f"{at}.{name} is {value}: it must lie in [{lo:g}, {hi:g}].")
+        return Treatment(name, float(value))
+    raise InputError(f"{at} must be a treatment name ({', '.join(TREATMENTS)}) or one fixed "
+                     "value such as {kappa: 0}.")
+
+
+def _height(tree) -> float:
+    h = tree.height
+    return h if h > 0 else 1.0
+
+
+_CODES = {"kappa": 0, "lambda": 1, "delta": 2, "early_burst": 3}
+
+
+@numba.njit(cache=True)
+def _phi_pair(z, phi_coef, dphi_coef):
+    """(phi(z), phi'(z)) with phi(z) = (e^z - 1)/z, phi'(z) = (e^z (z - 1) + 1)/z^2, to full
+    relative precision: their series for |z| <= 0.5, where the closed forms cancel."""
+    if abs(z) <= 0.5:
+        n = phi_coef.shape[0]
+        p = phi_coef[n - 1]
+        q = dphi_coef[n - 1]
+        for i in range(n - 2, -1, -1):
+            p = p * z + phi_coef[i]
+            q = q * z + dphi_coef[i]
+        return p, q
+    return math.expm1(z) / z, (math.exp(z) * (z - 1.0) + 1.0) / (z * z)
+
+
+@numba.njit(cache=True)
+def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_coef, out, deriv):
+    """Effective lengths (out) and d/dx (deriv) for one estimable treatment, every node
+    (the formulas of the module docstring; the root's entry is 0). log_t = ln t and
+    log_r = ln(d/H) per node, computed once per tree (0 where t or d is 0)."""
+    n = t.shape[0]
+    for v in range(n - 1):
+        p = parent[v]
+        s0 = d[p]
+        if code == 0:  # kappa: t^kappa, zero-length branches stay zero
+            if t[v] > 0.0:
+                out[v] = math.exp(x * log_t[v]) if x != 1.0 else t[v]
+                deriv[v] = out[v] * log_t[v]
+            else:
+                out[v] = 0.0
+                deriv[v] = 0.0
+        elif code == 1:  # lambda; t + (1 - lambda) d(parent) for a tip is exactly t at 1
+            if v < n_tips:
+                out[v] = t[v] + (1.0 - x) * s0
+                deriv[v] = -s0
+            else:
+                out[v] = x * t[v]
+                deriv[v] = t[v]
+        elif code == 2:  # delta: difference of the transformed depths H (d/H)^delta
+            new1 = 0.0
+            der1 = 0.0
+            if d[v] > 0.0:
+                new1 = H * math.exp(x * log_r[v])
+                der1 = new1 * log_r[v]
+            new0 = 0.0
+            der0 = 0.0
+            if s0 > 0.0:
+                new0 = H * math.exp(x * log_r[p])
+                der0 = new0 * log_r[p]
+            # depths are monotone in d, so a negative difference is round-off;
+            # delta = 1 is the identity, exactly (a difference of depths rounds)
+            out[v] = t[v] if x == 1.0 else max(new1 - new0, 0.0)
+            deriv[v] = der1 - der0
+        else:  # early burst, a = x / H: e^(a s0) t phi(a t)
+            a = x / H
+            phi, dphi = _phi_pair(a * t[v], phi_coef, dphi_coef)
+            grow = math.exp(a * s0)
+            out[v] = grow * t[v] * phi
+            # d/da = s0 t' + e^(a s0) t^2 phi'(a t); d/dx = d/da / H
+            deriv[v] = (s0 * out[v] + grow * t[v] * t[v] * dphi) / H
+    out[n - 1] = 0.0
+    deriv[n - 1] = 0.0
+
+
+def _logs(tree):
+    """(depths, ln t, ln(d/H), H) of a tree, computed once and kept in its cache."""
+    if "branch_logs" not in tree._cache:
+        d = tree.depths()
+        H = float(d[: tree.n_tips].max())
+        t = tree.length
+        log_t = np.log(np.where(t > 0.0, t, 1.0))
+        log_r = np.log(np.where(d > 0.0, d / H, 1.0)) if H > 0 else np.zeros_like(d)
+        tree._cache["branch_logs"] = (d, log_t, log_r, H)
+    return tree._cache["branch_logs"]
+
+
+def effective_lengths(tree, treatment: Treatment, x: float | None = None):
+    """(lengths [n_nodes], d lengths / d x [n_nodes]) of ``treatment`` at optimiser value x
+    (ignored for a fixed or parameter-free treatment; d/dx is then zero)."""
+    t = tree.length
+    name = treatment.name
+    if treatment.fixed is not None:
+        x = treatment.x_of(treatment.fixed, tree)
+    d, log_t, log_r, H = _logs(tree)
+    if name == "as_given" or H == 0.0:
+        return t, np.zeros_like(t)
+    if name == "unit":
+        return np.where(t > 0.0, 1.0, 0.0), np.zeros_like(t)
+    out = np.empty_like(t)
+    deriv = np.empty_like(t)
+    _transform(_CODES[name], t, d, log_t, log_r, tree.parent, tree.n_tips, H, float(x), _PHI,
+               _DPHI, out, deriv)
+    return out, deriv
+
+
+def with_lengths(tree, lengths) -> "TreeArrays":
+    """A copy of ``tree`` (same topology, index and set) with other branch lengths."""
+    return tree.with_lengths(lengths)
+
+
+def transformed_tree(tree, treatment: Treatment, theta: float | None = None) -> "TreeArrays":
+    """The tree with the effective lengths of ``treatment`` at parameter ``theta``
+    (the reported value: kappa, lambda, delta or a)."""
+    if treatment.name == "as_given":
+        return tree
+    x = None if theta is None else treatment.x_of(theta, tree)
+    if treatment.free and x is None:
+        raise ValueError(f"treatment {treatment.name} needs a parameter value")
+    return with_lengths(tree, effective_lengths(tree, treatment, x)[0])
+
+
+def tree_of_fit(tree, label, parameter) -> "TreeArrays":
+    """The tree a fit used, from its fits.tsv ``branches`` label ('as_given', 'unit',
+    'kappa', 'kappa=0', ...) and ``branch_parameter`` (estimate; nan when fixed or none)."""
+    label = str(label or "as_given")
+    if label in ("as_given", "nan"):
+        return tree
+    name, _, fixed = label.partition("=")
+    if fixed:
+        return transformed_tree(tree, Treatment(name, float(fixed)))
+    if name in ESTIMABLE:
+        return transformed_tree(tree, Treatment(name), float(parameter))
+    return transformed_tree(tree, Treatment(name))

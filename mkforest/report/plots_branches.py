@@ -1,0 +1,94 @@
+"""Figure of support for branch-length treatments and tree sets across trees."""
+
+from __future__ import annotations
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import seaborn as sns  # noqa: E402
+
+from .methods_branches import first_set  # noqa: E402
+
+TREATMENT_COLOURS = {"as_given": "#4c6a92", "unit": "#c3793a", "kappa": "#5f9e6e",
+                     "lambda": "#8d6ab8", "delta": "#b5545c", "early_burst": "#8c8c3a"}
+
+
+def _colour(label: str) -> str:
+    return TREATMENT_COLOURS.get(str(label).split("=")[0], "#777777")
+
+
+def treatment_weights_per_tree(fits: pd.DataFrame) -> pd.DataFrame:
+    """Akaike weight summed by treatment on every tree of the first tree set."""
+    f = first_set(fits)
+    f = f[np.isfinite(f["weight"].astype(float))]
+    return (f.groupby(["analysis", "tree", "branches"], sort=False)["weight"].sum()
+            .reset_index())
+
+
+def best_per_tree(fits: pd.DataFrame, criterion: str) -> pd.DataFrame:
+    """ln L of the best model (smallest criterion) per tree set x analysis x tree, as the
+    difference to its median on the first set."""
+    f = fits.copy()
+    if "tree_set" not in f:
+        f["tree_set"] = ""
+    f = f[np.isfinite(f[criterion].astype(float))]
+    best = f.loc[f.groupby(["tree_set", "analysis", "tree"], sort=False)[criterion].idxmin()]
+    first = best["tree_set"].iloc[0]
+    ref = best[best["tree_set"] == first].groupby("analysis")["log_likelihood"].median()
+    best = best.assign(relative=best["log_likelihood"] - best["analysis"].map(ref))
+    return best
+
+
+def support_branches(fits: pd.DataFrame, criterion: str = "aicc"):
+    """Left: summed weight per treatment, one point per tree, bar at the mean, one row per
+    analysis. Right (several tree sets): the best model's ln L per tree and set, relative to
+    the median on the first set."""
+    w = treatment_weights_per_tree(fits)
+    analyses = list(dict.fromkeys(w["analysis"]))
+    sets = list(dict.fromkeys(fits["tree_set"])) if "tree_set" in fits else [""]
+    two = len(sets) > 1
+    order = ["as_given", "unit", "kappa", "lambda", "delta", "early_burst"]
+    labels = sorted(dict.fromkeys(w["branches"]),
+                    key=lambda b: (order.index(b.split("=")[0]) if b.split("=")[0] in order
+                                   else len(order), "=" in b, b))
+    height = 0.9 + 0.32 * len(analyses) * max(len(labels), 1)
+    fig, axes = plt.subplots(1, 2 if two else 1, figsize=(11.5 if two else 6.5, max(3.2, height)),
+                             squeeze=False)
+    ax = axes[0, 0]
+    rows = [(a, b) for a in analyses for b in labels if ((w["analysis"] == a) &
+                                                          (w["branches"] == b)).any()]
+    rng = np.random.default_rng(0)
+    for y, (a, b) in enumerate(rows):
+        x = w.loc[(w["analysis"] == a) & (w["branches"] == b), "weight"].to_numpy(float)
+        ax.barh(y, x.mean(), color=_colour(b), alpha=0.35, height=0.7)
+        ax.scatter(x, y + rng.uniform(-0.25, 0.25, len(x)), s=7, color=_colour(b), alpha=0.7,
+                   linewidths=0)
+    ax.set_yticks(range(len(rows)))
+    ax.set_yticklabels([f"{a} · {b}" for a, b in rows])
+    ax.invert_yaxis()
+    for y in range(1, len(rows)):
+        if rows[y][0] != rows[y - 1][0]:
+            ax.axhline(y - 0.5, color="#bbbbbb", linewidth=0.8)
+    ax.set_xlim(-0.02, 1.02)
+    ax.set_xlabel("Akaike weight summed over the models of a treatment (per tree; bar = mean)")
+    n = w["tree"].nunique()
+    ax.set_title(f"Branch-length treatments across {n} trees"
+                 + (f" (tree set '{sets[0]}')" if two else ""))
+    if two:
+        ax = axes[0, 1]
+        best = best_per_tree(fits, criterion)
+        best = best[best["analysis"].isin(analyses)]
+        palette = dict(zip(sets, sns.color_palette("colorblind", len(sets))))
+        sns.stripplot(data=best, y="analysis", x="relative", hue="tree_set", order=analyses,
+                      hue_order=sets, dodge=True, size=3, alpha=0.6, palette=palette, ax=ax,
+                      jitter=0.25)
+        ax.axvline(0, color="#999999", linewidth=0.8, linestyle="--")
+        ax.set_xlabel(f"ln L of the best model per tree − median on '{sets[0]}'")
+        ax.set_ylabel("")
+        ax.set_title("Tree sets: how well each trait fits")
+        ax.legend(title="tree set", loc="best", fontsize=8, title_fontsize=8)
+    fig.tight_layout()
+    return fig

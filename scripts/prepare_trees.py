@@ -52,7 +52,7 @@ def main(smk):
                         "(tables/data_check.tsv names them)%s", name, n_zero, len(used),
                         f"; branches shorter than {minimum:g} were lengthened to it"
                         if minimum else "")
-        per_job = cfg["per_job"]
+        per_job = cfg.get("per_job", "auto")  # a $ref in the schema: no default filled
         if per_job == "auto":
             # resources, not params: the layout is chosen once, by the run that prepares the
             # trees; resuming with other cores keeps it (and every finished fit)

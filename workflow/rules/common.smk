@@ -128,10 +128,12 @@ def tree_layout():
 
 
 def trees_per_job():
-    """Trees per chunk: trees.per_job, or what prepare_trees chose for 'auto'."""
-    if config["trees"]["per_job"] != "auto":
-        return config["trees"]["per_job"]
-    return tree_layout()["per_job"]
+    """Trees per chunk: the largest per_job of the tree sets, or what prepare_trees chose
+    for 'auto' (the first set's)."""
+    given = [s["per_job"] for s in TREE_SETS.values() if s.get("per_job", "auto") != "auto"]
+    if len(given) == len(TREE_SETS):
+        return max(given)
+    return max(given + [tree_layout()["per_job"]])
 
 
 def fit_runtime(wildcards, attempt):

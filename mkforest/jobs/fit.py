@@ -21,6 +21,14 @@ RATE_COLUMNS = ["tree_set", "analysis", "model", "tree", "from_state", "to_state
                 "parameter", "at_bound"]
 
 
+def branch_treatment(config: dict, analysis: str, model: str) -> Treatment:
+    """The branch-length treatment of one model of an analysis (pair hypotheses and models
+    without ``branches`` use the given lengths)."""
+    if analysis not in config["traits"]["columns"]:
+        return Treatment()
+    return parse_treatment(config["models"][model].get("branches"), f"models.{model}.branches")
+
+
 def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     """(Trait to fit, {model name: (RateModel, root)}) for a trait or a pair analysis."""
     if analysis in config["traits"]["columns"]:

@@ -216,7 +216,7 @@ matplotlib.rcParams["svg.hashsalt"] = "mkforest"
 matplotlib.rcParams["svg.fonttype"] = "none"     # text stays text in SVG: smaller, editable
 
 
-def save(fig, paths, dpi: int = 120) -> None:
+def save(fig, paths, dpi: int = 100) -> None:
     """PNG (for reading and the HTML report) and SVG (for print), as the names say.
     A PNG is stored with a 256-colour palette: the figures are flat colours and text,
     and the files shrink about threefold (the report carries every figure)."""

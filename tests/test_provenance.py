@@ -307,7 +307,8 @@ def test_report_builds_offline_with_every_table_and_plot(run, tmp_path):
     outputs = {f"results/{RUN}/{r['path']}" for r in manifest_of(work)["outputs"]}
     # every table and figure, each figure once: its PNG (the SVG for print stays on disk);
     # the per-tree tables stay on disk, named in the captions of their summaries
-    per_tree = {f"results/{RUN}/tables/{t}.tsv" for t in ("fits", "rates", "averaged_rates")}
+    per_tree = {f"results/{RUN}/tables/{t}.tsv" for t in ("fits", "rates", "averaged_rates",
+                                                          "branch_tests")}
     expected = {p for p in outputs if not p.endswith(".svg")} - per_tree
     expected.add(f"results/{RUN}/manifest.json")
     assert expected <= set(entries), sorted(expected - set(entries))

@@ -46,16 +46,20 @@ def check_same_tips(trees: list, source: str) -> None:
     for t in trees[1:]:
         tips = set(t.tip_labels)
         if tips != first:
-            extra = sorted(tips - first)
-            lack = sorted(first - tips)
-            parts = []
-            if extra:
-                parts.append(f"has {', '.join(repr(x) for x in extra[:5])} that tree "
-                             f"{trees[0].index} lacks")
-            if lack:
-                parts.append(f"lacks {', '.join(repr(x) for x in lack[:5])}")
-            raise InputError(f"{source}: tree {t.index} {' and '.join(parts)}; every tree in "
+            what = _tip_difference(tips, first, f" that tree {trees[0].index} lacks")
+            raise InputError(f"{source}: tree {t.index} {what}; every tree in "
                              "the sample must have the same tips.")
+
+
+def _tip_difference(tips: set, reference: set, extra_note: str = "") -> str:
+    """'has 'a', 'b'[note] and lacks 'c'': up to five taxa each way."""
+    extra, lack = sorted(tips - reference), sorted(reference - tips)
+    parts = []
+    if extra:
+        parts.append(f"has {', '.join(repr(x) for x in extra[:5])}{extra_note}")
+    if lack:
+        parts.append(f"lacks {', '.join(repr(x) for x in lack[:5])}")
+    return " and ".join(parts)
 
 
 def short_branches(tree: TreeArrays, minimum: float = 0.0) -> dict:
@@ -149,14 +153,7 @@ def check_same_taxa_across_sets(firsts: dict) -> None:
     for name, (tree, source) in items[1:]:
         tips = set(tree.tip_labels)
         if tips != tips0:
-            extra = sorted(tips - tips0)
-            lack = sorted(tips0 - tips)
-            parts = []
-            if extra:
-                parts.append(f"has {', '.join(repr(x) for x in extra[:5])}")
-            if lack:
-                parts.append(f"lacks {', '.join(repr(x) for x in lack[:5])}")
-            raise InputError(f"tree set '{name}' ({source}) {' and '.join(parts)} compared with "
+            raise InputError(f"tree set '{name}' ({source}) {_tip_difference(tips, tips0)} compared with "
                              f"tree set '{name0}' ({source0}); tree sets are compared on the same "
                              "taxa, so every set must have the same tips.")
 

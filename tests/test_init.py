@@ -71,14 +71,16 @@ def test_demo_data_config_runs_without_edits(tmp_path):
     assert len(set(pair["traits"])) == 2 and set(pair["traits"]) <= set(cfg["traits"]["columns"])
 
 
-@pytest.mark.slow  # the full demo: 90 species, 120 trees, five traits, ancestral maps
+@pytest.mark.slow  # the full demo: 90 species, 120 trees, six traits, ancestral maps
 def test_full_demo_data_config_runs_without_edits(tmp_path):
     make_demo(tmp_path / "data")
     proc = init(tmp_path, "--trees", tmp_path / "data/trees.nex",
                 "--traits", tmp_path / "data/traits.tsv")
     assert proc.returncode == 0, proc.stderr
     cfg = run_written_config(tmp_path, tmp_path / "my_config.yaml", timeout=3600)
-    assert cfg["traits"]["columns"] == ["habitat", "size", "banding", "aperture", "glow"]
+    header = (tmp_path / "data/traits.tsv").read_text().splitlines()[0].split("\t")
+    assert cfg["traits"]["columns"] == header[1:]  # every trait column of the table, in order
+    assert "lip" in cfg["traits"]["columns"]      # the demo's trait simulated on unit lengths
     fits = pd.read_csv(tmp_path / "results/my_config/tables/fits.tsv", sep="\t")
     assert fits["tree"].nunique() == 120
     assert set(fits.loc[fits["analysis"] == "size", "model"]) == {"one_rate", "mirrored", "free"}

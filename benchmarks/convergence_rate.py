@@ -38,7 +38,7 @@ from mkforest.data.traits import read_traits  # noqa: E402
 from mkforest.data.trees import read_trees  # noqa: E402
 from mkforest.demo import make_demo  # noqa: E402
 from mkforest.engine.fitting import AGREE_TOL, fit_model, min_starts  # noqa: E402
-from mkforest.jobs.fit import analysis_setup  # noqa: E402
+from mkforest.jobs.analyses import analysis_setup  # noqa: E402
 from mkforest.jobs.prepare import select_trees  # noqa: E402
 from mkforest.seeds import derive_seed  # noqa: E402
 

@@ -438,7 +438,7 @@ def _pairs(w, used: list) -> None:
 def write_starter(trees_file, traits_file, taxon_column=None, output="my_config.yaml",
                   force: bool = False) -> tuple:
     """Write the starting config; returns (Starter, the command to run next)."""
-    from .jobs.fit import check_config
+    from .jobs.analyses import check_config
 
     output = Path(output)
     if output.exists() and not force:

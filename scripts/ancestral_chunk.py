@@ -13,7 +13,7 @@ import pandas as pd
 from mkforest.data.traits import traits_from_json
 from mkforest.data.trees import load_trees
 from mkforest.jobs.ancestral import chunk_ancestral
-from mkforest.jobs.fit import analysis_setup
+from mkforest.jobs.analyses import analysis_setup
 from mkforest.jobs.scripting import run_job
 
 

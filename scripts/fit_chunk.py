@@ -11,7 +11,8 @@ import time
 
 from mkforest.data.traits import traits_from_json
 from mkforest.data.trees import load_trees
-from mkforest.jobs.fit import FIT_COLUMNS, RATE_COLUMNS, analysis_setup, branch_treatment, fit_chunk
+from mkforest.jobs.analyses import analysis_setup, branch_treatment
+from mkforest.jobs.fit import FIT_COLUMNS, RATE_COLUMNS, fit_chunk
 from mkforest.jobs.scripting import run_job
 
 

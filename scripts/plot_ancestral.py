@@ -10,7 +10,7 @@ import pandas as pd
 
 from mkforest.data.traits import traits_from_json
 from mkforest.data.trees import parse_newick
-from mkforest.jobs.fit import analysis_setup
+from mkforest.jobs.analyses import analysis_setup
 from mkforest.jobs.scripting import run_job
 from mkforest.report import plots_ancestral
 

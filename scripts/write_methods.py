@@ -7,7 +7,7 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 import json
 
 from mkforest.data.traits import traits_from_json
-from mkforest.jobs.fit import analysis_setup
+from mkforest.jobs.analyses import analysis_setup
 from mkforest.jobs.scripting import run_job
 from mkforest.report.methods import methods_text, read_tables, table_name
 from mkforest.report.provenance import software_versions

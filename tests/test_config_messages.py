@@ -9,7 +9,7 @@ from workflow_helpers import run_snakemake, tiny_config
 
 from mkforest.data.config import validate_config
 from mkforest.errors import InputError, did_you_mean
-from mkforest.jobs.fit import check_config
+from mkforest.jobs.analyses import check_config
 
 
 def test_three_mistakes_at_once_through_the_workflow(tmp_path):

@@ -265,7 +265,7 @@ def _traits():
 
 def test_custom_transition_naming_a_class_is_refused():
     from mkforest.data.config import validate_config
-    from mkforest.jobs.fit import analysis_setup
+    from mkforest.jobs.analyses import analysis_setup
     cfg = validate_config(_config({"loss_only": {
         "kind": "custom", "applies_to": ["glow"], "hidden_classes": 2,
         "transitions": {"glowing@2 -> dull@2": "loss"}}}))
@@ -277,7 +277,7 @@ def test_custom_transition_naming_a_class_is_refused():
 def test_pair_with_too_many_combined_states_is_refused():
     """3 x 3 joint states x 4 classes = 36 > 32: one sentence naming the pair."""
     from mkforest.data.config import validate_config
-    from mkforest.jobs.fit import analysis_setup
+    from mkforest.jobs.analyses import analysis_setup
     cfg = validate_config(_config(pairs={"shells": {"traits": ["habitat", "banding"],
                                                     "hidden_classes": 4}}))
     with pytest.raises(InputError, match=r"pairs\.shells\.hidden_classes is 4: .*9 joint states, "
@@ -293,7 +293,7 @@ def test_pair_hypotheses_with_classes_stay_nested():
     two binary traits and two classes: 2 x (8 - 4); Pagel 1994 per class)."""
     from mkforest.data.config import validate_config
     from mkforest.engine.pairs import pair_tests
-    from mkforest.jobs.fit import analysis_setup
+    from mkforest.jobs.analyses import analysis_setup
     traits = _traits()
     from mkforest.data.traits import trait_from_mapping
     traits["banding"] = trait_from_mapping("banding", {f"t{i}": ["plain", "banded"][i % 2]

@@ -16,7 +16,7 @@ from workflow_helpers import REPO, run_snakemake
 
 from mkforest.demo import make_demo
 from mkforest.errors import InputError
-from mkforest.jobs.fit import check_config
+from mkforest.jobs.analyses import check_config
 from mkforest.starter import starting_config, survey_trees
 
 MKFOREST = str(Path(sys.executable).with_name("mkforest"))

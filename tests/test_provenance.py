@@ -30,7 +30,7 @@ from workflow_helpers import REPO, run_snakemake
 
 from mkforest.data.config import validate_config
 from mkforest.data.traits import traits_from_json
-from mkforest.jobs.fit import analysis_setup
+from mkforest.jobs.analyses import analysis_setup
 from mkforest.report.citations import REFERENCES
 from mkforest.report.methods import methods_text, read_tables
 from mkforest.report.provenance import software_versions

@@ -6,7 +6,6 @@ from datetime import datetime, timezone
 
 from snakemake.io import is_flagged
 
-from mkforest.report.methods import run_warnings
 from mkforest.report.provenance import input_files
 
 # How and when this invocation of Snakemake started, for the manifest. A

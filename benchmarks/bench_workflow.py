@@ -49,6 +49,7 @@ def main() -> int:
     ap.add_argument("--ancestral", action="store_true", help="also run ancestral states and maps")
     ap.add_argument("--profile", default=None, help="a profile folder under profiles/")
     ap.add_argument("--workdir", default="/tmp/mkforest-bench")
+    ap.add_argument("--snakemake-args", default="", help="more Snakemake options, one string")
     args = ap.parse_args()
 
     work = Path(args.workdir)
@@ -100,6 +101,7 @@ def one_run(args, work, cfg):
            "--configfile", str(cfg), "--cores", str(args.cores), "--quiet", "all"]
     if args.profile:
         cmd += ["--profile", str(REPO / "profiles" / args.profile)]
+    cmd += args.snakemake_args.split()
     env = dict(os.environ, PYTHONPATH=str(REPO))
     load = os.getloadavg()[0]
     before = resource.getrusage(resource.RUSAGE_CHILDREN)

@@ -91,6 +91,8 @@ def test_plots_written_and_labelled(finished_run):
         assert png[:8] == b"\x89PNG\r\n\x1a\n" and len(png) > 5000
         svg = (plots / f"{name}.svg").read_text()
         assert "<svg" in svg
+    # one tree set and every model on the given lengths: no treatment figure to draw
+    assert not list(plots.glob("support_branches.*"))
     svg = (plots / "support_weights.svg").read_text()
     # SVG text is stored as glyph paths; the labels appear in the id/comments matplotlib writes
     assert "glow" in svg and "habitat" in svg

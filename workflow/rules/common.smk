@@ -13,7 +13,7 @@ from mkforest.data.config import (
     tree_sets,
 )
 from mkforest.errors import InputError
-from mkforest.jobs.fit import check_config
+from mkforest.jobs.analyses import check_config
 
 # Check the config (schema, names, and every model against the trait table when
 # the table exists) before any job runs. Every mistake is reported at once, one
@@ -144,6 +144,18 @@ def fit_runtime(wildcards, attempt):
 
 
 PLOTS = ["support_weights", "support_heatmap", "rates_across_trees"]
+# The treatment and tree-set figure is drawn only when there is something to compare:
+# two tree sets, or models of one trait with different branch-length treatments.
+BRANCH_PLOTS = (
+    [f"{OUT}/plots/support_branches.png", f"{OUT}/plots/support_branches.svg"]
+    if len(TREE_SETS) > 1
+    or any(
+        len({repr(config["models"][m].get("branches", "as_given")) for m in models}) > 1
+        for a, models in ANALYSES.items()
+        if a in config["traits"]["columns"]
+    )
+    else []
+)
 
 # Rule files of later stages (ancestral states, pairs, report) append input
 # functions here; each returns the final outputs of that stage.
@@ -162,6 +174,4 @@ def all_targets(wildcards):
         f"{OUT}/tables/branch_tests.tsv",
         f"{OUT}/tables/branch_test_summary.tsv",
         f"{OUT}/tables/tree_set_support.tsv",
-        f"{OUT}/plots/support_branches.png",
-        f"{OUT}/plots/support_branches.svg",
-    ] + [f"{OUT}/plots/{p}.{ext}" for p in PLOTS for ext in ("png", "svg")]
+    ] + BRANCH_PLOTS + [f"{OUT}/plots/{p}.{ext}" for p in PLOTS for ext in ("png", "svg")]

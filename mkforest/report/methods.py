@@ -428,7 +428,8 @@ def _ancestral_paragraph(config, tables) -> str:
 def _software_paragraph(config, software) -> str:
     libs = [f"{name} {software[key]}" for key, name in
             (("numpy", "NumPy"), ("scipy", "SciPy"), ("dendropy", "DendroPy"),
-             ("pandas", "pandas"), ("seaborn", "seaborn")) if software.get(key)]
+             ("pandas", "pandas"), ("matplotlib", "Matplotlib"), ("numba", "Numba"))
+            if software.get(key)]
     return (f"The analysis ran with mkforest {software.get('mkforest', '')} as a Snakemake "
             f"{software.get('snakemake', '')} workflow under Python {software.get('python', '')} "
             f"({', '.join(libs)}), with seed {config['seed']}. The file manifest.json beside this "

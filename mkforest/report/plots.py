@@ -1,4 +1,4 @@
-"""Figures of model support and rates across the tree sample (seaborn/matplotlib).
+"""Figures of model support and rates across the tree sample (matplotlib).
 
 Each function returns a matplotlib Figure, so tests can read its labels;
 ``save`` writes it in several formats.
@@ -12,7 +12,6 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
-import seaborn as sns  # noqa: E402
 from matplotlib.collections import LineCollection  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 
@@ -45,11 +44,7 @@ def support_weights(fits: pd.DataFrame, criterion: str = "aicc"):
         d = d_all[d_all["analysis"] == a]
         order = list(dict.fromkeys(d["model"]))
         if order:
-            sns.boxplot(data=d, y="model", x="weight", order=order, ax=ax, orient="h",
-                        color="#cfe8f7", fliersize=0, width=0.6, linewidth=0.8)
-            np.random.seed(0)  # seaborn jitters from NumPy's global generator: same figure every run
-            sns.stripplot(data=d, y="model", x="weight", order=order, ax=ax, orient="h",
-                          size=2.5, alpha=0.6, color=style.CATEGORICAL[0], jitter=0.25)
+            style.box_and_points(ax, [d.loc[d["model"] == m, "weight"] for m in order], order)
         ax.set_xlim(-0.03, 1.03)
         ax.set_title(a, fontsize=9, loc="left", fontweight="bold")
         ax.set_ylabel("")
@@ -70,9 +65,7 @@ def support_heatmap(support: pd.DataFrame):
     longest = max((len(str(c)) for c in table.columns), default=5)
     fig, ax = plt.subplots(figsize=(2.2 + 0.75 * table.shape[1], 1.6 + 0.45 * table.shape[0]
                                     + 0.07 * longest), layout="constrained")
-    sns.heatmap(table, annot=True, fmt=".2f", vmin=0, vmax=1, cmap=PALETTE, ax=ax,
-                cbar_kws={"label": "mean weight across trees"}, linewidths=0.5,
-                annot_kws={"fontsize": 7.5})
+    style.annotated_grid(ax, table, PALETTE, 0.0, 1.0, "mean weight across trees")
     ax.set_title("Mean model weight across trees (blank: model not fitted to that analysis or "
                  "the same as another)", fontsize=9, loc="left", wrap=True)
     ax.set_xlabel("model")

@@ -21,7 +21,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
-import seaborn as sns  # noqa: E402
+from matplotlib import colormaps  # noqa: E402
 from matplotlib.collections import LineCollection  # noqa: E402
 from matplotlib.legend_handler import HandlerTuple  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
@@ -310,7 +310,7 @@ def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str,
     n_classes = int(rows["class"].max()) if len(rows) else 1
     rows["state"] = [class_label(int(c), n_classes) for c in rows["class"]]
     labels = [class_label(c, n_classes) for c in range(1, n_classes + 1)]
-    cmap = sns.color_palette(CLASS_PALETTE, as_cmap=True)   # the palette's full range: strong ends
+    cmap = colormaps[CLASS_PALETTE]   # the map's full range: strong ends
     colours = dict(zip(labels, [cmap(x) for x in np.linspace(0.0, 1.0, n_classes)]))
     n_trees = int(rows["n_trees"].max()) if len(rows) else 0
     return state_tree(tree, rows, clades, None, analysis, colours=colours,
@@ -354,11 +354,8 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
             ax.set_xticks([])
             ax.set_yticks([])
             continue
-        sns.boxplot(data=g, y="direction", x="mean_count", order=order, ax=ax, orient="h",
-                    color="#cfe8f7", fliersize=0, width=0.6, linewidth=0.8)
-        np.random.seed(0)  # seaborn jitters from NumPy's global generator: same figure every run
-        sns.stripplot(data=g, y="direction", x="mean_count", order=order, ax=ax, orient="h",
-                      size=2.2, alpha=0.6, color=style.CATEGORICAL[0], jitter=0.2)
+        style.box_and_points(ax, [g.loc[g["direction"] == o, "mean_count"] for o in order],
+                             order, size=2.2, jitter=0.2)
         ax.set_title(f"{a} ({g['tree'].nunique()} trees)", fontsize=9, loc="left",
                      fontweight="bold")
         ax.set_ylabel("")

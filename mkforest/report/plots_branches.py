@@ -8,8 +8,8 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
-import seaborn as sns  # noqa: E402
 
+from . import style  # noqa: E402
 from .methods_branches import first_set  # noqa: E402
 
 TREATMENT_COLOURS = {"as_given": "#4c6a92", "unit": "#c3793a", "kappa": "#5f9e6e",
@@ -81,10 +81,17 @@ def support_branches(fits: pd.DataFrame, criterion: str = "aicc"):
         ax = axes[0, 1]
         best = best_per_tree(fits, criterion)
         best = best[best["analysis"].isin(analyses)]
-        palette = dict(zip(sets, sns.color_palette("colorblind", len(sets))))
-        sns.stripplot(data=best, y="analysis", x="relative", hue="tree_set", order=analyses,
-                      hue_order=sets, dodge=True, size=3, alpha=0.6, palette=palette, ax=ax,
-                      jitter=0.25)
+        # one sub-row per tree set within each trait's row, points jittered with a fixed seed
+        rng = np.random.default_rng(0)
+        width = 0.8 / len(sets)
+        for j, (ts, colour) in enumerate(zip(sets, style.categorical(len(sets)))):
+            for i, a in enumerate(analyses):
+                x = best.loc[(best["analysis"] == a) & (best["tree_set"] == ts), "relative"]
+                y = i - 0.4 + width * (j + 0.5) + rng.uniform(-width / 4, width / 4, len(x))
+                ax.scatter(x, y, s=9, color=colour, alpha=0.6, linewidths=0,
+                           label=ts if i == 0 else None)
+        ax.set_yticks(range(len(analyses)), analyses)
+        ax.set_ylim(len(analyses) - 0.5, -0.5)
         ax.axvline(0, color="#999999", linewidth=0.8, linestyle="--")
         ax.set_xlabel(f"ln L of the best model per tree − median on '{sets[0]}'")
         ax.set_ylabel("")

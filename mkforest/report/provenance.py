@@ -49,7 +49,7 @@ FORMAT_VERSION = 1
 INPUT_KEYS = (("trees", ("trees", "file")), ("traits", ("traits", "file")),
               ("reference_tree", ("ancestral", "reference_tree")))
 # Distribution names of the software recorded in the manifest.
-PACKAGES = ("mkforest", "snakemake", "numpy", "scipy", "dendropy", "pandas", "seaborn",
+PACKAGES = ("mkforest", "snakemake", "numpy", "scipy", "dendropy", "pandas",
             "matplotlib", "numba", "pyyaml")
 KEYWORDS = ["phylogenetic comparative methods", "Mk model", "categorical traits",
             "model selection", "phylogenetic uncertainty"]

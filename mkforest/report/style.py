@@ -74,6 +74,56 @@ def text_colour_on(colour) -> str:
     return "black" if 0.2126 * r + 0.7152 * g + 0.0722 * b > 0.45 else "white"
 
 
+
+# --------------------------------------------------------------------------- shapes
+
+def box_and_points(ax, values: list, labels: list, box_colour: str = "#cfe8f7",
+                   point_colour: str = CATEGORICAL[0], size: float = 2.5,
+                   jitter: float = 0.25, seed: int = 0) -> None:
+    """Horizontal rows, the first at the top: a box per row (quartiles, whiskers to
+    1.5 IQR, no outlier marks) and every value as a point, jittered across the row
+    with a fixed seed (the same figure every run). An empty row stays empty."""
+    rows = [np.asarray(v, dtype=float) for v in values]
+    pos = np.arange(len(rows))
+    full = [i for i, v in enumerate(rows) if len(v)]
+    if full:
+        ax.boxplot([rows[i] for i in full], positions=pos[full], orientation="horizontal",
+                   widths=0.6, showfliers=False, patch_artist=True,
+                   boxprops={"facecolor": box_colour, "edgecolor": "#444444", "linewidth": 0.8},
+                   medianprops={"color": "#444444", "linewidth": 0.8},
+                   whiskerprops={"color": "#444444", "linewidth": 0.8},
+                   capprops={"color": "#444444", "linewidth": 0.8})
+    rng = np.random.default_rng(seed)
+    for i in full:
+        y = i + rng.uniform(-jitter / 2, jitter / 2, len(rows[i]))
+        ax.scatter(rows[i], y, s=size ** 2, color=point_colour, alpha=0.6, linewidths=0,
+                   zorder=3)
+    ax.set_yticks(pos, labels)
+    ax.set_ylim(len(rows) - 0.5, -0.5)
+
+
+def annotated_grid(ax, table: pd.DataFrame, cmap: str, vmin: float, vmax: float, label: str,
+                   fontsize: float = 7.5):
+    """A colour grid of a table (rows top to bottom, NaN cells blank) with each value
+    written in its cell to two decimals, and a colour bar labelled ``label``."""
+    data = table.to_numpy(dtype=float)
+    image = ax.imshow(np.ma.masked_invalid(data), cmap=cmap, vmin=vmin, vmax=vmax,
+                      aspect="auto", interpolation="nearest")
+    scale = colormaps[cmap]
+    for (r, c), x in np.ndenumerate(data):
+        if np.isfinite(x):
+            ax.text(c, r, f"{x:.2f}", ha="center", va="center", fontsize=fontsize,
+                    color=text_colour_on(scale((x - vmin) / (vmax - vmin))))
+    ax.set_xticks(range(data.shape[1]), [str(c) for c in table.columns])
+    ax.set_yticks(range(data.shape[0]), [str(i) for i in table.index])
+    ax.set_xticks(np.arange(data.shape[1] + 1) - 0.5, minor=True)
+    ax.set_yticks(np.arange(data.shape[0] + 1) - 0.5, minor=True)
+    ax.grid(which="minor", color="white", linewidth=0.5)
+    ax.tick_params(which="minor", length=0)
+    for spine in ax.spines.values():
+        spine.set_visible(False)
+    ax.figure.colorbar(image, ax=ax, label=label)
+
 # --------------------------------------------------------------------------- numbers
 
 def rate_text(x, precision: float = PRECISION) -> str:

@@ -33,6 +33,7 @@ from mkforest.data.trees import parse_newick
 from mkforest.engine.branches import (
     BOUNDS,
     ESTIMABLE,
+    NULL_VALUE,
     Treatment,
     effective_lengths,
     parse_treatment,
@@ -107,7 +108,9 @@ def test_null_values_reproduce_the_given_lengths_exactly(ultrametric):
         tree = parse_newick(newick)
         given = engine_lnl(newick, Q, cells, Treatment(), None)
         for name, null in (("kappa", 1.0), ("lambda", 1.0), ("delta", 1.0), ("early_burst", 0.0)):
-            lengths = effective_lengths(tree, Treatment(name), null)[0]
+            x = Treatment(name).x_of(null, tree)  # the optimiser's value (ln delta for delta)
+            assert x == NULL_VALUE[name]
+            lengths = effective_lengths(tree, Treatment(name), x)[0]
             assert np.array_equal(lengths, tree.length), name
             assert engine_lnl(newick, Q, cells, Treatment(name), null) == given, name
 

@@ -19,8 +19,10 @@ d(v) the root-to-node distance and H the largest root-to-tip distance.
 
 kappa = lambda = delta = 1 and a = 0 give the tree's own lengths (exactly), so a
 model with an estimated treatment is nested in the same model on the given
-lengths. The optimiser works on x: x = theta for kappa, lambda and delta, and
-x = a H for early_burst (so its bounds do not depend on the unit of length).
+lengths. The optimiser works on x: x = theta for kappa and lambda, x = ln delta
+(delta is an exponent spanning two decades: on its own scale the optimiser took
+several times more steps), and x = a H for early_burst (so its bounds do not
+depend on the unit of length).
 """
 
 from __future__ import annotations
@@ -37,9 +39,9 @@ from ..errors import InputError
 TREATMENTS = ("as_given", "unit", "kappa", "lambda", "delta", "early_burst")
 ESTIMABLE = ("kappa", "lambda", "delta", "early_burst")
 # Optimiser bounds on x (see the module docstring) and the value giving the tree's lengths.
-BOUNDS = {"kappa": (0.0, 3.0), "lambda": (0.0, 1.0), "delta": (0.01, 3.0),
+BOUNDS = {"kappa": (0.0, 3.0), "lambda": (0.0, 1.0), "delta": (math.log(0.01), math.log(3.0)),
           "early_burst": (-10.0, 10.0)}
-NULL_VALUE = {"kappa": 1.0, "lambda": 1.0, "delta": 1.0, "early_burst": 0.0}
+NULL_VALUE = {"kappa": 1.0, "lambda": 1.0, "delta": 0.0, "early_burst": 0.0}
 
 # 1/(n+1)! and n/(n+1)! for the series of phi(z) = (e^z - 1)/z and phi'(z), |z| <= 0.5
 # (18 terms: truncation error below 1e-20).
@@ -73,11 +75,18 @@ class Treatment:
         return BOUNDS[self.name]
 
     def theta(self, x: float, tree) -> float:
-        """The reported parameter for optimiser value x (a = x / H for early_burst)."""
-        return x / _height(tree) if self.name == "early_burst" else float(x)
+        """The reported parameter for optimiser value x (a = x / H for early_burst,
+        delta = e^x)."""
+        if self.name == "early_burst":
+            return x / _height(tree)
+        return math.exp(x) if self.name == "delta" else float(x)
 
     def x_of(self, theta: float, tree) -> float:
-        return theta * _height(tree) if self.name == "early_burst" else float(theta)
+        if self.name == "early_burst":
+            return theta * _height(tree)
+        if self.name == "delta":
+            return math.log(theta) if theta > 0.0 else -math.inf
+        return float(theta)
 
 
 def parse_treatment(spec, at: str) -> Treatment:
@@ -152,20 +161,21 @@ def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_co
             else:
                 out[v] = x * t[v]
                 deriv[v] = t[v]
-        elif code == 2:  # delta: difference of the transformed depths H (d/H)^delta
+        elif code == 2:  # delta = e^x: difference of the transformed depths H (d/H)^delta
+            delta = math.exp(x)
             new1 = 0.0
             der1 = 0.0
             if d[v] > 0.0:
-                new1 = H * math.exp(x * log_r[v])
-                der1 = new1 * log_r[v]
+                new1 = H * math.exp(delta * log_r[v])
+                der1 = new1 * log_r[v] * delta
             new0 = 0.0
             der0 = 0.0
             if s0 > 0.0:
-                new0 = H * math.exp(x * log_r[p])
-                der0 = new0 * log_r[p]
+                new0 = H * math.exp(delta * log_r[p])
+                der0 = new0 * log_r[p] * delta
             # depths are monotone in d, so a negative difference is round-off;
             # delta = 1 is the identity, exactly (a difference of depths rounds)
-            out[v] = t[v] if x == 1.0 else max(new1 - new0, 0.0)
+            out[v] = t[v] if x == 0.0 else max(new1 - new0, 0.0)
             deriv[v] = der1 - der0
         else:  # early burst, a = x / H: e^(a s0) t phi(a t)
             a = x / H

@@ -235,41 +235,62 @@ def starting_points(tree, tip_partials, model, n_starts: int = 5, seed: int = 0,
     return [next(starts) for _ in range(n_starts)], bounds
 
 
-def _branch_starts(tree, treatment, starts, seed):
-    """The starts with the branch parameter appended (a generator, like start_sequence): its null value (the given lengths)
-    first, then seeded uniform draws within its bounds; each start's log-rates are
-    shifted by the log ratio of given to transformed total length, so the expected
-    number of changes stays that of the parsimony guess."""
+def _branch_starts(treatment, starts, seed):
+    """The starts with the branch parameter appended (a generator, like start_sequence):
+    its null value (the given lengths) first, then seeded uniform draws within its
+    bounds. The log-rates are those of the plain starts: with the rates scaled to the
+    transformed tree (``_treatment_objective``) they keep the parsimony guess's
+    expected number of changes whatever the branch parameter."""
     blo, bhi = treatment.bounds()
     rng = np.random.default_rng([seed, 14])
-    total = max(tree.total_length, 1e-300)
     for i, s in enumerate(starts):
         xb = NULL_VALUE[treatment.name] if i == 0 else float(rng.uniform(blo, bhi))
-        lengths = effective_lengths(tree, treatment, xb)[0]
-        shift = math.log(total / lengths.sum()) if lengths.sum() > 0 else 0.0
-        yield np.append(s + shift, xb)
+        yield np.append(s, xb)
+
+
+def _rate_scale(tree, treatment, xb):
+    """(lengths, d lengths / dx, ln(T / T'), d ln(T / T') / dx) at branch value xb, with T
+    and T' the given and the transformed total length (no scaling where either is 0)."""
+    lengths, dl = effective_lengths(tree, treatment, xb)
+    given = float(tree.length[:-1].sum())
+    total = float(lengths[:-1].sum())
+    if given <= 0.0 or total <= 0.0:
+        return lengths, dl, 0.0, 0.0
+    return lengths, dl, math.log(given / total), -float(dl[:-1].sum()) / total
+
+
+def treatment_rates(tree, treatment, x):
+    """The rates of an optimiser vector x = (scaled log-rates, branch value) of
+    ``_treatment_objective``."""
+    p = len(x) - 1
+    return np.exp(x[:p] + _rate_scale(tree, treatment, x[p])[2])
 
 
 def _treatment_objective(tree, tip_partials, model, root, treatment):
-    """(objective(x) -> (-lnL, -gradient), value(x) -> lnL) over x = (log-rates, branch x):
-    d lnL / d x_branch = sum_b d lnL / d t_b * d t_b / d x (chain rule), or a central
-    difference where the rate gradient itself falls back to finite differences."""
+    """(objective(x) -> (-lnL, -gradient), value(x) -> lnL) over x = (scaled log-rates y,
+    branch value). The rates are exp(y) T / T'(x), T and T' the given and transformed
+    total lengths: moving the branch parameter then keeps the expected number of
+    changes, so the two are nearly uncorrelated and the optimiser needs few steps
+    (the rates alone would move with the tree's total length). Chain rule:
+    d lnL / dy_i = d lnL / d ln r_i, and d lnL / dx = sum_b d lnL / d t_b * d t_b / dx
+    + sum_i d lnL / d ln r_i * d ln(T / T') / dx; a central difference where the rate
+    gradient itself falls back to finite differences."""
     p = model.n_params
 
     def value(x):
-        lengths = effective_lengths(tree, treatment, x[p])[0]
-        return log_likelihood(with_lengths(tree, lengths), tip_partials, model.q_matrix(np.exp(x[:p])),
-                              root, model.states)
+        lengths, _, shift, _ = _rate_scale(tree, treatment, x[p])
+        return log_likelihood(with_lengths(tree, lengths), tip_partials,
+                              model.q_matrix(np.exp(x[:p] + shift)), root, model.states)
 
     def objective(x):
-        lengths, dl = effective_lengths(tree, treatment, x[p])
+        lengths, dl, shift, dshift = _rate_scale(tree, treatment, x[p])
         ll, grad, dlen = log_likelihood_and_gradient(with_lengths(tree, lengths), tip_partials,
-                                                     model, np.exp(x[:p]), root,
+                                                     model, np.exp(x[:p] + shift), root,
                                                      lengths_gradient=True)
         if not np.isfinite(ll):
             return _IMPOSSIBLE, np.zeros(p + 1)
         if dlen is not None:
-            g = float(dlen @ dl)
+            g = float(dlen @ dl) + float(grad.sum()) * dshift
         else:
             lo, hi = treatment.bounds()
             up, down = x.copy(), x.copy()
@@ -316,7 +337,7 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
     bounds = [(lo, hi)] * p
 
     if q:
-        starts = _branch_starts(tree, treatment, starts, seed)
+        starts = _branch_starts(treatment, starts, seed)
         bounds.append(treatment.bounds())
         objective, value = _treatment_objective(tree, f.tip_partials, model, root, treatment)
     else:
@@ -332,9 +353,7 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
 
     results = []
     for x0 in starts:
-        res = minimize(objective, x0, method="L-BFGS-B", jac=True, bounds=bounds,
-                       options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6})
-        results.append((res.fun, res.x))
+        results.append(_descend(objective, x0, bounds))
         if len(results) >= max_starts:
             break
         if len(results) >= least and _best_two_agree(results):
@@ -359,14 +378,15 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
     else:
         tied, open_ = (), ()
     # hidden rate classes: number the classes slowest first (same ln L, same meaning on every tree)
-    order = relabel_classes(model, np.exp(best_x[:p]))
+    rates = treatment_rates(tree, treatment, best_x) if q else np.exp(best_x)
+    order = relabel_classes(model, rates)
     best_x = np.concatenate([best_x[:p][order], best_x[p:]])
+    rates = rates[order]
     tied = tuple(j for j in range(p) if order[j] in tied)
     open_ = tuple(j for j in range(p) if order[j] in open_)
     at_lower = tuple(model.labels[i] for i in range(p) if best_x[i] == lo)
     at_upper = tuple(model.labels[i] for i in range(p) if best_x[i] == hi or i in tied)
     open_upper = tuple(model.labels[i] for i in open_ if model.labels[i] not in at_upper)
-    rates = np.exp(best_x[:p])
     per_start = tuple(-r[0] if r[0] < _IMPOSSIBLE else -np.inf for r in results)
     theta, side = fixed, ""
     if q:
@@ -376,6 +396,48 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
     return FitResult(model.name, ll, rates, model.labels, p + q, converged, run, n_agree,
                      at_lower, at_upper, root, model.q_matrix(rates), notes, per_start,
                      open_upper, treatment.label, theta, side)
+
+
+SCALE_FIRST_STEP = True
+
+
+def _descend(objective, x0, bounds):
+    """(lowest objective, its x): one L-BFGS-B run from x0.
+
+    With every variable bounded, L-BFGS-B's first step is the whole (projected)
+    negative gradient, and far from the optimum the gradient of ln L is tens of
+    log-units: one step can throw the rates onto the plateau where every tip is
+    independent of the tree (ln L = -n ln k, gradient zero) and the run stops
+    there, although a better optimum lies near the start. Dividing the objective
+    by its largest gradient entry at x0 (when above 1) makes that first step at
+    most one unit in every parameter; later steps follow the curvature the
+    optimiser learns and do not depend on the scale. The gradient tolerance is
+    divided alike, so the stopping rule is that of the unscaled objective."""
+    f0, g0 = objective(x0)
+    lo = np.array([b[0] for b in bounds])
+    hi = np.array([b[1] for b in bounds])
+    # the first step is the gradient projected on the box: a component pushing
+    # against a bound the start already sits on does not move
+    free = ~(((x0 <= lo) & (g0 > 0)) | ((x0 >= hi) & (g0 < 0)))
+    c = max(1.0, float(np.max(np.abs(g0[free]), initial=0.0))) if SCALE_FIRST_STEP else 1.0
+    seen = [(np.array(x0, dtype=float), f0, g0)]  # every point tried, unscaled
+
+    def scaled(x):
+        for xs, f, g in reversed(seen):
+            if np.array_equal(x, xs):
+                break
+        else:
+            f, g = objective(x)
+            seen.append((x.copy(), f, g))
+        return f / c, g / c
+
+    res = minimize(scaled, x0, method="L-BFGS-B", jac=True, bounds=bounds,
+                   options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6 / c})
+    # the unscaled value at the point returned (f / c * c need not round back to f)
+    for xs, f, _ in reversed(seen):
+        if np.array_equal(res.x, xs):
+            return f, res.x
+    return res.fun * c, res.x
 
 
 def min_starts(n_params: int, n_starts: int = MIN_STARTS, max_starts: int = MAX_STARTS) -> int:

@@ -1,0 +1,125 @@
+"""Benchmark: CPU per fit with each branch-length treatment against the given lengths.
+
+    .venv/bin/python benchmarks/bench_treatment_fits.py [--sets 10] [--repeat 3]
+
+Two shapes: 150-tip pure-birth trees with a 2-state trait (models equal and
+unconstrained) and 200-tip trees with a 4-state trait (equal and symmetric).
+Per shape, --sets data sets (a new tree and trait each, seeded), simulated on the
+given lengths (`null`: every treatment's optimum near its null value) and on unit
+lengths (`unit`: kappa's and lambda's optimum far from it). Every data set is
+fitted with every treatment (fit_model with the workflow's default starts and the
+same seed), and the table shows, summed over the data sets: CPU time per fit
+(time.process_time, the minimum of --repeat runs), its ratio to as_given, the
+objective evaluations per fit, the starts per fit, and how many fits were flagged
+not converged. `unit` is a fixed treatment (the tree is transformed once).
+
+CPU time, not wall time: the machine is shared, and CPU time is what the fit
+itself spends. numba compilation is done before anything is timed.
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ[_var] = "1"
+
+import argparse  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+from bench_mapping import pure_birth_tree  # noqa: E402
+
+from mkforest.engine import fitting  # noqa: E402
+from mkforest.engine.branches import ESTIMABLE, Treatment, transformed_tree  # noqa: E402
+from mkforest.engine.fitting import fit_model  # noqa: E402
+from mkforest.engine.models import build_model  # noqa: E402
+from mkforest.engine.simulate import simulate_states, tip_partials_from_states  # noqa: E402
+
+TREATMENTS = ("as_given", "unit", *ESTIMABLE)
+SHAPES = {"150 tips x 2 states": (150, ("p", "q"), ("equal", "unconstrained"), 1.0),
+          "200 tips x 4 states": (200, ("w", "x", "y", "z"), ("equal", "symmetric"), 0.7)}
+# data simulated on the given lengths, or on unit lengths (rate per branch)
+SCENARIOS = {"null": (Treatment(), 1.0), "unit": (Treatment("unit"), 0.15)}
+
+_calls = [0]
+_plain = fitting.log_likelihood_and_gradient
+
+
+def _counted(*args, **kwargs):
+    _calls[0] += 1
+    return _plain(*args, **kwargs)
+
+
+fitting.log_likelihood_and_gradient = _counted
+
+
+def data_sets(seed, n_sets, n_tips, states, truth, scale):
+    """[(tree, tip partials, seed)]: equal-rates data with at least two states observed."""
+    rng = np.random.default_rng(seed)
+    model = build_model("equal", states)
+    out = []
+    while len(out) < n_sets:
+        tree = pure_birth_tree(rng, n_tips, height=1.0, index=len(out))
+        s = simulate_states(transformed_tree(tree, truth), model.q_matrix([scale]), rng)
+        if len(set(s[:n_tips])) >= 2:
+            out.append((tree, tip_partials_from_states(s, n_tips, len(states)), len(out)))
+    return out
+
+
+def measure(cases, model, treatment, repeat):
+    """(CPU seconds summed over cases, evaluations, starts, not converged, ln L list)."""
+    cpu, calls, starts, flagged, lnl = 0.0, 0, 0, 0, []
+    for tree, X, seed in cases:
+        best = np.inf
+        for _ in range(repeat):
+            _calls[0] = 0
+            t0 = time.process_time()
+            res = fit_model(tree, X, model, seed=seed, branches=treatment)
+            best = min(best, time.process_time() - t0)
+        cpu += best
+        calls += _calls[0]
+        starts += res.n_starts
+        flagged += not res.converged
+        lnl.append(res.log_likelihood)
+    return cpu, calls, starts, flagged, lnl
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--sets", type=int, default=10)
+    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--seed", type=int, default=14)
+    ap.add_argument("--shape", choices=list(SHAPES), action="append",
+                    help="only this shape (repeatable; default both)")
+    args = ap.parse_args()
+    warm = data_sets(0, 1, 20, ("p", "q"), Treatment(), 1.0)
+    for name in TREATMENTS:
+        fit_model(*warm[0][:2], build_model("equal", ("p", "q")), branches=Treatment(name))
+    print(f"CPU ms per fit (minimum of {args.repeat} runs), ratio to as_given, objective "
+          f"evaluations and starts per fit, fits not converged; {args.sets} data sets each")
+    for shape in args.shape or SHAPES:
+        n_tips, states, kinds, _ = SHAPES[shape]
+        for scenario, (truth, scale) in SCENARIOS.items():
+            cases = data_sets([args.seed, n_tips, len(scenario)], args.sets, n_tips, states,
+                              truth, scale)
+            for kind in kinds:
+                model = build_model(kind, states)
+                print(f"{shape}, {kind}, data simulated on {scenario} lengths")
+                base = None
+                ref = None
+                for name in TREATMENTS:
+                    cpu, calls, starts, flagged, lnl = measure(cases, model, Treatment(name),
+                                                               args.repeat)
+                    base = base or cpu
+                    ref = ref or lnl
+                    worse = sum(a < b - 1e-6 for a, b in zip(lnl, ref))
+                    n = len(cases)
+                    print(f"   {name:<12} {1e3 * cpu / n:8.1f} ms  x{cpu / base:5.2f}  "
+                          f"{calls / n:6.1f} evals  {starts / n:4.1f} starts  "
+                          f"{flagged} not converged  mean lnL {np.mean(lnl):10.3f}"
+                          + (f"  ({worse} below as_given)" if name in ESTIMABLE and worse else ""))
+
+
+if __name__ == "__main__":
+    main()

@@ -4,7 +4,7 @@
 
 1. one evaluation of ln L + gradient: the plain kernel against the same with the
    treatment's lengths and d lengths / d theta (mkforest.engine.branches) and the
-   chain rule for the extra parameter (fitting._treatment_objective);
+   chain rule for the extra parameter (fitting._TreatmentSpace.objective);
 2. whole fits (fit_model, the workflow's default starts) of equal, symmetric and
    unconstrained 3-state models on Yule trees: as_given, unit (a fixed
    treatment: the tree is transformed once) and each estimated treatment; mean
@@ -28,14 +28,14 @@ import argparse  # noqa: E402
 import numpy as np  # noqa: E402
 from bench_likelihood import best_time, make_case  # noqa: E402
 
-from mkforest.engine.branches import ESTIMABLE, Treatment  # noqa: E402
-from mkforest.engine.fitting import _treatment_objective, fit_model  # noqa: E402
+from mkforest.engine.branches import ESTIMABLE, NULL_VALUE, Treatment  # noqa: E402
+from mkforest.engine.fitting import _TreatmentSpace, fit_model  # noqa: E402
 from mkforest.engine.gradient import log_likelihood_and_gradient  # noqa: E402
 from mkforest.engine.models import build_model  # noqa: E402
 
 STATES = ("x", "y", "z")
 TREATMENTS = ("as_given", "unit", *ESTIMABLE)
-INSIDE = {"kappa": 0.7, "lambda": 0.7, "delta": 0.7, "early_burst": -1.0}  # x within the bounds
+INSIDE = {"kappa": 0.7, "lambda": 0.7, "delta": 0.7, "early_burst": -1.0}  # within the bounds
 
 
 def section_evaluation(rng, repeat, n_tips):
@@ -46,9 +46,10 @@ def section_evaluation(rng, repeat, n_tips):
     tree, X = make_case(rng, n_tips, model, rates)
     calls = {"as_given": lambda: log_likelihood_and_gradient(tree, X, model, rates)}
     for name in ESTIMABLE:
-        objective, _ = _treatment_objective(tree, X, model, "uniform", Treatment(name))
-        x = np.append(np.log(rates), INSIDE[name])
-        calls[name] = lambda objective=objective, x=x: objective(x)
+        space = _TreatmentSpace(tree, X, model, "uniform", Treatment(name))
+        xb = INSIDE[name] if name != "delta" else np.log(INSIDE[name])  # ln delta
+        x = np.append(np.log(rates), (xb - NULL_VALUE[name]) / space.s)
+        calls[name] = lambda objective=space.objective, x=x: objective(x)
     best = {name: np.inf for name in calls}
     for _ in range(10 * repeat):
         for name, fn in calls.items():

@@ -40,7 +40,7 @@ from mkforest.engine.branches import (
     transformed_tree,
     tree_of_fit,
 )
-from mkforest.engine.fitting import _treatment_objective, fit_model
+from mkforest.engine.fitting import _TreatmentSpace, fit_model
 from mkforest.engine.gradient import log_likelihood_and_gradient
 from mkforest.engine.likelihood import log_likelihood
 from mkforest.engine.models import build_model
@@ -159,22 +159,31 @@ def _central(f, x, i, h=1e-5):
 @pytest.mark.parametrize("ultrametric", [False, True])
 @pytest.mark.parametrize("name", ESTIMABLE)
 def test_branch_parameter_gradient_matches_finite_differences(name, ultrametric):
+    """The optimiser's gradient (rates scaled to the transformed tree's total length,
+    the branch value in its own unit) against central differences of its ln L."""
     for seed in range(3):
         newick, Q, cells = case(seed, ultrametric)
         tree = parse_newick(newick)
         X = partials_from_cells(cells, tree.tip_labels, STATES)
         model = build_model("unconstrained", tuple(STATES))
         rng = np.random.default_rng(seed)
-        lo, hi = BOUNDS[name]
         for root in ("uniform", "data_weighted", "stationary"):
+            space = _TreatmentSpace(tree, X, model, root, Treatment(name))
+            lo, hi = space.bounds
             x = np.append(np.log(rng.uniform(0.2, 1.5, model.n_params)),
                           rng.uniform(lo + 0.1 * (hi - lo), hi - 0.1 * (hi - lo)))
-            objective, value = _treatment_objective(tree, X, model, root, Treatment(name))
-            neg, grad = objective(x)
-            assert -neg == pytest.approx(value(x), abs=1e-9)
+            neg, grad = space.objective(x)
+            assert -neg == pytest.approx(space.value(x), abs=1e-9)
             for i in range(len(x)):
-                fd = _central(value, x, i)
+                fd = _central(space.value, x, i)
                 assert -grad[i] == pytest.approx(fd, rel=1e-5, abs=1e-6), (name, root, i)
+            # the coordinates map back onto the bounds and the rates the value uses
+            assert space.branch_x(np.append(x[:-1], lo)) == BOUNDS[name][0]
+            assert space.branch_x(np.append(x[:-1], hi)) == BOUNDS[name][1]
+            assert space.branch_x(np.append(x[:-1], 0.0)) == NULL_VALUE[name]
+            lengths = effective_lengths(tree, Treatment(name), space.branch_x(x))[0]
+            assert log_likelihood(tree.with_lengths(lengths), X, model.q_matrix(space.rates(x)),
+                                  root) == pytest.approx(space.value(x), abs=1e-12)
 
 
 def test_per_branch_gradient_matches_finite_differences():
@@ -301,3 +310,31 @@ def test_tiny_degenerate_and_star_trees_fit_under_every_treatment(newick):
         assert np.isfinite(res.log_likelihood), name
         again = log_likelihood(tree_of_fit(tree, name, res.branch_parameter), X, res.q_matrix)
         assert again == pytest.approx(res.log_likelihood, abs=1e-9), name
+
+
+def test_branch_test_names_a_fit_below_the_given_lengths():
+    """A treatment contains the given lengths, so a fit below them missed its maximum
+    (fact of the trade: nested models): the per-tree row says so, its statistic is 0
+    and the summary counts it; a fit at or above them gets no note."""
+    import pandas as pd
+
+    from mkforest.engine.branch_support import branch_tests
+
+    rows = []
+    for tree, (given, kappa) in enumerate([(-50.0, -48.0), (-50.0, -50.5), (-50.0, -50.001)]):
+        rows += [{"tree_set": "s", "analysis": "a", "model": "plain", "structure": "equal",
+                  "branches": "as_given", "tree": tree, "log_likelihood": given,
+                  "branch_parameter": np.nan},
+                 {"tree_set": "s", "analysis": "a", "model": "power",
+                  "structure": "equal | branches kappa", "branches": "kappa", "tree": tree,
+                  "log_likelihood": kappa, "branch_parameter": 0.5}]
+    per_tree, summary = branch_tests(pd.DataFrame(rows))
+    notes = dict(zip(per_tree["tree"], per_tree["note"]))
+    assert notes[0] == "" and notes[2] == ""
+    assert "0.5 log-units below the fit on the given lengths" in notes[1]
+    assert per_tree.set_index("tree").at[1, "statistic"] == 0.0
+    assert per_tree.set_index("tree").at[0, "statistic"] == pytest.approx(4.0)
+    assert summary["n_below_null"].tolist() == [1]
+    from mkforest.report.methods_branches import results_lines
+    said = " ".join(results_lines("a", {"branch_test_summary": summary}))
+    assert "On 1 of 3 trees the fit of power ended below that of plain" in said

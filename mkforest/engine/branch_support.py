@@ -71,10 +71,13 @@ def treatment_support(fits: pd.DataFrame) -> pd.DataFrame:
 
 
 TEST_COLUMNS = ["tree_set", "analysis", "null", "alternative", "branches", "tree", "statistic",
-                "df", "p_value", "branch_parameter"]
+                "df", "p_value", "branch_parameter", "note"]
 TEST_SUMMARY_COLUMNS = ["tree_set", "analysis", "null", "alternative", "branches", "n_trees",
                         "median_statistic", "statistic_low95", "statistic_high95",
-                        "fraction_rejected", "alpha"]
+                        "fraction_rejected", "alpha", "n_below_null"]
+# An estimated treatment contains the given lengths, so its ln L cannot truly be below
+# theirs; a fit further below than the optimiser's agreement tolerance missed its maximum.
+BELOW_NULL = 0.01
 
 
 def lrt_p_value(statistic: float, treatment: str) -> float:
@@ -114,11 +117,16 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
             for tree in common:
                 la, lb = float(a.at[tree, "log_likelihood"]), float(b.at[tree, "log_likelihood"])
                 stat = max(0.0, 2.0 * (la - lb)) if np.isfinite(la) and np.isfinite(lb) else np.nan
+                note = ""
+                if np.isfinite(la) and np.isfinite(lb) and la < lb - BELOW_NULL:
+                    note = (f"the fit with {label[alt]} is {lb - la:.3g} log-units below the fit "
+                            "on the given lengths, which it contains: its optimiser missed the "
+                            "maximum on this tree; statistic set to 0")
                 rows.append({"tree_set": ts, "analysis": analysis, "null": null,
                              "alternative": alt, "branches": label[alt], "tree": int(tree),
                              "statistic": stat, "df": 1,
                              "p_value": lrt_p_value(stat, label[alt]),
-                             "branch_parameter": a.at[tree, "branch_parameter"]})
+                             "branch_parameter": a.at[tree, "branch_parameter"], "note": note})
             per_tree += rows
             stats = np.array([r["statistic"] for r in rows], dtype=float)
             ps = np.array([r["p_value"] for r in rows], dtype=float)
@@ -129,7 +137,8 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
                             "statistic_low95": _q(stats, 0.025),
                             "statistic_high95": _q(stats, 0.975),
                             "fraction_rejected": float((ps[ok] < alpha).mean()) if ok.any()
-                            else np.nan, "alpha": alpha})
+                            else np.nan, "alpha": alpha,
+                            "n_below_null": sum(1 for r in rows if r["note"])})
     return (pd.DataFrame(per_tree, columns=TEST_COLUMNS),
             pd.DataFrame(summary, columns=TEST_SUMMARY_COLUMNS))
 

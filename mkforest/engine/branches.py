@@ -39,7 +39,9 @@ from ..errors import InputError
 TREATMENTS = ("as_given", "unit", "kappa", "lambda", "delta", "early_burst")
 ESTIMABLE = ("kappa", "lambda", "delta", "early_burst")
 # Optimiser bounds on x (see the module docstring) and the value giving the tree's lengths.
-BOUNDS = {"kappa": (0.0, 3.0), "lambda": (0.0, 1.0), "delta": (math.log(0.01), math.log(3.0)),
+DELTA_RANGE = (0.01, 3.0)
+BOUNDS = {"kappa": (0.0, 3.0), "lambda": (0.0, 1.0),
+          "delta": (math.log(DELTA_RANGE[0]), math.log(DELTA_RANGE[1])),
           "early_burst": (-10.0, 10.0)}
 NULL_VALUE = {"kappa": 1.0, "lambda": 1.0, "delta": 0.0, "early_burst": 0.0}
 
@@ -79,7 +81,9 @@ class Treatment:
         delta = e^x)."""
         if self.name == "early_burst":
             return x / _height(tree)
-        return math.exp(x) if self.name == "delta" else float(x)
+        if self.name == "delta":  # e^(ln 3) rounds above 3: keep the range's own ends
+            return min(max(math.exp(x), DELTA_RANGE[0]), DELTA_RANGE[1])
+        return float(x)
 
     def x_of(self, theta: float, tree) -> float:
         if self.name == "early_burst":
@@ -141,9 +145,12 @@ def _phi_pair(z, phi_coef, dphi_coef):
 @numba.njit(cache=True)
 def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_coef, out, deriv):
     """Effective lengths (out) and d/dx (deriv) for one estimable treatment, every node
-    (the formulas of the module docstring; the root's entry is 0). log_t = ln t and
-    log_r = ln(d/H) per node, computed once per tree (0 where t or d is 0)."""
+    (the formulas of the module docstring; the root's entry is 0), and their sums
+    (total length, its derivative). log_t = ln t and log_r = ln(d/H) per node,
+    computed once per tree (0 where t or d is 0)."""
     n = t.shape[0]
+    total = 0.0
+    dtotal = 0.0
     for v in range(n - 1):
         p = parent[v]
         s0 = d[p]
@@ -184,8 +191,11 @@ def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_co
             out[v] = grow * t[v] * phi
             # d/da = s0 t' + e^(a s0) t^2 phi'(a t); d/dx = d/da / H
             deriv[v] = (s0 * out[v] + grow * t[v] * t[v] * dphi) / H
+        total += out[v]
+        dtotal += deriv[v]
     out[n - 1] = 0.0
     deriv[n - 1] = 0.0
+    return total, dtotal
 
 
 def _logs(tree):
@@ -217,6 +227,34 @@ def effective_lengths(tree, treatment: Treatment, x: float | None = None):
     _transform(_CODES[name], t, d, log_t, log_r, tree.parent, tree.n_tips, H, float(x), _PHI,
                _DPHI, out, deriv)
     return out, deriv
+
+
+class Transform:
+    """An estimable treatment's lengths on one tree, evaluated again and again (the
+    optimiser's inner loop): the tree's logs are looked up once and the output
+    arrays reused, so ``__call__`` is one compiled pass. Returns (lengths,
+    d lengths / dx, total length, its derivative); the arrays are overwritten by
+    the next call."""
+
+    def __init__(self, tree, treatment: Treatment):
+        self.tree = tree
+        self.code = _CODES[treatment.name]
+        self.d, self.log_t, self.log_r, H = _logs(tree)
+        self.flat = H == 0.0  # no height: every treatment leaves the lengths as they are
+        self.H = H
+        self.out = np.empty_like(tree.length)
+        self.deriv = np.empty_like(tree.length)
+
+    def __call__(self, x: float):
+        t = self.tree.length
+        if self.flat:
+            self.out[:] = t
+            self.deriv[:] = 0.0
+            return self.out, self.deriv, float(t[:-1].sum()), 0.0
+        total, dtotal = _transform(self.code, t, self.d, self.log_t, self.log_r,
+                                   self.tree.parent, self.tree.n_tips, self.H, float(x), _PHI,
+                                   _DPHI, self.out, self.deriv)
+        return self.out, self.deriv, total, dtotal
 
 
 def with_lengths(tree, lengths) -> "TreeArrays":

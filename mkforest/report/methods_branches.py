@@ -89,6 +89,14 @@ def results_lines(analysis: str, tables: dict) -> list:
                        f"'{best['branches']}' carried the largest mean summed Akaike weight "
                        f"({best['mean_weight']:.2f}) and was the treatment of the best model on "
                        f"{best['fraction_best']:.0%} of trees (tables/treatment_support.tsv).")
+    tests = tables.get("branch_test_summary")
+    if tests is not None and not tests.empty and "n_below_null" in tests:
+        for row in tests[(tests["analysis"] == analysis) & (tests["n_below_null"] > 0)].to_dict(
+                "records"):
+            out.append(f"On {int(row['n_below_null'])} of {int(row['n_trees'])} trees the fit of "
+                       f"{row['alternative']} ended below that of {row['null']} on the given "
+                       "lengths, which it contains: its optimiser missed the maximum there, and "
+                       "those trees' test statistics were set to 0 (tables/branch_tests.tsv).")
     sets = tables.get("tree_set_support")
     if sets is not None and not sets.empty:
         g = sets[(sets["analysis"] == analysis) & (sets["model"] == "best_model")]

@@ -473,24 +473,22 @@ def _descend(objective, x0, bounds, ftol=1e-10):
     # against a bound the start already sits on does not move
     free = ~(((x0 <= lo) & (g0 > 0)) | ((x0 >= hi) & (g0 < 0)))
     c = max(1.0, float(np.max(np.abs(g0[free]), initial=0.0))) if SCALE_FIRST_STEP else 1.0
-    seen = [(np.array(x0, dtype=float), f0, g0)]  # every point tried, unscaled
+    # every point tried, unscaled, keyed by its bytes (a list scanned per call made
+    # each descent quadratic in its number of evaluations)
+    seen = {np.asarray(x0, dtype=float).tobytes(): (f0, g0)}
 
     def scaled(x):
-        for xs, f, g in reversed(seen):
-            if np.array_equal(x, xs):
-                break
-        else:
-            f, g = objective(x)
-            seen.append((x.copy(), f, g))
+        key = np.asarray(x, dtype=float).tobytes()
+        if key not in seen:
+            seen[key] = objective(x)
+        f, g = seen[key]
         return f / c, g / c
 
     res = minimize(scaled, x0, method="L-BFGS-B", jac=True, bounds=bounds,
                    options={"maxiter": 1000, "ftol": ftol, "gtol": 1e-6 / c})
     # the unscaled value at the point returned (f / c * c need not round back to f)
-    for xs, f, _ in reversed(seen):
-        if np.array_equal(res.x, xs):
-            return f, res.x
-    return res.fun * c, res.x
+    key = np.asarray(res.x, dtype=float).tobytes()
+    return (seen[key][0] if key in seen else res.fun * c), res.x
 
 
 def min_starts(n_params: int, n_starts: int = MIN_STARTS, max_starts: int = MAX_STARTS) -> int:

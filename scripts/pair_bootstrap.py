@@ -15,8 +15,8 @@ from mkforest.engine.pairs import pair_from_config, pair_models, selected_tests
 from mkforest.jobs.pairs import (
     BOOTSTRAP_COLUMNS,
     bootstrap_chunk,
+    bootstrap_null_rates,
     bootstrap_tree_indices,
-    rates_from_rows,
 )
 from mkforest.jobs.scripting import run_job
 
@@ -37,15 +37,7 @@ def main(smk):
     trees = load_trees(smk.input.trees)
     used = pd.read_csv(smk.input.used, sep="\t")["tree"].tolist()
     selected = set(bootstrap_tree_indices(used, spec["bootstrap_trees"]))
-    fits, rates = _read(smk.input.fits), _read(smk.input.rates)
-    null_rates = {}
-    for test in tests:
-        model = models[test.null][0]
-        for t, rows in rates[rates["model"] == test.null].groupby("tree"):
-            r = rates_from_rows(model, rows)
-            ok = fits[(fits["model"] == test.null) & (fits["tree"] == t)]["log_likelihood"]
-            if r is not None and len(ok) and pd.notna(ok.iloc[0]):
-                null_rates[(test.null, int(t))] = r
+    null_rates = bootstrap_null_rates(tests, models, _read(smk.input.fits), _read(smk.input.rates))
     mine = [t.index for t in trees if t.index in selected]
     log.info("pair %s: bootstrapping %d trees of this chunk (%s), %d tests, %d data sets each",
              name, len(mine), mine, len(tests), spec["bootstrap"])

@@ -17,6 +17,7 @@ from mkforest.jobs.prepare import (
     burnin_count,
     check_same_taxa_across_sets,
     check_same_tips,
+    check_tree_lengths,
     chunk,
     lengthen_branches,
     select_trees,
@@ -42,6 +43,7 @@ def main(smk):
         minimum = cfg.get("min_branch_length") or 0.0
         report = [dict(tree=t.index, **short_branches(t, minimum)) for t in used]
         used = [lengthen_branches(t, minimum).with_tree_set(name) for t in used]
+        check_tree_lengths(used, source)
         firsts[name] = (used[0], source)
         log.info("%s: %d trees in %s; %d used after burn-in %s, thinning %d, sample %s; "
                  "rooted %s", name, len(trees), cfg["file"], len(used), cfg["burnin"],

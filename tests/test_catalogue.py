@@ -239,6 +239,32 @@ def test_zero_length_sister_tips_run_to_the_end_and_say_so_loudly(zero_run):
     assert "Across the 1 of 3 trees on which colour could be fitted" in methods
     tail = text_of(proc)[-3000:]
     assert "mkforest: warning: colour / one: 2 of 3 fits are impossible" in tail
+    # an impossible fit has no estimate: no rates, marked, and no "AICc undefined" note
+    assert not colour.loc[[0, 1], "note"].str.contains("AICc undefined").any()
+    rates = t["rates"][t["rates"]["analysis"] == "colour"]
+    assert rates.loc[rates["tree"] < 2, "rate"].isna().all()
+    assert (rates.loc[rates["tree"] < 2, "at_bound"] == "impossible").all()
+    assert np.isfinite(rates.loc[rates["tree"] == 2, "rate"]).all()
+    # summaries leave those trees out and count them, over the same trees as model_support
+    summary = t["rate_summary"].set_index(["analysis", "model", "from_state", "to_state"])
+    for model in ("one", "averaged"):
+        s = summary.loc[("colour", model, "red", "blue")]
+        assert s["n_impossible"] == 2 and s["n_trees"] == 1 == s["n_estimated"] + s["n_unbounded"]
+    rs = t["rate_summary"]
+    assert (rs.loc[rs["analysis"] == "habit", "n_impossible"] == 0).all()
+    # the rates figure draws the possible tree only and counts the others
+    from mkforest.report.plots import rates_across_trees
+    fig = rates_across_trees(t["rates"], t["model_support"])
+    note = fig.axes[0].get_title(loc="right")
+    assert fig.axes[0].get_title(loc="left") == "colour" and "one on 2 of 3 trees" in note
+    assert {x.get_text() for x in fig.axes[0].texts} == {"1/1"}
+    assert fig.axes[1].get_title(loc="right") == ""
+    # the ancestral stage skips them and says why
+    anc = t["ancestral_states"]
+    assert (anc.loc[anc["analysis"] == "colour", "n_trees"] <= 1).all()
+    assert anc.loc[anc["analysis"] == "colour", "caution"].str.contains(
+        "2 of 3 trees skipped: the data are impossible there under every model").all()
+    assert not anc.loc[anc["analysis"] == "habit", "caution"].str.contains("skipped").any()
 
 
 def test_zero_length_internal_and_very_short_branches_are_sound(zero_run):
@@ -342,7 +368,7 @@ def test_unrooted_sample_without_a_rooting_stops_naming_the_key(tmp_path):
     stopped(only_prepare(tmp_path, cfg), "trees.nwk", "tree 0", "unrooted", "trees.root")
 
 
-# --------------------------------------------------------------------------- case 23-31
+# --------------------------------------------------------------------------- case 23-31, 45
 # Tree files that cannot be used: the job that reads them stops with one sentence.
 
 TREE_ERRORS = {
@@ -365,12 +391,15 @@ TREE_ERRORS = {
     "burnin_leaves_nothing": (UNROOTED, {"root": "midpoint", "burnin": 3},
                               ["burn-in", "leave no trees", "trees.burnin"]),
     "empty_file": ([""], {}, ["trees.nwk", "empty"]),
+    "tree_without_length": (["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);",
+                             "[&R] ((a:0,b:0):0,(c:0,(d:0,e:0):0):0,f:0);"], {},
+                            ["trees.nwk", "tree 1 has no length", "trees.min_branch_length"]),
 }
 
 
 @pytest.mark.parametrize("case", list(TREE_ERRORS))
 def test_tree_file_errors_name_the_file_the_tree_and_the_fix(tmp_path, case):
-    """Cases 23-31."""
+    """Cases 23-31 and 45."""
     texts, trees, needles = TREE_ERRORS[case]
     cfg = _unrooted_workdir(tmp_path, **trees)
     (tmp_path / "data" / "trees.nwk").write_text("\n".join(texts) + "\n")

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 from scipy.special import chdtrc
 
-from .summarise import FEW_TREES, _q
+from .summarise import FEW_TREES, _q, as_text
 
 ALPHA = 0.05
 BEST = "best_model"     # tree_set_support rows of the best model on each tree
@@ -103,7 +103,7 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
         for alt in first["model"]:
             if label[alt] not in ("kappa", "lambda", "delta", "early_burst"):
                 continue
-            same = dict(zip(first["model"], first["same_as"].fillna(""))) if "same_as" in first \
+            same = dict(zip(first["model"], as_text(first["same_as"]))) if "same_as" in first \
                 else {}
             nulls = [m for m in first["model"] if label[m] == "as_given" and base[m] == base[alt]
                      and not same.get(m)]
@@ -147,7 +147,7 @@ def _best_rows(fits, criterion):
     """Per tree set x analysis x tree, the row of the model with the smallest criterion."""
     f = fits[np.isfinite(fits[criterion].astype(float))]
     if "same_as" in f:
-        f = f[f["same_as"].fillna("") == ""]
+        f = f[as_text(f["same_as"]) == ""]
     idx = f.groupby(["tree_set", "analysis", "tree"])[criterion].idxmin()
     return f.loc[idx].assign(model=BEST)
 

@@ -27,6 +27,12 @@ def information_criteria(log_likelihood: float, n_params: int, n: int) -> dict:
     return {"aic": aic, "aicc": aicc, "bic": bic}
 
 
+# rates.tsv ``at_bound`` of every rate of a fit with ln L = -inf: the data cannot arise under
+# the model on that tree, so the fit has no estimate (rate empty) and, like its infinite
+# criterion (weight 0), it is left out of every summary and counted
+IMPOSSIBLE = "impossible"
+
+
 def akaike_weights(values) -> np.ndarray:
     """Weights from criterion values (smaller is better); infinite values get weight 0."""
     v = np.asarray(values, dtype=np.float64)

@@ -137,7 +137,10 @@ def _starting_rate(tree, tip_partials, model) -> float:
     if X.shape[1] != k_obs:          # a hidden-class model's combined states: back to observed
         X = model.collapse(X)
     changes = max(fitch_score(tree, X), 1)
-    return changes / (tree.total_length * max(k_obs - 1, 1))
+    # a tree without length (every branch 0) has no time for change: any rate is as good a
+    # start as another, and the fit says the data are impossible there
+    total = tree.total_length if tree.total_length > 0 else 1.0
+    return changes / (total * max(k_obs - 1, 1))
 
 
 def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
@@ -446,6 +449,11 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
         xb = space.branch_x(best_x)
         theta = treatment.theta(xb, tree)
         side = "lower" if xb == space.lo else ("upper" if xb == space.hi else "")
+    if not np.isfinite(ll):
+        # no rates make the data possible: the optimiser's last point is no estimate
+        rates = np.full(p, np.nan)
+        theta, side = (math.nan if q else theta), ""
+        n_agree = 0
     return FitResult(model.name, ll, rates, model.labels, p + q, converged, run, n_agree,
                      at_lower, at_upper, root, model.q_matrix(rates), notes, per_start,
                      open_upper, treatment.label, theta, side)

@@ -33,7 +33,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .compare import akaike_weights
+from .compare import IMPOSSIBLE, akaike_weights
 
 FEW_TREES = 20   # below this, 95% intervals across trees are rough
 BOUND_SHARE = 0.01  # an averaged rate is bound-limited when bound-limited models make this share of it
@@ -67,7 +67,7 @@ def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
     fits = fits.copy()
     fits["delta"] = np.nan
     fits["weight"] = np.nan
-    use = fits["same_as"].fillna("") == "" if "same_as" in fits else pd.Series(True, fits.index)
+    use = as_text(fits["same_as"]) == "" if "same_as" in fits else pd.Series(True, fits.index)
     for _, idx in fits[use].groupby(_keys(fits, "analysis", "tree")).groups.items():
         vals = fits.loc[idx, criterion].to_numpy(dtype=float)
         finite = np.isfinite(vals)
@@ -76,6 +76,12 @@ def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
         fits.loc[idx, "delta"] = vals - vals[finite].min()
         fits.loc[idx, "weight"] = akaike_weights(vals)
     return fits
+
+
+def as_text(column: pd.Series) -> pd.Series:
+    """A table column as text, missing cells as "" (a column read back from a TSV whose
+    cells are all empty is float NaN, and filling a float column with "" is deprecated)."""
+    return column.astype(object).where(column.notna(), "").astype(str)
 
 
 def _keys(frame, *names) -> list:
@@ -100,7 +106,7 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
         ll = g["log_likelihood"].astype(float)
         impossible = ll == -np.inf                 # the data cannot arise under the model
         tried = ~ll.isna()                          # NaN: not fitted (trait does not vary)
-        at_bound = ((g["at_lower"].fillna("") != "") | (g["at_upper"].fillna("") != "")).sum()
+        at_bound = ((as_text(g["at_lower"]) != "") | (as_text(g["at_upper"]) != "")).sum()
         rows.append({
             **({"tree_set": key[0]} if len(key) == 3 else {}),
             "analysis": analysis, "model": model, "n_params": int(g["n_params"].iloc[0]),
@@ -117,13 +123,13 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
             "n_impossible": int(impossible.sum()),
             "n_not_converged": int((~g["converged"].astype(bool) & tried & ~impossible).sum()),
             "n_rates_at_bound": int(at_bound),
-            "n_rates_at_upper": int((g["at_upper"].fillna("") != "").sum()),
-            "n_rates_open_upper": int(((g["open_upper"].fillna("") != "")
-                                       & (g["at_upper"].fillna("") == "")).sum())
+            "n_rates_at_upper": int((as_text(g["at_upper"]) != "").sum()),
+            "n_rates_open_upper": int(((as_text(g["open_upper"]) != "")
+                                       & (as_text(g["at_upper"]) == "")).sum())
             if "open_upper" in g else 0,
-            "n_branch_at_bound": int((g["branch_at_bound"].fillna("") != "").sum())
+            "n_branch_at_bound": int((as_text(g["branch_at_bound"]) != "").sum())
             if "branch_at_bound" in g else 0,
-            "same_as": g["same_as"].iloc[0] if "same_as" in g else "",
+            "same_as": as_text(g["same_as"]).iloc[0] if "same_as" in g else "",
         })
     out = pd.DataFrame(rows)
     out["caution"] = [cautions(r) for r in out.to_dict("records")]
@@ -216,7 +222,8 @@ def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
     total = wg.groupby(per)["weight"].sum().rename("group_weight")
     r = r.merge(total.reset_index(), on=per, how="left")
     r["group_w"] = np.where(r["group_weight"] > 0, r["weight"] / r["group_weight"], 0.0)
-    r["weighted"] = r["rate"] * r["group_w"]
+    # a model with no weight on a tree (e.g. impossible there: rate NaN) adds nothing
+    r["weighted"] = np.where(r["group_w"] > 0, r["rate"] * r["group_w"], 0.0)
     upper = _upper_flags(r)
     r["weighted_upper"] = r["weighted"].where(upper, 0.0)
     r["weight_upper"] = r["group_w"].where(upper, 0.0)
@@ -233,16 +240,26 @@ def _upper_flags(rates: pd.DataFrame) -> pd.Series:
     """True where the data do not bound a rate row from above (rates.tsv's ``at_bound``
     column is upper or open)."""
     if "at_bound" in rates:
-        return rates["at_bound"].fillna("").astype(str).str.strip().isin(["upper", "open"])
+        return as_text(rates["at_bound"]).str.strip().isin(["upper", "open"])
     if "unbounded" in rates:
-        return rates["unbounded"].fillna(False).astype(str).str.lower().eq("true")
+        return as_text(rates["unbounded"]).str.lower().eq("true")
     return pd.Series(False, index=rates.index)
 
 
 def _lower_flags(rates: pd.DataFrame) -> pd.Series:
     if "at_bound" in rates:
-        return rates["at_bound"].fillna("").astype(str).str.strip().eq("lower")
+        return as_text(rates["at_bound"]).str.strip().eq("lower")
     return pd.Series(False, index=rates.index)
+
+
+def impossible_flags(rates: pd.DataFrame) -> pd.Series:
+    """True where a rates.tsv row comes from a fit with ln L = -inf (``at_bound`` =
+    impossible, rate NaN): the data cannot arise under the model on that tree, so the
+    row holds no estimate and every summary leaves it out and counts it."""
+    flags = rates["rate"].isna() if "rate" in rates else pd.Series(False, index=rates.index)
+    if "at_bound" in rates:
+        flags |= as_text(rates["at_bound"]).str.strip().eq(IMPOSSIBLE)
+    return flags
 
 
 def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
@@ -252,36 +269,62 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
     the rate ran to the upper bound, ``n_at_upper`` of them, or its 95% interval
     reaches it) are left out of the median and interval and counted, with
     ``at_upper_min`` the smallest value reached at the bound (the rate is at
-    least that there). ``status``: estimated, partly_unbounded or unbounded.
+    least that there). ``status``: estimated, partly_unbounded, unbounded, or
+    impossible (no tree where the fit is possible).
     For the model average, the trees flagged ``unbounded`` in averaged_rates
-    count as unbounded."""
+    count as unbounded.
+
+    Fits with ln L = -inf (``impossible_flags``) have no rates: they are left out
+    of everything and counted in ``n_impossible``; ``n_trees`` (= n_estimated +
+    n_unbounded) counts the trees where the fit is possible, as in model_support.
+    For the model average, a tree is impossible when every model that allows the
+    change is impossible there."""
     per_model = rates[_keys(rates, "analysis", "model", "tree", "from_state", "to_state", "rate")].copy()
     per_model["upper"] = _upper_flags(rates).to_numpy()
     per_model["lower"] = _lower_flags(rates).to_numpy()
-    per_model["at_upper"] = rates["at_bound"].fillna("").astype(str).str.strip().eq(
+    per_model["at_upper"] = as_text(rates["at_bound"]).str.strip().eq(
         "upper").to_numpy() if "at_bound" in rates else False
+    per_model["impossible"] = impossible_flags(rates).to_numpy()
     avg = averaged[_keys(averaged, "analysis", "model", "tree", "from_state", "to_state", "rate")].copy()
     avg["upper"] = _upper_flags(averaged).to_numpy()
     avg["lower"] = False
     avg["at_upper"] = False
-    both = pd.concat([per_model, avg], ignore_index=True)
+    avg["impossible"] = False
+    both = pd.concat([per_model, avg, _impossible_averages(per_model, avg)], ignore_index=True)
     rows = []
     for key, g in both.groupby(_keys(both, "analysis", "model", "from_state", "to_state"),
                                sort=False):
         a, m, f, t = key[-4:]
+        impossible = g["impossible"].to_numpy(bool)
+        g = g[~impossible]
         x = g["rate"].to_numpy(float)
         upper = g["upper"].to_numpy(bool)
         at_upper = g["at_upper"].to_numpy(bool)
         est = x[~upper]
-        status = "estimated" if not upper.any() else ("unbounded" if est.size == 0
-                                                      else "partly_unbounded")
+        status = "impossible" if not len(g) else "estimated" if not upper.any() else (
+            "unbounded" if est.size == 0 else "partly_unbounded")
         rows.append({**({"tree_set": key[0]} if len(key) == 5 else {}),
                      "analysis": a, "model": m, "from_state": f, "to_state": t,
                      "n_trees": len(x), "n_estimated": int(est.size),
                      "n_unbounded": int(upper.sum()), "n_at_upper": int(at_upper.sum()),
                      "n_at_lower": int(g["lower"].sum()),
+                     "n_impossible": int(impossible.sum()),
                      "median_rate": float(np.median(est)) if est.size else np.nan,
                      "rate_low95": _q(est, 0.025), "rate_high95": _q(est, 0.975),
                      "at_upper_min": float(x[at_upper].min()) if at_upper.any() else np.nan,
                      "status": status})
     return pd.DataFrame(rows)
+
+
+def _impossible_averages(per_model: pd.DataFrame, avg: pd.DataFrame) -> pd.DataFrame:
+    """'averaged' rows (rate NaN, impossible) for the trees where every model's row of a
+    change is impossible and the average has no row: those trees are counted, not lost."""
+    tree_keys = _keys(per_model, "analysis", "tree", "from_state", "to_state")
+    every = per_model.groupby(tree_keys, sort=False)["impossible"].all()
+    every = every[every].reset_index()[tree_keys]
+    if len(avg):
+        have = avg[tree_keys].drop_duplicates().assign(_have=True)
+        every = every.merge(have, on=tree_keys, how="left")
+        every = every[every["_have"].isna()].drop(columns="_have")
+    return every.assign(model="averaged", rate=np.nan, upper=False, lower=False, at_upper=False,
+                        impossible=True)

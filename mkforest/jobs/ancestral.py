@@ -211,6 +211,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
     at_bound = np.zeros(n_trees)
     model_at_upper = np.zeros((n_trees, len(names)), dtype=bool)
     skipped = np.zeros(n_trees, dtype=bool)
+    impossible = np.zeros(n_trees, dtype=bool)     # every model's fit has ln L = -inf
 
     # models with hidden rate classes: probabilities of every combined state state@class at
     # each clade under that model alone (the classes of different models do not match up)
@@ -226,7 +227,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
 
     for t, tree in enumerate(trees):
         X = trait.tip_partials(tree, absent=absent)
-        crit, Qs, roots, conv, bound, own = [], [], [], [], [], []
+        crit, Qs, roots, conv, bound, own, lls = [], [], [], [], [], [], []
         for name in names:
             row = fit_by.get((name, tree.index))
             if row is None:
@@ -238,7 +239,10 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             Qs.append(q_from_rate_rows(g, mstates) if g is not None
                       else np.zeros((len(mstates), len(mstates))))
             roots.append(models[name][1])
-            own.append(tree_of_fit(tree, row.get("branches"), row.get("branch_parameter")))
+            # an impossible fit (ln L = -inf) has no rates and no branch parameter: weight 0
+            lls.append(float(row["log_likelihood"]))
+            own.append(tree_of_fit(tree, row.get("branches"), row.get("branch_parameter"))
+                       if np.isfinite(lls[-1]) else tree)
             conv.append(str(row["converged"]).lower() == "true")
             # a rate at the lower bound is a change the data do not support (rate ~ 0), which
             # maps handle; a rate at the upper bound, or whose 95% interval reaches it, has no
@@ -248,6 +252,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
         w = model_weights(crit, choice_used, names)
         if not (w > 0).any():
             skipped[t] = True
+            impossible[t] = all(ll == -np.inf for ll in lls)
             continue
         weights[t] = w
         model_at_upper[t] = bound
@@ -293,7 +298,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
     return dict(tree=np.array([t.index for t in trees], dtype=np.int64), prob=prob, extra=extra,
                 counts=counts, dwell=dwell, map_model=map_model, weights=weights,
                 unconverged_weight=unconverged, bound_weight=at_bound,
-                model_at_upper=model_at_upper, skipped=skipped,
+                model_at_upper=model_at_upper, skipped=skipped, impossible=impossible,
                 states=np.array(json.dumps(list(states))), models=np.array(json.dumps(names)),
                 clades=np.array(json.dumps(list(clades["clade"]))),
                 choice=np.array(choice_used), choice_note=np.array(choice_note),
@@ -328,9 +333,13 @@ def _common_cautions(data, n_total) -> list:
     notes = []
     used = ~data["skipped"]
     n_used = int(used.sum())
-    if n_used < n_total:
-        notes.append(f"{n_total - n_used} of {n_total} trees skipped (no model could be fitted "
-                     "or the data are impossible under the fitted models)")
+    n_impossible = int(np.asarray(data.get("impossible", np.zeros(0)), dtype=bool).sum())
+    if n_impossible:
+        notes.append(f"{n_impossible} of {n_total} trees skipped: the data are impossible there "
+                     "under every model (ln L = -inf; see tables/data_check.tsv)")
+    if n_used + n_impossible < n_total:
+        notes.append(f"{n_total - n_used - n_impossible} of {n_total} trees skipped (no model "
+                     "could be fitted there, or the data are impossible under the chosen model)")
     if n_used and n_used < FEW_TREES:
         notes.append(f"only {n_used} tree{'' if n_used == 1 else 's'}: intervals across trees are rough")
     nc = int((data["unconverged_weight"][used] > WEAK_WEIGHT).sum())

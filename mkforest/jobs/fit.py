@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..engine.branches import Treatment
-from ..engine.compare import information_criteria
+from ..engine.compare import IMPOSSIBLE, information_criteria
 from ..engine.fitting import fit_model
 from ..engine.hidden import class_notes
 from ..seeds import derive_seed
@@ -45,7 +45,8 @@ def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, st
                         lower=lower, upper=upper, max_starts=max_starts, branches=treatment)
         ic = information_criteria(res.log_likelihood, res.n_params, n)
         notes = list(res.notes) + class_notes(model, res)
-        if np.isinf(ic["aicc"]):
+        possible = bool(np.isfinite(res.log_likelihood))
+        if possible and np.isinf(ic["aicc"]):
             notes.append(f"AICc undefined: {n} taxa with data for {res.n_params} rates")
         if res.branch_at_bound:
             notes.append(f"{treatment.name} at its {res.branch_at_bound} bound")
@@ -56,6 +57,8 @@ def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, st
                    branch_parameter=res.branch_parameter if np.isfinite(res.branch_parameter)
                    else None, branch_at_bound=res.branch_at_bound)
         fits.append(row)
+        # an impossible fit (ln L = -inf) has no estimate: every rate empty (NaN when read),
+        # marked IMPOSSIBLE (a fixed rate too, so that no summary counts the fit)
         bound_of = {**{x: "lower" for x in res.at_lower}, **{x: "open" for x in res.open_upper},
                     **{x: "upper" for x in res.at_upper}}
         for a, b, p in model.transitions():
@@ -63,7 +66,8 @@ def fit_chunk(trees: list, trait, model, root: str, analysis: str, seed: int, st
             label = model.labels[p] if p >= 0 else "fixed"
             rates.append({"tree_set": tree.tree_set, "analysis": analysis, "model": model.name,
                           "tree": tree.index,
-                          "from_state": a, "to_state": b, "rate": float(res.q_matrix[i, j]),
+                          "from_state": a, "to_state": b,
+                          "rate": float(res.q_matrix[i, j]) if possible else None,
                           "parameter": label,
-                          "at_bound": bound_of.get(label, "")})
+                          "at_bound": bound_of.get(label, "") if possible else IMPOSSIBLE})
     return fits, rates

@@ -44,11 +44,29 @@ def bootstrap_tree_indices(used_trees, n_selected: int) -> list:
 
 
 def rates_from_rows(model, rows: pd.DataFrame) -> np.ndarray | None:
-    """The model's free-rate vector from one tree's rows of a rates table (by parameter label)."""
+    """The model's free-rate vector from one tree's rows of a rates table (by parameter label);
+    None when a rate is missing or is no estimate (NaN: the fit is impossible there)."""
     by_label = dict(zip(rows["parameter"], rows["rate"]))
     if not all(lab in by_label for lab in model.labels):
         return None
-    return np.array([float(by_label[lab]) for lab in model.labels])
+    rates = np.array([float(by_label[lab]) for lab in model.labels])
+    return rates if np.isfinite(rates).all() else None
+
+
+def bootstrap_null_rates(tests: list, models: dict, fits: pd.DataFrame,
+                         rates: pd.DataFrame) -> dict:
+    """{(null name, tree index): the null's fitted free rates} for bootstrap_chunk, over the
+    trees where the null's fit has a finite ln L (an impossible fit, ln L = -inf, has no
+    rates to simulate from: that tree gets no bootstrap)."""
+    out = {}
+    for test in tests:
+        model = models[test.null][0]
+        ll = fits[fits["model"] == test.null].groupby("tree")["log_likelihood"].first()
+        for t, rows in rates[rates["model"] == test.null].groupby("tree"):
+            r = rates_from_rows(model, rows)
+            if r is not None and np.isfinite(float(ll.get(t, np.nan))):
+                out[(test.null, int(t))] = r
+    return out
 
 
 def bootstrap_chunk(pair, models: dict, tests: list, trees: list, selected: set,
@@ -99,7 +117,10 @@ def pair_test_rows(pair_name: str, tests: list, fits: pd.DataFrame, boot: pd.Dat
             notes = []
             if not (np.isfinite(ll_n) and np.isfinite(ll_a)):
                 stat = p = np.nan
-                notes.append("not fitted")
+                impossible = [h for h, ll in ((test.null, ll_n), (test.alternative, ll_a))
+                              if ll == -np.inf]
+                notes.append(f"not tested: the data are impossible under {' and '.join(impossible)} "
+                             "on this tree (ln L = -inf)" if impossible else "not fitted")
             else:
                 if ll_a < ll_n - LOSS_TOL:
                     notes.append(f"the alternative's fit is {ll_n - ll_a:.3g} log-units below its "
@@ -138,6 +159,13 @@ def pair_test_rows(pair_name: str, tests: list, fits: pd.DataFrame, boot: pd.Dat
     return rows
 
 
+def _impossible_trees(fits: pd.DataFrame, pair: str, hypotheses, trees) -> int:
+    """How many of ``trees`` have a fit of one of ``hypotheses`` with ln L = -inf."""
+    f = fits[(fits["analysis"] == pair) & fits["model"].isin(hypotheses)
+             & fits["tree"].isin(list(trees))]
+    return int(f.loc[f["log_likelihood"].astype(float) == -np.inf, "tree"].nunique())
+
+
 def _text(x) -> str:
     return "" if x is None or (isinstance(x, float) and np.isnan(x)) else str(x)
 
@@ -162,6 +190,7 @@ def summary_rows(tests: pd.DataFrame, fits: pd.DataFrame, n_replicates: int) -> 
         df = int(g["df"].iloc[0])
         row = {"pair": pair, "null": null, "alternative": alt, "df": df, "alpha": alpha,
                "n_trees": len(ok),
+               "n_impossible": _impossible_trees(fits, pair, (null, alt), g["tree"]),
                "fraction_reject_chi2": float(ok["reject_chi2"].astype(bool).mean()) if len(ok) else np.nan,
                "n_trees_bootstrap": len(boot),
                "fraction_reject_bootstrap": float(boot["reject_bootstrap"].astype(bool).mean())
@@ -174,8 +203,8 @@ def summary_rows(tests: pd.DataFrame, fits: pd.DataFrame, n_replicates: int) -> 
                "median_p_bootstrap": float(boot["p_bootstrap"].median()) if len(boot) else np.nan,
                "null_mean_weight": float(w.get(null, np.nan)),
                "alternative_mean_weight": float(w.get(alt, np.nan)),
-               "n_not_converged": int((~(g["null_converged"].astype(bool)
-                                        & g["alternative_converged"].astype(bool))).sum()),
+               "n_not_converged": int((~(ok["null_converged"].astype(bool)
+                                        & ok["alternative_converged"].astype(bool))).sum()),
                "n_bootstrap_null_at_bound": int(boot["null_rate_at_lower_bound"].astype(bool).sum()),
                "boundary": bool(g["boundary"].iloc[0])}
         row["caution"] = summary_cautions(row, n_replicates)
@@ -185,8 +214,12 @@ def summary_rows(tests: pd.DataFrame, fits: pd.DataFrame, n_replicates: int) -> 
 
 def summary_cautions(row: dict, n_replicates: int) -> str:
     words = []
+    impossible = (f"{row['n_impossible']} of {row['n_trees'] + row['n_impossible']} trees left "
+                  "out: a fit is impossible there (ln L = -inf)") if row.get("n_impossible") else ""
     if row["n_trees"] == 0:
-        return "not tested: no tree has both fits"
+        return "; ".join(x for x in ("not tested: no tree has both fits", impossible) if x)
+    if impossible:
+        words.append(impossible)
     if row["n_not_converged"]:
         words.append(f"{row['n_not_converged']} of {row['n_trees']} trees have a fit that did not "
                      "converge; their statistics may be off")

@@ -62,6 +62,20 @@ def _tip_difference(tips: set, reference: set, extra_note: str = "") -> str:
     return " and ".join(parts)
 
 
+def check_tree_lengths(trees: list, source: str) -> None:
+    """Every tree must have some length: on a tree whose branches are all 0 (after
+    trees.min_branch_length) no change can happen, every trait that varies is impossible
+    under every model, and the rate bounds (set from the tree's height) mean nothing."""
+    flat = [t.index for t in trees if not t.total_length > 0]
+    if flat:
+        more = f" (and {len(flat) - 1} more: {', '.join(map(str, flat[1:6]))}" \
+               f"{', ...' if len(flat) > 6 else ''})" if len(flat) > 1 else ""
+        raise InputError(f"{source}: tree {flat[0]}{more} has no length: every branch is 0, so no "
+                         "trait can change along it. Give the trees branch lengths (a dated or "
+                         "otherwise scaled tree), leave that tree out, or set "
+                         "trees.min_branch_length to give every branch a small length.")
+
+
 def short_branches(tree: TreeArrays, minimum: float = 0.0) -> dict:
     """What a tree holds of zero-length (or, with ``minimum``, shorter) branches, as read.
 

@@ -23,6 +23,7 @@ import pandas as pd
 from ..data.config import tree_sets
 from ..engine.fitting import AGREE_TOL, RATE_STARTS
 from ..engine.pairs import HYPOTHESES
+from ..engine.summarise import as_text
 from .citations import REFERENCES, cite, cited_in
 from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
 from .words import hypothesis_words, model_words
@@ -296,7 +297,7 @@ def _models_paragraph(config, models, support) -> str:
         text += " Root treatment: " + "; ".join(
             f"{root_words(r)} for {listing(who)}" for r, who in roots.items()) + "."
     if "same_as" in support:
-        same = support[support["same_as"].fillna("").astype(str) != ""]
+        same = support[as_text(support["same_as"]) != ""]
         for row in same.to_dict("records"):
             text += (f" For {row['analysis']}, {row['model']} has the same rate structure and root "
                      f"as {row['same_as']}; it is the same hypothesis and was left out of the "
@@ -592,7 +593,7 @@ def word_count(text: str) -> int:
 
 def _analysis_results(analysis, support, rate_summary, crit_name, n_used=None) -> str:
     rows = support[support["analysis"] == analysis]
-    same = rows["same_as"].fillna("").astype(str) if "same_as" in rows else pd.Series("", rows.index)
+    same = as_text(rows["same_as"]) if "same_as" in rows else pd.Series("", rows.index)
     ranked = rows[same == ""].sort_values("mean_weight", ascending=False, na_position="last")
     n = int(ranked["n_trees"].max()) if len(ranked) else 0
     if n == 0:
@@ -825,7 +826,7 @@ def read_tables(paths: dict) -> dict:
                                        "model": str, "analysis": str})
         for col in ("caution", "same_as"):
             if col in out[name]:
-                out[name][col] = out[name][col].fillna("")
+                out[name][col] = as_text(out[name][col])
     return out
 
 

@@ -6,6 +6,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from ..engine.summarise import as_text
 from .citations import cite
 
 WORDS = {
@@ -26,7 +27,7 @@ def first_set(frame: pd.DataFrame | None) -> pd.DataFrame | None:
     """The rows of the first tree set (tables keep set order); tables without sets as they are."""
     if frame is None or "tree_set" not in frame or frame.empty:
         return frame
-    sets = frame["tree_set"].fillna("").astype(str)
+    sets = as_text(frame["tree_set"])
     return frame[sets == sets.iloc[0]]
 
 

@@ -153,9 +153,11 @@ def rates_across_trees(rates: pd.DataFrame, support: pd.DataFrame | None = None,
     the number of trees at each bound beside the axis. pairs: {pair: (first, second)}
     to name joint-state changes by the trait that changes; states: {analysis: states
     in their declared order} for the order of the rows. A model keeps its colour in
-    every panel (single traits and pairs have their own sets of colours)."""
+    every panel (single traits and pairs have their own sets of colours). Fits with
+    ln L = -inf have no rates: their changes keep their rows, and the panel's right-hand
+    title counts them (style.impossible_note)."""
     pairs = pairs or {}
-    r = rates[rates["rate"].notna()].copy()
+    r = rates
     analyses = list(dict.fromkeys(r["analysis"]))
     repeats = {a: style.same_as(support, a) for a in analyses}
     drawn = {a: [m for m in dict.fromkeys(r.loc[r["analysis"] == a, "model"]) if m not in repeats[a]]
@@ -163,7 +165,7 @@ def rates_across_trees(rates: pd.DataFrame, support: pd.DataFrame | None = None,
     stats = style.rate_intervals(r)
     heights = []
     for a in analyses:
-        n_rows = stats.loc[stats["analysis"] == a, ["from_state", "to_state"]].drop_duplicates()
+        n_rows = r.loc[r["analysis"] == a, ["from_state", "to_state"]].drop_duplicates()
         heights.append(len(n_rows) * (0.06 + SERIES_HEIGHT * len(drawn[a])))
     fig, axes = plt.subplots(len(analyses), 1, squeeze=False, layout="constrained",
                              figsize=(9.0, sum(heights) + 0.75 * len(analyses) + 0.5),
@@ -180,13 +182,16 @@ def rates_across_trees(rates: pd.DataFrame, support: pd.DataFrame | None = None,
         colour = {m: colours[(a, m)] for m in models}
         marker = {m: markers[(a, m)] for m in models}
         d = stats[(stats["analysis"] == a) & stats["model"].isin(models)].copy()
-        keys = style.ordered_changes(zip(d["from_state"], d["to_state"]), pairs.get(a),
+        mine = r[(r["analysis"] == a) & r["model"].isin(models)]
+        keys = style.ordered_changes(zip(mine["from_state"], mine["to_state"]), pairs.get(a),
                                      states.get(a))
         rows = [(key, style.change_label(*key, pairs.get(a))) for key in keys]
         d["row"] = list(zip(d["from_state"], d["to_state"]))
         d["series"] = d["model"]
         interval_panel(ax, rows, d, models, colour, marker)
         ax.set_title(a, fontsize=9, loc="left", fontweight="bold")
+        ax.set_title(style.impossible_note(rates[rates["analysis"] == a], models), fontsize=7,
+                     loc="right", color=style.BOUND_COLOUR)
         ax.set_xlabel("rate (changes per unit branch length)", fontsize=8)
         handles = [Line2D([], [], color=colour[m], marker=marker[m], lw=1.4, label=m)
                    for m in models]

@@ -70,6 +70,15 @@ def _hypotheses(pair, rates: pd.DataFrame, support, models=None) -> list:
     return [h for h in names if _base(h) not in repeats and (models is None or _base(h) in models)]
 
 
+def _with_impossible(title: str, pair, rates: pd.DataFrame, support) -> str:
+    """The title, and on a second line the hypotheses whose fits are impossible on some
+    trees (ln L = -inf: no rates, not drawn), counted."""
+    mine = rates[rates["analysis"] == pair.name]
+    repeats = style.same_as(support, pair.name)
+    note = style.impossible_note(mine, [h for h in dict.fromkeys(mine["model"]) if h not in repeats])
+    return f"{title}\n{note}" if note else title
+
+
 def _legend_label(h, models, pair, weights) -> str:
     base = _base(h)
     kind = models[base].kind if models and base in models else base
@@ -127,8 +136,8 @@ def rates_by_state(pair, rates: pd.DataFrame, support: pd.DataFrame | None = Non
     fig.legend(handles=handles, loc="outside lower center", ncol=1, fontsize=7.5, frameon=False,
                title="hypothesis: median across trees (marker), central 95% of trees (line)",
                title_fontsize=7.5)
-    fig.suptitle(f"{pair.name}: rates of each trait in each state of the other, across trees",
-                 fontsize=10)
+    fig.suptitle(_with_impossible(f"{pair.name}: rates of each trait in each state of the other, "
+                                  "across trees", pair, rates, support), fontsize=10)
     return fig
 
 
@@ -235,7 +244,8 @@ def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = No
                                                 f"\"< {style.PRECISION:g}\"; "
                                                 "'k/n bound': trees with the rate at a bound")]
     fig.legend(handles=handles, loc="outside lower center", ncol=1, fontsize=7, frameon=False)
-    fig.suptitle(f"{pair.name}: joint-state rates, from (rows) to (columns)", fontsize=10)
+    fig.suptitle(_with_impossible(f"{pair.name}: joint-state rates, from (rows) to (columns)",
+                                  pair, rates, support), fontsize=10)
     return fig
 
 

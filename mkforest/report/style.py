@@ -21,6 +21,8 @@ from matplotlib.colors import to_hex, to_rgb  # noqa: E402
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
 from PIL import Image  # noqa: E402  (installed with matplotlib)
 
+from ..engine.summarise import as_text, impossible_flags  # noqa: E402
+
 # Okabe & Ito (2008), in an order where neighbours differ most; yellow last (faint
 # as a line or text on white) and black kept apart for model averages and text.
 CATEGORICAL = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442"]
@@ -204,10 +206,11 @@ def rate_intervals(rates: pd.DataFrame, keys=("analysis", "model", "from_state",
 
     A rate at a bound is not an estimate (lower: the data carry no sign of that
     change; upper: too fast to estimate), so it is counted, not averaged in.
-    ``rates`` is rates.tsv: ``at_bound`` is 'lower', 'upper' or empty.
+    ``rates`` is rates.tsv: ``at_bound`` is 'lower', 'upper' or empty; rows of impossible
+    fits (ln L = -inf, rate NaN) are left out (``impossible_note`` counts them).
     """
-    r = rates.copy()
-    bound = r["at_bound"].fillna("").astype(str) if "at_bound" in r else pd.Series("", r.index)
+    r = rates[~impossible_flags(rates)].copy()
+    bound = as_text(r["at_bound"]) if "at_bound" in r else pd.Series("", r.index)
     keys = list(keys)
     r["n_lower"] = bound.eq("lower")
     r["n_upper"] = bound.eq("upper")
@@ -224,11 +227,26 @@ def rate_intervals(rates: pd.DataFrame, keys=("analysis", "model", "from_state",
     return out.reset_index()
 
 
+def impossible_note(rates: pd.DataFrame, models=None) -> str:
+    """'fits impossible (ln L = −inf), not drawn: one on 2 of 3 trees; ...' for the models
+    (all, or ``models``) of rates.tsv rows with an impossible fit on some tree; '' if none."""
+    keys = [k for k in ("tree_set", "tree") if k in rates]
+    flags = impossible_flags(rates)
+    parts = []
+    for m, g in rates.groupby("model", sort=False):
+        if models is not None and m not in models:
+            continue
+        bad = g[flags.loc[g.index]].drop_duplicates(keys)
+        if len(bad):
+            parts.append(f"{m} on {len(bad)} of {len(g.drop_duplicates(keys))} trees")
+    return f"fits impossible (ln L = −inf), not drawn: {'; '.join(parts)}" if parts else ""
+
+
 def same_as(support: pd.DataFrame | None, analysis: str) -> dict:
     """{model: the model it repeats} for an analysis (model_support's ``same_as``)."""
     if support is None or "same_as" not in support:
         return {}
-    s = support[(support["analysis"] == analysis) & (support["same_as"].fillna("").astype(str) != "")]
+    s = support[(support["analysis"] == analysis) & (as_text(support["same_as"]) != "")]
     return dict(zip(s["model"], s["same_as"]))
 
 

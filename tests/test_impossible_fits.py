@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from figure_checks import overlaps
 
 from mkforest.data.traits import trait_from_mapping
 from mkforest.data.trees import parse_newick
@@ -125,6 +126,12 @@ def test_rates_figure_counts_impossible_fits_and_draws_only_the_others():
     stats = style.rate_intervals(rates)
     assert (stats["n_trees"] == 1).all()
     assert style.impossible_note(rates[rates["tree"] == 2]) == ""
+    assert overlaps(fig) == []
+    # every fit impossible: the panel keeps its rows, draws nothing and says why
+    fig = plots.rates_across_trees(rates[rates["tree"] < 2], None)
+    assert "one on 2 of 2 trees" in fig.axes[0].get_title(loc="right")
+    assert [t.get_text() for t in fig.axes[0].get_yticklabels()] == ["blue → red", "red → blue"]
+    assert len(fig.axes[0].texts) == 0 and overlaps(fig) == []
 
 
 def test_bootstrap_never_simulates_from_an_impossible_null():

@@ -6,26 +6,34 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import pandas as pd
 
-from mkforest.jobs.ancestral import class_table, load_chunks, state_table, transition_tables
+from mkforest.jobs.ancestral import (
+    class_table,
+    clades_in_set,
+    load_chunks,
+    state_table,
+    transition_tables,
+    tree_set_slices,
+)
 from mkforest.jobs.scripting import run_job
 
 
 def main(smk):
     clades = pd.read_csv(smk.input.clades, sep="\t", dtype={"members": str, "clade": str})
     used = pd.read_csv(smk.input.used, sep="\t", keep_default_na=False)
-    if "tree_set" in used:  # ancestral states are reconstructed on the first tree set
-        used = used[used["tree_set"] == used["tree_set"].iloc[0]]
-    n_total = len(used)
+    n_used = used.groupby(used["tree_set"].astype(str)).size().to_dict() if "tree_set" in used \
+        else {"": len(used)}
     states, trans, times, per_tree, classes = [], [], [], [], []
     for analysis in smk.params.analyses:
         paths = [p for p in smk.input.chunks if Path(p).parent.name == analysis]
-        data = load_chunks(paths)
-        states.append(state_table(analysis, data, clades, n_total))
-        classes.append(class_table(analysis, data, clades, n_total))
-        t, d, p = transition_tables(analysis, data, n_total)
-        trans.append(t)
-        times.append(d)
-        per_tree.append(p)
+        # every tree set on its own trees, in the order of the chunks (the sets' order)
+        for ts, data in tree_set_slices(load_chunks(paths)):
+            n_total = int(n_used.get(ts, len(data["tree"])))
+            here = clades_in_set(clades, data)
+            t, d, p = transition_tables(analysis, data, n_total)
+            for frame, table in ((states, state_table(analysis, data, here, n_total)),
+                                 (classes, class_table(analysis, data, here, n_total)),
+                                 (trans, t), (times, d), (per_tree, p)):
+                frame.append(table.assign(tree_set=ts)[["tree_set", *table.columns]])
     out = smk.output
     pd.concat(states).to_csv(out.states, sep="\t", index=False, float_format="%.6g")
     pd.concat(trans).to_csv(out.transitions, sep="\t", index=False, float_format="%.6g")

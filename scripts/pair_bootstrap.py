@@ -35,8 +35,10 @@ def main(smk):
     models = pair_models(name, spec, pair)
     tests = selected_tests(name, spec, models)
     trees = load_trees(smk.input.trees)
-    used = pd.read_csv(smk.input.used, sep="\t")["tree"].tolist()
-    selected = set(bootstrap_tree_indices(used, spec["bootstrap_trees"]))
+    used = pd.read_csv(smk.input.used, sep="\t", keep_default_na=False)
+    if trees and "tree_set" in used:  # a chunk holds trees of one set: choose among that set's
+        used = used[used["tree_set"].astype(str) == trees[0].tree_set]
+    selected = set(bootstrap_tree_indices(used["tree"].tolist(), spec["bootstrap_trees"]))
     null_rates = bootstrap_null_rates(tests, models, _read(smk.input.fits), _read(smk.input.rates))
     mine = [t.index for t in trees if t.index in selected]
     log.info("pair %s: bootstrapping %d trees of this chunk (%s), %d tests, %d data sets each",

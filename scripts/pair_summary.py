@@ -18,16 +18,18 @@ from mkforest.jobs.pairs import (
     summary_rows,
 )
 from mkforest.jobs.scripting import run_job
-from mkforest.report.methods_branches import first_set
 
 
 def main(smk):
     log = logging.getLogger("mkforest")
     config = smk.params.config
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
-    fits = first_set(pd.read_csv(smk.input.fits, sep="\t"))  # pair tests use the first tree set
+    fits = pd.read_csv(smk.input.fits, sep="\t")
     frames = [pd.read_csv(p, sep="\t") for p in smk.input.bootstrap]
     boot = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=BOOTSTRAP_COLUMNS)
+    for t in (fits, boot):
+        t["tree_set"] = t["tree_set"].fillna("").astype(str)
+    sets = list(dict.fromkeys(fits["tree_set"]))  # set order, as in fits.tsv
     test_table, summary = [], []
     for name, spec in config["pairs"].items():
         pair = pair_from_config(name, spec, traits)
@@ -35,9 +37,13 @@ def main(smk):
         if not tests:
             log.warning("pair %s: no two of its hypotheses are nested; nothing to test (compare "
                         "them by weight in model_support.tsv)", name)
-        rows = pair_test_rows(name, tests, fits, boot[boot["pair"] == name], spec["alpha"])
-        test_table += rows
-        summary += summary_rows(pd.DataFrame(rows, columns=TEST_COLUMNS), fits, spec["bootstrap"])
+        for ts in sets:  # every tree set, each on its own trees
+            mine = fits[fits["tree_set"] == ts]
+            booted = boot[(boot["pair"] == name) & (boot["tree_set"] == ts)]
+            rows = pair_test_rows(name, tests, mine, booted, spec["alpha"], ts)
+            test_table += rows
+            summary += summary_rows(pd.DataFrame(rows, columns=TEST_COLUMNS), mine,
+                                    spec["bootstrap"])
     tests_df = pd.DataFrame(test_table, columns=TEST_COLUMNS)
     summary_df = pd.DataFrame(summary)
     tests_df.to_csv(smk.output.tests, sep="\t", index=False, float_format="%.10g")
@@ -45,8 +51,8 @@ def main(smk):
     boot.to_csv(smk.output.bootstrap, sep="\t", index=False, float_format="%.10g")
     for row in summary:
         if row["caution"]:
-            log.warning("pair %s, %s vs %s: %s", row["pair"], row["null"], row["alternative"],
-                        row["caution"])
+            log.warning("%s / pair %s, %s vs %s: %s", row["tree_set"], row["pair"], row["null"],
+                        row["alternative"], row["caution"])
 
 
 run_job(snakemake, main)  # noqa: F821

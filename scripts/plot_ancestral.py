@@ -13,6 +13,7 @@ from mkforest.data.trees import parse_newick
 from mkforest.jobs.analyses import analysis_setup
 from mkforest.jobs.scripting import run_job
 from mkforest.report import plots_ancestral
+from mkforest.report.methods_branches import first_set
 
 
 def main(smk):
@@ -20,6 +21,8 @@ def main(smk):
     states = pd.read_csv(smk.input.states, sep="\t", dtype={"state": str, "clade": str})
     clades = pd.read_csv(smk.input.clades, sep="\t", dtype={"members": str, "clade": str})
     per_tree = pd.read_csv(smk.input.per_tree, sep="\t", dtype={"from_state": str, "to_state": str})
+    # the figures show the first tree set, whose summary tree they draw (the tables carry every set)
+    states, per_tree = first_set(states), first_set(per_tree)
     tree = parse_newick(Path(smk.input.tree).read_text().strip(), rooted=True)
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
     setup = smk.params.setup
@@ -36,8 +39,9 @@ def main(smk):
                                    if Path(p).stem == f"ancestral_tree_{analysis}"])
     plots_ancestral.save(plots_ancestral.change_counts(per_tree, pairs, orders),
                          [out.changes_png, out.changes_svg])
-    classes = pd.read_csv(smk.input.classes, sep="\t", dtype={"state": str, "clade": str},
-                          keep_default_na=False, na_values=[""])
+    classes = first_set(pd.read_csv(smk.input.classes, sep="\t",
+                                    dtype={"state": str, "clade": str},
+                                    keep_default_na=False, na_values=[""]))
     for analysis, models in smk.params.hidden.items():
         for model in models:
             rows = classes[(classes["analysis"] == analysis) & (classes["model"] == model)]

@@ -12,6 +12,7 @@ import pandas as pd
 from mkforest.data.traits import traits_from_json
 from mkforest.engine.pairs import pair_from_config, pair_models
 from mkforest.jobs.scripting import run_job
+from mkforest.report.methods_branches import first_set
 from mkforest.report.plots import save
 from mkforest.report.plots_pairs import joint_rate_grid, pair_tests_figure, rates_by_state
 
@@ -32,6 +33,8 @@ def main(smk):
                           na_values=["", "nan", "NaN"])
     tests = pd.read_csv(smk.input.tests, sep="\t")
     boot = pd.read_csv(smk.input.bootstrap, sep="\t")
+    # the figures show the first tree set (the tables carry every set)
+    rates, support, tests, boot = (first_set(t) for t in (rates, support, tests, boot))
     out = smk.output
     save(rates_by_state(pair, rates, support, models),
          [out.rates_by_state_png, out.rates_by_state_svg])

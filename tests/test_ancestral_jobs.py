@@ -11,6 +11,7 @@ import json
 
 import numpy as np
 import pandas as pd
+import pytest
 
 from mkforest.jobs.ancestral import (
     model_weights,
@@ -93,3 +94,33 @@ def test_transition_tables_pool_maps():
     assert (trans["mean_count"] == 1.0).all()
     assert (times["mean_time"] == 2.0).all() and (times["mean_fraction"] == 0.5).all()
     assert len(per_tree) == 4 * 2
+
+
+def test_each_tree_set_is_summarised_on_its_own_trees():
+    """tree_set_slices cuts every per-tree array by set (in the sets' order) and keeps the
+    rest; clades_in_set counts a clade's frequency on that set's trees only (invented
+    presence: the clade in 2 of 2 trees of 'a' and 1 of 3 of 'b'; a named MRCA always)."""
+    from mkforest.jobs.ancestral import clades_in_set, tree_set_slices
+
+    data = {"tree": np.array([4, 5, 1, 2, 3]),
+            "tree_set": np.array(["a", "a", "b", "b", "b"]),
+            "present": np.array([[1, 0], [1, 0], [1, 0], [0, 0], [0, 0]], dtype=bool),
+            "prob": np.arange(5 * 2 * 2, dtype=float).reshape(5, 2, 2),
+            "states": ["x", "y"], "choice": "average"}
+    clades = pd.DataFrame({"clade": ["c1", "m1"], "kind": ["consensus", "named_mrca"],
+                           "n_tips": [2, 2], "frequency": [0.6, np.nan],
+                           "n_trees_with_clade": [3, 5]})
+    sliced = tree_set_slices(data)
+    assert [ts for ts, _ in sliced] == ["a", "b"]
+    a, b = sliced[0][1], sliced[1][1]
+    assert a["tree"].tolist() == [4, 5] and b["tree"].tolist() == [1, 2, 3]
+    np.testing.assert_array_equal(b["prob"], data["prob"][2:])
+    assert b["states"] == ["x", "y"] and b["choice"] == "average"
+    ca, cb = clades_in_set(clades, a), clades_in_set(clades, b)
+    assert ca["frequency"].tolist()[0] == 1.0 and ca["n_trees_with_clade"].tolist() == [2, 2]
+    assert cb["frequency"].tolist()[0] == pytest.approx(1 / 3)
+    assert cb["n_trees_with_clade"].tolist() == [1, 3]
+    assert np.isnan(cb["frequency"].iloc[1])
+    # chunk files of an older mkforest (no tree_set) are named, not misread
+    with pytest.raises(ValueError, match="rerun the ancestral chunk jobs"):
+        tree_set_slices({k: v for k, v in data.items() if k != "tree_set"})

@@ -6,6 +6,9 @@ the first. Checked here: every analysis x model on every set, the new columns an
 tables, the likelihood-ratio statistic recomputed from fits.tsv (2 (lnL1 - lnL0);
 chi-square survival from scipy.stats, a general-purpose reference library), the
 support plot rendered, and a tree set with other taxa stopped with a named error.
+Ancestral states, stochastic maps and a trait pair's tests run on both sets: their
+tables carry tree_set, each set's statistics come from its own fits, and the job
+count follows the chunks, not the trees.
 """
 
 from __future__ import annotations
@@ -18,6 +21,8 @@ from workflow_helpers import run_snakemake, tiny_config
 
 from mkforest.engine.branch_support import fraction_higher, lrt_p_value
 
+PAIR = {"traits": ["glow", "banding"], "hypotheses": ["independent", "dependent"],
+        "bootstrap": 3, "bootstrap_trees": 2}
 MODELS = {"one_rate": {"kind": "equal"},
           "per_event": {"kind": "equal", "branches": "unit"},
           "stretched": {"kind": "equal", "branches": "kappa"},
@@ -27,11 +32,13 @@ MODELS = {"one_rate": {"kind": "equal"},
 @pytest.fixture(scope="module")
 def finished(tmp_path_factory):
     work = tmp_path_factory.mktemp("sets")
-    cfg = tiny_config(work, models=MODELS)
+    cfg = tiny_config(work, models=MODELS, pairs={"lit": PAIR},
+                      ancestral={"enabled": True, "model": "average", "maps": 4})
     import yaml
     config = yaml.safe_load(cfg.read_text())
     del config["trees"]
     data = work / "data"
+    config["traits"]["columns"] = ["glow", "habitat", "banding"]
     config["tree_sets"] = {"dated": {"file": str(data / "trees.nex"), "burnin": 1, "per_job": 3},
                            "molecular": {"file": str(data / "trees_molecular.nex"), "burnin": 1,
                                          "per_job": 3}}
@@ -42,7 +49,9 @@ def finished(tmp_path_factory):
     read = {n: pd.read_csv(out / "tables" / f"{n}.tsv", sep="\t", keep_default_na=False,
                            na_values=[""])
             for n in ("fits", "rates", "model_support", "treatment_support", "branch_tests",
-                      "branch_test_summary", "tree_set_support", "trees_used")}
+                      "branch_test_summary", "tree_set_support", "trees_used", "pair_tests",
+                      "pair_summary", "pair_bootstrap", "ancestral_states", "transitions",
+                      "state_times", "transitions_per_tree", "clades")}
     return work, out, read
 
 
@@ -50,8 +59,8 @@ def test_every_model_on_every_set(finished):
     _, _, t = finished
     fits = t["fits"]
     assert list(dict.fromkeys(fits["tree_set"])) == ["dated", "molecular"]
-    # 5 trees x 2 traits x 4 models on each set
-    assert fits.groupby("tree_set").size().to_dict() == {"dated": 40, "molecular": 40}
+    # 5 trees x (3 traits x 4 models + the pair's 2 hypotheses) on each set
+    assert fits.groupby("tree_set").size().to_dict() == {"dated": 70, "molecular": 70}
     assert set(t["trees_used"]["tree_set"]) == {"dated", "molecular"}
     assert set(t["rates"]["tree_set"]) == {"dated", "molecular"}
     assert set(t["model_support"]["tree_set"]) == {"dated", "molecular"}
@@ -86,7 +95,7 @@ def test_likelihood_ratio_tests_recomputed(finished):
     _, _, t = finished
     fits, tests = t["fits"], t["branch_tests"]
     assert set(tests["alternative"]) == {"stretched"} and set(tests["null"]) == {"one_rate"}
-    assert len(tests) == 2 * 2 * 5
+    assert len(tests) == 2 * 3 * 5
     key = ["tree_set", "analysis", "tree"]
     alt = fits[fits["model"] == "stretched"].set_index(key)["log_likelihood"]
     null = fits[fits["model"] == "one_rate"].set_index(key)["log_likelihood"]
@@ -110,7 +119,7 @@ def test_tree_set_support_statement(finished):
     fits = t["fits"]
     assert set(s["tree_set"]) == {"dated", "molecular"}
     best = s[s["model"] == "best_model"]
-    assert set(best["analysis"]) == {"glow", "habitat"}
+    assert set(best["analysis"]) == {"glow", "habitat", "banding", "lit"}
     compared = 0
     for row in s.to_dict("records"):
         ll = fits[(fits["tree_set"] == row["tree_set"]) & (fits["analysis"] == row["analysis"])
@@ -135,6 +144,76 @@ def test_plot_and_methods(finished):
     text = (out / "methods.md").read_text()
     assert "not which trees are closer to the truth" in text
     assert "Pagel 1994" in text and "McGraw & Wong 1992" in text
+
+
+def test_pair_tests_on_every_set(finished):
+    """Each set's pair statistics from that set's own fits: 2 (lnL_dependent -
+    lnL_independent) per tree (Pagel 1994), chi-square survival from scipy.stats
+    (reference library); the bootstrap runs on bootstrap_trees trees of each set."""
+    _, _, t = finished
+    fits, tests = t["fits"], t["pair_tests"]
+    assert list(tests.columns)[0] == "tree_set"
+    assert tests.groupby("tree_set").size().to_dict() == {"dated": 5, "molecular": 5}
+    ll = fits[fits["analysis"] == "lit"].set_index(["tree_set", "model", "tree"])["log_likelihood"]
+    differ = 0
+    for row in tests.to_dict("records"):
+        ts, tree = row["tree_set"], row["tree"]
+        stat = max(0.0, 2 * (ll[(ts, "dependent", tree)] - ll[(ts, "independent", tree)]))
+        assert row["statistic"] == pytest.approx(stat, abs=1e-7)
+        assert row["p_chi2"] == pytest.approx(scipy.stats.chi2.sf(stat, row["df"]), rel=1e-8)
+        other = "molecular" if ts == "dated" else "dated"
+        differ += abs(ll[(ts, "dependent", tree)] - ll[(other, "dependent", tree)]) > 1e-6
+    assert differ > 0  # the two sets' lengths differ, so their fits do
+    boot = t["pair_bootstrap"]
+    assert boot.groupby("tree_set")["tree"].nunique().to_dict() == {"dated": 2, "molecular": 2}
+    assert (boot.groupby(["tree_set", "tree"]).size() == 3).all()
+    summary = t["pair_summary"]
+    assert summary["tree_set"].tolist() == ["dated", "molecular"]
+    for row in summary.to_dict("records"):
+        mine = tests[tests["tree_set"] == row["tree_set"]]
+        assert row["n_trees"] == 5
+        assert row["median_statistic"] == pytest.approx(mine["statistic"].median())
+        assert row["n_trees_bootstrap"] == 2
+
+
+def test_ancestral_tables_on_every_set(finished):
+    """States and maps per set on its own trees: n_trees per set, the first set's clades
+    (its summary tree) with each set's clade frequency; the molecular set holds the same
+    topologies (mkforest.demo), so its frequencies equal the dated set's."""
+    _, _, t = finished
+    used = t["trees_used"].groupby("tree_set").size().to_dict()
+    clades = t["clades"]
+    for name in ("ancestral_states", "transitions", "state_times", "transitions_per_tree"):
+        table = t[name]
+        assert list(table.columns)[0] == "tree_set", name
+        assert list(dict.fromkeys(table["tree_set"])) == ["dated", "molecular"], name
+    states = t["ancestral_states"]
+    for ts, g in states.groupby("tree_set"):
+        assert set(g["clade"]) == set(clades["clade"])
+        assert (g["n_trees"] <= used[ts]).all()
+        freq = g.drop_duplicates("clade").set_index("clade")["clade_frequency"]
+        want = clades.set_index("clade")["frequency"]
+        assert np.allclose(freq.loc[want.index].astype(float), want.astype(float),
+                           equal_nan=True)
+    trans = t["transitions"]
+    for ts, g in trans.groupby("tree_set"):
+        assert (g["n_trees"] == used[ts]).all()
+        assert ((g["n_maps"] + g["n_maps_at_upper"]) == 4 * used[ts]).all()
+    per_tree = t["transitions_per_tree"]
+    assert per_tree.groupby("tree_set")["tree"].nunique().to_dict() == used
+    # probabilities differ between sets somewhere (other branch lengths)
+    a = states[states["tree_set"] == "dated"]["mean_probability"].to_numpy(float)
+    b = states[states["tree_set"] == "molecular"]["mean_probability"].to_numpy(float)
+    assert np.nanmax(np.abs(a - b)) > 1e-6
+
+
+def test_stage_jobs_follow_chunks_not_trees(finished):
+    """Ancestral and bootstrap jobs: one per chunk of either set (5 trees, 3 per job: 2
+    chunks per set), never one per tree."""
+    work, out, _ = finished
+    for analysis in ("glow", "habitat", "banding", "lit"):
+        assert len(list((out / "ancestral" / analysis).glob("chunk_*.npz"))) == 4, analysis
+    assert len(list((out / "pairs" / "lit" / "bootstrap").glob("chunk_*.tsv"))) == 4
 
 
 def test_fraction_higher_is_the_mann_whitney_u_over_pairs():

@@ -203,3 +203,19 @@ def test_methods_words_never_give_the_bound_as_a_rate():
                                  "bound (≥ 8256.00) on 5; not estimable from these data")
     open_only = {**every, "n_at_upper": 0, "at_upper_min": np.nan}
     assert "≥" not in rate_words(open_only) and "not estimable" in rate_words(open_only)
+
+
+def test_a_fit_with_an_estimated_treatment_flags_rates_the_data_do_not_bound():
+    """The alternating trait under each estimated treatment: the likelihood still rises
+    towards saturation, n ln(1/k) (closed form above), so the equal rate is at the upper
+    bound or its 95% interval reaches it (branch value held at its estimate)."""
+    from mkforest.engine.branches import ESTIMABLE, Treatment
+    from mkforest.engine.fitting import fit_model
+
+    tree, trait = alternating_case()
+    model = build_model("equal", trait.states, None, "one_rate")
+    X = trait.tip_partials(tree)
+    for name in ESTIMABLE:
+        fit = fit_model(tree, X, model, n_starts=3, seed=3, branches=Treatment(name))
+        assert fit.unbounded == ("rate",), name
+        assert fit.log_likelihood <= tree.n_tips * math.log(1 / 3) + 1e-6, name

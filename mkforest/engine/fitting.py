@@ -429,8 +429,16 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
         best_x, ll = _settle_at_bounds(value, best_x, ll, [b[0] for b in bounds],
                                        [b[1] for b in bounds])
         tied, open_ = (), ()
-        if not q:  # rates that move together at the upper bound (fits on given lengths)
+        if not q:  # rates that move together at the upper bound
             best_x, ll, tied, open_ = _settle_jointly_at_upper(f, best_x, ll, lo, hi)
+        else:  # the same, with the branch value held at its estimate (scaled log-rates)
+            w = best_x[p:]
+
+            def at_w(rates):
+                return value(np.concatenate([np.log(rates), w]))
+
+            y, ll, tied, open_ = _settle_jointly_at_upper(at_w, best_x[:p], ll, lo, hi)
+            best_x = np.concatenate([y, w])
     else:
         tied, open_ = (), ()
     # hidden rate classes: number the classes slowest first (same ln L, same meaning on every tree)

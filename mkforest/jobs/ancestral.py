@@ -212,6 +212,9 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
     model_at_upper = np.zeros((n_trees, len(names)), dtype=bool)
     skipped = np.zeros(n_trees, dtype=bool)
     impossible = np.zeros(n_trees, dtype=bool)     # every model's fit has ln L = -inf
+    # clade in the tree (a named clade: its taxa monophyletic; a named MRCA: always),
+    # on every tree, fitted or not: each tree set's clade frequencies come from here
+    present = np.zeros((n_trees, n_clades), dtype=bool)
 
     # models with hidden rate classes: probabilities of every combined state state@class at
     # each clade under that model alone (the classes of different models do not match up)
@@ -225,7 +228,12 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
     exact = [kind in TREE_KINDS for kind in clades["kind"]]
     masks = [mask_of(mem, bits) for mem in members] if trees else []
 
+    mrca_only = np.array([kind == "named_mrca" for kind in clades["kind"]], dtype=bool)
     for t, tree in enumerate(trees):
+        nm = node_masks(tree, bits)
+        in_tree = set(nm)
+        present[t] = [m in in_tree for m in masks] if masks else []
+        present[t, mrca_only] = True
         X = trait.tip_partials(tree, absent=absent)
         crit, Qs, roots, conv, bound, own, lls = [], [], [], [], [], [], []
         for name in names:
@@ -265,7 +273,6 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
         except (ImpossibleData, ValueError):
             skipped[t] = True
             continue
-        nm = node_masks(tree, bits)
         where = {m: v for v, m in enumerate(nm)}
         per_model = {}
         for name in hidden:
@@ -295,7 +302,9 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             counts[t] = ms.counts
             dwell[t] = ms.dwell
             map_model[t] = ms.model
-    return dict(tree=np.array([t.index for t in trees], dtype=np.int64), prob=prob, extra=extra,
+    return dict(tree=np.array([t.index for t in trees], dtype=np.int64),
+                tree_set=np.array([t.tree_set for t in trees], dtype=str), present=present,
+                prob=prob, extra=extra,
                 counts=counts, dwell=dwell, map_model=map_model, weights=weights,
                 unconverged_weight=unconverged, bound_weight=at_bound,
                 model_at_upper=model_at_upper, skipped=skipped, impossible=impossible,
@@ -322,6 +331,37 @@ def load_chunks(paths) -> dict:
     for key in ("states", "models", "clades"):
         out[key] = json.loads(out[key])
     out["hidden_models"] = json.loads(out["hidden_models"]) if "hidden_models" in out else {}
+    return out
+
+
+def tree_set_slices(data: dict) -> list:
+    """[(tree set, data of that set's trees only)] in the order the sets first appear.
+
+    Every per-tree array (first axis the trees) is cut; the rest is shared."""
+    if "tree_set" not in data or "present" not in data:
+        raise ValueError("ancestral chunk files without 'tree_set' or 'present' (written by an "
+                         "older mkforest): rerun the ancestral chunk jobs (snakemake --forcerun "
+                         "ancestral_chunk)")
+    sets = np.asarray(data["tree_set"]).astype(str)
+    n = len(sets)
+    out = []
+    for ts in dict.fromkeys(sets.tolist()):
+        keep = sets == ts
+        out.append((ts, {k: (v[keep] if isinstance(v, np.ndarray) and v.ndim and len(v) == n
+                             else v) for k, v in data.items()}))
+    return out
+
+
+def clades_in_set(clades: pd.DataFrame, data: dict) -> pd.DataFrame:
+    """The clade table with frequency and n_trees_with_clade counted on one set's trees
+    (``data`` cut to the set): the clades are the first set's, their support is each set's own."""
+    present = np.asarray(data["present"], dtype=bool)
+    n = present.shape[0]
+    out = clades.copy()
+    counts = present.sum(axis=0) if n else np.zeros(len(clades), dtype=int)
+    mrca = (out["kind"] == "named_mrca").to_numpy()
+    out["n_trees_with_clade"] = np.where(mrca, n, counts)
+    out["frequency"] = np.where(mrca, np.nan, counts / n if n else np.nan)
     return out
 
 

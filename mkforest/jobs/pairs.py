@@ -23,10 +23,10 @@ from scipy.special import chdtrc, chdtri  # chi-square sf and isf; lighter than 
 from ..engine.pairs import bootstrap_p_value, bootstrap_statistics, simulation_rates
 from ..engine.summarise import FEW_TREES, _q
 
-BOOTSTRAP_COLUMNS = ["pair", "null", "alternative", "tree", "replicate", "statistic",
+BOOTSTRAP_COLUMNS = ["tree_set", "pair", "null", "alternative", "tree", "replicate", "statistic",
                      "null_rates_moved"]
-TEST_COLUMNS = ["pair", "null", "alternative", "tree", "statistic", "df", "p_chi2", "p_bootstrap",
-                "n_bootstrap", "reject_chi2", "reject_bootstrap", "alpha", "boundary",
+TEST_COLUMNS = ["tree_set", "pair", "null", "alternative", "tree", "statistic", "df", "p_chi2",
+                "p_bootstrap", "n_bootstrap", "reject_chi2", "reject_bootstrap", "alpha", "boundary",
                 "null_rate_at_lower_bound", "bootstrap_rates_moved", "null_converged",
                 "alternative_converged", "note"]
 FEW_REPLICATES = 99     # below this, a bootstrap p-value cannot resolve 0.01
@@ -94,7 +94,8 @@ def bootstrap_chunk(pair, models: dict, tests: list, trees: list, selected: set,
                                          max_starts=max_starts)
             tips = null.expand_tips(pair.joint_trait().tip_partials(tree, absent="missing"))
             _, moved = simulation_rates(tree, tips, null, rates, root, lower, upper)
-            rows += [{"pair": pair.name, "null": test.null, "alternative": test.alternative,
+            rows += [{"tree_set": tree.tree_set, "pair": pair.name, "null": test.null,
+                      "alternative": test.alternative,
                       "tree": tree.index, "replicate": r, "statistic": float(s),
                       "null_rates_moved": ",".join(moved)}
                      for r, s in enumerate(stats)]
@@ -102,8 +103,9 @@ def bootstrap_chunk(pair, models: dict, tests: list, trees: list, selected: set,
 
 
 def pair_test_rows(pair_name: str, tests: list, fits: pd.DataFrame, boot: pd.DataFrame,
-              alpha: float) -> list:
-    """One row per test x tree (see TEST_COLUMNS)."""
+                   alpha: float, tree_set: str = "") -> list:
+    """One row per test x tree (see TEST_COLUMNS) of one tree set: ``fits`` and ``boot``
+    hold that set's rows only (tree positions repeat from one set to the next)."""
     f = fits[fits["analysis"] == pair_name].set_index(["model", "tree"])
     rows = []
     for test in tests:
@@ -147,8 +149,9 @@ def pair_test_rows(pair_name: str, tests: list, fits: pd.DataFrame, boot: pd.Dat
             if test.boundary:
                 notes.append("the null forbids rates the alternative leaves free: chi-square "
                              "p-value approximate (conservative); prefer the bootstrap")
-            rows.append({"pair": pair_name, "null": test.null, "alternative": test.alternative,
-                         "tree": int(t), "statistic": stat, "df": test.df, "p_chi2": p,
+            rows.append({"tree_set": tree_set, "pair": pair_name, "null": test.null,
+                         "alternative": test.alternative, "tree": int(t), "statistic": stat,
+                         "df": test.df, "p_chi2": p,
                          "p_bootstrap": p_boot, "n_bootstrap": int(sims.size),
                          "reject_chi2": bool(p <= alpha) if np.isfinite(p) else np.nan,
                          "reject_bootstrap": bool(p_boot <= alpha) if np.isfinite(p_boot) else np.nan,
@@ -177,18 +180,24 @@ def _bool(x) -> bool:
 
 
 def summary_rows(tests: pd.DataFrame, fits: pd.DataFrame, n_replicates: int) -> list:
-    """One row per pair x test, across trees: fraction of trees rejecting, the median LR
-    statistic with its central 95 % interval, mean Akaike weights of both hypotheses,
-    and plain-words cautions."""
+    """One row per tree set x pair x test, across the set's trees: fraction of trees
+    rejecting, the median LR statistic with its central 95 % interval, mean Akaike
+    weights of both hypotheses, and plain-words cautions."""
     rows = []
-    for (pair, null, alt), g in tests.groupby(["pair", "null", "alternative"], sort=False):
+    tests = tests.assign(tree_set=tests["tree_set"].fillna("")) if "tree_set" in tests \
+        else tests.assign(tree_set="")
+    fit_sets = fits["tree_set"].fillna("").astype(str) if "tree_set" in fits \
+        else pd.Series("", index=fits.index)
+    for (ts, pair, null, alt), g in tests.groupby(["tree_set", "pair", "null", "alternative"],
+                                                  sort=False):
         ok = g[np.isfinite(g["statistic"].astype(float))]
         boot = ok[np.isfinite(ok["p_bootstrap"].astype(float))]
-        w = fits[fits["analysis"] == pair].groupby("model")["weight"].mean() \
-            if "weight" in fits else pd.Series(dtype=float)
+        mine = fits[(fits["analysis"] == pair) & ((fit_sets == ts) | (ts == ""))]
+        w = mine.groupby("model")["weight"].mean() if "weight" in fits else pd.Series(dtype=float)
         alpha = float(g["alpha"].iloc[0])
         df = int(g["df"].iloc[0])
-        row = {"pair": pair, "null": null, "alternative": alt, "df": df, "alpha": alpha,
+        row = {"tree_set": ts, "pair": pair, "null": null, "alternative": alt, "df": df,
+               "alpha": alpha,
                "n_trees": len(ok),
                "n_impossible": _impossible_trees(fits, pair, (null, alt), g["tree"]),
                "fraction_reject_chi2": float(ok["reject_chi2"].astype(bool).mean()) if len(ok) else np.nan,

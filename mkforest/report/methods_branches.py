@@ -71,8 +71,9 @@ def tree_sets_paragraph(sets: dict) -> str:
             "applies to them: the comparison says on which sample of trees the trait's "
             "likelihood is higher, not which trees are closer to the truth; lengths in "
             "different units, or trees inferred from different data, can change ln L for "
-            "reasons unrelated to how the trait evolved. Ancestral states and trait-pair tests "
-            f"use the first set, '{next(iter(sets))}'.")
+            "reasons unrelated to how the trait evolved. Ancestral states, stochastic maps and "
+            "trait-pair tests were computed on every set, each on its own trees (tables carry "
+            f"tree_set); this text describes the first set, '{next(iter(sets))}'.")
 
 
 def results_lines(analysis: str, tables: dict) -> list:

@@ -16,14 +16,12 @@ def ancestral_chunk_inputs(kind):
 
 
 def ancestral_chunk_files(wildcards):
-    return [
-        f"{OUT}/ancestral/{a}/chunk_{c}.npz"
-        for a in ANALYSES
-        for c in chunk_ids(first_set_only=True)
-    ]
+    """Every tree set's chunks: each set's states and maps on its own trees."""
+    return [f"{OUT}/ancestral/{a}/chunk_{c}.npz" for a in ANALYSES for c in chunk_ids()]
 
 
 def prepared_tree_chunks(wildcards):
+    """The first tree set's chunks: its summary tree gives the clades every set reports."""
     return [f"{OUT}/prepared/trees/chunk_{c}.npz" for c in chunk_ids(first_set_only=True)]
 
 

@@ -12,7 +12,7 @@ def pair_bootstrap_files(wildcards):
         f"{OUT}/pairs/{p}/bootstrap/chunk_{c}.tsv"
         for p, spec in PAIRS.items()
         if spec["bootstrap"] > 0
-        for c in chunk_ids(first_set_only=True)
+        for c in chunk_ids()
     ]
 
 

@@ -9,6 +9,7 @@ from mkforest.data.config import (
     analyses,
     ancestral_job_config,
     fit_job_config,
+    fit_job_weight,
     hidden_class_models,
     tree_sets,
 )

@@ -13,6 +13,8 @@ rule fit:
     resources:
         runtime=fit_runtime,
         mem_mb=FIT_MEM_MB,
+    # costliest fits first (mkforest.data.config.fit_job_weight): same results, less idle time
+    priority: lambda wildcards: fit_job_weight(config, wildcards.analysis, wildcards.model)
     group:
         "fit"
     log:

@@ -1,0 +1,24 @@
+"""The order in which fit jobs start: costliest first (longest-processing-time
+first, a common practice for spreading jobs over cores; Graham 1969, from memory).
+Results do not depend on it (tests/test_workflow.py compares chunkings and cores)."""
+
+from mkforest.data.config import fit_job_weight
+
+
+def config():
+    return {"models": {"one": {"kind": "equal"}, "sym": {"kind": "symmetric"},
+                       "free": {"kind": "unconstrained"}, "own": {"kind": "custom"},
+                       "free2": {"kind": "unconstrained", "hidden_classes": 2},
+                       "stretched": {"kind": "equal", "branches": "kappa"},
+                       "per_event": {"kind": "equal", "branches": "unit"}},
+            "pairs": {"shells": {"traits": ["a", "b"]}}}
+
+
+def test_costlier_models_start_first():
+    c = config()
+    w = {m: fit_job_weight(c, "trait", m) for m in c["models"]}
+    # measured per-fit CPU on 200-tip, 3-state trees: equal < symmetric < unconstrained
+    assert w["one"] < w["sym"] < w["own"] < w["free"] < w["free2"]
+    # an estimated branch parameter costs more; fixed unit lengths do not
+    assert w["stretched"] > w["one"] == w["per_event"]
+    assert fit_job_weight(c, "shells", "dependent") > w["free"]

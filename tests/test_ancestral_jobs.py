@@ -124,3 +124,17 @@ def test_each_tree_set_is_summarised_on_its_own_trees():
     # chunk files of an older mkforest (no tree_set) are named, not misread
     with pytest.raises(ValueError, match="rerun the ancestral chunk jobs"):
         tree_set_slices({k: v for k, v in data.items() if k != "tree_set"})
+
+
+def test_maps_under_a_branch_parameter_at_the_edge_of_its_range_are_left_out():
+    """A branch-length parameter at an edge of its search box is not bounded by the data
+    (seen: kappa = 3 with rates of 5,233 drew 900 changes per map on a 90-tip tree); kappa = 0
+    (speciation events) and lambda's 0 and 1 are models of their own and keep their maps."""
+    from mkforest.jobs.ancestral import branch_at_box_edge
+
+    assert branch_at_box_edge("kappa", "upper")
+    assert branch_at_box_edge("delta", "lower") and branch_at_box_edge("early_burst", "upper")
+    assert not branch_at_box_edge("kappa", "lower")
+    assert not branch_at_box_edge("lambda", "lower") and not branch_at_box_edge("lambda", "upper")
+    assert not branch_at_box_edge("kappa", "") and not branch_at_box_edge("as_given", "upper")
+    assert not branch_at_box_edge("kappa=3", None) and not branch_at_box_edge(None, float("nan"))

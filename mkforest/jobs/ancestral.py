@@ -256,7 +256,8 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             # maps handle; a rate at the upper bound, or whose 95% interval reaches it, has no
             # upper limit in the data, and neither have the changes a map draws under it
             bound.append(any(str(row.get(col, "") or "").strip() not in ("", "nan")
-                             for col in ("at_upper", "open_upper")))
+                             for col in ("at_upper", "open_upper"))
+                         or branch_at_box_edge(row.get("branches"), row.get("branch_at_bound")))
         w = model_weights(crit, choice_used, names)
         if not (w > 0).any():
             skipped[t] = True
@@ -441,9 +442,23 @@ def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
     return pd.DataFrame(rows)
 
 
+# Bounds of a branch-length parameter that are only the edge of the search box: there
+# the data do not bound the parameter, and a map's count of changes follows the box
+# (a kappa of 3 with its rates drew 900 changes per map on a 90-tip demo tree). kappa = 0
+# (speciation events) and lambda's 0 and 1 are models in their own right, not box edges.
+BOX_EDGES = {"kappa": ("upper",), "delta": ("lower", "upper"),
+             "early_burst": ("lower", "upper")}
+
+
+def branch_at_box_edge(treatment, at_bound) -> bool:
+    """True when a fit's estimated branch-length parameter sits at an edge of its search box."""
+    return str(at_bound or "").strip() in BOX_EDGES.get(str(treatment or "").strip(), ())
+
+
 def bound_limited_maps(data: dict) -> np.ndarray:
     """[trees, maps] True where a map was drawn under a fit with a rate the data do not bound
-    from above (fits.tsv at_upper or open_upper)."""
+    from above (fits.tsv at_upper or open_upper), or with its branch-length parameter at an
+    edge of its search box (``branch_at_box_edge``)."""
     if "model_at_upper" not in data:
         raise ValueError("ancestral chunk files without 'model_at_upper' (written by an older "
                          "mkforest): rerun the ancestral chunk jobs (snakemake --forcerun "
@@ -464,8 +479,9 @@ def _bound_caution(n_out: int, n_maps: int, n_trees_out: int, n_trees: int) -> l
                 "from above: the change counts cannot be estimated from these data and are not "
                 "given"]
     return [f"{n_out} of {n_maps} maps (on {n_trees_out} of {n_trees} trees) were drawn under a "
-            "fit with a rate the data do not bound from above and are left out: their counts "
-            "grow with that rate, not with the data"]
+            "fit with a rate the data do not bound from above (or a branch-length parameter at "
+            "the edge of its range) and are left out: their counts grow with that rate, not "
+            "with the data"]
 
 
 def transition_tables(analysis: str, data: dict, n_total: int) -> tuple:

@@ -6,7 +6,7 @@ from mkforest.data.config import fit_job_weight
 
 
 def config():
-    return {"models": {"one": {"kind": "equal"}, "sym": {"kind": "symmetric"},
+    return {"models": {"one": {"kind": "equal"}, "mirrored": {"kind": "symmetric"},
                        "free": {"kind": "unconstrained"}, "own": {"kind": "custom"},
                        "free2": {"kind": "unconstrained", "hidden_classes": 2},
                        "stretched": {"kind": "equal", "branches": "kappa"},
@@ -18,7 +18,7 @@ def test_costlier_models_start_first():
     c = config()
     w = {m: fit_job_weight(c, "trait", m) for m in c["models"]}
     # measured per-fit CPU on 200-tip, 3-state trees: equal < symmetric < unconstrained
-    assert w["one"] < w["sym"] < w["own"] < w["free"] < w["free2"]
+    assert w["one"] < w["mirrored"] < w["own"] < w["free"] < w["free2"]
     # an estimated branch parameter costs more; fixed unit lengths do not
     assert w["stretched"] > w["one"] == w["per_event"]
     assert fit_job_weight(c, "shells", "dependent") > w["free"]

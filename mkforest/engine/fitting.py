@@ -19,12 +19,12 @@ from dataclasses import dataclass, field
 
 import numba
 import numpy as np
-from scipy.optimize import minimize
 from scipy.special import chdtri
 
 from .branches import NULL_VALUE, Transform, Treatment, transformed_tree, with_lengths
 from .gradient import FD_STEP, log_likelihood_and_gradient
 from .hidden import relabel_classes, spread_classes
+from .lbfgsb import minimise
 from .likelihood import log_likelihood, prune, root_weights
 
 LOWER = 1e-6
@@ -500,11 +500,10 @@ def _descend(objective, x0, bounds, ftol=1e-10):
         f, g = seen[key]
         return f / c, g / c
 
-    res = minimize(scaled, x0, method="L-BFGS-B", jac=True, bounds=bounds,
-                   options={"maxiter": 1000, "ftol": ftol, "gtol": 1e-6 / c})
+    x = minimise(scaled, x0, lo, hi, ftol=ftol, gtol=1e-6 / c, maxiter=1000)
     # the unscaled value at the point returned (f / c * c need not round back to f)
-    key = np.asarray(res.x, dtype=float).tobytes()
-    return (seen[key][0] if key in seen else res.fun * c), res.x
+    key = np.asarray(x, dtype=float).tobytes()
+    return (seen[key][0] if key in seen else objective(x)[0]), x
 
 
 def min_starts(n_params: int, n_starts: int = MIN_STARTS, max_starts: int = MAX_STARTS) -> int:

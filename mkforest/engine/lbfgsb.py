@@ -1,0 +1,84 @@
+"""SciPy's L-BFGS-B (Byrd, Lu, Nocedal & Zhu 1995), driven without ``minimize``.
+
+``scipy.optimize.minimize(method="L-BFGS-B")`` wraps the solver's reverse-
+communication routine in a Python loop that, for every evaluation, re-checks
+and copies x through a general-purpose function wrapper. For a likelihood
+that costs 30-60 us that wrapper was about a third of a fit (measured with
+cProfile on 200-tip, 3-state fits). ``minimise`` runs the same routine
+(``scipy.optimize._lbfgsb.setulb``, SciPy >= 1.15) in a bare loop with the
+same settings, so it visits the same points and returns the same x as
+``minimize`` (tests/test_lbfgsb.py compares them). The routine is private to
+SciPy: where its call signature is not the one this loop knows (older or
+newer SciPy), ``minimise`` falls back to ``minimize`` once and for all.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.optimize import minimize
+
+try:  # the reverse-communication routine (C since SciPy 1.15)
+    from scipy.optimize import _lbfgsb
+except ImportError:  # pragma: no cover - a SciPy without it
+    _lbfgsb = None
+
+# Settings of minimize's L-BFGS-B that the bare loop repeats.
+MAXCOR = 10
+MAXLS = 20
+MAXFUN = 15000
+_EPS = np.finfo(float).eps
+# task codes of setulb (SciPy's __lbfgsb.c): 3 = evaluate f and g at x, 1 = new iteration
+_FG = 3
+_NEW_X = 1
+_STOP = 5
+
+_direct = _lbfgsb is not None and hasattr(_lbfgsb, "setulb")
+
+
+def minimise(fun, x0, lower, upper, ftol: float, gtol: float, maxiter: int = 1000):
+    """x at the end of one L-BFGS-B run of ``fun`` (x -> (f, gradient)) from x0 within
+    [lower, upper] (arrays, finite), with minimize's ``ftol``, ``gtol`` and ``maxiter``."""
+    global _direct
+    if _direct:
+        try:
+            return _bare(fun, x0, lower, upper, ftol, gtol, maxiter)
+        except TypeError:  # another SciPy's setulb: use the public interface from now on
+            _direct = False
+    res = minimize(fun, x0, method="L-BFGS-B", jac=True, bounds=list(zip(lower, upper)),
+                   options={"maxiter": maxiter, "ftol": ftol, "gtol": gtol})
+    return res.x
+
+
+def _bare(fun, x0, lower, upper, ftol, gtol, maxiter):
+    n = len(x0)
+    m = MAXCOR
+    x = np.clip(np.array(x0, dtype=np.float64), lower, upper)
+    low = np.array(lower, dtype=np.float64)
+    up = np.array(upper, dtype=np.float64)
+    nbd = np.full(n, 2, dtype=np.int32)  # 2: bounded on both sides
+    f = np.array(0.0, dtype=np.float64)
+    g = np.zeros(n, dtype=np.float64)
+    wa = np.zeros(2 * m * n + 5 * n + 11 * m * m + 8 * m, np.float64)
+    iwa = np.zeros(3 * n, dtype=np.int32)
+    task = np.zeros(2, dtype=np.int32)
+    ln_task = np.zeros(2, dtype=np.int32)
+    lsave = np.zeros(4, dtype=np.int32)
+    isave = np.zeros(44, dtype=np.int32)
+    dsave = np.zeros(29, dtype=np.float64)
+    factr = ftol / _EPS
+    iterations = evaluations = 0
+    while True:
+        _lbfgsb.setulb(m, x, low, up, nbd, f, g, factr, gtol, wa, iwa, task, lsave, isave,
+                       dsave, MAXLS, ln_task)
+        if task[0] == _FG:
+            fx, gx = fun(x.copy())
+            f = np.array(fx, dtype=np.float64)
+            g = np.array(gx, dtype=np.float64)
+            evaluations += 1
+        elif task[0] == _NEW_X:
+            iterations += 1
+            if iterations >= maxiter or evaluations > MAXFUN:
+                task[0] = _STOP
+                task[1] = 504
+        else:
+            return x

@@ -71,3 +71,25 @@ def test_fallback_to_minimize_gives_the_same_fit(monkeypatch):
     assert public.log_likelihood == pytest.approx(bare.log_likelihood, abs=1e-9)
     np.testing.assert_allclose(public.rates, bare.rates, rtol=1e-6)
     assert public.n_starts == bare.n_starts
+
+
+def test_a_routine_with_another_signature_is_not_used(monkeypatch):
+    class Other:
+        @staticmethod
+        def setulb(*args):  # e.g. an older SciPy's Fortran routine: different arguments
+            raise TypeError("setulb() takes 16 positional arguments")
+
+    monkeypatch.setattr(lbfgsb, "_lbfgsb", Other)
+    monkeypatch.setattr(lbfgsb, "_direct", None)
+    x = lbfgsb.minimise(_rosen, np.array([0.2, 0.1]), np.full(2, -1.0), np.full(2, 0.8),
+                        ftol=1e-10, gtol=1e-6)
+    assert lbfgsb._direct is False
+    res = minimize(_rosen, np.array([0.2, 0.1]), method="L-BFGS-B", jac=True,
+                   bounds=[(-1.0, 0.8)] * 2, options={"ftol": 1e-10, "gtol": 1e-6})
+    assert np.array_equal(x, res.x)
+
+
+def test_the_bare_loop_is_used_with_this_scipy():
+    lbfgsb.minimise(_rosen, np.array([0.2, 0.1]), np.full(2, -1.0), np.full(2, 0.8),
+                    ftol=1e-10, gtol=1e-6)
+    assert lbfgsb._direct is True

@@ -22,7 +22,7 @@ import numpy as np
 from scipy.special import chdtri
 
 from .branches import NULL_VALUE, Transform, Treatment, transformed_tree, with_lengths
-from .gradient import FD_STEP, log_likelihood_and_gradient
+from .gradient import FD_STEP, Evaluator
 from .hidden import relabel_classes, spread_classes
 from .lbfgsb import minimise
 from .likelihood import log_likelihood, prune, root_weights
@@ -271,6 +271,7 @@ class _TreatmentSpace:
         self.bounds = ((self.lo - self.null) / self.s, (self.hi - self.null) / self.s)
         self.given = float(tree.length[:-1].sum())
         self.transform = Transform(tree, treatment)
+        self.evaluate = Evaluator(tree, tip_partials, model, root)
 
     def branch_x(self, z) -> float:
         w = z[self.p]
@@ -301,11 +302,9 @@ class _TreatmentSpace:
         (the branch tests say so)."""
         p = self.p
         lengths, _, shift, _ = self._lengths(self.branch_x(z0))
-        tree = with_lengths(self.tree, lengths)
 
         def objective(y):
-            ll, grad = log_likelihood_and_gradient(tree, self.tip_partials, self.model,
-                                                   np.exp(y + shift), self.root)
+            ll, grad, _ = self.evaluate(np.exp(y + shift), lengths)
             if not np.isfinite(ll):
                 return _IMPOSSIBLE, np.zeros(p)
             return -ll, -grad
@@ -337,9 +336,7 @@ class _TreatmentSpace:
         itself falls back to finite differences."""
         p = self.p
         lengths, dl, shift, dshift = self._lengths(self.branch_x(z))
-        ll, grad, dlen = log_likelihood_and_gradient(
-            with_lengths(self.tree, lengths), self.tip_partials, self.model,
-            np.exp(z[:p] + shift), self.root, lengths_gradient=True)
+        ll, grad, dlen = self.evaluate(np.exp(z[:p] + shift), lengths)
         out = np.zeros(p + 1)
         if not np.isfinite(ll):
             return _IMPOSSIBLE, out
@@ -395,9 +392,11 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
         bounds.append(space.bounds)
         objective, value = space.objective, space.value
     else:
+        evaluate = Evaluator(tree, f.tip_partials, model, root)
+
         def objective(x):
             # exact gradient (mkforest.engine.gradient), in log-rate space
-            ll, grad = log_likelihood_and_gradient(tree, f.tip_partials, model, np.exp(x), root)
+            ll, grad, _ = evaluate(np.exp(x))
             if not np.isfinite(ll):
                 return _IMPOSSIBLE, np.zeros(p)
             return -ll, -grad

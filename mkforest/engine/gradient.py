@@ -45,14 +45,16 @@ import numpy as np
 from .likelihood import (
     _LOG_SCALE,
     _down_pass_eigen,
-    _reachable,
+    _expm1_complex,
+    _expm1_real,
     _p_from_eigen,
     _prune_matrices,
+    _reachable,
     eigensystem,
-    expm1_outer,
     log_likelihood,
     reachable,
     root_weights,
+    stationary_distribution,
 )
 
 # How F is computed: F[m, n] off the diagonal is the difference quotient
@@ -90,8 +92,7 @@ def _normalise_abs(x):
     m = 0.0
     for i in range(x.shape[0]):
         a = abs(x[i])
-        if a > m:
-            m = a
+        m = max(m, a)
     if m > 0.0:
         for i in range(x.shape[0]):
             x[i] /= m
@@ -332,6 +333,89 @@ def exact_gradient_applies(Q, root) -> bool:
     return _analytic_eigensystem(np.asarray(Q, dtype=np.float64), root) is not None
 
 
+@numba.njit(cache=True)
+def _evaluate_real(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, tip_partials,
+                   data_weighted, weights, rate_index, coef, root_partial, grad, dlen):
+    """expm1(lam t) into E1, then ``_value_and_gradient``: one compiled call per evaluation."""
+    _expm1_real(length, lam, E1)
+    return _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
+                               tip_partials, data_weighted, weights, rate_index, coef,
+                               root_partial, grad, dlen)
+
+
+@numba.njit(cache=True)
+def _evaluate_complex(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, tip_partials,
+                      data_weighted, weights, rate_index, coef, root_partial, grad, dlen):
+    """``_evaluate_real`` for complex eigenvalues."""
+    _expm1_complex(length, lam, E1)
+    return _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
+                               tip_partials, data_weighted, weights, rate_index, coef,
+                               root_partial, grad, dlen)
+
+
+class Evaluator:
+    """(lnL, d lnL / d log-rate, d lnL / d branch length) of one model on one tree's
+    topology and data, at many rate vectors (and branch lengths): what an optimiser
+    calls. It keeps the fixed parts (contiguous tip data, root weights, buffers)
+    from call to call; the values are those of ``log_likelihood_and_gradient``.
+
+    ``__call__(rates, length=None)``: length [n_nodes] replaces the tree's branch
+    lengths for this call. The third item is None where the gradient falls back
+    to finite differences; it is a buffer that the next call overwrites."""
+
+    def __init__(self, tree, tip_partials, model, root="uniform", states=None):
+        self.tree, self.model, self.root = tree, model, root
+        self.states = model.states if states is None else states
+        self.tips = np.ascontiguousarray(tip_partials, dtype=np.float64)
+        k, n = model.k, tree.n_nodes
+        self.stationary = root == "stationary"
+        self.data_weighted = root == "data_weighted"
+        # uniform and fixed-state roots: weights that do not depend on Q
+        self.weights = (_ONE if self.data_weighted else None if self.stationary
+                        else root_weights(root, np.zeros((k, k)), None, self.states))
+        self.E1 = {False: np.empty((n, k)), True: np.empty((n, k), dtype=np.complex128)}
+        self.root_partial = np.empty(k)
+        self.grad = np.empty(model.n_params)
+        self.dlen = np.empty(n)
+
+    def __call__(self, rates, length=None):
+        rates = np.asarray(rates, dtype=np.float64)
+        tree = self.tree
+        length = tree.length if length is None else length
+        Q = self.model.q_matrix(rates)
+        es = _analytic_eigensystem(Q, self.root)
+        if es is None:
+            return self._finite_differences(rates, length)
+        lam, V, Vinv = es
+        weights = stationary_distribution(Q) if self.stationary else self.weights
+        complex_ = lam.dtype == np.complex128
+        status, ll = (_evaluate_complex if complex_ else _evaluate_real)(
+                               tree.child_ptr, tree.children, tree.n_tips, length, Q, lam,
+                               self.E1[complex_], V, Vinv, self.tips, self.data_weighted,
+                               weights, self.model.rate_index, _PHI1, self.root_partial,
+                               self.grad, self.dlen)
+        if status == 1:
+            self.dlen[:] = 0.0
+            return -np.inf, np.zeros(self.model.n_params), self.dlen
+        if status == 2:
+            return self._finite_differences(rates, length)
+        grad = self.grad
+        if self.stationary:
+            # d pi = -pi dQ (Q - 1 pi)^-1, so d pi . L_root / L = -pi dQ z with
+            # z = (Q - 1 pi)^-1 L_root / L (root_partial is already L_root / L)
+            z = np.linalg.solve(Q - weights[None, :], self.root_partial)
+            M = -weights[:, None] * (z[None, :] - z[:, None])
+            free = self.model.rate_index >= 0
+            grad = grad + np.bincount(self.model.rate_index[free], weights=M[free],
+                                      minlength=self.model.n_params)
+        return ll, grad * rates, self.dlen
+
+    def _finite_differences(self, rates, length):
+        tree = self.tree if length is self.tree.length else self.tree.with_lengths(length)
+        return (*finite_difference_gradient(tree, self.tips, self.model, rates, self.root,
+                                            self.states), None)
+
+
 def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform", states=None,
                                 lengths_gradient: bool = False):
     """(lnL, d lnL / d log(rate_p) for every free rate p) of ``model`` at ``rates``.
@@ -342,40 +426,5 @@ def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform"
     model's). With ``lengths_gradient`` a third item, d lnL / d t_b for every
     branch [n_nodes], or None where the gradient falls back to finite differences.
     """
-    out = _value_and_gradients(tree, tip_partials, model, rates, root, states)
-    return out if lengths_gradient else out[:2]
-
-
-def _value_and_gradients(tree, tip_partials, model, rates, root, states):
-    rates = np.asarray(rates, dtype=np.float64)
-    tip_partials = np.ascontiguousarray(tip_partials, dtype=np.float64)
-    if states is None:
-        states = model.states
-    Q = model.q_matrix(rates)
-    es = _analytic_eigensystem(Q, root)
-    if es is None:
-        return (*finite_difference_gradient(tree, tip_partials, model, rates, root, states), None)
-    stationary = root == "stationary"
-    lam, V, Vinv = es
-    k = Q.shape[0]
-    E1 = expm1_outer(tree.length, lam)
-    data_weighted = root == "data_weighted"
-    weights = _ONE if data_weighted else root_weights(root, Q, None, states)
-    root_partial = np.empty(k)
-    grad = np.empty(model.n_params)
-    dlen = np.empty(tree.n_nodes)
-    status, ll = _value_and_gradient(tree.child_ptr, tree.children, tree.n_tips, tree.length, Q,
-                                     lam, E1, V, Vinv, tip_partials, data_weighted, weights,
-                                     model.rate_index, _PHI1, root_partial, grad, dlen)
-    if status == 1:
-        return -np.inf, np.zeros(model.n_params), np.zeros(tree.n_nodes)
-    if status == 2:
-        return (*finite_difference_gradient(tree, tip_partials, model, rates, root, states), None)
-    if stationary:
-        # d pi = -pi dQ (Q - 1 pi)^-1, so d pi . L_root / L = -pi dQ z with
-        # z = (Q - 1 pi)^-1 L_root / L (root_partial is already L_root / L)
-        z = np.linalg.solve(Q - weights[None, :], root_partial)
-        M = -weights[:, None] * (z[None, :] - z[:, None])
-        free = model.rate_index >= 0
-        grad += np.bincount(model.rate_index[free], weights=M[free], minlength=model.n_params)
-    return ll, grad * rates, dlen
+    ll, grad, dlen = Evaluator(tree, tip_partials, model, root, states)(rates)
+    return (ll, grad, dlen) if lengths_gradient else (ll, grad)

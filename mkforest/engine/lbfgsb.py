@@ -9,7 +9,8 @@ cProfile on 200-tip, 3-state fits). ``minimise`` runs the same routine
 same settings, so it visits the same points and returns the same x as
 ``minimize`` (tests/test_lbfgsb.py compares them). The routine is private to
 SciPy: where its call signature is not the one this loop knows (older or
-newer SciPy), ``minimise`` falls back to ``minimize`` once and for all.
+newer SciPy), or where it does not reach minimize's answer on a small problem
+(checked once per process), ``minimise`` uses ``minimize`` itself.
 """
 
 from __future__ import annotations
@@ -32,21 +33,42 @@ _FG = 3
 _NEW_X = 1
 _STOP = 5
 
-_direct = _lbfgsb is not None and hasattr(_lbfgsb, "setulb")
+# None until the first call checks the bare loop against minimize on a small problem
+_direct = None if _lbfgsb is not None and hasattr(_lbfgsb, "setulb") else False
 
 
 def minimise(fun, x0, lower, upper, ftol: float, gtol: float, maxiter: int = 1000):
     """x at the end of one L-BFGS-B run of ``fun`` (x -> (f, gradient)) from x0 within
     [lower, upper] (arrays, finite), with minimize's ``ftol``, ``gtol`` and ``maxiter``."""
     global _direct
+    if _direct is None:
+        _direct = _bare_loop_agrees()
     if _direct:
-        try:
-            return _bare(fun, x0, lower, upper, ftol, gtol, maxiter)
-        except TypeError:  # another SciPy's setulb: use the public interface from now on
-            _direct = False
+        return _bare(fun, x0, lower, upper, ftol, gtol, maxiter)
+    return _public(fun, x0, lower, upper, ftol, gtol, maxiter)
+
+
+def _public(fun, x0, lower, upper, ftol, gtol, maxiter):
     res = minimize(fun, x0, method="L-BFGS-B", jac=True, bounds=list(zip(lower, upper)),
                    options={"maxiter": maxiter, "ftol": ftol, "gtol": gtol})
     return res.x
+
+
+def _bare_loop_agrees() -> bool:
+    """The bare loop reaches minimize's x on a bounded quadratic with a cross term
+    (a few milliseconds, once per process); False where SciPy's routine is another."""
+    A = np.array([[3.0, 1.0, 0.0], [1.0, 2.0, 0.5], [0.0, 0.5, 1.0]])
+    b = np.array([1.0, -2.0, 3.0])
+
+    def quad(x):
+        return float(0.5 * x @ A @ x - b @ x), A @ x - b
+
+    x0, lo, hi = np.array([0.5, 0.5, 0.5]), np.full(3, -1.0), np.full(3, 1.5)
+    try:
+        x = _bare(quad, x0, lo, hi, 1e-12, 1e-8, 100)
+    except (TypeError, ValueError, AttributeError):
+        return False
+    return bool(np.array_equal(x, _public(quad, x0, lo, hi, 1e-12, 1e-8, 100)))
 
 
 def _bare(fun, x0, lower, upper, ftol, gtol, maxiter):

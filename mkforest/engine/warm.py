@@ -19,6 +19,7 @@ import numpy as np
 from ..data.trees import parse_newick
 from .ancestral import marginal_probabilities
 from .fitting import fit_model
+from .gradient import log_likelihood_and_gradient
 from .likelihood import log_likelihood, transition_matrices
 from .mapping import stochastic_maps
 from .models import build_model
@@ -44,6 +45,10 @@ def warm() -> float:
         if k == 3:
             cycle = np.array([[-3.0, 3.0, 0.01], [0.01, -3.01, 3.0], [3.0, 0.01, -3.01]])
             log_likelihood(tree, X, cycle)
+            free = build_model("unconstrained", states)
+            rates = np.empty(free.n_params)
+            rates[free.rate_index[free.rate_index >= 0]] = cycle[free.rate_index >= 0]
+            log_likelihood_and_gradient(tree, X, free, rates)
             transition_matrices(cycle, tree.length)
         # a reducible chain (irreversible loss): explicit matrices with exact zeros
         Q = np.zeros((k, k))

@@ -50,7 +50,7 @@ def test_old_kind_name_gets_one_sentence():
 
 
 def test_a_state_called_like_an_old_root_is_a_fixed_root():
-    from mkforest.engine.likelihood import check_root
+    from mkforest.engine.models import check_root
     assert check_root("flat", ("flat", "coiled"), "models.x") == "flat"
     with pytest.raises(InputError, match="now called 'uniform'"):
         check_root("flat", ("round", "coiled"), "models.x")

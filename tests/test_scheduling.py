@@ -22,3 +22,15 @@ def test_costlier_models_start_first():
     # an estimated branch parameter costs more; fixed unit lengths do not
     assert w["stretched"] > w["one"] == w["per_event"]
     assert fit_job_weight(c, "shells", "dependent") > w["free"]
+
+
+def test_the_config_check_imports_no_compiler_or_scipy():
+    """The Snakefile's imports (the config check) are parsed at every Snakemake start and
+    by every cluster job: numba and SciPy cost ~0.4 s there and are not needed."""
+    import subprocess
+    import sys
+
+    code = ("import sys; import mkforest.jobs.analyses, mkforest.data.config; "
+            "print(sorted(m for m in ('numba', 'scipy', 'matplotlib') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"

@@ -14,26 +14,7 @@ import numba
 import numpy as np
 import scipy.linalg
 
-from ..errors import InputError, did_you_mean
-
-ROOTS = ("uniform", "stationary", "data_weighted")
-# Root treatments of the first release, by their present names.
-RENAMED_ROOTS = {"flat": "uniform", "equilibrium": "stationary", "conditional": "data_weighted"}
-
-
-def check_root(root, states, at: str, what: str = "a state of the trait") -> str:
-    """The root treatment of one model, or an InputError naming the key ``at``.
-
-    A state label is a fixed root; a state may be called like an old treatment
-    name (a shell that is 'flat'), so the label wins over the renaming message.
-    """
-    if root in ROOTS or root in states:
-        return root
-    if root in RENAMED_ROOTS:
-        raise InputError(f"{at}.root is '{root}': this root treatment is now called "
-                         f"'{RENAMED_ROOTS[root]}'.")
-    raise InputError(f"{at}.root is '{root}': use uniform, stationary, data_weighted, or "
-                     f"{what} ({', '.join(states)}).{did_you_mean(root, [*ROOTS, *states])}")
+from ..errors import InputError
 
 # Rescale a partial likelihood vector when its largest entry drops below 2^-256;
 # scaling by a power of two is exact in floating point.
@@ -67,7 +48,7 @@ def _p_from_eigen(E1, V, Vinv, reach, t, out):
                     s += V[i, m] * E1[b, m] * Vinv[m, j]
                 x = s.real + (1.0 if i == j else 0.0)
                 # round-off can leave -1e-17 where the probability is tiny
-                out[b, i, j] = x if x > 0.0 else 0.0
+                out[b, i, j] = max(0.0, x)
 
 
 @numba.njit(cache=True)
@@ -115,7 +96,7 @@ def _down_pass_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, par
                     s += V[i, m] * (B[c, m] * E1[c, m])
                 x = s.real + partials[c, i]
                 # round-off can leave -1e-17 where the probability is tiny
-                x = x if x > 0.0 else 0.0
+                x = max(0.0, x)
                 msg[c, i] = x
                 partials[v, i] *= x
         count += _rescale(partials, v, k)
@@ -159,8 +140,7 @@ def _rescale(partials, v, k):
     many times, or a large negative number if the row is all zero."""
     m = 0.0
     for i in range(k):
-        if partials[v, i] > m:
-            m = partials[v, i]
+        m = max(m, partials[v, i])
     if m == 0.0:
         return -(1 << 40)
     n = 0

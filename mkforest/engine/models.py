@@ -225,3 +225,23 @@ def build_model(kind: str, states, transitions=None, name: str | None = None) ->
                     idx[i, j] = labels.index(label)
     np.fill_diagonal(idx, FREE_FORBIDDEN)
     return RateModel(name, kind, states, idx, fixed, tuple(labels))
+
+
+ROOTS = ("uniform", "stationary", "data_weighted")
+# Root treatments of the first release, by their present names.
+RENAMED_ROOTS = {"flat": "uniform", "equilibrium": "stationary", "conditional": "data_weighted"}
+
+
+def check_root(root, states, at: str, what: str = "a state of the trait") -> str:
+    """The root treatment of one model, or an InputError naming the key ``at``.
+
+    A state label is a fixed root; a state may be called like an old treatment
+    name (a shell that is 'flat'), so the label wins over the renaming message.
+    """
+    if root in ROOTS or root in states:
+        return root
+    if root in RENAMED_ROOTS:
+        raise InputError(f"{at}.root is '{root}': this root treatment is now called "
+                         f"'{RENAMED_ROOTS[root]}'.")
+    raise InputError(f"{at}.root is '{root}': use uniform, stationary, data_weighted, or "
+                     f"{what} ({', '.join(states)}).{did_you_mean(root, [*ROOTS, *states])}")

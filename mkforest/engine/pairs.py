@@ -60,16 +60,29 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import brentq
-from scipy.special import chdtri  # chi-square inverse survival; lighter than scipy.stats
+from scipy.special import (
+    chdtri,  # chi-square inverse survival; lighter than scipy.stats
+)
 
 from ..data.config import check_classes
 from ..data.traits import Trait
 from ..errors import InputError, did_you_mean
 from ..seeds import derive_seed
 from .fitting import LOWER, MAX_STARTS, UPPER, fit_model
-from .likelihood import check_root, prune, root_weights
-from .hidden import MAX_COMBINED_STATES, check_no_class_in_transitions, with_hidden_classes
-from .models import FIXED, FREE_FORBIDDEN, RateModel, build_model, parse_transition
+from .hidden import (
+    MAX_COMBINED_STATES,
+    check_no_class_in_transitions,
+    with_hidden_classes,
+)
+from .likelihood import prune, root_weights
+from .models import (
+    FIXED,
+    FREE_FORBIDDEN,
+    RateModel,
+    build_model,
+    check_root,
+    parse_transition,
+)
 from .simulate import simulate_states
 
 JOINT_SEPARATOR = "+"

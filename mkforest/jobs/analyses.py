@@ -7,10 +7,9 @@ do not import the optimiser: on a cluster every job parses the Snakefile again.
 
 from __future__ import annotations
 
-from ..engine.branches import Treatment, parse_treatment
 from ..engine.hidden import check_no_class_in_transitions, with_hidden_classes
-from ..engine.likelihood import check_root
-from ..engine.models import KINDS, build_model
+from ..engine.models import KINDS, build_model, check_root
+from ..engine.treatments import Treatment, parse_treatment
 from ..errors import InputError, join_problems
 
 

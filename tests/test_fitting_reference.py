@@ -93,9 +93,10 @@ def test_information_criteria_hand_computed():
 def test_akaike_weights_hand_computed():
     """Burnham & Anderson (2002). Values 100, 102, 110 -> d = 0, 2, 10 ->
     exp(-d/2) = 1, e^-1 = 0.3678794412, e^-5 = 0.0067379470; sum 1.3746173882;
-    weights 0.7274751574, 0.2676231458, 0.0049016890 (by hand)."""
+    weights 0.7274751568, 0.2676231541, 0.0049016890 (by hand; the first release's
+    comment had 0.7274751574 and 0.2676231458, within assert_allclose's default rtol)."""
     w = akaike_weights([102.0, 100.0, 110.0])
-    np.testing.assert_allclose(w, [0.2676231458, 0.7274751574, 0.0049016890], atol=1e-9)
+    np.testing.assert_allclose(w, [0.2676231541, 0.7274751568, 0.0049016890], rtol=0, atol=1e-10)
     assert w.sum() == pytest.approx(1.0, abs=1e-12)
     # only differences matter
     np.testing.assert_allclose(akaike_weights([1102.0, 1100.0, 1110.0]), w, atol=1e-12)
@@ -306,3 +307,37 @@ def test_rate_whose_maximum_is_at_zero_is_flagged(seed):
             problems.append(f"{label}: fitted {fit.rates[i]:.3g}, ln L rises by {gain:.2e} at the "
                             f"bound, but at_lower = {fit.at_lower}")
     assert not problems, "\n".join(problems)
+
+
+def test_weights_table_matches_per_tree_weights():
+    """summarise.add_weights (all trees at once) against akaike_weights tree by tree
+    (the hand-checked formula above): values from 100, 102, 110 shifted per tree, an
+    impossible fit (criterion inf: weight 0), a fit not run (NaN: weight 0 beside finite
+    ones), a tree where every fit is impossible (delta and weight left empty), and a
+    model marked same_as another (left out)."""
+    import pandas as pd
+
+    from mkforest.engine.summarise import add_weights
+
+    rows = []
+    for tree in range(4):
+        for model, value in zip(("a", "b", "c", "d"), (102.0, 100.0, 110.0, 101.0)):
+            crit = value + 7 * tree
+            if tree == 1 and model == "c":
+                crit = np.inf
+            if tree == 2 and model == "a":
+                crit = np.nan
+            if tree == 3:
+                crit = np.inf
+            rows.append({"tree_set": "s", "analysis": "x", "tree": tree, "model": model,
+                         "aicc": crit, "same_as": "a" if model == "d" else ""})
+    out = add_weights(pd.DataFrame(rows), "aicc")
+    for tree in range(3):
+        g = out[(out.tree == tree) & (out.model != "d")]
+        np.testing.assert_allclose(g["weight"], akaike_weights(g["aicc"]), rtol=0, atol=1e-15)
+        finite = np.isfinite(g["aicc"])
+        np.testing.assert_allclose(g["delta"][finite], g["aicc"][finite] - g["aicc"][finite].min())
+    assert out.loc[out.tree == 0, "weight"].iloc[:3].tolist() == pytest.approx(
+        [0.2676231541, 0.7274751568, 0.0049016890], abs=1e-10)
+    assert out.loc[out.model == "d", "weight"].isna().all()
+    assert out.loc[out.tree == 3, ["delta", "weight"]].isna().all().all()

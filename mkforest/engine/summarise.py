@@ -68,13 +68,18 @@ def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
     fits["delta"] = np.nan
     fits["weight"] = np.nan
     use = as_text(fits["same_as"]) == "" if "same_as" in fits else pd.Series(True, fits.index)
-    for _, idx in fits[use].groupby(_keys(fits, "analysis", "tree")).groups.items():
-        vals = fits.loc[idx, criterion].to_numpy(dtype=float)
-        finite = np.isfinite(vals)
-        if not finite.any():
-            continue
-        fits.loc[idx, "delta"] = vals - vals[finite].min()
-        fits.loc[idx, "weight"] = akaike_weights(vals)
+    # per (tree set, analysis, tree), as compare.akaike_weights does for one group, for all
+    # groups at once (a loop over 4,000 groups of .loc assignments took 4 s)
+    sub = fits.loc[use]
+    vals = sub[criterion].astype(float)
+    finite = np.isfinite(vals)
+    groups = [sub[k] for k in _keys(fits, "analysis", "tree")]
+    best = vals.where(finite).groupby(groups, sort=False).transform("min")
+    e = np.exp(-0.5 * (vals - best)).where(finite, 0.0)
+    total = e.groupby(groups, sort=False).transform("sum")
+    fitted = best.notna()  # groups with no finite value keep delta and weight empty
+    fits.loc[sub.index[fitted], "delta"] = (vals - best)[fitted]
+    fits.loc[sub.index[fitted], "weight"] = (e / total)[fitted]
     return fits
 
 

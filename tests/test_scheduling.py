@@ -34,3 +34,16 @@ def test_the_config_check_imports_no_compiler_or_scipy():
             "print(sorted(m for m in ('numba', 'scipy', 'matplotlib') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
+
+
+def test_table_figure_and_methods_jobs_import_no_compiler_or_scipy():
+    """aggregate_fits, plot_support and methods run one after another at the end of every
+    run: each new process would pay ~0.7 s for numba and SciPy it does not use."""
+    import subprocess
+    import sys
+
+    code = ("import sys; import mkforest.engine.summarise, mkforest.engine.branch_support, "
+            "mkforest.report.plots, mkforest.report.methods; "
+            "print(sorted(m for m in ('numba', 'scipy') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"

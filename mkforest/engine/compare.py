@@ -11,9 +11,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.special import (
-    chdtrc,  # chi-square survival function; lighter than scipy.stats
-)
 
 CRITERIA = ("aic", "aicc", "bic")
 
@@ -54,4 +51,8 @@ def likelihood_ratio_test(lnl_null: float, k_null: int, lnl_alt: float, k_alt: i
     if df <= 0:
         raise ValueError(f"the alternative must have more parameters than the null (df = {df})")
     stat = max(0.0, 2.0 * (lnl_alt - lnl_null))
+    # chi-square survival function (scipy.special: lighter than scipy.stats), imported here:
+    # the figure and table jobs that import this module for the weights need no SciPy
+    from scipy.special import chdtrc
+
     return stat, df, float(chdtrc(df, stat))

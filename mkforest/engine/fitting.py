@@ -26,18 +26,8 @@ from .gradient import FD_STEP, Evaluator
 from .hidden import relabel_classes, spread_classes
 from .lbfgsb import minimise
 from .likelihood import log_likelihood, prune, root_weights
+from .search import AGREE_TOL, LOWER, MAX_STARTS, MIN_STARTS, RATE_STARTS, UPPER
 
-LOWER = 1e-6
-UPPER = 1e4
-AGREE_TOL = 0.01
-# Starts run at least (two can agree) and at most (while the best two disagree).
-MIN_STARTS = 2
-MAX_STARTS = 20
-# A model with p free rates runs at least min(p, RATE_STARTS) starts: surfaces with
-# more rates have more local optima, and two starts can agree on a poorer one
-# (measured on the demo with benchmarks/convergence_rate.py: stopping at the first
-# two that agree reported a poorer optimum 3x as often as five fixed starts).
-RATE_STARTS = 5
 # Objective value where the data are impossible under the rates tried (e.g. an
 # irreversible loss so fast that exp(-rate t) underflows). Large but finite, so
 # the line search backs off instead of failing on inf.

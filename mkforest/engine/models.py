@@ -245,3 +245,8 @@ def check_root(root, states, at: str, what: str = "a state of the trait") -> str
                          f"'{RENAMED_ROOTS[root]}'.")
     raise InputError(f"{at}.root is '{root}': use uniform, stationary, data_weighted, or "
                      f"{what} ({', '.join(states)}).{did_you_mean(root, [*ROOTS, *states])}")
+
+
+# The kinds of a pair's models (mkforest.engine.pairs): how the two traits' changes
+# depend on each other.
+HYPOTHESES = ("independent", "dependent", "first_depends_on_second", "second_depends_on_first")

@@ -78,6 +78,7 @@ from .likelihood import prune, root_weights
 from .models import (
     FIXED,
     FREE_FORBIDDEN,
+    HYPOTHESES,
     RateModel,
     build_model,
     check_root,
@@ -87,7 +88,6 @@ from .simulate import simulate_states
 
 JOINT_SEPARATOR = "+"
 MAX_JOINT_STATES = 12
-HYPOTHESES = ("independent", "dependent", "first_depends_on_second", "second_depends_on_first")
 
 
 def joint_label(first_state: str, second_state: str) -> str:

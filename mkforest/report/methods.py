@@ -21,8 +21,8 @@ from pathlib import Path
 import pandas as pd
 
 from ..data.config import tree_sets
-from ..engine.fitting import AGREE_TOL, RATE_STARTS
-from ..engine.pairs import HYPOTHESES
+from ..engine.models import HYPOTHESES
+from ..engine.search import AGREE_TOL, RATE_STARTS
 from ..engine.summarise import as_text
 from .citations import REFERENCES, cite, cited_in
 from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph

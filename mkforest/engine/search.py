@@ -1,0 +1,19 @@
+"""The numbers that define a fit's search: the box of the rates and the starts.
+
+Kept apart from the optimiser (``fitting``), which imports SciPy and the compiled
+kernels, so that the methods text can quote them without that cost.
+"""
+
+# Rates lie in [LOWER / H, UPPER / H] for a tree of height H (expected changes along a
+# root-to-tip path).
+LOWER = 1e-6
+UPPER = 1e4
+AGREE_TOL = 0.01
+# Starts run at least (two can agree) and at most (while the best two disagree).
+MIN_STARTS = 2
+MAX_STARTS = 20
+# A model with p free rates runs at least min(p, RATE_STARTS) starts: surfaces with
+# more rates have more local optima, and two starts can agree on a poorer one
+# (measured on the demo with benchmarks/convergence_rate.py: stopping at the first
+# two that agree reported a poorer optimum 3x as often as five fixed starts).
+RATE_STARTS = 5

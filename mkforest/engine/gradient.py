@@ -44,6 +44,7 @@ import numpy as np
 
 from .likelihood import (
     _LOG_SCALE,
+    _MAX_EIGEN_CONDITION,
     _down_pass_eigen,
     _expm1_complex,
     _expm1_real,
@@ -353,6 +354,92 @@ def _evaluate_complex(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, 
                                root_partial, grad, dlen)
 
 
+@numba.njit(cache=True)
+def _q_into(rates, rate_index, base, Q):
+    """Q from the free rates, as ``RateModel.q_matrix`` (base holds the fixed rates)."""
+    k = Q.shape[0]
+    for i in range(k):
+        for j in range(k):
+            p = rate_index[i, j]
+            if i == j:
+                Q[i, j] = 0.0
+            else:
+                Q[i, j] = rates[p] if p >= 0 else base[i, j]
+    for i in range(k):
+        Q[i, i] = -_row_sum(Q[i])
+
+
+@numba.njit(cache=True)
+def _row_sum(a):
+    """sum(a) added in NumPy's order for up to 128 terms (its pairwise sum: one by one
+    below 8, else eight running sums), so Q's diagonal is bit for bit q_matrix's."""
+    n = a.shape[0]
+    if n < 8:
+        s = 0.0
+        for i in range(n):
+            s += a[i]
+        return s
+    r = a[:8].copy()
+    i = 8
+    while i < n - n % 8:
+        for j in range(8):
+            r[j] += a[i + j]
+        i += 8
+    s = ((r[0] + r[1]) + (r[2] + r[3])) + ((r[4] + r[5]) + (r[6] + r[7]))
+    while i < n:
+        s += a[i]
+        i += 1
+    return s
+
+
+@numba.njit(cache=True)
+def _real_eigen_into(Q, max_condition):
+    """(ok, lam, V, Vinv) as ``likelihood.eigensystem`` for a Q with real eigenvalues: the
+    two-state closed form, else LAPACK; ok False when an eigenvalue is complex or V is
+    singular or ill-conditioned (the caller takes the general path)."""
+    k = Q.shape[0]
+    if k == 2 and Q[0, 1] + Q[1, 0] > 0.0:
+        a = Q[0, 1]
+        b = Q[1, 0]
+        s = a + b
+        pa = a / s
+        pb = b / s
+        lam = np.array([0.0, -s])
+        V = np.array([[1.0, pa], [1.0, -pb]])
+        Vinv = np.array([[pb, pa], [1.0, -1.0]])
+        return True, lam, V, Vinv
+    try:
+        lam, V = np.linalg.eig(Q)
+        Vinv = np.linalg.inv(V)
+    # a complex eigenvalue (numba's eig will not change domain), or V singular
+    except Exception:  # noqa: BLE001 (numba catches no narrower class)
+        return False, np.zeros(k), np.zeros((k, k)), np.zeros((k, k))
+    cond = np.abs(V).sum(axis=0).max() * np.abs(Vinv).sum(axis=0).max()
+    return cond < max_condition, lam, V, Vinv
+
+
+@numba.njit(cache=True)
+def _evaluate_rates(rates, rate_index, base, Q, max_condition, child_ptr, children, n_tips,
+                    length, E1, tip_partials, data_weighted, weights, coef, root_partial, grad,
+                    dlen):
+    """Q, its eigensystem, expm1 and ``_value_and_gradient`` in one compiled call, for
+    real eigenvalues and a root whose weights do not depend on Q. Returns (status, lnL)
+    with status 0-2 as ``_value_and_gradient`` and 3 where this path does not apply;
+    grad comes back per log-rate."""
+    _q_into(rates, rate_index, base, Q)
+    ok, lam, V, Vinv = _real_eigen_into(Q, max_condition)
+    if not ok:
+        return 3, 0.0
+    _expm1_real(length, lam, E1)
+    status, ll = _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
+                                     tip_partials, data_weighted, weights, rate_index, coef,
+                                     root_partial, grad, dlen)
+    if status == 0:
+        for p in range(grad.shape[0]):
+            grad[p] *= rates[p]
+    return status, ll
+
+
 class Evaluator:
     """(lnL, d lnL / d log-rate, d lnL / d branch length) of one model on one tree's
     topology and data, at many rate vectors (and branch lengths): what an optimiser
@@ -377,11 +464,27 @@ class Evaluator:
         self.root_partial = np.empty(k)
         self.grad = np.empty(model.n_params)
         self.dlen = np.empty(n)
+        # the one-call path (``_evaluate_rates``): roots whose weights do not depend on Q
+        self.fused = not self.stationary and k <= 128
+        self.Q = np.empty((k, k))
+        self.base = model.q_matrix(np.zeros(model.n_params))
 
     def __call__(self, rates, length=None):
         rates = np.asarray(rates, dtype=np.float64)
         tree = self.tree
         length = tree.length if length is None else length
+        if self.fused:
+            status, ll = _evaluate_rates(
+                rates, self.model.rate_index, self.base, self.Q, _MAX_EIGEN_CONDITION,
+                tree.child_ptr, tree.children, tree.n_tips, length, self.E1[False], self.tips,
+                self.data_weighted, self.weights, _PHI1, self.root_partial, self.grad, self.dlen)
+            if status == 0:
+                return ll, self.grad.copy(), self.dlen
+            if status == 1:
+                self.dlen[:] = 0.0
+                return -np.inf, np.zeros(self.model.n_params), self.dlen
+            if status == 2:
+                return self._finite_differences(rates, length)
         Q = self.model.q_matrix(rates)
         es = _analytic_eigensystem(Q, self.root)
         if es is None:

@@ -47,3 +47,21 @@ def test_table_figure_and_methods_jobs_import_no_compiler_or_scipy():
             "print(sorted(m for m in ('numba', 'scipy') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
+
+
+def test_pending_scheduler_timers_are_cancelled():
+    """Snakemake leaves a one-second threading.Timer behind after each scheduling round;
+    the workflow's onsuccess/onerror cancel them so the run ends with its last job."""
+    import threading
+
+    from mkforest.jobs.scripting import cancel_scheduler_timers
+
+    fired = []
+    timer = threading.Timer(30.0, lambda: fired.append(1))
+    timer.start()
+    other = threading.Thread(target=lambda: None)  # not a timer: left alone
+    cancel_scheduler_timers()
+    timer.join(timeout=5.0)
+    assert not timer.is_alive() and not fired
+    other.start()
+    other.join()

@@ -15,6 +15,7 @@ from mkforest.data.config import (
 )
 from mkforest.errors import InputError
 from mkforest.jobs.analyses import check_config
+from mkforest.jobs.scripting import cancel_scheduler_timers
 
 # Check the config (schema, names, and every model against the trait table when
 # the table exists) before any job runs. Every mistake is reported at once, one

@@ -52,8 +52,13 @@ rule manifest:
 onsuccess:
     # The run's last words: anything that makes a result unusable is repeated here,
     # so it is not lost in the job logs. (Imported here, not at the top: the methods
-    # module pulls in the optimiser, and every parse of this Snakefile would pay for it.)
+    # module pulls in pandas, and every parse of this Snakefile would pay for it.)
     from mkforest.report.methods import run_warnings
 
     for line in run_warnings(OUT):
         print(f"mkforest: warning: {line}", file=sys.stderr)
+    cancel_scheduler_timers()
+
+
+onerror:
+    cancel_scheduler_timers()

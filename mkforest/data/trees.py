@@ -20,6 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
+from .newick import read_tree_text
 
 
 @dataclass(frozen=True, eq=False)
@@ -192,10 +193,11 @@ def _detect_schema(text: str) -> str:
 
 
 def _tree_file_text(path: Path, schema):
-    """(text, schema) of a tree file, or InputError when it is missing or empty."""
+    """(text, schema) of a tree file, or InputError when it is missing or empty. A
+    byte-order mark (as Windows editors write) is dropped; line ends are read as LF."""
     if not path.is_file():
         raise InputError(f"tree file '{path}' does not exist.")
-    text = path.read_text()
+    text = path.read_text(encoding="utf-8-sig")
     schema = schema or _detect_schema(text)
     if not text.strip():
         raise InputError(f"tree file '{path}' is empty.")
@@ -230,11 +232,13 @@ def parse_tree_file(path, schema: str | None = None):
     return trees
 
 
-def iter_tree_file(path, schema: str | None = None):
+def iter_tree_file(path, schema: str | None = None, text: str | None = None):
     """The trees of a Newick or NEXUS file one at a time, as DendroPy trees: a sample
-    of 1,000 trees of 1,000 tips held at once as DendroPy objects took 1.3 GB."""
+    of 1,000 trees of 1,000 tips held at once as DendroPy objects took 1.3 GB.
+    ``text``: the file's text and schema already read by ``_tree_file_text``."""
     path = Path(path)
-    text, schema = _tree_file_text(path, schema)
+    if text is None:
+        text, schema = _tree_file_text(path, schema)
     import dendropy
 
     try:
@@ -244,17 +248,33 @@ def iter_tree_file(path, schema: str | None = None):
         raise _unreadable(exc, path, schema) from None
 
 
-def read_trees(path, schema: str | None = None, root=None) -> list:
+def read_trees(path, schema: str | None = None, root=None, fast: bool = True) -> list:
     """Read every tree in a Newick or NEXUS file (TRANSLATE tables, [&R]/[&U] and quoted labels handled).
 
     root: None (trees must be rooted as written), "midpoint", or {"outgroup": [taxa]}
-    (the ``trees.root`` config key); see ``reroot``. Trees are converted one at a
-    time, so only the arrays of the whole sample are held.
+    (the ``trees.root`` config key); see ``reroot``.
+
+    Trees kept as written go through the fast reader (``newick.read_tree_text``);
+    a file it does not handle, and every file to be rerooted, is read with DendroPy
+    one tree at a time (so only the arrays of the whole sample are held), which
+    also gives the messages for bad trees. ``fast=False`` always takes the DendroPy
+    path (the tests compare the two; benchmarks/bench_tree_reading.py times them).
     """
     path = Path(path)
+    text, schema = _tree_file_text(path, schema)
+    if root is None and fast:
+        fast = read_tree_text(text, schema)
+        if fast is not None:
+            return [_build(labels, parent, length, i)
+                    for i, (labels, parent, length) in enumerate(fast)]
+    return _read_trees_dendropy(path, schema, root, text)
+
+
+def _read_trees_dendropy(path: Path, schema: str, root, text: str) -> list:
+    """read_trees through DendroPy objects (``from_dendropy``)."""
     source = f"tree file '{path}'"
     out = []
-    for i, t in enumerate(iter_tree_file(path, schema)):
+    for i, t in enumerate(iter_tree_file(path, schema, text)):
         if root is not None:
             reroot(t, root, f"{source}, tree {i}")
         out.append(from_dendropy(t, i, source, rooted=root is not None))

@@ -185,6 +185,7 @@ BAD = {
     "one_tip": ("(a:1);\n", ["fewer than two tips"]),
     "unbalanced_parentheses": ("[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1;\n", ["cannot be read"]),
     "length_not_a_number": ("((a:1,b:x1):1,c:1);\n", ["cannot be read"]),
+    "root_length_not_a_number": ("((a:1,b:1):1,c:1):x;\n", ["cannot be read"]),
     "second_tree_bad": ("((a:1,b:1):1,c:1);\n((a:1,b:1):1,c:-1);\n", ["tree 1", "tip 'c'"]),
     "nexus_duplicate_via_translate": ("#NEXUS\nBEGIN TREES;\nTRANSLATE 1 a, 2 b, 3 c;\n"
                                       "TREE t = ((1:1,1:1):1,3:1);\nEND;\n", ["more than once"]),
@@ -226,6 +227,8 @@ NOT_HANDLED = {
                                   "TREE t = ((1:1,2:1):1,c:1);\nEND;",
     "nexus_translate_keys_differ_in_case": "#NEXUS\nBEGIN TREES;\nTRANSLATE a x, A y, b z;\n"
                                            "TREE t = ((a:1,A:1):1,b:1);\nEND;",
+    "nexus_translate_names_differ_in_case": "#NEXUS\nBEGIN TREES;\nTRANSLATE 1 a, 2 A, 3 b, 4 c;\n"
+                                            "TREE t = ((2:1,3:1):1,4:1);\nEND;",
     "nexus_title": "#NEXUS\nBEGIN TREES;\nTITLE sample;\nTREE t = ((a:1,b:1):1,c:1);\nEND;",
     "nexus_star_tree": "#NEXUS\nBEGIN TREES;\nTREE * t = ((a:1,b:1):1,c:1);\nEND;",
     "nexus_tip_not_in_taxa": "#NEXUS\nBEGIN TAXA;\nDIMENSIONS NTAX=3;\nTAXLABELS a b c;\nEND;\n"

@@ -121,61 +121,65 @@ def _tree(tokens: list, i: int, rooted: bool, translate=None):
     stack = [0]
     cur = 0                 # the open node new children hang from
     last = 0                # the node whose label or length comes next
+    v = 0                   # the last temporary id given
     state = 0               # 0 expect a node, 1 after ')', 2 after a label, 3 after a length
-    n = len(tokens)
+    add_parent, add_length, add_label = parent.append, lengths.append, labels.append
     i += 1
-    while True:
-        if i >= n:
-            raise NotHandled("tree not ended by ';'")
-        tok = tokens[i]
-        i += 1
-        c = tok[0]
-        if c == "[":
-            continue
-        if state == 0:
-            if c == "(":
-                v = len(parent)
-                parent.append(cur)
-                lengths.append(None)
-                stack.append(v)
-                cur = v
-                continue
-            v = len(parent)
-            parent.append(cur)
-            lengths.append(None)
-            tips.append(v)
-            labels.append(_label(tok))
-            last = v
-            state = 2
-        elif c == ",":
-            if not stack:
-                raise NotHandled("',' after the root")
-            state = 0
-        elif c == ")":
-            if len(stack) < 1:
-                raise NotHandled("unbalanced ')'")
-            last = stack.pop()
-            closed.append(last)
-            cur = stack[-1] if stack else -1
-            state = 1
-        elif c == ":":
-            if state == 3 or i >= n:
-                raise NotHandled("second length")
+    try:
+        while True:
             tok = tokens[i]
             i += 1
-            if tok[0] in _LABEL_START or tok[0] == "'":
-                raise NotHandled("length is not a number")
-            lengths[last] = tok
-            state = 3
-        elif c == ";":
-            if stack:
-                raise NotHandled("unbalanced '('")
-            break
-        elif state == 1:
-            _label(tok)      # an internal label or support value: checked, not kept
-            state = 2
-        else:
-            raise NotHandled(f"unexpected {tok!r}")
+            # branches in order of frequency: ':' (twice per tip), labels, ',', '(', ')'
+            if tok == ":":
+                if state == 0 or state == 3:
+                    raise NotHandled("misplaced length")
+                lengths[last] = tokens[i]   # float() refuses anything but a number, later
+                i += 1
+                state = 3
+            elif state == 0:
+                if tok == "(":
+                    v += 1
+                    add_parent(cur)
+                    add_length(None)
+                    stack.append(v)
+                    cur = v
+                    continue
+                c = tok[0]
+                if c == "[":
+                    continue
+                if c == "'":
+                    tok = _label(tok)
+                elif c in _LABEL_START:
+                    raise NotHandled(f"expected a label, found {tok!r}")
+                v += 1
+                add_parent(cur)
+                add_length(None)
+                tips.append(v)
+                add_label(tok)
+                last = v
+                state = 2
+            elif tok == ",":
+                if not stack:
+                    raise NotHandled("',' after the root")
+                state = 0
+            elif tok == ")":
+                last = stack.pop()          # IndexError when unbalanced
+                closed.append(last)
+                cur = stack[-1] if stack else -1
+                state = 1
+            elif tok == ";":
+                if stack:
+                    raise NotHandled("unbalanced '('")
+                break
+            elif tok[0] == "[":
+                continue
+            elif state == 1:
+                _label(tok)      # an internal label or support value: checked, not kept
+                state = 2
+            else:
+                raise NotHandled(f"unexpected {tok!r}")
+    except IndexError:
+        raise NotHandled("tree not ended by ';', or unbalanced ')'") from None
     n_tips = len(tips)
     if n_tips < 2 or len(set(labels)) != n_tips:
         raise NotHandled("fewer than two tips, or a tip twice")

@@ -335,26 +335,6 @@ def exact_gradient_applies(Q, root) -> bool:
 
 
 @numba.njit(cache=True)
-def _evaluate_real(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, tip_partials,
-                   data_weighted, weights, rate_index, coef, root_partial, grad, dlen):
-    """expm1(lam t) into E1, then ``_value_and_gradient``: one compiled call per evaluation."""
-    _expm1_real(length, lam, E1)
-    return _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
-                               tip_partials, data_weighted, weights, rate_index, coef,
-                               root_partial, grad, dlen)
-
-
-@numba.njit(cache=True)
-def _evaluate_complex(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, tip_partials,
-                      data_weighted, weights, rate_index, coef, root_partial, grad, dlen):
-    """``_evaluate_real`` for complex eigenvalues."""
-    _expm1_complex(length, lam, E1)
-    return _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
-                               tip_partials, data_weighted, weights, rate_index, coef,
-                               root_partial, grad, dlen)
-
-
-@numba.njit(cache=True)
 def _q_into(rates, rate_index, base, Q):
     """Q from the free rates, as ``RateModel.q_matrix`` (base holds the fixed rates)."""
     k = Q.shape[0]
@@ -492,11 +472,12 @@ class Evaluator:
         lam, V, Vinv = es
         weights = stationary_distribution(Q) if self.stationary else self.weights
         complex_ = lam.dtype == np.complex128
-        status, ll = (_evaluate_complex if complex_ else _evaluate_real)(
-                               tree.child_ptr, tree.children, tree.n_tips, length, Q, lam,
-                               self.E1[complex_], V, Vinv, self.tips, self.data_weighted,
-                               weights, self.model.rate_index, _PHI1, self.root_partial,
-                               self.grad, self.dlen)
+        E1 = self.E1[complex_]
+        (_expm1_complex if complex_ else _expm1_real)(length, lam, E1)
+        status, ll = _value_and_gradient(tree.child_ptr, tree.children, tree.n_tips, length, Q,
+                                         lam, E1, V, Vinv, self.tips, self.data_weighted,
+                                         weights, self.model.rate_index, _PHI1,
+                                         self.root_partial, self.grad, self.dlen)
         if status == 1:
             self.dlen[:] = 0.0
             return -np.inf, np.zeros(self.model.n_params), self.dlen

@@ -167,6 +167,32 @@ def test_nexus_variants(tmp_path):
     assert len(check_file(write(tmp_path, "cut.nex", cut))) == 2
 
 
+@pytest.mark.parametrize("chunk", [1, 7, 60])
+def test_files_read_a_few_lines_at_a_time_give_the_same_trees(tmp_path, monkeypatch, chunk):
+    """The reader tokenizes a chunk of lines at a time (memory): trees, quoted labels and
+    comments running over a cut give what the whole file gives."""
+    texts = {
+        "over_lines.nwk": ("[&R] (('Vexa\nminor':1,\n(b:1,\nc:2)\n:1)[a comment\nover lines]:0.5,\n"
+                           "'it''s\n''':3);\n[&R]\n((a:1,b:1):1,'c d':2);\n"),
+        "over_lines.nex": ("#NEXUS\n[a comment\nover lines]\nBEGIN TREES;\n TRANSLATE\n 1 'a\nb',\n"
+                           " 2 c, 3 d;\n TREE\n s1 =\n [&R]\n ((1:1,\n 2:1):1,\n 3:2);\nEND;\n"),
+    }
+    paths = make_demo(tmp_path / "demo", n_tips=12, n_trees=4, seed=5)
+    texts["demo.nex"] = paths["trees"].read_text()
+    for name, text in texts.items():
+        schema = "nexus" if name.endswith(".nex") else "newick"
+        whole = newick.read_tree_text(text, schema)
+        assert whole is not None, name
+        monkeypatch.setattr(newick, "CHUNK", chunk)
+        cut = newick.read_tree_text(text, schema)
+        monkeypatch.undo()
+        assert cut is not None and len(cut) == len(whole)
+        for a, b in zip(cut, whole):
+            assert a[0] == b[0] and a[1].tobytes() == b[1].tobytes()
+            assert a[2].tobytes() == b[2].tobytes()
+        check_file(write(tmp_path, name, text))
+
+
 # --------------------------------------------------------------------------- bad trees
 
 BAD = {
@@ -283,11 +309,14 @@ BASES = {
 }
 
 
+@pytest.mark.parametrize("chunk", [newick.CHUNK, 16])
 @pytest.mark.parametrize("name", list(BASES))
-def test_every_small_mutation_is_read_as_dendropy_reads_it_or_left_to_it(tmp_path, name):
+def test_every_small_mutation_is_read_as_dendropy_reads_it_or_left_to_it(tmp_path, monkeypatch,
+                                                                          name, chunk):
     """Random one-character edits of a small file: where DendroPy's path stops with a message
     the fast reader must not handle the file; where it reads it, the fast reader either leaves
     it to DendroPy or gives the same arrays."""
+    monkeypatch.setattr(newick, "CHUNK", chunk)
     rng = np.random.default_rng(7)
     counts = {"same": 0, "left": 0}
     # (DendroPy 5.1 loops forever on a TAXA block without END: its edits are left out)

@@ -42,19 +42,60 @@ _TOKEN = re.compile(r"""\[[^\[\]]*\](?![^ \t\r\n(),;:=\[])"""
 _DELIMITERS = frozenset("(),;:=")
 _LABEL_START = frozenset("(),;:={}\\\"[]")   # a token starting with none of these is a label
 _DIGITS = re.compile(r"[0-9]+")
+# characters tokenized at a time (then on to the next line end): the token list of a
+# whole file costs ~185 bytes per tree-tip, 1 GB for 5,000 trees of 1,000 tips
+CHUNK = 1 << 22
 
 
 class NotHandled(Exception):
     """The file holds something this reader does not read the way DendroPy does."""
 
 
+class _NeedMore(Exception):
+    """A tree runs past the tokens read so far."""
+
+
+class _Tokens:
+    """The tokens of a text, read a chunk of whole lines at a time.
+
+    ``items`` holds the tokens read and not yet dropped; ``more(start)`` drops
+    ``items[:start]`` and appends the next chunk's tokens (False at the end of the text).
+    Blanks end every token, so a cut after a line end splits no token, except a quoted
+    label or a comment running over it: the chunk then holds a lone quote or bracket,
+    and the rest of the text is tokenized in one go.
+    """
+
+    def __init__(self, text: str):
+        self.text = text
+        self.pos = 0
+        self.items = []
+
+    def more(self, start: int) -> bool:
+        text, pos = self.text, self.pos
+        if pos >= len(text):
+            return False
+        end = text.find("\n", pos + CHUNK)
+        end = len(text) if end < 0 else end + 1
+        new = _TOKEN.findall(text, pos, end)
+        if _stray(new) and end < len(text):
+            end = len(text)
+            new = _TOKEN.findall(text, pos, end)
+        if _stray(new):
+            raise NotHandled("a stray bracket or an unterminated quote")
+        self.pos = end
+        self.items = self.items[start:] + new
+        return True
+
+
+def _stray(tokens) -> bool:
+    """A lone bracket or quote: the only tokens of one of these characters."""
+    return "[" in tokens or "]" in tokens or "'" in tokens
+
+
 def read_tree_text(text: str, schema: str) -> list | None:
     """Every tree of a Newick or NEXUS file's text as (tip_labels, parent, length) arrays
     ready for ``trees._build``, or None when the file is not handled (see the module)."""
-    tokens = _TOKEN.findall(text)
-    # a stray bracket or an unterminated quote: the only tokens of one of these characters
-    if "[" in tokens or "]" in tokens or "'" in tokens:
-        return None
+    tokens = _Tokens(text)
     try:
         if schema == "nexus":
             raw = _nexus(tokens)
@@ -163,7 +204,9 @@ def _tree(tokens: list, i: int, rooted: bool, translate=None):
                     raise NotHandled("',' after the root")
                 state = 0
             elif tok == ")":
-                last = stack.pop()          # IndexError when unbalanced
+                if not stack:
+                    raise NotHandled("unbalanced ')'")
+                last = stack.pop()
                 closed.append(last)
                 cur = stack[-1] if stack else -1
                 state = 1
@@ -179,7 +222,7 @@ def _tree(tokens: list, i: int, rooted: bool, translate=None):
             else:
                 raise NotHandled(f"unexpected {tok!r}")
     except IndexError:
-        raise NotHandled("tree not ended by ';', or unbalanced ')'") from None
+        raise _NeedMore() from None
     n_tips = len(tips)
     if n_tips < 2 or len(set(labels)) != n_tips:
         raise NotHandled("fewer than two tips, or a tip twice")
@@ -211,45 +254,63 @@ def _tree(tokens: list, i: int, rooted: bool, translate=None):
     return (labels, out_parent, out_length), i
 
 
-def _newick_file(tokens: list) -> list:
+def _whole_tree(src: _Tokens, start: int, rooted: bool, translate=None):
+    """_tree on src.items[start:], reading more of the text while the tree runs on."""
+    while True:
+        try:
+            return _tree(src.items, start, rooted, translate)
+        except _NeedMore:
+            if not src.more(start):
+                raise NotHandled("tree not ended by ';'") from None
+            start = 0
+
+
+def _newick_file(src: _Tokens) -> list:
     """Trees of a Newick file: each `[comments] ( ... ) ;`, comments before a tree setting
     its rooting, nothing else between trees."""
     out = []
     comments = []
-    i, n = 0, len(tokens)
-    while i < n:
-        tok = tokens[i]
+    i = 0
+    while True:
+        if i >= len(src.items):
+            if not src.more(i):
+                return out
+            i = 0
+            continue
+        tok = src.items[i]
         if _is_comment(tok):
             comments.append(tok)
             i += 1
             continue
         if tok != "(":
             raise NotHandled(f"expected '(' at the start of a tree, found {tok!r}")
-        tree, i = _tree(tokens, i, _rooting(comments))
+        tree, i = _whole_tree(src, i, _rooting(comments))
         out.append(tree)
         comments = []
-    return out
 
 
 class _Nexus:
     """A cursor over NEXUS tokens; keywords compared in upper case, unquoted only."""
 
-    def __init__(self, tokens):
-        self.tokens = tokens
+    def __init__(self, src: _Tokens):
+        self.src = src
         self.i = 0
         self.comments = []
 
     def next(self):
         """The next token that is not a comment (None at the end); comments are kept."""
-        tokens, i = self.tokens, self.i
-        while i < len(tokens) and tokens[i][0] == "[":
-            self.comments.append(tokens[i])
-            i += 1
-        if i >= len(tokens):
-            self.i = i
-            return None
-        self.i = i + 1
-        return tokens[i]
+        while True:
+            items = self.src.items
+            if self.i >= len(items):
+                if not self.src.more(self.i):
+                    return None
+                self.i = 0
+                continue
+            tok = items[self.i]
+            self.i += 1
+            if tok[0] != "[":
+                return tok
+            self.comments.append(tok)
 
     def keyword(self):
         tok = self.next()
@@ -264,8 +325,8 @@ class _Nexus:
             raise NotHandled(f"expected {word!r}")
 
 
-def _nexus(tokens: list) -> list:
-    cur = _Nexus(tokens)
+def _nexus(src: _Tokens) -> list:
+    cur = _Nexus(src)
     if cur.keyword() != "#NEXUS":
         raise NotHandled("no #NEXUS")
     taxa = None
@@ -389,7 +450,7 @@ def _trees_block(cur: _Nexus, taxa) -> list:
         tok = cur.next()
         if tok != "(":
             raise NotHandled("tree does not start with '('")
-        tree, cur.i = _tree(cur.tokens, cur.i - 1, _rooting(cur.comments), translate)
+        tree, cur.i = _whole_tree(cur.src, cur.i - 1, _rooting(cur.comments), translate)
         out.append(tree)
         word = cur.keyword()
     if word is None:                    # a file cut after a tree (a sampler still running)

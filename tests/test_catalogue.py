@@ -371,7 +371,7 @@ def test_unrooted_sample_without_a_rooting_stops_naming_the_key(tmp_path):
     stopped(only_prepare(tmp_path, cfg), "trees.nwk", "tree 0", "unrooted", "trees.root")
 
 
-# --------------------------------------------------------------------------- case 23-31, 45
+# --------------------------------------------------------------------------- case 23-31, 45, 46
 # Tree files that cannot be used: the job that reads them stops with one sentence.
 
 TREE_ERRORS = {
@@ -397,12 +397,15 @@ TREE_ERRORS = {
     "tree_without_length": (["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);",
                              "[&R] ((a:0,b:0):0,(c:0,(d:0,e:0):0):0,f:0);"], {},
                             ["trees.nwk", "tree 1 has no length", "trees.min_branch_length"]),
+    "comment_never_closed": (["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);", "[sample 2",
+                              "[&R] ((a:1,c:1):1,(b:1,(d:1,e:1):1):1,f:1);"], {},
+                             ["trees.nwk", "line 2", "never closed"]),
 }
 
 
 @pytest.mark.parametrize("case", list(TREE_ERRORS))
 def test_tree_file_errors_name_the_file_the_tree_and_the_fix(tmp_path, case):
-    """Cases 23-31 and 45."""
+    """Cases 23-31, 45 and 46."""
     texts, trees, needles = TREE_ERRORS[case]
     cfg = _unrooted_workdir(tmp_path, **trees)
     (tmp_path / "data" / "trees.nwk").write_text("\n".join(texts) + "\n")

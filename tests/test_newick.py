@@ -228,6 +228,42 @@ def test_bad_trees_get_todays_message(tmp_path, case):
     check_same_error(write(tmp_path, name, text), name, *needles)
 
 
+UNCLOSED = {
+    # DendroPy 5.1 silently drops the second tree (the comment runs to the end of the file)
+    "trees.nwk": ("[&R] ((a:1,b:1):1,c:1);\n[sample 2\n[&R] ((a:1,c:1):1,b:1);\n", 2),
+    # DendroPy 5.1 loops forever in the TAXA block (found by the mutation test below)
+    "trees.nex": ("#NEXUS\nBEGIN TAXA;\n DIMENSIONS NTAX=3;\n TAXLABE[S a b c;\nEND;\n"
+                  "BEGIN TREES;\n TREE t = [&R] ((a:1,b:1):1,c:1);\nEND;\n", 4),
+}
+
+
+@pytest.mark.parametrize("name", list(UNCLOSED))
+def test_a_comment_never_closed_stops_with_the_file_and_line(tmp_path, name):
+    """Not DendroPy's behaviour (a silent loss or a hang): one sentence naming the line."""
+    import signal
+
+    text, line = UNCLOSED[name]
+    path = write(tmp_path, name, text)
+
+    def hung(*_):
+        raise AssertionError("read_trees did not return")
+
+    previous = signal.signal(signal.SIGALRM, hung)
+    signal.alarm(20)
+    try:
+        for root in (None, "midpoint"):
+            with pytest.raises(InputError) as info:
+                read_trees(path, root=root)
+            assert f"'{path}', line {line}: a comment opened with '[' is never closed" \
+                in str(info.value)
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, previous)
+    for text in ("[&R] ((a:1,b:1):1,c:1); [closed [nested] comment]\n",
+                 "[&R] ((a:1,'[b':1):1,c:1);\n"):
+        check_file(write(tmp_path, "fine.nwk", text), must_handle=False)
+
+
 # --------------------------------------------------------------------------- not handled
 
 NOT_HANDLED = {
@@ -284,12 +320,11 @@ def test_what_the_fast_reader_does_not_handle_goes_to_dendropy(tmp_path, case):
 
 # --------------------------------------------------------------------------- never guesses
 
-def _mutations(rng, text, n, start=0):
-    """Texts with one character deleted, doubled or replaced by a character that matters
-    (at or after ``start``)."""
+def _mutations(rng, text, n):
+    """Texts with one character deleted, doubled or replaced by a character that matters."""
     alphabet = list("(),;:[]' _&R=\n1e-.") + ["''", "[&R]", "[x]"]
     for _ in range(n):
-        i = int(rng.integers(start, len(text)))
+        i = int(rng.integers(len(text)))
         what = int(rng.integers(3))
         if what == 0:
             yield text[:i] + text[i + 1:]
@@ -319,9 +354,7 @@ def test_every_small_mutation_is_read_as_dendropy_reads_it_or_left_to_it(tmp_pat
     monkeypatch.setattr(newick, "CHUNK", chunk)
     rng = np.random.default_rng(7)
     counts = {"same": 0, "left": 0}
-    # (DendroPy 5.1 loops forever on a TAXA block without END: its edits are left out)
-    start = BASES[name].find("BEGIN TREES") + 1
-    for k, text in enumerate(_mutations(rng, BASES[name], 300, start)):
+    for k, text in enumerate(_mutations(rng, BASES[name], 400)):
         path = write(tmp_path, f"{k}_{name}", text)
         expected = dendropy_message(path)
         fast = handled(path)

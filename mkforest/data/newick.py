@@ -87,6 +87,33 @@ class _Tokens:
         return True
 
 
+# the longest run of tokens and blanks without a stray bracket or quote (never fails, so
+# never backtracks)
+_CLEAN = re.compile(r"""(?:[ \t\r\n]+|""" + _TOKEN.pattern.rsplit("|", 1)[0] + ")*")
+
+
+_BRACKETS = re.compile(r"[\[\]]")
+
+
+def unclosed_comment(text: str) -> int | None:
+    """The line of a '[' that opens a comment no ']' closes, or None.
+
+    DendroPy takes everything after such a bracket as one comment: it loops forever in a
+    TAXA block (DendroPy 5.1) and silently drops the trees after it in a Newick file.
+    Only the first stray bracket or quote is looked at: a '[' there opens a comment for
+    DendroPy too, which nests brackets inside it; a nested or glued comment closes.
+    """
+    pos = _CLEAN.match(text).end()
+    if pos >= len(text) or text[pos] != "[":
+        return None
+    depth = 0
+    for bracket in _BRACKETS.findall(text, pos):
+        depth += 1 if bracket == "[" else -1
+        if depth == 0:
+            return None
+    return text.count("\n", 0, pos) + 1
+
+
 def _stray(tokens) -> bool:
     """A lone bracket or quote: the only tokens of one of these characters."""
     return "[" in tokens or "]" in tokens or "'" in tokens

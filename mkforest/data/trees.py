@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from .newick import read_tree_text
+from .newick import read_tree_text, unclosed_comment
 
 
 @dataclass(frozen=True, eq=False)
@@ -267,6 +267,11 @@ def read_trees(path, schema: str | None = None, root=None, fast: bool = True) ->
         if fast is not None:
             return [_build(labels, parent, length, i)
                     for i, (labels, parent, length) in enumerate(fast)]
+    line = unclosed_comment(text)
+    if line is not None:
+        raise InputError(f"tree file '{path}', line {line}: a comment opened with '[' is never "
+                         "closed with ']', so everything after it would be ignored. Close the "
+                         "comment or remove the '['.")
     return _read_trees_dendropy(path, schema, root, text)
 
 

@@ -17,7 +17,7 @@ from catalogue_inputs import TAXA, posterior_nexus, quote, rename, unresolved_sa
 from conftest import random_newick, yule_newick
 
 from mkforest.data import newick
-from mkforest.data.trees import _tree_file_text, read_trees
+from mkforest.data.trees import _tree_file_text, parse_tree_file, read_trees
 from mkforest.demo import make_demo
 from mkforest.errors import InputError
 
@@ -251,9 +251,9 @@ def test_a_comment_never_closed_stops_with_the_file_and_line(tmp_path, name):
     previous = signal.signal(signal.SIGALRM, hung)
     signal.alarm(20)
     try:
-        for root in (None, "midpoint"):
+        for read in (read_trees, lambda p: read_trees(p, root="midpoint"), parse_tree_file):
             with pytest.raises(InputError) as info:
-                read_trees(path, root=root)
+                read(path)
             assert f"'{path}', line {line}: a comment opened with '[' is never closed" \
                 in str(info.value)
     finally:

@@ -204,6 +204,16 @@ def _tree_file_text(path: Path, schema):
     return text, schema
 
 
+def _check_comments(text: str, path: Path) -> None:
+    """Before DendroPy reads a file: a comment never closed would swallow the rest of it
+    (trees silently dropped, or an endless loop in a NEXUS TAXA block)."""
+    line = unclosed_comment(text)
+    if line is not None:
+        raise InputError(f"tree file '{path}', line {line}: a comment opened with '[' is never "
+                         "closed with ']', so everything after it would be ignored. Close the "
+                         "comment or remove the '['.")
+
+
 def _unreadable(exc, path: Path, schema: str) -> InputError:
     """DendroPy raises several types; all mean a malformed file: one sentence."""
     line = getattr(exc, "line_num", None)
@@ -221,6 +231,7 @@ def parse_tree_file(path, schema: str | None = None):
     (InputError naming the file and line when it cannot be read)."""
     path = Path(path)
     text, schema = _tree_file_text(path, schema)
+    _check_comments(text, path)
     import dendropy  # imported here: fit jobs only load prepared arrays
 
     try:
@@ -239,6 +250,7 @@ def iter_tree_file(path, schema: str | None = None, text: str | None = None):
     path = Path(path)
     if text is None:
         text, schema = _tree_file_text(path, schema)
+    _check_comments(text, path)
     import dendropy
 
     try:
@@ -267,11 +279,6 @@ def read_trees(path, schema: str | None = None, root=None, fast: bool = True) ->
         if fast is not None:
             return [_build(labels, parent, length, i)
                     for i, (labels, parent, length) in enumerate(fast)]
-    line = unclosed_comment(text)
-    if line is not None:
-        raise InputError(f"tree file '{path}', line {line}: a comment opened with '[' is never "
-                         "closed with ']', so everything after it would be ignored. Close the "
-                         "comment or remove the '['.")
     return _read_trees_dendropy(path, schema, root, text)
 
 

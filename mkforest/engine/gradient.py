@@ -51,6 +51,7 @@ from .likelihood import (
     _p_from_eigen,
     _prune_matrices,
     _reachable,
+    _real_eigensystem,
     eigensystem,
     log_likelihood,
     reachable,
@@ -373,51 +374,20 @@ def _row_sum(a):
 
 
 @numba.njit(cache=True)
-def _real_eigen_into(Q, max_condition):
-    """(ok, lam, V, Vinv) as ``likelihood.eigensystem`` for a Q with real eigenvalues: the
-    two-state closed form, else LAPACK; ok False when an eigenvalue is complex or V is
-    singular or ill-conditioned (the caller takes the general path)."""
-    k = Q.shape[0]
-    if k == 2 and Q[0, 1] + Q[1, 0] > 0.0:
-        a = Q[0, 1]
-        b = Q[1, 0]
-        s = a + b
-        pa = a / s
-        pb = b / s
-        lam = np.array([0.0, -s])
-        V = np.array([[1.0, pa], [1.0, -pb]])
-        Vinv = np.array([[pb, pa], [1.0, -1.0]])
-        return True, lam, V, Vinv
-    try:
-        lam, V = np.linalg.eig(Q)
-        Vinv = np.linalg.inv(V)
-    # a complex eigenvalue (numba's eig will not change domain), or V singular
-    except Exception:  # noqa: BLE001 (numba catches no narrower class)
-        return False, np.zeros(k), np.zeros((k, k)), np.zeros((k, k))
-    cond = np.abs(V).sum(axis=0).max() * np.abs(Vinv).sum(axis=0).max()
-    return cond < max_condition, lam, V, Vinv
-
-
-@numba.njit(cache=True)
 def _evaluate_rates(rates, rate_index, base, Q, max_condition, child_ptr, children, n_tips,
                     length, E1, tip_partials, data_weighted, weights, coef, root_partial, grad,
                     dlen):
     """Q, its eigensystem, expm1 and ``_value_and_gradient`` in one compiled call, for
     real eigenvalues and a root whose weights do not depend on Q. Returns (status, lnL)
-    with status 0-2 as ``_value_and_gradient`` and 3 where this path does not apply;
-    grad comes back per log-rate."""
+    with status 0-2 as ``_value_and_gradient`` and 3 where this path does not apply."""
     _q_into(rates, rate_index, base, Q)
-    ok, lam, V, Vinv = _real_eigen_into(Q, max_condition)
+    ok, lam, V, Vinv = _real_eigensystem(Q, max_condition)
     if not ok:
         return 3, 0.0
     _expm1_real(length, lam, E1)
-    status, ll = _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
-                                     tip_partials, data_weighted, weights, rate_index, coef,
-                                     root_partial, grad, dlen)
-    if status == 0:
-        for p in range(grad.shape[0]):
-            grad[p] *= rates[p]
-    return status, ll
+    return _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
+                               tip_partials, data_weighted, weights, rate_index, coef,
+                               root_partial, grad, dlen)
 
 
 class Evaluator:
@@ -453,31 +423,26 @@ class Evaluator:
         rates = np.asarray(rates, dtype=np.float64)
         tree = self.tree
         length = tree.length if length is None else length
+        status, Q = 3, None
         if self.fused:
             status, ll = _evaluate_rates(
                 rates, self.model.rate_index, self.base, self.Q, _MAX_EIGEN_CONDITION,
                 tree.child_ptr, tree.children, tree.n_tips, length, self.E1[False], self.tips,
                 self.data_weighted, self.weights, _PHI1, self.root_partial, self.grad, self.dlen)
-            if status == 0:
-                return ll, self.grad.copy(), self.dlen
-            if status == 1:
-                self.dlen[:] = 0.0
-                return -np.inf, np.zeros(self.model.n_params), self.dlen
-            if status == 2:
+        if status == 3:  # complex eigenvalues, a stationary root, or an ill-conditioned Q
+            Q = self.model.q_matrix(rates)
+            es = _analytic_eigensystem(Q, self.root)
+            if es is None:
                 return self._finite_differences(rates, length)
-        Q = self.model.q_matrix(rates)
-        es = _analytic_eigensystem(Q, self.root)
-        if es is None:
-            return self._finite_differences(rates, length)
-        lam, V, Vinv = es
-        weights = stationary_distribution(Q) if self.stationary else self.weights
-        complex_ = lam.dtype == np.complex128
-        E1 = self.E1[complex_]
-        (_expm1_complex if complex_ else _expm1_real)(length, lam, E1)
-        status, ll = _value_and_gradient(tree.child_ptr, tree.children, tree.n_tips, length, Q,
-                                         lam, E1, V, Vinv, self.tips, self.data_weighted,
-                                         weights, self.model.rate_index, _PHI1,
-                                         self.root_partial, self.grad, self.dlen)
+            lam, V, Vinv = es
+            weights = stationary_distribution(Q) if self.stationary else self.weights
+            complex_ = lam.dtype == np.complex128
+            E1 = self.E1[complex_]
+            (_expm1_complex if complex_ else _expm1_real)(length, lam, E1)
+            status, ll = _value_and_gradient(tree.child_ptr, tree.children, tree.n_tips, length,
+                                             Q, lam, E1, V, Vinv, self.tips, self.data_weighted,
+                                             weights, self.model.rate_index, _PHI1,
+                                             self.root_partial, self.grad, self.dlen)
         if status == 1:
             self.dlen[:] = 0.0
             return -np.inf, np.zeros(self.model.n_params), self.dlen

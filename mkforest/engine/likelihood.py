@@ -205,41 +205,42 @@ def check_rate_matrix(Q) -> np.ndarray:
 
 
 @numba.njit(cache=True)
-def _real_eigensystem(Q):
-    """(lam, V, Vinv, condition) of a Q whose eigenvalues are all real; numba's eig
-    raises ValueError when one is complex, inv LinAlgError when V is singular."""
-    lam, V = np.linalg.eig(Q)
-    Vinv = np.linalg.inv(V)
+def _real_eigensystem(Q, max_condition):
+    """(ok, lam, V, Vinv) for a Q whose eigenvalues are all real: two states in closed
+    form (a = Q01, b = Q10, s = a + b > 0): lam = (0, -s), V = [[1, a/s], [1, -b/s]],
+    Vinv = [[b/s, a/s], [1, -1]] (det V = -1, so V is well conditioned whatever the
+    rates; it skips LAPACK's general solver, whose call overhead dominates a
+    two-state likelihood), else LAPACK. ok is False when an eigenvalue is complex
+    (numba's eig will not change domain), V is singular, or its condition number
+    reaches max_condition."""
+    k = Q.shape[0]
+    if k == 2 and Q[0, 1] + Q[1, 0] > 0.0:
+        a = Q[0, 1]
+        b = Q[1, 0]
+        s = a + b
+        pa = a / s
+        pb = b / s
+        return (True, np.array([0.0, -s]), np.array([[1.0, pa], [1.0, -pb]]),
+                np.array([[pb, pa], [1.0, -1.0]]))
+    try:
+        lam, V = np.linalg.eig(Q)
+        Vinv = np.linalg.inv(V)
+    except Exception:  # noqa: BLE001 (numba catches no narrower class)
+        return False, np.zeros(k), np.zeros((k, k)), np.zeros((k, k))
     cond = np.abs(V).sum(axis=0).max() * np.abs(Vinv).sum(axis=0).max()
-    return lam, V, Vinv, cond
+    return cond < max_condition, lam, V, Vinv
 
 
 def eigensystem(Q):
     """(lam, V, Vinv) with Q = V diag(lam) Vinv, real when every eigenvalue is real;
     None when V is ill-conditioned (defective or nearly defective Q).
 
-    Two states in closed form (a = Q01, b = Q10, s = a + b > 0): lam = (0, -s),
-    V = [[1, a/s], [1, -b/s]], Vinv = [[b/s, a/s], [1, -1]] (det V = -1, so V is
-    well conditioned whatever the rates); it skips LAPACK's general solver, whose
-    call overhead dominates a two-state likelihood."""
-    if Q.shape == (2, 2):
-        a, b = float(Q[0, 1]), float(Q[1, 0])
-        s = a + b
-        if s > 0.0:
-            pa, pb = a / s, b / s
-            return (np.array([0.0, -s]), np.array([[1.0, pa], [1.0, -pb]]),
-                    np.array([[pb, pa], [1.0, -1.0]]))
-    try:
-        # compiled LAPACK call: a fifth of the Python wrapper's time; it raises
-        # ValueError when an eigenvalue is complex (handled below)
-        lam, V, Vinv, cond = _real_eigensystem(np.ascontiguousarray(Q))
-        if cond >= _MAX_EIGEN_CONDITION:
-            return None
+    Real eigenvalues are decomposed in compiled code (``_real_eigensystem``: a fifth of
+    the Python wrapper's time); complex ones, and the rare real Q it turns down, by
+    NumPy, which then also judges the condition."""
+    ok, lam, V, Vinv = _real_eigensystem(np.ascontiguousarray(Q), _MAX_EIGEN_CONDITION)
+    if ok:
         return lam, V, Vinv
-    except ValueError:
-        pass
-    except np.linalg.LinAlgError:  # V singular: a defective Q
-        return None
     lam, V = np.linalg.eig(Q)
     try:
         Vinv = np.linalg.inv(V)

@@ -275,10 +275,10 @@ def read_trees(path, schema: str | None = None, root=None, fast: bool = True) ->
     path = Path(path)
     text, schema = _tree_file_text(path, schema)
     if root is None and fast:
-        fast = read_tree_text(text, schema)
-        if fast is not None:
+        arrays = read_tree_text(text, schema)
+        if arrays is not None:
             return [_build(labels, parent, length, i)
-                    for i, (labels, parent, length) in enumerate(fast)]
+                    for i, (labels, parent, length) in enumerate(arrays)]
     return _read_trees_dendropy(path, schema, root, text)
 
 

@@ -33,7 +33,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .compare import IMPOSSIBLE, akaike_weights
+from .compare import IMPOSSIBLE
 
 FEW_TREES = 20   # below this, 95% intervals across trees are rough
 BOUND_SHARE = 0.01  # an averaged rate is bound-limited when bound-limited models make this share of it

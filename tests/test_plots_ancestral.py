@@ -100,3 +100,13 @@ def test_class_tree_draws_class_rows_only(tmp_path):
     path = tmp_path / "classes.png"
     plots_ancestral.save(fig, [path])
     assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_change_counts_panel_of_one_tree_says_tree():
+    """A panel whose counts come from one tree says '1 tree' (seen on an invented 12-tree
+    sample where the other trees' maps were left out as bound-limited)."""
+    rows = [dict(analysis="colour", tree=4, from_state=a, to_state=b, mean_count=1.5)
+            for a, b in (("red", "blue"), ("blue", "red"))]
+    fig = plots_ancestral.change_counts(pd.DataFrame(rows))
+    visible = [ax for ax in fig.axes if ax.get_visible()]
+    assert [ax.get_title(loc="left") for ax in visible] == ["colour (1 tree)"]

@@ -356,8 +356,9 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
             continue
         style.box_and_points(ax, [g.loc[g["direction"] == o, "mean_count"] for o in order],
                              order, size=2.2, jitter=0.2)
-        ax.set_title(f"{a} ({g['tree'].nunique()} trees)", fontsize=9, loc="left",
-                     fontweight="bold")
+        n_trees = g["tree"].nunique()
+        ax.set_title(f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'})", fontsize=9,
+                     loc="left", fontweight="bold")
         ax.set_ylabel("")
         ax.set_xlabel("changes on the tree (mean of the tree's maps)", fontsize=8)
         ax.set_xlim(left=0)

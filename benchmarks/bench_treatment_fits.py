@@ -35,7 +35,7 @@ from bench_mapping import pure_birth_tree  # noqa: E402
 
 from mkforest.engine import gradient  # noqa: E402
 from mkforest.engine.branches import ESTIMABLE, Treatment, transformed_tree  # noqa: E402
-from mkforest.engine.fitting import fit_model  # noqa: E402
+from mkforest.engine.fitting import _TreatmentSpace, fit_model  # noqa: E402
 from mkforest.engine.models import build_model  # noqa: E402
 from mkforest.engine.simulate import simulate_states, tip_partials_from_states  # noqa: E402
 
@@ -46,15 +46,30 @@ SHAPES = {"150 tips x 2 states": (150, ("p", "q"), ("equal", "unconstrained"), 1
 SCENARIOS = {"null": (Treatment(), 1.0), "unit": (Treatment("unit"), 0.15)}
 
 _calls = [0]
+_inside = [False]
 _plain = gradient.Evaluator.__call__
+_objective = _TreatmentSpace.objective
 
 
 def _counted(self, *args, **kwargs):
-    _calls[0] += 1
+    _calls[0] += not _inside[0]
     return _plain(self, *args, **kwargs)
 
 
-gradient.Evaluator.__call__ = _counted  # every objective evaluation of a fit
+def _counted_objective(self, z):
+    _calls[0] += 1
+    _inside[0] = True
+    try:
+        return _objective(self, z)
+    finally:
+        _inside[0] = False
+
+
+# every objective evaluation of a fit's optimiser: the evaluator's, and the treatment
+# objective's (one compiled call that does not go through the evaluator, or the
+# evaluator). ln L alone (moving estimates onto bounds) is not counted, as for plain fits.
+gradient.Evaluator.__call__ = _counted
+_TreatmentSpace.objective = _counted_objective
 
 
 def data_sets(seed, n_sets, n_tips, states, truth, scale):

@@ -349,7 +349,7 @@ def test_one_call_objective_equals_the_step_by_step_one(name):
     checked = 0
     for seed in range(4):
         for ultrametric in (False, True):
-            newick, Q, cells = case(seed, ultrametric)
+            newick, _, cells = case(seed, ultrametric)
             tree = parse_newick(newick)
             X = partials_from_cells(cells, tree.tip_labels, STATES)
             for kind in ("equal", "unconstrained"):

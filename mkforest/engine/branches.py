@@ -66,11 +66,13 @@ def _phi_pair(z, phi_coef, dphi_coef):
 
 
 @numba.njit(cache=True)
-def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_coef, out, deriv):
+def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_coef, n_sum, out,
+               deriv):
     """Effective lengths (out) and d/dx (deriv) for one estimable treatment, every node
-    (the formulas of the module docstring; the root's entry is 0), and their sums
-    (total length, its derivative). log_t = ln t and log_r = ln(d/H) per node,
-    computed once per tree (0 where t or d is 0)."""
+    (the formulas of the module docstring; the root's entry is 0), and the sums of
+    both over nodes 0..n_sum-1 (n_tips: the tip branches; n_nodes - 1: every branch).
+    log_t = ln t and log_r = ln(d/H) per node, computed once per tree (0 where t or
+    d is 0)."""
     n = t.shape[0]
     total = 0.0
     dtotal = 0.0
@@ -114,8 +116,9 @@ def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_co
             out[v] = grow * t[v] * phi
             # d/da = s0 t' + e^(a s0) t^2 phi'(a t); d/dx = d/da / H
             deriv[v] = (s0 * out[v] + grow * t[v] * t[v] * dphi) / H
-        total += out[v]
-        dtotal += deriv[v]
+        if v < n_sum:
+            total += out[v]
+            dtotal += deriv[v]
     out[n - 1] = 0.0
     deriv[n - 1] = 0.0
     return total, dtotal
@@ -148,20 +151,32 @@ def effective_lengths(tree, treatment: Treatment, x: float | None = None):
     out = np.empty_like(t)
     deriv = np.empty_like(t)
     _transform(_CODES[name], t, d, log_t, log_r, tree.parent, tree.n_tips, H, float(x), _PHI,
-               _DPHI, out, deriv)
+               _DPHI, 0, out, deriv)
     return out, deriv
+
+
+# The branches whose total length a fit holds the rates to (fitting._TreatmentSpace):
+# the tip branches for delta, every branch otherwise. Chosen by measurement
+# (benchmarks/bench_treatment_fits.py): as delta falls towards 0 the internal
+# branches lengthen and the tip branches, where most change is seen, shorten, so
+# the rates that fit rise steeply when held to the whole tree's length (2.2 times
+# the given lengths' evaluations per fit) and little when held to the tip branches'
+# (1.7 times, the same optima). For kappa, lambda and early_burst the two choices
+# took the same number of evaluations within the benchmark's noise.
+TIP_TOTAL = ("delta",)
 
 
 class Transform:
     """An estimable treatment's lengths on one tree, evaluated again and again (the
     optimiser's inner loop): the tree's logs are looked up once and the output
     arrays reused, so ``__call__`` is one compiled pass. Returns (lengths,
-    d lengths / dx, total length, its derivative); the arrays are overwritten by
-    the next call."""
+    d lengths / dx, their total over the branches ``n_sum`` counts (``TIP_TOTAL``),
+    its derivative); the arrays are overwritten by the next call."""
 
     def __init__(self, tree, treatment: Treatment):
         self.tree = tree
         self.code = _CODES[treatment.name]
+        self.n_sum = tree.n_tips if treatment.name in TIP_TOTAL else tree.n_nodes - 1
         self.d, self.log_t, self.log_r, H = _logs(tree)
         self.flat = H == 0.0  # no height: every treatment leaves the lengths as they are
         self.H = H
@@ -173,10 +188,10 @@ class Transform:
         if self.flat:
             self.out[:] = t
             self.deriv[:] = 0.0
-            return self.out, self.deriv, float(t[:-1].sum()), 0.0
+            return self.out, self.deriv, float(t[: self.n_sum].sum()), 0.0
         total, dtotal = _transform(self.code, t, self.d, self.log_t, self.log_r,
                                    self.tree.parent, self.tree.n_tips, self.H, float(x), _PHI,
-                                   _DPHI, self.out, self.deriv)
+                                   _DPHI, self.n_sum, self.out, self.deriv)
         return self.out, self.deriv, total, dtotal
 
 

@@ -21,8 +21,16 @@ import numba
 import numpy as np
 from scipy.special import chdtri
 
-from .branches import _DPHI, _PHI, NULL_VALUE, Transform, Treatment, _transform
-from .branches import transformed_tree, with_lengths
+from .branches import (
+    _DPHI,
+    _PHI,
+    NULL_VALUE,
+    Transform,
+    Treatment,
+    _transform,
+    transformed_tree,
+    with_lengths,
+)
 from .gradient import _PHI1, FD_STEP, Evaluator, _evaluate_rates
 from .hidden import relabel_classes, spread_classes
 from .lbfgsb import minimise
@@ -246,7 +254,8 @@ class _TreatmentSpace:
     """The optimiser's coordinates for a fit with an estimated treatment:
     z = (y_1..y_p, w), with rates exp(y) T / T'(x) and branch value x = null + s w.
 
-    T and T' are the given and the transformed total length: moving the branch
+    T and T' are the given and the transformed total length (of every branch, or of
+    the tip branches for delta: ``branches.TIP_TOTAL``): moving the branch
     parameter then keeps the expected number of changes, so the two are nearly
     uncorrelated (the rates alone would move with the tree's total length). s is
     the branch value's unit (``BRANCH_SCALE``); w = 0 is the null value and the
@@ -260,8 +269,8 @@ class _TreatmentSpace:
         self.lo, self.hi = treatment.bounds()
         self.s = BRANCH_SCALE[treatment.name]
         self.bounds = ((self.lo - self.null) / self.s, (self.hi - self.null) / self.s)
-        self.given = float(tree.length[:-1].sum())
         self.transform = Transform(tree, treatment)
+        self.given = float(tree.length[: self.transform.n_sum].sum())
         self.evaluate = Evaluator(tree, tip_partials, model, root)
         self.rate_buffer = np.empty(self.p)
 
@@ -327,9 +336,10 @@ class _TreatmentSpace:
         status, ll = _treatment_objective(
             z, self.p, self.s, self.bounds[0], self.bounds[1], self.null, self.lo, self.hi,
             tr.code, tree.length, tr.d, tr.log_t, tr.log_r, tree.parent, tree.n_tips, tr.H,
-            _PHI, _DPHI, tr.out, tr.deriv, self.given, self.rate_buffer, self.model.rate_index,
-            ev.base, ev.Q, _MAX_EIGEN_CONDITION, tree.child_ptr, tree.children, ev.E1[False],
-            ev.tips, ev.data_weighted, ev.weights, _PHI1, ev.root_partial, ev.grad, ev.dlen, out)
+            _PHI, _DPHI, tr.n_sum, tr.out, tr.deriv, self.given, self.rate_buffer,
+            self.model.rate_index, ev.base, ev.Q, _MAX_EIGEN_CONDITION, tree.child_ptr,
+            tree.children, ev.E1[False], ev.tips, ev.data_weighted, ev.weights, _PHI1,
+            ev.root_partial, ev.grad, ev.dlen, out)
         return status, ll, out
 
     def value(self, z) -> float:
@@ -373,7 +383,7 @@ class _TreatmentSpace:
 
 @numba.njit(cache=True)
 def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_t, log_r,
-                         parent, n_tips, H, phi, dphi, lengths, dl, given, rates, rate_index,
+                         parent, n_tips, H, phi, dphi, n_sum, lengths, dl, given, rates, rate_index,
                          base, Q, max_condition, child_ptr, children, E1, tips, data_weighted,
                          weights, coef, root_partial, grad, dlen, out):
     """``_TreatmentSpace.objective`` in one compiled call: branch value x from w, the
@@ -383,7 +393,7 @@ def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_
     w = z[p]
     x = x_lo if w == w_lo else (x_hi if w == w_hi else null + s * w)
     total, dtotal = _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi, dphi,
-                               lengths, dl)
+                               n_sum, lengths, dl)
     shift, dshift = 0.0, 0.0
     if given > 0.0 and total > 0.0:
         shift = math.log(given / total)

@@ -66,16 +66,13 @@ def _phi_pair(z, phi_coef, dphi_coef):
 
 
 @numba.njit(cache=True)
-def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_coef, n_sum, out,
+def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_coef, held, out,
                deriv):
     """Effective lengths (out) and d/dx (deriv) for one estimable treatment, every node
-    (the formulas of the module docstring; the root's entry is 0), and the sums of
-    both over nodes 0..n_sum-1 (n_tips: the tip branches; n_nodes - 1: every branch).
-    log_t = ln t and log_r = ln(d/H) per node, computed once per tree (0 where t or
-    d is 0)."""
+    (the formulas of the module docstring; the root's entry is 0), and the length the
+    fit holds the rates to with its d/dx (``_held_length``, kind ``held``). log_t = ln t
+    and log_r = ln(d/H) per node, computed once per tree (0 where t or d is 0)."""
     n = t.shape[0]
-    total = 0.0
-    dtotal = 0.0
     for v in range(n - 1):
         p = parent[v]
         s0 = d[p]
@@ -116,11 +113,36 @@ def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_co
             out[v] = grow * t[v] * phi
             # d/da = s0 t' + e^(a s0) t^2 phi'(a t); d/dx = d/da / H
             deriv[v] = (s0 * out[v] + grow * t[v] * t[v] * dphi) / H
-        if v < n_sum:
-            total += out[v]
-            dtotal += deriv[v]
     out[n - 1] = 0.0
     deriv[n - 1] = 0.0
+    return _held_length(held, t, n_tips, out, deriv)
+
+
+@numba.njit(cache=True)
+def _held_length(held, t, n_tips, out, deriv):
+    """(L, dL/dx) of lengths ``out`` with derivatives ``deriv``: held 0, the sum over every
+    branch; 1, over the tip branches; 2, the geometric mean over the branches whose
+    given length t is positive (a treatment held this way must keep those positive,
+    as early_burst does; a zero gives L = 0, which the fit reads as "no scaling")."""
+    n = out.shape[0]
+    if held == 2:
+        logs, ratio, count = 0.0, 0.0, 0
+        for v in range(n - 1):
+            if t[v] > 0.0:
+                if out[v] <= 0.0:
+                    return 0.0, 0.0
+                logs += math.log(out[v])
+                ratio += deriv[v] / out[v]
+                count += 1
+        if count == 0:
+            return 0.0, 0.0
+        g = math.exp(logs / count)
+        return g, g * ratio / count
+    last = n_tips if held == 1 else n - 1
+    total, dtotal = 0.0, 0.0
+    for v in range(last):
+        total += out[v]
+        dtotal += deriv[v]
     return total, dtotal
 
 
@@ -155,29 +177,36 @@ def effective_lengths(tree, treatment: Treatment, x: float | None = None):
     return out, deriv
 
 
-# The branches whose total length a fit holds the rates to (fitting._TreatmentSpace):
-# the tip branches for delta, every branch otherwise. Chosen by measurement
-# (benchmarks/bench_treatment_fits.py): as delta falls towards 0 the internal
-# branches lengthen and the tip branches, where most change is seen, shorten, so
-# the rates that fit rise steeply when held to the whole tree's length (2.2 times
-# the given lengths' evaluations per fit) and little when held to the tip branches'
-# (1.7 times, the same optima). For kappa, lambda and early_burst the two choices
-# took the same number of evaluations within the benchmark's noise.
-TIP_TOTAL = ("delta",)
+# The length a fit holds the rates to while the branch value moves
+# (fitting._TreatmentSpace): 0, the total of every branch; 1, the total of the tip
+# branches; 2, the geometric mean branch length. Chosen by measurement
+# (benchmarks/bench_treatment_fits.py, objective evaluations per fit against the
+# given lengths', and the optima reached). delta: as it falls towards 0 the internal
+# branches lengthen and the tip branches, where most change is seen, shorten, so the
+# rates that fit rise steeply when held to the whole tree's length (2.2 times the
+# given lengths' evaluations) and little when held to the tip branches' (1.7 times,
+# the same optima). early_burst: the geometric mean (1.81 times, against 1.89 for
+# the total, on 20 data sets per block, and no fit left below the given lengths'
+# optimum, against one). kappa and lambda: the choices took the same evaluations
+# within the benchmark's noise; the total is kept.
+HELD = {"kappa": 0, "lambda": 0, "delta": 1, "early_burst": 2}
 
 
 class Transform:
     """An estimable treatment's lengths on one tree, evaluated again and again (the
     optimiser's inner loop): the tree's logs are looked up once and the output
     arrays reused, so ``__call__`` is one compiled pass. Returns (lengths,
-    d lengths / dx, their total over the branches ``n_sum`` counts (``TIP_TOTAL``),
-    its derivative); the arrays are overwritten by the next call."""
+    d lengths / dx, the length the fit holds the rates to (``HELD``), its derivative);
+    the arrays are overwritten by the next call. ``given`` is that length on the
+    given branch lengths."""
 
     def __init__(self, tree, treatment: Treatment):
         self.tree = tree
         self.code = _CODES[treatment.name]
-        self.n_sum = tree.n_tips if treatment.name in TIP_TOTAL else tree.n_nodes - 1
+        self.held = HELD[treatment.name]
         self.d, self.log_t, self.log_r, H = _logs(tree)
+        t = tree.length
+        self.given = _held_length(self.held, t, tree.n_tips, t, np.zeros_like(t))[0]
         self.flat = H == 0.0  # no height: every treatment leaves the lengths as they are
         self.H = H
         self.out = np.empty_like(tree.length)
@@ -188,10 +217,10 @@ class Transform:
         if self.flat:
             self.out[:] = t
             self.deriv[:] = 0.0
-            return self.out, self.deriv, float(t[: self.n_sum].sum()), 0.0
+            return self.out, self.deriv, self.given, 0.0
         total, dtotal = _transform(self.code, t, self.d, self.log_t, self.log_r,
                                    self.tree.parent, self.tree.n_tips, self.H, float(x), _PHI,
-                                   _DPHI, self.n_sum, self.out, self.deriv)
+                                   _DPHI, self.held, self.out, self.deriv)
         return self.out, self.deriv, total, dtotal
 
 

@@ -246,17 +246,19 @@ RATES_FIRST_FTOL = 1e-2
 # should change ln L about as much as a unit step of a log-rate. Chosen by measurement
 # (benchmarks/bench_treatment_fits.py: objective evaluations per fit on two sets of
 # simulated data): lambda's ln L is steep near 1 (tip branches are short next to
-# their parents' depths), a H and ln delta are flat.
-BRANCH_SCALE = {"kappa": 1.0, "lambda": 0.2, "delta": 2.0, "early_burst": 3.0}
+# their parents' depths), a H and ln delta are flat. (early_burst: 2 with the rates held
+# to the geometric mean branch length, ``branches.HELD``; it was 3 with the total.)
+BRANCH_SCALE = {"kappa": 1.0, "lambda": 0.2, "delta": 2.0, "early_burst": 2.0}
 
 
 class _TreatmentSpace:
     """The optimiser's coordinates for a fit with an estimated treatment:
     z = (y_1..y_p, w), with rates exp(y) T / T'(x) and branch value x = null + s w.
 
-    T and T' are the given and the transformed total length (of every branch, or of
-    the tip branches for delta: ``branches.TIP_TOTAL``): moving the branch
-    parameter then keeps the expected number of changes, so the two are nearly
+    T and T' are a length of the given and of the transformed tree (the total of
+    every branch; for delta the tip branches' total, for early_burst the geometric
+    mean branch length: ``branches.HELD``): moving the branch parameter then keeps
+    the expected number of changes about the same, so the two are nearly
     uncorrelated (the rates alone would move with the tree's total length). s is
     the branch value's unit (``BRANCH_SCALE``); w = 0 is the null value and the
     bounds of w map back onto the bounds of x exactly."""
@@ -270,7 +272,7 @@ class _TreatmentSpace:
         self.s = BRANCH_SCALE[treatment.name]
         self.bounds = ((self.lo - self.null) / self.s, (self.hi - self.null) / self.s)
         self.transform = Transform(tree, treatment)
-        self.given = float(tree.length[: self.transform.n_sum].sum())
+        self.given = self.transform.given
         self.evaluate = Evaluator(tree, tip_partials, model, root)
         self.rate_buffer = np.empty(self.p)
 
@@ -336,7 +338,7 @@ class _TreatmentSpace:
         status, ll = _treatment_objective(
             z, self.p, self.s, self.bounds[0], self.bounds[1], self.null, self.lo, self.hi,
             tr.code, tree.length, tr.d, tr.log_t, tr.log_r, tree.parent, tree.n_tips, tr.H,
-            _PHI, _DPHI, tr.n_sum, tr.out, tr.deriv, self.given, self.rate_buffer,
+            _PHI, _DPHI, tr.held, tr.out, tr.deriv, self.given, self.rate_buffer,
             self.model.rate_index, ev.base, ev.Q, _MAX_EIGEN_CONDITION, tree.child_ptr,
             tree.children, ev.E1[False], ev.tips, ev.data_weighted, ev.weights, _PHI1,
             ev.root_partial, ev.grad, ev.dlen, out)
@@ -383,7 +385,7 @@ class _TreatmentSpace:
 
 @numba.njit(cache=True)
 def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_t, log_r,
-                         parent, n_tips, H, phi, dphi, n_sum, lengths, dl, given, rates, rate_index,
+                         parent, n_tips, H, phi, dphi, held, lengths, dl, given, rates, rate_index,
                          base, Q, max_condition, child_ptr, children, E1, tips, data_weighted,
                          weights, coef, root_partial, grad, dlen, out):
     """``_TreatmentSpace.objective`` in one compiled call: branch value x from w, the
@@ -393,7 +395,7 @@ def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_
     w = z[p]
     x = x_lo if w == w_lo else (x_hi if w == w_hi else null + s * w)
     total, dtotal = _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi, dphi,
-                               n_sum, lengths, dl)
+                               held, lengths, dl)
     shift, dshift = 0.0, 0.0
     if given > 0.0 and total > 0.0:
         shift = math.log(given / total)

@@ -93,3 +93,27 @@ def test_the_bare_loop_is_used_with_this_scipy():
     lbfgsb.minimise(_rosen, np.array([0.2, 0.1]), np.full(2, -1.0), np.full(2, 0.8),
                     ftol=1e-10, gtol=1e-6)
     assert lbfgsb._direct is True
+
+
+@pytest.mark.parametrize("bare", [True, False])
+def test_stop_ends_the_run_at_the_first_iterate_it_accepts(bare, monkeypatch):
+    """``stop(x)`` is asked at every new iterate; the run returns the first one it
+    accepts, an iterate of the same run without ``stop`` (checked on SciPy's
+    Rosenbrock, in the bare loop and in the fallback through ``minimize``)."""
+    monkeypatch.setattr(lbfgsb, "_direct", bare)
+    x0 = np.array([-1.2, 1.0, -0.5, 0.3])
+    lo, hi = np.full(4, -2.0), np.full(4, 2.0)
+    iterates = []
+
+    def record(x):
+        iterates.append(np.array(x))
+        return False
+
+    full = lbfgsb.minimise(_rosen, x0, lo, hi, ftol=1e-12, gtol=1e-9, stop=record)
+    assert rosen(full) < 1e-8 and len(iterates) > 10
+    # the first iterate below 1 (the start is at 15.3)
+    target = next(x for x in iterates if rosen(x) < 1.0)
+    x = lbfgsb.minimise(_rosen, x0, lo, hi, ftol=1e-12, gtol=1e-9,
+                        stop=lambda x: rosen(x) < 1.0)
+    assert np.array_equal(x, target)
+    assert rosen(x) > 1e-3  # stopped early, not at the optimum

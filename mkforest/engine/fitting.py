@@ -7,7 +7,11 @@ in a fixed seeded order (the first at a parsimony-based guess, the others
 random points around it): at least ``n_starts`` (and at least as many as the
 model has free rates, up to 5), then more, up to ``max_starts``, while the two
 best disagree. The fit is called converged when
-at least two starts reach the best log-likelihood within ``AGREE_TOL``.
+at least two starts reach the best log-likelihood within ``AGREE_TOL``. A start
+that comes within ``SAME_X`` (every coordinate) and ``SAME_F`` (ln L) of an
+earlier start's optimum stops there: it has reached a known optimum, and
+polishing it would find that optimum again (10-16% fewer evaluations per fit on
+simulated 60- to 200-tip data; the same estimates, tests/test_starts.py).
 A fit depends only on (tree, data, model, root, seed): never on other trees,
 on run order or on how the work is split.
 """
@@ -35,7 +39,16 @@ from .gradient import _PHI1, FD_STEP, Evaluator, _evaluate_rates
 from .hidden import relabel_classes, spread_classes
 from .lbfgsb import minimise
 from .likelihood import _MAX_EIGEN_CONDITION, log_likelihood, prune, root_weights
-from .search import AGREE_TOL, LOWER, MAX_STARTS, MIN_STARTS, RATE_STARTS, UPPER
+from .search import (
+    AGREE_TOL,
+    LOWER,
+    MAX_STARTS,
+    MIN_STARTS,
+    RATE_STARTS,
+    SAME_F,
+    SAME_X,
+    UPPER,
+)
 
 # Objective value where the data are impossible under the rates tried (e.g. an
 # irreversible loss so fast that exp(-rate t) underflows). Large but finite, so
@@ -475,7 +488,7 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
     for x0 in starts:
         if q and not results:
             x0 = space.rates_first(x0, bounds[:p])
-        results.append(_descend(objective, x0, bounds))
+        results.append(_descend(objective, x0, bounds, known=results))
         if len(results) >= max_starts:
             break
         if len(results) >= least and _best_two_agree(results):
@@ -536,7 +549,7 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
 SCALE_FIRST_STEP = True
 
 
-def _descend(objective, x0, bounds, ftol=1e-10):
+def _descend(objective, x0, bounds, ftol=1e-10, known=()):
     """(lowest objective, its x): one L-BFGS-B run from x0.
 
     With every variable bounded, L-BFGS-B's first step is the whole (projected)
@@ -547,7 +560,12 @@ def _descend(objective, x0, bounds, ftol=1e-10):
     by its largest gradient entry at x0 (when above 1) makes that first step at
     most one unit in every parameter; later steps follow the curvature the
     optimiser learns and do not depend on the scale. The gradient tolerance is
-    divided alike, so the stopping rule is that of the unscaled objective."""
+    divided alike, so the stopping rule is that of the unscaled objective.
+
+    known: (objective, x) of the fit's earlier starts. The run stops at an iterate
+    within ``SAME_X`` of one of those optima in every coordinate and within
+    ``SAME_F`` of its value: it has reached a basin whose optimum is known, and
+    polishing it would only find that optimum again."""
     f0, g0 = objective(x0)
     lo = np.array([b[0] for b in bounds])
     hi = np.array([b[1] for b in bounds])
@@ -566,7 +584,13 @@ def _descend(objective, x0, bounds, ftol=1e-10):
         f, g = seen[key]
         return f / c, g / c
 
-    x = minimise(scaled, x0, lo, hi, ftol=ftol, gtol=1e-6 / c, maxiter=1000)
+    def reached_known(x):
+        f = seen.get(x.tobytes())
+        return f is not None and any(abs(f[0] - fk) <= SAME_F and
+                                     float(np.max(np.abs(x - xk))) <= SAME_X for fk, xk in known)
+
+    x = minimise(scaled, x0, lo, hi, ftol=ftol, gtol=1e-6 / c, maxiter=1000,
+                 stop=reached_known if len(known) else None)
     # the unscaled value at the point returned (f / c * c need not round back to f)
     key = np.asarray(x, dtype=float).tobytes()
     return (seen[key][0] if key in seen else objective(x)[0]), x

@@ -37,21 +37,31 @@ _STOP = 5
 _direct = None if _lbfgsb is not None and hasattr(_lbfgsb, "setulb") else False
 
 
-def minimise(fun, x0, lower, upper, ftol: float, gtol: float, maxiter: int = 1000):
+def minimise(fun, x0, lower, upper, ftol: float, gtol: float, maxiter: int = 1000,
+             stop=None):
     """x at the end of one L-BFGS-B run of ``fun`` (x -> (f, gradient)) from x0 within
-    [lower, upper] (arrays, finite), with minimize's ``ftol``, ``gtol`` and ``maxiter``."""
+    [lower, upper] (arrays, finite), with minimize's ``ftol``, ``gtol`` and ``maxiter``.
+    ``stop(x)``, if given, is asked at every new iterate; True ends the run there."""
     global _direct
     if _direct is None:
         _direct = _bare_loop_agrees()
     if _direct:
-        return _bare(fun, x0, lower, upper, ftol, gtol, maxiter)
-    return _public(fun, x0, lower, upper, ftol, gtol, maxiter)
+        return _bare(fun, x0, lower, upper, ftol, gtol, maxiter, stop)
+    return _public(fun, x0, lower, upper, ftol, gtol, maxiter, stop)
 
 
-def _public(fun, x0, lower, upper, ftol, gtol, maxiter):
+def _public(fun, x0, lower, upper, ftol, gtol, maxiter, stop=None):
+    last = []
+
+    def callback(xk):
+        if stop is not None and stop(xk):
+            last.append(np.array(xk))
+            raise StopIteration  # SciPy >= 1.11 ends the run and returns
+
     res = minimize(fun, x0, method="L-BFGS-B", jac=True, bounds=list(zip(lower, upper)),
-                   options={"maxiter": maxiter, "ftol": ftol, "gtol": gtol})
-    return res.x
+                   options={"maxiter": maxiter, "ftol": ftol, "gtol": gtol},
+                   callback=callback if stop is not None else None)
+    return last[0] if last else res.x
 
 
 def _bare_loop_agrees() -> bool:
@@ -71,7 +81,7 @@ def _bare_loop_agrees() -> bool:
     return bool(np.array_equal(x, _public(quad, x0, lo, hi, 1e-12, 1e-8, 100)))
 
 
-def _bare(fun, x0, lower, upper, ftol, gtol, maxiter):
+def _bare(fun, x0, lower, upper, ftol, gtol, maxiter, stop=None):
     n = len(x0)
     m = MAXCOR
     x = np.clip(np.array(x0, dtype=np.float64), lower, upper)
@@ -102,5 +112,7 @@ def _bare(fun, x0, lower, upper, ftol, gtol, maxiter):
             if iterations >= maxiter or evaluations > MAXFUN:
                 task[0] = _STOP
                 task[1] = 504
+            elif stop is not None and stop(x):
+                return x.copy()
         else:
             return x

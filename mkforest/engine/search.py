@@ -17,3 +17,7 @@ MAX_STARTS = 20
 # (measured on the demo with benchmarks/convergence_rate.py: stopping at the first
 # two that agree reported a poorer optimum 3x as often as five fixed starts).
 RATE_STARTS = 5
+# A start that comes this close to an earlier start's optimum (every coordinate of the
+# optimiser's: log-rates, and a branch value in its own unit; and ln L) stops there.
+SAME_X = 1e-2
+SAME_F = 1e-3

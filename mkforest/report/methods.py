@@ -22,7 +22,7 @@ import pandas as pd
 
 from ..data.config import tree_sets
 from ..engine.models import HYPOTHESES
-from ..engine.search import AGREE_TOL, RATE_STARTS
+from ..engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X
 from ..engine.summarise import as_text
 from .citations import REFERENCES, cite, cited_in
 from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
@@ -329,7 +329,10 @@ def _fitting_paragraph(config, software) -> str:
             "intervals and averages, with the number of trees where it occurred beside them.")
     if most > 1:
         text += (f" A fit counted as converged when at least two starts reached the best "
-                 f"log-likelihood within {AGREE_TOL:g} units.")
+                 f"log-likelihood within {AGREE_TOL:g} units. A start that came within "
+                 f"{SAME_X:g} (on the log scale) of an earlier start's optimum in every "
+                 f"parameter, and within {SAME_F:g} units of its log-likelihood, was stopped "
+                 "there as having reached it.")
     else:
         text += " With a single start per fit, convergence could not be checked."
     return text

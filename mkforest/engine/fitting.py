@@ -353,7 +353,7 @@ class _TreatmentSpace:
             tr.code, tree.length, tr.d, tr.log_t, tr.log_r, tree.parent, tree.n_tips, tr.H,
             _PHI, _DPHI, tr.held, tr.out, tr.deriv, self.given, self.rate_buffer,
             self.model.rate_index, ev.base, ev.Q, _MAX_EIGEN_CONDITION, tree.child_ptr,
-            tree.children, ev.E1[False], ev.tips, ev.data_weighted, ev.weights, _PHI1,
+            tree.children, ev.E1[False], ev.E1[True], ev.tips, ev.data_weighted, ev.weights, _PHI1,
             ev.root_partial, ev.grad, ev.dlen, out)
         return status, ll, out
 
@@ -399,7 +399,8 @@ class _TreatmentSpace:
 @numba.njit(cache=True)
 def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_t, log_r,
                          parent, n_tips, H, phi, dphi, held, lengths, dl, given, rates, rate_index,
-                         base, Q, max_condition, child_ptr, children, E1, tips, data_weighted,
+                         base, Q, max_condition, child_ptr, children, E1, E1c, tips,
+                         data_weighted,
                          weights, coef, root_partial, grad, dlen, out):
     """``_TreatmentSpace.objective`` in one compiled call: branch value x from w, the
     transformed lengths, the rates exp(y) T / T', ``_evaluate_rates`` and the chain
@@ -416,7 +417,7 @@ def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_
     for i in range(p):
         rates[i] = math.exp(z[i] + shift)
     status, ll = _evaluate_rates(rates, rate_index, base, Q, max_condition, child_ptr, children,
-                                 n_tips, lengths, E1, tips, data_weighted, weights, coef,
+                                 n_tips, lengths, E1, E1c, tips, data_weighted, weights, coef,
                                  root_partial, grad, dlen)
     if status != 0:
         return status, ll

@@ -375,17 +375,37 @@ def _row_sum(a):
 
 @numba.njit(cache=True)
 def _evaluate_rates(rates, rate_index, base, Q, max_condition, child_ptr, children, n_tips,
-                    length, E1, tip_partials, data_weighted, weights, coef, root_partial, grad,
-                    dlen):
-    """Q, its eigensystem, expm1 and ``_value_and_gradient`` in one compiled call, for
-    real eigenvalues and a root whose weights do not depend on Q. Returns (status, lnL)
-    with status 0-2 as ``_value_and_gradient`` and 3 where this path does not apply."""
+                    length, E1, E1c, tip_partials, data_weighted, weights, coef, root_partial,
+                    grad, dlen):
+    """Q, its eigensystem, expm1 and ``_value_and_gradient`` in one compiled call, for a
+    root whose weights do not depend on Q. Returns (status, lnL) with status 0-2 as
+    ``_value_and_gradient`` and 3 where this path does not apply (an ill-conditioned
+    or defective Q). Real eigenvalues use ``_real_eigensystem`` and E1; complex ones
+    (a chain with rates that cycle) LAPACK's complex solver on Q and E1c, where the
+    general path calls NumPy's real one: the same numbers to rounding, not bit for bit."""
     _q_into(rates, rate_index, base, Q)
     ok, lam, V, Vinv = _real_eigensystem(Q, max_condition)
-    if not ok:
+    if ok:
+        _expm1_real(length, lam, E1)
+        return _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
+                                   tip_partials, data_weighted, weights, rate_index, coef,
+                                   root_partial, grad, dlen)
+    if Q.shape[0] == 2:
         return 3, 0.0
-    _expm1_real(length, lam, E1)
-    return _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
+    try:
+        lamc, Vc = np.linalg.eig(Q.astype(np.complex128))
+        Vinvc = np.linalg.inv(Vc)
+    except Exception:  # noqa: BLE001 (numba catches no narrower class)
+        return 3, 0.0
+    real = True
+    for m in range(lamc.shape[0]):
+        if lamc[m].imag != 0.0:
+            real = False
+    cond = np.abs(Vc).sum(axis=0).max() * np.abs(Vinvc).sum(axis=0).max()
+    if real or not cond < max_condition:  # real: the real solver turned Q down
+        return 3, 0.0
+    _expm1_complex(length, lamc, E1c)
+    return _value_and_gradient(child_ptr, children, n_tips, length, Q, lamc, E1c, Vc, Vinvc,
                                tip_partials, data_weighted, weights, rate_index, coef,
                                root_partial, grad, dlen)
 
@@ -427,9 +447,10 @@ class Evaluator:
         if self.fused:
             status, ll = _evaluate_rates(
                 rates, self.model.rate_index, self.base, self.Q, _MAX_EIGEN_CONDITION,
-                tree.child_ptr, tree.children, tree.n_tips, length, self.E1[False], self.tips,
-                self.data_weighted, self.weights, _PHI1, self.root_partial, self.grad, self.dlen)
-        if status == 3:  # complex eigenvalues, a stationary root, or an ill-conditioned Q
+                tree.child_ptr, tree.children, tree.n_tips, length, self.E1[False],
+                self.E1[True], self.tips, self.data_weighted, self.weights, _PHI1,
+                self.root_partial, self.grad, self.dlen)
+        if status == 3:  # a stationary root, or an ill-conditioned or defective Q
             Q = self.model.q_matrix(rates)
             es = _analytic_eigensystem(Q, self.root)
             if es is None:

@@ -330,8 +330,9 @@ def _fitting_paragraph(config, software) -> str:
     if most > 1:
         text += (f" A fit counted as converged when at least two starts reached the best "
                  f"log-likelihood within {AGREE_TOL:g} units. A start that came within "
-                 f"{SAME_X:g} (on the log scale) of an earlier start's optimum in every "
-                 f"parameter, and within {SAME_F:g} units of its log-likelihood, was stopped "
+                 f"{SAME_X:g} of an earlier start's optimum in every parameter as the "
+                 "optimiser sees it (log-rates; a branch-length parameter in its own step "
+                 f"unit), and within {SAME_F:g} units of its log-likelihood, was stopped "
                  "there as having reached it.")
     else:
         text += " With a single start per fit, convergence could not be checked."

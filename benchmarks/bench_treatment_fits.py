@@ -10,8 +10,8 @@ lengths (`unit`: kappa's and lambda's optimum far from it). Every data set is
 fitted with every treatment (fit_model with the workflow's default starts and the
 same seed), and the table shows, summed over the data sets: CPU time per fit
 (time.process_time, the minimum of --repeat rounds, treatments interleaved), its
-ratio to as_given, the objective evaluations per fit, the starts per fit, and how many fits were flagged
-not converged. `unit` is a fixed treatment (the tree is transformed once). An
+ratio to as_given, the objective evaluations per fit, the starts per fit, and how
+many fits were flagged not converged. `unit` is a fixed treatment (the tree is transformed once). An
 estimated treatment nests the given lengths, so its ln L should never be below
 as_given's: the data sets where it is (by more than 1e-6) are counted, with the
 largest shortfall.

@@ -353,8 +353,8 @@ class _TreatmentSpace:
             tr.code, tree.length, tr.d, tr.log_t, tr.log_r, tree.parent, tree.n_tips, tr.H,
             _PHI, _DPHI, tr.held, tr.out, tr.deriv, self.given, self.rate_buffer,
             self.model.rate_index, ev.base, ev.Q, _MAX_EIGEN_CONDITION, tree.child_ptr,
-            tree.children, ev.E1[False], ev.E1[True], ev.tips, ev.data_weighted, ev.weights, _PHI1,
-            ev.root_partial, ev.grad, ev.dlen, out)
+            tree.children, ev.E1[False], ev.E1[True], ev.tips, ev.data_weighted, ev.weights,
+            _PHI1, ev.root_partial, ev.grad, ev.dlen, out)
         return status, ll, out
 
     def value(self, z) -> float:
@@ -371,7 +371,7 @@ class _TreatmentSpace:
         sum_b d lnL / d t_b * d t_b / dx + sum_i d lnL / d ln r_i * d ln(T / T') / dx
         (chain rule), times s for w; a central difference where the rate gradient
         itself falls back to finite differences. Where the evaluator's one-call path
-        applies (real eigenvalues, a root whose weights do not depend on Q), the
+        applies (a root whose weights do not depend on Q, a well-conditioned Q), the
         transform, the rates and the chain rule run in the same compiled call
         (``_treatment_objective``: on 150-tip trees the Python steps around it cost
         half as much as the likelihood itself)."""
@@ -398,10 +398,9 @@ class _TreatmentSpace:
 
 @numba.njit(cache=True)
 def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_t, log_r,
-                         parent, n_tips, H, phi, dphi, held, lengths, dl, given, rates, rate_index,
-                         base, Q, max_condition, child_ptr, children, E1, E1c, tips,
-                         data_weighted,
-                         weights, coef, root_partial, grad, dlen, out):
+                         parent, n_tips, H, phi, dphi, held, lengths, dl, given, rates,
+                         rate_index, base, Q, max_condition, child_ptr, children, E1, E1c, tips,
+                         data_weighted, weights, coef, root_partial, grad, dlen, out):
     """``_TreatmentSpace.objective`` in one compiled call: branch value x from w, the
     transformed lengths, the rates exp(y) T / T', ``_evaluate_rates`` and the chain
     rule. Returns (status, lnL) with ``_evaluate_rates``' status; out = (-d lnL / dy,

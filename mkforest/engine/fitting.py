@@ -250,11 +250,11 @@ def starting_points(tree, tip_partials, model, n_starts: int = 5, seed: int = 0,
     return [next(starts) for _ in range(n_starts)], bounds
 
 
-# Relative ln L change per iteration below which the rates-first descent of the null
-# start stops: it only has to reach the basin, the joint descent polishes. On the
-# benchmark's data 1e-2 needed about 0.1-0.2 fewer evaluations per plain fit than
-# 1e-6 and left no more fits below the given lengths.
-RATES_FIRST_FTOL = 1e-2
+# ln L change per iteration (log-units, absolute) below which the rates-first descent
+# of the null start stops: it only has to reach the basin, the joint descent polishes.
+# It was 1e-2 relative to ln L: on a 400-tip tree (ln L -273) that stopped 12 log-units
+# short of the given lengths' optimum, and the joint descent then ended 0.3 below it.
+RATES_FIRST_DROP = 1e-2
 # The optimiser's unit of each branch value (w = 1 moves x by this much): a unit step
 # should change ln L about as much as a unit step of a log-rate. Chosen by measurement
 # (benchmarks/bench_treatment_fits.py: objective evaluations per fit on two sets of
@@ -307,7 +307,7 @@ class _TreatmentSpace:
             w = 0.0 if i == 0 else (float(rng.uniform(self.lo, self.hi)) - self.null) / self.s
             yield np.append(s, min(max(w, self.bounds[0]), self.bounds[1]))
 
-    def rates_first(self, z0, rate_bounds, ftol=RATES_FIRST_FTOL):
+    def rates_first(self, z0, rate_bounds, drop=RATES_FIRST_DROP):
         """z0 with its rates brought near their optimum at its own branch value (for the
         null start: the plain fit's first start on the given lengths, with a loose
         tolerance), where the joint descent then starts. From the parsimony guess the
@@ -325,7 +325,7 @@ class _TreatmentSpace:
                 return _IMPOSSIBLE, np.zeros(p)
             return -ll, -grad
 
-        _, y = _descend(objective, z0[:p], rate_bounds, ftol)
+        _, y = _descend(objective, z0[:p], rate_bounds, drop=drop)
         return np.append(y, z0[p])
 
     def _lengths(self, x):
@@ -549,7 +549,7 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
 SCALE_FIRST_STEP = True
 
 
-def _descend(objective, x0, bounds, ftol=1e-10, known=()):
+def _descend(objective, x0, bounds, ftol=1e-10, known=(), drop=None):
     """(lowest objective, its x): one L-BFGS-B run from x0.
 
     With every variable bounded, L-BFGS-B's first step is the whole (projected)
@@ -562,11 +562,17 @@ def _descend(objective, x0, bounds, ftol=1e-10, known=()):
     optimiser learns and do not depend on the scale. The gradient tolerance is
     divided alike, so the stopping rule is that of the unscaled objective.
 
+    drop: stop when an iteration lowers the objective by less than this (absolute,
+    about: L-BFGS-B's rule is relative, so ftol becomes drop / |objective at x0|)
+    instead of ``ftol``.
+
     known: (objective, x) of the fit's earlier starts. The run stops at an iterate
     within ``SAME_X`` of one of those optima in every coordinate and within
     ``SAME_F`` of its value: it has reached a basin whose optimum is known, and
     polishing it would only find that optimum again."""
     f0, g0 = objective(x0)
+    if drop is not None:
+        ftol = drop / max(abs(f0), 1.0)
     lo = np.array([b[0] for b in bounds])
     hi = np.array([b[1] for b in bounds])
     # the first step is the gradient projected on the box: a component pushing

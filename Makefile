@@ -1,20 +1,21 @@
 # Entry points for a fresh machine (Python 3.10+ with venv):
 #   make demo   set up .venv, generate the demo data, run the workflow, build the HTML report
 #   make test   set up .venv and run the test suite
+#   make lint   ruff, snakefmt and snakemake --lint (CI runs it)
 #   make run CONFIG=my_config.yaml   run the workflow on your own config (mkforest init writes one);
 #               PROFILE=slurm for a cluster, ARGS="..." for more snakemake options
 VENV ?= .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.mkforest-installed
 
-.PHONY: demo run test test-slow test-cluster setup bench clean-demo
+.PHONY: demo run test test-slow test-cluster setup bench clean-demo lint docs
 
 setup: $(STAMP)
 
 $(STAMP): pyproject.toml
 	python3 -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
-	$(BIN)/pip install --quiet -e '.[test,cluster]'
+	$(BIN)/pip install --quiet -e '.[test,cluster,lint,docs]'
 	$(BIN)/python -m mkforest.engine.warm
 	touch $(STAMP)
 
@@ -31,6 +32,13 @@ run: $(STAMP)
 
 test: $(STAMP)
 	$(BIN)/pytest -q
+
+# ruff (Python lint and format), snakefmt (rule files), snakemake --lint (the workflow)
+lint: $(STAMP)
+	$(BIN)/ruff check .
+	$(BIN)/ruff format --check .
+	$(BIN)/snakefmt --check Snakefile workflow/rules/
+	$(BIN)/snakemake --lint -n --quiet
 
 test-slow: $(STAMP)
 	$(BIN)/pytest -q -m slow

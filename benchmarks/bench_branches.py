@@ -63,16 +63,20 @@ def section_evaluation(rng, repeat, n_tips):
     for _ in range(10 * repeat):
         for name, fn in calls.items():
             best[name] = min(best[name], best_time(fn, 1, 50))
-    print(f"1. one evaluation of ln L + gradient, unconstrained 3 states, {n_tips} tips "
-          f"(minimum over {10 * repeat} alternating rounds of 50 calls)")
+    print(
+        f"1. one evaluation of ln L + gradient, unconstrained 3 states, {n_tips} tips "
+        f"(minimum over {10 * repeat} alternating rounds of 50 calls)"
+    )
     plain = best["as_given"]
     for name, t in best.items():
         print(f"   {name:<12} {1e6 * t:8.1f} us   x{t / plain:.2f}")
 
 
 def section_fits(rng, repeat, n_trees, n_tips):
-    print(f"2. whole fits, 3 states, {n_tips}-tip trees, mean over {n_trees} trees "
-          f"(minimum of {repeat} runs each)")
+    print(
+        f"2. whole fits, 3 states, {n_tips}-tip trees, mean over {n_trees} trees "
+        f"(minimum of {repeat} runs each)"
+    )
     truth = build_model("unconstrained", STATES)
     rates = rng.uniform(0.3, 1.5, truth.n_params)
     cases = [make_case(rng, n_tips, truth, rates, index=i) for i in range(n_trees)]
@@ -84,9 +88,14 @@ def section_fits(rng, repeat, n_trees, n_tips):
         for name in TREATMENTS:
             tr = Treatment(name)
             fit_model(*cases[0], model, seed=0, branches=tr)
-            times[name] = np.mean([best_time(lambda c=c: fit_model(*c, model, seed=c[0].index,
-                                                                     branches=tr), repeat)
-                                   for c in cases])
+            times[name] = np.mean(
+                [
+                    best_time(
+                        lambda c=c: fit_model(*c, model, seed=c[0].index, branches=tr), repeat
+                    )
+                    for c in cases
+                ]
+            )
         base = times["as_given"]
         cells = "".join(f"{1e3 * times[t]:8.1f}ms x{times[t] / base:4.2f} " for t in TREATMENTS)
         print(f"   {kind:<14}{cells}")

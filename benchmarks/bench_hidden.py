@@ -49,8 +49,12 @@ def best_cpu(fn, repeat, number=1):
 
 def two_speed_rates(model, slow=0.3, fast=3.0, switch=0.5):
     """Class 1 at ``slow``, class 2 at ``fast``, switching at ``switch`` (per tree height)."""
-    return np.array([slow if lab.endswith("@1") else fast if lab.endswith("@2") else switch
-                     for lab in model.labels])
+    return np.array(
+        [
+            slow if lab.endswith("@1") else fast if lab.endswith("@2") else switch
+            for lab in model.labels
+        ]
+    )
 
 
 def main(argv=None):
@@ -65,21 +69,28 @@ def main(argv=None):
     plain = build_model("symmetric", ("w", "x", "y", "z"))
     hidden = with_hidden_classes(plain, 2, "equal")
     rates = two_speed_rates(hidden)
-    X = tip_partials_from_states(simulate_states(tree, hidden.q_matrix(rates), rng) % 4,
-                                 tree.n_tips, 4)
-    for name, model, r in (("plain 4 states", plain, np.full(plain.n_params, 0.5)),
-                           ("2 classes, 8 states", hidden, rates)):
+    X = tip_partials_from_states(
+        simulate_states(tree, hidden.q_matrix(rates), rng) % 4, tree.n_tips, 4
+    )
+    for name, model, r in (
+        ("plain 4 states", plain, np.full(plain.n_params, 0.5)),
+        ("2 classes, 8 states", hidden, rates),
+    ):
         f = LogLikelihood(tree, X, model)
         f(r)
         log_likelihood_and_gradient(tree, f.tip_partials, model, r)
         t_ll = best_time(lambda: f(r), a.repeat, number=50)
         c_ll = best_cpu(lambda: f(r), a.repeat, number=50)
-        t_gr = best_time(lambda: log_likelihood_and_gradient(tree, f.tip_partials, model, r),
-                         a.repeat, number=20)
-        c_gr = best_cpu(lambda: log_likelihood_and_gradient(tree, f.tip_partials, model, r),
-                        a.repeat, number=20)
-        print(f"   {name:<20} lnL {t_ll * 1e6:7.1f} us wall, {c_ll * 1e6:7.1f} us CPU   "
-              f"lnL+gradient {t_gr * 1e6:7.1f} us wall, {c_gr * 1e6:7.1f} us CPU")
+        t_gr = best_time(
+            lambda: log_likelihood_and_gradient(tree, f.tip_partials, model, r), a.repeat, number=20
+        )
+        c_gr = best_cpu(
+            lambda: log_likelihood_and_gradient(tree, f.tip_partials, model, r), a.repeat, number=20
+        )
+        print(
+            f"   {name:<20} lnL {t_ll * 1e6:7.1f} us wall, {c_ll * 1e6:7.1f} us CPU   "
+            f"lnL+gradient {t_gr * 1e6:7.1f} us wall, {c_gr * 1e6:7.1f} us CPU"
+        )
 
     print("2. one fit on 200 tips, binary trait, 5 starts")
     tree = pure_birth_tree(rng, 200)
@@ -87,14 +98,18 @@ def main(argv=None):
     hidden = with_hidden_classes(base, 2, "equal")
     X = tip_partials_from_states(
         simulate_states(tree, hidden.q_matrix(two_speed_rates(hidden, 0.5, 8.0, 1.0)), rng) % 2,
-        tree.n_tips, 2)
+        tree.n_tips,
+        2,
+    )
     for name, model in (("plain", base), ("2 classes", hidden)):
         fit_model(tree, X, model, seed=1)
         t = best_time(lambda: fit_model(tree, X, model, seed=1), a.repeat)
         c = best_cpu(lambda: fit_model(tree, X, model, seed=1), a.repeat)
         res = fit_model(tree, X, model, seed=1)
-        print(f"   {name:<20} {t * 1e3:7.1f} ms wall, {c * 1e3:7.1f} ms CPU   lnL {res.log_likelihood:.3f}  "
-              f"converged {res.converged}  rates {np.round(res.rates, 3).tolist()}")
+        print(
+            f"   {name:<20} {t * 1e3:7.1f} ms wall, {c * 1e3:7.1f} ms CPU   lnL {res.log_likelihood:.3f}  "
+            f"converged {res.converged}  rates {np.round(res.rates, 3).tolist()}"
+        )
     print(f"load average (1 min) at the start: {load0:.2f}; ", end="")
     print(f"load average (1 min) at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
 

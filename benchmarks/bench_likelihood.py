@@ -72,8 +72,13 @@ def fit_finite_difference(tree, X, model, root="uniform", n_starts=5, seed=0):
 
     best = math.inf
     for x0 in starts:
-        res = minimize(objective, x0, method="L-BFGS-B", bounds=[(lo, hi)] * p,
-                       options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6})
+        res = minimize(
+            objective,
+            x0,
+            method="L-BFGS-B",
+            bounds=[(lo, hi)] * p,
+            options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6},
+        )
         best = min(best, res.fun)
     return -best
 
@@ -90,8 +95,10 @@ def cycle_rates(model, fast=2.0, slow=0.2):
 
 def section_evaluations(rng, repeat):
     print("1. one evaluation on 4 states, uniform root")
-    print(f"   {'model':<14} {'tips':>5} {'lnL':>10} {'lnL+grad':>10} {'ratio':>6} {'lnL+fwd diff':>13}"
-          "  eigenvalues")
+    print(
+        f"   {'model':<14} {'tips':>5} {'lnL':>10} {'lnL+grad':>10} {'ratio':>6} {'lnL+fwd diff':>13}"
+        "  eigenvalues"
+    )
     for kind in ("symmetric", "unconstrained"):
         model = build_model(kind, STATES4)
         rates = rng.uniform(0.3, 1.5, model.n_params) if kind == "symmetric" else cycle_rates(model)
@@ -104,11 +111,14 @@ def section_evaluations(rng, repeat):
             log_likelihood_and_gradient(tree, X, model, rates)
             number = 100 if n_tips <= 500 else 25
             t_ll = best_time(lambda: f(rates), 3 * repeat, number)
-            t_grad = best_time(lambda: log_likelihood_and_gradient(tree, X, model, rates),
-                               3 * repeat, number)
+            t_grad = best_time(
+                lambda: log_likelihood_and_gradient(tree, X, model, rates), 3 * repeat, number
+            )
             t_fd = t_ll * (model.n_params + 1)
-            print(f"   {kind:<14} {n_tips:>5} {1e3 * t_ll:8.3f}ms {1e3 * t_grad:8.3f}ms "
-                  f"{t_grad / t_ll:6.2f} {1e3 * t_fd:11.3f}ms  {shown}")
+            print(
+                f"   {kind:<14} {n_tips:>5} {1e3 * t_ll:8.3f}ms {1e3 * t_grad:8.3f}ms "
+                f"{t_grad / t_ll:6.2f} {1e3 * t_fd:11.3f}ms  {shown}"
+            )
 
 
 def section_fit(rng, repeat):
@@ -127,8 +137,10 @@ def section_fit(rng, repeat):
 
 
 def section_workflow(rng, repeat, n_trees):
-    print(f"3. fits on 200-tip trees (mean over {n_trees} trees, each the minimum of "
-          f"{repeat} runs), 5 starts, uniform root")
+    print(
+        f"3. fits on 200-tip trees (mean over {n_trees} trees, each the minimum of "
+        f"{repeat} runs), 5 starts, uniform root"
+    )
     total = 0.0
     for k in (3, 4):
         states = STATES4[:k]
@@ -139,15 +151,21 @@ def section_workflow(rng, repeat, n_trees):
         for kind in ("equal", "symmetric", "unconstrained"):
             model = build_model(kind, states)
             fit_model(*cases[0], model, seed=0)
-            secs = np.mean([best_time(lambda c=c: fit_model(*c, model, seed=c[0].index), repeat)
-                            for c in cases])
+            secs = np.mean(
+                [
+                    best_time(lambda c=c: fit_model(*c, model, seed=c[0].index), repeat)
+                    for c in cases
+                ]
+            )
             per_model.append(secs)
             print(f"   k={k} {kind:<14} {1e3 * secs:8.1f} ms per fit")
         total = max(total, sum(per_model))
     # 1,000 trees x 4 traits x (equal + symmetric + unconstrained), 2 processes
     est = 1000 * 4 * total / 2
-    print(f"   1,000 trees x 4 traits x 3 models on 2 cores (slower of k=3/k=4): "
-          f"about {est / 60:.1f} min of fitting")
+    print(
+        f"   1,000 trees x 4 traits x 3 models on 2 cores (slower of k=3/k=4): "
+        f"about {est / 60:.1f} min of fitting"
+    )
 
 
 def main():

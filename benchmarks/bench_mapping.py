@@ -121,13 +121,19 @@ def main():
         fit_times[m.kind] = (time.perf_counter() - t0) / n_fit
 
     n = len(trees)
-    print(f"workload: {n} trees x {args.tips} tips, 3 states, {args.maps} maps per tree "
-          f"(mean {changes / n:.1f} changes per map)")
+    print(
+        f"workload: {n} trees x {args.tips} tips, 3 states, {args.maps} maps per tree "
+        f"(mean {changes / n:.1f} changes per map)"
+    )
     print(f"making trees and data            {t_make:8.2f} s")
     print(f"numba compile / first call       {t_compile:8.2f} s")
-    print(f"marginal probabilities           {t_marg:8.2f} s total  {1e3 * t_marg / n:8.2f} ms per tree")
-    print(f"stochastic maps ({args.maps:>4} per tree)   {t_maps:8.2f} s total  "
-          f"{1e3 * t_maps / n:8.2f} ms per tree  {1e6 * t_maps / (n * args.maps):8.1f} us per map")
+    print(
+        f"marginal probabilities           {t_marg:8.2f} s total  {1e3 * t_marg / n:8.2f} ms per tree"
+    )
+    print(
+        f"stochastic maps ({args.maps:>4} per tree)   {t_maps:8.2f} s total  "
+        f"{1e3 * t_maps / n:8.2f} ms per tree  {1e6 * t_maps / (n * args.maps):8.1f} us per map"
+    )
     for kind, secs in fit_times.items():
         print(f"fit '{kind}' (mean of {n_fit} trees) {1e3 * secs:12.1f} ms per tree")
 

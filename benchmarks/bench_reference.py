@@ -39,8 +39,8 @@ from mkforest.engine.fitting import fit_model  # noqa: E402
 from mkforest.engine.models import build_model  # noqa: E402
 from mkforest.engine.simulate import simulate_states, tip_partials_from_states  # noqa: E402
 
-
 # ---- the reference: its own kernels, no mkforest code ---------------------------------
+
 
 @numba.njit(cache=True)
 def _prune_two_state(child_ptr, children, n_tips, length, tips, a, b):
@@ -115,16 +115,22 @@ def reference_fit(tree, tips, k, free, n_starts=3, seed=0):
         r = np.exp(x)
         if k == 2:
             a, b = (r[0], r[0]) if p == 1 else (r[0], r[1])
-            return _prune_two_state(tree.child_ptr, tree.children, tree.n_tips, tree.length,
-                                    tips, a, b)
+            return _prune_two_state(
+                tree.child_ptr, tree.children, tree.n_tips, tree.length, tips, a, b
+            )
         Q = np.zeros((k, k))
         Q[off] = r[0] if p == 1 else r
         np.fill_diagonal(Q, -Q.sum(axis=1))
         lam, V = np.linalg.eig(Q)
         Vinv = np.linalg.inv(V)
         P = ((V[None, :, :] * np.exp(np.outer(tree.length, lam))[:, None, :]) @ Vinv).real
-        return _prune_matrices(tree.child_ptr, tree.children, tree.n_tips,
-                               np.ascontiguousarray(np.maximum(P, 0.0)), tips)
+        return _prune_matrices(
+            tree.child_ptr,
+            tree.children,
+            tree.n_tips,
+            np.ascontiguousarray(np.maximum(P, 0.0)),
+            tips,
+        )
 
     def objective(x):
         ll = loglik(x)
@@ -135,13 +141,19 @@ def reference_fit(tree, tips, k, free, n_starts=3, seed=0):
     best = math.inf
     for i in range(n_starts):
         x0 = np.full(p, guess) if i == 0 else np.clip(guess + rng.normal(0, 1.5, p), lo + 1, hi - 1)
-        res = minimize(objective, x0, method="L-BFGS-B", bounds=[(lo, hi)] * p,
-                       options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6})
+        res = minimize(
+            objective,
+            x0,
+            method="L-BFGS-B",
+            bounds=[(lo, hi)] * p,
+            options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6},
+        )
         best = min(best, res.fun)
     return -best
 
 
 # ---- side by side ---------------------------------------------------------------------
+
 
 def cases(rng, n, n_tips, k):
     states = tuple("wxyz"[:k])
@@ -181,13 +193,19 @@ def side_by_side(label, states, data, kind, ref_starts):
     gap = np.array(ours["ll"]) - np.array(ref["ll"])
     print(f"{label} {kind}, {n} trees")
     for name, d in (("mkforest ", ours), ("reference", ref)):
-        print(f"  {name} {1e3 * d['cpu'] / n:7.2f} ms CPU per fit ({1e3 * d['wall'] / n:7.2f} wall), "
-              f"{d['starts'] / n:5.2f} starts, {1e3 * d['cpu'] / d['starts']:6.2f} ms CPU per start")
-    print(f"  ratio per fit (CPU) {ours['cpu'] / ref['cpu']:5.2f};  per start "
-          f"{(ours['cpu'] / ours['starts']) / (ref['cpu'] / ref['starts']):5.2f}")
-    print(f"  ln L mkforest - reference: min {gap.min():+.2e}, max {gap.max():+.2e} "
-          f"(trees where the reference is better by > 0.01: {(gap < -0.01).sum()}; "
-          f"mkforest better by > 0.01: {(gap > 0.01).sum()})")
+        print(
+            f"  {name} {1e3 * d['cpu'] / n:7.2f} ms CPU per fit ({1e3 * d['wall'] / n:7.2f} wall), "
+            f"{d['starts'] / n:5.2f} starts, {1e3 * d['cpu'] / d['starts']:6.2f} ms CPU per start"
+        )
+    print(
+        f"  ratio per fit (CPU) {ours['cpu'] / ref['cpu']:5.2f};  per start "
+        f"{(ours['cpu'] / ours['starts']) / (ref['cpu'] / ref['starts']):5.2f}"
+    )
+    print(
+        f"  ln L mkforest - reference: min {gap.min():+.2e}, max {gap.max():+.2e} "
+        f"(trees where the reference is better by > 0.01: {(gap < -0.01).sum()}; "
+        f"mkforest better by > 0.01: {(gap > 0.01).sum()})"
+    )
     return ours["cpu"], ref["cpu"]
 
 
@@ -198,7 +216,10 @@ def main():
     args = ap.parse_args()
     rng = np.random.default_rng(13)
     print(f"load average {os.getloadavg()[0]:.1f}")
-    for n_tips, k, kinds in ((150, 2, ("equal", "unconstrained")), (200, 4, ("equal", "unconstrained"))):
+    for n_tips, k, kinds in (
+        (150, 2, ("equal", "unconstrained")),
+        (200, 4, ("equal", "unconstrained")),
+    ):
         states, data = cases(rng, args.trees, n_tips, k)
         for kind in kinds:
             side_by_side(f"{n_tips} tips x {k} states", states, data, kind, args.reference_starts)

@@ -37,10 +37,14 @@ def main() -> int:
     data = work / "data"
     make_demo(data, n_tips=60, n_trees=args.trees, seed=3)
     config = {
-        "run": "bench200", "seed": 3,
+        "run": "bench200",
+        "seed": 3,
         "trees": {"file": str(data / "trees.nex"), "per_job": 50},
-        "traits": {"file": str(data / "traits.tsv"), "taxon_column": "taxon",
-                   "columns": ["glow", "habitat"]},
+        "traits": {
+            "file": str(data / "traits.tsv"),
+            "taxon_column": "taxon",
+            "columns": ["glow", "habitat"],
+        },
         "models": {"one_rate": {"kind": "equal"}, "free": {"kind": "unconstrained"}},
         "ancestral": {"enabled": False},
     }
@@ -53,14 +57,18 @@ def main() -> int:
         # out within the one-node test cluster's 2 cores
         slurm = run_workflow_on_slurm(cfg, work / "slurm", timeout=2400, cluster=cluster)
     submissions = slurm.log.read_text().count("has been submitted with SLURM jobid")
-    print(f"SLURM profile: exit {slurm.returncode}, {slurm.seconds:.0f} s, "
-          f"{submissions} SLURM submissions")
+    print(
+        f"SLURM profile: exit {slurm.returncode}, {slurm.seconds:.0f} s, "
+        f"{submissions} SLURM submissions"
+    )
     a = work / "local" / "results" / "bench200" / "tables"
     b = work / "slurm" / "results" / "bench200" / "tables"
     names = sorted(p.name for p in a.glob("*.tsv"))
     same = [n for n in names if (b / n).exists() and (a / n).read_bytes() == (b / n).read_bytes()]
-    print(f"tables identical: {len(same)} of {len(names)}"
-          + ("" if len(same) == len(names) else f" (differ: {sorted(set(names) - set(same))})"))
+    print(
+        f"tables identical: {len(same)} of {len(names)}"
+        + ("" if len(same) == len(names) else f" (differ: {sorted(set(names) - set(same))})")
+    )
     return 0 if local.returncode == 0 and slurm.returncode == 0 and len(same) == len(names) else 1
 
 

@@ -40,8 +40,10 @@ from mkforest.engine.models import build_model  # noqa: E402
 from mkforest.engine.simulate import simulate_states, tip_partials_from_states  # noqa: E402
 
 TREATMENTS = ("as_given", "unit", *ESTIMABLE)
-SHAPES = {"150 tips x 2 states": (150, ("p", "q"), ("equal", "unconstrained"), 1.0),
-          "200 tips x 4 states": (200, ("w", "x", "y", "z"), ("equal", "symmetric"), 0.7)}
+SHAPES = {
+    "150 tips x 2 states": (150, ("p", "q"), ("equal", "unconstrained"), 1.0),
+    "200 tips x 4 states": (200, ("w", "x", "y", "z"), ("equal", "symmetric"), 0.7),
+}
 # data simulated on the given lengths, or on unit lengths (rate per branch)
 SCENARIOS = {"null": (Treatment(), 1.0), "unit": (Treatment("unit"), 0.15)}
 
@@ -104,8 +106,10 @@ def measure(cases, model, repeat):
                 row = out.setdefault(name, [[0] * n, [0] * n, [0] * n, [0.0] * n])
                 row[0][i], row[1][i] = _calls[0], res.n_starts
                 row[2][i], row[3][i] = int(not res.converged), res.log_likelihood
-    return {name: (float(best[name].sum()), sum(c), sum(st), sum(fl), list(ll))
-            for name, (c, st, fl, ll) in out.items()}
+    return {
+        name: (float(best[name].sum()), sum(c), sum(st), sum(fl), list(ll))
+        for name, (c, st, fl, ll) in out.items()
+    }
 
 
 def main():
@@ -113,21 +117,28 @@ def main():
     ap.add_argument("--sets", type=int, default=10)
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--seed", type=int, default=14)
-    ap.add_argument("--shape", choices=list(SHAPES), action="append",
-                    help="only this shape (repeatable; default both)")
+    ap.add_argument(
+        "--shape",
+        choices=list(SHAPES),
+        action="append",
+        help="only this shape (repeatable; default both)",
+    )
     args = ap.parse_args()
     warm = data_sets(0, 1, 20, ("p", "q"), Treatment(), 1.0)
     for name in TREATMENTS:
         fit_model(*warm[0][:2], build_model("equal", ("p", "q")), branches=Treatment(name))
     ratios = {name: [] for name in TREATMENTS}
     per_fit = {}  # (shape, scenario, model) -> as_given CPU per fit
-    print(f"CPU ms per fit (minimum of {args.repeat} rounds), ratio to as_given, objective "
-          f"evaluations and starts per fit, fits not converged; {args.sets} data sets each")
+    print(
+        f"CPU ms per fit (minimum of {args.repeat} rounds), ratio to as_given, objective "
+        f"evaluations and starts per fit, fits not converged; {args.sets} data sets each"
+    )
     for shape in args.shape or SHAPES:
         n_tips, states, kinds, _ = SHAPES[shape]
         for scenario, (truth, scale) in SCENARIOS.items():
-            cases = data_sets([args.seed, n_tips, len(scenario)], args.sets, n_tips, states,
-                              truth, scale)
+            cases = data_sets(
+                [args.seed, n_tips, len(scenario)], args.sets, n_tips, states, truth, scale
+            )
             for kind in kinds:
                 model = build_model(kind, states)
                 print(f"{shape}, {kind}, data simulated on {scenario} lengths")
@@ -139,26 +150,35 @@ def main():
                     ratios[name].append((cpu / base, calls / base_calls))
                     gaps = [b - a for a, b in zip(lnl, ref) if a < b - 1e-6]
                     n = len(cases)
-                    print(f"   {name:<12} {1e3 * cpu / n:8.1f} ms  x{cpu / base:5.2f}  "
-                          f"{calls / n:6.1f} evals  {starts / n:4.1f} starts  "
-                          f"{flagged} not converged  mean lnL {np.mean(lnl):10.3f}"
-                          + (f"  ({len(gaps)} below as_given, by up to {max(gaps):.2g})"
-                             if name in ESTIMABLE and gaps else ""))
+                    print(
+                        f"   {name:<12} {1e3 * cpu / n:8.1f} ms  x{cpu / base:5.2f}  "
+                        f"{calls / n:6.1f} evals  {starts / n:4.1f} starts  "
+                        f"{flagged} not converged  mean lnL {np.mean(lnl):10.3f}"
+                        + (
+                            f"  ({len(gaps)} below as_given, by up to {max(gaps):.2g})"
+                            if name in ESTIMABLE and gaps
+                            else ""
+                        )
+                    )
     print("geometric mean over the blocks above: CPU ratio to as_given, evaluations ratio")
     for name, r in ratios.items():
         cpu, ev = np.exp(np.mean(np.log(np.array(r)), axis=0))
         print(f"   {name:<12} x{cpu:5.2f} CPU   x{ev:5.2f} evaluations")
     # the same measure for one more free rate instead of a branch parameter: the 2-state
     # model with a rate per direction against the one with one rate, on the same data
-    pairs = [(per_fit[sh, sc, "unconstrained"], per_fit[sh, sc, "equal"])
-             for (sh, sc, kind) in per_fit if kind == "equal" and (sh, sc, "unconstrained")
-             in per_fit]
+    pairs = [
+        (per_fit[sh, sc, "unconstrained"], per_fit[sh, sc, "equal"])
+        for (sh, sc, kind) in per_fit
+        if kind == "equal" and (sh, sc, "unconstrained") in per_fit
+    ]
     if pairs:
         r = np.array([(a[0] / b[0], a[1] / b[1]) for a, b in pairs])
         cpu, ev = np.exp(np.mean(np.log(r), axis=0))
-        print("for comparison, one more free rate instead (2 states: unconstrained against "
-              f"equal, given lengths):\n   {'2nd rate':<12} x{cpu:5.2f} CPU   x{ev:5.2f} "
-              "evaluations")
+        print(
+            "for comparison, one more free rate instead (2 states: unconstrained against "
+            f"equal, given lengths):\n   {'2nd rate':<12} x{cpu:5.2f} CPU   x{ev:5.2f} "
+            "evaluations"
+        )
 
 
 if __name__ == "__main__":

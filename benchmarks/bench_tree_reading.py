@@ -31,15 +31,22 @@ def timed(fn):
 
 
 def same(a, b) -> bool:
-    return all(x.tip_labels == y.tip_labels and x.parent.tobytes() == y.parent.tobytes()
-               and x.length.tobytes() == y.length.tobytes() for x, y in zip(a, b)) \
-        and len(a) == len(b)
+    return all(
+        x.tip_labels == y.tip_labels
+        and x.parent.tobytes() == y.parent.tobytes()
+        and x.length.tobytes() == y.length.tobytes()
+        for x, y in zip(a, b)
+    ) and len(a) == len(b)
 
 
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", nargs="+", default=["500x150", "1000x200"],
-                    help="trees x tips of each demo sample")
+    ap.add_argument(
+        "--sizes",
+        nargs="+",
+        default=["500x150", "1000x200"],
+        help="trees x tips of each demo sample",
+    )
     ap.add_argument("--runs", type=int, default=5)
     ap.add_argument("--workdir", default="/tmp/mkforest-bench-trees")
     args = ap.parse_args()
@@ -59,13 +66,19 @@ def main() -> int:
                 return 1
             rows["dendropy"].append((w1, c1))
             rows["fast"].append((w2, c2))
-        med = {k: (statistics.median(w for w, _ in v), statistics.median(c for _, c in v))
-               for k, v in rows.items()}
-        print(f"{n_trees} trees x {n_tips} tips ({path.stat().st_size / 1e6:.1f} MB), "
-              f"median of {args.runs}: "
-              + "; ".join(f"{k} {w:.2f} s wall, {c:.2f} s CPU = {c / million:.1f} s CPU per "
-                          f"million tree-tips" for k, (w, c) in med.items())
-              + f"; fast path {med['dendropy'][1] / med['fast'][1]:.1f}x less CPU")
+        med = {
+            k: (statistics.median(w for w, _ in v), statistics.median(c for _, c in v))
+            for k, v in rows.items()
+        }
+        print(
+            f"{n_trees} trees x {n_tips} tips ({path.stat().st_size / 1e6:.1f} MB), "
+            f"median of {args.runs}: "
+            + "; ".join(
+                f"{k} {w:.2f} s wall, {c:.2f} s CPU = {c / million:.1f} s CPU per million tree-tips"
+                for k, (w, c) in med.items()
+            )
+            + f"; fast path {med['dendropy'][1] / med['fast'][1]:.1f}x less CPU"
+        )
     return 0
 
 

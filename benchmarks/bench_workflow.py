@@ -42,8 +42,12 @@ def main() -> int:
     ap.add_argument("--tips", type=int, default=200)
     ap.add_argument("--per-job", default="auto", help="a number, or auto")
     ap.add_argument("--traits", nargs="+", default=["habitat", "size", "banding", "glow"])
-    ap.add_argument("--models", nargs="+", default=["equal", "symmetric", "unconstrained"],
-                    help="built-in kinds, one model each")
+    ap.add_argument(
+        "--models",
+        nargs="+",
+        default=["equal", "symmetric", "unconstrained"],
+        help="built-in kinds, one model each",
+    )
     ap.add_argument("--runs", type=int, default=1)
     ap.add_argument("--cores", type=int, default=2)
     ap.add_argument("--ancestral", action="store_true", help="also run ancestral states and maps")
@@ -61,11 +65,17 @@ def main() -> int:
         stamp.touch()
         print(f"data generated in {time.perf_counter() - t0:.1f} s")
     config = {
-        "run": "bench", "seed": 5,
-        "trees": {"file": str(data / "trees.nex"),
-                  "per_job": args.per_job if args.per_job == "auto" else int(args.per_job)},
-        "traits": {"file": str(data / "traits.tsv"), "taxon_column": "taxon",
-                   "columns": args.traits},
+        "run": "bench",
+        "seed": 5,
+        "trees": {
+            "file": str(data / "trees.nex"),
+            "per_job": args.per_job if args.per_job == "auto" else int(args.per_job),
+        },
+        "traits": {
+            "file": str(data / "traits.tsv"),
+            "taxon_column": "taxon",
+            "columns": args.traits,
+        },
         "models": {kind: {"kind": kind} for kind in args.models},
         "ancestral": {"enabled": bool(args.ancestral)},
     }
@@ -74,21 +84,38 @@ def main() -> int:
     runs = [one_run(args, work, cfg) for _ in range(args.runs)]
     if any(r is None for r in runs):
         return 1
-    print(f"{args.trees} trees x {args.tips} tips x {len(args.traits)} traits x "
-          f"{len(args.models)} models, per_job {args.per_job}, {args.cores} cores")
-    keys = ["wall", "cpu", "load", "fit_seconds", "fit_cpu", "outside", "outside_cpu", "jobs",
-            "fit_jobs"]
+    print(
+        f"{args.trees} trees x {args.tips} tips x {len(args.traits)} traits x "
+        f"{len(args.models)} models, per_job {args.per_job}, {args.cores} cores"
+    )
+    keys = [
+        "wall",
+        "cpu",
+        "load",
+        "fit_seconds",
+        "fit_cpu",
+        "outside",
+        "outside_cpu",
+        "jobs",
+        "fit_jobs",
+    ]
     for i, r in enumerate(runs):
-        print(f"run {i + 1}: " + ", ".join(f"{k} {r[k]:.1f}" for k in keys)
-              + "; CPU by stage (s) " + ", ".join(f"{k} {v:.1f}" for k, v in sorted(r["stages"].items()))
-              + "; peak memory by stage (MB) "
-              + ", ".join(f"{k} {v:.0f}" for k, v in sorted(r["peaks"].items())))
+        print(
+            f"run {i + 1}: "
+            + ", ".join(f"{k} {r[k]:.1f}" for k in keys)
+            + "; CPU by stage (s) "
+            + ", ".join(f"{k} {v:.1f}" for k, v in sorted(r["stages"].items()))
+            + "; peak memory by stage (MB) "
+            + ", ".join(f"{k} {v:.0f}" for k, v in sorted(r["peaks"].items()))
+        )
     med = {k: statistics.median(r[k] for r in runs) for k in keys}
-    print(f"median of {len(runs)}: wall {med['wall']:.1f} s, CPU {med['cpu']:.1f} s, "
-          f"fitting {med['fit_seconds']:.1f} s summed over {med['fit_jobs']:.0f} fit jobs "
-          f"({med['jobs']:.0f} jobs), outside fitting {100 * med['outside']:.0f}% of the wall "
-          f"time; fitting CPU {med['fit_cpu']:.1f} s, outside fitting {100 * med['outside_cpu']:.0f}%"
-          f" of the CPU time; load average {med['load']:.1f}")
+    print(
+        f"median of {len(runs)}: wall {med['wall']:.1f} s, CPU {med['cpu']:.1f} s, "
+        f"fitting {med['fit_seconds']:.1f} s summed over {med['fit_jobs']:.0f} fit jobs "
+        f"({med['jobs']:.0f} jobs), outside fitting {100 * med['outside']:.0f}% of the wall "
+        f"time; fitting CPU {med['fit_cpu']:.1f} s, outside fitting {100 * med['outside_cpu']:.0f}%"
+        f" of the CPU time; load average {med['load']:.1f}"
+    )
     return 0
 
 
@@ -97,8 +124,19 @@ def one_run(args, work, cfg):
     if results.exists():
         subprocess.run(["rm", "-rf", str(results), str(work / ".snakemake")], check=True)
     snakemake = str(Path(sys.executable).with_name("snakemake"))
-    cmd = [snakemake, "--snakefile", str(REPO / "Snakefile"), "--directory", str(work),
-           "--configfile", str(cfg), "--cores", str(args.cores), "--quiet", "all"]
+    cmd = [
+        snakemake,
+        "--snakefile",
+        str(REPO / "Snakefile"),
+        "--directory",
+        str(work),
+        "--configfile",
+        str(cfg),
+        "--cores",
+        str(args.cores),
+        "--quiet",
+        "all",
+    ]
     if args.profile:
         cmd += ["--profile", str(REPO / "profiles" / args.profile)]
     cmd += args.snakemake_args.split()
@@ -132,10 +170,21 @@ def one_run(args, work, cfg):
         if m:
             peaks[key] = max(peaks.get(key, 0.0), float(m.group(1)))
     outside = max(0.0, 1.0 - (fit_seconds / args.cores) / wall)
-    return {"wall": wall, "cpu": cpu, "load": load, "fit_seconds": fit_seconds, "fit_cpu": fit_cpu,
-            "outside": outside, "outside_cpu": 1.0 - fit_cpu / cpu, "jobs": len(logs),
-            "fit_jobs": len(fit_logs), "stages": stages,
-            "peak_mb": max(peaks.values(), default=float("nan")), "peaks": peaks}
+    return {
+        "wall": wall,
+        "cpu": cpu,
+        "load": load,
+        "fit_seconds": fit_seconds,
+        "fit_cpu": fit_cpu,
+        "outside": outside,
+        "outside_cpu": 1.0 - fit_cpu / cpu,
+        "jobs": len(logs),
+        "fit_jobs": len(fit_logs),
+        "stages": stages,
+        "peak_mb": max(peaks.values(), default=float("nan")),
+        "peaks": peaks,
+    }
+
 
 if __name__ == "__main__":
     sys.exit(main())

@@ -37,8 +37,12 @@ from mkforest.engine.fitting import fit_model  # noqa: E402
 from mkforest.engine.models import build_model  # noqa: E402
 from mkforest.engine.simulate import simulate_states, tip_partials_from_states  # noqa: E402
 
-CANDIDATES = {"as_given": Treatment(), "unit": Treatment("unit"), "kappa": Treatment("kappa"),
-              "early_burst": Treatment("early_burst")}
+CANDIDATES = {
+    "as_given": Treatment(),
+    "unit": Treatment("unit"),
+    "kappa": Treatment("kappa"),
+    "early_burst": Treatment("early_burst"),
+}
 SCENARIOS = {
     "speciational (kappa = 0)": ("unit", Treatment("kappa", 0.0), 0.3),
     "early burst (a H = -10)": ("early_burst", Treatment("early_burst", -10.0), 10.0),
@@ -53,10 +57,13 @@ def one_data_set(rng, n_tips, truth: Treatment, rate, seed):
     X = tip_partials_from_states(states, tree.n_tips, 2)
     if len(set(states[: tree.n_tips])) < 2:
         return None
-    fits = {name: fit_model(tree, X, model, seed=seed, branches=t)
-            for name, t in CANDIDATES.items()}
-    aicc = [information_criteria(f.log_likelihood, f.n_params, tree.n_tips)["aicc"]
-            for f in fits.values()]
+    fits = {
+        name: fit_model(tree, X, model, seed=seed, branches=t) for name, t in CANDIDATES.items()
+    }
+    aicc = [
+        information_criteria(f.log_likelihood, f.n_params, tree.n_tips)["aicc"]
+        for f in fits.values()
+    ]
     return dict(zip(fits, akaike_weights(aicc))), {n: f.branch_parameter for n, f in fits.items()}
 
 
@@ -83,15 +90,21 @@ def main():
             if expected == "unit":
                 together += (w["unit"] + w["kappa"]) > 0.5
         n = args.sets - skipped
-        print(f"{label}: {args.tips} tips, {n} data sets ({skipped} without variation skipped), "
-              f"{time.perf_counter() - start:.0f} s")
-        print(f"   largest weight: " + ", ".join(f"{k} {v}" for k, v in sorted(wins.items())))
-        print(f"   true treatment '{expected}' best on {wins.get(expected, 0)} of {n}; median "
-              f"weight {np.median(weights):.2f}; median estimate "
-              + (f"of a {np.median(estimates):.3g} per unit of tree height"
-                 if expected == "early_burst" else
-                 f"of kappa {np.median(estimates):.3g}; unit + kappa weight above 0.5 on "
-                 f"{together} of {n}"))
+        print(
+            f"{label}: {args.tips} tips, {n} data sets ({skipped} without variation skipped), "
+            f"{time.perf_counter() - start:.0f} s"
+        )
+        print("   largest weight: " + ", ".join(f"{k} {v}" for k, v in sorted(wins.items())))
+        print(
+            f"   true treatment '{expected}' best on {wins.get(expected, 0)} of {n}; median "
+            f"weight {np.median(weights):.2f}; median estimate "
+            + (
+                f"of a {np.median(estimates):.3g} per unit of tree height"
+                if expected == "early_burst"
+                else f"of kappa {np.median(estimates):.3g}; unit + kappa weight above 0.5 on "
+                f"{together} of {n}"
+            )
+        )
 
 
 if __name__ == "__main__":

@@ -50,8 +50,9 @@ def record_starts(config: dict, n_starts: int) -> list:
     kept = select_trees(len(trees), tcfg["burnin"], tcfg["thin"], tcfg["sample"], config["seed"])
     trees = [trees[i] for i in kept]
     c = config["traits"]
-    traits = read_traits(c["file"], c["taxon_column"], c["columns"], c["missing"], c["separator"],
-                         c["order"])
+    traits = read_traits(
+        c["file"], c["taxon_column"], c["columns"], c["missing"], c["separator"], c["order"]
+    )
     out = []
     for analysis in analyses(config):
         trait, models = analysis_setup(config, analysis, traits)
@@ -60,11 +61,20 @@ def record_starts(config: dict, n_starts: int) -> list:
         for name, (model, root) in models.items():
             for tree in trees:
                 X = trait.tip_partials(tree, absent=c["absent_taxa"])
-                fit = fit_model(tree, X, model, root, n_starts=n_starts, max_starts=n_starts,
-                                seed=derive_seed(config["seed"], tree.index, analysis, name),
-                                lower=config["fitting"]["lower"], upper=config["fitting"]["upper"])
-                out.append((analysis, name, tree.index, list(fit.start_log_likelihoods),
-                            model.n_params))
+                fit = fit_model(
+                    tree,
+                    X,
+                    model,
+                    root,
+                    n_starts=n_starts,
+                    max_starts=n_starts,
+                    seed=derive_seed(config["seed"], tree.index, analysis, name),
+                    lower=config["fitting"]["lower"],
+                    upper=config["fitting"]["upper"],
+                )
+                out.append(
+                    (analysis, name, tree.index, list(fit.start_log_likelihoods), model.n_params)
+                )
     return out
 
 
@@ -88,11 +98,17 @@ def policy(lls: list, least: int, most: int, n_params: int = 0) -> tuple:
 def report(records: list, label: str, n_starts: int) -> None:
     n = len(records)
     print(f"\n{label}: {n} fits, {n_starts} starts recorded per fit")
-    print(f"  {'policy':<16} {'flagged':>14} {'starts/fit':>10} {'poorer optimum':>15}"
-          f" {'differs from fixed 5':>21}")
-    rules = [("fixed 5", 5, 5, False), ("adaptive 2..20", 2, 20, False),
-             ("adaptive 3..20", 3, 20, False), ("adaptive 5..20", 5, 20, False),
-             ("fit_model 2..20", 2, 20, True)]
+    print(
+        f"  {'policy':<16} {'flagged':>14} {'starts/fit':>10} {'poorer optimum':>15}"
+        f" {'differs from fixed 5':>21}"
+    )
+    rules = [
+        ("fixed 5", 5, 5, False),
+        ("adaptive 2..20", 2, 20, False),
+        ("adaptive 3..20", 3, 20, False),
+        ("adaptive 5..20", 5, 20, False),
+        ("fit_model 2..20", 2, 20, True),
+    ]
     old = [policy(r[3], 5, 5)[0] for r in records]
     for name, least, most, by_rates in rules:
         if most > n_starts:
@@ -100,11 +116,16 @@ def report(records: list, label: str, n_starts: int) -> None:
         res = [policy(r[3], least, most, r[4] if by_rates else 0) for r in records]
         flagged = sum(1 for r in res if r[2])
         starts = np.mean([r[1] for r in res])
-        poorer = sum(1 for r, rec in zip(res, records)
-                     if np.isfinite(r[0]) and max(rec[3]) - r[0] > AGREE_TOL)
+        poorer = sum(
+            1
+            for r, rec in zip(res, records)
+            if np.isfinite(r[0]) and max(rec[3]) - r[0] > AGREE_TOL
+        )
         differs = sum(1 for r, o in zip(res, old) if np.isfinite(o) and abs(r[0] - o) > AGREE_TOL)
-        print(f"  {name:<16} {flagged:6d} ({100 * flagged / n:4.2f}%) {starts:10.2f} "
-              f"{poorer:15d} {differs:21d}")
+        print(
+            f"  {name:<16} {flagged:6d} ({100 * flagged / n:4.2f}%) {starts:10.2f} "
+            f"{poorer:15d} {differs:21d}"
+        )
     by_model = {}
     for rec in records:
         key = f"{rec[0]}/{rec[1]} ({rec[4]} rates)"
@@ -114,8 +135,10 @@ def report(records: list, label: str, n_starts: int) -> None:
         row[1] += policy(rec[3], 2, most_starts(n_starts), rec[4])[2]
         row[2] += best - policy(rec[3], 2, most_starts(n_starts), rec[4])[0] > AGREE_TOL
         row[3] += best - policy(rec[3], 5, 5)[0] > AGREE_TOL
-    print("  by analysis/model: fits, flagged (fit_model 2..20), poorer optimum (fit_model 2..20), "
-          "poorer optimum (fixed 5)")
+    print(
+        "  by analysis/model: fits, flagged (fit_model 2..20), poorer optimum (fit_model 2..20), "
+        "poorer optimum (fixed 5)"
+    )
     for key, row in sorted(by_model.items()):
         if any(row[1:]):
             print(f"    {key:<48} {row[0]:5d} {row[1]:4d} {row[2]:4d} {row[3]:4d}")
@@ -128,16 +151,23 @@ def most_starts(n_starts):
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--starts", type=int, default=20)
-    ap.add_argument("--seeds", type=int, nargs="+", default=[2026, 7],
-                    help="demo-data seeds (2026 is the demo itself)")
+    ap.add_argument(
+        "--seeds",
+        type=int,
+        nargs="+",
+        default=[2026, 7],
+        help="demo-data seeds (2026 is the demo itself)",
+    )
     ap.add_argument("--config", default=str(REPO / "config" / "config.yaml"))
     ap.add_argument("--save", help="write the records of every seed to this JSON file")
     ap.add_argument("--load", help="read records from a JSON file written by --save")
     args = ap.parse_args()
     if args.load:
         for label, records in json.loads(Path(args.load).read_text()).items():
-            records = [(a, m, t, [-np.inf if x is None else x for x in lls], p)
-                       for a, m, t, lls, p in records]
+            records = [
+                (a, m, t, [-np.inf if x is None else x for x in lls], p)
+                for a, m, t, lls, p in records
+            ]
             report(records, label, len(records[0][3]))
         return 0
     saved = {}
@@ -152,8 +182,10 @@ def main() -> int:
             cpu = time.process_time() - t0
         label = "demo data" if seed == 2026 else f"simulated like the demo (seed {seed})"
         report(records, f"{label}, {cpu:.0f} s CPU", args.starts)
-        saved[label] = [(a, m, t, [x if np.isfinite(x) else None for x in lls], p)
-                        for a, m, t, lls, p in records]
+        saved[label] = [
+            (a, m, t, [x if np.isfinite(x) else None for x in lls], p)
+            for a, m, t, lls, p in records
+        ]
         if args.save:
             Path(args.save).write_text(json.dumps(saved))
     return 0

@@ -25,46 +25,77 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="mkforest", description="Write a starting config, archive and verify "
-                "mkforest runs. The analysis itself runs as a Snakemake workflow: "
-                "make run CONFIG=my_config.yaml")
+    p = _Parser(
+        prog="mkforest",
+        description="Write a starting config, archive and verify "
+        "mkforest runs. The analysis itself runs as a Snakemake workflow: "
+        "make run CONFIG=my_config.yaml",
+    )
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
-    i = sub.add_parser("init", help="write a commented starting config for your trees and traits",
-                       description="Read your tree file and trait table, describe them, and write "
-                       "a commented config that runs as written; print the command to run it.")
+    i = sub.add_parser(
+        "init",
+        help="write a commented starting config for your trees and traits",
+        description="Read your tree file and trait table, describe them, and write "
+        "a commented config that runs as written; print the command to run it.",
+    )
     i.add_argument("--trees", required=True, metavar="FILE", help="Newick or NEXUS tree file")
     i.add_argument("--traits", required=True, metavar="FILE", help="CSV or TSV trait table")
-    i.add_argument("--taxon-column", metavar="NAME",
-                   help="the table's taxon column (default: 'taxon', else the column whose "
-                        "values match the most tree tips)")
-    i.add_argument("--output", default="my_config.yaml", metavar="PATH",
-                   help="config file to write (default: my_config.yaml); its name is the run's")
+    i.add_argument(
+        "--taxon-column",
+        metavar="NAME",
+        help="the table's taxon column (default: 'taxon', else the column whose "
+        "values match the most tree tips)",
+    )
+    i.add_argument(
+        "--output",
+        default="my_config.yaml",
+        metavar="PATH",
+        help="config file to write (default: my_config.yaml); its name is the run's",
+    )
     i.add_argument("--force", action="store_true", help="replace the output file if it exists")
-    a = sub.add_parser("archive", help="pack a finished run with its inputs, config and manifest",
-                       description="Pack results/<run> with its inputs, config and manifest into "
-                       "<run>-archive.tar.gz, and write its SHA-256 and a CITATION.cff beside it.")
+    a = sub.add_parser(
+        "archive",
+        help="pack a finished run with its inputs, config and manifest",
+        description="Pack results/<run> with its inputs, config and manifest into "
+        "<run>-archive.tar.gz, and write its SHA-256 and a CITATION.cff beside it.",
+    )
     a.add_argument("run_folder", help="a finished run folder, results/<run>")
-    a.add_argument("--author", action="append", default=[], metavar="NAME",
-                   help="an author for CITATION.cff, 'Family, Given' (repeat for several)")
+    a.add_argument(
+        "--author",
+        action="append",
+        default=[],
+        metavar="NAME",
+        help="an author for CITATION.cff, 'Family, Given' (repeat for several)",
+    )
     a.add_argument("--title", help="title for CITATION.cff (default: made from the run)")
-    a.add_argument("--output", metavar="DIR",
-                   help="folder for the archive, its .sha256 and CITATION.cff "
-                        "(default: archives/<run> beside results/)")
-    v = sub.add_parser("verify", help="recheck every checksum of an archive or run folder",
-                       description="Recheck every checksum of an archive (.tar.gz), an unpacked "
-                       "archive or a run folder, and name each changed, missing or extra file.")
+    a.add_argument(
+        "--output",
+        metavar="DIR",
+        help="folder for the archive, its .sha256 and CITATION.cff "
+        "(default: archives/<run> beside results/)",
+    )
+    v = sub.add_parser(
+        "verify",
+        help="recheck every checksum of an archive or run folder",
+        description="Recheck every checksum of an archive (.tar.gz), an unpacked "
+        "archive or a run folder, and name each changed, missing or extra file.",
+    )
     v.add_argument("path", help="archive .tar.gz, unpacked archive folder, or results/<run>")
-    v.add_argument("--against", metavar="MANIFEST",
-                   help="compare the run folder's results with another run's manifest.json "
-                        "(a rerun with the original)")
+    v.add_argument(
+        "--against",
+        metavar="MANIFEST",
+        help="compare the run folder's results with another run's manifest.json "
+        "(a rerun with the original)",
+    )
     return p
 
 
 def _init(args) -> int:
     from .starter import write_starter
 
-    starter, command = write_starter(args.trees, args.traits, args.taxon_column, args.output,
-                                     args.force)
+    starter, command = write_starter(
+        args.trees, args.traits, args.taxon_column, args.output, args.force
+    )
     print("\n".join(starter.summary))
     print(f"wrote   {args.output} (run: {starter.run}); read its comments, then run:")
     print(command)
@@ -102,8 +133,9 @@ def main(argv=None) -> int:
         return 2
     except OSError as exc:
         where = f" '{exc.filename}'" if exc.filename else ""
-        print(f"mkforest: error: cannot read or write{where}: {exc.strerror or exc}.",
-              file=sys.stderr)
+        print(
+            f"mkforest: error: cannot read or write{where}: {exc.strerror or exc}.", file=sys.stderr
+        )
         return 2
 
 

@@ -26,10 +26,10 @@ from .data.trees import looks_unrooted, parse_tree_file
 from .errors import InputError, did_you_mean
 
 REPO = Path(__file__).resolve().parents[1]
-WIDTH = 92              # comment lines wrap here
-MAX_STATES = 8          # more distinct values than this: a label or a measurement, not a trait
+WIDTH = 92  # comment lines wrap here
+MAX_STATES = 8  # more distinct values than this: a label or a measurement, not a trait
 UNCONSTRAINED_MAX_STATES = 4
-ULTRAMETRIC_TOLERANCE = 1e-3   # relative spread of root-to-tip distances
+ULTRAMETRIC_TOLERANCE = 1e-3  # relative spread of root-to-tip distances
 # Cell texts that usually mean "unknown" besides the defaults (case as written).
 MISSING_LOOKALIKES = ("N/A", "n/a", "na", "NaN", "nan", "unknown", "Unknown", "missing", "??")
 
@@ -37,12 +37,12 @@ MISSING_LOOKALIKES = ("N/A", "n/a", "na", "NaN", "nan", "unknown", "Unknown", "m
 @dataclass
 class TreeSurvey:
     n_trees: int
-    tips: tuple                       # tip labels of the first tree
-    unrooted: list = field(default_factory=list)        # positions (0-based)
+    tips: tuple  # tip labels of the first tree
+    unrooted: list = field(default_factory=list)  # positions (0-based)
     without_lengths: list = field(default_factory=list)
     not_ultrametric: list = field(default_factory=list)
-    other_tips: list = field(default_factory=list)      # trees whose tips differ from the first
-    zero_length: list = field(default_factory=list)     # trees with a branch of length 0
+    other_tips: list = field(default_factory=list)  # trees whose tips differ from the first
+    zero_length: list = field(default_factory=list)  # trees with a branch of length 0
 
 
 def survey_trees(path) -> TreeSurvey:
@@ -97,14 +97,18 @@ def choose_taxon_column(path: Path, tips: tuple, asked: str | None) -> str:
     header, rows = _read_table(path)
     if asked is not None:
         if asked not in header:
-            raise InputError(f"trait table '{path}', line 1: no column '{asked}' (--taxon-column); "
-                             f"columns are: {', '.join(header)}.{did_you_mean(asked, header)}")
+            raise InputError(
+                f"trait table '{path}', line 1: no column '{asked}' (--taxon-column); "
+                f"columns are: {', '.join(header)}.{did_you_mean(asked, header)}"
+            )
         return asked
     if "taxon" in header:
         return "taxon"
     tipset = set(tips)
-    hits = [len(tipset.intersection(r[i].strip() for r in rows if len(r) > i))
-            for i in range(len(header))]
+    hits = [
+        len(tipset.intersection(r[i].strip() for r in rows if len(r) > i))
+        for i in range(len(header))
+    ]
     return header[int(np.argmax(hits))]
 
 
@@ -117,15 +121,16 @@ class TraitSurvey:
     ambiguous: int
     use: bool
     why_not: str = ""
-    short: str = ""       # why_not in a few words, for the printed summary
+    short: str = ""  # why_not in a few words, for the printed summary
 
 
 def survey_traits(path: Path, taxon_column: str, header: list, missing: list) -> tuple:
     """({column: TraitSurvey}, taxa in the table)."""
     columns = [c for c in header if c != taxon_column]
     if not columns:
-        raise InputError(f"trait table '{path}' has no column besides the taxon column "
-                         f"'{taxon_column}'.")
+        raise InputError(
+            f"trait table '{path}' has no column besides the taxon column '{taxon_column}'."
+        )
     read_traits(path, taxon_column, [], missing)  # the table as a whole: rows, taxa, fields
     out = {}
     for name in columns:
@@ -134,8 +139,9 @@ def survey_traits(path: Path, taxon_column: str, header: list, missing: list) ->
         except InputError as exc:
             # a column the workflow would refuse (states differing only in case, a cell
             # mixing a missing code with states): left out, with the workflow's sentence
-            out[name] = TraitSurvey(name, (), {}, 0, 0, False, str(exc).rstrip("."),
-                                    "the workflow would refuse it")
+            out[name] = TraitSurvey(
+                name, (), {}, 0, 0, False, str(exc).rstrip("."), "the workflow would refuse it"
+            )
             continue
         counts = t.state_counts()
         n_missing = int(t.possible.all(axis=1).sum())
@@ -143,17 +149,22 @@ def survey_traits(path: Path, taxon_column: str, header: list, missing: list) ->
         why = short = ""
         if not SAFE_NAME.match(name):
             short = "name unfit for file names"
-            why = ("its name has characters that cannot be used in file names; rename the "
-                   "column with letters, digits, '_', '-' or '.' to analyse it")
+            why = (
+                "its name has characters that cannot be used in file names; rename the "
+                "column with letters, digits, '_', '-' or '.' to analyse it"
+            )
         elif t.k > MAX_STATES:
             short = f"{t.k} distinct values"
-            why = (f"{t.k} distinct values: more like a label or a measurement than a "
-                   f"categorical trait (an Mk model of k states has up to k(k-1) rates)")
+            why = (
+                f"{t.k} distinct values: more like a label or a measurement than a "
+                f"categorical trait (an Mk model of k states has up to k(k-1) rates)"
+            )
         elif len(observed) < 2:
             short = f"only state '{observed[0]}' observed" if observed else "no observed value"
             why = short + ": nothing changes, so there is nothing to fit"
-        out[name] = TraitSurvey(name, t.states, counts, n_missing, t.n_ambiguous(), not why, why,
-                                short)
+        out[name] = TraitSurvey(
+            name, t.states, counts, n_missing, t.n_ambiguous(), not why, why, short
+        )
     _, rows = _read_table(path)
     ti = header.index(taxon_column)
     return out, tuple(r[ti].strip() for r in rows)
@@ -171,7 +182,16 @@ def _y(value) -> str:
     """A YAML flow value (JSON is YAML; strings quoted only where YAML needs it)."""
     if isinstance(value, str):
         plain = re.fullmatch(r"[A-Za-z_][A-Za-z0-9_.\-]*", value) and value.lower() not in (
-            "yes", "no", "true", "false", "on", "off", "null", "y", "n")
+            "yes",
+            "no",
+            "true",
+            "false",
+            "on",
+            "off",
+            "null",
+            "y",
+            "n",
+        )
         return value if plain else json.dumps(value, ensure_ascii=False)
     if isinstance(value, (list, tuple)):
         return "[" + ", ".join(_y(v) for v in value) + "]"
@@ -196,13 +216,14 @@ def _config_path(path: Path, base: Path) -> str:
 
 @dataclass
 class Starter:
-    text: str            # the config file's content
-    summary: list        # lines to print
+    text: str  # the config file's content
+    summary: list  # lines to print
     run: str
 
 
-def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_run",
-                    base: Path | None = None) -> Starter:
+def starting_config(
+    trees_file, traits_file, taxon_column=None, run: str = "my_run", base: Path | None = None
+) -> Starter:
     """The commented starting config for these files (paths written relative to ``base``,
     the folder the workflow will run in)."""
     base = Path(base) if base is not None else REPO
@@ -221,10 +242,11 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     trees_only, table_only = sorted(tips - table), sorted(table - tips)
     matched = len(tips & table)
     if matched == 0:
-        raise InputError(f"no taxon of trait table '{traits_file}' (column '{taxon_column}') is a "
-                         f"tip of the trees in '{trees_file}'; check the taxon column and the "
-                         f"spelling of the names (a tip: '{ts.tips[0]}', a row: '{taxa[0]}').")
-    n_used = ts.n_trees
+        raise InputError(
+            f"no taxon of trait table '{traits_file}' (column '{taxon_column}') is a "
+            f"tip of the trees in '{trees_file}'; check the taxon column and the "
+            f"spelling of the names (a tip: '{ts.tips[0]}', a row: '{taxa[0]}')."
+        )
     L = []
 
     def w(line: str) -> None:
@@ -234,8 +256,16 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
             L.append(line)
             return
         lead = m.group(1)
-        L.extend(textwrap.wrap(line[len(lead):], WIDTH, initial_indent=lead,
-                               subsequent_indent=lead + "  ", break_on_hyphens=False))
+        L.extend(
+            textwrap.wrap(
+                line[len(lead) :],
+                WIDTH,
+                initial_indent=lead,
+                subsequent_indent=lead + "  ",
+                break_on_hyphens=False,
+            )
+        )
+
     w("# mkforest config written by `mkforest init` from your files. Every setting below runs")
     w("# as written; the comments say what was found and what you may want to change.")
     w("# Every key, with its default, is explained in config/template.yaml.")
@@ -248,30 +278,49 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     w("")
     w("trees:")
     w(f"  # Found: {ts.n_trees} tree(s), {len(ts.tips)} tips in the first.")
-    rooted_note = ("all rooted" if not ts.unrooted else
-                   f"{len(ts.unrooted)} of {ts.n_trees} UNROOTED (their base splits three or more "
-                   "ways and no [&R] mark)")
+    rooted_note = (
+        "all rooted"
+        if not ts.unrooted
+        else f"{len(ts.unrooted)} of {ts.n_trees} UNROOTED (their base splits three or more "
+        "ways and no [&R] mark)"
+    )
     w(f"  #   rooted: {rooted_note}")
-    w("  #   branch lengths: " + ("on every branch" if not ts.without_lengths else
-      f"MISSING in {len(ts.without_lengths)} tree(s) (first: tree {ts.without_lengths[0]}). The run "
-      "will stop: every branch needs a length (use dated or otherwise measured trees)."))
+    w(
+        "  #   branch lengths: "
+        + (
+            "on every branch"
+            if not ts.without_lengths
+            else f"MISSING in {len(ts.without_lengths)} tree(s) (first: tree {ts.without_lengths[0]}). The run "
+            "will stop: every branch needs a length (use dated or otherwise measured trees)."
+        )
+    )
     n_rooted = ts.n_trees - len(ts.unrooted)
     if not ts.without_lengths and n_rooted == 0:
         w("  #   ultrametric: not judged (no tree is rooted)")
     elif not ts.without_lengths:
-        w("  #   ultrametric: " + ("yes (every tip equally far from the root)" if not ts.not_ultrametric
-          else f"no, in {len(ts.not_ultrametric)} of {n_rooted} rooted tree(s): tips lie at "
-          "different distances from the root. The models run on any branch lengths; rates are "
-          "per unit of length, and the rate bounds (fitting) are scaled to each tree's "
-          "root-to-tip height."))
+        w(
+            "  #   ultrametric: "
+            + (
+                "yes (every tip equally far from the root)"
+                if not ts.not_ultrametric
+                else f"no, in {len(ts.not_ultrametric)} of {n_rooted} rooted tree(s): tips lie at "
+                "different distances from the root. The models run on any branch lengths; rates are "
+                "per unit of length, and the rate bounds (fitting) are scaled to each tree's "
+                "root-to-tip height."
+            )
+        )
     if ts.other_tips:
-        w(f"  #   WARNING: {len(ts.other_tips)} tree(s) have other tips than the first (first: tree "
-          f"{ts.other_tips[0]}). The run will stop: every tree of a sample must have the same tips.")
+        w(
+            f"  #   WARNING: {len(ts.other_tips)} tree(s) have other tips than the first (first: tree "
+            f"{ts.other_tips[0]}). The run will stop: every tree of a sample must have the same tips."
+        )
     w(f"  file: {_y(_config_path(trees_file, base))}")
     if ts.zero_length:
-        w(f"  #   zero-length branches: in {len(ts.zero_length)} of {ts.n_trees} tree(s). Tips joined "
-          "by them that differ in state make every model impossible on that tree (the run says "
-          "so in its cautions); min_branch_length below lengthens such branches.")
+        w(
+            f"  #   zero-length branches: in {len(ts.zero_length)} of {ts.n_trees} tree(s). Tips joined "
+            "by them that differ in state make every model impossible on that tree (the run says "
+            "so in its cautions); min_branch_length below lengthens such branches."
+        )
     w("  # Trees dropped from the start of the file: a fraction below 1 (0.1 = the first 10%)")
     w("  # or a count. Set it if the file still holds the burn-in of the tree search.")
     w("  burnin: 0")
@@ -299,27 +348,38 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     w(f"  taxon_column: {_y(taxon_column)}")
     w(f"  # Taxa: {matched} in both the table and the trees.")
     if table_only:
-        w(f"  #   {len(table_only)} row(s) of the table are in no tree and are not used: "
-          f"{_listing(table_only)}")
+        w(
+            f"  #   {len(table_only)} row(s) of the table are in no tree and are not used: "
+            f"{_listing(table_only)}"
+        )
     if trees_only:
         w(f"  #   {len(trees_only)} tree tip(s) have no row in the table: {_listing(trees_only)}")
     w("  # Trait columns found (states: taxa known to be in that state; missing: unknown cells;")
     w("  # ambiguous: cells naming several states). Columns left out are listed with the reason.")
     for s in surveys.values():
-        counts = ", ".join(f"{k} {v}" for k, v in s.counts.items()) if len(s.states) <= MAX_STATES \
+        counts = (
+            ", ".join(f"{k} {v}" for k, v in s.counts.items())
+            if len(s.states) <= MAX_STATES
             else f"{len(s.states)} distinct values"
+        )
         tail = f"; ambiguous {s.ambiguous}" if s.ambiguous else ""
-        w(f"  #   {s.name}: {counts}; missing {s.missing}{tail}" if s.states else f"  #   {s.name}:")
+        w(
+            f"  #   {s.name}: {counts}; missing {s.missing}{tail}"
+            if s.states
+            else f"  #   {s.name}:"
+        )
         if not s.use:
             w(f"  #     left out: {s.why_not}")
     w(f"  columns: {_y([s.name for s in used])}")
-    w("  # Cells meaning \"unknown\" (counted as any state).")
+    w('  # Cells meaning "unknown" (counted as any state).')
     if extra_missing:
-        w(f"  # {', '.join(extra_missing)} found in the table and read as unknown; remove from this")
+        w(
+            f"  # {', '.join(extra_missing)} found in the table and read as unknown; remove from this"
+        )
         w("  # list any that is a real state.")
     w(f"  missing: {_y(missing)}")
     w("  # Separates the possible states of an ambiguous or polymorphic cell: a|b")
-    w("  separator: \"|\"")
+    w('  separator: "|"')
     w("  # State order per trait (default: sorted labels), e.g.  size: [small, medium, large]")
     w("  order: {}")
     if trees_only:
@@ -354,16 +414,22 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
     w("  # Stochastic maps per tree.")
     w("  maps: 100")
     both = sorted(tips & table)
-    w("  # Named clades to report, e.g.  my_group: {mrca_of: [" + ", ".join(both[:1] + both[-1:])
-      + "]}")
+    w(
+        "  # Named clades to report, e.g.  my_group: {mrca_of: ["
+        + ", ".join(both[:1] + both[-1:])
+        + "]}"
+    )
     w("  clades: {}")
     w("  reference_tree: null")
     summary = [
         f"trees   {trees_file}: {ts.n_trees} tree(s), {len(ts.tips)} tips, "
         + ("rooted" if not ts.unrooted else f"{len(ts.unrooted)} unrooted -> root: midpoint")
         + ("" if not ts.without_lengths else ", BRANCH LENGTHS MISSING (the run will stop)")
-        + ("" if ts.without_lengths or len(ts.unrooted) == ts.n_trees else
-           (", ultrametric" if not ts.not_ultrametric else ", not ultrametric")),
+        + (
+            ""
+            if ts.without_lengths or len(ts.unrooted) == ts.n_trees
+            else (", ultrametric" if not ts.not_ultrametric else ", not ultrametric")
+        ),
         f"traits  {traits_file}: {len(taxa)} rows, taxon column '{taxon_column}', "
         f"{len(used)} trait(s): {', '.join(s.name for s in used)}"
         + "".join(f"; left out '{s.name}' ({s.short})" for s in surveys.values() if not s.use),
@@ -376,8 +442,12 @@ def starting_config(trees_file, traits_file, taxon_column=None, run: str = "my_r
 
 def _models(w, used: list) -> None:
     multi = [s.name for s in used if len(s.states) >= 3]
-    free = [s for s in used if len(s.states) <= UNCONSTRAINED_MAX_STATES
-            and 3 * len(s.states) * (len(s.states) - 1) <= sum(s.counts.values()) + s.ambiguous]
+    free = [
+        s
+        for s in used
+        if len(s.states) <= UNCONSTRAINED_MAX_STATES
+        and 3 * len(s.states) * (len(s.states) - 1) <= sum(s.counts.values()) + s.ambiguous
+    ]
     w("# Candidate models, compared on every tree. Built-in kinds apply to every trait unless")
     w("# applies_to narrows them:")
     w("#   equal: one rate for every change; symmetric: i->j and j->i share a rate;")
@@ -410,14 +480,20 @@ def _models(w, used: list) -> None:
         w("  #   kind: custom")
         w(f"  #   applies_to: [{s.name}]")
         w("  #   transitions:")
-        w(f"  #     \"{chain}\": up")
-        w(f"  #     \"{back}\": down")
+        w(f'  #     "{chain}": up')
+        w(f'  #     "{back}": down')
 
 
 def _pairs(w, used: list) -> None:
-    candidates = sorted(((len(a.states) * len(b.states), i, j, a, b)
-                         for i, a in enumerate(used) for j, b in enumerate(used) if i < j),
-                        key=lambda x: x[:3])
+    candidates = sorted(
+        (
+            (len(a.states) * len(b.states), i, j, a, b)
+            for i, a in enumerate(used)
+            for j, b in enumerate(used)
+            if i < j
+        ),
+        key=lambda x: x[:3],
+    )
     candidates = [c for c in candidates if c[0] <= 12]
     w("# Do two traits evolve together? A pair is fitted on its joint states (first+second)")
     w("# under each hypothesis: independent, dependent, first_depends_on_second,")
@@ -435,15 +511,17 @@ def _pairs(w, used: list) -> None:
     w("pairs: {}")
 
 
-def write_starter(trees_file, traits_file, taxon_column=None, output="my_config.yaml",
-                  force: bool = False) -> tuple:
+def write_starter(
+    trees_file, traits_file, taxon_column=None, output="my_config.yaml", force: bool = False
+) -> tuple:
     """Write the starting config; returns (Starter, the command to run next)."""
     from .jobs.analyses import check_config
 
     output = Path(output)
     if output.exists() and not force:
-        raise InputError(f"'{output}' exists already; choose another --output, or add --force "
-                         "to replace it.")
+        raise InputError(
+            f"'{output}' exists already; choose another --output, or add --force to replace it."
+        )
     cwd = Path.cwd().resolve()
     in_repo = (cwd / "Snakefile").is_file() and cwd == REPO.resolve()
     stem = re.sub(r"[^A-Za-z0-9_.-]", "_", output.stem) or "my_run"
@@ -455,6 +533,7 @@ def write_starter(trees_file, traits_file, taxon_column=None, output="my_config.
     here = Path.cwd()
     try:
         import os
+
         os.chdir(REPO)
         check_config(config, f"config written for '{output}'")
     finally:
@@ -462,5 +541,5 @@ def write_starter(trees_file, traits_file, taxon_column=None, output="my_config.
     output.parent.mkdir(parents=True, exist_ok=True)
     output.write_text(starter.text)
     target = _config_path(output, REPO) if in_repo else str(output.resolve())
-    command = (f"make run CONFIG={target}" if in_repo else f"make -C {REPO} run CONFIG={target}")
+    command = f"make run CONFIG={target}" if in_repo else f"make -C {REPO} run CONFIG={target}"
     return starter, command

@@ -1,4 +1,5 @@
 """Gather every fit job's rows and summarise model support across trees."""
+
 import sys
 from pathlib import Path
 
@@ -8,7 +9,7 @@ import logging
 
 import pandas as pd
 
-from mkforest.engine.branch_support import branch_tests, tree_set_support, treatment_support
+from mkforest.engine.branch_support import branch_tests, treatment_support, tree_set_support
 from mkforest.engine.summarise import (
     add_weights,
     averaged_rates,
@@ -35,20 +36,25 @@ def main(smk):
     order = {a: i for i, a in enumerate(smk.params.analyses)}
     sets = {s: i for i, s in enumerate(smk.params.tree_sets)}
     rank = {"analysis": order, "tree_set": sets}
-    fits = fits.sort_values(["tree_set", "analysis", "model", "tree"],
-                            key=lambda s: s.map(rank[s.name]) if s.name in rank else s)
+    fits = fits.sort_values(
+        ["tree_set", "analysis", "model", "tree"],
+        key=lambda s: s.map(rank[s.name]) if s.name in rank else s,
+    )
     fits = mark_duplicates(fits, smk.params.model_order)
     fits = add_weights(fits, smk.params.criterion)
-    rates = rates.sort_values(["tree_set", "analysis", "model", "tree", "from_state", "to_state"],
-                              key=lambda s: s.map(sets) if s.name == "tree_set" else s)
+    rates = rates.sort_values(
+        ["tree_set", "analysis", "model", "tree", "from_state", "to_state"],
+        key=lambda s: s.map(sets) if s.name == "tree_set" else s,
+    )
     support = model_support(fits)
     averaged = averaged_rates(fits, rates)
     fits.to_csv(smk.output.fits, sep="\t", index=False, float_format="%.10g")
     rates.to_csv(smk.output.rates, sep="\t", index=False, float_format="%.10g")
     support.to_csv(smk.output.support, sep="\t", index=False, float_format="%.10g")
     averaged.to_csv(smk.output.averaged, sep="\t", index=False, float_format="%.10g")
-    rate_summary(rates, averaged).to_csv(smk.output.rate_summary, sep="\t", index=False,
-                                         float_format="%.10g")
+    rate_summary(rates, averaged).to_csv(
+        smk.output.rate_summary, sep="\t", index=False, float_format="%.10g"
+    )
     tests, test_summary = branch_tests(fits)
     write = dict(sep="\t", index=False, float_format="%.10g")
     treatment_support(fits).to_csv(smk.output.treatments, **write)
@@ -57,8 +63,9 @@ def main(smk):
     tree_set_support(fits, smk.params.criterion).to_csv(smk.output.tree_sets, **write)
     for row in support.to_dict("records"):
         if row["caution"]:
-            log.warning("%s / %s / %s: %s", row["tree_set"], row["analysis"], row["model"],
-                        row["caution"])
+            log.warning(
+                "%s / %s / %s: %s", row["tree_set"], row["analysis"], row["model"], row["caution"]
+            )
 
 
 run_job(snakemake, main)  # noqa: F821

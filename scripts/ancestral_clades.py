@@ -1,4 +1,5 @@
 """The clades to report ancestral states for: the summary tree's and the named ones."""
+
 import sys
 from pathlib import Path
 
@@ -25,8 +26,13 @@ def main(smk):
     table, summary = target_clades(trees, named, reference, source, smk.params.summary)
     table.to_csv(smk.output.clades, sep="\t", index=False)
     Path(smk.output.tree).write_text("[&R] " + to_newick(summary) + "\n")
-    log.info("%d trees; %d clades to report (summary tree: %s; %d named)", len(trees), len(table),
-             table["summary_tree"].iloc[0] if len(table) else "none", len(named))
+    log.info(
+        "%d trees; %d clades to report (summary tree: %s; %d named)",
+        len(trees),
+        len(table),
+        table["summary_tree"].iloc[0] if len(table) else "none",
+        len(named),
+    )
 
 
 run_job(snakemake, main)  # noqa: F821

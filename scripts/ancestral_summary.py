@@ -1,4 +1,5 @@
 """Ancestral states and transition counts summarised across every tree and chunk."""
+
 import sys
 from pathlib import Path
 
@@ -7,8 +8,8 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 import pandas as pd
 
 from mkforest.jobs.ancestral import (
-    class_table,
     clades_in_set,
+    class_table,
     load_chunks,
     state_table,
     transition_tables,
@@ -20,8 +21,11 @@ from mkforest.jobs.scripting import run_job
 def main(smk):
     clades = pd.read_csv(smk.input.clades, sep="\t", dtype={"members": str, "clade": str})
     used = pd.read_csv(smk.input.used, sep="\t", keep_default_na=False)
-    n_used = used.groupby(used["tree_set"].astype(str)).size().to_dict() if "tree_set" in used \
+    n_used = (
+        used.groupby(used["tree_set"].astype(str)).size().to_dict()
+        if "tree_set" in used
         else {"": len(used)}
+    )
     states, trans, times, per_tree, classes = [], [], [], [], []
     for analysis in smk.params.analyses:
         paths = [p for p in smk.input.chunks if Path(p).parent.name == analysis]
@@ -30,9 +34,13 @@ def main(smk):
             n_total = int(n_used.get(ts, len(data["tree"])))
             here = clades_in_set(clades, data)
             t, d, p = transition_tables(analysis, data, n_total)
-            for frame, table in ((states, state_table(analysis, data, here, n_total)),
-                                 (classes, class_table(analysis, data, here, n_total)),
-                                 (trans, t), (times, d), (per_tree, p)):
+            for frame, table in (
+                (states, state_table(analysis, data, here, n_total)),
+                (classes, class_table(analysis, data, here, n_total)),
+                (trans, t),
+                (times, d),
+                (per_tree, p),
+            ):
                 frame.append(table.assign(tree_set=ts)[["tree_set", *table.columns]])
     out = smk.output
     pd.concat(states).to_csv(out.states, sep="\t", index=False, float_format="%.6g")

@@ -1,4 +1,5 @@
 """Fit one model of one analysis on every tree of one chunk."""
+
 import sys
 from pathlib import Path
 
@@ -25,15 +26,27 @@ def main(smk):
     trees = load_trees(smk.input.trees)
     fit = config["fitting"]
     start, cpu = time.perf_counter(), time.process_time()
-    fits, rates = fit_chunk(trees, trait, model, root, job["analysis"], config["seed"],
-                            fit["starts"], fit["lower"], fit["upper"],
-                            config["traits"]["absent_taxa"], fit["max_starts"],
-                            branch_treatment(config, job["analysis"], job["model"]))
-    logging.getLogger("mkforest").info("fits took %.3f s (CPU %.3f s)", time.perf_counter() - start,
-                                       time.process_time() - cpu)
+    fits, rates = fit_chunk(
+        trees,
+        trait,
+        model,
+        root,
+        job["analysis"],
+        config["seed"],
+        fit["starts"],
+        fit["lower"],
+        fit["upper"],
+        config["traits"]["absent_taxa"],
+        fit["max_starts"],
+        branch_treatment(config, job["analysis"], job["model"]),
+    )
+    logging.getLogger("mkforest").info(
+        "fits took %.3f s (CPU %.3f s)", time.perf_counter() - start, time.process_time() - cpu
+    )
     bad = sum(1 for f in fits if not f["converged"])
-    logging.getLogger("mkforest").info("%s / %s: %d trees fitted, %d not converged",
-                                       job["analysis"], job["model"], len(fits), bad)
+    logging.getLogger("mkforest").info(
+        "%s / %s: %d trees fitted, %d not converged", job["analysis"], job["model"], len(fits), bad
+    )
     write_tsv(smk.output.fits, FIT_COLUMNS, fits)
     write_tsv(smk.output.rates, RATE_COLUMNS, rates)
 

@@ -1,4 +1,5 @@
 """Generate the demo data set (an invented radiation; see mkforest/demo.py)."""
+
 import sys
 from pathlib import Path
 

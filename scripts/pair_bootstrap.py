@@ -1,4 +1,5 @@
 """Parametric bootstrap of a trait pair's tests on one chunk of trees."""
+
 import sys
 from pathlib import Path
 
@@ -41,14 +42,32 @@ def main(smk):
     selected = set(bootstrap_tree_indices(used["tree"].tolist(), spec["bootstrap_trees"]))
     null_rates = bootstrap_null_rates(tests, models, _read(smk.input.fits), _read(smk.input.rates))
     mine = [t.index for t in trees if t.index in selected]
-    log.info("pair %s: bootstrapping %d trees of this chunk (%s), %d tests, %d data sets each",
-             name, len(mine), mine, len(tests), spec["bootstrap"])
+    log.info(
+        "pair %s: bootstrapping %d trees of this chunk (%s), %d tests, %d data sets each",
+        name,
+        len(mine),
+        mine,
+        len(tests),
+        spec["bootstrap"],
+    )
     fit = config["fitting"]
-    rows = bootstrap_chunk(pair, models, tests, trees, selected, null_rates, spec["bootstrap"],
-                           config["seed"], fit["starts"], fit["lower"], fit["upper"],
-                           fit["max_starts"])
-    pd.DataFrame(rows, columns=BOOTSTRAP_COLUMNS).to_csv(smk.output[0], sep="\t", index=False,
-                                                         float_format="%.10g")
+    rows = bootstrap_chunk(
+        pair,
+        models,
+        tests,
+        trees,
+        selected,
+        null_rates,
+        spec["bootstrap"],
+        config["seed"],
+        fit["starts"],
+        fit["lower"],
+        fit["upper"],
+        fit["max_starts"],
+    )
+    pd.DataFrame(rows, columns=BOOTSTRAP_COLUMNS).to_csv(
+        smk.output[0], sep="\t", index=False, float_format="%.10g"
+    )
 
 
 run_job(snakemake, main)  # noqa: F821

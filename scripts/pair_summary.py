@@ -1,4 +1,5 @@
 """Tests between each pair's hypotheses, per tree and across trees."""
+
 import sys
 from pathlib import Path
 
@@ -26,7 +27,9 @@ def main(smk):
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
     fits = pd.read_csv(smk.input.fits, sep="\t")
     frames = [pd.read_csv(p, sep="\t") for p in smk.input.bootstrap]
-    boot = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=BOOTSTRAP_COLUMNS)
+    boot = (
+        pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=BOOTSTRAP_COLUMNS)
+    )
     for t in (fits, boot):
         t["tree_set"] = t["tree_set"].fillna("").astype(str)
     sets = list(dict.fromkeys(fits["tree_set"]))  # set order, as in fits.tsv
@@ -35,15 +38,19 @@ def main(smk):
         pair = pair_from_config(name, spec, traits)
         tests = selected_tests(name, spec, pair_models(name, spec, pair))
         if not tests:
-            log.warning("pair %s: no two of its hypotheses are nested; nothing to test (compare "
-                        "them by weight in model_support.tsv)", name)
+            log.warning(
+                "pair %s: no two of its hypotheses are nested; nothing to test (compare "
+                "them by weight in model_support.tsv)",
+                name,
+            )
         for ts in sets:  # every tree set, each on its own trees
             mine = fits[fits["tree_set"] == ts]
             booted = boot[(boot["pair"] == name) & (boot["tree_set"] == ts)]
             rows = pair_test_rows(name, tests, mine, booted, spec["alpha"], ts)
             test_table += rows
-            summary += summary_rows(pd.DataFrame(rows, columns=TEST_COLUMNS), mine,
-                                    spec["bootstrap"])
+            summary += summary_rows(
+                pd.DataFrame(rows, columns=TEST_COLUMNS), mine, spec["bootstrap"]
+            )
     tests_df = pd.DataFrame(test_table, columns=TEST_COLUMNS)
     summary_df = pd.DataFrame(summary)
     tests_df.to_csv(smk.output.tests, sep="\t", index=False, float_format="%.10g")
@@ -51,8 +58,14 @@ def main(smk):
     boot.to_csv(smk.output.bootstrap, sep="\t", index=False, float_format="%.10g")
     for row in summary:
         if row["caution"]:
-            log.warning("%s / pair %s, %s vs %s: %s", row["tree_set"], row["pair"], row["null"],
-                        row["alternative"], row["caution"])
+            log.warning(
+                "%s / pair %s, %s vs %s: %s",
+                row["tree_set"],
+                row["pair"],
+                row["null"],
+                row["alternative"],
+                row["caution"],
+            )
 
 
 run_job(snakemake, main)  # noqa: F821

@@ -1,4 +1,5 @@
 """Summary tree with ancestral state probabilities, and change counts across trees."""
+
 import sys
 from pathlib import Path
 
@@ -29,25 +30,37 @@ def main(smk):
     pairs = {name: spec["traits"] for name, spec in setup["pairs"].items()}
     orders = {}
     for analysis in smk.params.analyses:
-        trait, models = analysis_setup(setup, analysis, traits)   # a pair: its joint trait
+        trait, models = analysis_setup(setup, analysis, traits)  # a pair: its joint trait
         orders[analysis] = list(trait.states)
         ordered = analysis not in pairs and plots_ancestral.is_ordered_trait(
-            [m for m, _ in models.values()], trait.k)
-        fig = plots_ancestral.state_tree(tree, states[states["analysis"] == analysis], clades,
-                                         trait, analysis, ordered)
-        plots_ancestral.save(fig, [p for p in out.trees
-                                   if Path(p).stem == f"ancestral_tree_{analysis}"])
-    plots_ancestral.save(plots_ancestral.change_counts(per_tree, pairs, orders),
-                         [out.changes_png, out.changes_svg])
-    classes = first_set(pd.read_csv(smk.input.classes, sep="\t",
-                                    dtype={"state": str, "clade": str},
-                                    keep_default_na=False, na_values=[""]))
+            [m for m, _ in models.values()], trait.k
+        )
+        fig = plots_ancestral.state_tree(
+            tree, states[states["analysis"] == analysis], clades, trait, analysis, ordered
+        )
+        plots_ancestral.save(
+            fig, [p for p in out.trees if Path(p).stem == f"ancestral_tree_{analysis}"]
+        )
+    plots_ancestral.save(
+        plots_ancestral.change_counts(per_tree, pairs, orders), [out.changes_png, out.changes_svg]
+    )
+    classes = first_set(
+        pd.read_csv(
+            smk.input.classes,
+            sep="\t",
+            dtype={"state": str, "clade": str},
+            keep_default_na=False,
+            na_values=[""],
+        )
+    )
     for analysis, models in smk.params.hidden.items():
         for model in models:
             rows = classes[(classes["analysis"] == analysis) & (classes["model"] == model)]
             fig = plots_ancestral.class_tree(tree, rows, clades, analysis, model)
-            plots_ancestral.save(fig, [p for p in out.class_trees
-                                       if Path(p).stem == f"class_tree_{analysis}_{model}"])
+            plots_ancestral.save(
+                fig,
+                [p for p in out.class_trees if Path(p).stem == f"class_tree_{analysis}_{model}"],
+            )
 
 
 run_job(snakemake, main)  # noqa: F821

@@ -1,4 +1,5 @@
 """Plot of support for branch-length treatments and tree sets across trees."""
+
 import sys
 from pathlib import Path
 

@@ -1,5 +1,6 @@
 """Figures of one trait pair: rates in each state of the other trait, joint-rate grid,
 tests across trees."""
+
 import sys
 from pathlib import Path
 
@@ -16,8 +17,14 @@ from mkforest.report.methods_branches import first_set
 from mkforest.report.plots import save
 from mkforest.report.plots_pairs import joint_rate_grid, pair_tests_figure, rates_by_state
 
-TEXT = {"model": str, "analysis": str, "from_state": str, "to_state": str, "same_as": str,
-        "at_bound": str}
+TEXT = {
+    "model": str,
+    "analysis": str,
+    "from_state": str,
+    "to_state": str,
+    "same_as": str,
+    "at_bound": str,
+}
 
 
 def main(smk):
@@ -27,17 +34,21 @@ def main(smk):
     spec = job["config"]["pairs"][name]
     pair = pair_from_config(name, spec, traits)
     models = {h: m for h, (m, _) in pair_models(name, spec, pair).items()}
-    rates = pd.read_csv(smk.input.rates, sep="\t", dtype=TEXT, keep_default_na=False,
-                        na_values=["", "nan", "NaN"])
-    support = pd.read_csv(smk.input.support, sep="\t", dtype=TEXT, keep_default_na=False,
-                          na_values=["", "nan", "NaN"])
+    rates = pd.read_csv(
+        smk.input.rates, sep="\t", dtype=TEXT, keep_default_na=False, na_values=["", "nan", "NaN"]
+    )
+    support = pd.read_csv(
+        smk.input.support, sep="\t", dtype=TEXT, keep_default_na=False, na_values=["", "nan", "NaN"]
+    )
     tests = pd.read_csv(smk.input.tests, sep="\t")
     boot = pd.read_csv(smk.input.bootstrap, sep="\t")
     # the figures show the first tree set (the tables carry every set)
     rates, support, tests, boot = (first_set(t) for t in (rates, support, tests, boot))
     out = smk.output
-    save(rates_by_state(pair, rates, support, models),
-         [out.rates_by_state_png, out.rates_by_state_svg])
+    save(
+        rates_by_state(pair, rates, support, models),
+        [out.rates_by_state_png, out.rates_by_state_svg],
+    )
     save(joint_rate_grid(pair, rates, support, models), [out.joint_rates_png, out.joint_rates_svg])
     save(pair_tests_figure(name, tests, boot), [out.tests_png, out.tests_svg])
 

@@ -1,4 +1,5 @@
 """Plots of model support and rates across trees."""
+
 import sys
 from pathlib import Path
 
@@ -9,33 +10,45 @@ import json
 import pandas as pd
 
 from mkforest.data.traits import traits_from_json
-
 from mkforest.jobs.scripting import run_job
 from mkforest.report import plots
 from mkforest.report.methods_branches import first_set
 
 
 def main(smk):
-    text = {"model": str, "analysis": str, "from_state": str, "to_state": str, "same_as": str,
-            "at_bound": str}
-    fits = pd.read_csv(smk.input.fits, sep="\t", dtype=text, keep_default_na=False,
-                       na_values=["", "nan", "NaN"])
-    rates = pd.read_csv(smk.input.rates, sep="\t", dtype=text, keep_default_na=False,
-                        na_values=["", "nan", "NaN"])
-    support = pd.read_csv(smk.input.support, sep="\t", dtype=text, keep_default_na=False,
-                          na_values=["", "nan", "NaN"])
+    text = {
+        "model": str,
+        "analysis": str,
+        "from_state": str,
+        "to_state": str,
+        "same_as": str,
+        "at_bound": str,
+    }
+    fits = pd.read_csv(
+        smk.input.fits, sep="\t", dtype=text, keep_default_na=False, na_values=["", "nan", "NaN"]
+    )
+    rates = pd.read_csv(
+        smk.input.rates, sep="\t", dtype=text, keep_default_na=False, na_values=["", "nan", "NaN"]
+    )
+    support = pd.read_csv(
+        smk.input.support, sep="\t", dtype=text, keep_default_na=False, na_values=["", "nan", "NaN"]
+    )
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
     states = {name: list(t.states) for name, t in traits.items()}
-    for pair, (first, second) in smk.params.pairs.items():   # joint states, first slowest
+    for pair, (first, second) in smk.params.pairs.items():  # joint states, first slowest
         states[pair] = [f"{a}+{b}" for a in states.get(first, []) for b in states.get(second, [])]
     # these figures show the first tree set; plot_branches compares the sets
     fits, rates, support = first_set(fits), first_set(rates), first_set(support)
     out = smk.output
-    plots.save(plots.support_weights(fits, smk.params.criterion),
-               [out.support_weights_png, out.support_weights_svg])
+    plots.save(
+        plots.support_weights(fits, smk.params.criterion),
+        [out.support_weights_png, out.support_weights_svg],
+    )
     plots.save(plots.support_heatmap(support), [out.support_heatmap_png, out.support_heatmap_svg])
-    plots.save(plots.rates_across_trees(rates, support, smk.params.pairs, states),
-               [out.rates_across_trees_png, out.rates_across_trees_svg])
+    plots.save(
+        plots.rates_across_trees(rates, support, smk.params.pairs, states),
+        [out.rates_across_trees_png, out.rates_across_trees_svg],
+    )
 
 
 run_job(snakemake, main)  # noqa: F821

@@ -1,4 +1,5 @@
 """Code the trait table, check it against the trees, and check every model on it."""
+
 import sys
 from pathlib import Path
 
@@ -21,30 +22,48 @@ COLUMNS = ["trait", "item", "value", "detail", "tree"]
 def main(smk):
     log = logging.getLogger("mkforest")
     tcfg = smk.params.traits
-    traits = read_traits(smk.input.traits, tcfg["taxon_column"], tcfg["columns"],
-                         tcfg["missing"], tcfg["separator"], tcfg["order"])
+    traits = read_traits(
+        smk.input.traits,
+        tcfg["taxon_column"],
+        tcfg["columns"],
+        tcfg["missing"],
+        tcfg["separator"],
+        tcfg["order"],
+    )
     folder = Path(smk.input.chunks)
     trees = [t for p in sorted(folder.glob("chunk_*.npz")) for t in load_trees(p)]
     summary = json.loads((folder / "summary.json").read_text())
-    rows, problems = data_check(traits, trees[0].tip_labels, tcfg["absent_taxa"],
-                                f"trait table '{smk.input.traits}'")
+    rows, problems = data_check(
+        traits, trees[0].tip_labels, tcfg["absent_taxa"], f"trait table '{smk.input.traits}'"
+    )
     impossible = impossible_rows(traits, trees)
     rows = tree_check_rows(summary, summary["trees"]) + rows + impossible
     pd.DataFrame(rows, columns=COLUMNS).astype({"tree": "Int64"}).to_csv(
-        smk.output.check, sep="\t", index=False)
+        smk.output.check, sep="\t", index=False
+    )
     for r in rows:
         if r["item"] == "taxa_in_table_only" and r["value"]:
-            log.warning("trait '%s': %d taxa in the table are in no tree and are ignored: %s",
-                        r["trait"], r["value"], r["detail"][:200])
+            log.warning(
+                "trait '%s': %d taxa in the table are in no tree and are ignored: %s",
+                r["trait"],
+                r["value"],
+                r["detail"][:200],
+            )
         if r["item"] == "varies" and not r["value"]:
             log.warning("trait '%s': %s", r["trait"], r["detail"])
     for name in traits:
         bad = [r for r in impossible if r["trait"] == name]
         if bad:
-            log.warning("trait '%s': on %d of %d trees, tips joined by zero-length branches have "
-                        "different states (first: tree %d, %s); every model's likelihood is zero "
-                        "there. Set trees.min_branch_length to fit those trees.", name, len(bad),
-                        len(trees), bad[0]["tree"], bad[0]["detail"][:200])
+            log.warning(
+                "trait '%s': on %d of %d trees, tips joined by zero-length branches have "
+                "different states (first: tree %d, %s); every model's likelihood is zero "
+                "there. Set trees.min_branch_length to fit those trees.",
+                name,
+                len(bad),
+                len(trees),
+                bad[0]["tree"],
+                bad[0]["detail"][:200],
+            )
     if problems:
         raise InputError(problems[0])
     Path(smk.output.coded).write_text(json.dumps(traits_to_json(traits)))

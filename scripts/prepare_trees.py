@@ -1,6 +1,7 @@
 """Select trees (burn-in, thinning, sampling) of every tree set, root them if asked, check
 them, and write them in chunks numbered on from one set to the next (sets.json lists each
 set's chunks), with a summary of what was done to the first set (prepared/trees/summary.json)."""
+
 import sys
 from pathlib import Path
 
@@ -33,11 +34,13 @@ def main(smk):
     rows, sets, firsts, summary, layout = [], {}, {}, None, None
     c = 0
     for name, cfg in smk.params.tree_sets.items():
-        source = f"tree file '{cfg['file']}'" + (f" (tree set '{name}')"
-                                                 if len(smk.params.tree_sets) > 1 else "")
+        source = f"tree file '{cfg['file']}'" + (
+            f" (tree set '{name}')" if len(smk.params.tree_sets) > 1 else ""
+        )
         trees = read_trees(cfg["file"], root=cfg.get("root"))
-        keep = select_trees(len(trees), cfg["burnin"], cfg["thin"], cfg["sample"],
-                            smk.params.seed, source)
+        keep = select_trees(
+            len(trees), cfg["burnin"], cfg["thin"], cfg["sample"], smk.params.seed, source
+        )
         used = [trees[i] for i in keep]
         check_same_tips(used, source)
         minimum = cfg.get("min_branch_length") or 0.0
@@ -45,38 +48,70 @@ def main(smk):
         used = [lengthen_branches(t, minimum).with_tree_set(name) for t in used]
         check_tree_lengths(used, source)
         firsts[name] = (used[0], source)
-        log.info("%s: %d trees in %s; %d used after burn-in %s, thinning %d, sample %s; "
-                 "rooted %s", name, len(trees), cfg["file"], len(used), cfg["burnin"],
-                 cfg["thin"], cfg["sample"], describe_rooting(cfg.get("root")))
+        log.info(
+            "%s: %d trees in %s; %d used after burn-in %s, thinning %d, sample %s; rooted %s",
+            name,
+            len(trees),
+            cfg["file"],
+            len(used),
+            cfg["burnin"],
+            cfg["thin"],
+            cfg["sample"],
+            describe_rooting(cfg.get("root")),
+        )
         n_zero = sum(1 for r in report if r["zero_tips"])
         if n_zero:
-            log.warning("%s: %d of %d trees have tips on zero-length branches "
-                        "(tables/data_check.tsv names them)%s", name, n_zero, len(used),
-                        f"; branches shorter than {minimum:g} were lengthened to it"
-                        if minimum else "")
+            log.warning(
+                "%s: %d of %d trees have tips on zero-length branches "
+                "(tables/data_check.tsv names them)%s",
+                name,
+                n_zero,
+                len(used),
+                f"; branches shorter than {minimum:g} were lengthened to it" if minimum else "",
+            )
         per_job = cfg.get("per_job", "auto")  # a $ref in the schema: no default filled
         if per_job == "auto":
             # resources, not params: the layout is chosen once, by the run that prepares the
             # trees; resuming with other cores keeps it (and every finished fit)
             res = smk.resources
-            per_job = auto_trees_per_job(len(used), used[0].n_tips, res.fits_per_tree,
-                                         res.fit_slots)
-            log.info("%s: trees.per_job auto: %d trees per job (%d trees, %d fits per tree, "
-                     "%d slots)", name, per_job, len(used), res.fits_per_tree, res.fit_slots)
+            per_job = auto_trees_per_job(
+                len(used), used[0].n_tips, res.fits_per_tree, res.fit_slots
+            )
+            log.info(
+                "%s: trees.per_job auto: %d trees per job (%d trees, %d fits per tree, %d slots)",
+                name,
+                per_job,
+                len(used),
+                res.fits_per_tree,
+                res.fit_slots,
+            )
         if layout is None:  # the first set's layout sizes the jobs' resources
             layout = {"per_job": per_job, "trees": len(used), "tips": used[0].n_tips}
         sets[name] = []
         for part in chunk(used, per_job):
             save_trees(out / f"chunk_{c:04d}.npz", part)
             sets[name].append(f"{c:04d}")
-            rows += [{"tree_set": name, "tree": t.index, "chunk": c, "n_tips": t.n_tips,
-                      "height": t.height, "total_length": t.total_length} for t in part]
+            rows += [
+                {
+                    "tree_set": name,
+                    "tree": t.index,
+                    "chunk": c,
+                    "n_tips": t.n_tips,
+                    "height": t.height,
+                    "total_length": t.total_length,
+                }
+                for t in part
+            ]
             c += 1
         if summary is None:  # the first set: what the data check and methods text describe
-            summary = {"n_in_file": len(trees),
-                       "burnin_dropped": burnin_count(len(trees), cfg["burnin"]),
-                       "root": cfg.get("root"), "rooting": describe_rooting(cfg.get("root")),
-                       "min_branch_length": minimum, "trees": report}
+            summary = {
+                "n_in_file": len(trees),
+                "burnin_dropped": burnin_count(len(trees), cfg["burnin"]),
+                "root": cfg.get("root"),
+                "rooting": describe_rooting(cfg.get("root")),
+                "min_branch_length": minimum,
+                "trees": report,
+            }
     check_same_taxa_across_sets(firsts)
     (out / "sets.json").write_text(json.dumps(sets, indent=1))
     (out / "layout.json").write_text(json.dumps(layout))

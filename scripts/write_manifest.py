@@ -1,4 +1,5 @@
 """Write manifest.json: checksums of every input and result, settings, software, trees used."""
+
 import sys
 from pathlib import Path
 
@@ -12,14 +13,24 @@ from mkforest.report.provenance import build_manifest, now_utc, relative_command
 
 def main(smk):
     inv = smk.params.invocation
-    invocation = {"command": relative_command(inv.command, inv.directory),
-                  "started": inv.started, "finished": now_utc()}
+    invocation = {
+        "command": relative_command(inv.command, inv.directory),
+        "started": inv.started,
+        "finished": now_utc(),
+    }
     inputs = list(smk.params.inputs) + [("config", p) for p in smk.params.configfiles]
-    manifest = build_manifest(smk.params.config, smk.params.run_folder, smk.input.outputs, inputs,
-                              smk.input.used, invocation)
+    manifest = build_manifest(
+        smk.params.config,
+        smk.params.run_folder,
+        smk.input.outputs,
+        inputs,
+        smk.input.used,
+        invocation,
+    )
     write_json(smk.output[0], manifest)
-    logging.getLogger("mkforest").info("%d result files and %d inputs recorded",
-                                       len(manifest["outputs"]), len(manifest["inputs"]))
+    logging.getLogger("mkforest").info(
+        "%d result files and %d inputs recorded", len(manifest["outputs"]), len(manifest["inputs"])
+    )
 
 
 run_job(snakemake, main)  # noqa: F821

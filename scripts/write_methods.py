@@ -1,4 +1,5 @@
 """Write methods.md from the run's settings and tables."""
+
 import sys
 from pathlib import Path
 
@@ -18,8 +19,12 @@ def main(smk):
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
     models = {a: analysis_setup(config, a, traits)[1] for a in smk.params.analyses}
     paths = {table_name(p): p for p in smk.input.tables}
-    paths.update({table_name(p): p for p in (smk.input.support, smk.input.used, smk.input.check,
-                                              smk.input.rates)})
+    paths.update(
+        {
+            table_name(p): p
+            for p in (smk.input.support, smk.input.used, smk.input.check, smk.input.rates)
+        }
+    )
     text = methods_text(config, read_tables(paths), models, software_versions())
     Path(smk.output[0]).write_text(text)
 

@@ -16,8 +16,16 @@ from mkforest.data.clades import count_clades
 from mkforest.data.trees import parse_newick
 
 # eight taxa, two with spaces and a quote-worthy character in the name
-TAXA = ["Vexa minor", "Vexa major", "Olm_tarsi", "Olm_grava", "Quill's pod", "Brun_a",
-        "Brun_b", "Brun_c"]
+TAXA = [
+    "Vexa minor",
+    "Vexa major",
+    "Olm_tarsi",
+    "Olm_grava",
+    "Quill's pod",
+    "Brun_a",
+    "Brun_b",
+    "Brun_c",
+]
 
 
 def quote(label: str) -> str:
@@ -33,14 +41,19 @@ def rename(newick: str, names: dict) -> str:
     return newick
 
 
-def unresolved_sample(n_trees: int = 5, n_tips: int = 8, seed: int = 3, p_polytomy=0.2,
-                      p_zero=0.0, mean_length=0.3) -> list:
+def unresolved_sample(
+    n_trees: int = 5, n_tips: int = 8, seed: int = 3, p_polytomy=0.2, p_zero=0.0, mean_length=0.3
+) -> list:
     """Newick strings (tips t0..t{n-1}) of random trees in which no clade is in more than
     half of the trees, so the majority-rule consensus is a star at the base."""
     rng = np.random.default_rng(seed)
     for _ in range(1000):
-        texts = [random_newick(rng, n_tips, p_polytomy=p_polytomy, p_zero=p_zero,
-                               mean_length=mean_length) for _ in range(n_trees)]
+        texts = [
+            random_newick(
+                rng, n_tips, p_polytomy=p_polytomy, p_zero=p_zero, mean_length=mean_length
+            )
+            for _ in range(n_trees)
+        ]
         trees = [parse_newick(t, i) for i, t in enumerate(texts)]
         counts = count_clades(trees)
         full = (1 << n_tips) - 1
@@ -49,12 +62,19 @@ def unresolved_sample(n_trees: int = 5, n_tips: int = 8, seed: int = 3, p_polyto
     raise AssertionError("no unresolved sample drawn")
 
 
-def posterior_nexus(path: Path, newicks: list, taxa: list, rooted: str = "[&R] ",
-                    comments: bool = True) -> Path:
+def posterior_nexus(
+    path: Path, newicks: list, taxa: list, rooted: str = "[&R] ", comments: bool = True
+) -> Path:
     """A NEXUS file as posterior samplers write it: a TAXA block, a TRANSLATE table of
     numbers, one TREE line per sample with comments (state, likelihood) before the tree."""
-    lines = ["#NEXUS", "[written by an invented sampler for the mkforest tests]", "",
-             "BEGIN TAXA;", f"  DIMENSIONS NTAX={len(taxa)};", "  TAXLABELS"]
+    lines = [
+        "#NEXUS",
+        "[written by an invented sampler for the mkforest tests]",
+        "",
+        "BEGIN TAXA;",
+        f"  DIMENSIONS NTAX={len(taxa)};",
+        "  TAXLABELS",
+    ]
     lines += [f"    {quote(t)}" for t in taxa] + ["  ;", "END;", "", "BEGIN TREES;", "  TRANSLATE"]
     lines += [f"    {i + 1} {quote(t)}," for i, t in enumerate(taxa)]
     lines[-1] = lines[-1].rstrip(",")
@@ -73,7 +93,8 @@ def unrooted(newick: str) -> str:
     clock write it."""
     import dendropy
 
-    tree = dendropy.Tree.get(data=newick, schema="newick", rooting="force-unrooted",
-                             preserve_underscores=True)
+    tree = dendropy.Tree.get(
+        data=newick, schema="newick", rooting="force-unrooted", preserve_underscores=True
+    )
     tree.deroot()
     return tree.as_string(schema="newick", suppress_rooting=True).strip()

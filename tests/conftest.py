@@ -31,6 +31,7 @@ from reference import (  # noqa: E402
 
 # --------------------------------------------------------------------------- trees
 
+
 def random_newick(rng, n_tips, p_polytomy=0.3, p_zero=0.15, mean_length=0.4, prefix="t"):
     """A random rooted Newick tree with polytomies and some zero-length branches.
 
@@ -128,11 +129,15 @@ CUSTOM_SPECS = [
     # two states, irreversible loss
     (("present", "absent"), {"present -> absent": "loss"}),
     # four states: forward chain, one label for a backward step, a fixed shortcut
-    (("s1", "s2", "s3", "s4"), {"s1 -> s2 -> s3 -> s4": "fwd", "s4 -> s3": "back",
-                                "s1 -> s3": 0.2, "s3 -> s1": "back"}),
+    (
+        ("s1", "s2", "s3", "s4"),
+        {"s1 -> s2 -> s3 -> s4": "fwd", "s4 -> s3": "back", "s1 -> s3": 0.2, "s3 -> s1": "back"},
+    ),
     # a fixed rate of exactly zero next to free ones
-    (("red", "green", "blue"), {"red <-> green": "rg", "green -> blue": "gb",
-                                "blue -> red": 0.0, "blue -> green": 1.25}),
+    (
+        ("red", "green", "blue"),
+        {"red <-> green": "rg", "green -> blue": "gb", "blue -> red": 0.0, "blue -> green": 1.25},
+    ),
 ]
 
 KIND_CYCLE = ["equal", "symmetric", "unconstrained", "custom"]
@@ -167,6 +172,7 @@ def make_model_case(rng, seed):
 
 # --------------------------------------------------------------------------- tip data
 
+
 def tip_data_mapping(rng, tree, Q, states, p_missing=0.15, p_ambiguous=0.2):
     """Simulate tip states under Q (reference simulator) and code them as text cells.
 
@@ -183,8 +189,11 @@ def tip_data_mapping(rng, tree, Q, states, p_missing=0.15, p_ambiguous=0.2):
         if u < p_missing:
             cells[label] = "?"
         elif u < p_missing + p_ambiguous and k > 2:
-            extra = rng.choice([j for j in range(k) if j != state[v]],
-                               size=int(rng.integers(1, k - 1)), replace=False)
+            extra = rng.choice(
+                [j for j in range(k) if j != state[v]],
+                size=int(rng.integers(1, k - 1)),
+                replace=False,
+            )
             cells[label] = "|".join(states[j] for j in sorted([state[v], *extra]))
         else:
             cells[label] = states[state[v]]
@@ -215,5 +224,13 @@ def random_case(seed, n_min=3, n_max=7):
     newick = random_newick(rng, n_tips)
     ref_tree = ref_tree_from_newick(newick)
     cells = tip_data_mapping(rng, ref_tree, Q, list(model.states))
-    return dict(seed=seed, model=model, rates=rates, Q=np.asarray(Q, dtype=float),
-                newick=newick, ref_tree=ref_tree, cells=cells, states=list(model.states))
+    return dict(
+        seed=seed,
+        model=model,
+        rates=rates,
+        Q=np.asarray(Q, dtype=float),
+        newick=newick,
+        ref_tree=ref_tree,
+        cells=cells,
+        states=list(model.states),
+    )

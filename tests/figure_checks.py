@@ -22,7 +22,7 @@ from matplotlib.text import Text
 
 from mkforest.report.style import BACKGROUND
 
-TOL = 1.0   # pixels of overlap allowed each way (antialiasing, rounding)
+TOL = 1.0  # pixels of overlap allowed each way (antialiasing, rounding)
 
 
 def _boxes_overlap(a, b, tol=TOL):
@@ -79,16 +79,28 @@ def _segment_boxes(points, pad):
     if len(p) < 2:
         return np.empty((0, 4))
     a, b = p[:-1], p[1:]
-    return np.column_stack([np.minimum(a[:, 0], b[:, 0]) - pad, np.minimum(a[:, 1], b[:, 1]) - pad,
-                            np.maximum(a[:, 0], b[:, 0]) + pad, np.maximum(a[:, 1], b[:, 1]) + pad])
+    return np.column_stack(
+        [
+            np.minimum(a[:, 0], b[:, 0]) - pad,
+            np.minimum(a[:, 1], b[:, 1]) - pad,
+            np.maximum(a[:, 0], b[:, 0]) + pad,
+            np.maximum(a[:, 1], b[:, 1]) + pad,
+        ]
+    )
 
 
 def _clip(boxes, ax_box):
     if not len(boxes):
         return boxes
     x0, y0, x1, y1 = ax_box
-    c = np.column_stack([np.maximum(boxes[:, 0], x0), np.maximum(boxes[:, 1], y0),
-                         np.minimum(boxes[:, 2], x1), np.minimum(boxes[:, 3], y1)])
+    c = np.column_stack(
+        [
+            np.maximum(boxes[:, 0], x0),
+            np.maximum(boxes[:, 1], y0),
+            np.minimum(boxes[:, 2], x1),
+            np.minimum(boxes[:, 3], y1),
+        ]
+    )
     return c[(c[:, 2] > c[:, 0]) & (c[:, 3] > c[:, 1])]
 
 
@@ -111,25 +123,38 @@ def data_boxes(fig):
             if isinstance(art, Line2D):
                 pts = art.get_transform().transform(art.get_xydata())
                 pad = art.get_linewidth() * dpi / 144
-                boxes = (_segment_boxes(pts, pad) if art.get_linestyle() not in ("None", "", " ")
-                         else np.empty((0, 4)))
+                boxes = (
+                    _segment_boxes(pts, pad)
+                    if art.get_linestyle() not in ("None", "", " ")
+                    else np.empty((0, 4))
+                )
                 if art.get_marker() not in (None, "", "None", " ") and len(pts):
                     r = art.get_markersize() * dpi / 144
-                    boxes = np.vstack([boxes, np.column_stack([pts[:, 0] - r, pts[:, 1] - r,
-                                                               pts[:, 0] + r, pts[:, 1] + r])])
+                    boxes = np.vstack(
+                        [
+                            boxes,
+                            np.column_stack(
+                                [pts[:, 0] - r, pts[:, 1] - r, pts[:, 0] + r, pts[:, 1] + r]
+                            ),
+                        ]
+                    )
             elif isinstance(art, LineCollection):
                 tr = art.get_transform()
                 pads = np.atleast_1d(art.get_linewidth()) * dpi / 144
-                parts = [_segment_boxes(tr.transform(np.asarray(s, float)), pads[i % len(pads)])
-                         for i, s in enumerate(art.get_segments()) if len(s)]
+                parts = [
+                    _segment_boxes(tr.transform(np.asarray(s, float)), pads[i % len(pads)])
+                    for i, s in enumerate(art.get_segments())
+                    if len(s)
+                ]
                 boxes = np.vstack(parts) if parts else boxes
             elif isinstance(art, PathCollection):
                 offs = art.get_offset_transform().transform(art.get_offsets())
                 sizes = np.atleast_1d(art.get_sizes())
                 if len(offs) and sizes.size:
                     r = np.sqrt(np.resize(sizes, len(offs))) * dpi / 144
-                    boxes = np.column_stack([offs[:, 0] - r, offs[:, 1] - r,
-                                             offs[:, 0] + r, offs[:, 1] + r])
+                    boxes = np.column_stack(
+                        [offs[:, 0] - r, offs[:, 1] - r, offs[:, 0] + r, offs[:, 1] + r]
+                    )
             elif isinstance(art, PolyCollection):
                 tr = art.get_transform()
                 parts = []
@@ -165,7 +190,9 @@ def overlaps(fig) -> list:
         boxes = np.array([b for _, b in items])
         hit = _boxes_overlap(boxes, boxes)
         for i, j in zip(*np.nonzero(np.triu(hit, 1))):
-            found.append(f"text {items[i][0].get_text()!r} overlaps text {items[j][0].get_text()!r}")
+            found.append(
+                f"text {items[i][0].get_text()!r} overlaps text {items[j][0].get_text()!r}"
+            )
     data = data_boxes(fig)
     legend_texts = {id(t) for lg, _ in legends(fig) for t in lg.get_texts()}
     legend_texts |= {id(lg.get_title()) for lg, _ in legends(fig)}
@@ -174,12 +201,14 @@ def overlaps(fig) -> list:
             hit = _boxes_overlap(boxes, dboxes).any(axis=1)
             for i in np.nonzero(hit)[0]:
                 if id(items[i][0]) in legend_texts:
-                    continue       # reported once, as the legend's box below
+                    continue  # reported once, as the legend's box below
                 found.append(f"text {items[i][0].get_text()!r} lies on data ({type(art).__name__})")
         for lg, bb in legends(fig):
             if _boxes_overlap([[bb.x0, bb.y0, bb.x1, bb.y1]], dboxes).any():
-                found.append(f"legend {[t.get_text() for t in lg.get_texts()][:3]} lies on data "
-                             f"({type(art).__name__})")
+                found.append(
+                    f"legend {[t.get_text() for t in lg.get_texts()][:3]} lies on data "
+                    f"({type(art).__name__})"
+                )
     return found
 
 

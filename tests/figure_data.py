@@ -31,13 +31,13 @@ from mkforest.engine.pairs import custom_hypothesis, hypothesis_model, make_pair
 
 @dataclass
 class FigureData:
-    traits: dict                       # name -> Trait
-    models: dict                       # analysis -> {model: RateModel}
-    pairs: dict                        # pair name -> TraitPair
-    tree: object                       # TreeArrays, the summary tree
+    traits: dict  # name -> Trait
+    models: dict  # analysis -> {model: RateModel}
+    pairs: dict  # pair name -> TraitPair
+    tree: object  # TreeArrays, the summary tree
     n_trees: int
     ordered: set = field(default_factory=set)
-    same_as: dict = field(default_factory=dict)   # (analysis, model) -> model
+    same_as: dict = field(default_factory=dict)  # (analysis, model) -> model
     tables: dict = field(default_factory=dict)
 
 
@@ -65,7 +65,7 @@ def _trait(rng, name, states, taxa, p_missing=0.0, p_ambiguous=0.0):
             values[t] = "|".join(rng.choice(states, 2, replace=False))
         else:
             values[t] = str(rng.choice(states))
-    values[taxa[0]] = states[0]            # every state observed at least once
+    values[taxa[0]] = states[0]  # every state observed at least once
     for s, t in zip(states, taxa[1:]):
         values[t] = s
     return trait_from_mapping(name, values, states=states)
@@ -77,19 +77,37 @@ def _rates(rng, data: FigureData):
         base = {}
         for name, model in named.items():
             for tree in range(data.n_trees):
-                row_fit = dict(analysis=analysis, model=name, tree=tree,
-                               same_as=data.same_as.get((analysis, name), ""))
+                row_fit = dict(
+                    analysis=analysis,
+                    model=name,
+                    tree=tree,
+                    same_as=data.same_as.get((analysis, name), ""),
+                )
                 fits.append(row_fit)
                 for a, b, p in model.transitions():
                     mu = base.setdefault((name, a, b), rng.uniform(-1.5, 1.2))
                     rate, bound = float(np.exp(mu + 0.3 * rng.normal())), ""
                     if (hash((analysis, a, b)) % 3 == 0) and rng.random() < 0.3:
                         rate, bound = 1e-6, "lower"
-                    if analysis == "habitat" and name == "free" and (a, b) == ("rock", "canopy") \
-                            and tree % 7 == 0:
+                    if (
+                        analysis == "habitat"
+                        and name == "free"
+                        and (a, b) == ("rock", "canopy")
+                        and tree % 7 == 0
+                    ):
                         rate, bound = 9000.0, "upper"
-                    rows.append(dict(analysis=analysis, model=name, tree=tree, from_state=a,
-                                     to_state=b, rate=rate, parameter=str(p), at_bound=bound))
+                    rows.append(
+                        dict(
+                            analysis=analysis,
+                            model=name,
+                            tree=tree,
+                            from_state=a,
+                            to_state=b,
+                            rate=rate,
+                            parameter=str(p),
+                            at_bound=bound,
+                        )
+                    )
     fits = pd.DataFrame(fits)
     fits["weight"] = rng.dirichlet(np.ones(1), len(fits))[:, 0] * rng.random(len(fits))
     fits.loc[fits["same_as"] != "", "weight"] = np.nan
@@ -99,18 +117,36 @@ def _rates(rng, data: FigureData):
 def _support(data: FigureData, fits: pd.DataFrame):
     rows = []
     for (a, m), g in fits.groupby(["analysis", "model"], sort=False):
-        rows.append(dict(analysis=a, model=m, n_trees=len(g), mean_weight=g["weight"].mean(),
-                         same_as=data.same_as.get((a, m), "")))
+        rows.append(
+            dict(
+                analysis=a,
+                model=m,
+                n_trees=len(g),
+                mean_weight=g["weight"].mean(),
+                same_as=data.same_as.get((a, m), ""),
+            )
+        )
     return pd.DataFrame(rows)
 
 
 def _rate_summary(rates: pd.DataFrame):
     rows = []
-    for (a, m, f, t), g in rates.groupby(["analysis", "model", "from_state", "to_state"], sort=False):
+    for (a, m, f, t), g in rates.groupby(
+        ["analysis", "model", "from_state", "to_state"], sort=False
+    ):
         x = g["rate"].to_numpy(float)
-        rows.append(dict(analysis=a, model=m, from_state=f, to_state=t, n_trees=len(x),
-                         median_rate=np.median(x), rate_low95=np.quantile(x, 0.025),
-                         rate_high95=np.quantile(x, 0.975)))
+        rows.append(
+            dict(
+                analysis=a,
+                model=m,
+                from_state=f,
+                to_state=t,
+                n_trees=len(x),
+                median_rate=np.median(x),
+                rate_low95=np.quantile(x, 0.025),
+                rate_high95=np.quantile(x, 0.975),
+            )
+        )
     return pd.DataFrame(rows)
 
 
@@ -120,8 +156,15 @@ def _per_tree_changes(rng, data: FigureData):
         states = next(iter(named.values())).states
         for tree in range(data.n_trees):
             for a, b in itertools.permutations(states, 2):
-                rows.append(dict(analysis=analysis, tree=tree, from_state=a, to_state=b,
-                                 mean_count=float(rng.gamma(2.0, 2.0))))
+                rows.append(
+                    dict(
+                        analysis=analysis,
+                        tree=tree,
+                        from_state=a,
+                        to_state=b,
+                        mean_count=float(rng.gamma(2.0, 2.0)),
+                    )
+                )
     return pd.DataFrame(rows)
 
 
@@ -132,43 +175,82 @@ def _ancestral(rng, data: FigureData):
     clades, rows = [], []
     for v in range(tree.n_tips, tree.n_nodes):
         freq = 1.0 if rng.random() < 0.6 else float(np.round(rng.uniform(0.3, 1.0), 2))
-        clades.append(dict(clade=names[v], kind="consensus", n_tips=len(sets[v]), frequency=freq,
-                           n_trees_with_clade=int(freq * data.n_trees), key="k",
-                           members=",".join(sorted(sets[v]))))
+        clades.append(
+            dict(
+                clade=names[v],
+                kind="consensus",
+                n_tips=len(sets[v]),
+                frequency=freq,
+                n_trees_with_clade=int(freq * data.n_trees),
+                key="k",
+                members=",".join(sorted(sets[v])),
+            )
+        )
     for analysis, named in data.models.items():
         states = next(iter(named.values())).states
         for c in clades:
             p = rng.dirichlet(np.full(len(states), 0.4))
             for s, x in zip(states, p):
-                rows.append(dict(analysis=analysis, clade=c["clade"], clade_kind="consensus",
-                                 clade_frequency=c["frequency"], n_trees=data.n_trees, state=s,
-                                 mean_probability=x))
+                rows.append(
+                    dict(
+                        analysis=analysis,
+                        clade=c["clade"],
+                        clade_kind="consensus",
+                        clade_frequency=c["frequency"],
+                        n_trees=data.n_trees,
+                        state=s,
+                        mean_probability=x,
+                    )
+                )
     return pd.DataFrame(rows), pd.DataFrame(clades)
 
 
 def _pair_tests(rng, data: FigureData):
     tests, boot = [], []
     for name in data.pairs:
-        for null, alt, df in (("independent", "dependent", 4),
-                              ("independent", "first_depends_on_second", 2)):
+        for null, alt, df in (
+            ("independent", "dependent", 4),
+            ("independent", "first_depends_on_second", 2),
+        ):
             if null not in data.models[name] or alt not in data.models[name]:
                 continue
             for tree in range(data.n_trees):
                 stat = float(rng.chisquare(df) * (2.5 if name.startswith("shell") else 1.0))
-                tests.append(dict(pair=name, null=null, alternative=alt, tree=tree, df=df,
-                                  alpha=0.05, statistic=stat))
+                tests.append(
+                    dict(
+                        pair=name,
+                        null=null,
+                        alternative=alt,
+                        tree=tree,
+                        df=df,
+                        alpha=0.05,
+                        statistic=stat,
+                    )
+                )
                 if tree in (0, data.n_trees // 2, data.n_trees - 1):
                     for rep in range(99):
-                        boot.append(dict(pair=name, null=null, alternative=alt, tree=tree,
-                                         replicate=rep, statistic=float(rng.chisquare(df))))
+                        boot.append(
+                            dict(
+                                pair=name,
+                                null=null,
+                                alternative=alt,
+                                tree=tree,
+                                replicate=rep,
+                                statistic=float(rng.chisquare(df)),
+                            )
+                        )
     return pd.DataFrame(tests), pd.DataFrame(boot)
 
 
 def _finish(rng, data: FigureData):
     rates, fits = _rates(rng, data)
-    data.tables = dict(rates=rates, fits=fits, model_support=_support(data, fits),
-                       rate_summary=_rate_summary(rates),
-                       transitions_per_tree=_per_tree_changes(rng, data))
+    data.tables = dict(
+        rates=rates,
+        fits=fits,
+        model_support=_support(data, fits),
+        rate_summary=_rate_summary(rates),
+        transitions_per_tree=_per_tree_changes(rng, data),
+    )
     states, clades = _ancestral(rng, data)
     data.tables.update(ancestral_states=states, clades=clades)
     tests, boot = _pair_tests(rng, data)
@@ -177,8 +259,10 @@ def _finish(rng, data: FigureData):
 
 
 def _trait_models(trait, kinds):
-    return {name: build_model(kind, trait.states, transitions, name)
-            for name, (kind, transitions) in kinds.items()}
+    return {
+        name: build_model(kind, trait.states, transitions, name)
+        for name, (kind, transitions) in kinds.items()
+    }
 
 
 def _pair_models(pair, hypotheses, custom=None):
@@ -199,26 +283,52 @@ def demo_like(seed: int = 7) -> FigureData:
         "aperture": _trait(rng, "aperture", ["round", "toothed"], taxa),
         "glow": _trait(rng, "glow", ["dull", "glowing"], taxa, 0.03),
     }
-    basic = {"one_rate": ("equal", None), "mirrored": ("symmetric", None),
-             "free": ("unconstrained", None)}
+    basic = {
+        "one_rate": ("equal", None),
+        "mirrored": ("symmetric", None),
+        "free": ("unconstrained", None),
+    }
     models = {t: _trait_models(traits[t], basic) for t in traits}
-    models["size"].update(_trait_models(traits["size"], {"stepwise": ("custom", {
-        "small -> medium -> large": "grow", "large -> medium -> small": "shrink"})}))
-    models["glow"].update(_trait_models(traits["glow"], {"no_regain": ("custom", {
-        "glowing -> dull": "loss"})}))
+    models["size"].update(
+        _trait_models(
+            traits["size"],
+            {
+                "stepwise": (
+                    "custom",
+                    {"small -> medium -> large": "grow", "large -> medium -> small": "shrink"},
+                )
+            },
+        )
+    )
+    models["glow"].update(
+        _trait_models(traits["glow"], {"no_regain": ("custom", {"glowing -> dull": "loss"})})
+    )
     same_as = {(t, "mirrored"): "one_rate" for t in ("banding", "aperture", "glow")}
     shell = make_pair("shell_pattern", traits["banding"], traits["aperture"])
     glowb = make_pair("glow_banding", traits["glow"], traits["banding"])
     models["shell_pattern"] = _pair_models(
-        shell, ["independent", "dependent", "first_depends_on_second"],
-        {"toothed_first": {"plain+round <-> plain+toothed": "reshape",
-                           "banded+round <-> banded+toothed": "reshape",
-                           "plain+toothed -> banded+toothed": "banding_gain",
-                           "banded+round -> plain+round": "banding_loss",
-                           "banded+toothed -> plain+toothed": "banding_loss"}})
+        shell,
+        ["independent", "dependent", "first_depends_on_second"],
+        {
+            "toothed_first": {
+                "plain+round <-> plain+toothed": "reshape",
+                "banded+round <-> banded+toothed": "reshape",
+                "plain+toothed -> banded+toothed": "banding_gain",
+                "banded+round -> plain+round": "banding_loss",
+                "banded+toothed -> plain+toothed": "banding_loss",
+            }
+        },
+    )
     models["glow_banding"] = _pair_models(glowb, ["independent", "dependent"])
-    data = FigureData(traits, models, {"shell_pattern": shell, "glow_banding": glowb}, tree,
-                      n_trees=40, ordered={"size"}, same_as=same_as)
+    data = FigureData(
+        traits,
+        models,
+        {"shell_pattern": shell, "glow_banding": glowb},
+        tree,
+        n_trees=40,
+        ordered={"size"},
+        same_as=same_as,
+    )
     return _finish(rng, data)
 
 
@@ -227,19 +337,43 @@ def large(seed: int = 11, n_tips: int = 300) -> FigureData:
     tree = random_tree(rng, n_tips, "Taxon")
     taxa = list(tree.tip_labels)
     traits = {
-        "substrate": _trait(rng, "substrate", ["sand", "mud", "gravel", "bedrock"], taxa,
-                            0.05, 0.05),
+        "substrate": _trait(
+            rng, "substrate", ["sand", "mud", "gravel", "bedrock"], taxa, 0.05, 0.05
+        ),
         "depth": _trait(rng, "depth", ["shallow", "mid", "deep", "abyssal"], taxa, 0.02),
         "shell": _trait(rng, "shell", ["thin", "thick"], taxa, 0.03),
     }
-    basic = {"one_rate": ("equal", None), "mirrored": ("symmetric", None),
-             "free": ("unconstrained", None)}
+    basic = {
+        "one_rate": ("equal", None),
+        "mirrored": ("symmetric", None),
+        "free": ("unconstrained", None),
+    }
     models = {t: _trait_models(traits[t], basic) for t in traits}
-    models["depth"].update(_trait_models(traits["depth"], {"stepwise": ("custom", {
-        "shallow -> mid -> deep -> abyssal": "down", "abyssal -> deep -> mid -> shallow": "up"})}))
+    models["depth"].update(
+        _trait_models(
+            traits["depth"],
+            {
+                "stepwise": (
+                    "custom",
+                    {
+                        "shallow -> mid -> deep -> abyssal": "down",
+                        "abyssal -> deep -> mid -> shallow": "up",
+                    },
+                )
+            },
+        )
+    )
     pair = make_pair("substrate_shell", traits["substrate"], traits["shell"])
     models["substrate_shell"] = _pair_models(
-        pair, ["independent", "dependent", "first_depends_on_second", "second_depends_on_first"])
-    data = FigureData(traits, models, {"substrate_shell": pair}, tree, n_trees=25,
-                      ordered={"depth"}, same_as={("shell", "mirrored"): "one_rate"})
+        pair, ["independent", "dependent", "first_depends_on_second", "second_depends_on_first"]
+    )
+    data = FigureData(
+        traits,
+        models,
+        {"substrate_shell": pair},
+        tree,
+        n_trees=25,
+        ordered={"depth"},
+        same_as={("shell", "mirrored"): "one_rate"},
+    )
     return _finish(rng, data)

@@ -32,9 +32,12 @@ def base_config(**changes) -> dict:
         "run": RUN,
         "seed": 11,
         "trees": {"file": "data/trees.nex", "burnin": 1, "per_job": 5},
-        "traits": {"file": "data/traits.tsv", "taxon_column": "taxon",
-                   "columns": ["glow", "habitat"],
-                   "order": {"habitat": ["litter", "rock", "canopy"]}},
+        "traits": {
+            "file": "data/traits.tsv",
+            "taxon_column": "taxon",
+            "columns": ["glow", "habitat"],
+            "order": {"habitat": ["litter", "rock", "canopy"]},
+        },
         "models": {"one_rate": {"kind": "equal"}, "free": {"kind": "unconstrained"}},
         "fitting": {"starts": 2},
         "ancestral": {"enabled": False},
@@ -74,5 +77,6 @@ def copy_run(src: Path, dst: Path) -> Path:
 def mkforest(*args, cwd=None) -> subprocess.CompletedProcess:
     """The installed command line, as a user runs it."""
     env = dict(os.environ, PYTHONPATH=str(REPO))
-    return subprocess.run([MKFOREST, *map(str, args)], capture_output=True, text=True, cwd=cwd,
-                          env=env, timeout=300)
+    return subprocess.run(
+        [MKFOREST, *map(str, args)], capture_output=True, text=True, cwd=cwd, env=env, timeout=300
+    )

@@ -35,6 +35,7 @@ import scipy.linalg
 
 # --------------------------------------------------------------------------- trees
 
+
 @dataclass
 class RefTree:
     """A rooted tree as plain arrays, built without mkforest.
@@ -62,8 +63,9 @@ class RefTree:
 
 def ref_tree_from_newick(text: str) -> RefTree:
     """Parse one Newick tree with DendroPy into a RefTree (root branch ignored)."""
-    tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True,
-                             rooting="force-rooted")
+    tree = dendropy.Tree.get(
+        data=text, schema="newick", preserve_underscores=True, rooting="force-rooted"
+    )
     nodes = list(tree.preorder_node_iter())
     tips = [nd for nd in nodes if nd.is_leaf()]
     inner = [nd for nd in nodes if not nd.is_leaf()]
@@ -140,6 +142,7 @@ def newick_from_arrays(tip_labels, parent, length, rng=None, digits=17) -> str:
 
 
 # --------------------------------------------------------------------------- rate matrices
+
 
 def transition_matrix(Q, t) -> np.ndarray:
     """P(t) = expm(Q t) -- scipy.linalg.expm (general-purpose reference library)."""
@@ -232,6 +235,7 @@ def combine_root(L, root, Q, states=None, allow_nonunique=False) -> float:
 
 # --------------------------------------------------------------------------- brute force
 
+
 def brute_force_root_likelihoods(tree, tip_partials, Q) -> np.ndarray:
     """L_i = P(tip data | root state i), by summing over every interior-node assignment.
 
@@ -277,6 +281,7 @@ def brute_force_log_likelihood(tree, tip_partials, Q, root="uniform", states=Non
 
 
 # --------------------------------------------------------------------------- plain pruning
+
 
 def pruning_root_log_partials(tree, tip_partials, Q):
     """Pruning with one expm per branch and per-node rescaling.
@@ -325,6 +330,7 @@ def pruning_log_likelihood(tree, tip_partials, Q, root="uniform", states=None) -
 
 # --------------------------------------------------------------------------- simulation
 
+
 def simulate_reference(tree, Q, rng, root_state) -> np.ndarray:
     """States at every node: each child drawn from row P_{parent state}(t) of expm(Q t)."""
     Q = np.asarray(Q, dtype=float)
@@ -343,6 +349,7 @@ def simulate_reference(tree, Q, rng, root_state) -> np.ndarray:
 
 
 # --------------------------------------------------------------------------- hidden rate classes
+
 
 def reference_hidden_q(class_qs, switch) -> np.ndarray:
     """Rate matrix on the combined states (state s, class c), index c * k + s, written entry
@@ -393,6 +400,7 @@ def reference_hidden_log_likelihood(tree, tip_partials, Q, root, n_classes, stat
 
 # --------------------------------------------------------------------------- branch-length treatments
 
+
 def transformed_newick(text: str, treatment: str, theta: float | None = None) -> str:
     """The tree with its branch lengths transformed, done node by node on a DendroPy tree
     (independently of mkforest.engine.branches) and written back as Newick.
@@ -411,8 +419,9 @@ def transformed_newick(text: str, treatment: str, theta: float | None = None) ->
     """
     import scipy.integrate
 
-    tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True,
-                             rooting="force-rooted")
+    tree = dendropy.Tree.get(
+        data=text, schema="newick", preserve_underscores=True, rooting="force-rooted"
+    )
     root = tree.seed_node
     dist = {}
     for nd in tree.preorder_node_iter():
@@ -427,17 +436,19 @@ def transformed_newick(text: str, treatment: str, theta: float | None = None) ->
         if treatment == "unit":
             new[nd] = 1.0 if t > 0 else 0.0
         elif treatment == "kappa":
-            new[nd] = t ** theta if t > 0 else 0.0
+            new[nd] = t**theta if t > 0 else 0.0
         elif treatment == "lambda":
             new[nd] = (s1 - theta * s0) if nd.is_leaf() else theta * t
         elif treatment == "delta":
             new[nd] = height * ((s1 / height) ** theta - (s0 / height) ** theta)
         elif treatment == "early_burst":
-            new[nd] = scipy.integrate.quad(lambda s: math.exp(theta * s), s0, s1,
-                                           epsabs=0.0, epsrel=1e-13)[0]
+            new[nd] = scipy.integrate.quad(
+                lambda s: math.exp(theta * s), s0, s1, epsabs=0.0, epsrel=1e-13
+            )[0]
         else:
             raise ValueError(treatment)
     for nd, length in new.items():
         nd.edge.length = length
-    return tree.as_string(schema="newick", suppress_rooting=True,
-                          real_value_format_specifier=".17g").strip()
+    return tree.as_string(
+        schema="newick", suppress_rooting=True, real_value_format_specifier=".17g"
+    ).strip()

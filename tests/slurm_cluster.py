@@ -30,8 +30,8 @@ import socket
 import subprocess
 import sys
 import time
+from collections.abc import Iterator, Sequence
 from pathlib import Path
-from typing import Iterator, Sequence
 
 PACKAGES = ("slurmctld", "slurmd", "slurm-client", "munge")
 # One executable from each package, looked up to decide whether to install.
@@ -75,7 +75,9 @@ class Cluster:
     install_seconds: float = 0.0
     bringup_seconds: float = 0.0
 
-    def run(self, *args: str, timeout: float = 30, check: bool = True) -> subprocess.CompletedProcess:
+    def run(
+        self, *args: str, timeout: float = 30, check: bool = True
+    ) -> subprocess.CompletedProcess:
         """Run a SLURM client command (``sbatch``, ``squeue``...) against this cluster."""
         return subprocess.run(
             list(args), env=self.env, capture_output=True, text=True, timeout=timeout, check=check
@@ -116,14 +118,20 @@ def ensure_packages(log: Path) -> float:
     commands.append(["apt-get", "install", "-y", *PACKAGES])
     with open(log, "a") as out:
         for command in commands:
-            result = subprocess.run(command, stdout=out, stderr=subprocess.STDOUT, env=env, timeout=900)
+            result = subprocess.run(
+                command, stdout=out, stderr=subprocess.STDOUT, env=env, timeout=900
+            )
             if result.returncode != 0:
-                raise ClusterError(f"`{' '.join(command)}` failed (exit {result.returncode}); see {log}")
+                raise ClusterError(
+                    f"`{' '.join(command)}` failed (exit {result.returncode}); see {log}"
+                )
             if command[1] == "update":
                 _apt_updated = True
     still_missing = missing_executables()
     if still_missing:
-        raise ClusterError(f"after installing {PACKAGES}, still missing: {still_missing}; see {log}")
+        raise ClusterError(
+            f"after installing {PACKAGES}, still missing: {still_missing}; see {log}"
+        )
     return time.monotonic() - start
 
 
@@ -241,7 +249,9 @@ def _munge_works() -> bool:
         cred = subprocess.run([_which("munge"), "-n"], capture_output=True, timeout=10)
         if cred.returncode != 0:
             return False
-        check = subprocess.run([_which("unmunge")], input=cred.stdout, capture_output=True, timeout=10)
+        check = subprocess.run(
+            [_which("unmunge")], input=cred.stdout, capture_output=True, timeout=10
+        )
         return check.returncode == 0
     except (OSError, subprocess.TimeoutExpired):
         return False
@@ -254,12 +264,16 @@ def _prepare_munge() -> None:
     MUNGE_RUN_DIR.chmod(0o755)
     if not MUNGE_KEY.exists():
         MUNGE_KEY.parent.mkdir(parents=True, exist_ok=True)
-        subprocess.run([_which("mungekey"), "--create", "--keyfile", str(MUNGE_KEY)], check=True, timeout=30)
+        subprocess.run(
+            [_which("mungekey"), "--create", "--keyfile", str(MUNGE_KEY)], check=True, timeout=30
+        )
     os.chown(MUNGE_KEY, user.pw_uid, user.pw_gid)
     MUNGE_KEY.chmod(0o400)
 
 
-def _start(command: Sequence[str], log: Path, env: dict[str, str], user: str | None = None) -> subprocess.Popen:
+def _start(
+    command: Sequence[str], log: Path, env: dict[str, str], user: str | None = None
+) -> subprocess.Popen:
     with open(log, "ab") as out:
         return subprocess.Popen(
             list(command),
@@ -310,7 +324,10 @@ def _wait_until(condition, timeout: float, what: str, logs: Sequence[Path], proc
 def _node_state(cluster_env: dict[str, str], node: str) -> str:
     result = subprocess.run(
         [_which("sinfo"), "-h", "-N", "-n", node, "-o", "%T"],
-        env=cluster_env, capture_output=True, text=True, timeout=10,
+        env=cluster_env,
+        capture_output=True,
+        text=True,
+        timeout=10,
     )
     return result.stdout.strip().lower() if result.returncode == 0 else ""
 
@@ -337,12 +354,21 @@ def _teardown(cluster_env, node_processes, munged, workdir: Path, conf: Path) ->
     slurmctld = node_processes.get("slurmctld")
     if slurmctld is not None and slurmctld.poll() is None:
         try:
-            subprocess.run([_which("scancel"), "--partition", PARTITION], env=cluster_env,
-                           capture_output=True, timeout=15)
+            subprocess.run(
+                [_which("scancel"), "--partition", PARTITION],
+                env=cluster_env,
+                capture_output=True,
+                timeout=15,
+            )
             deadline = time.monotonic() + 15
             while time.monotonic() < deadline:
-                queue = subprocess.run([_which("squeue"), "-h", "-t", "PD,R,CG", "-o", "%i"],
-                                       env=cluster_env, capture_output=True, text=True, timeout=10)
+                queue = subprocess.run(
+                    [_which("squeue"), "-h", "-t", "PD,R,CG", "-o", "%i"],
+                    env=cluster_env,
+                    capture_output=True,
+                    text=True,
+                    timeout=10,
+                )
                 if queue.returncode != 0 or not queue.stdout.strip():
                     break
                 time.sleep(0.5)
@@ -391,27 +417,51 @@ def one_node_slurm(workdir: Path | str, start_timeout: float = 60) -> Iterator[C
     try:
         if not _munge_works():  # reuse a munged that is already serving, never stop it
             _prepare_munge()
-            munged = _start([_which("munged"), "--foreground", "--force"], logs / "munged.log",
-                            dict(os.environ), user="munge")
+            munged = _start(
+                [_which("munged"), "--foreground", "--force"],
+                logs / "munged.log",
+                dict(os.environ),
+                user="munge",
+            )
             _wait_until(_munge_works, 15, "munged did not answer", [logs / "munged.log"], [munged])
-        processes["slurmctld"] = _start([_which("slurmctld"), "-D", "-f", str(conf)],
-                                        logs / "slurmctld.out", env)
-        _wait_until(
-            lambda: subprocess.run([_which("scontrol"), "ping"], env=env, capture_output=True,
-                                   text=True, timeout=10).stdout.count("UP") > 0,
-            start_timeout, "slurmctld did not come up",
-            [logs / "slurmctld.out", logs / "slurmctld.log"], [processes["slurmctld"]],
+        processes["slurmctld"] = _start(
+            [_which("slurmctld"), "-D", "-f", str(conf)], logs / "slurmctld.out", env
         )
-        processes["slurmd"] = _start([_which("slurmd"), "-D", "-f", str(conf)], logs / "slurmd.out", env)
+        _wait_until(
+            lambda: (
+                subprocess.run(
+                    [_which("scontrol"), "ping"],
+                    env=env,
+                    capture_output=True,
+                    text=True,
+                    timeout=10,
+                ).stdout.count("UP")
+                > 0
+            ),
+            start_timeout,
+            "slurmctld did not come up",
+            [logs / "slurmctld.out", logs / "slurmctld.log"],
+            [processes["slurmctld"]],
+        )
+        processes["slurmd"] = _start(
+            [_which("slurmd"), "-D", "-f", str(conf)], logs / "slurmd.out", env
+        )
         _wait_until(
             lambda: _node_state(env, node) in ("idle", "mixed", "allocated"),
-            start_timeout, f"node {node} did not become idle (state: {_node_state(env, node)!r})",
+            start_timeout,
+            f"node {node} did not become idle (state: {_node_state(env, node)!r})",
             [logs / "slurmd.out", logs / "slurmd.log", logs / "slurmctld.log"],
             [processes["slurmctld"], processes["slurmd"]],
         )
         cluster = Cluster(
-            workdir=workdir, conf=conf, node=node, partition=PARTITION, cpus=cpus,
-            real_memory_mb=memory, env=env, install_seconds=install_seconds,
+            workdir=workdir,
+            conf=conf,
+            node=node,
+            partition=PARTITION,
+            cpus=cpus,
+            real_memory_mb=memory,
+            env=env,
+            install_seconds=install_seconds,
             bringup_seconds=time.monotonic() - started,
         )
         yield cluster
@@ -436,8 +486,12 @@ class SnakemakeRun:
 
 
 def run_snakemake_bounded(
-    args: Sequence[str], cwd: Path, timeout: float, env: dict[str, str] | None = None,
-    log: Path | None = None, grace: float = 60,
+    args: Sequence[str],
+    cwd: Path,
+    timeout: float,
+    env: dict[str, str] | None = None,
+    log: Path | None = None,
+    grace: float = 60,
 ) -> SnakemakeRun:
     """Run ``python -m snakemake *args``; after ``timeout`` s send SIGINT, after ``grace`` more SIGKILL.
 
@@ -449,8 +503,12 @@ def run_snakemake_bounded(
     timed_out = False
     with open(log, "wb") as out:
         process = subprocess.Popen(
-            [sys.executable, "-m", "snakemake", *args], cwd=cwd, env=env,
-            stdin=subprocess.DEVNULL, stdout=out, stderr=subprocess.STDOUT,
+            [sys.executable, "-m", "snakemake", *args],
+            cwd=cwd,
+            env=env,
+            stdin=subprocess.DEVNULL,
+            stdout=out,
+            stderr=subprocess.STDOUT,
         )
         try:
             process.wait(timeout=timeout)
@@ -473,18 +531,24 @@ def main(argv: Sequence[str]) -> int:
     workdir = Path(tempfile.mkdtemp(prefix="mkf-slurm-"))
     t0 = time.monotonic()
     with one_node_slurm(workdir) as cluster:
-        print(f"install: {cluster.install_seconds:.1f} s  bring-up: {cluster.bringup_seconds:.1f} s  "
-              f"node {cluster.node}: {cluster.cpus} CPUs, {cluster.real_memory_mb} MiB")
+        print(
+            f"install: {cluster.install_seconds:.1f} s  bring-up: {cluster.bringup_seconds:.1f} s  "
+            f"node {cluster.node}: {cluster.cpus} CPUs, {cluster.real_memory_mb} MiB"
+        )
         print(cluster.run("sinfo").stdout, end="")
         if hold:
-            print(f"export SLURM_CONF={cluster.conf}   # Ctrl-C or SIGTERM to tear down", flush=True)
+            print(
+                f"export SLURM_CONF={cluster.conf}   # Ctrl-C or SIGTERM to tear down", flush=True
+            )
             for signum in (signal.SIGINT, signal.SIGTERM):
                 signal.signal(signum, signal.default_int_handler)
             with contextlib.suppress(KeyboardInterrupt):
                 while True:
                     time.sleep(3600)
         t1 = time.monotonic()
-    print(f"teardown: {time.monotonic() - t1:.1f} s  total: {time.monotonic() - t0:.1f} s  logs: {workdir / 'logs'}")
+    print(
+        f"teardown: {time.monotonic() - t1:.1f} s  total: {time.monotonic() - t0:.1f} s  logs: {workdir / 'logs'}"
+    )
     return 0
 
 

@@ -42,6 +42,7 @@ TOL = 1e-9
 
 # --------------------------------------------------------------------------- brute force
 
+
 def brute_force_marginals(tree, partials, Q, root, states):
     """Pr(x_v = i | data) for every node of ``tree`` (any node numbering), by enumeration.
 
@@ -106,6 +107,7 @@ def brute_force_marginals(tree, partials, Q, root, states):
 
 def match_nodes(engine_tree, ref_tree):
     """engine node -> reference node, matched by the set of tips below each node."""
+
     def tip_sets(tree):
         parent = [int(p) for p in tree.parent]
         sets = [set() for _ in parent]
@@ -115,6 +117,7 @@ def match_nodes(engine_tree, ref_tree):
                 sets[u].add(tree.tip_labels[v])
                 u = parent[u]
         return [frozenset(s) for s in sets]
+
     ref_index = {s: i for i, s in enumerate(tip_sets(ref_tree))}
     return np.array([ref_index[s] for s in tip_sets(engine_tree)])
 
@@ -124,6 +127,7 @@ def roots_for(states):
 
 
 # --------------------------------------------------------------------------- tests
+
 
 @pytest.mark.parametrize("seed", range(N_CASES))
 def test_marginals_equal_brute_force(seed):
@@ -146,8 +150,13 @@ def test_marginals_equal_brute_force(seed):
             continue
         got = marginal_probabilities(tree, partials, Q, root, tuple(states))
         np.testing.assert_allclose(got.sum(axis=1), 1.0, rtol=0, atol=1e-12)
-        np.testing.assert_allclose(got, expected[order], rtol=0, atol=TOL,
-                                   err_msg=f"seed {seed} root {root!r} tree {case['newick']}")
+        np.testing.assert_allclose(
+            got,
+            expected[order],
+            rtol=0,
+            atol=TOL,
+            err_msg=f"seed {seed} root {root!r} tree {case['newick']}",
+        )
         checked += 1
     assert checked >= 3
 
@@ -210,10 +219,13 @@ def brute_force_branch_joint(tree, partials, Q):
     return J / J[0].sum()
 
 
-@pytest.mark.parametrize("k,seed,roots,n_nodes_checked", [
-    (2, 1, ("uniform",), 2),
-    pytest.param(3, 2, ("uniform", "stationary"), 4, marks=pytest.mark.slow),
-])
+@pytest.mark.parametrize(
+    "k,seed,roots,n_nodes_checked",
+    [
+        (2, 1, ("uniform",), 2),
+        pytest.param(3, 2, ("uniform", "stationary"), 4, marks=pytest.mark.slow),
+    ],
+)
 def test_large_tree_against_pendant_tip_reference(k, seed, roots, n_nodes_checked):
     """1,000 tips (ln L is about -870: the likelihood underflows without rescaling): the marginal at a
     node equals L(data + a zero-length pendant tip fixed in state i) / sum over i, each
@@ -239,7 +251,9 @@ def test_large_tree_against_pendant_tip_reference(k, seed, roots, n_nodes_checke
             # every other node moves up by one (the reference needs only tips first)
             shifted = type("PendantTree", (), {})()
             shifted.tip_labels = ("__pendant__", *tree.tip_labels)
-            shifted.parent = np.concatenate([[v + 1], np.where(tree.parent >= 0, tree.parent + 1, -1)])
+            shifted.parent = np.concatenate(
+                [[v + 1], np.where(tree.parent >= 0, tree.parent + 1, -1)]
+            )
             shifted.length = np.concatenate([[0.0], tree.length])
             for i in range(k):
                 pp = np.vstack([np.eye(k)[i], partials])
@@ -247,8 +261,9 @@ def test_large_tree_against_pendant_tip_reference(k, seed, roots, n_nodes_checke
             lnl = np.array(lnl)
             expected = np.exp(lnl - lnl.max())
             expected /= expected.sum()
-            np.testing.assert_allclose(got[v], expected, rtol=0, atol=TOL,
-                                       err_msg=f"node {v} root {root}")
+            np.testing.assert_allclose(
+                got[v], expected, rtol=0, atol=TOL, err_msg=f"node {v} root {root}"
+            )
 
 
 def test_model_average_is_weighted_mean_of_brute_force():

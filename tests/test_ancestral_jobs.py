@@ -7,8 +7,6 @@ Sources: Akaike weights w_i = exp(-d_i/2) / sum_j exp(-d_j/2) (Burnham & Anderso
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import pandas as pd
 import pytest
@@ -35,8 +33,9 @@ def test_model_weights_follow_akaike_formula():
 
 
 def test_rate_rows_to_q_and_model_fallback():
-    rows = pd.DataFrame({"from_state": ["x", "y", "y"], "to_state": ["y", "x", "z"],
-                         "rate": [0.5, 0.2, 1.5]})
+    rows = pd.DataFrame(
+        {"from_state": ["x", "y", "y"], "to_state": ["y", "x", "z"], "rate": [0.5, 0.2, 1.5]}
+    )
     Q = q_from_rate_rows(rows, ("x", "y", "z"))
     np.testing.assert_allclose(Q.sum(axis=1), 0.0, atol=1e-15)
     assert Q[1, 2] == 1.5 and Q[2].sum() == 0 and Q[0, 2] == 0
@@ -48,31 +47,65 @@ def test_rate_rows_to_q_and_model_fallback():
 def fake_chunk(n_trees=4):
     k = 2
     prob = np.full((n_trees, 3, k), np.nan)
-    prob[:, 0] = [0.7, 0.3]            # root: every tree
-    prob[:1, 1] = [0.2, 0.8]           # a rare consensus clade: one tree only
-    prob[:, 2] = [0.5, 0.5]            # a named clade (MRCA): every tree
+    prob[:, 0] = [0.7, 0.3]  # root: every tree
+    prob[:1, 1] = [0.2, 0.8]  # a rare consensus clade: one tree only
+    prob[:, 2] = [0.5, 0.5]  # a named clade (MRCA): every tree
     extra = np.zeros((n_trees, 3), dtype=int)
     extra[1:, 1] = -1
-    extra[2, 2] = 3                    # not monophyletic in one tree
+    extra[2, 2] = 3  # not monophyletic in one tree
     counts = np.ones((n_trees, 5, k, k), dtype=np.int32)
     dwell = np.full((n_trees, 5, k), 2.0)
-    return dict(tree=np.arange(n_trees), prob=prob, extra=extra, counts=counts, dwell=dwell,
-                weights=np.ones((n_trees, 1)), unconverged_weight=np.array([0.0, 0.5, 0, 0])[:n_trees],
-                bound_weight=np.zeros(n_trees), skipped=np.zeros(n_trees, dtype=bool),
-                map_model=np.zeros((n_trees, 5), dtype=np.int16),
-                model_at_upper=np.zeros((n_trees, 1), dtype=bool),
-                states=["off", "on"], models=["m"], clades=["root", "rare", "mine"],
-                choice="average", choice_note="")
+    return dict(
+        tree=np.arange(n_trees),
+        prob=prob,
+        extra=extra,
+        counts=counts,
+        dwell=dwell,
+        weights=np.ones((n_trees, 1)),
+        unconverged_weight=np.array([0.0, 0.5, 0, 0])[:n_trees],
+        bound_weight=np.zeros(n_trees),
+        skipped=np.zeros(n_trees, dtype=bool),
+        map_model=np.zeros((n_trees, 5), dtype=np.int16),
+        model_at_upper=np.zeros((n_trees, 1), dtype=bool),
+        states=["off", "on"],
+        models=["m"],
+        clades=["root", "rare", "mine"],
+        choice="average",
+        choice_note="",
+    )
 
 
-CLADES = pd.DataFrame([
-    dict(clade="root", kind="consensus", n_tips=5, frequency=1.0, n_trees_with_clade=4, key="r",
-         members="a,b,c,d,e"),
-    dict(clade="rare", kind="reference", n_tips=2, frequency=0.25, n_trees_with_clade=1, key="x",
-         members="a,b"),
-    dict(clade="mine", kind="named", n_tips=2, frequency=0.75, n_trees_with_clade=3, key="y",
-         members="c,d"),
-])
+CLADES = pd.DataFrame(
+    [
+        dict(
+            clade="root",
+            kind="consensus",
+            n_tips=5,
+            frequency=1.0,
+            n_trees_with_clade=4,
+            key="r",
+            members="a,b,c,d,e",
+        ),
+        dict(
+            clade="rare",
+            kind="reference",
+            n_tips=2,
+            frequency=0.25,
+            n_trees_with_clade=1,
+            key="x",
+            members="a,b",
+        ),
+        dict(
+            clade="mine",
+            kind="named",
+            n_tips=2,
+            frequency=0.75,
+            n_trees_with_clade=3,
+            key="y",
+            members="c,d",
+        ),
+    ]
+)
 
 
 def test_state_table_says_what_could_mislead():
@@ -84,8 +117,8 @@ def test_state_table_says_what_could_mislead():
     assert "only 25% of the trees" in rare and "only 1 tree contributes" in rare
     mine = t[t["clade"] == "mine"]["caution"].iloc[0]
     assert "not monophyletic in 1 of 4 trees" in mine and "up to 3 other tips" in mine
-    assert "only 4 trees" in mine                     # few trees overall
-    assert "did not converge" in mine                 # tree 2's fits (weight 0.5)
+    assert "only 4 trees" in mine  # few trees overall
+    assert "did not converge" in mine  # tree 2's fits (weight 0.5)
 
 
 def test_transition_tables_pool_maps():
@@ -102,14 +135,23 @@ def test_each_tree_set_is_summarised_on_its_own_trees():
     presence: the clade in 2 of 2 trees of 'a' and 1 of 3 of 'b'; a named MRCA always)."""
     from mkforest.jobs.ancestral import clades_in_set, tree_set_slices
 
-    data = {"tree": np.array([4, 5, 1, 2, 3]),
-            "tree_set": np.array(["a", "a", "b", "b", "b"]),
-            "present": np.array([[1, 0], [1, 0], [1, 0], [0, 0], [0, 0]], dtype=bool),
-            "prob": np.arange(5 * 2 * 2, dtype=float).reshape(5, 2, 2),
-            "states": ["x", "y"], "choice": "average"}
-    clades = pd.DataFrame({"clade": ["c1", "m1"], "kind": ["consensus", "named_mrca"],
-                           "n_tips": [2, 2], "frequency": [0.6, np.nan],
-                           "n_trees_with_clade": [3, 5]})
+    data = {
+        "tree": np.array([4, 5, 1, 2, 3]),
+        "tree_set": np.array(["a", "a", "b", "b", "b"]),
+        "present": np.array([[1, 0], [1, 0], [1, 0], [0, 0], [0, 0]], dtype=bool),
+        "prob": np.arange(5 * 2 * 2, dtype=float).reshape(5, 2, 2),
+        "states": ["x", "y"],
+        "choice": "average",
+    }
+    clades = pd.DataFrame(
+        {
+            "clade": ["c1", "m1"],
+            "kind": ["consensus", "named_mrca"],
+            "n_tips": [2, 2],
+            "frequency": [0.6, np.nan],
+            "n_trees_with_clade": [3, 5],
+        }
+    )
     sliced = tree_set_slices(data)
     assert [ts for ts, _ in sliced] == ["a", "b"]
     a, b = sliced[0][1], sliced[1][1]

@@ -22,14 +22,18 @@ def taxa_of(work):
 
 
 def ancestral_config(work, per_job=2, clades=None):
-    cfg = tiny_config(work)  # writes the data
+    tiny_config(work)  # writes the data
     taxa = sorted(taxa_of(work))
-    clades = clades if clades is not None else {
-        "first_pair": taxa[:2], "wide": {"mrca_of": [taxa[0], taxa[-1]]}}
-    return tiny_config(work, ancestral={"enabled": True, "model": "average", "maps": 20,
-                                        "clades": clades},
-                       trees={"file": str(work / "data" / "trees.nex"), "burnin": 1,
-                              "per_job": per_job})
+    clades = (
+        clades
+        if clades is not None
+        else {"first_pair": taxa[:2], "wide": {"mrca_of": [taxa[0], taxa[-1]]}}
+    )
+    return tiny_config(
+        work,
+        ancestral={"enabled": True, "model": "average", "maps": 20, "clades": clades},
+        trees={"file": str(work / "data" / "trees.nex"), "burnin": 1, "per_job": per_job},
+    )
 
 
 @pytest.fixture(scope="module")
@@ -71,7 +75,7 @@ def test_tables_and_plots(ancestral_run):
         # maps under fits with a rate the data do not bound from above are counted apart
         assert (g["n_maps"] + g["n_maps_at_upper"] == 20 * len(used)).all()
     times = read(work, "state_times")
-    for a, g in times.groupby("analysis"):
+    for _a, g in times.groupby("analysis"):
         # each map's times in state add up to its tree's length
         total = g["mean_time"].sum()
         if (g["n_maps_at_upper"] == 0).all():
@@ -83,7 +87,12 @@ def test_tables_and_plots(ancestral_run):
             assert used["total_length"].min() - 1e-9 <= total <= used["total_length"].max() + 1e-9
 
     plots = work / "results" / "tiny" / "plots"
-    for name in ["changes.png", "changes.svg", "ancestral_tree_glow.png", "ancestral_tree_habitat.svg"]:
+    for name in [
+        "changes.png",
+        "changes.svg",
+        "ancestral_tree_glow.png",
+        "ancestral_tree_habitat.svg",
+    ]:
         assert (plots / name).stat().st_size > 1000, name
 
 
@@ -95,8 +104,12 @@ def test_same_maps_whatever_the_chunking(ancestral_run, tmp_path):
     cfg = ancestral_config(other, per_job=3)
     proc = run_snakemake(other, cfg, "ancestral", cores=1)
     assert proc.returncode == 0, proc.stderr[-3000:]
-    a = read(ancestral_run, "transitions_per_tree").sort_values(["analysis", "tree", "from_state", "to_state"])
-    b = read(other, "transitions_per_tree").sort_values(["analysis", "tree", "from_state", "to_state"])
+    a = read(ancestral_run, "transitions_per_tree").sort_values(
+        ["analysis", "tree", "from_state", "to_state"]
+    )
+    b = read(other, "transitions_per_tree").sort_values(
+        ["analysis", "tree", "from_state", "to_state"]
+    )
     pd.testing.assert_frame_equal(a.reset_index(drop=True), b.reset_index(drop=True))
     sa = read(ancestral_run, "ancestral_states")
     sb = read(other, "ancestral_states")

@@ -5,8 +5,11 @@ from __future__ import annotations
 
 from workflow_helpers import run_snakemake, tiny_config
 
-TRAITS = {"taxon_column": "taxon", "columns": ["glow", "habitat"],
-          "order": {"habitat": ["litter", "rock", "canopy"]}}
+TRAITS = {
+    "taxon_column": "taxon",
+    "columns": ["glow", "habitat"],
+    "order": {"habitat": ["litter", "rock", "canopy"]},
+}
 
 
 def _fails_with(proc, *needles):
@@ -33,9 +36,14 @@ def test_typo_in_a_config_key_names_it(tmp_path):
 
 
 def test_transition_with_unknown_state_fails_before_any_job(tmp_path):
-    models = {"one_rate": {"kind": "equal"},
-              "odd": {"kind": "custom", "applies_to": ["glow"],
-                      "transitions": {"dull -> sparkly": "gain"}}}
+    models = {
+        "one_rate": {"kind": "equal"},
+        "odd": {
+            "kind": "custom",
+            "applies_to": ["glow"],
+            "transitions": {"dull -> sparkly": "gain"},
+        },
+    }
     cfg = tiny_config(tmp_path, models=models)
     _fails_with(run_snakemake(tmp_path, cfg, "--dry-run"), "sparkly", "odd", "glow")
 
@@ -56,7 +64,9 @@ def test_trees_with_different_tips_are_named(tmp_path):
     # rename one taxon in the third tree only (TRANSLATE numbers are used in the trees,
     # so write that tree with a new label for taxon 1)
     idx = [i for i, line in enumerate(text) if line.strip().startswith("TREE")][2]
-    text[idx] = text[idx].replace("(1:", "(Lumasta_intruder:", 1).replace(",1:", ",Lumasta_intruder:", 1)
+    text[idx] = (
+        text[idx].replace("(1:", "(Lumasta_intruder:", 1).replace(",1:", ",Lumasta_intruder:", 1)
+    )
     trees.write_text("\n".join(text) + "\n")
     _fails_with(run_snakemake(tmp_path, cfg), "tree 2", "Lumasta_intruder")
 

@@ -48,8 +48,12 @@ from mkforest.errors import InputError
 
 TOL = 1e-9  # absolute, on ln L, as for the other reference tests
 STATES = ["a", "b", "c"]
-THETAS = {"kappa": [0.0, 0.4, 1.7], "lambda": [0.0, 0.35, 0.9], "delta": [0.3, 0.8, 2.5],
-          "early_burst": [-4.0, -0.7, 1.5]}
+THETAS = {
+    "kappa": [0.0, 0.4, 1.7],
+    "lambda": [0.0, 0.35, 0.9],
+    "delta": [0.3, 0.8, 2.5],
+    "early_burst": [-4.0, -0.7, 1.5],
+}
 
 
 def case(seed, ultrametric):
@@ -58,8 +62,11 @@ def case(seed, ultrametric):
     ambiguous cells simulated by the reference simulator."""
     rng = np.random.default_rng(500 + seed)
     n = int(rng.integers(5, 14))
-    newick = yule_newick(rng, n, height=float(rng.uniform(0.5, 3.0))) if ultrametric \
+    newick = (
+        yule_newick(rng, n, height=float(rng.uniform(0.5, 3.0)))
+        if ultrametric
         else random_newick(rng, n)
+    )
     Q = q_from_rates(rng.uniform(0.1, 1.5, (3, 3)))
     cells = tip_data_mapping(rng, ref_tree_from_newick(newick), Q, STATES)
     return newick, Q, cells
@@ -121,8 +128,9 @@ def test_kappa_zero_is_unit_lengths_without_zero_length_branches():
         newick = random_newick(rng, 9, p_zero=0.0)
         Q = q_from_rates(rng.uniform(0.1, 1.5, (3, 3)))
         cells = tip_data_mapping(rng, ref_tree_from_newick(newick), Q, STATES)
-        assert engine_lnl(newick, Q, cells, Treatment("kappa"), 0.0) == \
-            engine_lnl(newick, Q, cells, Treatment("unit"), None)
+        assert engine_lnl(newick, Q, cells, Treatment("kappa"), 0.0) == engine_lnl(
+            newick, Q, cells, Treatment("unit"), None
+        )
 
 
 def test_lambda_zero_on_an_ultrametric_tree_is_the_star_tree():
@@ -141,13 +149,16 @@ def test_lambda_zero_on_an_ultrametric_tree_is_the_star_tree():
         height = max(depth[v] for v in range(ref.n_tips))
         star = "(" + ",".join(f"{label}:{float(height)!r}" for label in ref.tip_labels) + ");"
         star_tree = ref_tree_from_newick(star)
-        want = pruning_log_likelihood(star_tree, partials_from_cells(cells, star_tree.tip_labels,
-                                                                     STATES), Q)
-        assert engine_lnl(newick, Q, cells, Treatment("lambda"), 0.0) == \
-            pytest.approx(want, abs=TOL)
+        want = pruning_log_likelihood(
+            star_tree, partials_from_cells(cells, star_tree.tip_labels, STATES), Q
+        )
+        assert engine_lnl(newick, Q, cells, Treatment("lambda"), 0.0) == pytest.approx(
+            want, abs=TOL
+        )
 
 
 # --------------------------------------------------------------------------- gradient
+
 
 def _central(f, x, i, h=1e-5):
     up, down = x.copy(), x.copy()
@@ -170,8 +181,10 @@ def test_branch_parameter_gradient_matches_finite_differences(name, ultrametric)
         for root in ("uniform", "data_weighted", "stationary"):
             space = _TreatmentSpace(tree, X, model, root, Treatment(name))
             lo, hi = space.bounds
-            x = np.append(np.log(rng.uniform(0.2, 1.5, model.n_params)),
-                          rng.uniform(lo + 0.1 * (hi - lo), hi - 0.1 * (hi - lo)))
+            x = np.append(
+                np.log(rng.uniform(0.2, 1.5, model.n_params)),
+                rng.uniform(lo + 0.1 * (hi - lo), hi - 0.1 * (hi - lo)),
+            )
             neg, grad = space.objective(x)
             assert -neg == pytest.approx(space.value(x), abs=1e-9)
             for i in range(len(x)):
@@ -182,8 +195,9 @@ def test_branch_parameter_gradient_matches_finite_differences(name, ultrametric)
             assert space.branch_x(np.append(x[:-1], hi)) == BOUNDS[name][1]
             assert space.branch_x(np.append(x[:-1], 0.0)) == NULL_VALUE[name]
             lengths = effective_lengths(tree, Treatment(name), space.branch_x(x))[0]
-            assert log_likelihood(tree.with_lengths(lengths), X, model.q_matrix(space.rates(x)),
-                                  root) == pytest.approx(space.value(x), abs=1e-12)
+            assert log_likelihood(
+                tree.with_lengths(lengths), X, model.q_matrix(space.rates(x)), root
+            ) == pytest.approx(space.value(x), abs=1e-12)
 
 
 def test_per_branch_gradient_matches_finite_differences():
@@ -201,12 +215,14 @@ def test_per_branch_gradient_matches_finite_differences():
         return log_likelihood(tree.with_lengths(lengths), X, Q)
 
     for b in range(tree.n_nodes - 1):
-        assert dlen[b] == pytest.approx(_central(f, tree.length.copy(), b, 1e-6),
-                                        rel=1e-5, abs=1e-6)
+        assert dlen[b] == pytest.approx(
+            _central(f, tree.length.copy(), b, 1e-6), rel=1e-5, abs=1e-6
+        )
     assert dlen[-1] == 0.0
 
 
 # --------------------------------------------------------------------------- fitting
+
 
 def test_estimated_treatment_nests_the_given_lengths():
     rng = np.random.default_rng(21)
@@ -235,18 +251,23 @@ def test_estimated_treatment_nests_the_given_lengths():
 
 def tree_newick(tree):
     from mkforest.data.trees import to_newick
+
     return to_newick(tree, digits=17)
 
 
 # --------------------------------------------------------------------------- config
 
-@pytest.mark.parametrize("spec, words", [
-    ("kapa", "use one of as_given"),
-    ({"lambda": 1.5}, "[0, 1]"),
-    ({"unit": 1}, "has no parameter to fix"),
-    ({"kappa": "big"}, "give a number"),
-    ({"kappa": 1, "delta": 1}, "one fixed"),
-])
+
+@pytest.mark.parametrize(
+    "spec, words",
+    [
+        ("kapa", "use one of as_given"),
+        ({"lambda": 1.5}, "[0, 1]"),
+        ({"unit": 1}, "has no parameter to fix"),
+        ({"kappa": "big"}, "give a number"),
+        ({"kappa": 1, "delta": 1}, "one fixed"),
+    ],
+)
 def test_bad_treatment_names_the_key(spec, words):
     with pytest.raises(InputError) as err:
         parse_treatment(spec, "models.free.branches")
@@ -259,20 +280,23 @@ def test_zero_length_branches_stay_zero_under_unit_and_kappa():
         lengths = transformed_tree(tree, t).length
         assert np.all(lengths[tree.length == 0] == 0)
         assert np.all(lengths[:-1][tree.length[:-1] > 0] > 0)
-    assert math.isclose(transformed_tree(tree, Treatment("kappa", 2.0)).length.sum(), 1 + 4 + 0.25 + 1)
+    assert math.isclose(
+        transformed_tree(tree, Treatment("kappa", 2.0)).length.sum(), 1 + 4 + 0.25 + 1
+    )
 
 
 # --------------------------------------------------------------------------- recovery (small)
+
 
 def test_speciational_change_recovered_by_weights():
     """A binary trait simulated on unit branch lengths (0.3 changes per branch, equal rates)
     on 12 pure-birth trees of 100 tips: unit lengths should carry the largest AICc weight
     against the given lengths and an estimated kappa on most of them (measured: 11 of 12;
     benchmarks/branch_recovery.py runs 50 data sets of this and of an early burst)."""
+    from conftest import yule_arrays
+
     from mkforest.engine.compare import akaike_weights, information_criteria
     from mkforest.engine.simulate import simulate_states, tip_partials_from_states
-
-    from conftest import yule_arrays
 
     model = build_model("equal", ("p", "q"))
     wins = 0
@@ -283,20 +307,33 @@ def test_speciational_change_recovered_by_weights():
         unit = transformed_tree(tree, Treatment("unit"))
         states = simulate_states(unit, model.q_matrix([0.3]), rng)
         X = tip_partials_from_states(states, tree.n_tips, 2)
-        crit = [information_criteria(fit_model(tree, X, model, seed=i, branches=t).log_likelihood,
-                                     1 + t.n_params, tree.n_tips)["aicc"]
-                for t in (Treatment(), Treatment("unit"), Treatment("kappa"))]
+        crit = [
+            information_criteria(
+                fit_model(tree, X, model, seed=i, branches=t).log_likelihood,
+                1 + t.n_params,
+                tree.n_tips,
+            )["aicc"]
+            for t in (Treatment(), Treatment("unit"), Treatment("kappa"))
+        ]
         wins += int(np.argmax(akaike_weights(crit)) == 1)
     assert wins >= 8, wins
 
 
 def tree_newick_from(labels, parent, length):
     from reference import newick_from_arrays
+
     return newick_from_arrays(labels, parent, length)
 
 
-@pytest.mark.parametrize("newick", ["(a:0.3,b:0.7);", "((a:0.2,b:0.2):0.5,c:0.7);",
-                                    "((a:0,b:0.5):0,c:0.5);", "[&R] (a:1,b:1,c:1,d:1);"])
+@pytest.mark.parametrize(
+    "newick",
+    [
+        "(a:0.3,b:0.7);",
+        "((a:0.2,b:0.2):0.5,c:0.7);",
+        "((a:0,b:0.5):0,c:0.5);",
+        "[&R] (a:1,b:1,c:1,d:1);",
+    ],
+)
 def test_tiny_degenerate_and_star_trees_fit_under_every_treatment(newick):
     """Two or three tips, zero-length branches (a tip on its parent, a zero internal branch),
     a star: each fit ends with a finite ln L equal to the engine's on the fit's tree."""
@@ -322,12 +359,28 @@ def test_branch_test_names_a_fit_below_the_given_lengths():
 
     rows = []
     for tree, (given, kappa) in enumerate([(-50.0, -48.0), (-50.0, -50.5), (-50.0, -50.001)]):
-        rows += [{"tree_set": "s", "analysis": "a", "model": "plain", "structure": "equal",
-                  "branches": "as_given", "tree": tree, "log_likelihood": given,
-                  "branch_parameter": np.nan},
-                 {"tree_set": "s", "analysis": "a", "model": "power",
-                  "structure": "equal | branches kappa", "branches": "kappa", "tree": tree,
-                  "log_likelihood": kappa, "branch_parameter": 0.5}]
+        rows += [
+            {
+                "tree_set": "s",
+                "analysis": "a",
+                "model": "plain",
+                "structure": "equal",
+                "branches": "as_given",
+                "tree": tree,
+                "log_likelihood": given,
+                "branch_parameter": np.nan,
+            },
+            {
+                "tree_set": "s",
+                "analysis": "a",
+                "model": "power",
+                "structure": "equal | branches kappa",
+                "branches": "kappa",
+                "tree": tree,
+                "log_likelihood": kappa,
+                "branch_parameter": 0.5,
+            },
+        ]
     per_tree, summary = branch_tests(pd.DataFrame(rows))
     notes = dict(zip(per_tree["tree"], per_tree["note"]))
     assert notes[0] == "" and notes[2] == ""
@@ -336,6 +389,7 @@ def test_branch_test_names_a_fit_below_the_given_lengths():
     assert per_tree.set_index("tree").at[0, "statistic"] == pytest.approx(4.0)
     assert summary["n_below_null"].tolist() == [1]
     from mkforest.report.methods_branches import results_lines
+
     said = " ".join(results_lines("a", {"branch_test_summary": summary}))
     assert "On 1 of 3 trees the fit of power ended below that of plain" in said
 
@@ -389,8 +443,7 @@ def test_fits_on_odd_trees_are_sound_under_every_treatment(seed):
     # a few branches of 1e-9, as some dating programs write them
     parts = newick.split(":")
     for i in rng.choice(np.arange(1, len(parts)), size=3, replace=False):
-        head, sep, tail = parts[i].partition(",") if "," in parts[i] else \
-            parts[i].partition(")")
+        head, sep, tail = parts[i].partition(",") if "," in parts[i] else parts[i].partition(")")
         if head and head[0].isdigit() and float(head) > 0:
             parts[i] = "1e-09" + sep + tail
     newick = ":".join(parts)
@@ -411,8 +464,12 @@ def test_fits_on_odd_trees_are_sound_under_every_treatment(seed):
             theta = res.branch_parameter
             moved = ref_tree_from_newick(transformed_newick(newick, name, theta))
             want = pruning_log_likelihood(
-                moved, partials_from_cells(cells, moved.tip_labels, list(states)),
-                res.q_matrix, "uniform", list(states))
+                moved,
+                partials_from_cells(cells, moved.tip_labels, list(states)),
+                res.q_matrix,
+                "uniform",
+                list(states),
+            )
             assert res.log_likelihood == pytest.approx(want, abs=1e-6), (name, kind, theta)
             checked += 1
     assert checked == 2 * len(ESTIMABLE)
@@ -440,7 +497,10 @@ def test_rates_first_reaches_the_given_lengths_optimum_on_large_trees(name):
         X = tip_partials_from_states(states, tree.n_tips, 2)
         ref = scipy.optimize.minimize_scalar(
             lambda y, tree=tree, X=X: -log_likelihood(tree, X, model.q_matrix(np.exp([y]))),
-            bounds=(-5.0, 8.0), method="bounded", options={"xatol": 1e-8})
+            bounds=(-5.0, 8.0),
+            method="bounded",
+            options={"xatol": 1e-8},
+        )
         best = -ref.fun
         assert best < -150.0
         space = _TreatmentSpace(tree, X, model, "uniform", Treatment(name))

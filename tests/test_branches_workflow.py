@@ -21,37 +21,64 @@ from workflow_helpers import run_snakemake, tiny_config
 
 from mkforest.engine.branch_support import fraction_higher, lrt_p_value
 
-PAIR = {"traits": ["glow", "banding"], "hypotheses": ["independent", "dependent"],
-        "bootstrap": 3, "bootstrap_trees": 2}
-MODELS = {"one_rate": {"kind": "equal"},
-          "per_event": {"kind": "equal", "branches": "unit"},
-          "stretched": {"kind": "equal", "branches": "kappa"},
-          "flat_kappa": {"kind": "equal", "branches": {"kappa": 0}}}
+PAIR = {
+    "traits": ["glow", "banding"],
+    "hypotheses": ["independent", "dependent"],
+    "bootstrap": 3,
+    "bootstrap_trees": 2,
+}
+MODELS = {
+    "one_rate": {"kind": "equal"},
+    "per_event": {"kind": "equal", "branches": "unit"},
+    "stretched": {"kind": "equal", "branches": "kappa"},
+    "flat_kappa": {"kind": "equal", "branches": {"kappa": 0}},
+}
 
 
 @pytest.fixture(scope="module")
 def finished(tmp_path_factory):
     work = tmp_path_factory.mktemp("sets")
-    cfg = tiny_config(work, models=MODELS, pairs={"lit": PAIR},
-                      ancestral={"enabled": True, "model": "average", "maps": 4})
+    cfg = tiny_config(
+        work,
+        models=MODELS,
+        pairs={"lit": PAIR},
+        ancestral={"enabled": True, "model": "average", "maps": 4},
+    )
     import yaml
+
     config = yaml.safe_load(cfg.read_text())
     del config["trees"]
     data = work / "data"
     config["traits"]["columns"] = ["glow", "habitat", "banding"]
-    config["tree_sets"] = {"dated": {"file": str(data / "trees.nex"), "burnin": 1, "per_job": 3},
-                           "molecular": {"file": str(data / "trees_molecular.nex"), "burnin": 1,
-                                         "per_job": 3}}
+    config["tree_sets"] = {
+        "dated": {"file": str(data / "trees.nex"), "burnin": 1, "per_job": 3},
+        "molecular": {"file": str(data / "trees_molecular.nex"), "burnin": 1, "per_job": 3},
+    }
     cfg.write_text(yaml.safe_dump(config, sort_keys=False))
     proc = run_snakemake(work, cfg)
     assert proc.returncode == 0, proc.stderr[-3000:]
     out = work / "results" / "tiny"
-    read = {n: pd.read_csv(out / "tables" / f"{n}.tsv", sep="\t", keep_default_na=False,
-                           na_values=[""])
-            for n in ("fits", "rates", "model_support", "treatment_support", "branch_tests",
-                      "branch_test_summary", "tree_set_support", "trees_used", "pair_tests",
-                      "pair_summary", "pair_bootstrap", "ancestral_states", "transitions",
-                      "state_times", "transitions_per_tree", "clades")}
+    read = {
+        n: pd.read_csv(out / "tables" / f"{n}.tsv", sep="\t", keep_default_na=False, na_values=[""])
+        for n in (
+            "fits",
+            "rates",
+            "model_support",
+            "treatment_support",
+            "branch_tests",
+            "branch_test_summary",
+            "tree_set_support",
+            "trees_used",
+            "pair_tests",
+            "pair_summary",
+            "pair_bootstrap",
+            "ancestral_states",
+            "transitions",
+            "state_times",
+            "transitions_per_tree",
+            "clades",
+        )
+    }
     return work, out, read
 
 
@@ -86,8 +113,12 @@ def test_treatment_columns(finished):
     assert np.allclose(a["log_likelihood"], b.loc[a.index, "log_likelihood"], atol=1e-6)
     support = t["model_support"].set_index(["tree_set", "analysis", "model"])
     med = support.loc[("dated", "glow", "stretched"), "branch_parameter_median"]
-    want = fits.loc[(fits["tree_set"] == "dated") & (fits["analysis"] == "glow")
-                    & (fits["model"] == "stretched"), "branch_parameter"].median()
+    want = fits.loc[
+        (fits["tree_set"] == "dated")
+        & (fits["analysis"] == "glow")
+        & (fits["model"] == "stretched"),
+        "branch_parameter",
+    ].median()
     assert med == pytest.approx(want)
 
 
@@ -104,8 +135,7 @@ def test_likelihood_ratio_tests_recomputed(finished):
         # tables hold 10 significant digits
         stat = max(0.0, 2 * (alt.loc[k] - null.loc[k]))
         assert row["statistic"] == pytest.approx(stat, abs=1e-7)
-        assert row["p_value"] == pytest.approx(scipy.stats.chi2.sf(row["statistic"], 1),
-                                               rel=1e-8)
+        assert row["p_value"] == pytest.approx(scipy.stats.chi2.sf(row["statistic"], 1), rel=1e-8)
     # the treatment's weights sum to one per tree with the models
     ts = t["treatment_support"]
     for _, g in ts.groupby(["tree_set", "analysis"]):
@@ -122,14 +152,19 @@ def test_tree_set_support_statement(finished):
     assert set(best["analysis"]) == {"glow", "habitat", "banding", "lit"}
     compared = 0
     for row in s.to_dict("records"):
-        ll = fits[(fits["tree_set"] == row["tree_set"]) & (fits["analysis"] == row["analysis"])
-                  & (fits["model"] == row["model"])]["log_likelihood"]
+        ll = fits[
+            (fits["tree_set"] == row["tree_set"])
+            & (fits["analysis"] == row["analysis"])
+            & (fits["model"] == row["model"])
+        ]["log_likelihood"]
         if row["model"] != "best_model":
             assert row["median_log_likelihood"] == pytest.approx(ll.median())
         if pd.notna(row["compared_with"]):
-            other = fits[(fits["tree_set"] == row["compared_with"])
-                         & (fits["analysis"] == row["analysis"])
-                         & (fits["model"] == row["model"])]["log_likelihood"]
+            other = fits[
+                (fits["tree_set"] == row["compared_with"])
+                & (fits["analysis"] == row["analysis"])
+                & (fits["model"] == row["model"])
+            ]["log_likelihood"]
             if row["model"] != "best_model":
                 assert row["fraction_better"] == pytest.approx(fraction_higher(other, ll))
             assert row["compared_with"] in row["statement"] and row["tree_set"] in row["statement"]
@@ -193,8 +228,7 @@ def test_ancestral_tables_on_every_set(finished):
         assert (g["n_trees"] <= used[ts]).all()
         freq = g.drop_duplicates("clade").set_index("clade")["clade_frequency"]
         want = clades.set_index("clade")["frequency"]
-        assert np.allclose(freq.loc[want.index].astype(float), want.astype(float),
-                           equal_nan=True)
+        assert np.allclose(freq.loc[want.index].astype(float), want.astype(float), equal_nan=True)
     trans = t["transitions"]
     for ts, g in trans.groupby("tree_set"):
         assert (g["n_trees"] == used[ts]).all()
@@ -235,6 +269,7 @@ def test_lambda_p_value_is_the_boundary_mixture():
 
 def test_tree_sets_with_other_taxa_are_named(tmp_path):
     import yaml
+
     cfg = tiny_config(tmp_path)
     config = yaml.safe_load(cfg.read_text())
     data = tmp_path / "data"
@@ -245,8 +280,10 @@ def test_tree_sets_with_other_taxa_are_named(tmp_path):
     name = first.split()[1].rstrip(",")
     other.write_text(text.replace(name, "Lumasta_stranger"))
     del config["trees"]
-    config["tree_sets"] = {"dated": {"file": str(data / "trees.nex")},
-                           "other": {"file": str(other)}}
+    config["tree_sets"] = {
+        "dated": {"file": str(data / "trees.nex")},
+        "other": {"file": str(other)},
+    }
     cfg.write_text(yaml.safe_dump(config, sort_keys=False))
     proc = run_snakemake(tmp_path, cfg)
     assert proc.returncode != 0

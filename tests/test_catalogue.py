@@ -30,12 +30,15 @@ PNG = b"\x89PNG\r\n\x1a\n"
 
 
 def write_config(work: Path, **sections) -> Path:
-    config = {"run": RUN, "seed": 5,
-              "trees": {"file": "data/trees.nwk", "per_job": 50},
-              "traits": {"file": "data/traits.csv", "columns": ["colour"]},
-              "models": {"one": {"kind": "equal"}, "two": {"kind": "unconstrained"}},
-              "fitting": {"starts": 2},
-              "ancestral": {"enabled": False}}
+    config = {
+        "run": RUN,
+        "seed": 5,
+        "trees": {"file": "data/trees.nwk", "per_job": 50},
+        "traits": {"file": "data/traits.csv", "columns": ["colour"]},
+        "models": {"one": {"kind": "equal"}, "two": {"kind": "unconstrained"}},
+        "fitting": {"starts": 2},
+        "ancestral": {"enabled": False},
+    }
     for key, value in sections.items():
         if isinstance(value, dict) and isinstance(config.get(key), dict):
             config[key] = {**config[key], **value}
@@ -48,9 +51,11 @@ def write_config(work: Path, **sections) -> Path:
 
 def tables(work: Path) -> dict:
     out = work / "results" / RUN / "tables"
-    keep = dict(keep_default_na=False, na_values=["", "nan", "NaN"],
-                dtype={"state": str, "from_state": str, "to_state": str, "detail": str,
-                       "caution": str})
+    keep = dict(
+        keep_default_na=False,
+        na_values=["", "nan", "NaN"],
+        dtype={"state": str, "from_state": str, "to_state": str, "detail": str, "caution": str},
+    )
     return {p.stem: pd.read_csv(p, sep="\t", **keep) for p in out.glob("*.tsv")}
 
 
@@ -86,8 +91,16 @@ def only_prepare(work: Path, cfg: Path):
 # --------------------------------------------------------------------------- case 1-13
 # A posterior sample as samplers write it, with a trait table as spreadsheets write it.
 
-CODE = {"Vexa minor": "0", "Vexa major": "1 ", "Olm_tarsi": "2", "Olm_grava": "0",
-        "Quill's pod": "1", "Brun_a": " 2", "Brun_b": "0|1", "Brun_c": "?"}
+CODE = {
+    "Vexa minor": "0",
+    "Vexa major": "1 ",
+    "Olm_tarsi": "2",
+    "Olm_grava": "0",
+    "Quill's pod": "1",
+    "Brun_a": " 2",
+    "Brun_b": "0|1",
+    "Brun_c": "?",
+}
 SINGLE = {t: "no" for t in TAXA} | {"Olm_grava": "yes"}
 
 
@@ -101,12 +114,16 @@ def posterior_run(tmp_path_factory):
     # codes, a missing and an ambiguous cell, and a taxon that is in no tree
     lines = ["taxon , code , single"] + [f"{t},{CODE[t]},{SINGLE[t]} " for t in TAXA]
     lines.append("Extra taxon,1,no")
-    (work / "data" / "traits.csv").write_bytes(b"\xef\xbb\xbf" + "\r\n".join(lines).encode()
-                                               + b"\r\n")
-    cfg = write_config(work, trees={"file": "data/trees.nex", "burnin": 0.1},
-                       traits={"columns": ["code", "single"]},
-                       models={"one": {"kind": "equal"}, "two": {"kind": "symmetric"}},
-                       ancestral={"enabled": True, "maps": 4})
+    (work / "data" / "traits.csv").write_bytes(
+        b"\xef\xbb\xbf" + "\r\n".join(lines).encode() + b"\r\n"
+    )
+    cfg = write_config(
+        work,
+        trees={"file": "data/trees.nex", "burnin": 0.1},
+        traits={"columns": ["code", "single"]},
+        models={"one": {"kind": "equal"}, "two": {"kind": "symmetric"}},
+        ancestral={"enabled": True, "maps": 4},
+    )
     proc = run_snakemake(work, cfg)
     return work, texts, proc
 
@@ -119,7 +136,9 @@ def test_posterior_sample_runs_to_the_end(posterior_run):
     t = tables(work)
     fits = t["fits"]
     assert len(fits) == 5 * 2 * 2 and np.isfinite(fits["log_likelihood"]).all()
-    assert (fits.loc[fits["analysis"] == "single", "n_taxa"] == 8).all()   # every quoted name matched
+    assert (
+        fits.loc[fits["analysis"] == "single", "n_taxa"] == 8
+    ).all()  # every quoted name matched
     clades = t["clades"]
     assert list(clades["clade"]) == ["root"] and "unresolved" in clades["summary_tree"].iloc[0]
     root = t["ancestral_states"]
@@ -148,14 +167,20 @@ def test_posterior_sample_likelihoods_match_plain_pruning(posterior_run):
         cell = CODE[label].strip()
         X[v] = 1.0 if cell == "?" else [s in cell.split("|") for s in states]
     for model in ("one", "two"):
-        rates = t["rates"][(t["rates"]["analysis"] == "code") & (t["rates"]["model"] == model)
-                           & (t["rates"]["tree"] == 2)]
+        rates = t["rates"][
+            (t["rates"]["analysis"] == "code")
+            & (t["rates"]["model"] == model)
+            & (t["rates"]["tree"] == 2)
+        ]
         Q = np.zeros((3, 3))
         for r in rates.to_dict("records"):
             Q[states.index(r["from_state"]), states.index(r["to_state"])] = r["rate"]
         np.fill_diagonal(Q, -Q.sum(axis=1))
-        row = t["fits"][(t["fits"]["analysis"] == "code") & (t["fits"]["model"] == model)
-                        & (t["fits"]["tree"] == 2)].iloc[0]
+        row = t["fits"][
+            (t["fits"]["analysis"] == "code")
+            & (t["fits"]["model"] == model)
+            & (t["fits"]["tree"] == 2)
+        ].iloc[0]
         assert pruning_log_likelihood(tree, X, Q) == pytest.approx(row["log_likelihood"], abs=1e-6)
 
 
@@ -190,19 +215,23 @@ ZERO_TREES = [
     "[&R] (((a:0,b:0):0.6,(c:0.3,d:0.3):0.3):0.4,((e:0.5,g:0.5):0,(f:1e-9,h:1e-9):0.499999999):0.5);",
     "[&R] (((a:0.2,b:0.2):0.4,(c:0.3,d:0.3):0.3):0.4,((e:0.5,f:0.5):0,(g:1e-9,h:1e-9):0.499999999):0.5);",
 ]
-ZERO_TABLE = ("taxon,colour,habit\n"
-              "a,red,crawl\nb,blue,crawl\nc,blue,swim\nd,red,swim\ne,red,crawl\nf,blue,swim\n"
-              "g,red,crawl\nh,blue,swim\n")
+ZERO_TABLE = (
+    "taxon,colour,habit\n"
+    "a,red,crawl\nb,blue,crawl\nc,blue,swim\nd,red,swim\ne,red,crawl\nf,blue,swim\n"
+    "g,red,crawl\nh,blue,swim\n"
+)
 
 
 def _zero_workdir(work: Path, **sections) -> Path:
     (work / "data").mkdir(parents=True, exist_ok=True)
     (work / "data" / "trees.nwk").write_text("\n".join(ZERO_TREES) + "\n")
     (work / "data" / "traits.csv").write_text(ZERO_TABLE)
-    return write_config(work, traits={"columns": ["colour", "habit"]},
-                        models={"one": {"kind": "equal"},
-                                "two": {"kind": "symmetric", "applies_to": ["habit"]}},
-                        **sections)
+    return write_config(
+        work,
+        traits={"columns": ["colour", "habit"]},
+        models={"one": {"kind": "equal"}, "two": {"kind": "symmetric", "applies_to": ["habit"]}},
+        **sections,
+    )
 
 
 @pytest.fixture(scope="module")
@@ -226,14 +255,16 @@ def test_zero_length_sister_tips_run_to_the_end_and_say_so_loudly(zero_run):
     assert tips["tree"].tolist() == [0, 1] and set(tips["detail"]) == {"a, b"}
     bad = check[(check["item"] == "impossible_zero_length_tips") & (check["trait"] == "colour")]
     assert bad["tree"].tolist() == [0, 1] and "a (red) vs b (blue)" in bad["detail"].iloc[0]
-    assert not ((check["item"] == "impossible_zero_length_tips") & (check["trait"] == "habit")).any()
+    assert not (
+        (check["item"] == "impossible_zero_length_tips") & (check["trait"] == "habit")
+    ).any()
     fits = t["fits"]
     colour = fits[fits["analysis"] == "colour"].set_index("tree")
     assert np.isneginf(colour.loc[[0, 1], "log_likelihood"]).all()
     assert np.isfinite(colour.loc[2, "log_likelihood"])
     row = t["model_support"].set_index(["analysis", "model"]).loc[("colour", "one")]
     assert "2 of 3 fits are impossible" in row["caution"]
-    assert "of 1 fits" not in row["caution"]            # never "3 of 2 fits did not converge"
+    assert "of 1 fits" not in row["caution"]  # never "3 of 2 fits did not converge"
     methods = (run / "methods.md").read_text()
     assert "On 2 of the 3 trees, tips joined by zero-length branches differ in colour" in methods
     assert "Across the 1 of 3 trees on which colour could be fitted" in methods
@@ -254,6 +285,7 @@ def test_zero_length_sister_tips_run_to_the_end_and_say_so_loudly(zero_run):
     assert (rs.loc[rs["analysis"] == "habit", "n_impossible"] == 0).all()
     # the rates figure draws the possible tree only and counts the others
     from mkforest.report.plots import rates_across_trees
+
     fig = rates_across_trees(t["rates"], t["model_support"])
     note = fig.axes[0].get_title(loc="right")
     assert fig.axes[0].get_title(loc="left") == "colour" and "one on 2 of 3 trees" in note
@@ -262,8 +294,11 @@ def test_zero_length_sister_tips_run_to_the_end_and_say_so_loudly(zero_run):
     # the ancestral stage skips them and says why
     anc = t["ancestral_states"]
     assert (anc.loc[anc["analysis"] == "colour", "n_trees"] <= 1).all()
-    assert anc.loc[anc["analysis"] == "colour", "caution"].str.contains(
-        "2 of 3 trees skipped: the data are impossible there under every model").all()
+    assert (
+        anc.loc[anc["analysis"] == "colour", "caution"]
+        .str.contains("2 of 3 trees skipped: the data are impossible there under every model")
+        .all()
+    )
     assert not anc.loc[anc["analysis"] == "habit", "caution"].str.contains("skipped").any()
 
 
@@ -280,8 +315,11 @@ def test_zero_length_internal_and_very_short_branches_are_sound(zero_run):
     tree = ref_tree_from_newick(ZERO_TREES[0].replace("[&R] ", ""))
     cells = dict(line.split(",")[::2] for line in ZERO_TABLE.splitlines()[1:])
     X = np.array([[cells[lab] == "crawl", cells[lab] == "swim"] for lab in tree.tip_labels], float)
-    rate = t["rates"][(t["rates"]["analysis"] == "habit") & (t["rates"]["model"] == "one")
-                      & (t["rates"]["tree"] == 0)]["rate"].iloc[0]
+    rate = t["rates"][
+        (t["rates"]["analysis"] == "habit")
+        & (t["rates"]["model"] == "one")
+        & (t["rates"]["tree"] == 0)
+    ]["rate"].iloc[0]
     Q = np.array([[-rate, rate], [rate, -rate]])
     row = habit[(habit["model"] == "one") & (habit["tree"] == 0)].iloc[0]
     assert pruning_log_likelihood(tree, X, Q) == pytest.approx(row["log_likelihood"], abs=1e-6)
@@ -292,7 +330,7 @@ def test_changing_one_models_root_reruns_only_its_own_ancestral_jobs(zero_run, t
     work, cfg, proc = zero_run
     assert proc.returncode == 0, text_of(proc)[-3000:]
     config = yaml.safe_load(cfg.read_text())
-    config["models"]["two"]["root"] = "stationary"        # 'two' applies to habit only
+    config["models"]["two"]["root"] = "stationary"  # 'two' applies to habit only
     cfg2 = tmp_path / "root_changed.yaml"
     cfg2.write_text(yaml.safe_dump(config))
     dry = run_snakemake(work, cfg2, "--dry-run", "--printshellcmds")
@@ -307,8 +345,9 @@ def test_changing_one_models_root_reruns_only_its_own_ancestral_jobs(zero_run, t
 def test_minimum_branch_length_makes_every_tree_usable(tmp_path):
     """Case 19: trees.min_branch_length lengthens zero-length branches; applied, counted in
     the data check and stated in the methods text; no fit is impossible."""
-    cfg = _zero_workdir(tmp_path, trees={"file": "data/trees.nwk", "per_job": 50,
-                                         "min_branch_length": 1e-4})
+    cfg = _zero_workdir(
+        tmp_path, trees={"file": "data/trees.nwk", "per_job": 50, "min_branch_length": 1e-4}
+    )
     proc = run_snakemake(tmp_path, cfg)
     finished(proc, tmp_path)
     t = tables(tmp_path)
@@ -317,12 +356,14 @@ def test_minimum_branch_length_makes_every_tree_usable(tmp_path):
     # 3 zero-length branches on tree 0, 3 on tree 1, 1 on tree 2, and two of 1e-9 on each
     assert int(check.loc[("(trees)", "branches_lengthened"), "value"]) == 7 + 2 * 3
     methods = (tmp_path / "results" / RUN / "methods.md").read_text()
-    assert "Branches shorter than 0.0001 were lengthened to 0.0001 before fitting (13 branches" \
+    assert (
+        "Branches shorter than 0.0001 were lengthened to 0.0001 before fitting (13 branches"
         in methods
+    )
     assert (t["model_support"]["n_impossible"] == 0).all()
     assert (t["rates"]["at_bound"] != "impossible").all()
     warnings = [x for x in text_of(proc).splitlines() if x.startswith("mkforest: warning")]
-    assert not any("impossible" in x for x in warnings)       # (paths may hold any word)
+    assert not any("impossible" in x for x in warnings)  # (paths may hold any word)
 
 
 # --------------------------------------------------------------------------- case 20-22
@@ -340,8 +381,9 @@ def _unrooted_workdir(work: Path, **trees) -> Path:
     (work / "data").mkdir(parents=True, exist_ok=True)
     (work / "data" / "trees.nwk").write_text("\n".join(UNROOTED) + "\n")
     (work / "data" / "traits.tsv").write_text(UNROOTED_TABLE)
-    return write_config(work, trees={"file": "data/trees.nwk", **trees},
-                        traits={"file": "data/traits.tsv"})
+    return write_config(
+        work, trees={"file": "data/trees.nwk", **trees}, traits={"file": "data/traits.tsv"}
+    )
 
 
 def test_unrooted_sample_rooted_on_an_outgroup(tmp_path):
@@ -376,30 +418,67 @@ def test_unrooted_sample_without_a_rooting_stops_naming_the_key(tmp_path):
 
 TREE_ERRORS = {
     # case: (tree file text, config changes, words the message must hold)
-    "outgroup_not_a_clade": (UNROOTED, {"root": {"outgroup": ["a", "c"]}},
-                             ["tree 0", "not a clade", "trees.root.outgroup"]),
-    "outgroup_misspelt": (UNROOTED, {"root": {"outgroup": ["A"]}},
-                          ["outgroup taxon 'A'", "did you mean 'a'"]),
-    "branch_without_length": (["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f);"], {},
-                              ["tree 0", "tip 'f'", "no length"]),
-    "negative_branch": (["[&R] ((a:1,b:-0.5):1,(c:1,(d:1,e:1):1):1,f:1);"], {},
-                        ["tree 0", "tip 'b'", "-0.5"]),
-    "tips_differ": (["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);",
-                     "[&R] ((a:1,b:1):1,(c:1,(d:1,x:1):1):1,f:1);"], {},
-                    ["tree 1", "'x'", "same tips"]),
-    "duplicate_tip": (["[&R] ((a:1,a:1):1,(c:1,(d:1,e:1):1):1,f:1);"], {},
-                      ["'a'", "more than once"]),
-    "unbalanced_parentheses": (["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1;"], {},
-                               ["trees.nwk", "cannot be read"]),
-    "burnin_leaves_nothing": (UNROOTED, {"root": "midpoint", "burnin": 3},
-                              ["burn-in", "leave no trees", "trees.burnin"]),
+    "outgroup_not_a_clade": (
+        UNROOTED,
+        {"root": {"outgroup": ["a", "c"]}},
+        ["tree 0", "not a clade", "trees.root.outgroup"],
+    ),
+    "outgroup_misspelt": (
+        UNROOTED,
+        {"root": {"outgroup": ["A"]}},
+        ["outgroup taxon 'A'", "did you mean 'a'"],
+    ),
+    "branch_without_length": (
+        ["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f);"],
+        {},
+        ["tree 0", "tip 'f'", "no length"],
+    ),
+    "negative_branch": (
+        ["[&R] ((a:1,b:-0.5):1,(c:1,(d:1,e:1):1):1,f:1);"],
+        {},
+        ["tree 0", "tip 'b'", "-0.5"],
+    ),
+    "tips_differ": (
+        [
+            "[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);",
+            "[&R] ((a:1,b:1):1,(c:1,(d:1,x:1):1):1,f:1);",
+        ],
+        {},
+        ["tree 1", "'x'", "same tips"],
+    ),
+    "duplicate_tip": (
+        ["[&R] ((a:1,a:1):1,(c:1,(d:1,e:1):1):1,f:1);"],
+        {},
+        ["'a'", "more than once"],
+    ),
+    "unbalanced_parentheses": (
+        ["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1;"],
+        {},
+        ["trees.nwk", "cannot be read"],
+    ),
+    "burnin_leaves_nothing": (
+        UNROOTED,
+        {"root": "midpoint", "burnin": 3},
+        ["burn-in", "leave no trees", "trees.burnin"],
+    ),
     "empty_file": ([""], {}, ["trees.nwk", "empty"]),
-    "tree_without_length": (["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);",
-                             "[&R] ((a:0,b:0):0,(c:0,(d:0,e:0):0):0,f:0);"], {},
-                            ["trees.nwk", "tree 1 has no length", "trees.min_branch_length"]),
-    "comment_never_closed": (["[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);", "[sample 2",
-                              "[&R] ((a:1,c:1):1,(b:1,(d:1,e:1):1):1,f:1);"], {},
-                             ["trees.nwk", "line 2", "never closed"]),
+    "tree_without_length": (
+        [
+            "[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);",
+            "[&R] ((a:0,b:0):0,(c:0,(d:0,e:0):0):0,f:0);",
+        ],
+        {},
+        ["trees.nwk", "tree 1 has no length", "trees.min_branch_length"],
+    ),
+    "comment_never_closed": (
+        [
+            "[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f:1);",
+            "[sample 2",
+            "[&R] ((a:1,c:1):1,(b:1,(d:1,e:1):1):1,f:1);",
+        ],
+        {},
+        ["trees.nwk", "line 2", "never closed"],
+    ),
 }
 
 
@@ -417,32 +496,69 @@ def test_tree_file_errors_name_the_file_the_tree_and_the_fix(tmp_path, case):
 
 GOOD_TABLE = "taxon,colour\na,red\nb,red\nc,blue\nd,blue\ne,red\nf,blue\n"
 TABLE_ERRORS = {
-    "states_differ_in_case": ("taxon,colour\na,Red\nb,red\nc,blue\nd,blue\ne,red\nf,blue\n", {},
-                              ["traits.csv", "'Red' (taxon 'a', line 2)", "'red' (taxon 'b', line 3)",
-                               "traits.order.colour"]),
-    "constant_trait": ("taxon,colour\na,red\nb,red\nc,red\nd,red\ne,?\nf,red\n", {},
-                       ["traits.csv", "trait 'colour'", "only the state 'red'",
-                        "Drop it from traits.columns"]),
-    "column_missing": (GOOD_TABLE.replace("colour", "color"), {},
-                       ["traits.csv", "line 1", "no column 'colour'", "color"]),
-    "taxon_column_renamed": (GOOD_TABLE.replace("taxon", "species", 1), {},
-                             ["traits.csv", "no column 'taxon'", "species"]),
+    "states_differ_in_case": (
+        "taxon,colour\na,Red\nb,red\nc,blue\nd,blue\ne,red\nf,blue\n",
+        {},
+        [
+            "traits.csv",
+            "'Red' (taxon 'a', line 2)",
+            "'red' (taxon 'b', line 3)",
+            "traits.order.colour",
+        ],
+    ),
+    "constant_trait": (
+        "taxon,colour\na,red\nb,red\nc,red\nd,red\ne,?\nf,red\n",
+        {},
+        ["traits.csv", "trait 'colour'", "only the state 'red'", "Drop it from traits.columns"],
+    ),
+    "column_missing": (
+        GOOD_TABLE.replace("colour", "color"),
+        {},
+        ["traits.csv", "line 1", "no column 'colour'", "color"],
+    ),
+    "taxon_column_renamed": (
+        GOOD_TABLE.replace("taxon", "species", 1),
+        {},
+        ["traits.csv", "no column 'taxon'", "species"],
+    ),
     "duplicate_taxon": (GOOD_TABLE + "c,red\n", {}, ["traits.csv", "line 8", "'c'", "line 4"]),
-    "ragged_row": (GOOD_TABLE.replace("c,blue", "c,blue,extra"), {},
-                   ["traits.csv", "line 4", "3 fields"]),
-    "state_not_in_order": (GOOD_TABLE, {"traits": {"file": "data/traits.csv", "columns": ["colour"],
-                                                    "order": {"colour": ["red", "green"]}}},
-                           ["traits.csv", "taxon 'c'", "line 4", "'blue'", "order"]),
-    "missing_code_in_a_state_list": (GOOD_TABLE.replace("c,blue", "c,blue|?"), {},
-                                     ["traits.csv", "taxon 'c'", "line 4", "blue|?"]),
+    "ragged_row": (
+        GOOD_TABLE.replace("c,blue", "c,blue,extra"),
+        {},
+        ["traits.csv", "line 4", "3 fields"],
+    ),
+    "state_not_in_order": (
+        GOOD_TABLE,
+        {
+            "traits": {
+                "file": "data/traits.csv",
+                "columns": ["colour"],
+                "order": {"colour": ["red", "green"]},
+            }
+        },
+        ["traits.csv", "taxon 'c'", "line 4", "'blue'", "order"],
+    ),
+    "missing_code_in_a_state_list": (
+        GOOD_TABLE.replace("c,blue", "c,blue|?"),
+        {},
+        ["traits.csv", "taxon 'c'", "line 4", "blue|?"],
+    ),
     "header_only": ("taxon,colour\n", {}, ["traits.csv", "no rows"]),
-    "bad_rooting_word": (GOOD_TABLE, {"trees": {"file": "data/trees.nwk", "root": "middle"}},
-                         ["trees.root"]),
-    "negative_minimum_length": (GOOD_TABLE, {"trees": {"file": "data/trees.nwk",
-                                                       "min_branch_length": -1}},
-                                ["trees.min_branch_length"]),
-    "summary_tree_misspelt": (GOOD_TABLE, {"ancestral": {"summary_tree": "majority"}},
-                              ["ancestral.summary_tree", "majority"]),
+    "bad_rooting_word": (
+        GOOD_TABLE,
+        {"trees": {"file": "data/trees.nwk", "root": "middle"}},
+        ["trees.root"],
+    ),
+    "negative_minimum_length": (
+        GOOD_TABLE,
+        {"trees": {"file": "data/trees.nwk", "min_branch_length": -1}},
+        ["trees.min_branch_length"],
+    ),
+    "summary_tree_misspelt": (
+        GOOD_TABLE,
+        {"ancestral": {"summary_tree": "majority"}},
+        ["ancestral.summary_tree", "majority"],
+    ),
 }
 
 
@@ -451,7 +567,9 @@ def test_table_and_setting_errors_stop_before_any_job(tmp_path, case):
     """Cases 32-43."""
     table, sections, needles = TABLE_ERRORS[case]
     (tmp_path / "data").mkdir()
-    (tmp_path / "data" / "trees.nwk").write_text("[&R] ((a:1,b:1):1,((c:1,d:1):0.5,(e:1,f:1):0.5):0.5);\n")
+    (tmp_path / "data" / "trees.nwk").write_text(
+        "[&R] ((a:1,b:1):1,((c:1,d:1):0.5,(e:1,f:1):0.5):0.5);\n"
+    )
     (tmp_path / "data" / "traits.csv").write_text(table)
     cfg = write_config(tmp_path, **sections)
     stopped(run_snakemake(tmp_path, cfg, "--dry-run"), *needles)
@@ -460,8 +578,15 @@ def test_table_and_setting_errors_stop_before_any_job(tmp_path, case):
 def test_taxon_names_that_differ_only_in_case_get_a_hint(tmp_path):
     """Case 44: the table writes 'A' where the trees have 'a'."""
     (tmp_path / "data").mkdir()
-    (tmp_path / "data" / "trees.nwk").write_text("[&R] ((a:1,b:1):1,((c:1,d:1):0.5,(e:1,f:1):0.5):0.5);\n")
+    (tmp_path / "data" / "trees.nwk").write_text(
+        "[&R] ((a:1,b:1):1,((c:1,d:1):0.5,(e:1,f:1):0.5):0.5);\n"
+    )
     (tmp_path / "data" / "traits.csv").write_text(GOOD_TABLE.replace("\na,", "\nA,"))
     cfg = write_config(tmp_path)
-    stopped(run_snakemake(tmp_path, cfg, f"results/{RUN}/tables/data_check.tsv", cores=1),
-            "traits.csv", "'a'", "The table has 'A' where the trees have 'a'", "absent_taxa")
+    stopped(
+        run_snakemake(tmp_path, cfg, f"results/{RUN}/tables/data_check.tsv", cores=1),
+        "traits.csv",
+        "'a'",
+        "The table has 'A' where the trees have 'a'",
+        "absent_taxa",
+    )

@@ -19,20 +19,25 @@ def test_unrooted_28_taxon_sample_midpoint_rooted_on_its_best_supported_tree(tmp
     """S1: 28 taxa, 6 unrooted trees with no clade in more than 3 of them, rooted at the
     midpoint, ancestral states drawn on the sampled tree with the highest product of clade
     frequencies."""
-    texts = [unrooted(t) for t in unresolved_sample(n_trees=6, n_tips=28, seed=11,
-                                                    p_polytomy=0.1)]
+    texts = [unrooted(t) for t in unresolved_sample(n_trees=6, n_tips=28, seed=11, p_polytomy=0.1)]
     (tmp_path / "data").mkdir()
     (tmp_path / "data" / "trees.nwk").write_text("\n".join(texts) + "\n")
     rng = np.random.default_rng(4)
     rows = [f"t{i},{rng.choice(['wet', 'dry'])}" for i in range(28)]
     (tmp_path / "data" / "traits.csv").write_text("taxon,habitat\n" + "\n".join(rows) + "\n")
     cfg = tmp_path / "config.yaml"
-    cfg.write_text(yaml.safe_dump({
-        "run": "s1", "trees": {"file": "data/trees.nwk", "root": "midpoint"},
-        "traits": {"file": "data/traits.csv", "columns": ["habitat"]},
-        "models": {"one": {"kind": "equal"}, "two": {"kind": "unconstrained"}},
-        "fitting": {"starts": 2},
-        "ancestral": {"maps": 10, "summary_tree": "most_supported"}}))
+    cfg.write_text(
+        yaml.safe_dump(
+            {
+                "run": "s1",
+                "trees": {"file": "data/trees.nwk", "root": "midpoint"},
+                "traits": {"file": "data/traits.csv", "columns": ["habitat"]},
+                "models": {"one": {"kind": "equal"}, "two": {"kind": "unconstrained"}},
+                "fitting": {"starts": 2},
+                "ancestral": {"maps": 10, "summary_tree": "most_supported"},
+            }
+        )
+    )
     proc = run_snakemake(tmp_path, cfg)
     assert proc.returncode == 0, (proc.stdout + proc.stderr)[-4000:]
     run = tmp_path / "results" / "s1"
@@ -50,17 +55,28 @@ def test_a_single_tree_says_uncertainty_was_not_taken_into_account(tmp_path):
     """S2: one tree instead of a sample."""
     (tmp_path / "data").mkdir()
     (tmp_path / "data" / "tree.nwk").write_text(
-        "[&R] ((a:1,b:1):1,((c:1,d:1):0.5,(e:1,f:1):0.5):0.5);\n")
+        "[&R] ((a:1,b:1):1,((c:1,d:1):0.5,(e:1,f:1):0.5):0.5);\n"
+    )
     (tmp_path / "data" / "traits.csv").write_text(
-        "taxon,colour\na,red\nb,red\nc,blue\nd,blue\ne,red\nf,blue\n")
+        "taxon,colour\na,red\nb,red\nc,blue\nd,blue\ne,red\nf,blue\n"
+    )
     cfg = tmp_path / "config.yaml"
-    cfg.write_text(yaml.safe_dump({
-        "run": "s2", "trees": {"file": "data/tree.nwk"},
-        "traits": {"file": "data/traits.csv", "columns": ["colour"]},
-        "models": {"one": {"kind": "equal"}}, "fitting": {"starts": 2},
-        "ancestral": {"maps": 10}}))
+    cfg.write_text(
+        yaml.safe_dump(
+            {
+                "run": "s2",
+                "trees": {"file": "data/tree.nwk"},
+                "traits": {"file": "data/traits.csv", "columns": ["colour"]},
+                "models": {"one": {"kind": "equal"}},
+                "fitting": {"starts": 2},
+                "ancestral": {"maps": 10},
+            }
+        )
+    )
     proc = run_snakemake(tmp_path, cfg)
     assert proc.returncode == 0, (proc.stdout + proc.stderr)[-4000:]
     methods = (tmp_path / "results" / "s2" / "methods.md").read_text()
-    assert "on one tree" in methods and "phylogenetic uncertainty was not taken into account" \
-        in methods
+    assert (
+        "on one tree" in methods
+        and "phylogenetic uncertainty was not taken into account" in methods
+    )

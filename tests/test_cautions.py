@@ -10,8 +10,17 @@ from mkforest.engine.summarise import add_weights, mark_duplicates, model_suppor
 
 
 def _fits(rows):
-    cols = ["analysis", "model", "tree", "n_params", "log_likelihood", "aicc", "converged",
-            "at_lower", "at_upper"]
+    cols = [
+        "analysis",
+        "model",
+        "tree",
+        "n_params",
+        "log_likelihood",
+        "aicc",
+        "converged",
+        "at_lower",
+        "at_upper",
+    ]
     return pd.DataFrame(rows, columns=cols)
 
 
@@ -21,8 +30,19 @@ def test_impossible_fits_are_counted_over_every_tree_tried():
         for model, k in (("one", 1), ("two", 2)):
             impossible = tree < 2
             ll = -np.inf if impossible else -5.0 - k
-            rows.append(["colour", model, tree, k, ll, np.inf if impossible else -2 * ll + 2 * k,
-                         not impossible, "", ""])
+            rows.append(
+                [
+                    "colour",
+                    model,
+                    tree,
+                    k,
+                    ll,
+                    np.inf if impossible else -2 * ll + 2 * k,
+                    not impossible,
+                    "",
+                    "",
+                ]
+            )
     # a finite fit whose starts disagree, on the one usable tree
     rows[-1][6] = False
     support = model_support(add_weights(mark_duplicates(_fits(rows))))

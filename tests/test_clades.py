@@ -111,7 +111,7 @@ def test_consensus_holds_exactly_the_majority_clades(seed):
     counts = count_clades(trees, bits)
     majority = {m for m, c in counts.items() if c > len(trees) / 2}
     con = majority_consensus(trees)
-    got = set(node_masks(con, bits)[con.n_tips:])
+    got = set(node_masks(con, bits)[con.n_tips :])
     assert got == majority
     assert sorted(con.tip_labels) == sorted(trees[0].tip_labels)
 

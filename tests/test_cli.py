@@ -28,8 +28,16 @@ def copy(run, tmp_path):
 @pytest.fixture(scope="module")
 def archived(run, tmp_path_factory):
     out = tmp_path_factory.mktemp("deposit")
-    proc = mkforest("archive", run[0] / "results" / RUN, "--author", "Ferrand, Ilse",
-                    "--author", "Tomas Okafor", "--output", out)
+    proc = mkforest(
+        "archive",
+        run[0] / "results" / RUN,
+        "--author",
+        "Ferrand, Ilse",
+        "--author",
+        "Tomas Okafor",
+        "--output",
+        out,
+    )
     assert proc.returncode == 0, proc.stderr
     return out, proc
 
@@ -44,6 +52,7 @@ def one_error_sentence(proc):
 
 
 # --------------------------------------------------------------------------- verify a run folder
+
 
 def test_verify_finished_run_folder(run):
     proc = mkforest("verify", run[0] / "results" / RUN)
@@ -104,8 +113,11 @@ def test_verify_user_mistakes_are_one_sentence(copy, tmp_path, case):
 
 # --------------------------------------------------------------------------- archive
 
+
 def test_archive_needs_an_author_and_a_finished_run(run, copy, tmp_path):
-    msg = one_error_sentence(mkforest("archive", run[0] / "results" / RUN, "--output", tmp_path / "a"))
+    msg = one_error_sentence(
+        mkforest("archive", run[0] / "results" / RUN, "--output", tmp_path / "a")
+    )
     assert "--author" in msg
     assert not (tmp_path / "a").exists()
     msg = one_error_sentence(mkforest("archive", copy / "data", "--author", "Ferrand, Ilse"))
@@ -116,8 +128,9 @@ def test_archive_needs_an_author_and_a_finished_run(run, copy, tmp_path):
 def test_archive_refuses_results_changed_since_the_run(copy, tmp_path):
     out = copy / "results" / RUN
     (out / "methods.md").write_text("edited by hand\n")
-    msg = one_error_sentence(mkforest("archive", out, "--author", "Ferrand, Ilse",
-                                      "--output", tmp_path / "deposit"))
+    msg = one_error_sentence(
+        mkforest("archive", out, "--author", "Ferrand, Ilse", "--output", tmp_path / "deposit")
+    )
     assert "methods.md" in msg
     assert not list(tmp_path.rglob("*.tar.gz"))
 
@@ -137,17 +150,27 @@ def test_archive_files_and_checksums(archived):
         n_files = sum(1 for m in tar.getmembers() if m.isfile())
         tar.extractall(out / "unpacked", filter="data")
     top = f"{RUN}-archive"
-    for name in ("README.txt", "CITATION.cff", "config.yaml", "SHA256SUMS",
-                 f"results/{RUN}/manifest.json", f"results/{RUN}/methods.md",
-                 f"results/{RUN}/tables/fits.tsv", f"results/{RUN}/tables/trees_used.tsv",
-                 "inputs/trees/trees.nex", "inputs/traits/traits.tsv", "inputs/config/config.yaml"):
+    for name in (
+        "README.txt",
+        "CITATION.cff",
+        "config.yaml",
+        "SHA256SUMS",
+        f"results/{RUN}/manifest.json",
+        f"results/{RUN}/methods.md",
+        f"results/{RUN}/tables/fits.tsv",
+        f"results/{RUN}/tables/trees_used.tsv",
+        "inputs/trees/trees.nex",
+        "inputs/traits/traits.tsv",
+        "inputs/config/config.yaml",
+    ):
         assert f"{top}/{name}" in names, name
     assert not any("/logs/" in n or "/fits/" in n or "/prepared/" in n for n in names)
     unpacked = out / "unpacked" / top
-    sums = subprocess.run([*SHA256SUM, "-c", "SHA256SUMS"], cwd=unpacked, capture_output=True,
-                          text=True)
+    sums = subprocess.run(
+        [*SHA256SUM, "-c", "SHA256SUMS"], cwd=unpacked, capture_output=True, text=True
+    )
     assert sums.returncode == 0, sums.stdout + sums.stderr
-    assert sums.stdout.count(": OK") == n_files - 1       # every file but the listing itself
+    assert sums.stdout.count(": OK") == n_files - 1  # every file but the listing itself
     rerun = yaml.safe_load((unpacked / "config.yaml").read_text())
     assert rerun["trees"]["file"] == "inputs/trees/trees.nex"
     assert rerun["traits"]["file"] == "inputs/traits/traits.tsv"
@@ -196,15 +219,38 @@ def test_verify_finds_every_change_inside_an_archive(archived, tmp_path):
 # Rules of Citation File Format 1.2.0, transcribed from its JSON schema (schema.json of
 # github.com/citation-file-format/citation-file-format, version 1.2.0): the root keys and
 # their types, persons, entities, identifiers and references as this archive uses them.
-_PERSON = {"type": "object", "additionalProperties": False, "properties": {
-    k: {"type": "string", "minLength": 1} for k in
-    ("family-names", "given-names", "name-particle", "name-suffix", "affiliation", "alias")}}
-_ENTITY = {"type": "object", "required": ["name"], "properties": {
-    "name": {"type": "string", "minLength": 1}, "city": {"type": "string", "minLength": 1}}}
-_PEOPLE = {"type": "array", "minItems": 1, "uniqueItems": True,
-           "items": {"anyOf": [_PERSON, _ENTITY]}}
+_PERSON = {
+    "type": "object",
+    "additionalProperties": False,
+    "properties": {
+        k: {"type": "string", "minLength": 1}
+        for k in (
+            "family-names",
+            "given-names",
+            "name-particle",
+            "name-suffix",
+            "affiliation",
+            "alias",
+        )
+    },
+}
+_ENTITY = {
+    "type": "object",
+    "required": ["name"],
+    "properties": {
+        "name": {"type": "string", "minLength": 1},
+        "city": {"type": "string", "minLength": 1},
+    },
+}
+_PEOPLE = {
+    "type": "array",
+    "minItems": 1,
+    "uniqueItems": True,
+    "items": {"anyOf": [_PERSON, _ENTITY]},
+}
 CFF_1_2_0 = {
-    "type": "object", "additionalProperties": False,
+    "type": "object",
+    "additionalProperties": False,
     "required": ["authors", "cff-version", "message", "title"],
     "properties": {
         "cff-version": {"type": "string", "pattern": r"^1\.2\.0$"},
@@ -213,26 +259,53 @@ CFF_1_2_0 = {
         "type": {"enum": ["dataset", "software"]},
         "authors": _PEOPLE,
         "abstract": {"type": "string", "minLength": 1},
-        "date-released": {"type": "string",
-                          "pattern": r"^[0-9]{4}-(0[1-9]|1[012])-(0[1-9]|[12][0-9]|3[01])$"},
-        "keywords": {"type": "array", "minItems": 1, "uniqueItems": True,
-                     "items": {"type": "string", "minLength": 1}},
-        "identifiers": {"type": "array", "minItems": 1, "uniqueItems": True, "items": {
-            "type": "object", "additionalProperties": False, "required": ["type", "value"],
-            "properties": {"type": {"enum": ["doi", "url", "swh", "other"]},
-                           "value": {"type": "string", "minLength": 1},
-                           "description": {"type": "string", "minLength": 1}}}},
-        "references": {"type": "array", "minItems": 1, "uniqueItems": True, "items": {
-            "type": "object", "required": ["authors", "title", "type"],
-            "properties": {"authors": _PEOPLE, "title": {"type": "string", "minLength": 1},
-                           "type": {"enum": ["article", "book", "software", "data"]},
-                           "year": {"type": "integer"}, "volume": {"type": "integer"},
-                           "start": {"type": "integer"}, "end": {"type": "integer"},
-                           "journal": {"type": "string", "minLength": 1},
-                           "edition": {"type": "string", "minLength": 1},
-                           "version": {"anyOf": [{"type": "string", "minLength": 1},
-                                                 {"type": "number"}]},
-                           "publisher": _ENTITY}}},
+        "date-released": {
+            "type": "string",
+            "pattern": r"^[0-9]{4}-(0[1-9]|1[012])-(0[1-9]|[12][0-9]|3[01])$",
+        },
+        "keywords": {
+            "type": "array",
+            "minItems": 1,
+            "uniqueItems": True,
+            "items": {"type": "string", "minLength": 1},
+        },
+        "identifiers": {
+            "type": "array",
+            "minItems": 1,
+            "uniqueItems": True,
+            "items": {
+                "type": "object",
+                "additionalProperties": False,
+                "required": ["type", "value"],
+                "properties": {
+                    "type": {"enum": ["doi", "url", "swh", "other"]},
+                    "value": {"type": "string", "minLength": 1},
+                    "description": {"type": "string", "minLength": 1},
+                },
+            },
+        },
+        "references": {
+            "type": "array",
+            "minItems": 1,
+            "uniqueItems": True,
+            "items": {
+                "type": "object",
+                "required": ["authors", "title", "type"],
+                "properties": {
+                    "authors": _PEOPLE,
+                    "title": {"type": "string", "minLength": 1},
+                    "type": {"enum": ["article", "book", "software", "data"]},
+                    "year": {"type": "integer"},
+                    "volume": {"type": "integer"},
+                    "start": {"type": "integer"},
+                    "end": {"type": "integer"},
+                    "journal": {"type": "string", "minLength": 1},
+                    "edition": {"type": "string", "minLength": 1},
+                    "version": {"anyOf": [{"type": "string", "minLength": 1}, {"type": "number"}]},
+                    "publisher": _ENTITY,
+                },
+            },
+        },
         "version": {"anyOf": [{"type": "string", "minLength": 1}, {"type": "number"}]},
     },
 }
@@ -252,8 +325,11 @@ def test_citation_file_follows_the_format(run, archived):
         titles = [r["title"] for r in doc["references"]]
         assert any(t.startswith("Evolutionary trees from DNA sequences") for t in titles)
     archive_sha = hashlib.sha256((out / f"{RUN}-archive.tar.gz").read_bytes()).hexdigest()
-    assert {"type": "other", "value": f"sha256:{archive_sha}",
-            "description": f"SHA-256 of {RUN}-archive.tar.gz"} in side["identifiers"]
+    assert {
+        "type": "other",
+        "value": f"sha256:{archive_sha}",
+        "description": f"SHA-256 of {RUN}-archive.tar.gz",
+    } in side["identifiers"]
     manifest_sha = hashlib.sha256((run[0] / "results" / RUN / "manifest.json").read_bytes())
     assert [i["value"] for i in inner["identifiers"]] == [f"sha256:{manifest_sha.hexdigest()}"]
     assert f"sha256:{manifest_sha.hexdigest()}" in [i["value"] for i in side["identifiers"]]

@@ -70,8 +70,9 @@ def test_random_matrices_match_scipy_expm(seed):
     rng = np.random.default_rng(seed)
     Q = _random_q(rng, int(rng.integers(2, 7)), p_zero=0.4 if seed % 2 else 0.0)
     times = rng.exponential(1.0, size=12)
-    np.testing.assert_allclose(transition_matrices(Q, times), _expm_stack(Q, times),
-                               rtol=0, atol=1e-10)
+    np.testing.assert_allclose(
+        transition_matrices(Q, times), _expm_stack(Q, times), rtol=0, atol=1e-10
+    )
 
 
 @pytest.mark.parametrize("name", sorted(NAMED))
@@ -174,6 +175,6 @@ def test_short_branches_small_entries_relatively_accurate(seed):
     off = ~np.eye(k, dtype=bool)
     for n, t in enumerate(times):
         expected = scipy.linalg.expm(Q * t)
-        series = np.eye(k) + Q * t + Q @ Q * t * t / 2 + Q @ Q @ Q * t ** 3 / 6
+        series = np.eye(k) + Q * t + Q @ Q * t * t / 2 + Q @ Q @ Q * t**3 / 6
         np.testing.assert_allclose(expected[off], series[off], rtol=1e-10)  # reference sanity
         np.testing.assert_allclose(got[n][off], expected[off], rtol=1e-9, err_msg=f"t={t}")

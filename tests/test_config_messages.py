@@ -13,11 +13,20 @@ from mkforest.jobs.analyses import check_config
 
 
 def test_three_mistakes_at_once_through_the_workflow(tmp_path):
-    models = {"one_rate": {"kind": "equal"},
-              "loss": {"kind": "custom", "applies_to": ["glw"],
-                       "transitions": {"glowing -> dull": "loss"}}}
-    cfg = tiny_config(tmp_path, fitting={"strats": 2}, models=models,
-                      ancestral={"enabled": True, "model": "one_rat"})
+    models = {
+        "one_rate": {"kind": "equal"},
+        "loss": {
+            "kind": "custom",
+            "applies_to": ["glw"],
+            "transitions": {"glowing -> dull": "loss"},
+        },
+    }
+    cfg = tiny_config(
+        tmp_path,
+        fitting={"strats": 2},
+        models=models,
+        ancestral={"enabled": True, "model": "one_rat"},
+    )
     proc = run_snakemake(tmp_path, cfg, "--dry-run")
     assert proc.returncode == 2, proc.stdout + proc.stderr
     lines = [line for line in proc.stderr.splitlines() if line.strip()]
@@ -36,10 +45,15 @@ def _tiny(tmp_path, **overrides):
 
 
 def test_state_labels_get_suggestions_with_the_other_mistakes(tmp_path):
-    models = {"one_rate": {"kind": "equal", "root": "litte"},
-              "loss": {"kind": "custom", "applies_to": ["glow"],
-                       "transitions": {"glowing -> dul": "loss"}},
-              "odd": {"kind": "symetric"}}
+    models = {
+        "one_rate": {"kind": "equal", "root": "litte"},
+        "loss": {
+            "kind": "custom",
+            "applies_to": ["glow"],
+            "transitions": {"glowing -> dul": "loss"},
+        },
+        "odd": {"kind": "symetric"},
+    }
     with pytest.raises(InputError) as err:
         check_config(_tiny(tmp_path, models=models), "my.yaml")
     lines = str(err.value).splitlines()
@@ -59,16 +73,22 @@ def test_trait_column_missing_from_table_suggests_the_close_one(tmp_path):
 
 
 def test_misspelt_top_level_and_nested_keys_each_named():
-    cfg = {"run": "x", "trees": {"file": "t.nex", "brunin": 0.1},
-           "traits": {"file": "t.tsv", "columns": ["glow"], "taxon_colum": "taxon"},
-           "models": {"one_rate": {"kind": "equal", "applies_too": ["glow"]}},
-           "critrion": "aic"}
+    cfg = {
+        "run": "x",
+        "trees": {"file": "t.nex", "brunin": 0.1},
+        "traits": {"file": "t.tsv", "columns": ["glow"], "taxon_colum": "taxon"},
+        "models": {"one_rate": {"kind": "equal", "applies_too": ["glow"]}},
+        "critrion": "aic",
+    }
     with pytest.raises(InputError) as err:
         validate_config(cfg, "c.yaml")
     text = str(err.value)
-    for wrong, right in [("critrion", "criterion"), ("trees.brunin", "trees.burnin"),
-                         ("traits.taxon_colum", "traits.taxon_column"),
-                         ("models.one_rate.applies_too", "models.one_rate.applies_to")]:
+    for wrong, right in [
+        ("critrion", "criterion"),
+        ("trees.brunin", "trees.burnin"),
+        ("traits.taxon_colum", "traits.taxon_column"),
+        ("models.one_rate.applies_too", "models.one_rate.applies_to"),
+    ]:
         assert f"key '{wrong}' is not a known key. Did you mean '{right}'?" in text, text
     assert len(text.splitlines()) == 4
 
@@ -79,13 +99,21 @@ def test_no_suggestion_when_nothing_is_close():
 
 
 def test_pair_hypothesis_and_test_names_get_suggestions(tmp_path):
-    pairs = {"glow_habitat": {"traits": ["glow", "habitat"],
-                              "hypotheses": ["independent", "dependant"]}}
-    with pytest.raises(InputError, match=r"'dependant' is neither a built-in hypothesis.*"
-                                         r"Did you mean 'dependent'\?"):
+    pairs = {
+        "glow_habitat": {"traits": ["glow", "habitat"], "hypotheses": ["independent", "dependant"]}
+    }
+    with pytest.raises(
+        InputError,
+        match=r"'dependant' is neither a built-in hypothesis.*"
+        r"Did you mean 'dependent'\?",
+    ):
         check_config(_tiny(tmp_path, pairs=pairs), "my.yaml")
-    pairs["glow_habitat"].update(hypotheses=["independent", "dependent"],
-                                 tests=[["independant", "dependent"]])
-    with pytest.raises(InputError, match=r"tests names hypothesis 'independant'.*"
-                                         r"Did you mean 'independent'\?"):
+    pairs["glow_habitat"].update(
+        hypotheses=["independent", "dependent"], tests=[["independant", "dependent"]]
+    )
+    with pytest.raises(
+        InputError,
+        match=r"tests names hypothesis 'independant'.*"
+        r"Did you mean 'independent'\?",
+    ):
         check_config(_tiny(tmp_path, pairs=pairs), "my.yaml")

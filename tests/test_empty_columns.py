@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from mkforest.engine.branch_support import branch_tests, tree_set_support, treatment_support
+from mkforest.engine.branch_support import branch_tests, treatment_support, tree_set_support
 from mkforest.engine.summarise import (
     add_weights,
     as_text,
@@ -22,8 +22,9 @@ from mkforest.engine.summarise import (
 from mkforest.report import methods, style
 from mkforest.report.methods_branches import first_set
 
-pytestmark = pytest.mark.filterwarnings("error::pandas.errors.Pandas4Warning",
-                                        "error::FutureWarning")
+pytestmark = pytest.mark.filterwarnings(
+    "error::pandas.errors.Pandas4Warning", "error::FutureWarning"
+)
 
 
 def _read_back(frame: pd.DataFrame) -> pd.DataFrame:
@@ -36,16 +37,41 @@ def _tables():
     fits, rates = [], []
     for tree in range(3):
         for model, k, ll, branches in (("one", 1, -10.0, "as_given"), ("bent", 2, -9.0, "kappa")):
-            fits.append(dict(tree_set="trees", analysis="colour", model=model, tree=tree, n_taxa=8,
-                             n_params=k, log_likelihood=ll - tree, aicc=-2 * (ll - tree) + 2 * k,
-                             converged=True, at_lower="", at_upper="", open_upper="",
-                             branches=branches, branch_parameter=0.7 if k == 2 else np.nan,
-                             branch_at_bound="", structure=f"0 p0 p0 0 | root uniform | "
-                                                           f"branches {branches}", same_as=""))
+            fits.append(
+                dict(
+                    tree_set="trees",
+                    analysis="colour",
+                    model=model,
+                    tree=tree,
+                    n_taxa=8,
+                    n_params=k,
+                    log_likelihood=ll - tree,
+                    aicc=-2 * (ll - tree) + 2 * k,
+                    converged=True,
+                    at_lower="",
+                    at_upper="",
+                    open_upper="",
+                    branches=branches,
+                    branch_parameter=0.7 if k == 2 else np.nan,
+                    branch_at_bound="",
+                    structure=f"0 p0 p0 0 | root uniform | branches {branches}",
+                    same_as="",
+                )
+            )
             for a, b in (("red", "blue"), ("blue", "red")):
-                rates.append(dict(tree_set="trees", analysis="colour", model=model, tree=tree,
-                                  from_state=a, to_state=b, rate=0.5 + tree, parameter="rate",
-                                  at_bound=""))
+                rates.append(
+                    dict(
+                        tree_set="trees",
+                        analysis="colour",
+                        model=model,
+                        tree=tree,
+                        from_state=a,
+                        to_state=b,
+                        rate=0.5 + tree,
+                        parameter="rate",
+                        at_bound="",
+                    )
+                )
     return _read_back(pd.DataFrame(fits)), _read_back(pd.DataFrame(rates))
 
 
@@ -54,7 +80,10 @@ def test_all_empty_text_columns_come_back_as_floats():
     for col in ("same_as", "at_lower", "at_upper", "open_upper", "branch_at_bound"):
         assert fits[col].dtype == float, col
     assert rates["at_bound"].dtype == float
-    assert as_text(fits["same_as"]).eq("").all() and as_text(pd.Series([np.nan, "a"])).tolist() == ["", "a"]
+    assert as_text(fits["same_as"]).eq("").all() and as_text(pd.Series([np.nan, "a"])).tolist() == [
+        "",
+        "a",
+    ]
 
 
 def test_summaries_read_empty_text_columns_without_warnings():
@@ -77,7 +106,7 @@ def test_report_helpers_read_empty_text_columns_without_warnings():
     assert style.same_as(support, "colour") == {}
     assert (style.rate_intervals(rates)["n_free"] == 3).all()
     assert len(first_set(fits)) == len(fits)
-    unnamed = _read_back(fits.assign(tree_set=""))        # a table without set names
+    unnamed = _read_back(fits.assign(tree_set=""))  # a table without set names
     assert unnamed["tree_set"].dtype == float and len(first_set(unnamed)) == len(fits)
     summary = rate_summary(rates, averaged_rates(add_weights(fits), rates))
     text = methods._analysis_results("colour", support, summary, "AICc")

@@ -42,6 +42,7 @@ def written(fig, tmp_path, name):
 
 # --------------------------------------------------------------------------- support and rates
 
+
 @pytest.mark.parametrize("which", ["demo", "big"])
 def test_support_figures(which, demo, big, tmp_path):
     data = demo if which == "demo" else big
@@ -60,18 +61,19 @@ def test_rates_across_trees(which, demo, big, tmp_path):
     fig = plots.rates_across_trees(rates, support, pair_names(data))
     assert overlaps(fig) == []
     titles = [ax.get_title(loc="left") for ax in fig.axes]
-    assert titles == list(data.models)                     # one panel per analysis
+    assert titles == list(data.models)  # one panel per analysis
     for ax, analysis in zip(fig.axes, data.models):
         legend = [t.get_text() for t in ax.get_legend().get_texts()]
         repeated = {m for (a, m) in data.same_as if a == analysis}
         # a model reported same_as another is named once, not drawn again
-        assert [m for m in legend if " = " not in m] == [m for m in data.models[analysis]
-                                                        if m not in repeated]
+        assert [m for m in legend if " = " not in m] == [
+            m for m in data.models[analysis] if m not in repeated
+        ]
         for m in repeated:
             assert f"{m} = {data.same_as[(analysis, m)]}: drawn once" in legend
         ticks = [t.get_text() for t in ax.get_xticklabels()]
         assert ticks[0] == "at lower\nbound" and ticks[-1] == "at upper\nbound"
-        for t in ticks[1:-1]:                                # plain numbers, never 2×10⁰
+        for t in ticks[1:-1]:  # plain numbers, never 2×10⁰
             float(t.replace(",", ""))
     # joint changes read as the trait that changes, in the other trait's state
     first, second = next(iter(pair_names(data).values()))
@@ -90,13 +92,14 @@ def test_rates_at_a_bound_are_counted_not_drawn(demo):
     fig = plots.rates_across_trees(one, None)
     stats = style.rate_intervals(one)
     counts = {t.get_text() for t in fig.axes[0].texts}
-    expected = {f"{n}/{m}" for n, m in zip(stats["n_lower"], stats["n_trees"]) if n} | \
-               {f"{n}/{m}" for n, m in zip(stats["n_upper"], stats["n_trees"]) if n}
+    expected = {f"{n}/{m}" for n, m in zip(stats["n_lower"], stats["n_trees"]) if n} | {
+        f"{n}/{m}" for n, m in zip(stats["n_upper"], stats["n_trees"]) if n
+    }
     assert expected and counts == expected
     lo, hi = fig.axes[0].get_xlim()
     free = one[one["at_bound"] == ""]["rate"]
-    assert 10 ** lo > 1e-4 and 10 ** lo < free.min()       # the axis starts near the estimates
-    assert 10 ** hi < 9000                                 # the upper-bound rate is not a value
+    assert 10**lo > 1e-4 and 10**lo < free.min()  # the axis starts near the estimates
+    assert 10**hi < 9000  # the upper-bound rate is not a value
 
 
 def test_rate_text_and_ticks():
@@ -105,8 +108,12 @@ def test_rate_text_and_ticks():
     assert style.rate_text(2.345) == "2.35"
     assert style.rate_text(1234.5) == "1,234"
     assert style.log_ticks(0.05, 30) == [0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20]
-    assert [style.plain_number(x) for x in (0.001, 0.5, 2.0, 1000.0)] == ["0.001", "0.5", "2",
-                                                                           "1,000"]
+    assert [style.plain_number(x) for x in (0.001, 0.5, 2.0, 1000.0)] == [
+        "0.001",
+        "0.5",
+        "2",
+        "1,000",
+    ]
 
 
 def test_changes_read_in_state_order():
@@ -114,13 +121,22 @@ def test_changes_read_in_state_order():
     trait sit next to each other across the other trait's states."""
     keys = [("canopy", "litter"), ("litter", "rock"), ("rock", "canopy"), ("litter", "canopy")]
     assert style.ordered_changes(keys, None, ["litter", "rock", "canopy"]) == [
-        ("litter", "rock"), ("litter", "canopy"), ("rock", "canopy"), ("canopy", "litter")]
+        ("litter", "rock"),
+        ("litter", "canopy"),
+        ("rock", "canopy"),
+        ("canopy", "litter"),
+    ]
     joint = ["plain+round", "plain+toothed", "banded+round", "banded+toothed"]
-    keys = [("plain+round", "plain+toothed"), ("banded+toothed", "plain+toothed"),
-            ("plain+round", "banded+round")]
+    keys = [
+        ("plain+round", "plain+toothed"),
+        ("banded+toothed", "plain+toothed"),
+        ("plain+round", "banded+round"),
+    ]
     assert style.ordered_changes(keys, ("banding", "aperture"), joint) == [
-        ("plain+round", "banded+round"), ("banded+toothed", "plain+toothed"),
-        ("plain+round", "plain+toothed")]
+        ("plain+round", "banded+round"),
+        ("banded+toothed", "plain+toothed"),
+        ("plain+round", "plain+toothed"),
+    ]
 
 
 def test_palettes_are_the_colour_blind_safe_ones():
@@ -136,6 +152,7 @@ def test_palettes_are_the_colour_blind_safe_ones():
 
 # --------------------------------------------------------------------------- pairs
 
+
 @pytest.mark.parametrize("which", ["demo", "big"])
 def test_pair_figures(which, demo, big, tmp_path):
     data = demo if which == "demo" else big
@@ -144,12 +161,16 @@ def test_pair_figures(which, demo, big, tmp_path):
     fig = plots_pairs.rates_by_state(pair, rates, support, data.models[name])
     assert overlaps(fig) == []
     assert [ax.get_title(loc="left") for ax in fig.axes] == [
-        f"changes in {pair.first.name}", f"changes in {pair.second.name}"]
+        f"changes in {pair.first.name}",
+        f"changes in {pair.second.name}",
+    ]
     rows = [t.get_text() for t in fig.axes[0].get_yticklabels()]
     # every change of the first trait, once in each state of the second
     assert len(rows) == pair.k1 * (pair.k1 - 1) * pair.k2
-    assert rows[0] == (f"{pair.first.states[0]} → {pair.first.states[1]}  "
-                       f"({pair.second.name} {pair.second.states[0]})")
+    assert rows[0] == (
+        f"{pair.first.states[0]} → {pair.first.states[1]}  "
+        f"({pair.second.name} {pair.second.states[0]})"
+    )
     legend = " ".join(t.get_text() for t in fig.legends[0].get_texts())
     assert f"changes in {pair.first.name} depend on {pair.second.name}" in legend
     assert "first_depends_on_second:" in legend
@@ -158,13 +179,17 @@ def test_pair_figures(which, demo, big, tmp_path):
     fig = plots_pairs.joint_rate_grid(pair, rates, support, data.models[name])
     assert overlaps(fig) == []
     texts = all_text(fig)
-    assert not any("e-0" in t for t in texts)              # never 8.4e-07
+    assert not any("e-0" in t for t in texts)  # never 8.4e-07
     hatched = [p for ax in fig.axes for p in ax.patches if p.get_hatch()]
     k = len(pair.states)
-    doubles = sum(1 for i in range(k) for j in range(k)
-                  if all(a != b for a, b in zip(pair.split(i), pair.split(j))))
+    doubles = sum(
+        1
+        for i in range(k)
+        for j in range(k)
+        if all(a != b for a, b in zip(pair.split(i), pair.split(j)))
+    )
     shown = [h for h in data.models[name] if h not in {m for (a, m) in data.same_as if a == name}]
-    assert len(hatched) == doubles * len(shown)            # every double change marked
+    assert len(hatched) == doubles * len(shown)  # every double change marked
     written(fig, tmp_path, "grid")
 
 
@@ -180,13 +205,15 @@ def test_pair_grid_writes_tiny_rates_as_below_precision(demo):
 
 
 def test_pair_tests_figure(demo, tmp_path):
-    fig = plots_pairs.pair_tests_figure("shell_pattern", demo.tables["pair_tests"],
-                                        demo.tables["pair_bootstrap"])
+    fig = plots_pairs.pair_tests_figure(
+        "shell_pattern", demo.tables["pair_tests"], demo.tables["pair_bootstrap"]
+    )
     assert overlaps(fig) == []
     written(fig, tmp_path, "tests")
 
 
 # --------------------------------------------------------------------------- ancestral
+
 
 @pytest.mark.parametrize("which", ["demo", "big"])
 def test_changes(which, demo, big, tmp_path):
@@ -198,7 +225,7 @@ def test_changes(which, demo, big, tmp_path):
     ax = fig.axes[list(data.models).index(name)]
     rows = [t.get_text() for t in ax.get_yticklabels()]
     n_single = len(pair.states) * (pair.k1 - 1 + pair.k2 - 1)
-    assert len(rows) == n_single                           # no double changes drawn
+    assert len(rows) == n_single  # no double changes drawn
     written(fig, tmp_path, "changes")
 
 
@@ -206,8 +233,14 @@ def _tree(data, analysis):
     trait = data.traits.get(analysis) or data.pairs[analysis].joint_trait()
     states = data.tables["ancestral_states"]
     ordered = plots_ancestral.is_ordered_trait(data.models[analysis].values(), trait.k)
-    fig = plots_ancestral.state_tree(data.tree, states[states["analysis"] == analysis],
-                                     data.tables["clades"], trait, analysis, ordered)
+    fig = plots_ancestral.state_tree(
+        data.tree,
+        states[states["analysis"] == analysis],
+        data.tables["clades"],
+        trait,
+        analysis,
+        ordered,
+    )
     return fig, ordered
 
 
@@ -215,7 +248,7 @@ def _check_tree(fig, data, analysis):
     assert overlaps(fig) == []
     ax = fig.axes[0]
     texts = {t.get_text() for t in ax.texts}
-    assert set(data.tree.tip_labels) <= texts             # every tip labelled
+    assert set(data.tree.tip_labels) <= texts  # every tip labelled
     n_internal = data.tree.n_nodes - data.tree.n_tips
     # nearly every node carries its bar; any left out are counted in the legend
     assert fig.mkforest_nodes_drawn + fig.mkforest_bars_left_out == n_internal
@@ -230,15 +263,15 @@ def _check_tree(fig, data, analysis):
 def test_ancestral_trees_demo(analysis, demo, tmp_path):
     fig, ordered = _tree(demo, analysis)
     legend = _check_tree(fig, demo, analysis)
-    assert ordered == (analysis == "size")                 # stepwise model: ordered states
+    assert ordered == (analysis == "size")  # stepwise model: ordered states
     if analysis in demo.pairs:
         pair = demo.pairs[analysis]
         assert {s.replace("+", " + ") for s in pair.states} <= set(legend)
         tip_marks = [p for p in fig.axes[0].patches if p.get_x() > demo.tree.depths().max()]
-        assert len(tip_marks) >= demo.tree.n_tips          # pair trees show tip states
+        assert len(tip_marks) >= demo.tree.n_tips  # pair trees show tip states
     else:
-        assert "tip: state unknown" in legend            # both traits have unknown cells
-    if analysis == "habitat":                            # and habitat ambiguous ones
+        assert "tip: state unknown" in legend  # both traits have unknown cells
+    if analysis == "habitat":  # and habitat ambiguous ones
         assert "tip: several states possible" in legend
     written(fig, tmp_path, f"tree_{analysis}")
 

@@ -45,6 +45,7 @@ from mkforest.engine.simulate import simulate_states
 
 # --------------------------------------------------------------------------- comparison
 
+
 @pytest.mark.parametrize("df,critical", [(1, 3.841), (2, 5.991), (4, 9.488)])
 def test_lrt_at_table_critical_value_gives_p_005(df, critical):
     """A statistic equal to the tabled 5% critical value gives p = 0.05 (Abramowitz &
@@ -104,6 +105,7 @@ def test_akaike_weights_hand_computed():
 
 # --------------------------------------------------------------------------- fits vs a reference optimiser
 
+
 def reference_fit(tree, partials, states, transitions, labels, root, n_starts=3, seed=0):
     """Independent maximum of the reference pruning likelihood over log rates
     (Nelder-Mead then Powell from several starts; scipy.optimize)."""
@@ -117,10 +119,15 @@ def reference_fit(tree, partials, states, transitions, labels, root, n_starts=3,
     best = None
     for _ in range(n_starts):
         x0 = rng.normal(0.0, 1.0, size=len(labels))
-        res = scipy.optimize.minimize(negative, x0, method="Nelder-Mead",
-                                      options={"xatol": 1e-8, "fatol": 1e-11, "maxiter": 4000})
-        res = scipy.optimize.minimize(negative, res.x, method="Powell",
-                                      options={"xtol": 1e-8, "ftol": 1e-12})
+        res = scipy.optimize.minimize(
+            negative,
+            x0,
+            method="Nelder-Mead",
+            options={"xatol": 1e-8, "fatol": 1e-11, "maxiter": 4000},
+        )
+        res = scipy.optimize.minimize(
+            negative, res.x, method="Powell", options={"xtol": 1e-8, "ftol": 1e-12}
+        )
         if best is None or res.fun < best.fun:
             best = res
     return -best.fun, np.exp(best.x)
@@ -128,10 +135,21 @@ def reference_fit(tree, partials, states, transitions, labels, root, n_starts=3,
 
 FIT_CASES = [
     # (states, transitions, true rates by label, n_tips, root)
-    (("off", "on"), {"off -> on": "gain", "on -> off": "loss"}, {"gain": 0.8, "loss": 1.6}, 40, "uniform"),
+    (
+        ("off", "on"),
+        {"off -> on": "gain", "on -> off": "loss"},
+        {"gain": 0.8, "loss": 1.6},
+        40,
+        "uniform",
+    ),
     (("a", "b", "c"), {"a <-> b": "x", "b <-> c": "y"}, {"x": 1.0, "y": 0.5}, 40, "data_weighted"),
-    (("a", "b", "c"), {"a -> b": "up", "b -> c": "up", "b -> a": "down", "c -> b": 0.3},
-     {"up": 1.2, "down": 0.6}, 40, "stationary"),
+    (
+        ("a", "b", "c"),
+        {"a -> b": "up", "b -> c": "up", "b -> a": "down", "c -> b": 0.3},
+        {"up": 1.2, "down": 0.6},
+        40,
+        "stationary",
+    ),
 ]
 
 
@@ -154,8 +172,9 @@ def test_fit_matches_independent_optimiser(index):
     fit = fit_model(tree, partials, model, root=root, n_starts=5, seed=1)
 
     ref_partials = partials_from_cells(cells, ref_tree.tip_labels, list(states))
-    ref_max, ref_rates = reference_fit(ref_tree, ref_partials, states, transitions,
-                                       list(model.labels), root)
+    ref_max, ref_rates = reference_fit(
+        ref_tree, ref_partials, states, transitions, list(model.labels), root
+    )
     assert not fit.at_lower and not fit.at_upper, "case must have an interior maximum"
     assert fit.converged
     assert fit.log_likelihood >= ref_max - 1e-6, (fit.log_likelihood, ref_max)
@@ -228,6 +247,7 @@ def test_simulation_recovery(case, seed):
 
 # --------------------------------------------------------------------------- simulator vs expm
 
+
 def test_simulated_tips_follow_expm_rows():
     """On a star tree every tip is an independent draw from row P_{root}(t) of
     expm(Q t) (scipy.linalg.expm, general-purpose reference library); chi^2
@@ -274,6 +294,7 @@ def test_simulation_respects_zero_length_and_absorbing_states():
 
 # --------------------------------------------------------------------------- rates at a bound
 
+
 @pytest.mark.parametrize("seed", range(8))
 def test_rate_whose_maximum_is_at_zero_is_flagged(seed):
     """If moving a fitted rate down to the lower bound of the search (1e-6 changes per
@@ -298,14 +319,22 @@ def test_rate_whose_maximum_is_at_zero_is_flagged(seed):
     for i, label in enumerate(model.labels):
         rates = fit.rates.copy()
         rates[i] = LOWER / tree.height
-        Q_bound = model.q_matrix(rates)  # q_matrix is checked against the kind's definition elsewhere
-        gain = pruning_log_likelihood(ref_tree, ref_partials, Q_bound, "uniform", states) \
+        Q_bound = model.q_matrix(
+            rates
+        )  # q_matrix is checked against the kind's definition elsewhere
+        gain = (
+            pruning_log_likelihood(ref_tree, ref_partials, Q_bound, "uniform", states)
             - fit.log_likelihood
+        )
         if gain > 1e-6:
-            problems.append(f"{label}: fit {fit.rates[i]:.3g} is not a maximum (ln L +{gain:.2e} at the bound)")
+            problems.append(
+                f"{label}: fit {fit.rates[i]:.3g} is not a maximum (ln L +{gain:.2e} at the bound)"
+            )
         if gain > 1e-9 and label not in fit.at_lower:
-            problems.append(f"{label}: fitted {fit.rates[i]:.3g}, ln L rises by {gain:.2e} at the "
-                            f"bound, but at_lower = {fit.at_lower}")
+            problems.append(
+                f"{label}: fitted {fit.rates[i]:.3g}, ln L rises by {gain:.2e} at the "
+                f"bound, but at_lower = {fit.at_lower}"
+            )
     assert not problems, "\n".join(problems)
 
 
@@ -329,8 +358,16 @@ def test_weights_table_matches_per_tree_weights():
                 crit = np.nan
             if tree == 3:
                 crit = np.inf
-            rows.append({"tree_set": "s", "analysis": "x", "tree": tree, "model": model,
-                         "aicc": crit, "same_as": "a" if model == "d" else ""})
+            rows.append(
+                {
+                    "tree_set": "s",
+                    "analysis": "x",
+                    "tree": tree,
+                    "model": model,
+                    "aicc": crit,
+                    "same_as": "a" if model == "d" else "",
+                }
+            )
     out = add_weights(pd.DataFrame(rows), "aicc")
     for tree in range(3):
         g = out[(out.tree == tree) & (out.model != "d")]
@@ -338,6 +375,7 @@ def test_weights_table_matches_per_tree_weights():
         finite = np.isfinite(g["aicc"])
         np.testing.assert_allclose(g["delta"][finite], g["aicc"][finite] - g["aicc"][finite].min())
     assert out.loc[out.tree == 0, "weight"].iloc[:3].tolist() == pytest.approx(
-        [0.2676231541, 0.7274751568, 0.0049016890], abs=1e-10)
+        [0.2676231541, 0.7274751568, 0.0049016890], abs=1e-10
+    )
     assert out.loc[out.model == "d", "weight"].isna().all()
     assert out.loc[out.tree == 3, ["delta", "weight"]].isna().all().all()

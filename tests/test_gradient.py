@@ -51,12 +51,13 @@ from mkforest.engine.gradient import exact_gradient_applies, log_likelihood_and_
 from mkforest.engine.likelihood import eigensystem, log_likelihood
 from mkforest.engine.models import build_model
 
-RTOL = 1e-6   # relative, per component
-ATOL = 1e-8   # absolute floor for components near zero (finite differences reach ~1e-10)
-STEP = 1e-3   # finite-difference step in log-rate
+RTOL = 1e-6  # relative, per component
+ATOL = 1e-8  # absolute floor for components near zero (finite differences reach ~1e-10)
+STEP = 1e-3  # finite-difference step in log-rate
 
 
 # --------------------------------------------------------------------------- helpers
+
 
 def richardson_gradient(f, x, step=STEP):
     """d f / d x_p by central differences at steps h and h/2, combined by one
@@ -100,6 +101,7 @@ def reference_q_of(model, Q):
         for p, value in enumerate(theta):
             o[model.rate_index == p] = value
         return q_from_rates(o)
+
     return q_of
 
 
@@ -124,8 +126,9 @@ def make_case(seed, n_min=5, n_max=40):
     tree = parse_newick(newick)
     cells = tip_data_mapping(rng, tree, Q, list(model.states))
     partials = partials_from_cells(cells, tree.tip_labels, list(model.states))
-    return dict(model=model, rates=rates, Q=Q, newick=newick, tree=tree, cells=cells,
-                partials=partials)
+    return dict(
+        model=model, rates=rates, Q=Q, newick=newick, tree=tree, cells=cells, partials=partials
+    )
 
 
 # --------------------------------------------------------------------------- against finite differences
@@ -149,8 +152,11 @@ def test_gradient_equals_finite_differences_of_engine(seed):
             assert ll == -np.inf and not grad.any()
             continue
         assert abs(ll - expected_ll) <= 1e-12 * max(1.0, abs(expected_ll)), (root, ll, expected_ll)
-        assert_gradient_close(grad, engine_fd(tree, partials, model, rates, root),
-                              f"seed {seed} {model.kind} root {root!r} Q=\n{c['Q']}")
+        assert_gradient_close(
+            grad,
+            engine_fd(tree, partials, model, rates, root),
+            f"seed {seed} {model.kind} root {root!r} Q=\n{c['Q']}",
+        )
         checked += 1
     assert checked >= 3  # uniform, data_weighted and stationary are always possible here
 
@@ -187,20 +193,34 @@ def test_gradient_equals_finite_differences_of_plain_expm_pruning(seed):
     for root in roots_of(model):
         if root == "stationary" and not stationary_is_unique(c["Q"]):
             continue
-        f = lambda x: pruning_log_likelihood(ref_tree, ref_partials, q_of(np.exp(x)), root,  # noqa: E731
-                                             list(model.states))
+        f = lambda x: pruning_log_likelihood(
+            ref_tree,
+            ref_partials,
+            q_of(np.exp(x)),
+            root,  # noqa: E731
+            list(model.states),
+        )
         if not np.isfinite(f(np.log(rates))):
             continue
         ll, grad = log_likelihood_and_gradient(c["tree"], c["partials"], model, rates, root)
         assert abs(ll - f(np.log(rates))) < 1e-9
-        assert_gradient_close(grad, richardson_gradient(f, np.log(rates)),
-                              f"seed {seed} {model.kind} root {root!r}")
+        assert_gradient_close(
+            grad, richardson_gradient(f, np.log(rates)), f"seed {seed} {model.kind} root {root!r}"
+        )
 
 
 # --------------------------------------------------------------------------- special structures
 
-CYCLE = (("p", "q", "r"), {"p -> q -> r": "forward", "r -> p": "forward",
-                           "q -> p": "backward", "r -> q": "backward", "p -> r": "backward"})
+CYCLE = (
+    ("p", "q", "r"),
+    {
+        "p -> q -> r": "forward",
+        "r -> p": "forward",
+        "q -> p": "backward",
+        "r -> q": "backward",
+        "p -> r": "backward",
+    },
+)
 
 
 @pytest.mark.parametrize("root", ["uniform", "data_weighted", "stationary", "q"])
@@ -210,7 +230,9 @@ def test_complex_eigenvalues_nonreversible_cycle(root):
     60-tip tree and of the plain expm pruning on a 9-tip tree."""
     states, transitions = CYCLE
     model = build_model("custom", states, transitions)
-    rates = np.array([3.0, 0.1]) if model.labels == ("forward", "backward") else np.array([0.1, 3.0])
+    rates = (
+        np.array([3.0, 0.1]) if model.labels == ("forward", "backward") else np.array([0.1, 3.0])
+    )
     Q = model.q_matrix(rates)
     lam = eigensystem(Q)[0]
     assert lam.dtype == np.complex128 and np.abs(lam.imag).max() > 1.0
@@ -227,8 +249,13 @@ def test_complex_eigenvalues_nonreversible_cycle(root):
             ref_tree = ref_tree_from_newick(newick)
             ref_partials = partials_from_cells(cells, ref_tree.tip_labels, list(states))
             q_of = reference_q_of(model, Q)
-            f = lambda x: pruning_log_likelihood(ref_tree, ref_partials, q_of(np.exp(x)), root,  # noqa: E731
-                                                 list(states))
+            f = lambda x: pruning_log_likelihood(
+                ref_tree,
+                ref_partials,
+                q_of(np.exp(x)),
+                root,  # noqa: E731
+                list(states),
+            )
             assert_gradient_close(grad, richardson_gradient(f, np.log(rates)), f"reference {root}")
 
 
@@ -255,8 +282,11 @@ def test_near_equal_eigenvalues(k, spread):
     partials = partials_from_cells(cells, tree.tip_labels, states)
     for root in ("uniform", "data_weighted", "stationary", states[0]):
         _, grad = log_likelihood_and_gradient(tree, partials, model, rates, root)
-        assert_gradient_close(grad, engine_fd(tree, partials, model, rates, root),
-                              f"k {k} spread {spread} root {root}")
+        assert_gradient_close(
+            grad,
+            engine_fd(tree, partials, model, rates, root),
+            f"k {k} spread {spread} root {root}",
+        )
 
 
 def test_zero_length_branches():
@@ -295,14 +325,23 @@ def test_reducible_and_defective_chains(index):
     ref_partials = partials_from_cells(cells, ref_tree.tip_labels, list(states))
     q_of = reference_q_of(model, Q)
     checked = 0
-    for root in ["uniform", "data_weighted", *states] + (["stationary"] if stationary_is_unique(Q) else []):
-        f = lambda x: pruning_log_likelihood(ref_tree, ref_partials, q_of(np.exp(x)), root,  # noqa: E731
-                                             list(states))
+    for root in ["uniform", "data_weighted", *states] + (
+        ["stationary"] if stationary_is_unique(Q) else []
+    ):
+        f = lambda x: pruning_log_likelihood(
+            ref_tree,
+            ref_partials,
+            q_of(np.exp(x)),
+            root,  # noqa: E731
+            list(states),
+        )
         if not np.isfinite(f(np.log(rates))):
             continue
         ll, grad = log_likelihood_and_gradient(tree, partials, model, rates, root)
         assert abs(ll - f(np.log(rates))) < 1e-9
-        assert_gradient_close(grad, richardson_gradient(f, np.log(rates)), f"{transitions} root {root}")
+        assert_gradient_close(
+            grad, richardson_gradient(f, np.log(rates)), f"{transitions} root {root}"
+        )
         checked += 1
     assert checked >= 2
 
@@ -318,10 +357,13 @@ def test_defective_chain_takes_the_fallback_and_others_do_not():
     for kind in ("equal", "symmetric", "unconstrained"):
         m = build_model(kind, ["a", "b", "c", "d"])
         Q = m.q_matrix(np.random.default_rng(0).uniform(0.2, 2.0, m.n_params))
-        assert all(exact_gradient_applies(Q, r) for r in ("uniform", "data_weighted", "stationary", "a"))
+        assert all(
+            exact_gradient_applies(Q, r) for r in ("uniform", "data_weighted", "stationary", "a")
+        )
 
 
 # --------------------------------------------------------------------------- closed forms
+
 
 @pytest.mark.parametrize("k", [2, 3, 4])
 @pytest.mark.parametrize("same", [True, False])
@@ -337,13 +379,15 @@ def test_two_tips_equal_rates_closed_form(k, same):
     if same:
         L, dL = (1 / k) * (1 / k + (k - 1) / k * E), -(k - 1) * T * E / k
     else:
-        L, dL = (1 - E) / k ** 2, T * E / k
+        L, dL = (1 - E) / k**2, T * E / k
     states = [f"s{i}" for i in range(k)]
     tree = parse_newick(f"(a:{t1},b:{t2});")
     partials = np.zeros((2, k))
     partials[tree.tip_labels.index("a"), 0] = 1.0
     partials[tree.tip_labels.index("b"), 0 if same else 1] = 1.0
-    ll, grad = log_likelihood_and_gradient(tree, partials, build_model("equal", states), [q], "uniform")
+    ll, grad = log_likelihood_and_gradient(
+        tree, partials, build_model("equal", states), [q], "uniform"
+    )
     assert ll == pytest.approx(math.log(L), rel=1e-13)
     assert grad[0] == pytest.approx(q * dL / L, rel=1e-10)
 
@@ -362,6 +406,7 @@ def test_all_tips_missing_gives_zero_gradient(root):
 
 
 # --------------------------------------------------------------------------- large trees, impossible data
+
 
 def test_large_tree_gradient_with_rescaling():
     """2,000 tips: L underflows a double (ln L < -745) and the passes are rescaled; the
@@ -385,17 +430,21 @@ def test_impossible_data_give_minus_infinity_and_zero_gradient():
     and a tip 'present' the data are impossible (ln L = -inf, as the engine says)."""
     model = build_model("custom", ["present", "absent"], {"present -> absent": "loss"})
     tree = parse_newick("((a:0.2,b:0.3):0.1,c:0.5);")
-    partials = partials_from_cells({"a": "present", "b": "absent", "c": "absent"},
-                                   tree.tip_labels, ["present", "absent"])
+    partials = partials_from_cells(
+        {"a": "present", "b": "absent", "c": "absent"}, tree.tip_labels, ["present", "absent"]
+    )
     assert log_likelihood(tree, partials, model.q_matrix([0.5]), "absent", model.states) == -np.inf
     ll, grad = log_likelihood_and_gradient(tree, partials, model, [0.5], "absent")
     assert ll == -np.inf and grad.shape == (1,) and grad[0] == 0.0
     ll, grad = log_likelihood_and_gradient(tree, partials, model, [0.5], "present")
     assert np.isfinite(ll)
-    assert_gradient_close(grad, engine_fd(tree, partials, model, np.array([0.5]), "present"), "present")
+    assert_gradient_close(
+        grad, engine_fd(tree, partials, model, np.array([0.5]), "present"), "present"
+    )
 
 
 # --------------------------------------------------------------------------- fits
+
 
 def scipy_fd_fit(tree, partials, model, root, n_starts=5, seed=0):
     """Best ln L of scipy's L-BFGS-B with its own finite-difference gradient, from the
@@ -407,9 +456,16 @@ def scipy_fd_fit(tree, partials, model, root, n_starts=5, seed=0):
         ll = log_likelihood(tree, partials, model.q_matrix(np.exp(x)), root, model.states)
         return -ll if np.isfinite(ll) else 1e8
 
-    best = min(scipy.optimize.minimize(objective, x0, method="L-BFGS-B", bounds=[(lo, hi)] * p,
-                                       options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6}).fun
-               for x0 in starts)
+    best = min(
+        scipy.optimize.minimize(
+            objective,
+            x0,
+            method="L-BFGS-B",
+            bounds=[(lo, hi)] * p,
+            options={"maxiter": 1000, "ftol": 1e-10, "gtol": 1e-6},
+        ).fun
+        for x0 in starts
+    )
     return -best
 
 
@@ -426,7 +482,9 @@ def test_fit_with_gradient_reaches_the_finite_difference_optimum(seed):
     assert fit.log_likelihood >= old - 1e-6, (model.kind, root, fit.log_likelihood, old)
     # the reported ln L is the likelihood at the reported rates
     assert fit.log_likelihood == pytest.approx(
-        log_likelihood(c["tree"], c["partials"], model.q_matrix(fit.rates), root, model.states), abs=1e-9)
+        log_likelihood(c["tree"], c["partials"], model.q_matrix(fit.rates), root, model.states),
+        abs=1e-9,
+    )
 
 
 def test_fit_objective_handles_impossible_starts():
@@ -434,8 +492,9 @@ def test_fit_objective_handles_impossible_starts():
     with a zero gradient and the fit still finds the possible region or says it cannot."""
     model = build_model("custom", ["present", "absent"], {"present -> absent": "loss"})
     tree = parse_newick("((a:0.2,b:0.3):0.1,c:0.5);")
-    partials = partials_from_cells({"a": "present", "b": "absent", "c": "absent"},
-                                   tree.tip_labels, ["present", "absent"])
+    partials = partials_from_cells(
+        {"a": "present", "b": "absent", "c": "absent"}, tree.tip_labels, ["present", "absent"]
+    )
     fit = fit_model(tree, partials, model, "absent")
     assert fit.log_likelihood == -np.inf and not fit.converged and fit.notes
     fit = fit_model(tree, partials, model, "present")
@@ -454,8 +513,10 @@ def test_one_call_path_equals_the_general_path(seed):
     from mkforest.engine.hidden import with_hidden_classes
 
     c = make_case(seed)
-    for model, partials in ((c["model"], c["partials"]),
-                            (with_hidden_classes(c["model"], 2, "equal"), None)):
+    for model, partials in (
+        (c["model"], c["partials"]),
+        (with_hidden_classes(c["model"], 2, "equal"), None),
+    ):
         if partials is None:
             partials = model.expand_tips(c["partials"])
         rates = np.exp(np.random.default_rng(seed).normal(-0.5, 0.7, model.n_params))
@@ -501,9 +562,13 @@ def test_one_call_path_with_complex_eigenvalues(seed):
         cases = [(model, X, rates)]
         if k == 3:
             hidden = with_hidden_classes(model, 2, "equal")
-            cases.append((hidden, hidden.expand_tips(X),
-                          np.append(np.concatenate([rates, 0.5 * rates]), 0.3)
-                          [: hidden.n_params]))
+            cases.append(
+                (
+                    hidden,
+                    hidden.expand_tips(X),
+                    np.append(np.concatenate([rates, 0.5 * rates]), 0.3)[: hidden.n_params],
+                )
+            )
         for m, partials, r in cases:
             if not np.linalg.eigvals(m.q_matrix(r)).imag.any():
                 continue

@@ -51,9 +51,13 @@ def class_matrices(model, base, rates):
     for c in range(R):
         for d in range(R):
             if c != d:
-                switch[c, d] = value.get("class switch",
-                                         value.get(f"class {c + 1}->{d + 1}",
-                                                   value.get(f"class {min(c, d) + 1}<->{max(c, d) + 1}")))
+                switch[c, d] = value.get(
+                    "class switch",
+                    value.get(
+                        f"class {c + 1}->{d + 1}",
+                        value.get(f"class {min(c, d) + 1}<->{max(c, d) + 1}"),
+                    ),
+                )
     return qs, switch
 
 
@@ -120,15 +124,16 @@ def test_equal_classes_give_the_plain_likelihood(kind, R):
     Qp = base.q_matrix(plain_rates)
     sim = simulate_states(tree, Qp, rng)
     X = np.eye(3)[sim[: tree.n_tips]]
-    X[3] = 1.0                                    # a missing tip
+    X[3] = 1.0  # a missing tip
     model = with_hidden_classes(base, R, "unconstrained")
     n_switch = model.n_params - R * base.n_params
     for switch_rate in (1e-6 / tree.height, 5.0):
         rates = np.concatenate([np.tile(plain_rates, R), np.full(n_switch, switch_rate)])
         for root in ["uniform", "stationary", "data_weighted", "y"]:
             plain = log_likelihood(tree, X, Qp, root, tuple(states))
-            hidden = log_likelihood(tree, model.expand_tips(X), model.q_matrix(rates), root,
-                                    model.states)
+            hidden = log_likelihood(
+                tree, model.expand_tips(X), model.q_matrix(rates), root, model.states
+            )
             assert abs(hidden - plain) < 1e-9, (root, switch_rate)
 
 
@@ -220,57 +225,94 @@ def test_class_count_outside_one_to_four_is_refused(bad):
 
 
 def test_unknown_switch_kind_is_refused():
-    with pytest.raises(InputError, match="model 'fs'.*class_switch.*equal, symmetric, unconstrained"):
+    with pytest.raises(
+        InputError, match="model 'fs'.*class_switch.*equal, symmetric, unconstrained"
+    ):
         with_hidden_classes(build_model("equal", ["a", "b"]), 2, "sideways", name="fs")
 
 
 # --------------------------------------------------------------------------- config and tables
 
+
 def _config(models=None, pairs=None):
-    return {"run": "x", "trees": {"file": "t.nex"},
-            "traits": {"file": "t.tsv", "columns": ["glow", "habitat", "banding"]},
-            "models": models or {"one_rate": {"kind": "equal"}}, "pairs": pairs or {}}
+    return {
+        "run": "x",
+        "trees": {"file": "t.nex"},
+        "traits": {"file": "t.tsv", "columns": ["glow", "habitat", "banding"]},
+        "models": models or {"one_rate": {"kind": "equal"}},
+        "pairs": pairs or {},
+    }
 
 
 @pytest.mark.parametrize("bad", [0, 5, 9])
 def test_config_with_classes_outside_one_to_four_names_the_model(bad):
     from mkforest.data.config import validate_config
-    with pytest.raises(InputError, match=rf"models\.two_speed: hidden_classes is {bad}; use a "
-                                         r"whole number from 1 \(no hidden classes\) to 4"):
+
+    with pytest.raises(
+        InputError,
+        match=rf"models\.two_speed: hidden_classes is {bad}; use a "
+        r"whole number from 1 \(no hidden classes\) to 4",
+    ):
         validate_config(_config({"two_speed": {"kind": "equal", "hidden_classes": bad}}))
 
 
 def test_config_class_switch_and_defaults():
     from mkforest.data.config import hidden_class_models, validate_config
-    cfg = validate_config(_config({"two_speed": {"kind": "equal", "hidden_classes": 2},
-                                   "plain": {"kind": "equal"}},
-                                  {"pp": {"traits": ["glow", "banding"], "hidden_classes": 3}}))
+
+    cfg = validate_config(
+        _config(
+            {"two_speed": {"kind": "equal", "hidden_classes": 2}, "plain": {"kind": "equal"}},
+            {"pp": {"traits": ["glow", "banding"], "hidden_classes": 3}},
+        )
+    )
     assert cfg["models"]["plain"]["hidden_classes"] == 1
     assert cfg["models"]["two_speed"]["class_switch"] == "equal"
-    assert hidden_class_models(cfg) == {"glow": ["two_speed"], "habitat": ["two_speed"],
-                                        "banding": ["two_speed"],
-                                        "pp": ["independent", "dependent"]}
+    assert hidden_class_models(cfg) == {
+        "glow": ["two_speed"],
+        "habitat": ["two_speed"],
+        "banding": ["two_speed"],
+        "pp": ["independent", "dependent"],
+    }
     with pytest.raises(InputError, match=r"models\.two_speed\.class_switch"):
-        validate_config(_config({"two_speed": {"kind": "equal", "hidden_classes": 2,
-                                               "class_switch": "sideways"}}))
+        validate_config(
+            _config(
+                {"two_speed": {"kind": "equal", "hidden_classes": 2, "class_switch": "sideways"}}
+            )
+        )
 
 
 def _traits():
     from mkforest.data.traits import trait_from_mapping
+
     taxa = [f"t{i}" for i in range(6)]
-    return {"glow": trait_from_mapping("glow", dict(zip(taxa, ["dull", "glowing"] * 3))),
-            "habitat": trait_from_mapping("habitat", dict(zip(taxa, ["litter", "rock", "canopy"] * 2))),
-            "banding": trait_from_mapping("banding", dict(zip(taxa, ["a", "b", "c"] * 2)))}
+    return {
+        "glow": trait_from_mapping("glow", dict(zip(taxa, ["dull", "glowing"] * 3))),
+        "habitat": trait_from_mapping("habitat", dict(zip(taxa, ["litter", "rock", "canopy"] * 2))),
+        "banding": trait_from_mapping("banding", dict(zip(taxa, ["a", "b", "c"] * 2))),
+    }
 
 
 def test_custom_transition_naming_a_class_is_refused():
     from mkforest.data.config import validate_config
     from mkforest.jobs.analyses import analysis_setup
-    cfg = validate_config(_config({"loss_only": {
-        "kind": "custom", "applies_to": ["glow"], "hidden_classes": 2,
-        "transitions": {"glowing@2 -> dull@2": "loss"}}}))
-    with pytest.raises(InputError, match=r"model 'loss_only'.*'glowing@2 -> dull@2' names hidden "
-                                         r"class 2.*observed states only"):
+
+    cfg = validate_config(
+        _config(
+            {
+                "loss_only": {
+                    "kind": "custom",
+                    "applies_to": ["glow"],
+                    "hidden_classes": 2,
+                    "transitions": {"glowing@2 -> dull@2": "loss"},
+                }
+            }
+        )
+    )
+    with pytest.raises(
+        InputError,
+        match=r"model 'loss_only'.*'glowing@2 -> dull@2' names hidden "
+        r"class 2.*observed states only",
+    ):
         analysis_setup(cfg, "glow", _traits())
 
 
@@ -278,10 +320,15 @@ def test_pair_with_too_many_combined_states_is_refused():
     """3 x 3 joint states x 4 classes = 36 > 32: one sentence naming the pair."""
     from mkforest.data.config import validate_config
     from mkforest.jobs.analyses import analysis_setup
-    cfg = validate_config(_config(pairs={"shells": {"traits": ["habitat", "banding"],
-                                                    "hidden_classes": 4}}))
-    with pytest.raises(InputError, match=r"pairs\.shells\.hidden_classes is 4: .*9 joint states, "
-                                         r"36 with 4 classes; at most 32"):
+
+    cfg = validate_config(
+        _config(pairs={"shells": {"traits": ["habitat", "banding"], "hidden_classes": 4}})
+    )
+    with pytest.raises(
+        InputError,
+        match=r"pairs\.shells\.hidden_classes is 4: .*9 joint states, "
+        r"36 with 4 classes; at most 32",
+    ):
         analysis_setup(cfg, "shells", _traits())
     cfg["pairs"]["shells"]["hidden_classes"] = 3
     joint, models = analysis_setup(cfg, "shells", _traits())
@@ -294,12 +341,16 @@ def test_pair_hypotheses_with_classes_stay_nested():
     from mkforest.data.config import validate_config
     from mkforest.engine.pairs import pair_tests
     from mkforest.jobs.analyses import analysis_setup
+
     traits = _traits()
     from mkforest.data.traits import trait_from_mapping
-    traits["banding"] = trait_from_mapping("banding", {f"t{i}": ["plain", "banded"][i % 2]
-                                                       for i in range(6)})
-    cfg = validate_config(_config(pairs={"pp": {"traits": ["glow", "banding"],
-                                                "hidden_classes": 2}}))
+
+    traits["banding"] = trait_from_mapping(
+        "banding", {f"t{i}": ["plain", "banded"][i % 2] for i in range(6)}
+    )
+    cfg = validate_config(
+        _config(pairs={"pp": {"traits": ["glow", "banding"], "hidden_classes": 2}})
+    )
     _, models = analysis_setup(cfg, "pp", traits)
     assert models["independent"][0].n_params == 9 and models["dependent"][0].n_params == 17
     (test,) = pair_tests(models)
@@ -312,12 +363,20 @@ def test_model_average_keeps_plain_and_class_rates_apart():
     import pandas as pd
 
     from mkforest.engine.summarise import averaged_rates
-    fits = pd.DataFrame({"analysis": "t", "model": ["m1", "m2", "h"], "tree": 0,
-                         "weight": [0.2, 0.2, 0.6]})
-    rates = pd.DataFrame({"analysis": "t", "model": ["m1", "m2", "h", "h", "h"], "tree": 0,
-                          "from_state": ["a", "a", "a@1", "a@2", "a@1"],
-                          "to_state": ["b", "b", "b@1", "b@2", "a@2"],
-                          "rate": [1.0, 3.0, 0.5, 4.0, 0.1]})
+
+    fits = pd.DataFrame(
+        {"analysis": "t", "model": ["m1", "m2", "h"], "tree": 0, "weight": [0.2, 0.2, 0.6]}
+    )
+    rates = pd.DataFrame(
+        {
+            "analysis": "t",
+            "model": ["m1", "m2", "h", "h", "h"],
+            "tree": 0,
+            "from_state": ["a", "a", "a@1", "a@2", "a@1"],
+            "to_state": ["b", "b", "b@1", "b@2", "a@2"],
+            "rate": [1.0, 3.0, 0.5, 4.0, 0.1],
+        }
+    )
     out = averaged_rates(fits, rates).set_index(["from_state", "to_state"])["rate"]
     assert out[("a", "b")] == pytest.approx(2.0)
     assert out[("a@1", "b@1")] == pytest.approx(0.5)
@@ -326,6 +385,7 @@ def test_model_average_keeps_plain_and_class_rates_apart():
 
 # --------------------------------------------------------------------------- ancestral states and maps
 
+
 def _lumpable_case(seed=21, n=30):
     rng = np.random.default_rng(seed)
     labels, parent, length = yule_arrays(rng, n)
@@ -333,7 +393,7 @@ def _lumpable_case(seed=21, n=30):
     base = build_model("unconstrained", ["x", "y", "z"])
     plain_rates = rng.uniform(0.3, 2.0, size=base.n_params)
     X = np.eye(3)[simulate_states(tree, base.q_matrix(plain_rates), rng)[: tree.n_tips]]
-    X[0] = [1, 1, 0]                                   # an ambiguous tip
+    X[0] = [1, 1, 0]  # an ambiguous tip
     model = with_hidden_classes(base, 2, "symmetric")
     rates = np.concatenate([plain_rates, plain_rates, [0.7]])
     return tree, base, plain_rates, model, rates, X
@@ -344,10 +404,12 @@ def test_observed_marginals_of_equal_classes_are_the_plain_marginals(root):
     """Lumpability (fact of the trade): with equal classes the probabilities of the
     observed states, summed over classes, are the plain model's at every node."""
     from mkforest.engine.ancestral import averaged_probabilities, marginal_probabilities
+
     tree, base, plain_rates, model, rates, X = _lumpable_case()
     plain = marginal_probabilities(tree, X, base.q_matrix(plain_rates), root, base.states)
-    mixed = averaged_probabilities(tree, X, [(model.q_matrix(rates), root, 1.0, model)],
-                                   base.states)
+    mixed = averaged_probabilities(
+        tree, X, [(model.q_matrix(rates), root, 1.0, model)], base.states
+    )
     np.testing.assert_allclose(mixed, plain, atol=1e-10)
 
 
@@ -356,12 +418,25 @@ def test_maps_under_equal_classes_count_like_the_plain_model():
     distribution as under the plain model (means within 4 standard errors over 1,500
     maps each); class switches are not counted and time is summed over classes."""
     from mkforest.engine.mapping import mixed_stochastic_maps
+
     tree, base, plain_rates, model, rates, X = _lumpable_case()
     n = 1500
-    plain = mixed_stochastic_maps(tree, X, [(base.q_matrix(plain_rates), "uniform", 1.0)], n,
-                                  np.random.default_rng(1), base.states)
-    hidden = mixed_stochastic_maps(tree, X, [(model.q_matrix(rates), "uniform", 1.0, model)], n,
-                                   np.random.default_rng(2), base.states)
+    plain = mixed_stochastic_maps(
+        tree,
+        X,
+        [(base.q_matrix(plain_rates), "uniform", 1.0)],
+        n,
+        np.random.default_rng(1),
+        base.states,
+    )
+    hidden = mixed_stochastic_maps(
+        tree,
+        X,
+        [(model.q_matrix(rates), "uniform", 1.0, model)],
+        n,
+        np.random.default_rng(2),
+        base.states,
+    )
     assert hidden.counts.shape == (n, 3, 3) and hidden.dwell.shape == (n, 3)
     assert (hidden.counts[:, np.arange(3), np.arange(3)] == 0).all()
     np.testing.assert_allclose(hidden.dwell.sum(axis=1), tree.total_length, rtol=1e-9)
@@ -377,15 +452,20 @@ def test_notes_when_classes_cannot_mean_much():
     from types import SimpleNamespace
 
     from mkforest.engine.hidden import class_notes
+
     model = with_hidden_classes(build_model("unconstrained", ["a", "b"]), 2, "equal")
 
     def fit(rates, at_upper=()):
-        return SimpleNamespace(log_likelihood=-10.0, q_matrix=model.q_matrix(rates),
-                               at_upper=tuple(at_upper))
+        return SimpleNamespace(
+            log_likelihood=-10.0, q_matrix=model.q_matrix(rates), at_upper=tuple(at_upper)
+        )
 
     assert class_notes(model, fit([1.0, 2.0, 1.02, 2.01, 0.5]))[0].startswith(
-        "the 2 hidden classes have nearly the same rates")
-    assert "upper rate bound" in class_notes(model, fit([1.0, 2.0, 9.0, 8.0, 1e4],
-                                                        ["class switch"]))[0]
+        "the 2 hidden classes have nearly the same rates"
+    )
+    assert (
+        "upper rate bound"
+        in class_notes(model, fit([1.0, 2.0, 9.0, 8.0, 1e4], ["class switch"]))[0]
+    )
     assert class_notes(model, fit([1.0, 2.0, 9.0, 8.0, 0.5])) == []
     assert class_notes(build_model("equal", ["a", "b"]), fit([1.0, 2.0, 9.0, 8.0, 0.5])) == []

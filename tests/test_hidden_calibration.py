@@ -18,7 +18,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "benchmarks"))
 
 import hidden_classes as bench  # noqa: E402
 
-pytestmark = pytest.mark.slow   # ~1-3 minutes
+pytestmark = pytest.mark.slow  # ~1-3 minutes
 
 
 def test_recovery_small():
@@ -31,8 +31,12 @@ def test_recovery_small():
         assert two >= plain - 1e-3 and plain >= equal - 1e-3
         rates = r["rates"]
         assert rates["0->1@2"] + rates["1->0@2"] >= rates["0->1@1"] + rates["1->0@1"]
-    assert report["best_counts"]["two_classes"] + report["best_counts"]["unconstrained"] \
-        + report["best_counts"]["equal"] == 8
+    assert (
+        report["best_counts"]["two_classes"]
+        + report["best_counts"]["unconstrained"]
+        + report["best_counts"]["equal"]
+        == 8
+    )
     print(report)
 
 

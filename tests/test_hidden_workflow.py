@@ -23,22 +23,40 @@ def run(tmp_path_factory):
     tiny_config(work)  # writes the data
     cfg = tiny_config(
         work,
-        traits={"file": str(work / "data" / "traits.tsv"), "taxon_column": "taxon",
-                "columns": ["glow", "banding", "aperture"]},
-        models={"one_rate": {"kind": "equal"},
-                "two_speed": {"kind": "unconstrained", "hidden_classes": 2, "root": "dull",
-                              "applies_to": ["glow"]}},
-        pairs={"shells": {"traits": ["banding", "aperture"], "hidden_classes": 2,
-                          "hypotheses": ["independent", "dependent"]}},
-        ancestral={"enabled": True, "model": "average", "maps": 5})
+        traits={
+            "file": str(work / "data" / "traits.tsv"),
+            "taxon_column": "taxon",
+            "columns": ["glow", "banding", "aperture"],
+        },
+        models={
+            "one_rate": {"kind": "equal"},
+            "two_speed": {
+                "kind": "unconstrained",
+                "hidden_classes": 2,
+                "root": "dull",
+                "applies_to": ["glow"],
+            },
+        },
+        pairs={
+            "shells": {
+                "traits": ["banding", "aperture"],
+                "hidden_classes": 2,
+                "hypotheses": ["independent", "dependent"],
+            }
+        },
+        ancestral={"enabled": True, "model": "average", "maps": 5},
+    )
     proc = run_snakemake(work, cfg, timeout=1500)
     assert proc.returncode == 0, proc.stderr[-3000:]
     return work / "results" / "tiny"
 
 
 def read(out, name):
-    return pd.read_csv(out / "tables" / f"{name}.tsv", sep="\t",
-                       dtype={"state": str, "from_state": str, "to_state": str})
+    return pd.read_csv(
+        out / "tables" / f"{name}.tsv",
+        sep="\t",
+        dtype={"state": str, "from_state": str, "to_state": str},
+    )
 
 
 def test_fits_and_rates_carry_classes(run):
@@ -62,7 +80,10 @@ def test_fits_and_rates_carry_classes(run):
 def test_ancestral_classes_add_up(run):
     classes = read(run, "ancestral_classes")
     assert set(zip(classes["analysis"], classes["model"])) == {
-        ("glow", "two_speed"), ("shells", "independent"), ("shells", "dependent")}
+        ("glow", "two_speed"),
+        ("shells", "independent"),
+        ("shells", "dependent"),
+    }
     c = classes[classes["n_trees"] > 0]
     whole = c[c["state"].isna()]
     combined = c[c["state"].notna()]
@@ -70,8 +91,9 @@ def test_ancestral_classes_add_up(run):
     np.testing.assert_allclose(per_clade.to_numpy(), 1.0, atol=1e-6)
     by_class = combined.groupby(["analysis", "model", "clade", "class"])["mean_probability"].sum()
     cls = whole.set_index(["analysis", "model", "clade", "class"])["mean_probability"]
-    np.testing.assert_allclose(by_class.sort_index().to_numpy(), cls.sort_index().to_numpy(),
-                               atol=1e-6)
+    np.testing.assert_allclose(
+        by_class.sort_index().to_numpy(), cls.sort_index().to_numpy(), atol=1e-6
+    )
     states = read(run, "ancestral_states")
     sums = states.groupby(["analysis", "clade"])["mean_probability"].sum()
     np.testing.assert_allclose(sums.dropna().to_numpy(), 1.0, atol=1e-6)
@@ -98,6 +120,7 @@ def test_pair_figures_one_series_per_class(run):
     from mkforest.data.traits import traits_from_json
     from mkforest.engine import pairs
     from mkforest.report.plots_pairs import joint_rate_grid, rates_by_state
+
     traits = traits_from_json(json.loads((run / "prepared" / "traits.json").read_text()))
     pair = pairs.make_pair("shells", traits["banding"], traits["aperture"])
     rates, support = read(run, "rates"), read(run, "model_support")

@@ -19,10 +19,10 @@ from figure_checks import overlaps
 from mkforest.data.traits import trait_from_mapping
 from mkforest.data.trees import parse_newick
 from mkforest.engine.branches import parse_treatment
+from mkforest.engine.compare import IMPOSSIBLE
 from mkforest.engine.fitting import fit_model, start_sequence
 from mkforest.engine.models import build_model
 from mkforest.engine.pairs import Nesting
-from mkforest.engine.compare import IMPOSSIBLE
 from mkforest.engine.summarise import (
     add_weights,
     averaged_rates,
@@ -37,8 +37,11 @@ from mkforest.jobs.prepare import check_tree_lengths
 from mkforest.report import plots, style
 
 # tree 0 and 1: a and b on zero-length branches; tree 2: the same shape with lengths
-TREES = ["((a:0,b:0):0.6,(c:0.3,d:0.3):0.3);", "((a:0,b:0):0.5,(c:0.2,d:0.2):0.3);",
-         "((a:0.2,b:0.2):0.4,(c:0.3,d:0.3):0.3);"]
+TREES = [
+    "((a:0,b:0):0.6,(c:0.3,d:0.3):0.3);",
+    "((a:0,b:0):0.5,(c:0.2,d:0.2):0.3);",
+    "((a:0.2,b:0.2):0.4,(c:0.3,d:0.3):0.3);",
+]
 COLOUR = {"a": "red", "b": "blue", "c": "blue", "d": "red"}
 
 
@@ -49,9 +52,11 @@ def _trees():
 def _fit_tables():
     trait = trait_from_mapping("colour", COLOUR)
     fits, rates = [], []
-    for name, kind, transitions in (("one", "equal", None), ("two", "unconstrained", None),
-                                    ("fixed_back", "custom",
-                                     {"red -> blue": "go", "blue -> red": 0.5})):
+    for name, kind, transitions in (
+        ("one", "equal", None),
+        ("two", "unconstrained", None),
+        ("fixed_back", "custom", {"red -> blue": "go", "blue -> red": 0.5}),
+    ):
         model = build_model(kind, trait.states, transitions, name)
         f, r = fit_chunk(_trees(), trait, model, "uniform", "colour", seed=4, starts=2)
         fits += f
@@ -80,8 +85,12 @@ def test_an_impossible_fit_writes_nan_rates_marked_impossible():
 def test_an_impossible_fit_has_no_branch_parameter():
     trait = trait_from_mapping("colour", COLOUR)
     model = build_model("equal", trait.states, None, "one")
-    res = fit_model(_trees()[0], trait.tip_partials(_trees()[0]), model,
-                    branches=parse_treatment("kappa", "models.one.branches"))
+    res = fit_model(
+        _trees()[0],
+        trait.tip_partials(_trees()[0]),
+        model,
+        branches=parse_treatment("kappa", "models.one.branches"),
+    )
     assert res.log_likelihood == -np.inf
     assert np.isnan(res.rates).all() and np.isnan(res.branch_parameter)
     assert res.branch_at_bound == "" and res.at_lower == () and res.at_upper == ()
@@ -95,15 +104,16 @@ def test_rate_summary_leaves_impossible_fits_out_and_counts_them():
     for key, row in s.iterrows():
         assert row["n_impossible"] == 2, key
         assert row["n_trees"] == 1 == row["n_estimated"] + row["n_unbounded"], key
-        if row["n_estimated"] and key[0] != "averaged":   # the one possible tree's rate
+        if row["n_estimated"] and key[0] != "averaged":  # the one possible tree's rate
             assert row["median_rate"] == pytest.approx(possible[key])
     # the model-averaged rate of the possible tree only
     avg = averaged_rates(fits, rates)
     assert set(avg["tree"]) == {2}
     assert s.loc[("averaged", "red", "blue"), "n_impossible"] == 2
     # every tree impossible: no median, the status says why
-    only_bad = rate_summary(rates[rates["tree"] < 2], averaged_rates(fits[fits["tree"] < 2],
-                                                                      rates[rates["tree"] < 2]))
+    only_bad = rate_summary(
+        rates[rates["tree"] < 2], averaged_rates(fits[fits["tree"] < 2], rates[rates["tree"] < 2])
+    )
     assert (only_bad["status"] == "impossible").all() and only_bad["median_rate"].isna().all()
     assert (only_bad["n_trees"] == 0).all() and (only_bad["n_impossible"] == 2).all()
     # model_support counts the same trees: 2 of 3 impossible, 1 used
@@ -137,8 +147,10 @@ def test_rates_figure_counts_impossible_fits_and_draws_only_the_others():
 def test_bootstrap_never_simulates_from_an_impossible_null():
     fits, rates = _fit_tables()
     trait = trait_from_mapping("colour", COLOUR)
-    models = {m: (build_model(k, trait.states, None, m), "uniform")
-              for m, k in (("one", "equal"), ("two", "unconstrained"))}
+    models = {
+        m: (build_model(k, trait.states, None, m), "uniform")
+        for m, k in (("one", "equal"), ("two", "unconstrained"))
+    }
     null_rates = bootstrap_null_rates([Nesting("one", "two", 1, False)], models, fits, rates)
     assert list(null_rates) == [("one", 2)]
     assert np.isfinite(null_rates[("one", 2)]).all()
@@ -147,12 +159,25 @@ def test_bootstrap_never_simulates_from_an_impossible_null():
 def test_pair_tests_name_impossible_trees_and_count_over_the_trees_tried():
     """Trees 0 and 1 impossible under both hypotheses: not tested, counted in the caution,
     and never counted as fits that did not converge ("3 of 1 trees")."""
-    fits = pd.DataFrame([dict(analysis="shell", model=m, tree=t, n_params=k,
-                              log_likelihood=-np.inf if t < 2 else -10.0 - k, converged=t == 2,
-                              at_lower="", weight=np.nan if t < 2 else 0.5)
-                         for t in range(3) for m, k in (("independent", 4), ("dependent", 8))])
-    rows = pair_test_rows("shell", [Nesting("independent", "dependent", 4, False)], fits,
-                          pd.DataFrame(), 0.05)
+    fits = pd.DataFrame(
+        [
+            dict(
+                analysis="shell",
+                model=m,
+                tree=t,
+                n_params=k,
+                log_likelihood=-np.inf if t < 2 else -10.0 - k,
+                converged=t == 2,
+                at_lower="",
+                weight=np.nan if t < 2 else 0.5,
+            )
+            for t in range(3)
+            for m, k in (("independent", 4), ("dependent", 8))
+        ]
+    )
+    rows = pair_test_rows(
+        "shell", [Nesting("independent", "dependent", 4, False)], fits, pd.DataFrame(), 0.05
+    )
     notes = {r["tree"]: r["note"] for r in rows}
     assert "impossible under independent and dependent" in notes[0]
     (s,) = summary_rows(pd.DataFrame(rows, columns=TEST_COLUMNS), fits, 0)
@@ -162,6 +187,7 @@ def test_pair_tests_name_impossible_trees_and_count_over_the_trees_tried():
 
 
 # --------------------------------------------------------------------------- trees without length
+
 
 def test_a_tree_without_length_gets_a_start_and_an_impossible_fit():
     """Every branch 0: no ZeroDivisionError in the starting rate; the fit says impossible."""
@@ -175,8 +201,12 @@ def test_a_tree_without_length_gets_a_start_and_an_impossible_fit():
 
 
 def test_trees_without_length_stop_at_the_data_check_naming_tree_and_file():
-    trees = [parse_newick(t, index=i, rooted=True) for i, t in enumerate(
-        ["((a:1,b:1):1,c:2);", "((a:0,b:0):0,c:0);", "((a:1,b:1):1,c:2);", "((a:0,b:0):0,c:0);"])]
+    trees = [
+        parse_newick(t, index=i, rooted=True)
+        for i, t in enumerate(
+            ["((a:1,b:1):1,c:2);", "((a:0,b:0):0,c:0);", "((a:1,b:1):1,c:2);", "((a:0,b:0):0,c:0);"]
+        )
+    ]
     check_tree_lengths([trees[0], trees[2]], "tree file 'x.nwk'")
     with pytest.raises(InputError) as err:
         check_tree_lengths(trees, "tree file 'x.nwk'")

@@ -23,8 +23,9 @@ MKFOREST = str(Path(sys.executable).with_name("mkforest"))
 
 
 def init(cwd: Path, *args):
-    return subprocess.run([MKFOREST, "init", *map(str, args)], cwd=cwd, capture_output=True,
-                          text=True, timeout=300)
+    return subprocess.run(
+        [MKFOREST, "init", *map(str, args)], cwd=cwd, capture_output=True, text=True, timeout=300
+    )
 
 
 def demo_data(folder: Path, n_tips: int = 14, n_trees: int = 4, columns=None) -> Path:
@@ -46,8 +47,15 @@ def run_written_config(tmp_path: Path, config: Path, timeout: int = 600):
 
 def test_demo_data_config_runs_without_edits(tmp_path):
     data = demo_data(tmp_path / "data")
-    proc = init(tmp_path, "--trees", data / "trees.nex", "--traits", data / "traits.tsv",
-                "--output", "start.yaml")
+    proc = init(
+        tmp_path,
+        "--trees",
+        data / "trees.nex",
+        "--traits",
+        data / "traits.tsv",
+        "--output",
+        "start.yaml",
+    )
     assert proc.returncode == 0, proc.stderr
     out = proc.stdout.splitlines()
     # the one command to run next, and the summary of what was found
@@ -65,8 +73,9 @@ def test_demo_data_config_runs_without_edits(tmp_path):
     start = lines.index("# pairs:")
     end = lines.index("pairs: {}")
     block = [ln[2:] for ln in lines[start:end]]
-    with_pair = check_config(yaml.safe_load("\n".join(lines[:start] + block + lines[end + 1:])),
-                             "uncommented")
+    with_pair = check_config(
+        yaml.safe_load("\n".join(lines[:start] + block + lines[end + 1 :])), "uncommented"
+    )
     (pair,) = with_pair["pairs"].values()
     assert len(set(pair["traits"])) == 2 and set(pair["traits"]) <= set(cfg["traits"]["columns"])
 
@@ -74,13 +83,14 @@ def test_demo_data_config_runs_without_edits(tmp_path):
 @pytest.mark.slow  # the full demo: 90 species, 120 trees, six traits, ancestral maps
 def test_full_demo_data_config_runs_without_edits(tmp_path):
     make_demo(tmp_path / "data")
-    proc = init(tmp_path, "--trees", tmp_path / "data/trees.nex",
-                "--traits", tmp_path / "data/traits.tsv")
+    proc = init(
+        tmp_path, "--trees", tmp_path / "data/trees.nex", "--traits", tmp_path / "data/traits.tsv"
+    )
     assert proc.returncode == 0, proc.stderr
     cfg = run_written_config(tmp_path, tmp_path / "my_config.yaml", timeout=3600)
     header = (tmp_path / "data/traits.tsv").read_text().splitlines()[0].split("\t")
     assert cfg["traits"]["columns"] == header[1:]  # every trait column of the table, in order
-    assert "lip" in cfg["traits"]["columns"]      # the demo's trait simulated on unit lengths
+    assert "lip" in cfg["traits"]["columns"]  # the demo's trait simulated on unit lengths
     fits = pd.read_csv(tmp_path / "results/my_config/tables/fits.tsv", sep="\t")
     assert fits["tree"].nunique() == 120
     assert set(fits.loc[fits["analysis"] == "size", "model"]) == {"one_rate", "mirrored", "free"}
@@ -92,8 +102,9 @@ def test_mismatched_taxa_config_runs_and_lists_them(tmp_path):
     lines = table.read_text().splitlines()
     dropped = [lines[2].split("\t")[0], lines[5].split("\t")[0]]
     extra = "Lumasta_nowhere\t" + "\t".join(["?"] * (len(lines[0].split("\t")) - 1))
-    table.write_text("\n".join([ln for ln in lines if ln.split("\t")[0] not in dropped]
-                               + [extra]) + "\n")
+    table.write_text(
+        "\n".join([ln for ln in lines if ln.split("\t")[0] not in dropped] + [extra]) + "\n"
+    )
     proc = init(tmp_path, "--trees", data / "trees.nex", "--traits", table)
     assert proc.returncode == 0, proc.stderr
     assert "2 in the trees only -> absent_taxa: missing" in proc.stdout
@@ -114,8 +125,7 @@ def _unrooted_copy(src: Path, dst: Path) -> None:
     for t in trees:
         t.is_rooted = False
         t.deroot()
-    trees.write(path=str(dst), schema="newick", unquoted_underscores=True,
-                suppress_rooting=False)
+    trees.write(path=str(dst), schema="newick", unquoted_underscores=True, suppress_rooting=False)
 
 
 def test_unrooted_trees_are_reported_and_rooted_so_the_config_runs(tmp_path):
@@ -135,6 +145,7 @@ def test_unrooted_trees_are_reported_and_rooted_so_the_config_runs(tmp_path):
 
 
 # --------------------------------------------------------------------------- what init reads
+
 
 def test_ultrametric_agrees_with_dendropy(tmp_path):
     """Reference: DendroPy's Tree.calc_node_ages refuses a tree whose tips are not
@@ -161,12 +172,18 @@ def _table(path: Path, rows: list) -> Path:
 def test_odd_table_columns_are_left_out_with_reasons(tmp_path):
     trees = tmp_path / "t.nwk"
     trees.write_text("((a:1,b:1):1,(c:1,(d:0.5,e:0.5):1.5):0);\n")
-    rows = [["species", "colour", "note", "all_same", "size"],
-            ["a", "red", "n1", "x", "small"], ["b", "blue", "n2", "x", "unknown"],
-            ["c", "red", "n3", "x", "large"], ["d", "blue", "n4", "x", "medium"],
-            ["e", "N/A", "n5", "x", "small"],
-            ["f", "red", "n6", "x", "large"], ["g", "red", "n7", "x", "large"],
-            ["h", "red", "n8", "x", "medium"], ["i", "red", "n9", "x", "small"]]
+    rows = [
+        ["species", "colour", "note", "all_same", "size"],
+        ["a", "red", "n1", "x", "small"],
+        ["b", "blue", "n2", "x", "unknown"],
+        ["c", "red", "n3", "x", "large"],
+        ["d", "blue", "n4", "x", "medium"],
+        ["e", "N/A", "n5", "x", "small"],
+        ["f", "red", "n6", "x", "large"],
+        ["g", "red", "n7", "x", "large"],
+        ["h", "red", "n8", "x", "medium"],
+        ["i", "red", "n9", "x", "small"],
+    ]
     starter = starting_config(trees, _table(tmp_path / "t.csv", rows), base=tmp_path)
     cfg = yaml.safe_load(starter.text)
     # no 'taxon' column: the one matching the tree tips is chosen
@@ -184,8 +201,10 @@ def test_odd_table_columns_are_left_out_with_reasons(tmp_path):
 def test_misspelt_taxon_column_and_missing_lengths(tmp_path):
     trees = tmp_path / "t.nwk"
     trees.write_text("((a,b),(c,d));\n")
-    table = _table(tmp_path / "t.csv", [["taxon", "colour"], ["a", "red"], ["b", "blue"],
-                                        ["c", "red"], ["d", "blue"]])
+    table = _table(
+        tmp_path / "t.csv",
+        [["taxon", "colour"], ["a", "red"], ["b", "blue"], ["c", "red"], ["d", "blue"]],
+    )
     with pytest.raises(InputError, match="no column 'taxa'.*Did you mean 'taxon'"):
         starting_config(trees, table, "taxa", base=tmp_path)
     starter = starting_config(trees, table, base=tmp_path)
@@ -197,27 +216,43 @@ def test_init_refuses_to_replace_a_file(tmp_path):
     (tmp_path / "my_config.yaml").write_text("mine\n")
     proc = init(tmp_path, "--trees", data / "trees.nex", "--traits", data / "traits.tsv")
     assert proc.returncode == 2
-    assert proc.stderr.strip().splitlines()[-1].startswith("mkforest: error: 'my_config.yaml' exists")
+    assert (
+        proc.stderr.strip().splitlines()[-1].startswith("mkforest: error: 'my_config.yaml' exists")
+    )
     assert (tmp_path / "my_config.yaml").read_text() == "mine\n"
 
 
 def test_make_run_calls_the_workflow_with_the_config():
-    dry = subprocess.run(["make", "-s", "-n", "-C", str(REPO), "run", "CONFIG=my.yaml",
-                          "ARGS=--dry-run"], capture_output=True, text=True, timeout=60)
+    dry = subprocess.run(
+        ["make", "-s", "-n", "-C", str(REPO), "run", "CONFIG=my.yaml", "ARGS=--dry-run"],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
     assert dry.returncode == 0, dry.stderr
-    assert ".venv/bin/snakemake --profile profiles/laptop --configfile my.yaml --dry-run" \
+    assert (
+        ".venv/bin/snakemake --profile profiles/laptop --configfile my.yaml --dry-run"
         in dry.stdout.splitlines()
-    bare = subprocess.run(["make", "-s", "-C", str(REPO), "run"], capture_output=True,
-                          text=True, timeout=60)
+    )
+    bare = subprocess.run(
+        ["make", "-s", "-C", str(REPO), "run"], capture_output=True, text=True, timeout=60
+    )
     assert bare.returncode != 0 and "usage: make run CONFIG=my_config.yaml" in bare.stdout
 
 
 def test_columns_the_workflow_would_refuse_are_left_out_and_zero_lengths_reported(tmp_path):
     trees = tmp_path / "t.nwk"
     trees.write_text("((a:1,b:0):1,(c:1,d:1):1);\n")
-    table = _table(tmp_path / "t.csv", [["taxon", "colour", "shape"], ["a", "Red", "round"],
-                                        ["b", "red", "flat"], ["c", "blue", "round"],
-                                        ["d", "blue", "flat"]])
+    table = _table(
+        tmp_path / "t.csv",
+        [
+            ["taxon", "colour", "shape"],
+            ["a", "Red", "round"],
+            ["b", "red", "flat"],
+            ["c", "blue", "round"],
+            ["d", "blue", "flat"],
+        ],
+    )
     starter = starting_config(trees, table, base=tmp_path)
     cfg = yaml.safe_load(starter.text)
     assert cfg["traits"]["columns"] == ["shape"]

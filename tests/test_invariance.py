@@ -53,14 +53,15 @@ def test_relabelling_states(seed):
     """Permute the state order in Q, the tip data and the root label: ln L unchanged."""
     rng, states, Q, newick, _, cells = _medium_case(seed)
     tree = parse_newick(newick)
-    perm = rng.permutation(len(states))          # new state i is old state perm[i]
+    perm = rng.permutation(len(states))  # new state i is old state perm[i]
     new_states = [states[p] for p in perm]
     Q_new = Q[np.ix_(perm, perm)]
     # rename the labels too, so nothing can lean on the label spelling
     rename = {s: f"z{j}" for j, s in enumerate(rng.permutation(states))}
     renamed = [rename[s] for s in new_states]
-    new_cells = {t: c if c == "?" else "|".join(rename[s] for s in c.split("|"))
-                 for t, c in cells.items()}
+    new_cells = {
+        t: c if c == "?" else "|".join(rename[s] for s in c.split("|")) for t, c in cells.items()
+    }
     for root in _roots(states):
         before = _lnl(tree, cells, states, Q, root)
         new_root = rename[root] if root in states else root
@@ -77,7 +78,9 @@ def test_rotating_children_and_reordering_taxa(seed):
     taxa come in another order): ln L unchanged."""
     rng, states, Q, newick, ref_tree, cells = _medium_case(seed)
     tree = parse_newick(newick)
-    rotated_text = newick_from_arrays(ref_tree.tip_labels, ref_tree.parent, ref_tree.length, rng=rng)
+    rotated_text = newick_from_arrays(
+        ref_tree.tip_labels, ref_tree.parent, ref_tree.length, rng=rng
+    )
     rotated = parse_newick(rotated_text)
     assert rotated_text != newick
     assert set(rotated.tip_labels) == set(tree.tip_labels)
@@ -93,8 +96,9 @@ def test_rescaling_lengths_and_rates(seed, c):
     """Branch lengths x c and rates / c: P(t) = expm(Q t) unchanged, so ln L unchanged."""
     _, states, Q, newick, ref_tree, cells = _medium_case(seed)
     tree = parse_newick(newick)
-    scaled = parse_newick(newick_from_arrays(ref_tree.tip_labels, ref_tree.parent,
-                                             ref_tree.length * c))
+    scaled = parse_newick(
+        newick_from_arrays(ref_tree.tip_labels, ref_tree.parent, ref_tree.length * c)
+    )
     for root in _roots(states):
         a = _lnl(tree, cells, states, Q, root)
         b = _lnl(scaled, cells, states, Q / c, root)
@@ -131,8 +135,11 @@ def test_trait_table_row_order_does_not_matter():
 def test_custom_model_with_permuted_state_order():
     """The same custom model declared over a permuted state order gives the permuted Q."""
     states = ("small", "medium", "large")
-    transitions = {"small -> medium -> large": "grow", "large -> medium": "shrink",
-                   "medium -> small": 0.25}
+    transitions = {
+        "small -> medium -> large": "grow",
+        "large -> medium": "shrink",
+        "medium -> small": 0.25,
+    }
     rates = {"grow": 1.3, "shrink": 0.4}
     m1 = build_model("custom", states, transitions)
     order = ("large", "small", "medium")

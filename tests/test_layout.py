@@ -3,12 +3,11 @@ request check, and reading chunk files. The project's own rules; no outside valu
 
 import numpy as np
 import pytest
+from conftest import random_newick
 
 from mkforest.data.trees import load_trees, parse_newick, save_trees
 from mkforest.jobs.cluster import group_request, parse_sinfo, request_problem
 from mkforest.jobs.prepare import AUTO_MAX_TREE_TIPS, AUTO_MIN_TREES, auto_trees_per_job
-
-from conftest import random_newick
 
 
 def jobs(n_trees, per_job, fits_per_tree):
@@ -29,7 +28,7 @@ def test_auto_job_count_does_not_grow_with_trees_below_the_memory_cap():
 
 
 def test_auto_bounds():
-    assert auto_trees_per_job(100, 50, 1, 64) == 100            # never below the trees there are
+    assert auto_trees_per_job(100, 50, 1, 64) == 100  # never below the trees there are
     assert auto_trees_per_job(10_000, 50, 1, 64) == AUTO_MIN_TREES
     assert auto_trees_per_job(50_000, 1000, 250, 2) == AUTO_MAX_TREE_TIPS // 1000
     assert auto_trees_per_job(3, 10_000_000, 1, 1) == 1
@@ -55,8 +54,10 @@ def test_request_larger_than_every_node_is_named():
 @pytest.mark.parametrize("n_trees", [1, 7])
 def test_chunk_file_round_trip(tmp_path, n_trees):
     rng = np.random.default_rng(n_trees)
-    trees = [parse_newick(random_newick(rng, int(rng.integers(2, 30))), index=5 + i)
-             for i in range(n_trees)]
+    trees = [
+        parse_newick(random_newick(rng, int(rng.integers(2, 30))), index=5 + i)
+        for i in range(n_trees)
+    ]
     save_trees(tmp_path / "c.npz", trees)
     back = load_trees(tmp_path / "c.npz")
     assert len(back) == n_trees

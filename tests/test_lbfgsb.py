@@ -23,6 +23,7 @@ def _recorded(fun):
     def wrapped(x):
         calls.append(np.array(x, dtype=float))
         return fun(x)
+
     return wrapped, calls
 
 
@@ -40,8 +41,14 @@ def test_same_points_and_result_as_minimize(n, seed, ftol, gtol):
     f1, calls1 = _recorded(_rosen)
     x = lbfgsb.minimise(f1, x0, lo, hi, ftol=ftol, gtol=gtol, maxiter=1000)
     f2, calls2 = _recorded(_rosen)
-    res = minimize(f2, x0, method="L-BFGS-B", jac=True, bounds=list(zip(lo, hi)),
-                   options={"maxiter": 1000, "ftol": ftol, "gtol": gtol})
+    res = minimize(
+        f2,
+        x0,
+        method="L-BFGS-B",
+        jac=True,
+        bounds=list(zip(lo, hi)),
+        options={"maxiter": 1000, "ftol": ftol, "gtol": gtol},
+    )
     assert np.array_equal(x, res.x)
     # minimize evaluates x0 once more on its own (its function wrapper's first call)
     distinct1 = {c.tobytes() for c in calls1}
@@ -53,8 +60,14 @@ def test_maxiter_is_honoured_like_minimize():
     x0 = np.array([-1.2, 1.0, -0.5, 0.3])
     lo, hi = np.full(4, -2.0), np.full(4, 2.0)
     x = lbfgsb.minimise(_rosen, x0, lo, hi, ftol=1e-12, gtol=1e-9, maxiter=3)
-    res = minimize(_rosen, x0, method="L-BFGS-B", jac=True, bounds=list(zip(lo, hi)),
-                   options={"maxiter": 3, "ftol": 1e-12, "gtol": 1e-9})
+    res = minimize(
+        _rosen,
+        x0,
+        method="L-BFGS-B",
+        jac=True,
+        bounds=list(zip(lo, hi)),
+        options={"maxiter": 3, "ftol": 1e-12, "gtol": 1e-9},
+    )
     assert np.array_equal(x, res.x)
     assert rosen(x) > 1e-3  # stopped early, not at the optimum
 
@@ -81,17 +94,25 @@ def test_a_routine_with_another_signature_is_not_used(monkeypatch):
 
     monkeypatch.setattr(lbfgsb, "_lbfgsb", Other)
     monkeypatch.setattr(lbfgsb, "_direct", None)
-    x = lbfgsb.minimise(_rosen, np.array([0.2, 0.1]), np.full(2, -1.0), np.full(2, 0.8),
-                        ftol=1e-10, gtol=1e-6)
+    x = lbfgsb.minimise(
+        _rosen, np.array([0.2, 0.1]), np.full(2, -1.0), np.full(2, 0.8), ftol=1e-10, gtol=1e-6
+    )
     assert lbfgsb._direct is False
-    res = minimize(_rosen, np.array([0.2, 0.1]), method="L-BFGS-B", jac=True,
-                   bounds=[(-1.0, 0.8)] * 2, options={"ftol": 1e-10, "gtol": 1e-6})
+    res = minimize(
+        _rosen,
+        np.array([0.2, 0.1]),
+        method="L-BFGS-B",
+        jac=True,
+        bounds=[(-1.0, 0.8)] * 2,
+        options={"ftol": 1e-10, "gtol": 1e-6},
+    )
     assert np.array_equal(x, res.x)
 
 
 def test_the_bare_loop_is_used_with_this_scipy():
-    lbfgsb.minimise(_rosen, np.array([0.2, 0.1]), np.full(2, -1.0), np.full(2, 0.8),
-                    ftol=1e-10, gtol=1e-6)
+    lbfgsb.minimise(
+        _rosen, np.array([0.2, 0.1]), np.full(2, -1.0), np.full(2, 0.8), ftol=1e-10, gtol=1e-6
+    )
     assert lbfgsb._direct is True
 
 
@@ -113,7 +134,6 @@ def test_stop_ends_the_run_at_the_first_iterate_it_accepts(bare, monkeypatch):
     assert rosen(full) < 1e-8 and len(iterates) > 10
     # the first iterate below 1 (the start is at 15.3)
     target = next(x for x in iterates if rosen(x) < 1.0)
-    x = lbfgsb.minimise(_rosen, x0, lo, hi, ftol=1e-12, gtol=1e-9,
-                        stop=lambda x: rosen(x) < 1.0)
+    x = lbfgsb.minimise(_rosen, x0, lo, hi, ftol=1e-12, gtol=1e-9, stop=lambda x: rosen(x) < 1.0)
     assert np.array_equal(x, target)
     assert rosen(x) > 1e-3  # stopped early, not at the optimum

@@ -53,6 +53,7 @@ Z = 4.5  # standard errors allowed between a Monte Carlo mean and its expectatio
 
 # --------------------------------------------------------------------------- references
 
+
 def expected_on_branch(Q, t, a, b):
     """(E[N_ij | a, b] [k, k], E[T_i | a, b] [k]) by numerical integration (Minin & Suchard 2008)."""
     Q = np.asarray(Q, dtype=float)
@@ -66,11 +67,16 @@ def expected_on_branch(Q, t, a, b):
         return counts, dwell
     opts = dict(epsabs=1e-11, epsrel=1e-10, limit=200)
     for i in range(k):
-        dwell[i] = scipy.integrate.quad(lambda s: P(s)[a, i] * P(t - s)[i, b], 0, t, **opts)[0] / pab
+        dwell[i] = (
+            scipy.integrate.quad(lambda s: P(s)[a, i] * P(t - s)[i, b], 0, t, **opts)[0] / pab
+        )
         for j in range(k):
             if i != j and Q[i, j] > 0:
-                counts[i, j] = Q[i, j] * scipy.integrate.quad(
-                    lambda s: P(s)[a, i] * P(t - s)[j, b], 0, t, **opts)[0] / pab
+                counts[i, j] = (
+                    Q[i, j]
+                    * scipy.integrate.quad(lambda s: P(s)[a, i] * P(t - s)[j, b], 0, t, **opts)[0]
+                    / pab
+                )
     return counts, dwell
 
 
@@ -100,24 +106,33 @@ def assert_mc_mean(samples, expected, what):
     mean = samples.mean(axis=0)
     se = samples.std(axis=0, ddof=1) / np.sqrt(samples.shape[0])
     bad = np.abs(mean - expected) > Z * se + 1e-12
-    assert not bad.any(), (f"{what}: Monte Carlo mean\n{mean}\nexpected\n{expected}\n"
-                           f"standard error\n{se}")
+    assert not bad.any(), (
+        f"{what}: Monte Carlo mean\n{mean}\nexpected\n{expected}\nstandard error\n{se}"
+    )
 
 
 # --------------------------------------------------------------------------- parsimony reference
 
+
 def dendropy_fitch(newick, cells, states):
     """Fitch score with DendroPy's fitch_down_pass (bifurcating trees only)."""
     taxa = dendropy.TaxonNamespace()
-    tree = dendropy.Tree.get(data=newick, schema="newick", taxon_namespace=taxa,
-                             preserve_underscores=True, rooting="force-rooted")
+    tree = dendropy.Tree.get(
+        data=newick,
+        schema="newick",
+        taxon_namespace=taxa,
+        preserve_underscores=True,
+        rooting="force-rooted",
+    )
     sets = {}
     for taxon in taxa:
         cell = cells[taxon.label]
-        sets[taxon] = [set(range(len(states))) if cell == "?" else
-                       {states.index(s) for s in cell.split("|")}]
-    return fitch_down_pass(tree.postorder_node_iter(), taxon_state_sets_map=sets,
-                           state_sets_attr_name=None)
+        sets[taxon] = [
+            set(range(len(states))) if cell == "?" else {states.index(s) for s in cell.split("|")}
+        ]
+    return fitch_down_pass(
+        tree.postorder_node_iter(), taxon_state_sets_map=sets, state_sets_attr_name=None
+    )
 
 
 def test_fitch_score_matches_dendropy():
@@ -157,6 +172,7 @@ def test_fitch_score_hand_example():
 
 # --------------------------------------------------------------------------- every map is valid
 
+
 @pytest.mark.parametrize("seed", range(24))
 def test_maps_respect_data_rates_and_parsimony(seed):
     """Every map: tip states allowed by the data, no change along a zero-length branch,
@@ -168,11 +184,13 @@ def test_maps_respect_data_rates_and_parsimony(seed):
     partials = partials_from_cells(case["cells"], tree.tip_labels, states)
     root = ["uniform", "data_weighted", states[0]][seed % 3]
     try:
-        maps = stochastic_maps(tree, partials, Q, 300, np.random.default_rng(seed), root, tuple(states))
+        maps = stochastic_maps(
+            tree, partials, Q, 300, np.random.default_rng(seed), root, tuple(states)
+        )
     except ImpossibleData:
         pytest.skip("data impossible under this root treatment (checked in test_impossible_data)")
     ns = maps.node_states
-    assert (partials[np.arange(tree.n_tips)[None, :], ns[:, :tree.n_tips]] > 0).all()
+    assert (partials[np.arange(tree.n_tips)[None, :], ns[:, : tree.n_tips]] > 0).all()
     zero = np.flatnonzero((tree.length == 0) & (tree.parent >= 0))
     assert (ns[:, zero] == ns[:, tree.parent[zero]]).all()
     forbidden = (Q == 0) & ~np.eye(len(states), dtype=bool)
@@ -272,26 +290,31 @@ def test_whole_tree_expectation(seed, root):
                 c, d = expected_on_branch(Q, tree.length[v], a, b)
                 exp_counts += J[v, a, b] * c
                 exp_dwell += J[v, a, b] * d
-    maps = stochastic_maps(tree, partials, Q, 20000, np.random.default_rng(seed), root, tuple(states))
+    maps = stochastic_maps(
+        tree, partials, Q, 20000, np.random.default_rng(seed), root, tuple(states)
+    )
     assert_mc_mean(maps.counts.reshape(len(maps.counts), -1), exp_counts.ravel(), "counts")
     assert_mc_mean(maps.dwell, exp_dwell, "dwell")
     # the sampled node states follow the joint posterior too
     for v in range(tree.n_tips, tree.n_nodes):
         marg = J[tree.children_of(v)[0]].sum(axis=1)
-        onehot = (maps.node_states[:, v][:, None] == np.arange(k)[None, :])
+        onehot = maps.node_states[:, v][:, None] == np.arange(k)[None, :]
         assert_mc_mean(onehot, marg, f"node {v} state")
 
 
 # --------------------------------------------------------------------------- mixtures, seeds, size
+
 
 def test_mixture_draws_models_by_weight():
     """Each map's model is drawn with probability weight / sum (Akaike-weight mixture);
     a model of weight 0 is never used; the fraction is within 4.5 binomial standard errors."""
     tree = parse_newick("((a:0.3,b:0.2):0.4,(c:0.5,d:0.1):0.2);")
     partials = np.array([[1, 0], [0, 1], [1, 1], [1, 0.0]])
-    fits = [(q_from_rates(np.ones((2, 2))), "uniform", 0.75),
-            (q_from_rates([[0, 2.0], [0.5, 0]]), "data_weighted", 0.25),
-            (q_from_rates([[0, 9.0], [9.0, 0]]), "uniform", 0.0)]
+    fits = [
+        (q_from_rates(np.ones((2, 2))), "uniform", 0.75),
+        (q_from_rates([[0, 2.0], [0.5, 0]]), "data_weighted", 0.25),
+        (q_from_rates([[0, 9.0], [9.0, 0]]), "uniform", 0.0),
+    ]
     maps = mixed_stochastic_maps(tree, partials, fits, 4000, np.random.default_rng(1))
     assert maps.n_maps == 4000
     assert not (maps.model == 2).any()

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from catalogue_inputs import TAXA, posterior_nexus, quote, rename, unresolved_sample
+from catalogue_inputs import TAXA, posterior_nexus, unresolved_sample
 from conftest import random_newick, yule_newick
 
 from mkforest.data import newick
@@ -30,7 +30,7 @@ def assert_same_trees(fast: list, slow: list) -> None:
         for key in ("parent", "child_ptr", "children", "length"):
             x, y = getattr(a, key), getattr(b, key)
             assert x.dtype == y.dtype and x.shape == y.shape, key
-            assert x.tobytes() == y.tobytes(), (key, x, y)       # bit for bit
+            assert x.tobytes() == y.tobytes(), (key, x, y)  # bit for bit
 
 
 def handled(path) -> bool:
@@ -78,6 +78,7 @@ def write(tmp_path, name, text):
 
 # --------------------------------------------------------------------------- shapes users bring
 
+
 def test_demo_files(tmp_path):
     """The demo's NEXUS files (TRANSLATE by numbers, [&R], fixed and general number formats)
     and its true tree in Newick."""
@@ -108,16 +109,19 @@ def test_zero_length_and_very_short_branches(tmp_path):
 @pytest.mark.parametrize("seed", range(12))
 def test_random_trees_with_polytomies_and_zero_lengths(tmp_path, seed):
     rng = np.random.default_rng(seed)
-    texts = [random_newick(rng, int(rng.integers(2, 40)), p_polytomy=0.4, p_zero=0.2)
-             for _ in range(8)]
+    texts = [
+        random_newick(rng, int(rng.integers(2, 40)), p_polytomy=0.4, p_zero=0.2) for _ in range(8)
+    ]
     check_file(write(tmp_path, "random.nwk", "\n".join(texts) + "\n"))
 
 
 @pytest.mark.parametrize("seed", range(4))
 def test_yule_trees(tmp_path, seed):
     rng = np.random.default_rng(100 + seed)
-    texts = [yule_newick(rng, int(rng.integers(2, 300)), height=float(rng.uniform(0.01, 50)))
-             for _ in range(10)]
+    texts = [
+        yule_newick(rng, int(rng.integers(2, 300)), height=float(rng.uniform(0.01, 50)))
+        for _ in range(10)
+    ]
     trees = check_file(write(tmp_path, "yule.nwk", "\n".join(texts)))
     assert all(t.n_tips >= 2 for t in trees)
 
@@ -152,18 +156,24 @@ def test_nexus_variants(tmp_path):
     """Keywords in any case, TRANSLATE by names, no TAXA block, a TAXA block without
     TRANSLATE, a data block skipped (braces in it), ENDBLOCK, a file cut after its last tree
     (a sampler still running), comments between the tree's name and '='."""
-    by_names = ("#nexus\n[a comment]\nbegin trees;\n translate\n  a 'Vexa minor',\n  b Olm_tarsi,"
-                "\n  c 'Quill''s pod';\n tree one [&W 1] = [&R] ((a:1,b:1):1,c:2);\n"
-                " Tree two = [&U][&lnP=-3] ((c:1,b:1):1,a:2);\nend;\n")
+    by_names = (
+        "#nexus\n[a comment]\nbegin trees;\n translate\n  a 'Vexa minor',\n  b Olm_tarsi,"
+        "\n  c 'Quill''s pod';\n tree one [&W 1] = [&R] ((a:1,b:1):1,c:2);\n"
+        " Tree two = [&U][&lnP=-3] ((c:1,b:1):1,a:2);\nend;\n"
+    )
     check_file(write(tmp_path, "names.nex", by_names))
-    taxa = ("#NEXUS\nBEGIN TAXA;\n DIMENSIONS NTAX=3;\n TAXLABELS x1 'y 2' z_3;\nEND;\n"
-            "BEGIN CHARACTERS;\n DIMENSIONS NCHAR=2;\n FORMAT SYMBOLS=\"01\";\n MATRIX\n"
-            "  x1 0{01}\n  'y 2' 1?\n  z_3 10\n ;\nEND;\n"
-            "BEGIN TREES;\n TREE t1 = ((x1:1,'y 2':1):1,z_3:2);\nENDBLOCK;\n"
-            "begin assumptions; options deftype=unord; end;\n")
+    taxa = (
+        "#NEXUS\nBEGIN TAXA;\n DIMENSIONS NTAX=3;\n TAXLABELS x1 'y 2' z_3;\nEND;\n"
+        'BEGIN CHARACTERS;\n DIMENSIONS NCHAR=2;\n FORMAT SYMBOLS="01";\n MATRIX\n'
+        "  x1 0{01}\n  'y 2' 1?\n  z_3 10\n ;\nEND;\n"
+        "BEGIN TREES;\n TREE t1 = ((x1:1,'y 2':1):1,z_3:2);\nENDBLOCK;\n"
+        "begin assumptions; options deftype=unord; end;\n"
+    )
     check_file(write(tmp_path, "taxa.nex", taxa))
-    cut = ("#NEXUS\nBEGIN TREES;\n TRANSLATE 1 p, 2 q, 3 r;\n"
-           " TREE s0 = [&R] ((1:1,2:1):1,3:2);\n TREE s1 = [&R] ((1:1,3:1):1,2:2);\n")
+    cut = (
+        "#NEXUS\nBEGIN TREES;\n TRANSLATE 1 p, 2 q, 3 r;\n"
+        " TREE s0 = [&R] ((1:1,2:1):1,3:2);\n TREE s1 = [&R] ((1:1,3:1):1,2:2);\n"
+    )
     assert len(check_file(write(tmp_path, "cut.nex", cut))) == 2
 
 
@@ -172,10 +182,14 @@ def test_files_read_a_few_lines_at_a_time_give_the_same_trees(tmp_path, monkeypa
     """The reader tokenizes a chunk of lines at a time (memory): trees, quoted labels and
     comments running over a cut give what the whole file gives."""
     texts = {
-        "over_lines.nwk": ("[&R] (('Vexa\nminor':1,\n(b:1,\nc:2)\n:1)[a comment\nover lines]:0.5,\n"
-                           "'it''s\n''':3);\n[&R]\n((a:1,b:1):1,'c d':2);\n"),
-        "over_lines.nex": ("#NEXUS\n[a comment\nover lines]\nBEGIN TREES;\n TRANSLATE\n 1 'a\nb',\n"
-                           " 2 c, 3 d;\n TREE\n s1 =\n [&R]\n ((1:1,\n 2:1):1,\n 3:2);\nEND;\n"),
+        "over_lines.nwk": (
+            "[&R] (('Vexa\nminor':1,\n(b:1,\nc:2)\n:1)[a comment\nover lines]:0.5,\n"
+            "'it''s\n''':3);\n[&R]\n((a:1,b:1):1,'c d':2);\n"
+        ),
+        "over_lines.nex": (
+            "#NEXUS\n[a comment\nover lines]\nBEGIN TREES;\n TRANSLATE\n 1 'a\nb',\n"
+            " 2 c, 3 d;\n TREE\n s1 =\n [&R]\n ((1:1,\n 2:1):1,\n 3:2);\nEND;\n"
+        ),
     }
     paths = make_demo(tmp_path / "demo", n_tips=12, n_trees=4, seed=5)
     texts["demo.nex"] = paths["trees"].read_text()
@@ -197,11 +211,15 @@ def test_files_read_a_few_lines_at_a_time_give_the_same_trees(tmp_path, monkeypa
 
 BAD = {
     # name: (tree file text, words the message must hold)
-    "unrooted": ("(a:0.3,b:0.2,((c:0.1,d:0.4):0.2,(e:0.3,f:0.1):0.1):0.3);\n",
-                 ["tree 0", "unrooted", "trees.root"]),
+    "unrooted": (
+        "(a:0.3,b:0.2,((c:0.1,d:0.4):0.2,(e:0.3,f:0.1):0.1):0.3);\n",
+        ["tree 0", "unrooted", "trees.root"],
+    ),
     "unrooted_marked": ("[&R] ((a:1,b:1):1,c:1);\n[&U] (a:1,b:1,c:1);\n", ["tree 1", "unrooted"]),
-    "branch_without_length": ("[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f);\n",
-                              ["tree 0", "tip 'f'", "no length"]),
+    "branch_without_length": (
+        "[&R] ((a:1,b:1):1,(c:1,(d:1,e:1):1):1,f);\n",
+        ["tree 0", "tip 'f'", "no length"],
+    ),
     "internal_without_length": ("((a:1,b:1),c:1);\n", ["the ancestor of 'a' and 'b'", "no length"]),
     "negative_branch": ("[&R] ((a:1,b:-0.5):1,(c:1,(d:1,e:1):1):1,f:1);\n", ["tip 'b'", "-0.5"]),
     "infinite_branch": ("((a:inf,b:1):1,c:1);\n", ["tip 'a'", "inf"]),
@@ -213,10 +231,14 @@ BAD = {
     "length_not_a_number": ("((a:1,b:x1):1,c:1);\n", ["cannot be read"]),
     "root_length_not_a_number": ("((a:1,b:1):1,c:1):x;\n", ["cannot be read"]),
     "second_tree_bad": ("((a:1,b:1):1,c:1);\n((a:1,b:1):1,c:-1);\n", ["tree 1", "tip 'c'"]),
-    "nexus_duplicate_via_translate": ("#NEXUS\nBEGIN TREES;\nTRANSLATE 1 a, 2 b, 3 c;\n"
-                                      "TREE t = ((1:1,1:1):1,3:1);\nEND;\n", ["more than once"]),
-    "nexus_no_trees": ("#NEXUS\nBEGIN TAXA;\nDIMENSIONS NTAX=2;\nTAXLABELS a b;\nEND;\n",
-                       ["holds no trees"]),
+    "nexus_duplicate_via_translate": (
+        "#NEXUS\nBEGIN TREES;\nTRANSLATE 1 a, 2 b, 3 c;\nTREE t = ((1:1,1:1):1,3:1);\nEND;\n",
+        ["more than once"],
+    ),
+    "nexus_no_trees": (
+        "#NEXUS\nBEGIN TAXA;\nDIMENSIONS NTAX=2;\nTAXLABELS a b;\nEND;\n",
+        ["holds no trees"],
+    ),
     "comments_only": ("[nothing here]\n", ["cannot be read"]),
 }
 
@@ -232,8 +254,11 @@ UNCLOSED = {
     # DendroPy 5.1 silently drops the second tree (the comment runs to the end of the file)
     "trees.nwk": ("[&R] ((a:1,b:1):1,c:1);\n[sample 2\n[&R] ((a:1,c:1):1,b:1);\n", 2),
     # DendroPy 5.1 loops forever in the TAXA block (found by the mutation test below)
-    "trees.nex": ("#NEXUS\nBEGIN TAXA;\n DIMENSIONS NTAX=3;\n TAXLABE[S a b c;\nEND;\n"
-                  "BEGIN TREES;\n TREE t = [&R] ((a:1,b:1):1,c:1);\nEND;\n", 4),
+    "trees.nex": (
+        "#NEXUS\nBEGIN TAXA;\n DIMENSIONS NTAX=3;\n TAXLABE[S a b c;\nEND;\n"
+        "BEGIN TREES;\n TREE t = [&R] ((a:1,b:1):1,c:1);\nEND;\n",
+        4,
+    ),
 }
 
 
@@ -254,13 +279,16 @@ def test_a_comment_never_closed_stops_with_the_file_and_line(tmp_path, name):
         for read in (read_trees, lambda p: read_trees(p, root="midpoint"), parse_tree_file):
             with pytest.raises(InputError) as info:
                 read(path)
-            assert f"'{path}', line {line}: a comment opened with '[' is never closed" \
-                in str(info.value)
+            assert f"'{path}', line {line}: a comment opened with '[' is never closed" in str(
+                info.value
+            )
     finally:
         signal.alarm(0)
         signal.signal(signal.SIGALRM, previous)
-    for text in ("[&R] ((a:1,b:1):1,c:1); [closed [nested] comment]\n",
-                 "[&R] ((a:1,'[b':1):1,c:1);\n"):
+    for text in (
+        "[&R] ((a:1,b:1):1,c:1); [closed [nested] comment]\n",
+        "[&R] ((a:1,'[b':1):1,c:1);\n",
+    ):
         check_file(write(tmp_path, "fine.nwk", text), must_handle=False)
 
 
@@ -286,20 +314,20 @@ NOT_HANDLED = {
     "brace": "((a:1,b:1){1}:1,c:1);",
     "nexus_number_without_translate": "#NEXUS\nBEGIN TREES;\nTREE t = ((1:1,2:1):1,3:1);\nEND;",
     "nexus_tip_not_in_translate": "#NEXUS\nBEGIN TREES;\nTRANSLATE 1 a, 2 b;\n"
-                                  "TREE t = ((1:1,2:1):1,c:1);\nEND;",
+    "TREE t = ((1:1,2:1):1,c:1);\nEND;",
     "nexus_translate_keys_differ_in_case": "#NEXUS\nBEGIN TREES;\nTRANSLATE a x, A y, b z;\n"
-                                           "TREE t = ((a:1,A:1):1,b:1);\nEND;",
+    "TREE t = ((a:1,A:1):1,b:1);\nEND;",
     "nexus_translate_names_differ_in_case": "#NEXUS\nBEGIN TREES;\nTRANSLATE 1 a, 2 A, 3 b, 4 c;\n"
-                                            "TREE t = ((2:1,3:1):1,4:1);\nEND;",
+    "TREE t = ((2:1,3:1):1,4:1);\nEND;",
     "nexus_title": "#NEXUS\nBEGIN TREES;\nTITLE sample;\nTREE t = ((a:1,b:1):1,c:1);\nEND;",
     "nexus_star_tree": "#NEXUS\nBEGIN TREES;\nTREE * t = ((a:1,b:1):1,c:1);\nEND;",
     "nexus_tip_not_in_taxa": "#NEXUS\nBEGIN TAXA;\nDIMENSIONS NTAX=3;\nTAXLABELS a b c;\nEND;\n"
-                             "BEGIN TREES;\nTREE t = ((a:1,b:1):1,d:1);\nEND;",
+    "BEGIN TREES;\nTREE t = ((a:1,b:1):1,d:1);\nEND;",
     "nexus_two_tree_blocks": "#NEXUS\nBEGIN TREES;\nTREE t = ((a:1,b:1):1,c:1);\nEND;\n"
-                             "BEGIN TREES;\nTREE u = ((a:1,c:1):1,b:1);\nEND;",
+    "BEGIN TREES;\nTREE u = ((a:1,c:1):1,b:1);\nEND;",
     "nexus_junk_between_blocks": "#NEXUS\nhello\nBEGIN TREES;\nTREE t = ((a:1,b:1):1,c:1);\nEND;",
     "nexus_quoted_end_in_skipped_block": "#NEXUS\nBEGIN NOTES;\nTEXT 'x';\n'END';\nEND;\n"
-                                         "BEGIN TREES;\nTREE t = ((a:1,b:1):1,c:1);\nEND;",
+    "BEGIN TREES;\nTREE t = ((a:1,b:1):1,c:1);\nEND;",
 }
 
 
@@ -320,6 +348,7 @@ def test_what_the_fast_reader_does_not_handle_goes_to_dendropy(tmp_path, case):
 
 # --------------------------------------------------------------------------- never guesses
 
+
 def _mutations(rng, text, n):
     """Texts with one character deleted, doubled or replaced by a character that matters."""
     alphabet = list("(),;:[]' _&R=\n1e-.") + ["''", "[&R]", "[x]"]
@@ -327,27 +356,32 @@ def _mutations(rng, text, n):
         i = int(rng.integers(len(text)))
         what = int(rng.integers(3))
         if what == 0:
-            yield text[:i] + text[i + 1:]
+            yield text[:i] + text[i + 1 :]
         elif what == 1:
             yield text[:i] + text[i] + text[i:]
         else:
-            yield text[:i] + alphabet[int(rng.integers(len(alphabet)))] + text[i + 1:]
+            yield text[:i] + alphabet[int(rng.integers(len(alphabet)))] + text[i + 1 :]
 
 
 BASES = {
-    "trees.nwk": ("[&R] ('Vexa minor':0.5,(Quill_pod:1e-1,'it''s':2)0.9:0.25)[&x=1]:0;\n"
-                  "[&R] ((b:1,c:1):1,(d:1,e:1,f:1):1);\n"),
-    "trees.nex": ("#NEXUS\nBEGIN TAXA;\n DIMENSIONS NTAX=4;\n TAXLABELS a 'b c' d e;\nEND;\n"
-                  "BEGIN TREES;\n TRANSLATE 1 a, 2 'b c', 3 d, 4 e;\n"
-                  " TREE s1 = [&R] ((1:0.5,2:0.5):0.5,(3:1,4:1):0);\n"
-                  " TREE s2 [&lnP=-3] = [&R] ((1:1,3:1):1,2:2,4:2);\nEND;\n"),
+    "trees.nwk": (
+        "[&R] ('Vexa minor':0.5,(Quill_pod:1e-1,'it''s':2)0.9:0.25)[&x=1]:0;\n"
+        "[&R] ((b:1,c:1):1,(d:1,e:1,f:1):1);\n"
+    ),
+    "trees.nex": (
+        "#NEXUS\nBEGIN TAXA;\n DIMENSIONS NTAX=4;\n TAXLABELS a 'b c' d e;\nEND;\n"
+        "BEGIN TREES;\n TRANSLATE 1 a, 2 'b c', 3 d, 4 e;\n"
+        " TREE s1 = [&R] ((1:0.5,2:0.5):0.5,(3:1,4:1):0);\n"
+        " TREE s2 [&lnP=-3] = [&R] ((1:1,3:1):1,2:2,4:2);\nEND;\n"
+    ),
 }
 
 
 @pytest.mark.parametrize("chunk", [newick.CHUNK, 16])
 @pytest.mark.parametrize("name", list(BASES))
-def test_every_small_mutation_is_read_as_dendropy_reads_it_or_left_to_it(tmp_path, monkeypatch,
-                                                                          name, chunk):
+def test_every_small_mutation_is_read_as_dendropy_reads_it_or_left_to_it(
+    tmp_path, monkeypatch, name, chunk
+):
     """Random one-character edits of a small file: where DendroPy's path stops with a message
     the fast reader must not handle the file; where it reads it, the fast reader either leaves
     it to DendroPy or gives the same arrays."""
@@ -362,4 +396,4 @@ def test_every_small_mutation_is_read_as_dendropy_reads_it_or_left_to_it(tmp_pat
         if fast:
             assert_same_trees(read_trees(path), read_trees(path, fast=False))
         counts["same" if fast else "left"] += 1
-    assert counts["same"] >= 50 and counts["left"] >= 50, counts    # both paths exercised
+    assert counts["same"] >= 50 and counts["left"] >= 50, counts  # both paths exercised

@@ -52,6 +52,7 @@ COLOUR = ("white", "pink", "violet")
 
 # --------------------------------------------------------------------------- helpers
 
+
 def random_cells(rng, taxa, states, p_missing=0.15, p_ambiguous=0.15):
     """Text cells: a state, '?' or an ambiguous 'a|b' (ambiguity only with 3+ states)."""
     cells = {}
@@ -60,8 +61,7 @@ def random_cells(rng, taxa, states, p_missing=0.15, p_ambiguous=0.15):
         if u < p_missing:
             cells[t] = "?"
         elif u < p_missing + p_ambiguous and len(states) > 2:
-            cells[t] = "|".join(sorted(rng.choice(states, size=2, replace=False),
-                                       key=states.index))
+            cells[t] = "|".join(sorted(rng.choice(states, size=2, replace=False), key=states.index))
         else:
             cells[t] = states[int(rng.integers(len(states)))]
     return cells
@@ -73,8 +73,10 @@ def simulated_cells(rng, tree, states, rate=0.8, p_missing=0.1):
     k = len(states)
     q = q_from_rates(np.full((k, k), rate))
     nodes = simulate_states(tree, q, rng)
-    return {t: "?" if rng.random() < p_missing else states[nodes[v]]
-            for v, t in enumerate(tree.tip_labels)}
+    return {
+        t: "?" if rng.random() < p_missing else states[nodes[v]]
+        for v, t in enumerate(tree.tip_labels)
+    }
 
 
 def make_pair(rng, taxa, states1=LIMB, states2=VISITOR, name="limb_visitor"):
@@ -153,9 +155,11 @@ def partials_for(trait, tip_labels):
 def random_rate_function(rng, hypothesis, states1=LIMB, states2=VISITOR):
     table = {}
     for trait, own, other in (("limb", states1, states2), ("visitor", states2, states1)):
-        varies = (hypothesis == "dependent"
-                  or (hypothesis == "first_depends_on_second" and trait == "limb")
-                  or (hypothesis == "second_depends_on_first" and trait == "visitor"))
+        varies = (
+            hypothesis == "dependent"
+            or (hypothesis == "first_depends_on_second" and trait == "limb")
+            or (hypothesis == "second_depends_on_first" and trait == "visitor")
+        )
         for a, b in itertools.permutations(own, 2):
             common = float(rng.uniform(0.1, 2.5))
             for c in other:
@@ -165,9 +169,16 @@ def random_rate_function(rng, hypothesis, states1=LIMB, states2=VISITOR):
 
 # --------------------------------------------------------------------------- structure
 
-@pytest.mark.parametrize("hypothesis, expected", [
-    ("independent", 4), ("dependent", 8),
-    ("first_depends_on_second", 6), ("second_depends_on_first", 6)])
+
+@pytest.mark.parametrize(
+    "hypothesis, expected",
+    [
+        ("independent", 4),
+        ("dependent", 8),
+        ("first_depends_on_second", 6),
+        ("second_depends_on_first", 6),
+    ],
+)
 def test_binary_parameter_counts(hypothesis, expected):
     """4 / 8 / 6 / 6 free rates for two binary traits (Pagel 1994, published source)."""
     pair = make_pair(np.random.default_rng(1), ["a", "b", "c"])
@@ -176,11 +187,17 @@ def test_binary_parameter_counts(hypothesis, expected):
     assert model.states == ("absent+bee", "absent+moth", "present+bee", "present+moth")
 
 
-@pytest.mark.parametrize("hypothesis, expected", [
-    # 3-state limb colour x 2-state visitor: each trait unconstrained within a background
-    # (k1(k1-1) = 6 and k2(k2-1) = 2 rates), times the number of backgrounds where they vary
-    ("independent", 6 + 2), ("dependent", 6 * 2 + 2 * 3),
-    ("first_depends_on_second", 6 * 2 + 2), ("second_depends_on_first", 6 + 2 * 3)])
+@pytest.mark.parametrize(
+    "hypothesis, expected",
+    [
+        # 3-state limb colour x 2-state visitor: each trait unconstrained within a background
+        # (k1(k1-1) = 6 and k2(k2-1) = 2 rates), times the number of backgrounds where they vary
+        ("independent", 6 + 2),
+        ("dependent", 6 * 2 + 2 * 3),
+        ("first_depends_on_second", 6 * 2 + 2),
+        ("second_depends_on_first", 6 + 2 * 3),
+    ],
+)
 def test_multistate_parameter_counts(hypothesis, expected):
     """Counting from the definitions (fact of the trade: unconstrained on k states has k(k-1) rates)."""
     pair = make_pair(np.random.default_rng(2), ["a", "b", "c"], COLOUR, VISITOR)
@@ -207,19 +224,23 @@ def test_joint_q_matches_definition_and_forbids_double_changes(hypothesis, state
 def test_joint_tip_data_is_outer_product_of_possible_sets():
     """A taxon may be in (a, b) exactly when it may be in a and in b: missing or ambiguous
     values in either trait open every matching joint state (fact of the trade)."""
-    first = trait_from_mapping("colour", {"x": "pink", "y": "?", "z": "white|violet", "w": "pink"},
-                               states=list(COLOUR))
-    second = trait_from_mapping("visitor", {"x": "bee", "y": "moth", "z": "?", "v": "bee"},
-                                states=list(VISITOR))
+    first = trait_from_mapping(
+        "colour", {"x": "pink", "y": "?", "z": "white|violet", "w": "pink"}, states=list(COLOUR)
+    )
+    second = trait_from_mapping(
+        "visitor", {"x": "bee", "y": "moth", "z": "?", "v": "bee"}, states=list(VISITOR)
+    )
     pair = pairs.make_pair("colour_visitor", first, second)
     joint = pair.joint_trait()
     assert joint.taxa == ("x", "y", "z", "w", "v")
-    possible = {t: {s for s, ok in zip(joint.states, row) if ok}
-                for t, row in zip(joint.taxa, joint.possible)}
+    possible = {
+        t: {s for s, ok in zip(joint.states, row) if ok}
+        for t, row in zip(joint.taxa, joint.possible)
+    }
     assert possible["x"] == {"pink+bee"}
     assert possible["y"] == {"white+moth", "pink+moth", "violet+moth"}
     assert possible["z"] == {"white+bee", "white+moth", "violet+bee", "violet+moth"}
-    assert possible["w"] == {"pink+bee", "pink+moth"}        # not in the second table: missing
+    assert possible["w"] == {"pink+bee", "pink+moth"}  # not in the second table: missing
     assert possible["v"] == {"white+bee", "pink+bee", "violet+bee"}
 
 
@@ -286,8 +307,11 @@ def test_custom_contingent_hypothesis_structure():
 
 def test_custom_double_change_refused_with_a_clear_message():
     pair = make_pair(np.random.default_rng(4), ["a", "b"])
-    with pytest.raises(InputError, match=r"hypothesis 'jump'.*'absent\+bee -> present\+moth' "
-                                         r"changes both traits at once.*two steps"):
+    with pytest.raises(
+        InputError,
+        match=r"hypothesis 'jump'.*'absent\+bee -> present\+moth' "
+        r"changes both traits at once.*two steps",
+    ):
         pairs.custom_hypothesis(pair, "jump", {"absent+bee -> present+moth": "jump"})
     with pytest.raises(InputError, match=r"names state 'absent\+wasp'"):
         pairs.custom_hypothesis(pair, "bad", {"absent+bee -> absent+wasp": "x"})
@@ -296,6 +320,7 @@ def test_custom_double_change_refused_with_a_clear_message():
 
 
 # --------------------------------------------------------------------------- nesting
+
 
 def test_builtin_nesting_and_degrees_of_freedom():
     """independent in each one-way dependence in dependent, df from the parameter counts
@@ -328,6 +353,7 @@ def test_embedded_rates_reproduce_the_null_q():
 
 
 # --------------------------------------------------------------------------- likelihood
+
 
 @pytest.mark.parametrize("seed", range(8))
 def test_joint_likelihood_equals_brute_force(seed):
@@ -364,9 +390,11 @@ def test_kronecker_sum_exponential():
     q2 = build_model("unconstrained", VISITOR).q_matrix(rates[6:])
     np.testing.assert_allclose(q, np.kron(q1, np.eye(2)) + np.kron(np.eye(3), q2), atol=1e-15)
     for t in (0.1, 0.7, 3.0):
-        np.testing.assert_allclose(scipy.linalg.expm(q * t),
-                                   np.kron(scipy.linalg.expm(q1 * t), scipy.linalg.expm(q2 * t)),
-                                   atol=1e-12)
+        np.testing.assert_allclose(
+            scipy.linalg.expm(q * t),
+            np.kron(scipy.linalg.expm(q1 * t), scipy.linalg.expm(q2 * t)),
+            atol=1e-12,
+        )
 
 
 @pytest.mark.parametrize("root", ROOTS)
@@ -382,20 +410,26 @@ def test_independent_is_sum_of_separate_fits(root, states1):
     rng = np.random.default_rng(len(states1) * 10 + ROOTS.index(root))
     tree = parse_newick(yule_newick(rng, 60, height=1.0))
     first = trait_from_mapping("limb", simulated_cells(rng, tree, states1), states=list(states1))
-    second = trait_from_mapping("visitor", simulated_cells(rng, tree, VISITOR), states=list(VISITOR))
+    second = trait_from_mapping(
+        "visitor", simulated_cells(rng, tree, VISITOR), states=list(VISITOR)
+    )
     pair = pairs.make_pair("limb_visitor", first, second)
     joint = pair.joint_trait()
     ind = pairs.hypothesis_model(pair, "independent")
     m1 = build_model("unconstrained", states1)
     m2 = build_model("unconstrained", VISITOR)
     n1 = m1.n_params
-    X, X1, X2 = (joint.tip_partials(tree), pair.first.tip_partials(tree),
-                 pair.second.tip_partials(tree))
+    X, X1, X2 = (
+        joint.tip_partials(tree),
+        pair.first.tip_partials(tree),
+        pair.second.tip_partials(tree),
+    )
     for _ in range(5):
         r = rng.uniform(0.05, 4.0, ind.n_params)
         lhs = log_likelihood(tree, X, ind.q_matrix(r), root=root)
-        rhs = (log_likelihood(tree, X1, m1.q_matrix(r[:n1]), root=root)
-               + log_likelihood(tree, X2, m2.q_matrix(r[n1:]), root=root))
+        rhs = log_likelihood(tree, X1, m1.q_matrix(r[:n1]), root=root) + log_likelihood(
+            tree, X2, m2.q_matrix(r[n1:]), root=root
+        )
         assert abs(lhs - rhs) < 1e-9
     fj = fit_model(tree, X, ind, root=root, n_starts=5, seed=1)
     f1 = fit_model(tree, X1, m1, root=root, n_starts=5, seed=2)
@@ -408,10 +442,16 @@ def test_independent_is_sum_of_separate_fits(root, states1):
 
 # Correlated evolution: 'absent+bee' and 'present+moth' are stable, a mismatched state is
 # left quickly by either trait changing back into a matched one.
-CORRELATED = {("limb", "absent", "present", "bee"): 1.0, ("limb", "absent", "present", "moth"): 6.0,
-              ("limb", "present", "absent", "bee"): 6.0, ("limb", "present", "absent", "moth"): 1.0,
-              ("visitor", "bee", "moth", "absent"): 1.0, ("visitor", "bee", "moth", "present"): 6.0,
-              ("visitor", "moth", "bee", "absent"): 6.0, ("visitor", "moth", "bee", "present"): 1.0}
+CORRELATED = {
+    ("limb", "absent", "present", "bee"): 1.0,
+    ("limb", "absent", "present", "moth"): 6.0,
+    ("limb", "present", "absent", "bee"): 6.0,
+    ("limb", "present", "absent", "moth"): 1.0,
+    ("visitor", "bee", "moth", "absent"): 1.0,
+    ("visitor", "bee", "moth", "present"): 6.0,
+    ("visitor", "moth", "bee", "absent"): 6.0,
+    ("visitor", "moth", "bee", "present"): 1.0,
+}
 
 
 def test_lrt_on_dependent_data():
@@ -434,6 +474,7 @@ def test_lrt_on_dependent_data():
 
 # --------------------------------------------------------------------------- bootstrap
 
+
 def test_bootstrap_p_value_formula():
     """(1 + #{T* >= T}) / (N + 1) (common practice; Davison & Hinkley 1997, from memory)."""
     assert pairs.bootstrap_p_value(3.0, [1.0, 3.0, 5.0, 0.5]) == pytest.approx(3 / 5)
@@ -446,20 +487,23 @@ def test_simulated_data_keep_the_missing_pattern():
     cells1 = random_cells(rng, tree.tip_labels, LIMB, p_missing=0.3)
     cells2 = random_cells(rng, tree.tip_labels, VISITOR, p_missing=0.3)
     cells1[tree.tip_labels[0]] = cells2[tree.tip_labels[1]] = "?"
-    pair = pairs.make_pair("limb_visitor", trait_from_mapping("limb", cells1, list(LIMB)),
-                           trait_from_mapping("visitor", cells2, list(VISITOR)))
+    pair = pairs.make_pair(
+        "limb_visitor",
+        trait_from_mapping("limb", cells1, list(LIMB)),
+        trait_from_mapping("visitor", cells2, list(VISITOR)),
+    )
     m1, m2 = pair.missing_masks(tree)
     np.testing.assert_array_equal(m1, [cells1[t] == "?" for t in tree.tip_labels])
     np.testing.assert_array_equal(m2, [cells2[t] == "?" for t in tree.tip_labels])
     model = pairs.hypothesis_model(pair, "dependent")
     states = simulate_states(tree, model.q_matrix(np.ones(8)), rng)
     X = pairs.simulate_pair_partials(pair, tree, states, (m1, m2)).reshape(tree.n_tips, 2, 2)
-    first_open = X.any(axis=2).sum(axis=1)     # how many limb states each tip allows
+    first_open = X.any(axis=2).sum(axis=1)  # how many limb states each tip allows
     second_open = X.any(axis=1).sum(axis=1)
     np.testing.assert_array_equal(first_open, np.where(m1, 2, 1))
     np.testing.assert_array_equal(second_open, np.where(m2, 2, 1))
     observed = ~m1 & ~m2
-    i, j = np.divmod(states[:tree.n_tips], 2)
+    i, j = np.divmod(states[: tree.n_tips], 2)
     assert (X[observed, i[observed], j[observed]] == 1).all()
 
 
@@ -479,9 +523,19 @@ def test_bootstrap_is_deterministic_whatever_the_order():
     np.testing.assert_array_equal(whole, np.concatenate([early, later[::-1]]))
     assert (whole >= 0).all() and len(set(whole.round(8))) > 1
     assert pairs.bootstrap_p_value(1.0, whole) == pairs.bootstrap_p_value(
-        1.0, np.concatenate([later, early]))
-    other = pairs.bootstrap_statistics(pair, tree, ind, dep, null_rates, replicates=range(6),
-                                       root="data_weighted", seed=43, n_starts=2)
+        1.0, np.concatenate([later, early])
+    )
+    other = pairs.bootstrap_statistics(
+        pair,
+        tree,
+        ind,
+        dep,
+        null_rates,
+        replicates=range(6),
+        root="data_weighted",
+        seed=43,
+        n_starts=2,
+    )
     assert not np.array_equal(other, whole)
 
 
@@ -492,10 +546,12 @@ def test_bootstrap_simulates_boundary_rates_from_their_interval_edge():
     rng = np.random.default_rng(5)
     tree = parse_newick(yule_newick(rng, 40, height=1.0))
     # the first trait never changes back to 'absent' in these data: a clade of 'present'
-    limb = trait_from_mapping("limb", {t: ("absent", "present")[i >= 30]
-                                       for i, t in enumerate(tree.tip_labels)})
-    visitor = trait_from_mapping("visitor", {t: ("bee", "moth")[int(rng.integers(2))]
-                                             for t in tree.tip_labels})
+    limb = trait_from_mapping(
+        "limb", {t: ("absent", "present")[i >= 30] for i, t in enumerate(tree.tip_labels)}
+    )
+    visitor = trait_from_mapping(
+        "visitor", {t: ("bee", "moth")[int(rng.integers(2))] for t in tree.tip_labels}
+    )
     pair = pairs.make_pair("lv", limb, visitor)
     ind = pairs.hypothesis_model(pair, "independent")
     X = pair.joint_trait().tip_partials(tree)
@@ -513,19 +569,24 @@ def test_bootstrap_simulates_boundary_rates_from_their_interval_edge():
         else:
             assert new[i] == fit.rates[i]
             trial = fit.rates.copy()
-            trial[i] = 1e-6 / tree.height     # at the lower bound: clearly worse
+            trial[i] = 1e-6 / tree.height  # at the lower bound: clearly worse
             assert f(trial) < fit.log_likelihood - drop
     assert len(moved) < len(ind.labels)
 
 
 # --------------------------------------------------------------------------- configuration
 
+
 def test_pair_analysis_from_config_spec():
     rng = np.random.default_rng(12)
     pair = make_pair(rng, ["a", "b", "c"])
     traits = {"limb": pair.first, "visitor": pair.second}
-    spec = {"traits": ["limb", "visitor"], "hypotheses": ["independent", "dependent", "limb_first"],
-            "custom": {"limb_first": {"transitions": CONTINGENT}}, "root": "stationary"}
+    spec = {
+        "traits": ["limb", "visitor"],
+        "hypotheses": ["independent", "dependent", "limb_first"],
+        "custom": {"limb_first": {"transitions": CONTINGENT}},
+        "root": "stationary",
+    }
     trait, models = pairs.pair_analysis("limb_visitor", spec, traits)
     assert trait.states == pair.states and trait.name == "limb_visitor"
     assert set(models) == {"independent", "dependent", "limb_first"}
@@ -542,6 +603,7 @@ def test_pair_analysis_from_config_spec():
 
 
 # --------------------------------------------------------------------------- calibration (small)
+
 
 def test_small_calibration_of_both_tests():
     """A small version of benchmarks/pair_calibration.py. Under independent evolution the
@@ -566,9 +628,16 @@ def test_small_calibration_of_both_tests():
             stat, fit_null, _ = pairs.lr_statistic(tree, X, ind, dep, n_starts=3, seed=r)
             chi += stat > chi2.ppf(0.95, 4)
             if r < n_boot:
-                sims = pairs.bootstrap_statistics(pair, tree, ind, dep, fit_null.rates,
-                                                  replicates=range(19), seed=seed0 + r,
-                                                  n_starts=3)
+                sims = pairs.bootstrap_statistics(
+                    pair,
+                    tree,
+                    ind,
+                    dep,
+                    fit_null.rates,
+                    replicates=range(19),
+                    seed=seed0 + r,
+                    n_starts=3,
+                )
                 boot += pairs.bootstrap_p_value(stat, sims) <= 0.05
         return chi, boot
 

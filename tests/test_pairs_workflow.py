@@ -16,8 +16,8 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from scipy.stats import chi2
 from figure_checks import overlaps
+from scipy.stats import chi2
 from workflow_helpers import run_snakemake, tiny_config
 
 from mkforest.data.traits import trait_from_mapping, traits_from_json
@@ -26,22 +26,32 @@ from mkforest.errors import InputError
 from mkforest.jobs.pairs import bootstrap_tree_indices
 from mkforest.report.plots_pairs import joint_rate_grid, pair_tests_figure, rates_by_state
 
-ROUND_FIRST = {"plain+round <-> banded+round": "band",
-               "plain+round <-> plain+toothed": "tooth",
-               "banded+round -> banded+toothed": "tooth"}
-PAIR_SPEC = {"traits": ["banding", "aperture"], "hypotheses": ["independent", "dependent"],
-             "custom": {"round_first": {"transitions": ROUND_FIRST}},
-             "bootstrap": 5, "bootstrap_trees": 2}
+ROUND_FIRST = {
+    "plain+round <-> banded+round": "band",
+    "plain+round <-> plain+toothed": "tooth",
+    "banded+round -> banded+toothed": "tooth",
+}
+PAIR_SPEC = {
+    "traits": ["banding", "aperture"],
+    "hypotheses": ["independent", "dependent"],
+    "custom": {"round_first": {"transitions": ROUND_FIRST}},
+    "bootstrap": 5,
+    "bootstrap_trees": 2,
+}
 
 
 def pair_config(work, per_job=2):
     return tiny_config(
         work,
         trees={"file": str(work / "data" / "trees.nex"), "burnin": 1, "per_job": per_job},
-        traits={"file": str(work / "data" / "traits.tsv"), "taxon_column": "taxon",
-                "columns": ["banding", "aperture"]},
+        traits={
+            "file": str(work / "data" / "traits.tsv"),
+            "taxon_column": "taxon",
+            "columns": ["banding", "aperture"],
+        },
         models={"one_rate": {"kind": "equal"}},
-        pairs={"shell": PAIR_SPEC})
+        pairs={"shell": PAIR_SPEC},
+    )
 
 
 @pytest.fixture(scope="module")
@@ -51,9 +61,19 @@ def pair_run(tmp_path_factory):
     proc = run_snakemake(work, cfg)
     assert proc.returncode == 0, proc.stderr[-4000:]
     out = work / "results" / "tiny"
-    tables = {n: pd.read_csv(out / "tables" / f"{n}.tsv", sep="\t")
-              for n in ("fits", "rates", "pair_tests", "pair_summary", "pair_bootstrap",
-                        "trees_used", "rate_summary", "model_support")}
+    tables = {
+        n: pd.read_csv(out / "tables" / f"{n}.tsv", sep="\t")
+        for n in (
+            "fits",
+            "rates",
+            "pair_tests",
+            "pair_summary",
+            "pair_bootstrap",
+            "trees_used",
+            "rate_summary",
+            "model_support",
+        )
+    }
     return work, out, tables
 
 
@@ -62,7 +82,10 @@ def test_pair_fits_and_rates_in_the_standard_tables(pair_run):
     fits = t["fits"][t["fits"]["analysis"] == "shell"]
     assert set(fits["model"]) == {"independent", "dependent", "round_first"}
     assert fits.groupby("model")["n_params"].first().to_dict() == {
-        "independent": 4, "dependent": 8, "round_first": 2}          # Pagel 1994: 4 and 8
+        "independent": 4,
+        "dependent": 8,
+        "round_first": 2,
+    }  # Pagel 1994: 4 and 8
     rates = t["rates"][t["rates"]["analysis"] == "shell"]
     joint = {"plain+round", "plain+toothed", "banded+round", "banded+toothed"}
     assert set(rates["from_state"]) <= joint and set(rates["to_state"]) <= joint
@@ -76,7 +99,9 @@ def test_tests_recomputed_from_the_fits(pair_run):
     _, _, t = pair_run
     tests, fits = t["pair_tests"], t["fits"]
     assert set(zip(tests["null"], tests["alternative"])) == {
-        ("independent", "dependent"), ("round_first", "dependent")}
+        ("independent", "dependent"),
+        ("round_first", "dependent"),
+    }
     ll = fits[fits["analysis"] == "shell"].set_index(["model", "tree"])
     for row in tests.to_dict("records"):
         n, a = ll.loc[(row["null"], row["tree"])], ll.loc[(row["alternative"], row["tree"])]
@@ -109,10 +134,16 @@ def test_bootstrap_p_values_and_tree_choice(pair_run):
     assert (with_boot["n_bootstrap"] == 5).all()
     assert tests.loc[tests["n_bootstrap"] == 0, "p_bootstrap"].isna().all()
     for row in with_boot.to_dict("records"):
-        sims = boot[(boot["null"] == row["null"]) & (boot["alternative"] == row["alternative"])
-                    & (boot["tree"] == row["tree"])]["statistic"].to_numpy()
-        assert sorted(boot[(boot["tree"] == row["tree"]) & (boot["null"] == row["null"])
-                           ]["replicate"].unique()) == list(range(5))
+        sims = boot[
+            (boot["null"] == row["null"])
+            & (boot["alternative"] == row["alternative"])
+            & (boot["tree"] == row["tree"])
+        ]["statistic"].to_numpy()
+        assert sorted(
+            boot[(boot["tree"] == row["tree"]) & (boot["null"] == row["null"])][
+                "replicate"
+            ].unique()
+        ) == list(range(5))
         expected = (1 + np.sum(sims >= row["statistic"] - 1e-6 * abs(row["statistic"]))) / 6
         assert row["p_bootstrap"] == pytest.approx(expected)
     assert (boot["statistic"] >= 0).all()
@@ -172,27 +203,38 @@ def test_pair_plots_written_with_their_labels(pair_run):
     titles = " ".join(ax.get_title() for ax in fig.axes)
     for h in ("independent", "dependent", "round_first"):
         assert h in titles
-    assert "both traits at once: never allowed" in {x.get_text() for x in fig.legends[0].get_texts()}
+    assert "both traits at once: never allowed" in {
+        x.get_text() for x in fig.legends[0].get_texts()
+    }
     fig = pair_tests_figure("shell", t["pair_tests"], t["pair_bootstrap"])
     assert overlaps(fig) == []
     titles = " ".join(ax.get_title() for ax in fig.axes)
     assert "independent vs dependent" in titles and "parametric bootstrap" in titles
     labels = {ax.get_xlabel() for ax in fig.axes}
     assert any("likelihood-ratio statistic" in x for x in labels)
-    legend_texts = {x.get_text() for ax in fig.axes if ax.get_legend()
-                    for x in ax.get_legend().get_texts()}
+    legend_texts = {
+        x.get_text() for ax in fig.axes if ax.get_legend() for x in ax.get_legend().get_texts()
+    }
     assert any(x.startswith("χ² 95% point, df 4") for x in legend_texts)
     assert any(x.startswith("simulated under independent") for x in legend_texts)
 
 
 def test_untestable_pair_is_refused_early():
     """A listed test whose null is not nested in its alternative: InputError naming the key."""
-    traits = {"banding": trait_from_mapping("banding", {"a": "plain", "b": "banded"}),
-              "aperture": trait_from_mapping("aperture", {"a": "round", "b": "toothed"})}
-    spec = {"traits": ["banding", "aperture"], "hypotheses": ["independent", "dependent"],
-            "tests": [["dependent", "independent"]]}
-    with pytest.raises(InputError, match=r"pairs.shell.tests: \[dependent, independent\] cannot "
-                                         r"be tested: 'dependent' is not nested in 'independent'"):
+    traits = {
+        "banding": trait_from_mapping("banding", {"a": "plain", "b": "banded"}),
+        "aperture": trait_from_mapping("aperture", {"a": "round", "b": "toothed"}),
+    }
+    spec = {
+        "traits": ["banding", "aperture"],
+        "hypotheses": ["independent", "dependent"],
+        "tests": [["dependent", "independent"]],
+    }
+    with pytest.raises(
+        InputError,
+        match=r"pairs.shell.tests: \[dependent, independent\] cannot "
+        r"be tested: 'dependent' is not nested in 'independent'",
+    ):
         pairs.pair_analysis("shell", spec, traits)
     spec["tests"] = [["independent", "linked"]]
     with pytest.raises(InputError, match=r"names hypothesis 'linked'"):
@@ -206,39 +248,104 @@ def test_test_rows_and_summary_from_hand_made_tables():
     from mkforest.engine.pairs import Nesting
     from mkforest.jobs.pairs import TEST_COLUMNS, pair_test_rows, summary_rows
 
-    fits = pd.DataFrame([
-        # tree 0: an ordinary fit; tree 1: the null has a rate at the lower bound;
-        # tree 2: the alternative's optimiser fell short of its own null
-        dict(analysis="shell", model="independent", tree=0, n_params=4, log_likelihood=-60.0,
-             converged=True, at_lower="", weight=0.2),
-        dict(analysis="shell", model="dependent", tree=0, n_params=8, log_likelihood=-54.0,
-             converged=True, at_lower="", weight=0.8),
-        dict(analysis="shell", model="independent", tree=1, n_params=4, log_likelihood=-50.0,
-             converged=True, at_lower="banding: plain->banded", weight=0.9),
-        dict(analysis="shell", model="dependent", tree=1, n_params=8, log_likelihood=-49.0,
-             converged=False, at_lower="", weight=0.1),
-        dict(analysis="shell", model="independent", tree=2, n_params=4, log_likelihood=-40.0,
-             converged=True, at_lower="", weight=0.95),
-        dict(analysis="shell", model="dependent", tree=2, n_params=8, log_likelihood=-40.5,
-             converged=True, at_lower="", weight=0.05),
-    ])
-    boot = pd.DataFrame([dict(pair="shell", null="independent", alternative="dependent", tree=t,
-                              replicate=r, statistic=s, null_rates_moved=moved)
-                         for t, sims, moved in ((0, [1.0, 13.0, 2.0, 12.0], ""),
-                                                (1, [0.5, 0.1, 3.0, 0.0], "banding: plain->banded"))
-                         for r, s in enumerate(sims)])
+    fits = pd.DataFrame(
+        [
+            # tree 0: an ordinary fit; tree 1: the null has a rate at the lower bound;
+            # tree 2: the alternative's optimiser fell short of its own null
+            dict(
+                analysis="shell",
+                model="independent",
+                tree=0,
+                n_params=4,
+                log_likelihood=-60.0,
+                converged=True,
+                at_lower="",
+                weight=0.2,
+            ),
+            dict(
+                analysis="shell",
+                model="dependent",
+                tree=0,
+                n_params=8,
+                log_likelihood=-54.0,
+                converged=True,
+                at_lower="",
+                weight=0.8,
+            ),
+            dict(
+                analysis="shell",
+                model="independent",
+                tree=1,
+                n_params=4,
+                log_likelihood=-50.0,
+                converged=True,
+                at_lower="banding: plain->banded",
+                weight=0.9,
+            ),
+            dict(
+                analysis="shell",
+                model="dependent",
+                tree=1,
+                n_params=8,
+                log_likelihood=-49.0,
+                converged=False,
+                at_lower="",
+                weight=0.1,
+            ),
+            dict(
+                analysis="shell",
+                model="independent",
+                tree=2,
+                n_params=4,
+                log_likelihood=-40.0,
+                converged=True,
+                at_lower="",
+                weight=0.95,
+            ),
+            dict(
+                analysis="shell",
+                model="dependent",
+                tree=2,
+                n_params=8,
+                log_likelihood=-40.5,
+                converged=True,
+                at_lower="",
+                weight=0.05,
+            ),
+        ]
+    )
+    boot = pd.DataFrame(
+        [
+            dict(
+                pair="shell",
+                null="independent",
+                alternative="dependent",
+                tree=t,
+                replicate=r,
+                statistic=s,
+                null_rates_moved=moved,
+            )
+            for t, sims, moved in (
+                (0, [1.0, 13.0, 2.0, 12.0], ""),
+                (1, [0.5, 0.1, 3.0, 0.0], "banding: plain->banded"),
+            )
+            for r, s in enumerate(sims)
+        ]
+    )
     test = Nesting("independent", "dependent", 4, False)
     rows = {r["tree"]: r for r in pair_test_rows("shell", [test], fits, boot, 0.05)}
     assert rows[0]["statistic"] == pytest.approx(12.0)
     assert rows[0]["p_chi2"] == pytest.approx(chi2.sf(12.0, 4))
-    assert rows[0]["p_bootstrap"] == pytest.approx((1 + 2) / 5)   # 13 and 12 are >= 12
+    assert rows[0]["p_bootstrap"] == pytest.approx((1 + 2) / 5)  # 13 and 12 are >= 12
     assert rows[0]["reject_chi2"] and not rows[0]["reject_bootstrap"] and rows[0]["note"] == ""
     assert rows[1]["statistic"] == pytest.approx(2.0)
     assert rows[1]["p_bootstrap"] == pytest.approx((1 + 1) / 5)
     assert rows[1]["null_rate_at_lower_bound"]
     assert rows[1]["bootstrap_rates_moved"] == "banding: plain->banded"
-    assert ("simulated banding: plain->banded at the edge of its 95% interval" in rows[1]["note"]
-            and "banding: plain->banded at it" in rows[1]["note"])
+    assert (
+        "simulated banding: plain->banded at the edge of its 95% interval" in rows[1]["note"]
+        and "banding: plain->banded at it" in rows[1]["note"]
+    )
     assert "fit of dependent not converged" in rows[1]["note"]
     assert rows[2]["statistic"] == 0.0 and "missed the maximum" in rows[2]["note"]
     assert np.isnan(rows[2]["p_bootstrap"]) and rows[2]["n_bootstrap"] == 0

@@ -21,20 +21,41 @@ def tables(tree):
     clades, rows = [], []
     rng = np.random.default_rng(0)
     for v in range(tree.n_tips, tree.n_nodes):
-        clades.append(dict(clade=names[v], kind="consensus", n_tips=len(sets[v]), frequency=0.8,
-                           n_trees_with_clade=8, key="k", members=",".join(sorted(sets[v]))))
+        clades.append(
+            dict(
+                clade=names[v],
+                kind="consensus",
+                n_tips=len(sets[v]),
+                frequency=0.8,
+                n_trees_with_clade=8,
+                key="k",
+                members=",".join(sorted(sets[v])),
+            )
+        )
         p = rng.dirichlet(np.ones(3))
         for s, x in zip(STATES, p):
-            rows.append(dict(analysis="soil", clade=names[v], clade_kind="consensus",
-                             clade_frequency=0.8, n_trees=8, state=s, mean_probability=x))
+            rows.append(
+                dict(
+                    analysis="soil",
+                    clade=names[v],
+                    clade_kind="consensus",
+                    clade_frequency=0.8,
+                    n_trees=8,
+                    state=s,
+                    mean_probability=x,
+                )
+            )
     return pd.DataFrame(rows), pd.DataFrame(clades)
 
 
 def test_state_tree_drawn_labelled_and_written(tmp_path):
     tree = parse_newick(TREE)
     states, clades = tables(tree)
-    trait = trait_from_mapping("soil", {"a": "dry", "b": "wet", "c": "dry|wet", "d": "?",
-                                        "e": "salt", "f": "salt"}, states=STATES)
+    trait = trait_from_mapping(
+        "soil",
+        {"a": "dry", "b": "wet", "c": "dry|wet", "d": "?", "e": "salt", "f": "salt"},
+        states=STATES,
+    )
     fig = plots_ancestral.state_tree(tree, states, clades, trait, "soil")
     ax = fig.axes[0]
     assert "soil" in ax.get_title(loc="left")
@@ -43,8 +64,8 @@ def test_state_tree_drawn_labelled_and_written(tmp_path):
     # c is 'dry|wet' (its two states side by side), d is unknown (hatched)
     assert {"tip: several states possible", "tip: state unknown"} <= set(legend)
     texts = {t.get_text() for t in ax.texts}
-    assert set("abcdef") <= texts              # every tip labelled
-    assert "0.80" in texts                     # clade frequency shown
+    assert set("abcdef") <= texts  # every tip labelled
+    assert "0.80" in texts  # clade frequency shown
     assert fig.mkforest_nodes_drawn == tree.n_nodes - tree.n_tips
     assert overlaps(fig) == []
     paths = [tmp_path / "tree.png", tmp_path / "tree.svg"]
@@ -62,8 +83,15 @@ def test_change_counts_panels(tmp_path):
             for a in states:
                 for b in states:
                     if a != b:
-                        rows.append(dict(analysis=analysis, tree=tree, from_state=a, to_state=b,
-                                         mean_count=float(tree % 3)))
+                        rows.append(
+                            dict(
+                                analysis=analysis,
+                                tree=tree,
+                                from_state=a,
+                                to_state=b,
+                                mean_count=float(tree % 3),
+                            )
+                        )
     fig = plots_ancestral.change_counts(pd.DataFrame(rows))
     visible = [ax for ax in fig.axes if ax.get_visible()]
     assert [ax.get_title(loc="left") for ax in visible] == ["soil (10 trees)", "colour (10 trees)"]
@@ -85,10 +113,28 @@ def test_class_tree_draws_class_rows_only(tmp_path):
     for c in clades.to_dict("records"):
         fast = 0.9 if "d" in c["members"].split(",") else 0.1
         for cls, x in ((1, 1 - fast), (2, fast)):
-            rows.append(dict(analysis="soil", model="two_speed", clade=c["clade"], n_trees=8,
-                             state=np.nan, mean_probability=x, **{"class": cls}))
-            rows.append(dict(analysis="soil", model="two_speed", clade=c["clade"], n_trees=8,
-                             state=f"dry@{cls}", mean_probability=x, **{"class": cls}))
+            rows.append(
+                dict(
+                    analysis="soil",
+                    model="two_speed",
+                    clade=c["clade"],
+                    n_trees=8,
+                    state=np.nan,
+                    mean_probability=x,
+                    **{"class": cls},
+                )
+            )
+            rows.append(
+                dict(
+                    analysis="soil",
+                    model="two_speed",
+                    clade=c["clade"],
+                    n_trees=8,
+                    state=f"dry@{cls}",
+                    mean_probability=x,
+                    **{"class": cls},
+                )
+            )
     fig = plots_ancestral.class_tree(tree, pd.DataFrame(rows), clades, "soil", "two_speed")
     ax = fig.axes[0]
     title = ax.get_title(loc="left")
@@ -105,8 +151,10 @@ def test_class_tree_draws_class_rows_only(tmp_path):
 def test_change_counts_panel_of_one_tree_says_tree():
     """A panel whose counts come from one tree says '1 tree' (seen on an invented 12-tree
     sample where the other trees' maps were left out as bound-limited)."""
-    rows = [dict(analysis="colour", tree=4, from_state=a, to_state=b, mean_count=1.5)
-            for a, b in (("red", "blue"), ("blue", "red"))]
+    rows = [
+        dict(analysis="colour", tree=4, from_state=a, to_state=b, mean_count=1.5)
+        for a, b in (("red", "blue"), ("blue", "red"))
+    ]
     fig = plots_ancestral.change_counts(pd.DataFrame(rows))
     visible = [ax for ax in fig.axes if ax.get_visible()]
     assert [ax.get_title(loc="left") for ax in visible] == ["colour (1 tree)"]

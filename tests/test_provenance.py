@@ -57,19 +57,25 @@ def tsv(work, name):
 
 # --------------------------------------------------------------------------- manifest
 
+
 def test_manifest_hashes_every_result_and_input(run):
     """Checksums against an outside implementation (coreutils' sha256sum) and hashlib."""
     work, cfg = run
     m = manifest_of(work)
     listed = {r["path"]: r for r in m["outputs"]}
-    on_disk = {p.relative_to(out_dir(work)).as_posix()
-               for sub in ("tables", "plots") for p in (out_dir(work) / sub).rglob("*") if p.is_file()}
+    on_disk = {
+        p.relative_to(out_dir(work)).as_posix()
+        for sub in ("tables", "plots")
+        for p in (out_dir(work) / sub).rglob("*")
+        if p.is_file()
+    }
     on_disk.add("methods.md")
-    assert set(listed) == on_disk                  # every table, plot and the methods text
+    assert set(listed) == on_disk  # every table, plot and the methods text
     assert "manifest.json" not in listed
     paths = [out_dir(work) / p for p in sorted(listed)]
-    sums = subprocess.run([*SHA256SUM, *map(str, paths)], capture_output=True, text=True,
-                          check=True).stdout.splitlines()
+    sums = subprocess.run(
+        [*SHA256SUM, *map(str, paths)], capture_output=True, text=True, check=True
+    ).stdout.splitlines()
     for line, p in zip(sums, sorted(listed)):
         assert line.split()[0] == listed[p]["sha256"], p
         assert listed[p]["bytes"] == (out_dir(work) / p).stat().st_size
@@ -107,8 +113,9 @@ def test_manifest_settings_trees_software_and_times(run):
     # the code that ran: its version and, from a git checkout, the commit
     src = m["mkforest_source"]
     assert src["version"] == importlib.metadata.version("mkforest")
-    head = subprocess.run(["git", "-C", str(REPO), "rev-parse", "HEAD"], capture_output=True,
-                          text=True)
+    head = subprocess.run(
+        ["git", "-C", str(REPO), "rev-parse", "HEAD"], capture_output=True, text=True
+    )
     if head.returncode == 0:
         assert src["git_commit"] == head.stdout.strip()
         assert isinstance(src["uncommitted_changes"], bool)
@@ -127,6 +134,7 @@ def test_second_invocation_does_not_rewrite_the_manifest(run, tmp_path):
 
 
 # --------------------------------------------------------------------------- methods text
+
 
 def _fmt(x):
     """Two decimals, '<0.01' for tiny positive values (the rounding the text promises)."""
@@ -150,8 +158,11 @@ def test_methods_numbers_are_those_of_the_tables(run):
     assert f"each of {n} trees" in text
     assert f"positions {used['tree'].min()} to {used['tree'].max()}" in text
     # burn-in counted from the file itself: trees in it, and the first position used
-    in_file = sum(1 for line in (work / "data" / "trees.nex").read_text().splitlines()
-                  if line.strip().upper().startswith("TREE "))
+    in_file = sum(
+        1
+        for line in (work / "data" / "trees.nex").read_text().splitlines()
+        if line.strip().upper().startswith("TREE ")
+    )
     assert used["tree"].min() == 1
     assert f"the first tree of the {in_file} in the file was discarded as burn-in" in text
     assert "2 starting points" in text and "between 1e-06 and 10000" in text
@@ -160,18 +171,24 @@ def test_methods_numbers_are_those_of_the_tables(run):
         aicc = g.pivot(index="tree", columns="model", values="aicc")
         delta = aicc.sub(aicc.min(axis=1), axis=0)
         weights = np.exp(-delta / 2)
-        weights = weights.div(weights.sum(axis=1), axis=0)   # Akaike weights (Burnham & Anderson 2002)
+        weights = weights.div(
+            weights.sum(axis=1), axis=0
+        )  # Akaike weights (Burnham & Anderson 2002)
         order = weights.mean().sort_values(ascending=False).index
         best = order[0]
         k_best = int((delta[best] == 0).sum())
-        assert (f"{best} received the most support (mean Akaike weight "
-                f"{_fmt(weights[best].mean())}; lowest AICc on {k_best} of {n} trees)") in sec
+        assert (
+            f"{best} received the most support (mean Akaike weight "
+            f"{_fmt(weights[best].mean())}; lowest AICc on {k_best} of {n} trees)"
+        ) in sec
         for model in order[1:]:
             d = delta[model]
-            assert (f"{model} (mean weight {_fmt(weights[model].mean())}; lowest AICc on "
-                    f"{int((d == 0).sum())} of {n} trees; median ΔAICc {_fmt(d.median())}, "
-                    f"95% interval across trees {_fmt(d.quantile(0.025))} to "
-                    f"{_fmt(d.quantile(0.975))})") in sec
+            assert (
+                f"{model} (mean weight {_fmt(weights[model].mean())}; lowest AICc on "
+                f"{int((d == 0).sum())} of {n} trees; median ΔAICc {_fmt(d.median())}, "
+                f"95% interval across trees {_fmt(d.quantile(0.025))} to "
+                f"{_fmt(d.quantile(0.975))})"
+            ) in sec
         # rates of the best model: medians across the trees where the data bound the rate
         # (rates.tsv at_bound neither upper nor open), the others counted beside them
         rates = tsv(work, "rates")
@@ -184,8 +201,10 @@ def test_methods_numbers_are_those_of_the_tables(run):
                 assert f"{a}→{b} not bounded above by the data on any tree" in sec
             elif unbounded.any():
                 k = int((~unbounded).sum())
-                assert (f"over the {k} tree{'' if k == 1 else 's'} where the data bound it; not "
-                        f"bounded above on {int(unbounded.sum())}") in sec
+                assert (
+                    f"over the {k} tree{'' if k == 1 else 's'} where the data bound it; not "
+                    f"bounded above on {int(unbounded.sum())}"
+                ) in sec
         # every caution of the summary table is repeated under the analysis
         support = tsv(work, "model_support")
         for row in support[support["analysis"] == analysis].to_dict("records"):
@@ -201,8 +220,17 @@ def test_methods_cite_what_ran_and_only_that(run):
         r = REFERENCES[key]
         assert r.cite() in text and r.full() in refs
     # this run has no pairs, no ancestral stage, a uniform root and AICc: none of these appear
-    for key in ("pagel1994", "goldman1993", "yang1995", "nielsen2002", "huelsenbeck2003",
-                "fitzjohn2009", "schwarz1978", "andrews2000", "berger1994"):
+    for key in (
+        "pagel1994",
+        "goldman1993",
+        "yang1995",
+        "nielsen2002",
+        "huelsenbeck2003",
+        "fitzjohn2009",
+        "schwarz1978",
+        "andrews2000",
+        "berger1994",
+    ):
         assert REFERENCES[key].cite() not in text
     assert "Ancestral states" not in text and "Trait pairs" not in text
     # few trees: the text says so (summarise.FEW_TREES is 20; this run has 5)
@@ -210,14 +238,24 @@ def test_methods_cite_what_ran_and_only_that(run):
 
 
 def _paragraph(text):
-    m = re.search(r"^## Methods in one paragraph\n\n(.+?)\n\n## Methods in full\n", text, re.S | re.M)
+    m = re.search(
+        r"^## Methods in one paragraph\n\n(.+?)\n\n## Methods in full\n", text, re.S | re.M
+    )
     assert m, "no paste-ready paragraph under its own heading"
-    assert "\n" not in m.group(1)                      # one paragraph
+    assert "\n" not in m.group(1)  # one paragraph
     return m.group(1)
 
 
-IDENTIFIERS = ("first_depends_on_second", "second_depends_on_first", "data_weighted",
-               "unconstrained", "aicc", "kind:", "per_job", "burnin")
+IDENTIFIERS = (
+    "first_depends_on_second",
+    "second_depends_on_first",
+    "data_weighted",
+    "unconstrained",
+    "aicc",
+    "kind:",
+    "per_job",
+    "burnin",
+)
 
 
 def test_methods_open_with_one_paragraph_from_the_tables(run):
@@ -226,14 +264,20 @@ def test_methods_open_with_one_paragraph_from_the_tables(run):
     work, _ = run
     text = (out_dir(work) / "methods.md").read_text()
     para = _paragraph(text)
-    assert text.index("## Methods in one paragraph") < text.index("## Methods in full") < \
-        text.index("## Results") < text.index("## References")
+    assert (
+        text.index("## Methods in one paragraph")
+        < text.index("## Methods in full")
+        < text.index("## Results")
+        < text.index("## References")
+    )
     assert len([w for w in para.split() if any(c.isalnum() for c in w)]) <= 250
     used, check = tsv(work, "trees_used"), tsv(work, "data_check")
     assert f"for {used['n_tips'].iloc[0]} taxa on each of {len(used)} trees" in para
-    assert "first tree discarded as burn-in" in para        # burnin: 1 in base_config
-    k = {t: int(check[(check["trait"] == t) & check["item"].str.startswith("state:")].shape[0])
-         for t in ("glow", "habitat")}
+    assert "first tree discarded as burn-in" in para  # burnin: 1 in base_config
+    k = {
+        t: int(check[(check["trait"] == t) & check["item"].str.startswith("state:")].shape[0])
+        for t in ("glow", "habitat")
+    }
     assert k == {"glow": 2, "habitat": 3}
     assert "glow (2 states)" in para and "habitat (3 states)" in para
     assert "from 2 starting points per fit" in para
@@ -281,11 +325,15 @@ def test_methods_follow_the_settings(run):
 
 # --------------------------------------------------------------------------- HTML report
 
+
 def _report_entries(html: str) -> dict:
     """{path: caption html} of the files embedded in a Snakemake report."""
     out = {}
-    for m in re.finditer(r'"(results/[^"]+)": \{"name": "[^"]*", "filename": "[^"]*", '
-                         r'"labels": [^,]*, "size": "[^"]*", "caption": "((?:[^"\\]|\\.)*)"', html):
+    for m in re.finditer(
+        r'"(results/[^"]+)": \{"name": "[^"]*", "filename": "[^"]*", '
+        r'"labels": [^,]*, "size": "[^"]*", "caption": "((?:[^"\\]|\\.)*)"',
+        html,
+    ):
         out[m.group(1)] = m.group(2)
     return out
 
@@ -293,33 +341,49 @@ def _report_entries(html: str) -> dict:
 def test_report_builds_offline_with_every_table_and_plot(run, tmp_path):
     work, cfg = run
     report = tmp_path / "report.html"
-    cmd = [SNAKEMAKE, "--snakefile", str(REPO / "Snakefile"), "--directory", str(work),
-           "--configfile", str(cfg), "--cores", "1", "--report", str(report)]
+    cmd = [
+        SNAKEMAKE,
+        "--snakefile",
+        str(REPO / "Snakefile"),
+        "--directory",
+        str(work),
+        "--configfile",
+        str(cfg),
+        "--cores",
+        "1",
+        "--report",
+        str(report),
+    ]
     if shutil.which("unshare") and subprocess.run(["unshare", "-rn", "true"]).returncode == 0:
-        cmd = ["unshare", "-rn", *cmd]                # no network at all while it builds
+        cmd = ["unshare", "-rn", *cmd]  # no network at all while it builds
     else:
         pytest.skip("cannot start a process without network here (unshare -rn)")
-    proc = subprocess.run(cmd, capture_output=True, text=True, timeout=600,
-                          env=dict(os.environ, PYTHONPATH=str(REPO)))
+    proc = subprocess.run(
+        cmd, capture_output=True, text=True, timeout=600, env=dict(os.environ, PYTHONPATH=str(REPO))
+    )
     assert proc.returncode == 0, proc.stderr[-3000:]
     html = report.read_text()
     entries = _report_entries(html)
     outputs = {f"results/{RUN}/{r['path']}" for r in manifest_of(work)["outputs"]}
     # every table and figure, each figure once: its PNG (the SVG for print stays on disk);
     # the per-tree tables stay on disk, named in the captions of their summaries
-    per_tree = {f"results/{RUN}/tables/{t}.tsv" for t in ("fits", "rates", "averaged_rates",
-                                                          "branch_tests")}
+    per_tree = {
+        f"results/{RUN}/tables/{t}.tsv" for t in ("fits", "rates", "averaged_rates", "branch_tests")
+    }
     expected = {p for p in outputs if not p.endswith(".svg")} - per_tree
     expected.add(f"results/{RUN}/manifest.json")
     assert expected <= set(entries), sorted(expected - set(entries))
     assert not per_tree & set(entries)
     captions = " ".join(entries.values())
     for path in per_tree:
-        assert path.replace(f"results/{RUN}/", "results/&lt;run&gt;/") in captions or \
-            path.replace(f"results/{RUN}/", "results/<run>/") in captions, path
+        assert (
+            path.replace(f"results/{RUN}/", "results/&lt;run&gt;/") in captions
+            or path.replace(f"results/{RUN}/", "results/<run>/") in captions
+        ), path
     assert not [p for p in entries if p.endswith(".svg")]
-    assert {p[:-4] for p in outputs if p.endswith(".svg")} == \
-        {p[:-4] for p in outputs if p.endswith(".png")}
+    assert {p[:-4] for p in outputs if p.endswith(".svg")} == {
+        p[:-4] for p in outputs if p.endswith(".png")
+    }
     for path in expected:
         assert len(entries[path]) > 40, f"{path} has no caption"
     # the page loads nothing from elsewhere
@@ -328,13 +392,22 @@ def test_report_builds_offline_with_every_table_and_plot(run, tmp_path):
 
 # --------------------------------------------------------------------------- slower runs
 
+
 @pytest.mark.slow
 def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_factory):
     cfg = base_config(
-        traits={"file": "data/traits.tsv", "taxon_column": "taxon",
-                "columns": ["banding", "aperture"]},
-        pairs={"band_aperture": {"traits": ["banding", "aperture"], "bootstrap": 9,
-                                 "bootstrap_trees": 2}},
+        traits={
+            "file": "data/traits.tsv",
+            "taxon_column": "taxon",
+            "columns": ["banding", "aperture"],
+        },
+        pairs={
+            "band_aperture": {
+                "traits": ["banding", "aperture"],
+                "bootstrap": 9,
+                "bootstrap_trees": 2,
+            }
+        },
         ancestral={"enabled": True, "maps": 4},
     )
     work = tmp_path_factory.mktemp("full")
@@ -342,18 +415,28 @@ def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_facto
     proc = run_snakemake(work, path)
     assert proc.returncode == 0, proc.stderr[-4000:]
     text = (out_dir(work) / "methods.md").read_text()
-    for key in ("pagel1994", "goldman1993", "yang1995", "nielsen2002", "huelsenbeck2003",
-                "margush1981", "andrews2000", "berger1994"):
+    for key in (
+        "pagel1994",
+        "goldman1993",
+        "yang1995",
+        "nielsen2002",
+        "huelsenbeck2003",
+        "margush1981",
+        "andrews2000",
+        "berger1994",
+    ):
         assert REFERENCES[key].cite() in text and REFERENCES[key].full() in text
     assert "9 data sets simulated under the fitted null hypothesis on each of 2 trees" in text
     assert "**Trait pairs.**" in text and "**Ancestral states.**" in text
     assert "4 stochastic character maps per tree" in text
     para = _paragraph(text)
     assert len([w for w in para.split() if any(c.isalnum() for c in w)]) <= 250
-    assert ("For banding with aperture, hypotheses of joint change (one trait changing at a "
-            "time; Pagel 1994) were compared on each tree by likelihood-ratio tests: independent "
-            "change and mutual dependence; a parametric bootstrap (Goldman 1993) simulated 9 data "
-            "sets on each of 2 trees.") in para
+    assert (
+        "For banding with aperture, hypotheses of joint change (one trait changing at a "
+        "time; Pagel 1994) were compared on each tree by likelihood-ratio tests: independent "
+        "change and mutual dependence; a parametric bootstrap (Goldman 1993) simulated 9 data "
+        "sets on each of 2 trees."
+    ) in para
     assert "4 stochastic character maps per tree" in para
     for word in IDENTIFIERS:
         assert word not in para
@@ -362,8 +445,10 @@ def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_facto
     sec = _section(text, "band_aperture")
     for r in summary.to_dict("records"):
         k = int(round(r["fraction_reject_chi2"] * r["n_trees"]))
-        assert (f"rejected {r['null']} on {k} of {r['n_trees']} trees (median statistic "
-                f"{_fmt(r['median_statistic'])}") in sec
+        assert (
+            f"rejected {r['null']} on {k} of {r['n_trees']} trees (median statistic "
+            f"{_fmt(r['median_statistic'])}"
+        ) in sec
         kb = int(round(r["fraction_reject_bootstrap"] * r["n_trees_bootstrap"]))
         assert f"the parametric bootstrap rejected it on {kb} of 2 trees" in sec
         assert f"- {r['null']} against {r['alternative']}: {r['caution']}" in sec
@@ -374,8 +459,11 @@ def test_methods_mention_pairs_and_ancestral_states_when_they_ran(tmp_path_facto
         assert f"{r['from_state']}→{r['to_state']} {r['mean_count']:.1f}" in sec
     # the manifest lists the pair and ancestral tables too
     listed = {r["path"] for r in manifest_of(work)["outputs"]}
-    assert {"tables/pair_tests.tsv", "tables/ancestral_states.tsv",
-            "tables/transitions_per_tree.tsv"} <= listed
+    assert {
+        "tables/pair_tests.tsv",
+        "tables/ancestral_states.tsv",
+        "tables/transitions_per_tree.tsv",
+    } <= listed
 
 
 @pytest.mark.slow
@@ -383,8 +471,9 @@ def test_unpacked_archive_reruns_to_the_same_results(run, tmp_path):
     """Archive, unpack elsewhere, rerun from the archive's own config: same fits.tsv, and
     every result file equal to the original run's (checked by verify --against)."""
     work, _ = run
-    proc = mkforest("archive", out_dir(work), "--author", "Ferrand, Ilse", "--output",
-                    tmp_path / "deposit")
+    proc = mkforest(
+        "archive", out_dir(work), "--author", "Ferrand, Ilse", "--output", tmp_path / "deposit"
+    )
     assert proc.returncode == 0, proc.stderr
     archive = tmp_path / "deposit" / f"{RUN}-archive.tar.gz"
     with tarfile.open(archive) as tar:
@@ -395,8 +484,12 @@ def test_unpacked_archive_reruns_to_the_same_results(run, tmp_path):
     original = out_dir(work) / "tables" / "fits.tsv"
     again = top / "results" / f"{RUN}-rerun" / "tables" / "fits.tsv"
     assert again.read_bytes() == original.read_bytes()
-    check = mkforest("verify", top / "results" / f"{RUN}-rerun", "--against",
-                     top / "results" / RUN / "manifest.json")
+    check = mkforest(
+        "verify",
+        top / "results" / f"{RUN}-rerun",
+        "--against",
+        top / "results" / RUN / "manifest.json",
+    )
     assert check.returncode == 0, check.stdout
     # the two manifests differ only where the run's name, place and time do
     a = manifest_of(work)
@@ -404,5 +497,6 @@ def test_unpacked_archive_reruns_to_the_same_results(run, tmp_path):
     assert a["outputs"] == b["outputs"]
     assert a["software"] == b["software"] and a["platform"] == b["platform"]
     assert a["trees"]["positions"] == b["trees"]["positions"]
-    assert {r["role"]: r["sha256"] for r in a["inputs"] if r["role"] != "config"} == \
-        {r["role"]: r["sha256"] for r in b["inputs"] if r["role"] != "config"}
+    assert {r["role"]: r["sha256"] for r in a["inputs"] if r["role"] != "config"} == {
+        r["role"]: r["sha256"] for r in b["inputs"] if r["role"] != "config"
+    }

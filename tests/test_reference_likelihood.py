@@ -33,7 +33,6 @@ from reference import (
     newick_from_arrays,
     pruning_log_likelihood,
     q_from_rates,
-    ref_tree_from_newick,
     reference_custom_q,
     reference_stationary,
     stationary_is_unique,
@@ -56,6 +55,7 @@ def roots_for(case):
 
 # --------------------------------------------------------------------------- reference self-check
 
+
 @pytest.mark.parametrize("seed", range(0, N_CASES, 3))
 def test_reference_brute_force_equals_reference_pruning(seed):
     """The two reference implementations agree with each other (Felsenstein 1981:
@@ -64,8 +64,11 @@ def test_reference_brute_force_equals_reference_pruning(seed):
     tree = case["ref_tree"]
     partials = partials_from_cells(case["cells"], tree.tip_labels, case["states"])
     for root in roots_for(case):
-        brute = brute_force_log_likelihood(tree, partials, case["Q"], root, case["states"]) \
-            if root != "stationary" or stationary_is_unique(case["Q"]) else None
+        brute = (
+            brute_force_log_likelihood(tree, partials, case["Q"], root, case["states"])
+            if root != "stationary" or stationary_is_unique(case["Q"])
+            else None
+        )
         if brute is None:
             continue
         pruned = pruning_log_likelihood(tree, partials, case["Q"], root, case["states"])
@@ -76,6 +79,7 @@ def test_reference_brute_force_equals_reference_pruning(seed):
 
 
 # --------------------------------------------------------------------------- models
+
 
 @pytest.mark.parametrize("index", range(len(CUSTOM_SPECS)))
 def test_custom_model_q_matrix_matches_transition_list(index):
@@ -122,6 +126,7 @@ def test_builtin_model_structures(k):
 
 # --------------------------------------------------------------------------- brute force
 
+
 @pytest.mark.parametrize("seed", range(N_CASES))
 def test_log_likelihood_equals_brute_force(seed):
     """Engine ln L == ln(brute-force sum) to 1e-9 for every root treatment
@@ -136,7 +141,8 @@ def test_log_likelihood_equals_brute_force(seed):
     L = brute_force_root_likelihoods(tree, partials, Q)
     ref_tree = case["ref_tree"]
     L_ref = brute_force_root_likelihoods(
-        ref_tree, partials_from_cells(case["cells"], ref_tree.tip_labels, states), Q)
+        ref_tree, partials_from_cells(case["cells"], ref_tree.tip_labels, states), Q
+    )
     np.testing.assert_allclose(L, L_ref, rtol=1e-12, atol=0)
 
     failures = []
@@ -149,8 +155,10 @@ def test_log_likelihood_equals_brute_force(seed):
         ok = (got == expected) if math.isinf(expected) else abs(got - expected) <= TOL
         if not ok:
             failures.append(f"root={root!r}: engine {got!r}, brute force {expected!r}")
-    assert not failures, (f"seed {seed}, kind {case['model'].kind}, Q=\n{Q}\n"
-                          f"tree {case['newick']}\ncells {case['cells']}\n" + "\n".join(failures))
+    assert not failures, (
+        f"seed {seed}, kind {case['model'].kind}, Q=\n{Q}\n"
+        f"tree {case['newick']}\ncells {case['cells']}\n" + "\n".join(failures)
+    )
 
 
 @pytest.mark.parametrize("tiny", [1e-10, 1e-7])
@@ -222,18 +230,22 @@ def test_impossible_data_give_minus_infinity():
     states = ["present", "absent"]
     Q = q_from_rates([[0, 0.5], [0, 0]])
     tree = parse_newick("((a:0.2,b:0.4):0.3,c:0.5);")
-    partials = partials_from_cells({"a": "present", "b": "absent", "c": "present"},
-                                   tree.tip_labels, states)
+    partials = partials_from_cells(
+        {"a": "present", "b": "absent", "c": "present"}, tree.tip_labels, states
+    )
     assert brute_force_log_likelihood(tree, partials, Q, "absent", states) == -math.inf
     assert log_likelihood(tree, partials, Q, root="absent", states=tuple(states)) == -math.inf
     # while the other root treatments stay finite and match the brute force
     for root in ["uniform", "data_weighted", "present"]:
         expected = brute_force_log_likelihood(tree, partials, Q, root, states)
-        assert abs(log_likelihood(tree, partials, Q, root=root, states=tuple(states))
-                   - expected) <= TOL
+        assert (
+            abs(log_likelihood(tree, partials, Q, root=root, states=tuple(states)) - expected)
+            <= TOL
+        )
 
 
 # --------------------------------------------------------------------------- stationary distribution
+
 
 @pytest.mark.parametrize("seed", range(N_CASES))
 def test_stationary_distribution_solves_pi_q_zero(seed):
@@ -267,6 +279,7 @@ def test_stationary_absorbing_chain_is_the_absorbing_state():
 
 # --------------------------------------------------------------------------- published example
 
+
 def test_yang_2014_k80_five_tip_example():
     """Yang (2014) Molecular Evolution: A Statistical Approach, section 4.2, Fig. 4.2
     (published worked example; values recalled from memory, then reproduced by the
@@ -283,9 +296,18 @@ def test_yang_2014_k80_five_tip_example():
     s, v = kappa * beta, beta  # transition and transversion rates, fixed numbers
     states = ("T", "C", "A", "G")
     transitions = {
-        "T -> C": s, "C -> T": s, "A -> G": s, "G -> A": s,
-        "T -> A": v, "A -> T": v, "T -> G": v, "G -> T": v,
-        "C -> A": v, "A -> C": v, "C -> G": v, "G -> C": v,
+        "T -> C": s,
+        "C -> T": s,
+        "A -> G": s,
+        "G -> A": s,
+        "T -> A": v,
+        "A -> T": v,
+        "T -> G": v,
+        "G -> T": v,
+        "C -> A": v,
+        "A -> C": v,
+        "C -> G": v,
+        "G -> C": v,
     }
     model = build_model("custom", states, transitions, name="k80")
     assert model.n_params == 0
@@ -306,6 +328,7 @@ def test_yang_2014_k80_five_tip_example():
 
 
 # --------------------------------------------------------------------------- underflow
+
 
 @pytest.mark.parametrize("n_tips", [2_000, pytest.param(10_000, marks=pytest.mark.slow)])
 def test_large_tree_finite_and_equal_to_log_space_reference(n_tips):
@@ -329,6 +352,7 @@ def test_large_tree_finite_and_equal_to_log_space_reference(n_tips):
 
 
 # --------------------------------------------------------------------------- bad input (issue 2)
+
 
 def _write(tmp_path, name, text):
     path = tmp_path / name
@@ -383,8 +407,9 @@ def test_unrooted_basal_trifurcation_says_how_to_root(tmp_path, prefix):
 def test_custom_model_names_state_the_trait_lacks():
     trait = trait_from_mapping("habitat", {"a": "land", "b": "water", "c": "land"})
     with pytest.raises(InputError) as info:
-        build_model("custom", trait.states, {"land -> air": "fly", "land <-> water": "swim"},
-                    name="flight")
+        build_model(
+            "custom", trait.states, {"land -> air": "fly", "land <-> water": "swim"}, name="flight"
+        )
     assert "air" in str(info.value) and "flight" in str(info.value)
 
 

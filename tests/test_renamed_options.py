@@ -13,10 +13,12 @@ from mkforest.errors import InputError
 
 
 def test_new_names_run_end_to_end(tmp_path):
-    models = {"one_rate": {"kind": "equal", "root": "uniform"},
-              "mirror": {"kind": "symmetric", "root": "stationary"},
-              "free": {"kind": "unconstrained", "root": "data_weighted"},
-              "lit_root": {"kind": "equal", "applies_to": ["habitat"], "root": "litter"}}
+    models = {
+        "one_rate": {"kind": "equal", "root": "uniform"},
+        "mirror": {"kind": "symmetric", "root": "stationary"},
+        "free": {"kind": "unconstrained", "root": "data_weighted"},
+        "lit_root": {"kind": "equal", "applies_to": ["habitat"], "root": "litter"},
+    }
     cfg = tiny_config(tmp_path, models=models)
     proc = run_snakemake(tmp_path, cfg)
     assert proc.returncode == 0, proc.stderr[-3000:]
@@ -30,8 +32,10 @@ def test_new_names_run_end_to_end(tmp_path):
         assert word not in methods
 
 
-@pytest.mark.parametrize("old,new", [("flat", "uniform"), ("equilibrium", "stationary"),
-                                     ("conditional", "data_weighted")])
+@pytest.mark.parametrize(
+    "old,new",
+    [("flat", "uniform"), ("equilibrium", "stationary"), ("conditional", "data_weighted")],
+)
 def test_old_root_name_gets_one_sentence(tmp_path, old, new):
     cfg = tiny_config(tmp_path, models={"one_rate": {"kind": "equal", "root": old}})
     proc = run_snakemake(tmp_path, cfg, "--dry-run")
@@ -42,15 +46,21 @@ def test_old_root_name_gets_one_sentence(tmp_path, old, new):
 
 
 def test_old_kind_name_gets_one_sentence():
-    cfg = {"traits": {"file": "t.tsv", "taxon_column": "taxon", "columns": ["glow"]},
-           "trees": {"file": "t.nex"}, "models": {"free": {"kind": "all_different"}}}
-    with pytest.raises(InputError, match="models.free.kind is 'all_different': this model kind "
-                                         "is now called 'unconstrained'"):
+    cfg = {
+        "traits": {"file": "t.tsv", "taxon_column": "taxon", "columns": ["glow"]},
+        "trees": {"file": "t.nex"},
+        "models": {"free": {"kind": "all_different"}},
+    }
+    with pytest.raises(
+        InputError,
+        match="models.free.kind is 'all_different': this model kind is now called 'unconstrained'",
+    ):
         validate_config(cfg)
 
 
 def test_a_state_called_like_an_old_root_is_a_fixed_root():
     from mkforest.engine.models import check_root
+
     assert check_root("flat", ("flat", "coiled"), "models.x") == "flat"
     with pytest.raises(InputError, match="now called 'uniform'"):
         check_root("flat", ("round", "coiled"), "models.x")

@@ -82,16 +82,24 @@ run_job(snakemake, main)
 def test_a_job_killed_mid_write_leaves_no_file_under_an_output_name(tmp_path):
     (tmp_path / "Snakefile").write_text(KILLER)
     (tmp_path / "write.py").write_text(WRITER.format(repo=str(REPO)))
-    cmd = [SNAKEMAKE, "--snakefile", str(tmp_path / "Snakefile"), "--cores", "1",
-           "--directory", str(tmp_path)]
+    cmd = [
+        SNAKEMAKE,
+        "--snakefile",
+        str(tmp_path / "Snakefile"),
+        "--cores",
+        "1",
+        "--directory",
+        str(tmp_path),
+    ]
     env = dict(os.environ, PYTHONPATH=str(REPO), DIE_MIDWAY="1")
-    died = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=300,
-                          start_new_session=True)
+    died = subprocess.run(
+        cmd, env=env, capture_output=True, text=True, timeout=300, start_new_session=True
+    )
     assert died.returncode == -signal.SIGKILL
     out = tmp_path / "out"
     assert not (out / "p1.a.tsv").exists() and not (out / "p1.b.tsv").exists()
     half = list(out.glob(".mkforest-writing-*/p1.b.tsv"))
-    assert len(half) == 1 and len(half[0].read_text().splitlines()) == 50   # it died mid-write
+    assert len(half) == 1 and len(half[0].read_text().splitlines()) == 50  # it died mid-write
     env.pop("DIE_MIDWAY")
     for extra in (["--unlock"], []):
         proc = subprocess.run(cmd + extra, env=env, capture_output=True, text=True, timeout=300)
@@ -104,8 +112,16 @@ def test_a_job_killed_mid_write_leaves_no_file_under_an_output_name(tmp_path):
 def test_a_failing_job_leaves_neither_output_nor_staging_folder(tmp_path):
     (tmp_path / "Snakefile").write_text(KILLER)
     (tmp_path / "write.py").write_text(WRITER.format(repo=str(REPO)))
-    cmd = [SNAKEMAKE, "--snakefile", str(tmp_path / "Snakefile"), "--cores", "1",
-           "--directory", str(tmp_path), "--keep-going"]
+    cmd = [
+        SNAKEMAKE,
+        "--snakefile",
+        str(tmp_path / "Snakefile"),
+        "--cores",
+        "1",
+        "--directory",
+        str(tmp_path),
+        "--keep-going",
+    ]
     env = dict(os.environ, PYTHONPATH=str(REPO), FAIL_MIDWAY="1")
     failed = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=300)
     assert failed.returncode != 0 and "a bug in the middle of a write" in failed.stderr
@@ -115,10 +131,22 @@ def test_a_failing_job_leaves_neither_output_nor_staging_folder(tmp_path):
 
 def fit_jobs(out: Path) -> tuple:
     """(started, finished) fit outputs: a job's log appears when it starts, its table when it ends."""
-    started = {p.relative_to(out / "logs" / "fit").with_suffix("").as_posix()
-               for p in (out / "logs" / "fit").rglob("chunk_*.log")} if (out / "logs" / "fit").is_dir() else set()
-    finished = {p.relative_to(out / "fits").as_posix().removesuffix(".fits.tsv")
-                for p in (out / "fits").rglob("chunk_*.fits.tsv")} if (out / "fits").is_dir() else set()
+    started = (
+        {
+            p.relative_to(out / "logs" / "fit").with_suffix("").as_posix()
+            for p in (out / "logs" / "fit").rglob("chunk_*.log")
+        }
+        if (out / "logs" / "fit").is_dir()
+        else set()
+    )
+    finished = (
+        {
+            p.relative_to(out / "fits").as_posix().removesuffix(".fits.tsv")
+            for p in (out / "fits").rglob("chunk_*.fits.tsv")
+        }
+        if (out / "fits").is_dir()
+        else set()
+    )
     return started, finished
 
 
@@ -126,14 +154,28 @@ def stop_during_fitting(work: Path, cfg: Path, sig, timeout: float = 600) -> set
     """Start the workflow and send ``sig`` to its process group while a fit job runs after
     another has finished; returns the fit jobs that were running then."""
     out = work / "results" / RUN
-    cmd = [SNAKEMAKE, "--snakefile", str(REPO / "Snakefile"), "--directory", str(work),
-           "--configfile", str(cfg), "--cores", "2"]
+    cmd = [
+        SNAKEMAKE,
+        "--snakefile",
+        str(REPO / "Snakefile"),
+        "--directory",
+        str(work),
+        "--configfile",
+        str(cfg),
+        "--cores",
+        "2",
+    ]
     env = dict(os.environ, PYTHONPATH=str(REPO))
     # Ctrl-C as in a terminal: a shell that starts the tests in the background leaves
     # SIGINT ignored, the child would inherit that, and Snakemake would never see the signal
-    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env,
-                            start_new_session=True,
-                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    proc = subprocess.Popen(
+        cmd,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        env=env,
+        start_new_session=True,
+        preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL),
+    )
     deadline = time.monotonic() + timeout
     try:
         while time.monotonic() < deadline:
@@ -146,7 +188,7 @@ def stop_during_fitting(work: Path, cfg: Path, sig, timeout: float = 600) -> set
             time.sleep(0.05)
         else:
             pytest.fail("no fit job was seen running")
-        proc.wait(timeout=120)          # after SIGINT, Snakemake stops its jobs and exits
+        proc.wait(timeout=120)  # after SIGINT, Snakemake stops its jobs and exits
     finally:
         try:
             os.killpg(proc.pid, signal.SIGKILL)
@@ -170,7 +212,7 @@ def same_as_uninterrupted(base: Path, work: Path) -> None:
 
 @pytest.mark.slow
 def test_interrupted_run_resumes_with_the_same_command(tmp_path_factory, tmp_path):
-    base, _ = finished_run(tmp_path_factory)                 # the uninterrupted run
+    base, _ = finished_run(tmp_path_factory)  # the uninterrupted run
     work = tmp_path / "work"
     cfg = prepare_workdir(work, base_config())
     assert stop_during_fitting(work, cfg, signal.SIGINT)
@@ -182,7 +224,7 @@ def test_interrupted_run_resumes_with_the_same_command(tmp_path_factory, tmp_pat
 
 @pytest.mark.slow
 def test_killed_run_resumes_to_the_tables_of_an_uninterrupted_run(tmp_path_factory, tmp_path):
-    base, _ = finished_run(tmp_path_factory)                 # the uninterrupted run
+    base, _ = finished_run(tmp_path_factory)  # the uninterrupted run
     work = tmp_path / "work"
     cfg = prepare_workdir(work, base_config())
     interrupted = stop_during_fitting(work, cfg, signal.SIGKILL)
@@ -191,7 +233,7 @@ def test_killed_run_resumes_to_the_tables_of_an_uninterrupted_run(tmp_path_facto
     assert not (out / "tables" / "fits.tsv").exists()
     # whatever the kill interrupted, every fit table under its final name is whole
     for table in (out / "fits").rglob("*.tsv"):
-        assert len(table.read_text().splitlines()) >= 1 + 5, table    # header + 5 trees
+        assert len(table.read_text().splitlines()) >= 1 + 5, table  # header + 5 trees
 
     locked = run_snakemake(work, cfg, "--profile", str(LAPTOP))
     assert locked.returncode != 0 and "--unlock" in locked.stderr

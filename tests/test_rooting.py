@@ -24,15 +24,17 @@ from mkforest.errors import InputError
 def _unrooted_text(rng, n_tips):
     """A random tree with a basal trifurcation (the shape of a sample from a non-clock analysis)."""
     text = random_newick(rng, n_tips, p_polytomy=0.0, p_zero=0.0)
-    tree = dendropy.Tree.get(data=text, schema="newick", rooting="force-unrooted",
-                             preserve_underscores=True)
-    tree.deroot()   # the root's two branches become one; the base splits three ways
+    tree = dendropy.Tree.get(
+        data=text, schema="newick", rooting="force-unrooted", preserve_underscores=True
+    )
+    tree.deroot()  # the root's two branches become one; the base splits three ways
     return tree.as_string(schema="newick", suppress_rooting=True).strip()
 
 
 def _distances(newick_text, ns):
-    tree = dendropy.Tree.get(data=newick_text, schema="newick", taxon_namespace=ns,
-                             preserve_underscores=True)
+    tree = dendropy.Tree.get(
+        data=newick_text, schema="newick", taxon_namespace=ns, preserve_underscores=True
+    )
     pdm = tree.phylogenetic_distance_matrix()
     taxa = sorted(ns, key=lambda t: t.label)
     return {(a.label, b.label): pdm.distance(a, b) for a, b in itertools.combinations(taxa, 2)}
@@ -49,8 +51,13 @@ def test_outgroup_rooting_keeps_the_tree_and_puts_the_outgroup_at_the_base(tmp_p
     rng = np.random.default_rng(seed)
     text = _unrooted_text(rng, 9)
     ns = dendropy.TaxonNamespace()
-    original = dendropy.Tree.get(data=text, schema="newick", taxon_namespace=ns,
-                                 rooting="force-unrooted", preserve_underscores=True)
+    original = dendropy.Tree.get(
+        data=text,
+        schema="newick",
+        taxon_namespace=ns,
+        rooting="force-unrooted",
+        preserve_underscores=True,
+    )
     # an outgroup that is a clade of the unrooted tree: the tips below a random internal
     # node, seen from a tip hung at the base
     rooted_copy = dendropy.Tree(original)
@@ -65,8 +72,13 @@ def test_outgroup_rooting_keeps_the_tree_and_puts_the_outgroup_at_the_base(tmp_p
     kids = [sets[c] for c in ours.children_of(ours.root)]
     assert frozenset(outgroup) in kids
     # 2. the same unrooted tree (DendroPy's symmetric difference of bipartitions)
-    mine = dendropy.Tree.get(data=ours_text, schema="newick", taxon_namespace=ns,
-                             rooting="force-unrooted", preserve_underscores=True)
+    mine = dendropy.Tree.get(
+        data=ours_text,
+        schema="newick",
+        taxon_namespace=ns,
+        rooting="force-unrooted",
+        preserve_underscores=True,
+    )
     assert treecompare.symmetric_difference(original, mine) == 0
     # 3. every tip-to-tip path length unchanged (DendroPy's distance matrix)
     before, after = _distances(text, ns), _distances(ours_text, ns)
@@ -89,8 +101,13 @@ def test_midpoint_rooting_matches_dendropy_and_halves_the_longest_path(tmp_path,
     assert depth.max() == pytest.approx(diameter / 2, abs=1e-9)
     assert np.sort(depth)[-2] == pytest.approx(diameter / 2, abs=1e-9)
     # DendroPy's own midpoint rooting gives the same root-to-tip distances
-    ref = dendropy.Tree.get(data=text, schema="newick", taxon_namespace=ns,
-                            rooting="force-unrooted", preserve_underscores=True)
+    ref = dendropy.Tree.get(
+        data=text,
+        schema="newick",
+        taxon_namespace=ns,
+        rooting="force-unrooted",
+        preserve_underscores=True,
+    )
     ref.reroot_at_midpoint(update_bipartitions=True)
     ref_depth = {lf.taxon.label: lf.distance_from_root() for lf in ref.leaf_node_iter()}
     for v, label in enumerate(ours.tip_labels):

@@ -6,12 +6,18 @@ from mkforest.data.config import fit_job_weight
 
 
 def config():
-    return {"models": {"one": {"kind": "equal"}, "mirrored": {"kind": "symmetric"},
-                       "free": {"kind": "unconstrained"}, "own": {"kind": "custom"},
-                       "free2": {"kind": "unconstrained", "hidden_classes": 2},
-                       "stretched": {"kind": "equal", "branches": "kappa"},
-                       "per_event": {"kind": "equal", "branches": "unit"}},
-            "pairs": {"shells": {"traits": ["a", "b"]}}}
+    return {
+        "models": {
+            "one": {"kind": "equal"},
+            "mirrored": {"kind": "symmetric"},
+            "free": {"kind": "unconstrained"},
+            "own": {"kind": "custom"},
+            "free2": {"kind": "unconstrained", "hidden_classes": 2},
+            "stretched": {"kind": "equal", "branches": "kappa"},
+            "per_event": {"kind": "equal", "branches": "unit"},
+        },
+        "pairs": {"shells": {"traits": ["a", "b"]}},
+    }
 
 
 def test_costlier_models_start_first():
@@ -30,8 +36,10 @@ def test_the_config_check_imports_no_compiler_or_scipy():
     import subprocess
     import sys
 
-    code = ("import sys; import mkforest.jobs.analyses, mkforest.data.config; "
-            "print(sorted(m for m in ('numba', 'scipy', 'matplotlib') if m in sys.modules))")
+    code = (
+        "import sys; import mkforest.jobs.analyses, mkforest.data.config; "
+        "print(sorted(m for m in ('numba', 'scipy', 'matplotlib') if m in sys.modules))"
+    )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
 
@@ -42,9 +50,11 @@ def test_table_figure_and_methods_jobs_import_no_compiler_or_scipy():
     import subprocess
     import sys
 
-    code = ("import sys; import mkforest.engine.summarise, mkforest.engine.branch_support, "
-            "mkforest.report.plots, mkforest.report.methods; "
-            "print(sorted(m for m in ('numba', 'scipy') if m in sys.modules))")
+    code = (
+        "import sys; import mkforest.engine.summarise, mkforest.engine.branch_support, "
+        "mkforest.report.plots, mkforest.report.methods; "
+        "print(sorted(m for m in ('numba', 'scipy') if m in sys.modules))"
+    )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
 

@@ -26,14 +26,21 @@ REPO_SNAKEFILE = REPO / "Snakefile"
 @pytest.fixture(scope="module")
 def slurm_cluster(tmp_path_factory) -> Cluster:
     with one_node_slurm(tmp_path_factory.mktemp("slurm")) as cluster:
-        print(f"\nSLURM test cluster: install {cluster.install_seconds:.1f} s, "
-              f"bring-up {cluster.bringup_seconds:.1f} s")
+        print(
+            f"\nSLURM test cluster: install {cluster.install_seconds:.1f} s, "
+            f"bring-up {cluster.bringup_seconds:.1f} s"
+        )
         yield cluster
 
 
 def run_workflow_on_slurm(
-    configfile: Path, workdir: Path, timeout: float, *, cluster: Cluster,
-    snakefile: Path = REPO_SNAKEFILE, extra_args: tuple[str, ...] = (),
+    configfile: Path,
+    workdir: Path,
+    timeout: float,
+    *,
+    cluster: Cluster,
+    snakefile: Path = REPO_SNAKEFILE,
+    extra_args: tuple[str, ...] = (),
 ) -> SnakemakeRun:
     """Run ``snakefile`` with ``configfile`` in ``workdir`` through profiles/slurm on ``cluster``.
 
@@ -45,26 +52,42 @@ def run_workflow_on_slurm(
     """
     workdir.mkdir(parents=True, exist_ok=True)
     args = [
-        "--snakefile", str(snakefile), "--configfile", str(configfile),
-        "--profile", str(SLURM_PROFILE), *extra_args,
+        "--snakefile",
+        str(snakefile),
+        "--configfile",
+        str(configfile),
+        "--profile",
+        str(SLURM_PROFILE),
+        *extra_args,
     ]
-    return run_snakemake_bounded(args, cwd=workdir, timeout=timeout, env=cluster.env,
-                                 log=workdir / "snakemake-slurm.log")
+    return run_snakemake_bounded(
+        args, cwd=workdir, timeout=timeout, env=cluster.env, log=workdir / "snakemake-slurm.log"
+    )
 
 
 def run_workflow_locally(
-    configfile: Path, workdir: Path, timeout: float, *,
-    snakefile: Path = REPO_SNAKEFILE, extra_args: tuple[str, ...] = (),
+    configfile: Path,
+    workdir: Path,
+    timeout: float,
+    *,
+    snakefile: Path = REPO_SNAKEFILE,
+    extra_args: tuple[str, ...] = (),
 ) -> SnakemakeRun:
     """The same run through profiles/laptop, for comparison with a SLURM run."""
     workdir.mkdir(parents=True, exist_ok=True)
     env = {k: v for k, v in os.environ.items() if not k.startswith("SLURM")}
     args = [
-        "--snakefile", str(snakefile), "--configfile", str(configfile),
-        "--profile", str(LAPTOP_PROFILE), *extra_args,
+        "--snakefile",
+        str(snakefile),
+        "--configfile",
+        str(configfile),
+        "--profile",
+        str(LAPTOP_PROFILE),
+        *extra_args,
     ]
-    return run_snakemake_bounded(args, cwd=workdir, timeout=timeout, env=env,
-                                 log=workdir / "snakemake-local.log")
+    return run_snakemake_bounded(
+        args, cwd=workdir, timeout=timeout, env=env, log=workdir / "snakemake-local.log"
+    )
 
 
 # A throwaway workflow: two parts made in parallel, then joined. Each job writes
@@ -109,8 +132,13 @@ def _write_workflow(folder: Path, snakefile_text: str, word: str) -> tuple[Path,
 def test_cluster_runs_a_batch_job(slurm_cluster, tmp_path):
     out = tmp_path / "job.out"
     result = slurm_cluster.run(
-        "sbatch", "--wait", "--parsable", f"--output={out}",
-        "--wrap", "echo job $SLURM_JOB_ID on $SLURMD_NODENAME", timeout=60,
+        "sbatch",
+        "--wait",
+        "--parsable",
+        f"--output={out}",
+        "--wrap",
+        "echo job $SLURM_JOB_ID on $SLURMD_NODENAME",
+        timeout=60,
     )
     job_id = result.stdout.strip().split(";")[0]
     assert job_id.isdigit(), result.stdout
@@ -119,8 +147,9 @@ def test_cluster_runs_a_batch_job(slurm_cluster, tmp_path):
 
 def test_throwaway_workflow_runs_through_slurm_profile(slurm_cluster, tmp_path):
     snakefile, configfile = _write_workflow(tmp_path / "flow", THROWAWAY_SNAKEFILE, "spruce")
-    run = run_workflow_on_slurm(configfile, tmp_path / "run", timeout=180,
-                                cluster=slurm_cluster, snakefile=snakefile)
+    run = run_workflow_on_slurm(
+        configfile, tmp_path / "run", timeout=180, cluster=slurm_cluster, snakefile=snakefile
+    )
     print(f"throwaway workflow on SLURM: {run.seconds:.1f} s")
     assert not run.timed_out, f"timed out after {run.seconds:.0f} s:\n{run.output()}"
     assert run.returncode == 0, run.output()
@@ -139,10 +168,18 @@ def test_throwaway_workflow_runs_through_slurm_profile(slurm_cluster, tmp_path):
 
 def test_failed_job_is_reported_not_waited_on(slurm_cluster, tmp_path):
     snakefile, configfile = _write_workflow(tmp_path / "flow", FAILING_SNAKEFILE, "birch")
-    run = run_workflow_on_slurm(configfile, tmp_path / "run", timeout=180, cluster=slurm_cluster,
-                                snakefile=snakefile, extra_args=("--retries", "0"))
+    run = run_workflow_on_slurm(
+        configfile,
+        tmp_path / "run",
+        timeout=180,
+        cluster=slurm_cluster,
+        snakefile=snakefile,
+        extra_args=("--retries", "0"),
+    )
     output = run.output(200)
-    assert not run.timed_out, f"Snakemake did not notice the failed job in {run.seconds:.0f} s:\n{output}"
+    assert not run.timed_out, (
+        f"Snakemake did not notice the failed job in {run.seconds:.0f} s:\n{output}"
+    )
     assert run.returncode != 0, output
     assert "Error in rule breaks" in output, output
     assert not (tmp_path / "run" / "never.txt").exists()
@@ -183,10 +220,14 @@ def test_slurm_run_tables_equal_local_run(slurm_cluster, tmp_path):
     run_name = yaml.safe_load(configfile.read_text())["run"]
     local = run_workflow_locally(configfile, tmp_path / "local", timeout=900)
     assert local.returncode == 0 and not local.timed_out, local.output()
-    slurm = run_workflow_on_slurm(configfile, tmp_path / "slurm", timeout=1500, cluster=slurm_cluster)
+    slurm = run_workflow_on_slurm(
+        configfile, tmp_path / "slurm", timeout=1500, cluster=slurm_cluster
+    )
     print(f"real workflow: local {local.seconds:.0f} s, SLURM {slurm.seconds:.0f} s")
     assert slurm.returncode == 0 and not slurm.timed_out, slurm.output()
-    assert "has been submitted with SLURM jobid" in slurm.log.read_text(), "no job went through SLURM"
+    assert "has been submitted with SLURM jobid" in slurm.log.read_text(), (
+        "no job went through SLURM"
+    )
 
     local_tables = tmp_path / "local" / "results" / run_name / "tables"
     slurm_tables = tmp_path / "slurm" / "results" / run_name / "tables"
@@ -203,8 +244,13 @@ def test_request_larger_than_every_node_stops_before_submission(slurm_cluster, t
     """Node size set above the test node's cores: the run stops before anything is
     submitted, with one sentence naming the setting (sinfo reports the node)."""
     too_many = slurm_cluster.cpus * 8
-    run = run_workflow_on_slurm(SMALL_CONFIGS[0], tmp_path / "big", timeout=300,
-                                cluster=slurm_cluster, extra_args=("--cores", str(too_many)))
+    run = run_workflow_on_slurm(
+        SMALL_CONFIGS[0],
+        tmp_path / "big",
+        timeout=300,
+        cluster=slurm_cluster,
+        extra_args=("--cores", str(too_many)),
+    )
     output = run.output(200)
     assert not run.timed_out, f"timed out after {run.seconds:.0f} s:\n{output}"
     assert run.returncode != 0, output

@@ -47,8 +47,14 @@ def template_values(value, schema: dict, prefix: str = "") -> dict:
         return out
     forms = _objects(schema)
     props = {k: s for f in forms for k, s in f.get("properties", {}).items()}
-    extra = next((f["additionalProperties"] for f in forms
-                  if isinstance(f.get("additionalProperties"), dict)), None)
+    extra = next(
+        (
+            f["additionalProperties"]
+            for f in forms
+            if isinstance(f.get("additionalProperties"), dict)
+        ),
+        None,
+    )
     for key, sub_value in value.items():
         if key in props:
             path, sub_schema = f"{prefix}{key}", props[key]
@@ -78,8 +84,10 @@ def template_problems(schema: dict, text: str) -> tuple:
             for value in found.get(key, []):
                 example_of_empty = sub["default"] in ({}, []) and value not in ({}, [])
                 if value != sub["default"] and not example_of_empty:
-                    wrong.append(f"'{key}' is {value!r} in the template, but its default in the "
-                                 f"schema is {sub['default']!r}")
+                    wrong.append(
+                        f"'{key}' is {value!r} in the template, but its default in the "
+                        f"schema is {sub['default']!r}"
+                    )
     return missing, wrong
 
 
@@ -91,7 +99,9 @@ def test_every_schema_key_is_in_the_template_with_its_default():
     assert not missing, "\n".join(
         f"config/template.yaml does not document key '{k}' (it is in "
         "workflow/schemas/config.schema.yaml): add it to the template, set to its default, "
-        "with a comment saying what it does." for k in missing)
+        "with a comment saying what it does."
+        for k in missing
+    )
     assert not wrong, "\n".join(f"config/template.yaml: key {w}; write the default." for w in wrong)
 
 
@@ -104,8 +114,12 @@ def test_drift_check_names_a_new_key_and_a_wrong_default():
     in the template, are each reported by name."""
     schema = yaml.safe_load(SCHEMA.read_text())
     schema["properties"]["models"]["additionalProperties"]["properties"]["made_up"] = {
-        "type": "string", "default": "x"}
+        "type": "string",
+        "default": "x",
+    }
     text = TEMPLATE.read_text().replace("  per_job: auto\n", "  per_job: 7\n")
     missing, wrong = template_problems(schema, text)
     assert missing == ["models.<name>.made_up"]
-    assert wrong == ["'trees.per_job' is 7 in the template, but its default in the schema is 'auto'"]
+    assert wrong == [
+        "'trees.per_job' is 7 in the template, but its default in the schema is 'auto'"
+    ]

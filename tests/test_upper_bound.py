@@ -49,8 +49,9 @@ def test_alternating_states_drive_the_equal_rate_to_the_upper_bound():
     rates = pd.DataFrame(rates)
     assert (rates["at_bound"] == "upper").all()
     np.testing.assert_allclose(rates["rate"], UPPER / tree.height, rtol=1e-9)
-    summary = rate_summary(rates, averaged_rates(
-        pd.DataFrame(fits).assign(weight=1.0), rates)).set_index(["model", "from_state", "to_state"])
+    summary = rate_summary(
+        rates, averaged_rates(pd.DataFrame(fits).assign(weight=1.0), rates)
+    ).set_index(["model", "from_state", "to_state"])
     row = summary.loc[("one_rate", "small", "medium")]
     # the bound is not an estimate: no median, no interval; the limit is given instead
     assert row["status"] == "unbounded" and row["n_at_upper"] == 1 and row["n_estimated"] == 0
@@ -69,8 +70,9 @@ def test_rates_that_only_have_a_ratio_are_flagged_with_the_bound():
     must be reported as bound-limited, not as estimates."""
     rng = np.random.default_rng(0)
     tree = parse_newick(yule_newick(rng, 24, height=1.0))
-    trait = trait_from_mapping("glow", {t: ("dull", "glowing")[i % 2]
-                                        for i, t in enumerate(tree.tip_labels)})
+    trait = trait_from_mapping(
+        "glow", {t: ("dull", "glowing")[i % 2] for i, t in enumerate(tree.tip_labels)}
+    )
     model = build_model("unconstrained", trait.states, None, "free")
     fits, rates = fit_chunk([tree], trait, model, "uniform", "glow", seed=1, starts=2)
     n0 = sum(i % 2 == 0 for i in range(tree.n_tips))
@@ -80,8 +82,9 @@ def test_rates_that_only_have_a_ratio_are_flagged_with_the_bound():
     assert set(fits[0]["at_upper"].split(",")) == {"dull->glowing", "glowing->dull"}
     assert all(r["at_bound"] == "upper" for r in rates)
     # data with a real signal: rates inside the bounds stay estimates
-    clustered = trait_from_mapping("glow", {t: ("dull", "glowing")[i < 12]
-                                            for i, t in enumerate(tree.tip_labels)})
+    clustered = trait_from_mapping(
+        "glow", {t: ("dull", "glowing")[i < 12] for i, t in enumerate(tree.tip_labels)}
+    )
     fits, rates = fit_chunk([tree], clustered, model, "uniform", "glow", seed=1, starts=2)
     assert fits[0]["at_upper"] == "" and all(r["at_bound"] != "upper" for r in rates)
 
@@ -97,6 +100,7 @@ def test_estimates_whose_interval_reaches_the_bound_are_not_reported_as_bounded(
     (fit,) = fits
     assert fit["at_upper"] == "" and fit["open_upper"] != ""
     from mkforest.engine.fitting import LogLikelihood
+
     f = LogLikelihood(tree, trait.tip_partials(tree), model)
     r = pd.DataFrame(rates)
     opened = set(fit["open_upper"].split(","))
@@ -106,25 +110,37 @@ def test_estimates_whose_interval_reaches_the_bound_are_not_reported_as_bounded(
     scaled = x.copy()
     scaled[moved] *= (UPPER / tree.height) / x[moved].max()
     assert f(scaled) > fit["log_likelihood"] - chi2.isf(0.05, 1) / 2
-    assert fit["log_likelihood"] >= f(scaled) - 1e-9       # the estimate is interior
+    assert fit["log_likelihood"] >= f(scaled) - 1e-9  # the estimate is interior
     summary = rate_summary(r, averaged_rates(pd.DataFrame(fits).assign(weight=1.0), r))
-    row = summary[(summary["model"] == "free") & summary.apply(
-        lambda q: f"{q['from_state']}->{q['to_state']}" in opened, axis=1)].iloc[0]
+    row = summary[
+        (summary["model"] == "free")
+        & summary.apply(lambda q: f"{q['from_state']}->{q['to_state']}" in opened, axis=1)
+    ].iloc[0]
     assert row["status"] == "unbounded" and row["n_at_upper"] == 0 and np.isnan(row["median_rate"])
 
 
 def _rates(values, bounds, model="free", a="x", b="y"):
-    return pd.DataFrame({"analysis": "t", "model": model, "tree": range(len(values)),
-                         "from_state": a, "to_state": b, "rate": values, "parameter": "q",
-                         "at_bound": bounds})
+    return pd.DataFrame(
+        {
+            "analysis": "t",
+            "model": model,
+            "tree": range(len(values)),
+            "from_state": a,
+            "to_state": b,
+            "rate": values,
+            "parameter": "q",
+            "at_bound": bounds,
+        }
+    )
 
 
 def test_rate_summary_keeps_bound_limited_trees_out_of_the_interval():
     values = [0.5, 0.7, 0.9, 1.1, 0.000001, 9000.0, 8000.0, 600.0]
     bounds = ["", "", "", "", "lower", "upper", "upper", "open"]
     rates = _rates(values, bounds)
-    row = rate_summary(rates, averaged_rates(pd.DataFrame(columns=["analysis", "model", "tree",
-                                                                   "weight"]), rates)).iloc[0]
+    row = rate_summary(
+        rates, averaged_rates(pd.DataFrame(columns=["analysis", "model", "tree", "weight"]), rates)
+    ).iloc[0]
     estimated = np.array(values[:5])
     assert row["n_trees"] == 8 and row["n_estimated"] == 5 and row["n_unbounded"] == 3
     assert row["n_at_upper"] == 2
@@ -140,15 +156,26 @@ def test_averaged_rate_is_flagged_when_the_bound_shapes_it():
     # tree 0: the bound-limited model carries 20% of the weight; tree 1: 1e-12 (its
     # part, 1e-12 x 9000, is far below BOUND_SHARE of the average); tree 2: 1e-4, whose
     # part 0.9 is most of the average
-    fits = pd.DataFrame({"analysis": "t", "model": ["free", "one"] * 3,
-                         "tree": [0, 0, 1, 1, 2, 2],
-                         "weight": [0.2, 0.8, 1e-12, 1 - 1e-12, 1e-4, 1 - 1e-4]})
-    rates = pd.concat([_rates([9000.0, 9000.0, 9000.0], ["upper"] * 3, "free"),
-                       _rates([0.4, 0.4, 0.4], [""] * 3, "one")], ignore_index=True)
+    fits = pd.DataFrame(
+        {
+            "analysis": "t",
+            "model": ["free", "one"] * 3,
+            "tree": [0, 0, 1, 1, 2, 2],
+            "weight": [0.2, 0.8, 1e-12, 1 - 1e-12, 1e-4, 1 - 1e-4],
+        }
+    )
+    rates = pd.concat(
+        [
+            _rates([9000.0, 9000.0, 9000.0], ["upper"] * 3, "free"),
+            _rates([0.4, 0.4, 0.4], [""] * 3, "one"),
+        ],
+        ignore_index=True,
+    )
     avg = averaged_rates(fits, rates).set_index("tree")
-    np.testing.assert_allclose(avg["rate"], [0.2 * 9000 + 0.8 * 0.4,
-                                             1e-12 * 9000 + (1 - 1e-12) * 0.4,
-                                             1e-4 * 9000 + (1 - 1e-4) * 0.4])
+    np.testing.assert_allclose(
+        avg["rate"],
+        [0.2 * 9000 + 0.8 * 0.4, 1e-12 * 9000 + (1 - 1e-12) * 0.4, 1e-4 * 9000 + (1 - 1e-4) * 0.4],
+    )
     np.testing.assert_allclose(avg["weight_unbounded"], [0.2, 1e-12, 1e-4])
     assert avg["unbounded"].tolist() == [True, False, True]
     assert 1e-12 * 9000 < BOUND_SHARE * avg.loc[1, "rate"]
@@ -159,12 +186,22 @@ def test_averaged_rate_is_flagged_when_the_bound_shapes_it():
 
 def _chunk(model_at_upper, map_model, counts):
     T, M = map_model.shape
-    return dict(tree=np.arange(T), counts=counts, dwell=np.full((T, M, 2), 1.0),
-                map_model=map_model, model_at_upper=model_at_upper,
-                weights=np.ones((T, 2)), unconverged_weight=np.zeros(T),
-                bound_weight=model_at_upper.any(axis=1).astype(float),
-                skipped=np.zeros(T, dtype=bool), states=["off", "on"], models=["one", "free"],
-                clades=[], choice="average", choice_note="")
+    return dict(
+        tree=np.arange(T),
+        counts=counts,
+        dwell=np.full((T, M, 2), 1.0),
+        map_model=map_model,
+        model_at_upper=model_at_upper,
+        weights=np.ones((T, 2)),
+        unconverged_weight=np.zeros(T),
+        bound_weight=model_at_upper.any(axis=1).astype(float),
+        skipped=np.zeros(T, dtype=bool),
+        states=["off", "on"],
+        models=["one", "free"],
+        clades=[],
+        choice="average",
+        choice_note="",
+    )
 
 
 def test_maps_under_a_bound_limited_fit_are_left_out_and_counted():
@@ -172,7 +209,7 @@ def test_maps_under_a_bound_limited_fit_are_left_out_and_counted():
     map_model = np.array([[0, 0, 1, 1], [0, 0, 0, 0], [1, 1, 1, 1]], dtype=np.int16)
     model_at_upper = np.array([[False, True], [False, True], [False, True]])
     counts = np.zeros((T, M, 2, 2), dtype=np.int32)
-    counts[..., 0, 1] = np.where(map_model == 1, 1848, 2)    # bound-limited maps count 1,848
+    counts[..., 0, 1] = np.where(map_model == 1, 1848, 2)  # bound-limited maps count 1,848
     trans, times, per_tree = transition_tables("size", _chunk(model_at_upper, map_model, counts), 3)
     row = trans[(trans["from_state"] == "off")].iloc[0]
     assert row["n_maps"] == 6 and row["n_maps_at_upper"] == 6
@@ -183,24 +220,46 @@ def test_maps_under_a_bound_limited_fit_are_left_out_and_counted():
     assert np.isnan(pt.loc[2, "mean_count"])
     assert (times["n_maps"] == 6).all()
     # every map bound-limited: no numbers at all, and the caution says why
-    trans, _, _ = transition_tables("size", _chunk(model_at_upper, np.ones((T, M), np.int16),
-                                                   counts), 3)
+    trans, _, _ = transition_tables(
+        "size", _chunk(model_at_upper, np.ones((T, M), np.int16), counts), 3
+    )
     assert trans["mean_count"].isna().all() and (trans["n_maps"] == 0).all()
     assert "every map (12)" in trans["caution"].iloc[0]
 
 
 def test_methods_words_never_give_the_bound_as_a_rate():
-    est = dict(from_state="a", to_state="b", n_trees=5, n_estimated=5, n_unbounded=0,
-               n_at_upper=0, median_rate=0.5, rate_low95=0.25, rate_high95=0.75,
-               at_upper_min=np.nan)
+    est = dict(
+        from_state="a",
+        to_state="b",
+        n_trees=5,
+        n_estimated=5,
+        n_unbounded=0,
+        n_at_upper=0,
+        median_rate=0.5,
+        rate_low95=0.25,
+        rate_high95=0.75,
+        at_upper_min=np.nan,
+    )
     assert rate_words(est) == "a→b 0.50 (0.25 to 0.75)"
     part = {**est, "n_estimated": 2, "n_unbounded": 3, "n_at_upper": 2, "at_upper_min": 8256.0}
-    assert rate_words(part) == ("a→b 0.50 (0.25 to 0.75) over the 2 trees where the data bound "
-                                "it; not bounded above on 3, at the upper bound (≥ 8256.00) on 2")
-    every = {**est, "n_estimated": 0, "n_unbounded": 5, "n_at_upper": 5, "median_rate": np.nan,
-             "rate_low95": np.nan, "rate_high95": np.nan, "at_upper_min": 8256.0}
-    assert rate_words(every) == ("a→b not bounded above by the data on any tree, at the upper "
-                                 "bound (≥ 8256.00) on 5; not estimable from these data")
+    assert rate_words(part) == (
+        "a→b 0.50 (0.25 to 0.75) over the 2 trees where the data bound "
+        "it; not bounded above on 3, at the upper bound (≥ 8256.00) on 2"
+    )
+    every = {
+        **est,
+        "n_estimated": 0,
+        "n_unbounded": 5,
+        "n_at_upper": 5,
+        "median_rate": np.nan,
+        "rate_low95": np.nan,
+        "rate_high95": np.nan,
+        "at_upper_min": 8256.0,
+    }
+    assert rate_words(every) == (
+        "a→b not bounded above by the data on any tree, at the upper "
+        "bound (≥ 8256.00) on 5; not estimable from these data"
+    )
     open_only = {**every, "n_at_upper": 0, "at_upper_min": np.nan}
     assert "≥" not in rate_words(open_only) and "not estimable" in rate_words(open_only)
 

@@ -25,16 +25,22 @@ def _write_inputs(work):
     trees = [newick_from_arrays(labels, parent, length * c) for c in (1.0, 1.3, 0.8)]
     (work / "trees.nwk").write_text("\n".join(trees) + "\n")
     lines = ["taxon\tglow\thabitat"]
-    for i, t in enumerate(labels):       # tips 0..23 in the tree's own order
+    for i, t in enumerate(labels):  # tips 0..23 in the tree's own order
         lines.append(f"{t}\t{('dull', 'glowing')[i % 2]}\t{('litter', 'rock')[i >= 12]}")
     (work / "traits.tsv").write_text("\n".join(lines) + "\n")
-    config = {"run": "bounds", "seed": 5,
-              "trees": {"file": str(work / "trees.nwk"), "burnin": 0, "per_job": 3},
-              "traits": {"file": str(work / "traits.tsv"), "taxon_column": "taxon",
-                         "columns": ["glow", "habitat"]},
-              "models": {"one_rate": {"kind": "equal"}, "free": {"kind": "unconstrained"}},
-              "fitting": {"starts": 2},
-              "ancestral": {"enabled": True, "maps": 10}}
+    config = {
+        "run": "bounds",
+        "seed": 5,
+        "trees": {"file": str(work / "trees.nwk"), "burnin": 0, "per_job": 3},
+        "traits": {
+            "file": str(work / "traits.tsv"),
+            "taxon_column": "taxon",
+            "columns": ["glow", "habitat"],
+        },
+        "models": {"one_rate": {"kind": "equal"}, "free": {"kind": "unconstrained"}},
+        "fitting": {"starts": 2},
+        "ancestral": {"enabled": True, "maps": 10},
+    }
     path = work / "config.yaml"
     path.write_text(yaml.safe_dump(config, sort_keys=False))
     return path
@@ -46,8 +52,13 @@ def test_unbounded_rates_never_read_as_estimates(tmp_path):
     out = tmp_path / "results" / "bounds"
 
     def tsv(name):
-        return pd.read_csv(out / "tables" / f"{name}.tsv", sep="\t", keep_default_na=False,
-                           na_values=[""], dtype={"at_bound": str})
+        return pd.read_csv(
+            out / "tables" / f"{name}.tsv",
+            sep="\t",
+            keep_default_na=False,
+            na_values=[""],
+            dtype={"at_bound": str},
+        )
 
     rates = tsv("rates")
     glow = rates[rates["analysis"] == "glow"]
@@ -75,4 +86,4 @@ def test_unbounded_rates_never_read_as_estimates(tmp_path):
     bare = re.sub(r"≥ [0-9.]+", "", sec)
     for x in glow["rate"]:
         assert f"{x:.2f}" not in bare, x
-    assert not re.search(r"\d{3,}\.\d{2}", bare)     # no rate in the hundreds or more
+    assert not re.search(r"\d{3,}\.\d{2}", bare)  # no rate in the hundreds or more

@@ -12,11 +12,29 @@ from workflow_helpers import run_snakemake, tiny_config
 
 from mkforest.engine.compare import akaike_weights, information_criteria
 
-FIT_CONTRACT = ["analysis", "model", "tree", "n_taxa", "n_params", "log_likelihood", "aic", "aicc",
-                "bic", "converged"]
+FIT_CONTRACT = [
+    "analysis",
+    "model",
+    "tree",
+    "n_taxa",
+    "n_params",
+    "log_likelihood",
+    "aic",
+    "aicc",
+    "bic",
+    "converged",
+]
 RATE_CONTRACT = ["analysis", "model", "tree", "from_state", "to_state", "rate"]
-SUPPORT_CONTRACT = ["analysis", "model", "mean_weight", "median_weight", "fraction_best",
-                    "median_delta", "delta_low95", "delta_high95"]
+SUPPORT_CONTRACT = [
+    "analysis",
+    "model",
+    "mean_weight",
+    "median_weight",
+    "fraction_best",
+    "median_delta",
+    "delta_low95",
+    "delta_high95",
+]
 
 
 @pytest.fixture(scope="module")
@@ -30,8 +48,10 @@ def finished_run(tmp_path_factory):
 
 def tables(work):
     out = work / "results" / "tiny" / "tables"
-    return {name: pd.read_csv(out / f"{name}.tsv", sep="\t")
-            for name in ("fits", "rates", "model_support", "trees_used")}
+    return {
+        name: pd.read_csv(out / f"{name}.tsv", sep="\t")
+        for name in ("fits", "rates", "model_support", "trees_used")
+    }
 
 
 def test_result_contract(finished_run):
@@ -59,7 +79,9 @@ def test_criteria_and_weights_follow_their_formulas(finished_run):
     fits = tables(work)["fits"]
     for row in fits.to_dict("records"):
         ic = information_criteria(row["log_likelihood"], row["n_params"], row["n_taxa"])
-        assert row["aic"] == pytest.approx(2 * row["n_params"] - 2 * row["log_likelihood"], abs=1e-6)
+        assert row["aic"] == pytest.approx(
+            2 * row["n_params"] - 2 * row["log_likelihood"], abs=1e-6
+        )
         assert row["aicc"] == pytest.approx(ic["aicc"], abs=1e-6)
         assert row["bic"] == pytest.approx(ic["bic"], abs=1e-6)
     for _, g in fits.groupby(["analysis", "tree"]):
@@ -104,8 +126,9 @@ def test_same_result_whatever_the_chunking_and_cores(finished_run, tmp_path):
     work, _ = finished_run
     reference = (work / "results" / "tiny" / "tables" / "fits.tsv").read_text()
     shutil.copytree(work / "data", tmp_path / "data")
-    cfg = tiny_config(tmp_path, trees={"file": str(tmp_path / "data" / "trees.nex"),
-                                       "burnin": 1, "per_job": 1})
+    cfg = tiny_config(
+        tmp_path, trees={"file": str(tmp_path / "data" / "trees.nex"), "burnin": 1, "per_job": 1}
+    )
     proc = run_snakemake(tmp_path, cfg, cores=1)
     assert proc.returncode == 0, proc.stderr[-3000:]
     again = (tmp_path / "results" / "tiny" / "tables" / "fits.tsv").read_text()
@@ -139,8 +162,11 @@ def test_finished_results_survive_a_bad_edit(finished_run, tmp_path):
     fits = work / "results" / "tiny" / "tables" / "fits.tsv"
     before = fits.read_text()
     config = yaml.safe_load(cfg.read_text())
-    config["models"]["bad"] = {"kind": "custom", "applies_to": ["glow"],
-                               "transitions": {"dull -> nowhere": "x"}}
+    config["models"]["bad"] = {
+        "kind": "custom",
+        "applies_to": ["glow"],
+        "transitions": {"dull -> nowhere": "x"},
+    }
     cfg2 = tmp_path / "bad.yaml"
     cfg2.write_text(yaml.safe_dump(config))
     proc = run_snakemake(work, cfg2)

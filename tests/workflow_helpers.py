@@ -24,9 +24,12 @@ def tiny_config(workdir: Path, **overrides) -> Path:
         "run": "tiny",
         "seed": 11,
         "trees": {"file": str(data / "trees.nex"), "burnin": 1, "per_job": 2},
-        "traits": {"file": str(data / "traits.tsv"), "taxon_column": "taxon",
-                   "columns": ["glow", "habitat"],
-                   "order": {"habitat": ["litter", "rock", "canopy"]}},
+        "traits": {
+            "file": str(data / "traits.tsv"),
+            "taxon_column": "taxon",
+            "columns": ["glow", "habitat"],
+            "order": {"habitat": ["litter", "rock", "canopy"]},
+        },
         "models": {"one_rate": {"kind": "equal"}, "free": {"kind": "unconstrained"}},
         "fitting": {"starts": 2},
         "ancestral": {"enabled": False},
@@ -40,7 +43,17 @@ def tiny_config(workdir: Path, **overrides) -> Path:
 
 def run_snakemake(workdir: Path, configfile: Path, *extra, cores: int = 2, timeout: int = 600):
     """Run the real workflow; returns the CompletedProcess (never raises on failure)."""
-    cmd = [SNAKEMAKE, "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
-           "--configfile", str(configfile), "--cores", str(cores), *extra]
+    cmd = [
+        SNAKEMAKE,
+        "--snakefile",
+        str(REPO / "Snakefile"),
+        "--directory",
+        str(workdir),
+        "--configfile",
+        str(configfile),
+        "--cores",
+        str(cores),
+        *extra,
+    ]
     env = dict(os.environ, PYTHONPATH=str(REPO))
     return subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=env)

@@ -91,7 +91,7 @@ def count_clades(trees, bits: dict | None = None) -> Counter:
     bits = bits or taxon_bits(trees[0].tip_labels)
     counts: Counter = Counter()
     for tree in trees:
-        counts.update(node_masks(tree, bits)[tree.n_tips:])
+        counts.update(node_masks(tree, bits)[tree.n_tips :])
     return counts
 
 
@@ -103,10 +103,15 @@ def check_same_taxa(trees, source="the tree sample") -> tuple:
         if other != first:
             extra = sorted(other - first)
             lacking = sorted(first - other)
-            what = (f"has taxon '{extra[0]}' that tree {trees[0].index} lacks" if extra
-                    else f"lacks taxon '{lacking[0]}'")
-            raise InputError(f"{source}: tree {t.index} {what}; every tree must have the same taxa "
-                             "to match clades across trees.")
+            what = (
+                f"has taxon '{extra[0]}' that tree {trees[0].index} lacks"
+                if extra
+                else f"lacks taxon '{lacking[0]}'"
+            )
+            raise InputError(
+                f"{source}: tree {t.index} {what}; every tree must have the same taxa "
+                "to match clades across trees."
+            )
     return tuple(sorted(first))
 
 
@@ -114,8 +119,13 @@ def to_dendropy(trees, taxa=None) -> dendropy.TreeList:
     """A DendroPy TreeList (rooted, one shared taxon namespace) of TreeArrays."""
     ns = dendropy.TaxonNamespace(list(taxa)) if taxa else dendropy.TaxonNamespace()
     text = "\n".join("[&R] " + to_newick(t) for t in trees)
-    return dendropy.TreeList.get(data=text, schema="newick", taxon_namespace=ns,
-                                 preserve_underscores=True, rooting="force-rooted")
+    return dendropy.TreeList.get(
+        data=text,
+        schema="newick",
+        taxon_namespace=ns,
+        preserve_underscores=True,
+        rooting="force-rooted",
+    )
 
 
 def majority_consensus(trees, min_freq: float = 0.5) -> TreeArrays:
@@ -124,9 +134,12 @@ def majority_consensus(trees, min_freq: float = 0.5) -> TreeArrays:
     clade's branch over the trees that have it."""
     taxa = check_same_taxa(trees)
     tl = to_dendropy(trees, taxa)
-    con = tl.consensus(min_freq=min_freq, set_edge_lengths="mean-length",
-                       add_node_age_summaries_as_node_annotations=False,
-                       add_edge_length_summaries_as_edge_annotations=False)
+    con = tl.consensus(
+        min_freq=min_freq,
+        set_edge_lengths="mean-length",
+        add_node_age_summaries_as_node_annotations=False,
+        add_edge_length_summaries_as_edge_annotations=False,
+    )
     for nd in con.postorder_node_iter():
         if nd.edge.length is None:
             nd.edge.length = 0.0
@@ -135,13 +148,16 @@ def majority_consensus(trees, min_freq: float = 0.5) -> TreeArrays:
 
 # --------------------------------------------------------------------------- drawing order and names
 
+
 def ladder_children(tree: TreeArrays) -> list:
     """Children of every node in drawing order: smaller clades first, ties broken by the
     alphabetically first tip, so the order is the same however the tree was written."""
     sets = node_clades(tree)
     first = [min(s) for s in sets]
-    return [sorted(tree.children_of(v).tolist(), key=lambda c: (len(sets[c]), first[c]))
-            for v in range(tree.n_nodes)]
+    return [
+        sorted(tree.children_of(v).tolist(), key=lambda c: (len(sets[c]), first[c]))
+        for v in range(tree.n_nodes)
+    ]
 
 
 def tips_in_drawing_order(tree: TreeArrays) -> list:
@@ -173,12 +189,13 @@ def consensus_names(tree: TreeArrays) -> dict:
         kids = tree.children_of(v)
         below_first[v] = min((below_first[c] for c in kids), key=rank.get)
         below_last[v] = max((below_last[c] for c in kids), key=rank.get)
-        names[v] = (f"clade_{tree.tip_labels[below_first[v]]}_{tree.tip_labels[below_last[v]]}")
+        names[v] = f"clade_{tree.tip_labels[below_first[v]]}_{tree.tip_labels[below_last[v]]}"
     names[tree.root] = "root"
     return names
 
 
 # --------------------------------------------------------------------------- named clades
+
 
 @dataclass(frozen=True)
 class NamedClade:
@@ -196,8 +213,10 @@ def parse_named_clades(value, taxa, where: str = "ancestral.clades") -> list:
     if value is None:
         return []
     if not isinstance(value, dict):
-        raise InputError(f"config key '{where}' must map clade names to lists of taxa, "
-                         f"e.g. {{my_group: [taxon_a, taxon_b]}}; got {type(value).__name__}.")
+        raise InputError(
+            f"config key '{where}' must map clade names to lists of taxa, "
+            f"e.g. {{my_group: [taxon_a, taxon_b]}}; got {type(value).__name__}."
+        )
     taxa = set(taxa)
     out = []
     for name, spec in value.items():
@@ -205,21 +224,27 @@ def parse_named_clades(value, taxa, where: str = "ancestral.clades") -> list:
         mrca_only = False
         if isinstance(spec, dict):
             if set(spec) != {"mrca_of"}:
-                raise InputError(f"config key '{key}': use a list of member taxa or "
-                                 f"{{mrca_of: [taxon, taxon]}}; unknown keys {sorted(set(spec) - {'mrca_of'})}.")
+                raise InputError(
+                    f"config key '{key}': use a list of member taxa or "
+                    f"{{mrca_of: [taxon, taxon]}}; unknown keys {sorted(set(spec) - {'mrca_of'})}."
+                )
             spec = spec["mrca_of"]
             mrca_only = True
         if not isinstance(spec, (list, tuple)) or not all(isinstance(x, str) for x in spec):
             raise InputError(f"config key '{key}' must be a list of taxon names.")
         members = tuple(dict.fromkeys(spec))
         if len(members) < 2:
-            raise InputError(f"config key '{key}' lists {len(members)} taxon; a clade needs at "
-                             "least two taxa (the ancestor of one taxon is not a clade).")
+            raise InputError(
+                f"config key '{key}' lists {len(members)} taxon; a clade needs at "
+                "least two taxa (the ancestor of one taxon is not a clade)."
+            )
         unknown = [x for x in members if x not in taxa]
         if unknown:
             close = sorted(t for t in taxa if t.lower() == unknown[0].lower())
             hint = f" (did you mean '{close[0]}'?)" if close else ""
-            raise InputError(f"config key '{key}': taxon '{unknown[0]}' is in none of the trees{hint}.")
+            raise InputError(
+                f"config key '{key}': taxon '{unknown[0]}' is in none of the trees{hint}."
+            )
         out.append(NamedClade(str(name), members, mrca_only))
     return out
 

@@ -25,10 +25,15 @@ MAX_CLASSES = 4
 
 def check_classes(n_classes, where: str) -> int:
     """Hidden rate classes R as an int in 1..MAX_CLASSES, or an InputError naming ``where``."""
-    if isinstance(n_classes, bool) or not isinstance(n_classes, int) \
-            or not 1 <= n_classes <= MAX_CLASSES:
-        raise InputError(f"{where}: hidden_classes is {n_classes!r}; use a whole number from 1 "
-                         f"(no hidden classes) to {MAX_CLASSES}.")
+    if (
+        isinstance(n_classes, bool)
+        or not isinstance(n_classes, int)
+        or not 1 <= n_classes <= MAX_CLASSES
+    ):
+        raise InputError(
+            f"{where}: hidden_classes is {n_classes!r}; use a whole number from 1 "
+            f"(no hidden classes) to {MAX_CLASSES}."
+        )
     return n_classes
 
 
@@ -64,13 +69,17 @@ def _schema_problem(error, source: str) -> list:
             if extra in known:
                 continue
             where = f"{key}." if path else ""
-            out.append(f"{source}: key '{where}{extra}' is not a known key."
-                       f"{did_you_mean(where + extra, [where + k for k in known])} "
-                       f"Keys allowed here: {', '.join(known)}.")
+            out.append(
+                f"{source}: key '{where}{extra}' is not a known key."
+                f"{did_you_mean(where + extra, [where + k for k in known])} "
+                f"Keys allowed here: {', '.join(known)}."
+            )
         return out
     if error.validator == "enum":
-        return [f"{source}: key '{key}' is '{error.instance}'; choose one of "
-                f"{', '.join(map(str, error.validator_value))}.{did_you_mean(error.instance, error.validator_value)}"]
+        return [
+            f"{source}: key '{key}' is '{error.instance}'; choose one of "
+            f"{', '.join(map(str, error.validator_value))}.{did_you_mean(error.instance, error.validator_value)}"
+        ]
     if error.validator == "required":
         missing = error.message.split("'")[1] if "'" in error.message else error.message
         where = f"{key}." if path else ""
@@ -90,10 +99,14 @@ def config_problems(config: dict, source: str = "config") -> tuple:
     schema = yaml.safe_load(SCHEMA.read_text())
     config = copy.deepcopy(config or {})
     if not isinstance(config, dict):
-        return config, [f"{source}: the config must be a mapping of keys (run, trees, traits, models, ...)."]
+        return config, [
+            f"{source}: the config must be a mapping of keys (run, trees, traits, models, ...)."
+        ]
     problems, renamed_at = renamed_problems(config, source)
-    for e in sorted(jsonschema.Draft202012Validator(schema).iter_errors(config),
-                    key=lambda e: [str(p) for p in e.absolute_path]):
+    for e in sorted(
+        jsonschema.Draft202012Validator(schema).iter_errors(config),
+        key=lambda e: [str(p) for p in e.absolute_path],
+    ):
         if tuple(e.absolute_path) not in renamed_at:
             problems += _schema_problem(e, source)
     _fill_defaults(schema, config)
@@ -126,8 +139,10 @@ def renamed_problems(config: dict, source: str = "config") -> tuple:
     for name, model in (models if isinstance(models, dict) else {}).items():
         kind = model.get("kind") if isinstance(model, dict) else None
         if isinstance(kind, str) and kind in RENAMED_KINDS:
-            out.append(f"{source}: models.{name}.kind is '{kind}': this model kind is now "
-                       f"called '{RENAMED_KINDS[kind]}'.")
+            out.append(
+                f"{source}: models.{name}.kind is '{kind}': this model kind is now "
+                f"called '{RENAMED_KINDS[kind]}'."
+            )
             at.add(("models", name, "kind"))
     return out, at
 
@@ -137,7 +152,9 @@ def _names(value) -> list:
 
 
 def _entries(value) -> dict:
-    return {k: v for k, v in value.items() if isinstance(v, dict)} if isinstance(value, dict) else {}
+    return (
+        {k: v for k, v in value.items() if isinstance(v, dict)} if isinstance(value, dict) else {}
+    )
 
 
 def name_problems(config: dict, source: str = "config") -> list:
@@ -149,9 +166,11 @@ def name_problems(config: dict, source: str = "config") -> list:
     models = _entries(config.get("models"))
     for t in traits:
         if not SAFE_NAME.match(t):
-            problems.append(f"{source}: trait column '{t}' (traits.columns) has characters that "
-                            "cannot be used in file names; rename the column using letters, "
-                            "digits, '_', '-' or '.'.")
+            problems.append(
+                f"{source}: trait column '{t}' (traits.columns) has characters that "
+                "cannot be used in file names; rename the column using letters, "
+                "digits, '_', '-' or '.'."
+            )
     if len(set(traits)) != len(traits):
         twice = sorted({t for t in traits if traits.count(t) > 1})
         problems.append(f"{source}: traits.columns lists trait '{twice[0]}' twice.")
@@ -164,20 +183,25 @@ def name_problems(config: dict, source: str = "config") -> list:
             problems.append(str(exc))
 
     def unknown_trait(t, key):
-        problems.append(f"{source}: {key} names trait '{t}', which is not in {listed}."
-                        f"{did_you_mean(t, traits)}")
+        problems.append(
+            f"{source}: {key} names trait '{t}', which is not in {listed}.{did_you_mean(t, traits)}"
+        )
 
-    for t in (tcfg.get("order") if isinstance(tcfg.get("order"), dict) else {}):
+    for t in tcfg.get("order") if isinstance(tcfg.get("order"), dict) else {}:
         if traits and t not in traits:
             unknown_trait(t, "traits.order")
     for name, model in models.items():
         if not SAFE_NAME.match(name):
-            problems.append(f"{source}: model name '{name}' (models) must use only letters, "
-                            "digits, '_', '-' or '.'.")
+            problems.append(
+                f"{source}: model name '{name}' (models) must use only letters, "
+                "digits, '_', '-' or '.'."
+            )
         if model.get("kind") == "custom":
             if "applies_to" not in model:
-                problems.append(f"{source}: models.{name}: a custom model must say which traits "
-                                "it applies to (applies_to: [trait, ...]).")
+                problems.append(
+                    f"{source}: models.{name}: a custom model must say which traits "
+                    "it applies to (applies_to: [trait, ...])."
+                )
             if "transitions" not in model:
                 problems.append(f"{source}: models.{name}: a custom model needs 'transitions'.")
         elif "transitions" in model:
@@ -188,8 +212,10 @@ def name_problems(config: dict, source: str = "config") -> list:
                 unknown_trait(t, f"models.{name}.applies_to")
     for name, pair in _entries(config.get("pairs")).items():
         if not SAFE_NAME.match(name):
-            problems.append(f"{source}: pair name '{name}' (pairs) must use only letters, "
-                            "digits, '_', '-' or '.'.")
+            problems.append(
+                f"{source}: pair name '{name}' (pairs) must use only letters, "
+                "digits, '_', '-' or '.'."
+            )
         if name in traits:
             problems.append(f"{source}: pair name '{name}' is also a trait name; choose another.")
         pt = _names(pair.get("traits"))
@@ -201,14 +227,22 @@ def name_problems(config: dict, source: str = "config") -> list:
             problems.append(f"{source}: pairs.{name}: the two traits must differ.")
         for h in _names(pair.get("hypotheses")) + list(_entries(pair.get("custom"))):
             if not SAFE_NAME.match(h):
-                problems.append(f"{source}: pairs.{name}: hypothesis name '{h}' must use only "
-                                "letters, digits, '_', '-' or '.'.")
+                problems.append(
+                    f"{source}: pairs.{name}: hypothesis name '{h}' must use only "
+                    "letters, digits, '_', '-' or '.'."
+                )
     anc = config.get("ancestral") if isinstance(config.get("ancestral"), dict) else {}
     anc_model = anc.get("model", "average")
-    if isinstance(anc_model, str) and anc_model not in ("average", "best") and anc_model not in models:
-        problems.append(f"{source}: ancestral.model is '{anc_model}': use average, best, or a model "
-                        f"name from models ({', '.join(models)})."
-                        f"{did_you_mean(anc_model, ['average', 'best', *models])}")
+    if (
+        isinstance(anc_model, str)
+        and anc_model not in ("average", "best")
+        and anc_model not in models
+    ):
+        problems.append(
+            f"{source}: ancestral.model is '{anc_model}': use average, best, or a model "
+            f"name from models ({', '.join(models)})."
+            f"{did_you_mean(anc_model, ['average', 'best', *models])}"
+        )
     return problems
 
 
@@ -216,13 +250,17 @@ def tree_set_problems(config: dict, source: str = "config") -> list:
     """Exactly one of trees and tree_sets; set names usable in file names."""
     problems = []
     if ("trees" in config) == ("tree_sets" in config):
-        problems.append(f"{source}: give either 'trees' (one tree sample) or 'tree_sets' "
-                        "(several samples to compare), "
-                        + ("not both." if "trees" in config else "and neither is present."))
+        problems.append(
+            f"{source}: give either 'trees' (one tree sample) or 'tree_sets' "
+            "(several samples to compare), "
+            + ("not both." if "trees" in config else "and neither is present.")
+        )
     for name in _entries(config.get("tree_sets")):
         if not SAFE_NAME.match(name):
-            problems.append(f"{source}: tree set name '{name}' (tree_sets) must use only "
-                            "letters, digits, '_', '-' or '.'.")
+            problems.append(
+                f"{source}: tree set name '{name}' (tree_sets) must use only "
+                "letters, digits, '_', '-' or '.'."
+            )
     return problems
 
 
@@ -244,7 +282,9 @@ def load_config(path) -> dict:
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         at = f", line {mark.line + 1}" if mark else ""
-        raise InputError(f"config file '{path}'{at}: not valid YAML ({getattr(exc, 'problem', exc)}).") from None
+        raise InputError(
+            f"config file '{path}'{at}: not valid YAML ({getattr(exc, 'problem', exc)})."
+        ) from None
     return validate_config(raw, f"config file '{path}'")
 
 
@@ -294,10 +334,15 @@ def fit_job_config(config: dict, analysis: str, model: str) -> dict:
     would rerun every fit whenever any model or trait is added.
     """
     tcfg = config["traits"]
-    job = {"analysis": analysis, "model": model, "seed": config["seed"],
-           "fitting": config["fitting"],
-           "traits": {"columns": [], "absent_taxa": tcfg["absent_taxa"]},
-           "models": {}, "pairs": {}}
+    job = {
+        "analysis": analysis,
+        "model": model,
+        "seed": config["seed"],
+        "fitting": config["fitting"],
+        "traits": {"columns": [], "absent_taxa": tcfg["absent_taxa"]},
+        "models": {},
+        "pairs": {},
+    }
     if analysis in tcfg["columns"]:
         job["traits"]["columns"] = [analysis]
         job["models"] = {model: config["models"][model]}
@@ -312,10 +357,15 @@ def ancestral_job_config(config: dict, analysis: str) -> dict:
     analysis's model, or a setting of another stage, leaves this job's params unchanged."""
     tcfg = config["traits"]
     anc = config["ancestral"]
-    job = {"analysis": analysis, "seed": config["seed"], "criterion": config["criterion"],
-           "traits": {"columns": [], "absent_taxa": tcfg["absent_taxa"]},
-           "models": {}, "pairs": {},
-           "ancestral": {"model": anc["model"], "maps": anc["maps"]}}
+    job = {
+        "analysis": analysis,
+        "seed": config["seed"],
+        "criterion": config["criterion"],
+        "traits": {"columns": [], "absent_taxa": tcfg["absent_taxa"]},
+        "models": {},
+        "pairs": {},
+        "ancestral": {"model": anc["model"], "maps": anc["maps"]},
+    }
     if analysis in tcfg["columns"]:
         job["traits"]["columns"] = [analysis]
         job["models"] = {m: config["models"][m] for m in trait_models(config, analysis)}

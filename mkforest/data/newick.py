@@ -34,13 +34,15 @@ import numpy as np
 #   a comment not glued to the text after it | a quoted label | a delimiter |
 #   an unquoted run (a quote may follow its first character, as in DendroPy) |
 #   a stray bracket or an unterminated quote (never handled)
-_TOKEN = re.compile(r"""\[[^\[\]]*\](?![^ \t\r\n(),;:=\[])"""
-                    r"""|'(?:[^']|'')*'"""
-                    r"""|[(),;:={}\\"]"""
-                    r"""|[^ \t\r\n\[\](),;:={}\\"'][^ \t\r\n\[\](),;:={}\\"]*"""
-                    r"""|[\[\]']""")
+_TOKEN = re.compile(
+    r"""\[[^\[\]]*\](?![^ \t\r\n(),;:=\[])"""
+    r"""|'(?:[^']|'')*'"""
+    r"""|[(),;:={}\\"]"""
+    r"""|[^ \t\r\n\[\](),;:={}\\"'][^ \t\r\n\[\](),;:={}\\"]*"""
+    r"""|[\[\]']"""
+)
 _DELIMITERS = frozenset("(),;:=")
-_LABEL_START = frozenset("(),;:={}\\\"[]")   # a token starting with none of these is a label
+_LABEL_START = frozenset('(),;:={}\\"[]')  # a token starting with none of these is a label
 _DIGITS = re.compile(r"[0-9]+")
 # characters tokenized at a time (then on to the next line end): the token list of a
 # whole file costs ~185 bytes per tree-tip, 1 GB for 5,000 trees of 1,000 tips
@@ -181,16 +183,16 @@ def _tree(tokens: list, i: int, rooted: bool, translate=None):
     appearance and internal nodes in the order their parentheses close (DendroPy's
     postorder), the root last.
     """
-    parent = [-1]          # temporary ids: 0 is the root, the first '('
+    parent = [-1]  # temporary ids: 0 is the root, the first '('
     lengths = [None]
     tips = []
     labels = []
     closed = []
     stack = [0]
-    cur = 0                 # the open node new children hang from
-    last = 0                # the node whose label or length comes next
-    v = 0                   # the last temporary id given
-    state = 0               # 0 expect a node, 1 after ')', 2 after a label, 3 after a length
+    cur = 0  # the open node new children hang from
+    last = 0  # the node whose label or length comes next
+    v = 0  # the last temporary id given
+    state = 0  # 0 expect a node, 1 after ')', 2 after a label, 3 after a length
     add_parent, add_length, add_label = parent.append, lengths.append, labels.append
     i += 1
     try:
@@ -201,7 +203,7 @@ def _tree(tokens: list, i: int, rooted: bool, translate=None):
             if tok == ":":
                 if state == 0 or state == 3:
                     raise NotHandled("misplaced length")
-                lengths[last] = tokens[i]   # float() refuses anything but a number, later
+                lengths[last] = tokens[i]  # float() refuses anything but a number, later
                 i += 1
                 state = 3
             elif state == 0:
@@ -244,7 +246,7 @@ def _tree(tokens: list, i: int, rooted: bool, translate=None):
             elif tok[0] == "[":
                 continue
             elif state == 1:
-                _label(tok)      # an internal label or support value: checked, not kept
+                _label(tok)  # an internal label or support value: checked, not kept
                 state = 2
             else:
                 raise NotHandled(f"unexpected {tok!r}")
@@ -261,7 +263,7 @@ def _tree(tokens: list, i: int, rooted: bool, translate=None):
     try:
         values = np.array([float(x) for x in given], dtype=np.float64)
         if lengths[0] is not None:
-            float(lengths[0])        # DendroPy reads the root's length too (and ignores it)
+            float(lengths[0])  # DendroPy reads the root's length too (and ignores it)
     except ValueError:
         raise NotHandled("a length that is not a number") from None
     if not (np.isfinite(values).all() and (values >= 0).all()):
@@ -441,7 +443,7 @@ def _translate(cur: _Nexus, taxa) -> dict:
             break
         if sep != ",":
             raise NotHandled("TRANSLATE separator")
-    _check_case(table)                  # DendroPy looks keys up without regard to case
+    _check_case(table)  # DendroPy looks keys up without regard to case
     values = list(table.values())
     if len({v.lower() for v in values}) != len(values):
         raise NotHandled("two TRANSLATE keys for one taxon")
@@ -456,17 +458,20 @@ def _trees_block(cur: _Nexus, taxa) -> list:
         table = _translate(cur, taxa)
         word = cur.keyword()
     if table is not None:
+
         def translate(x, table=table):
             try:
                 return table[x]
             except KeyError:
                 raise NotHandled(f"tip {x!r} not in TRANSLATE") from None
     else:
+
         def translate(x, taxa=taxa):
             # DendroPy would read a number as the position of a taxon
             if _DIGITS.fullmatch(x) or (taxa is not None and x not in taxa):
                 raise NotHandled(f"tip {x!r}")
             return x
+
     while word == "TREE":
         name = cur.next()
         if name is None or name == "*":
@@ -480,7 +485,7 @@ def _trees_block(cur: _Nexus, taxa) -> list:
         tree, cur.i = _whole_tree(cur.src, cur.i - 1, _rooting(cur.comments), translate)
         out.append(tree)
         word = cur.keyword()
-    if word is None:                    # a file cut after a tree (a sampler still running)
+    if word is None:  # a file cut after a tree (a sampler still running)
         return out
     if word not in ("END", "ENDBLOCK"):
         raise NotHandled(f"{word!r} in the TREES block")

@@ -77,7 +77,8 @@ class Trait:
             raise InputError(
                 f"trait '{self.name}': taxon {shown}{more} is in tree {tree.index} but not in "
                 "the trait table. Add a row with '?' for unknown values, or remove the taxon from "
-                "the trees.")
+                "the trees."
+            )
         return out
 
 
@@ -85,8 +86,15 @@ def _split(value: str, separator: str) -> list:
     return [p.strip() for p in value.split(separator)] if separator else [value]
 
 
-def code_trait(name: str, values: dict, states=None, missing=DEFAULT_MISSING, separator="|",
-               source: str = "", rows: dict | None = None) -> Trait:
+def code_trait(
+    name: str,
+    values: dict,
+    states=None,
+    missing=DEFAULT_MISSING,
+    separator="|",
+    source: str = "",
+    rows: dict | None = None,
+) -> Trait:
     """Code a mapping taxon -> cell text.
 
     states: the state labels in the user's order; None sorts the observed labels.
@@ -104,8 +112,10 @@ def code_trait(name: str, values: dict, states=None, missing=DEFAULT_MISSING, se
         parts = _split(text, separator)
         if any(p in missing for p in parts):
             at = f" (line {rows[taxon]})" if rows and taxon in rows else ""
-            raise InputError(f"{where}trait '{name}', taxon '{taxon}'{at}: value '{text}' mixes a "
-                             "missing code with states; write only the possible states, or only the missing code.")
+            raise InputError(
+                f"{where}trait '{name}', taxon '{taxon}'{at}: value '{text}' mixes a "
+                "missing code with states; write only the possible states, or only the missing code."
+            )
         cells[taxon] = parts
         seen.update(parts)
     if states is None:
@@ -114,7 +124,9 @@ def code_trait(name: str, values: dict, states=None, missing=DEFAULT_MISSING, se
     else:
         states = [str(s) for s in states]
         if len(set(states)) != len(states):
-            raise InputError(f"{where}trait '{name}': the state order lists a state twice: {states}")
+            raise InputError(
+                f"{where}trait '{name}': the state order lists a state twice: {states}"
+            )
         unknown = sorted(seen - set(states))
         if unknown:
             taxon = next(t for t, p in cells.items() if p and set(p) & set(unknown))
@@ -122,7 +134,8 @@ def code_trait(name: str, values: dict, states=None, missing=DEFAULT_MISSING, se
             raise InputError(
                 f"{where}trait '{name}', taxon '{taxon}'{at}: state '{unknown[0]}' is not in the "
                 f"state order given for this trait ({', '.join(states)}). Add it to the order or "
-                f"fix the cell.{did_you_mean(unknown[0], states)}")
+                f"fix the cell.{did_you_mean(unknown[0], states)}"
+            )
     index = {s: i for i, s in enumerate(states)}
     taxa = tuple(values)
     possible = np.zeros((len(taxa), len(states)), dtype=bool)
@@ -151,18 +164,26 @@ def _check_case(name, cells, states, where, rows) -> None:
             raise InputError(
                 f"{where}trait '{name}': states {shown[0]} and {shown[1]} differ only in case or "
                 "spacing. Write them the same way, or list both in traits.order."
-                f"{name} if they are different states.")
+                f"{name} if they are different states."
+            )
         by_key[key] = s
 
 
-def trait_from_mapping(name: str, values: dict, states=None, missing=DEFAULT_MISSING,
-                       separator="|") -> Trait:
+def trait_from_mapping(
+    name: str, values: dict, states=None, missing=DEFAULT_MISSING, separator="|"
+) -> Trait:
     """Convenience for tests and notebooks: ``{"taxon": "red|blue", ...}``."""
     return code_trait(name, values, states, missing, separator)
 
 
-def read_traits(path, taxon_column: str, columns=None, missing=DEFAULT_MISSING, separator="|",
-                state_order: dict | None = None) -> dict:
+def read_traits(
+    path,
+    taxon_column: str,
+    columns=None,
+    missing=DEFAULT_MISSING,
+    separator="|",
+    state_order: dict | None = None,
+) -> dict:
     """Read a CSV or TSV trait table (the delimiter is detected from the header line).
 
     Returns {trait name: Trait} for ``columns`` (all columns but the taxon column when None).
@@ -179,16 +200,20 @@ def read_traits(path, taxon_column: str, columns=None, missing=DEFAULT_MISSING, 
         reader = csv.reader(fh, delimiter=delimiter)
         header = [h.strip() for h in next(reader)]
         if taxon_column not in header:
-            raise InputError(f"trait table '{path}', line 1: no column '{taxon_column}' (the taxon "
-                             f"column named in the config); columns are: {', '.join(header)}."
-                             f"{did_you_mean(taxon_column, header)}")
+            raise InputError(
+                f"trait table '{path}', line 1: no column '{taxon_column}' (the taxon "
+                f"column named in the config); columns are: {', '.join(header)}."
+                f"{did_you_mean(taxon_column, header)}"
+            )
         if columns is None:
             columns = [h for h in header if h != taxon_column]
         for c in columns:
             if c not in header:
-                raise InputError(f"trait table '{path}', line 1: no column '{c}' (a trait named in "
-                                 f"the config); columns are: {', '.join(header)}."
-                                 f"{did_you_mean(c, header)}")
+                raise InputError(
+                    f"trait table '{path}', line 1: no column '{c}' (a trait named in "
+                    f"the config); columns are: {', '.join(header)}."
+                    f"{did_you_mean(c, header)}"
+                )
         ti = header.index(taxon_column)
         table = {c: {} for c in columns}
         rows = {}
@@ -196,22 +221,30 @@ def read_traits(path, taxon_column: str, columns=None, missing=DEFAULT_MISSING, 
             if not row or all(not x.strip() for x in row):
                 continue
             if len(row) != len(header):
-                raise InputError(f"trait table '{path}', line {lineno}: {len(row)} fields where the "
-                                 f"header has {len(header)}.")
+                raise InputError(
+                    f"trait table '{path}', line {lineno}: {len(row)} fields where the "
+                    f"header has {len(header)}."
+                )
             taxon = row[ti].strip()
             if not taxon:
                 raise InputError(f"trait table '{path}', line {lineno}: the taxon cell is empty.")
             if taxon in rows:
-                raise InputError(f"trait table '{path}', line {lineno}: taxon '{taxon}' already "
-                                 f"appears on line {rows[taxon]}; each taxon needs one row.")
+                raise InputError(
+                    f"trait table '{path}', line {lineno}: taxon '{taxon}' already "
+                    f"appears on line {rows[taxon]}; each taxon needs one row."
+                )
             rows[taxon] = lineno
             for c in columns:
                 table[c][taxon] = row[header.index(c)]
     if not rows:
         raise InputError(f"trait table '{path}' has a header but no rows.")
     state_order = state_order or {}
-    return {c: code_trait(c, table[c], state_order.get(c), missing, separator,
-                          f"trait table '{path}'", rows) for c in columns}
+    return {
+        c: code_trait(
+            c, table[c], state_order.get(c), missing, separator, f"trait table '{path}'", rows
+        )
+        for c in columns
+    }
 
 
 def check_variable(trait: Trait) -> None:
@@ -219,17 +252,31 @@ def check_variable(trait: Trait) -> None:
     obs = trait.observed_states()
     if len(obs) < 2:
         which = f"only state '{obs[0]}'" if obs else "no observed state"
-        raise InputError(f"trait '{trait.name}' has {which} among its taxa; a model of change needs "
-                         "at least two observed states. Drop it from traits.columns.")
+        raise InputError(
+            f"trait '{trait.name}' has {which} among its taxa; a model of change needs "
+            "at least two observed states. Drop it from traits.columns."
+        )
 
 
 def traits_to_json(traits: dict) -> dict:
     """Plain data for prepared/traits.json."""
-    return {name: {"states": list(t.states), "taxa": list(t.taxa),
-                   "possible": t.possible.astype(int).tolist()} for name, t in traits.items()}
+    return {
+        name: {
+            "states": list(t.states),
+            "taxa": list(t.taxa),
+            "possible": t.possible.astype(int).tolist(),
+        }
+        for name, t in traits.items()
+    }
 
 
 def traits_from_json(data: dict) -> dict:
-    return {name: Trait(name, tuple(d["states"]), tuple(d["taxa"]),
-                        np.array(d["possible"], dtype=bool).reshape(len(d["taxa"]), len(d["states"])))
-            for name, d in data.items()}
+    return {
+        name: Trait(
+            name,
+            tuple(d["states"]),
+            tuple(d["taxa"]),
+            np.array(d["possible"], dtype=bool).reshape(len(d["taxa"]), len(d["states"])),
+        )
+        for name, d in data.items()
+    }

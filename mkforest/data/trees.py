@@ -57,7 +57,7 @@ class TreeArrays:
         return self.n_nodes - 1
 
     def children_of(self, v: int) -> np.ndarray:
-        return self.children[self.child_ptr[v]:self.child_ptr[v + 1]]
+        return self.children[self.child_ptr[v] : self.child_ptr[v + 1]]
 
     def depths(self) -> np.ndarray:
         """Distance from the root to every node."""
@@ -93,18 +93,31 @@ class TreeArrays:
         below = sorted(self.tip_sets()[v])
         return f"the ancestor of '{below[0]}' and '{below[-1]}'"
 
-    def scaled(self, factor: float) -> "TreeArrays":
+    def scaled(self, factor: float) -> TreeArrays:
         return self.with_lengths(self.length * factor)
 
-    def with_tree_set(self, name: str) -> "TreeArrays":
-        return TreeArrays(self.tip_labels, self.parent, self.length, self.child_ptr,
-                          self.children, self.index, name)
+    def with_tree_set(self, name: str) -> TreeArrays:
+        return TreeArrays(
+            self.tip_labels,
+            self.parent,
+            self.length,
+            self.child_ptr,
+            self.children,
+            self.index,
+            name,
+        )
 
-    def with_lengths(self, lengths) -> "TreeArrays":
+    def with_lengths(self, lengths) -> TreeArrays:
         """The same tree (topology, index, set) with other branch lengths."""
-        return TreeArrays(self.tip_labels, self.parent,
-                          np.ascontiguousarray(lengths, dtype=np.float64), self.child_ptr,
-                          self.children, self.index, self.tree_set)
+        return TreeArrays(
+            self.tip_labels,
+            self.parent,
+            np.ascontiguousarray(lengths, dtype=np.float64),
+            self.child_ptr,
+            self.children,
+            self.index,
+            self.tree_set,
+        )
 
 
 def _build(tip_labels, parent_of, length_of, index) -> TreeArrays:
@@ -114,9 +127,15 @@ def _build(tip_labels, parent_of, length_of, index) -> TreeArrays:
     child_ptr = np.zeros(n + 1, dtype=np.int64)
     np.cumsum(counts, out=child_ptr[1:])
     # children grouped by parent, each group in increasing node order (the root is last)
-    children = np.argsort(parent[:n - 1], kind="stable").astype(np.int64)
-    return TreeArrays(tuple(tip_labels), parent, np.asarray(length_of, dtype=np.float64),
-                      child_ptr, children, index)
+    children = np.argsort(parent[: n - 1], kind="stable").astype(np.int64)
+    return TreeArrays(
+        tuple(tip_labels),
+        parent,
+        np.asarray(length_of, dtype=np.float64),
+        child_ptr,
+        children,
+        index,
+    )
 
 
 def _describe(node) -> str:
@@ -147,7 +166,8 @@ def from_dendropy(tree, index: int = 0, source: str = "tree", rooted: bool = Fal
             f"{where}: the tree is unrooted (its base splits {len(root.child_nodes())} ways). "
             "Trait models need a rooted tree: set trees.root in the config to midpoint or to "
             "{outgroup: [taxon, ...]}; if the basal polytomy is intended, mark the tree as "
-            "rooted with a [&R] comment before it.")
+            "rooted with a [&R] comment before it."
+        )
     nodes = list(tree.postorder_node_iter())
     tips = [nd for nd in nodes if nd.is_leaf()]
     internals = [nd for nd in nodes if not nd.is_leaf()]
@@ -165,7 +185,9 @@ def from_dendropy(tree, index: int = 0, source: str = "tree", rooted: bool = Fal
     seen = set()
     for lab in labels:
         if lab in seen:
-            raise InputError(f"{where}: tip '{lab}' appears more than once; tip labels must be unique.")
+            raise InputError(
+                f"{where}: tip '{lab}' appears more than once; tip labels must be unique."
+            )
         seen.add(lab)
     n = len(nodes)
     parent = np.full(n, -1, dtype=np.int64)
@@ -178,12 +200,14 @@ def from_dendropy(tree, index: int = 0, source: str = "tree", rooted: bool = Fal
         if nd.edge.length is None:
             raise InputError(
                 f"{where}: the branch above {_describe(nd)} has no length. Every branch needs "
-                "a length (use a time-calibrated or otherwise dated tree).")
+                "a length (use a time-calibrated or otherwise dated tree)."
+            )
         bl = float(nd.edge.length)
         if not np.isfinite(bl) or bl < 0:
             raise InputError(
                 f"{where}: the branch above {_describe(nd)} has length {bl}; lengths must be "
-                "zero or positive.")
+                "zero or positive."
+            )
         length[v] = bl
     return _build(labels, parent, length, index)
 
@@ -209,9 +233,11 @@ def _check_comments(text: str, path: Path) -> None:
     (trees silently dropped, or an endless loop in a NEXUS TAXA block)."""
     line = unclosed_comment(text)
     if line is not None:
-        raise InputError(f"tree file '{path}', line {line}: a comment opened with '[' is never "
-                         "closed with ']', so everything after it would be ignored. Close the "
-                         "comment or remove the '['.")
+        raise InputError(
+            f"tree file '{path}', line {line}: a comment opened with '[' is never "
+            "closed with ']', so everything after it would be ignored. Close the "
+            "comment or remove the '['."
+        )
 
 
 def _unreadable(exc, path: Path, schema: str) -> InputError:
@@ -221,8 +247,10 @@ def _unreadable(exc, path: Path, schema: str) -> InputError:
     msg = getattr(exc, "message", None) or str(exc).splitlines()[0]
     if "Duplicate taxon labels:" in msg:
         dup = msg.rsplit("Duplicate taxon labels:", 1)[1].strip()
-        msg = (f"tip '{dup}' appears more than once in one tree; tip labels must be unique "
-               "within a tree")
+        msg = (
+            f"tip '{dup}' appears more than once in one tree; tip labels must be unique "
+            "within a tree"
+        )
     return InputError(f"tree file '{path}'{at}: cannot be read as {schema.upper()}: {msg}")
 
 
@@ -254,8 +282,9 @@ def iter_tree_file(path, schema: str | None = None, text: str | None = None):
     import dendropy
 
     try:
-        yield from dendropy.Tree.yield_from_files(files=[io.StringIO(text)], schema=schema,
-                                                  preserve_underscores=True)
+        yield from dendropy.Tree.yield_from_files(
+            files=[io.StringIO(text)], schema=schema, preserve_underscores=True
+        )
     except Exception as exc:
         raise _unreadable(exc, path, schema) from None
 
@@ -277,8 +306,10 @@ def read_trees(path, schema: str | None = None, root=None, fast: bool = True) ->
     if root is None and fast:
         arrays = read_tree_text(text, schema)
         if arrays is not None:
-            return [_build(labels, parent, length, i)
-                    for i, (labels, parent, length) in enumerate(arrays)]
+            return [
+                _build(labels, parent, length, i)
+                for i, (labels, parent, length) in enumerate(arrays)
+            ]
     return _read_trees_dendropy(path, schema, root, text)
 
 
@@ -317,9 +348,13 @@ def reroot(tree, root, where: str = "tree") -> None:
     if tree.seed_node.edge.length is None:
         tree.seed_node.edge.length = 0.0
     if root == "midpoint":
-        if any(nd.edge.length is None for nd in tree.preorder_node_iter() if nd is not tree.seed_node):
-            raise InputError(f"{where}: midpoint rooting needs every branch length; a branch has "
-                             "none. Use trees.root: {outgroup: [...]} or give lengths.")
+        if any(
+            nd.edge.length is None for nd in tree.preorder_node_iter() if nd is not tree.seed_node
+        ):
+            raise InputError(
+                f"{where}: midpoint rooting needs every branch length; a branch has "
+                "none. Use trees.root: {outgroup: [...]} or give lengths."
+            )
         tree.reroot_at_midpoint(update_bipartitions=False, suppress_unifurcations=True)
         tree.is_rooted = True
         return
@@ -329,11 +364,15 @@ def reroot(tree, root, where: str = "tree") -> None:
     if unknown:
         close = sorted(t for t in leaves if t.lower() == unknown[0].lower())
         hint = f" (did you mean '{close[0]}'?)" if close else ""
-        raise InputError(f"{where}: outgroup taxon '{unknown[0]}' (trees.root.outgroup) is not in "
-                         f"this tree{hint}.")
+        raise InputError(
+            f"{where}: outgroup taxon '{unknown[0]}' (trees.root.outgroup) is not in "
+            f"this tree{hint}."
+        )
     if len(wanted) >= len(leaves):
-        raise InputError(f"{where}: trees.root.outgroup lists every taxon of the tree; the "
-                         "outgroup must leave at least one taxon outside it.")
+        raise InputError(
+            f"{where}: trees.root.outgroup lists every taxon of the tree; the "
+            "outgroup must leave at least one taxon outside it."
+        )
     # first hang the tree from a taxon outside the outgroup, so that the outgroup, if it is a
     # clade of the unrooted tree, is a clade of this rooted one
     inside = set(wanted)
@@ -343,9 +382,11 @@ def reroot(tree, root, where: str = "tree") -> None:
     below = {nd.taxon.label for nd in mrca.leaf_iter()}
     if below != inside:
         intruder = sorted(below - inside)[0]
-        raise InputError(f"{where}: the outgroup ({', '.join(wanted)}) is not a clade in this tree: "
-                         f"the smallest group holding it also holds '{intruder}'. Check the "
-                         "trees.root.outgroup list, or use trees.root: midpoint.")
+        raise InputError(
+            f"{where}: the outgroup ({', '.join(wanted)}) is not a clade in this tree: "
+            f"the smallest group holding it also holds '{intruder}'. Check the "
+            "trees.root.outgroup list, or use trees.root: midpoint."
+        )
     if mrca is not tree.seed_node:
         _reroot_on_edge(tree, mrca)
     tree.is_rooted = True
@@ -360,8 +401,13 @@ def _reroot_on_edge(tree, node) -> None:
         total = length + (other.edge.length or 0.0)
         node.edge.length = other.edge.length = total / 2
         return
-    tree.reroot_at_edge(node.edge, length1=length / 2, length2=length / 2,
-                        update_bipartitions=False, suppress_unifurcations=True)
+    tree.reroot_at_edge(
+        node.edge,
+        length1=length / 2,
+        length2=length / 2,
+        update_bipartitions=False,
+        suppress_unifurcations=True,
+    )
 
 
 def parse_newick(text: str, index: int = 0, rooted: bool = False) -> TreeArrays:
@@ -397,17 +443,21 @@ def to_newick(tree: TreeArrays, digits: int = 10) -> str:
 
 # --- chunks of trees on disk -------------------------------------------------
 
+
 def save_trees(path, trees: list) -> None:
     """Write trees to one .npz file (arrays concatenated, with offsets)."""
     n_nodes = np.array([t.n_nodes for t in trees], dtype=np.int64)
     labels = json.dumps([list(t.tip_labels) for t in trees])
     buf = io.BytesIO()
-    np.savez(buf, n_nodes=n_nodes,
-             index=np.array([t.index for t in trees], dtype=np.int64),
-             parent=np.concatenate([t.parent for t in trees]),
-             length=np.concatenate([t.length for t in trees]),
-             labels=np.array(labels),
-             tree_set=np.array(json.dumps([t.tree_set for t in trees])))
+    np.savez(
+        buf,
+        n_nodes=n_nodes,
+        index=np.array([t.index for t in trees], dtype=np.int64),
+        parent=np.concatenate([t.parent for t in trees]),
+        length=np.concatenate([t.length for t in trees]),
+        labels=np.array(labels),
+        tree_set=np.array(json.dumps([t.tree_set for t in trees])),
+    )
     Path(path).write_bytes(buf.getvalue())
 
 
@@ -423,8 +473,12 @@ def load_trees(path) -> list:
     start = 0
     for k, n in enumerate(n_nodes):
         tips = shared.setdefault(tuple(labels[k]), tuple(labels[k]))
-        tree = _build(tips, parents[start:start + n].copy(), lengths[start:start + n].copy(),
-                      int(index[k]))
+        tree = _build(
+            tips,
+            parents[start : start + n].copy(),
+            lengths[start : start + n].copy(),
+            int(index[k]),
+        )
         out.append(dataclasses.replace(tree, tree_set=sets[k], _cache={}) if sets[k] else tree)
         start += n
     return out

@@ -144,13 +144,17 @@ def passes(tree, tip_partials, Q, root="uniform", states=None) -> Passes:
     n, k = tree.n_nodes, Q.shape[0]
     down = np.empty((n, k))
     count = np.empty(n, dtype=np.int64)
-    if not _prune_matrices(tree.child_ptr, tree.children, tree.n_tips, P, tip_partials, down, count):
+    if not _prune_matrices(
+        tree.child_ptr, tree.children, tree.n_tips, P, tip_partials, down, count
+    ):
         raise ImpossibleData("the tip data are impossible under this rate matrix")
     r = down[tree.root]
     prior = np.asarray(root_weights(root, Q, r, states), dtype=np.float64)
     total = float(prior @ r)
     if not total > 0.0:
-        raise ImpossibleData("the tip data are impossible under this rate matrix and root treatment")
+        raise ImpossibleData(
+            "the tip data are impossible under this rate matrix and root treatment"
+        )
     log_likelihood = float(np.log(total) - count[tree.root] * _LOG_SCALE)
     n, k = down.shape
     above = np.zeros((n, k))

@@ -24,10 +24,10 @@ import pandas as pd
 from .summarise import FEW_TREES, _q, as_text
 
 ALPHA = 0.05
-BEST = "best_model"     # tree_set_support rows of the best model on each tree
-CLEAR = 0.95            # fraction of tree pairs for "consistently"
-MOST = 0.75             # ... for "on most pairs of trees"
-TIE = 1e-6              # ln L differences below this are ties
+BEST = "best_model"  # tree_set_support rows of the best model on each tree
+CLEAR = 0.95  # fraction of tree pairs for "consistently"
+MOST = 0.75  # ... for "on most pairs of trees"
+TIE = 1e-6  # ln L differences below this are ties
 
 
 def _set_col(fits):
@@ -55,25 +55,66 @@ def treatment_support(fits: pd.DataFrame) -> pd.DataFrame:
         n = g["tree"].nunique()
         if n == 0:
             continue
-        per_tree = g.pivot_table(index="tree", columns="branches", values="weight",
-                                 aggfunc="sum", fill_value=0.0)
+        per_tree = g.pivot_table(
+            index="tree", columns="branches", values="weight", aggfunc="sum", fill_value=0.0
+        )
         best = g.loc[g.groupby("tree")["delta"].idxmin(), ["tree", "branches"]]
         for label in dict.fromkeys(g["branches"]):
             w = per_tree[label]
-            rows.append({"tree_set": ts, "analysis": analysis, "branches": label,
-                         "models": ",".join(dict.fromkeys(g.loc[g["branches"] == label, "model"])),
-                         "n_trees": n, "mean_weight": float(w.mean()),
-                         "median_weight": float(w.median()),
-                         "fraction_best": float((best["branches"] == label).mean())})
-    return pd.DataFrame(rows, columns=["tree_set", "analysis", "branches", "models", "n_trees",
-                                       "mean_weight", "median_weight", "fraction_best"])
+            rows.append(
+                {
+                    "tree_set": ts,
+                    "analysis": analysis,
+                    "branches": label,
+                    "models": ",".join(dict.fromkeys(g.loc[g["branches"] == label, "model"])),
+                    "n_trees": n,
+                    "mean_weight": float(w.mean()),
+                    "median_weight": float(w.median()),
+                    "fraction_best": float((best["branches"] == label).mean()),
+                }
+            )
+    return pd.DataFrame(
+        rows,
+        columns=[
+            "tree_set",
+            "analysis",
+            "branches",
+            "models",
+            "n_trees",
+            "mean_weight",
+            "median_weight",
+            "fraction_best",
+        ],
+    )
 
 
-TEST_COLUMNS = ["tree_set", "analysis", "null", "alternative", "branches", "tree", "statistic",
-                "df", "p_value", "branch_parameter", "note"]
-TEST_SUMMARY_COLUMNS = ["tree_set", "analysis", "null", "alternative", "branches", "n_trees",
-                        "median_statistic", "statistic_low95", "statistic_high95",
-                        "fraction_rejected", "alpha", "n_below_null"]
+TEST_COLUMNS = [
+    "tree_set",
+    "analysis",
+    "null",
+    "alternative",
+    "branches",
+    "tree",
+    "statistic",
+    "df",
+    "p_value",
+    "branch_parameter",
+    "note",
+]
+TEST_SUMMARY_COLUMNS = [
+    "tree_set",
+    "analysis",
+    "null",
+    "alternative",
+    "branches",
+    "n_trees",
+    "median_statistic",
+    "statistic_low95",
+    "statistic_high95",
+    "fraction_rejected",
+    "alpha",
+    "n_below_null",
+]
 # An estimated treatment contains the given lengths, so its ln L cannot truly be below
 # theirs; a fit further below than the optimiser's agreement tolerance missed its maximum.
 BELOW_NULL = 0.01
@@ -105,10 +146,14 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
         for alt in first["model"]:
             if label[alt] not in ("kappa", "lambda", "delta", "early_burst"):
                 continue
-            same = dict(zip(first["model"], as_text(first["same_as"]))) if "same_as" in first \
-                else {}
-            nulls = [m for m in first["model"] if label[m] == "as_given" and base[m] == base[alt]
-                     and not same.get(m)]
+            same = (
+                dict(zip(first["model"], as_text(first["same_as"]))) if "same_as" in first else {}
+            )
+            nulls = [
+                m
+                for m in first["model"]
+                if label[m] == "as_given" and base[m] == base[alt] and not same.get(m)
+            ]
             if not nulls:
                 continue
             null = nulls[0]
@@ -121,28 +166,50 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
                 stat = max(0.0, 2.0 * (la - lb)) if np.isfinite(la) and np.isfinite(lb) else np.nan
                 note = ""
                 if np.isfinite(la) and np.isfinite(lb) and la < lb - BELOW_NULL:
-                    note = (f"the fit with {label[alt]} is {lb - la:.3g} log-units below the fit "
-                            "on the given lengths, which it contains: its optimiser missed the "
-                            "maximum on this tree; statistic set to 0")
-                rows.append({"tree_set": ts, "analysis": analysis, "null": null,
-                             "alternative": alt, "branches": label[alt], "tree": int(tree),
-                             "statistic": stat, "df": 1,
-                             "p_value": lrt_p_value(stat, label[alt]),
-                             "branch_parameter": a.at[tree, "branch_parameter"], "note": note})
+                    note = (
+                        f"the fit with {label[alt]} is {lb - la:.3g} log-units below the fit "
+                        "on the given lengths, which it contains: its optimiser missed the "
+                        "maximum on this tree; statistic set to 0"
+                    )
+                rows.append(
+                    {
+                        "tree_set": ts,
+                        "analysis": analysis,
+                        "null": null,
+                        "alternative": alt,
+                        "branches": label[alt],
+                        "tree": int(tree),
+                        "statistic": stat,
+                        "df": 1,
+                        "p_value": lrt_p_value(stat, label[alt]),
+                        "branch_parameter": a.at[tree, "branch_parameter"],
+                        "note": note,
+                    }
+                )
             per_tree += rows
             stats = np.array([r["statistic"] for r in rows], dtype=float)
             ps = np.array([r["p_value"] for r in rows], dtype=float)
             ok = np.isfinite(ps)
-            summary.append({"tree_set": ts, "analysis": analysis, "null": null, "alternative": alt,
-                            "branches": label[alt], "n_trees": int(ok.sum()),
-                            "median_statistic": float(np.median(stats[ok])) if ok.any() else np.nan,
-                            "statistic_low95": _q(stats, 0.025),
-                            "statistic_high95": _q(stats, 0.975),
-                            "fraction_rejected": float((ps[ok] < alpha).mean()) if ok.any()
-                            else np.nan, "alpha": alpha,
-                            "n_below_null": sum(1 for r in rows if r["note"])})
-    return (pd.DataFrame(per_tree, columns=TEST_COLUMNS),
-            pd.DataFrame(summary, columns=TEST_SUMMARY_COLUMNS))
+            summary.append(
+                {
+                    "tree_set": ts,
+                    "analysis": analysis,
+                    "null": null,
+                    "alternative": alt,
+                    "branches": label[alt],
+                    "n_trees": int(ok.sum()),
+                    "median_statistic": float(np.median(stats[ok])) if ok.any() else np.nan,
+                    "statistic_low95": _q(stats, 0.025),
+                    "statistic_high95": _q(stats, 0.975),
+                    "fraction_rejected": float((ps[ok] < alpha).mean()) if ok.any() else np.nan,
+                    "alpha": alpha,
+                    "n_below_null": sum(1 for r in rows if r["note"]),
+                }
+            )
+    return (
+        pd.DataFrame(per_tree, columns=TEST_COLUMNS),
+        pd.DataFrame(summary, columns=TEST_SUMMARY_COLUMNS),
+    )
 
 
 def _best_rows(fits, criterion):
@@ -182,14 +249,21 @@ def tree_set_support(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFram
         top = max(sets, key=lambda s: med[s])
         for s in sets:
             crit = g.loc[g["tree_set"] == s, criterion].astype(float)
-            row = {"analysis": analysis, "model": model, "tree_set": s, "n_trees": len(ll[s]),
-                   "median_log_likelihood": med[s] if len(ll[s]) else np.nan,
-                   "log_likelihood_low95": _q(ll[s], 0.025),
-                   "log_likelihood_high95": _q(ll[s], 0.975),
-                   f"median_{criterion}": _q(crit, 0.5),
-                   f"{criterion}_low95": _q(crit, 0.025),
-                   f"{criterion}_high95": _q(crit, 0.975),
-                   "compared_with": "", "fraction_better": np.nan, "statement": ""}
+            row = {
+                "analysis": analysis,
+                "model": model,
+                "tree_set": s,
+                "n_trees": len(ll[s]),
+                "median_log_likelihood": med[s] if len(ll[s]) else np.nan,
+                "log_likelihood_low95": _q(ll[s], 0.025),
+                "log_likelihood_high95": _q(ll[s], 0.975),
+                f"median_{criterion}": _q(crit, 0.5),
+                f"{criterion}_low95": _q(crit, 0.025),
+                f"{criterion}_high95": _q(crit, 0.975),
+                "compared_with": "",
+                "fraction_better": np.nan,
+                "statement": "",
+            }
             if len(sets) > 1 and s != top:
                 frac = fraction_higher(ll[top], ll[s])
                 statement = _statement(analysis, model, top, s, frac, med)
@@ -214,5 +288,7 @@ def _statement(analysis, model, top, other, frac, med) -> str:
         how = f"fits better on '{top}' than on '{other}' for most pairs of trees"
     else:
         how = f"shows no consistent difference between '{top}' and '{other}'"
-    return (f"'{analysis}' under {what} {how} ({gap}; ln L higher on '{top}' in "
-            f"{frac:.0%} of pairs of trees, one from each set)")
+    return (
+        f"'{analysis}' under {what} {how} ({gap}; ln L higher on '{top}' in "
+        f"{frac:.0%} of pairs of trees, one from each set)"
+    )

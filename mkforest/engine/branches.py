@@ -28,6 +28,7 @@ depend on the unit of length).
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 import numba
 import numpy as np
@@ -42,6 +43,9 @@ from .treatments import (  # noqa: F401 (the names users of this module import)
     _height,
     parse_treatment,
 )
+
+if TYPE_CHECKING:
+    from ..data.trees import TreeArrays
 
 # 1/(n+1)! and n/(n+1)! for the series of phi(z) = (e^z - 1)/z and phi'(z), |z| <= 0.5
 # (18 terms: truncation error below 1e-20).
@@ -66,8 +70,9 @@ def _phi_pair(z, phi_coef, dphi_coef):
 
 
 @numba.njit(cache=True)
-def _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_coef, held, out,
-               deriv):
+def _transform(
+    code, t, d, log_t, log_r, parent, n_tips, H, x, phi_coef, dphi_coef, held, out, deriv
+):
     """Effective lengths (out) and d/dx (deriv) for one estimable treatment, every node
     (the formulas of the module docstring; the root's entry is 0), and the length the
     fit holds the rates to with its d/dx (``_held_length``, kind ``held``). log_t = ln t
@@ -172,8 +177,22 @@ def effective_lengths(tree, treatment: Treatment, x: float | None = None):
         return np.where(t > 0.0, 1.0, 0.0), np.zeros_like(t)
     out = np.empty_like(t)
     deriv = np.empty_like(t)
-    _transform(_CODES[name], t, d, log_t, log_r, tree.parent, tree.n_tips, H, float(x), _PHI,
-               _DPHI, 0, out, deriv)
+    _transform(
+        _CODES[name],
+        t,
+        d,
+        log_t,
+        log_r,
+        tree.parent,
+        tree.n_tips,
+        H,
+        float(x),
+        _PHI,
+        _DPHI,
+        0,
+        out,
+        deriv,
+    )
     return out, deriv
 
 
@@ -218,18 +237,31 @@ class Transform:
             self.out[:] = t
             self.deriv[:] = 0.0
             return self.out, self.deriv, self.given, 0.0
-        total, dtotal = _transform(self.code, t, self.d, self.log_t, self.log_r,
-                                   self.tree.parent, self.tree.n_tips, self.H, float(x), _PHI,
-                                   _DPHI, self.held, self.out, self.deriv)
+        total, dtotal = _transform(
+            self.code,
+            t,
+            self.d,
+            self.log_t,
+            self.log_r,
+            self.tree.parent,
+            self.tree.n_tips,
+            self.H,
+            float(x),
+            _PHI,
+            _DPHI,
+            self.held,
+            self.out,
+            self.deriv,
+        )
         return self.out, self.deriv, total, dtotal
 
 
-def with_lengths(tree, lengths) -> "TreeArrays":
+def with_lengths(tree, lengths) -> TreeArrays:
     """A copy of ``tree`` (same topology, index and set) with other branch lengths."""
     return tree.with_lengths(lengths)
 
 
-def transformed_tree(tree, treatment: Treatment, theta: float | None = None) -> "TreeArrays":
+def transformed_tree(tree, treatment: Treatment, theta: float | None = None) -> TreeArrays:
     """The tree with the effective lengths of ``treatment`` at parameter ``theta``
     (the reported value: kappa, lambda, delta or a)."""
     if treatment.name == "as_given":
@@ -240,7 +272,7 @@ def transformed_tree(tree, treatment: Treatment, theta: float | None = None) -> 
     return with_lengths(tree, effective_lengths(tree, treatment, x)[0])
 
 
-def tree_of_fit(tree, label, parameter) -> "TreeArrays":
+def tree_of_fit(tree, label, parameter) -> TreeArrays:
     """The tree a fit used, from its fits.tsv ``branches`` label ('as_given', 'unit',
     'kappa', 'kappa=0', ...) and ``branch_parameter`` (estimate; nan when fixed or none)."""
     label = str(label or "as_given")

@@ -60,29 +60,30 @@ _IMPOSSIBLE = 1e8
 class FitResult:
     model_name: str
     log_likelihood: float
-    rates: np.ndarray          # free rates, in ``labels`` order
+    rates: np.ndarray  # free rates, in ``labels`` order
     labels: tuple
     n_params: int
     converged: bool
     n_starts: int
-    n_agree: int               # starts within AGREE_TOL of the best
-    at_lower: tuple            # labels of rates at the lower bound (effectively zero)
-    at_upper: tuple            # labels of rates at the upper bound, or moving with one there
-                               # (change too fast to estimate; only their ratios are)
+    n_agree: int  # starts within AGREE_TOL of the best
+    at_lower: tuple  # labels of rates at the lower bound (effectively zero)
+    at_upper: tuple  # labels of rates at the upper bound, or moving with one there
+    # (change too fast to estimate; only their ratios are)
     root: str
     q_matrix: np.ndarray = None
     notes: list = field(default_factory=list)
     start_log_likelihoods: tuple = ()  # the best ln L each start reached, in start order
-    open_upper: tuple = ()     # labels of rates inside the bounds whose 95% likelihood interval
-                               # reaches the upper bound: the data do not bound them from above
+    open_upper: tuple = ()  # labels of rates inside the bounds whose 95% likelihood interval
+    # reaches the upper bound: the data do not bound them from above
 
     @property
     def unbounded(self) -> tuple:
         """Labels of rates the data do not bound from above (at_upper, then open_upper)."""
         return self.at_upper + tuple(x for x in self.open_upper if x not in self.at_upper)
-    branches: str = "as_given"           # the treatment's label (mkforest.engine.branches)
-    branch_parameter: float = math.nan   # its estimate (or fixed value); nan when it has none
-    branch_at_bound: str = ""            # "lower" / "upper" when the estimate is at a bound
+
+    branches: str = "as_given"  # the treatment's label (mkforest.engine.branches)
+    branch_parameter: float = math.nan  # its estimate (or fixed value); nan when it has none
+    branch_at_bound: str = ""  # "lower" / "upper" when the estimate is at a bound
 
     def rate_of(self, label: str) -> float:
         return float(self.rates[self.labels.index(label)])
@@ -146,7 +147,7 @@ def _fitch(child_ptr, children, n_tips, tip_bits, k):
 def _starting_rate(tree, tip_partials, model) -> float:
     k_obs = len(model.observed_states)
     X = np.asarray(tip_partials)
-    if X.shape[1] != k_obs:          # a hidden-class model's combined states: back to observed
+    if X.shape[1] != k_obs:  # a hidden-class model's combined states: back to observed
         X = model.collapse(X)
     changes = max(fitch_score(tree, X), 1)
     # a tree without length (every branch 0) has no time for change: any rate is as good a
@@ -217,8 +218,9 @@ def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
     return best[0], best[1], best[2], tuple(sorted(open_ - set(best[2])))
 
 
-def start_sequence(tree, tip_partials, model, seed: int = 0, lower: float = LOWER,
-                   upper: float = UPPER):
+def start_sequence(
+    tree, tip_partials, model, seed: int = 0, lower: float = LOWER, upper: float = UPPER
+):
     """(starts, (lo, hi)): an endless iterator of starting log-rates and the
     log-rate bounds.
 
@@ -229,8 +231,11 @@ def start_sequence(tree, tip_partials, model, seed: int = 0, lower: float = LOWE
     p = model.n_params
     height = tree.height if tree.height > 0 else 1.0
     lo, hi = math.log(lower / height), math.log(upper / height)
-    guess = math.log(min(max(_starting_rate(tree, tip_partials, model), lower / height * 10),
-                         upper / height / 10))
+    guess = math.log(
+        min(
+            max(_starting_rate(tree, tip_partials, model), lower / height * 10), upper / height / 10
+        )
+    )
 
     def starts():
         rng = np.random.default_rng(seed)
@@ -243,8 +248,15 @@ def start_sequence(tree, tip_partials, model, seed: int = 0, lower: float = LOWE
     return starts(), (lo, hi)
 
 
-def starting_points(tree, tip_partials, model, n_starts: int = 5, seed: int = 0,
-                    lower: float = LOWER, upper: float = UPPER):
+def starting_points(
+    tree,
+    tip_partials,
+    model,
+    n_starts: int = 5,
+    seed: int = 0,
+    lower: float = LOWER,
+    upper: float = UPPER,
+):
     """(the first ``n_starts`` of ``start_sequence``, (lo, hi))."""
     starts, bounds = start_sequence(tree, tip_partials, model, seed, lower, upper)
     return [next(starts) for _ in range(n_starts)], bounds
@@ -349,12 +361,46 @@ class _TreatmentSpace:
         tree, tr = self.tree, self.transform
         out = np.empty(self.p + 1)
         status, ll = _treatment_objective(
-            z, self.p, self.s, self.bounds[0], self.bounds[1], self.null, self.lo, self.hi,
-            tr.code, tree.length, tr.d, tr.log_t, tr.log_r, tree.parent, tree.n_tips, tr.H,
-            _PHI, _DPHI, tr.held, tr.out, tr.deriv, self.given, self.rate_buffer,
-            self.model.rate_index, ev.base, ev.Q, _MAX_EIGEN_CONDITION, tree.child_ptr,
-            tree.children, ev.E1[False], ev.E1[True], ev.tips, ev.data_weighted, ev.weights,
-            _PHI1, ev.root_partial, ev.grad, ev.dlen, out)
+            z,
+            self.p,
+            self.s,
+            self.bounds[0],
+            self.bounds[1],
+            self.null,
+            self.lo,
+            self.hi,
+            tr.code,
+            tree.length,
+            tr.d,
+            tr.log_t,
+            tr.log_r,
+            tree.parent,
+            tree.n_tips,
+            tr.H,
+            _PHI,
+            _DPHI,
+            tr.held,
+            tr.out,
+            tr.deriv,
+            self.given,
+            self.rate_buffer,
+            self.model.rate_index,
+            ev.base,
+            ev.Q,
+            _MAX_EIGEN_CONDITION,
+            tree.child_ptr,
+            tree.children,
+            ev.E1[False],
+            ev.E1[True],
+            ev.tips,
+            ev.data_weighted,
+            ev.weights,
+            _PHI1,
+            ev.root_partial,
+            ev.grad,
+            ev.dlen,
+            out,
+        )
         return status, ll, out
 
     def value(self, z) -> float:
@@ -362,9 +408,13 @@ class _TreatmentSpace:
         if status == 0:
             return ll
         lengths, _, shift, _ = self._lengths(self.branch_x(z))
-        return log_likelihood(with_lengths(self.tree, lengths), self.tip_partials,
-                              self.model.q_matrix(np.exp(z[: self.p] + shift)), self.root,
-                              self.model.states)
+        return log_likelihood(
+            with_lengths(self.tree, lengths),
+            self.tip_partials,
+            self.model.q_matrix(np.exp(z[: self.p] + shift)),
+            self.root,
+            self.model.states,
+        )
 
     def objective(self, z):
         """(-lnL, -gradient). d lnL / dy_i = d lnL / d ln r_i; d lnL / dx =
@@ -397,27 +447,82 @@ class _TreatmentSpace:
 
 
 @numba.njit(cache=True)
-def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_t, log_r,
-                         parent, n_tips, H, phi, dphi, held, lengths, dl, given, rates,
-                         rate_index, base, Q, max_condition, child_ptr, children, E1, E1c, tips,
-                         data_weighted, weights, coef, root_partial, grad, dlen, out):
+def _treatment_objective(
+    z,
+    p,
+    s,
+    w_lo,
+    w_hi,
+    null,
+    x_lo,
+    x_hi,
+    code,
+    t,
+    d,
+    log_t,
+    log_r,
+    parent,
+    n_tips,
+    H,
+    phi,
+    dphi,
+    held,
+    lengths,
+    dl,
+    given,
+    rates,
+    rate_index,
+    base,
+    Q,
+    max_condition,
+    child_ptr,
+    children,
+    E1,
+    E1c,
+    tips,
+    data_weighted,
+    weights,
+    coef,
+    root_partial,
+    grad,
+    dlen,
+    out,
+):
     """``_TreatmentSpace.objective`` in one compiled call: branch value x from w, the
     transformed lengths, the rates exp(y) T / T', ``_evaluate_rates`` and the chain
     rule. Returns (status, lnL) with ``_evaluate_rates``' status; out = (-d lnL / dy,
     -d lnL / dw) when the status is 0."""
     w = z[p]
     x = x_lo if w == w_lo else (x_hi if w == w_hi else null + s * w)
-    total, dtotal = _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, phi, dphi,
-                               held, lengths, dl)
+    total, dtotal = _transform(
+        code, t, d, log_t, log_r, parent, n_tips, H, x, phi, dphi, held, lengths, dl
+    )
     shift, dshift = 0.0, 0.0
     if given > 0.0 and total > 0.0:
         shift = math.log(given / total)
         dshift = -dtotal / total
     for i in range(p):
         rates[i] = math.exp(z[i] + shift)
-    status, ll = _evaluate_rates(rates, rate_index, base, Q, max_condition, child_ptr, children,
-                                 n_tips, lengths, E1, E1c, tips, data_weighted, weights, coef,
-                                 root_partial, grad, dlen)
+    status, ll = _evaluate_rates(
+        rates,
+        rate_index,
+        base,
+        Q,
+        max_condition,
+        child_ptr,
+        children,
+        n_tips,
+        lengths,
+        E1,
+        E1c,
+        tips,
+        data_weighted,
+        weights,
+        coef,
+        root_partial,
+        grad,
+        dlen,
+    )
     if status != 0:
         return status, ll
     gsum = 0.0
@@ -432,9 +537,18 @@ def _treatment_objective(z, p, s, w_lo, w_hi, null, x_lo, x_hi, code, t, d, log_
     return status, ll
 
 
-def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STARTS, seed: int = 0,
-              lower: float = LOWER, upper: float = UPPER, max_starts: int = MAX_STARTS,
-              branches: Treatment | None = None) -> FitResult:
+def fit_model(
+    tree,
+    tip_partials,
+    model,
+    root="uniform",
+    n_starts: int = MIN_STARTS,
+    seed: int = 0,
+    lower: float = LOWER,
+    upper: float = UPPER,
+    max_starts: int = MAX_STARTS,
+    branches: Treatment | None = None,
+) -> FitResult:
     """Maximum-likelihood rates of ``model`` on one tree (see the module docstring).
 
     Runs the seeded starts in order: at least ``n_starts`` and min(free rates,
@@ -458,9 +572,22 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
     fixed = treatment.fixed if treatment.fixed is not None else math.nan
     if p + q == 0:
         ll = f(np.zeros(0))
-        return FitResult(model.name, ll, np.zeros(0), model.labels, 0, np.isfinite(ll), 1, 1,
-                         (), (), root, model.q_matrix(np.zeros(0)), branches=treatment.label,
-                         branch_parameter=fixed)
+        return FitResult(
+            model.name,
+            ll,
+            np.zeros(0),
+            model.labels,
+            0,
+            np.isfinite(ll),
+            1,
+            1,
+            (),
+            (),
+            root,
+            model.q_matrix(np.zeros(0)),
+            branches=treatment.label,
+            branch_parameter=fixed,
+        )
     starts, (lo, hi) = start_sequence(tree, tip_partials, model, seed, lower, upper)
     max_starts = max(max_starts, n_starts)
     least = min_starts(model.n_params, n_starts, max_starts)
@@ -505,8 +632,9 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
         notes.append(f"only 1 of {run} starts reached the best log-likelihood")
     tied = open_ = ()
     if np.isfinite(ll):
-        best_x, ll = _settle_at_bounds(value, best_x, ll, [b[0] for b in bounds],
-                                       [b[1] for b in bounds])
+        best_x, ll = _settle_at_bounds(
+            value, best_x, ll, [b[0] for b in bounds], [b[1] for b in bounds]
+        )
         tied, open_ = (), ()
         if not q:  # rates that move together at the upper bound
             best_x, ll, tied, open_ = _settle_jointly_at_upper(f, best_x, ll, lo, hi)
@@ -541,9 +669,26 @@ def fit_model(tree, tip_partials, model, root="uniform", n_starts: int = MIN_STA
         rates = np.full(p, np.nan)
         theta, side = (math.nan if q else theta), ""
         n_agree = 0
-    return FitResult(model.name, ll, rates, model.labels, p + q, converged, run, n_agree,
-                     at_lower, at_upper, root, model.q_matrix(rates), notes, per_start,
-                     open_upper, treatment.label, theta, side)
+    return FitResult(
+        model.name,
+        ll,
+        rates,
+        model.labels,
+        p + q,
+        converged,
+        run,
+        n_agree,
+        at_lower,
+        at_upper,
+        root,
+        model.q_matrix(rates),
+        notes,
+        per_start,
+        open_upper,
+        treatment.label,
+        theta,
+        side,
+    )
 
 
 SCALE_FIRST_STEP = True
@@ -592,11 +737,20 @@ def _descend(objective, x0, bounds, ftol=1e-10, known=(), drop=None):
 
     def reached_known(x):
         f = seen.get(x.tobytes())
-        return f is not None and any(abs(f[0] - fk) <= SAME_F and
-                                     float(np.max(np.abs(x - xk))) <= SAME_X for fk, xk in known)
+        return f is not None and any(
+            abs(f[0] - fk) <= SAME_F and float(np.max(np.abs(x - xk))) <= SAME_X for fk, xk in known
+        )
 
-    x = minimise(scaled, x0, lo, hi, ftol=ftol, gtol=1e-6 / c, maxiter=1000,
-                 stop=reached_known if len(known) else None)
+    x = minimise(
+        scaled,
+        x0,
+        lo,
+        hi,
+        ftol=ftol,
+        gtol=1e-6 / c,
+        maxiter=1000,
+        stop=reached_known if len(known) else None,
+    )
     # the unscaled value at the point returned (f / c * c need not round back to f)
     key = np.asarray(x, dtype=float).tobytes()
     return (seen[key][0] if key in seen else objective(x)[0]), x

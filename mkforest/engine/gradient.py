@@ -102,8 +102,25 @@ def _normalise_abs(x):
 
 
 @numba.njit(cache=True)
-def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use_matrices,
-                   partials, B, msg, root_outside, coef, G, dlen):
+def _gradient_pass(
+    child_ptr,
+    children,
+    n_tips,
+    length,
+    lam,
+    E1,
+    V,
+    Vinv,
+    P,
+    use_matrices,
+    partials,
+    B,
+    msg,
+    root_outside,
+    coef,
+    G,
+    dlen,
+):
     """Up pass and accumulation of G (see the module docstring).
 
     partials   [n_nodes, k]  the down pass of the likelihood kernel (scaled per node)
@@ -215,8 +232,25 @@ def _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P, use
 
 
 @numba.njit(cache=True)
-def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv, tip_partials,
-                        data_weighted, weights, rate_index, coef, root_partial, grad, dlen):
+def _value_and_gradient(
+    child_ptr,
+    children,
+    n_tips,
+    length,
+    Q,
+    lam,
+    E1,
+    V,
+    Vinv,
+    tip_partials,
+    data_weighted,
+    weights,
+    rate_index,
+    coef,
+    root_partial,
+    grad,
+    dlen,
+):
     """Down pass (the likelihood kernel), root, up pass and contraction in one call.
 
     data_weighted: root weights L_i / sum L (FitzJohn et al. 2009), else ``weights``.
@@ -238,8 +272,9 @@ def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv
     msg = np.empty((n, k))
     if irreducible:
         P = np.empty((0, k, k))
-        ok = _down_pass_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials,
-                              count, B, msg)
+        ok = _down_pass_eigen(
+            child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, count, B, msg
+        )
     else:
         P = np.empty((n, k, k))
         _p_from_eigen(E1, V, Vinv, reach, length, P)
@@ -269,8 +304,25 @@ def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv
     for i in range(k):
         root_partial[i] = partials[n - 1, i] / total
     G = np.empty((k, k), dtype=V.dtype)
-    if not _gradient_pass(child_ptr, children, n_tips, length, lam, E1, V, Vinv, P,
-                          not irreducible, partials, B, msg, outside, coef, G, dlen):
+    if not _gradient_pass(
+        child_ptr,
+        children,
+        n_tips,
+        length,
+        lam,
+        E1,
+        V,
+        Vinv,
+        P,
+        not irreducible,
+        partials,
+        B,
+        msg,
+        outside,
+        coef,
+        G,
+        dlen,
+    ):
         return 2, ll
     # d lnL/d theta_p = sum over entries (i, j) of parameter p of H_ij - H_ii,
     # H = Re(V^-T G V^T)
@@ -292,8 +344,9 @@ def _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv
     return 0, ll
 
 
-def finite_difference_gradient(tree, tip_partials, model, rates, root="uniform", states=None,
-                               step: float = FD_STEP):
+def finite_difference_gradient(
+    tree, tip_partials, model, rates, root="uniform", states=None, step: float = FD_STEP
+):
     """(lnL, d lnL / d log-rate) with central differences of ``likelihood.log_likelihood``
     (one-sided where one side is impossible; 0 where both are)."""
     rates = np.asarray(rates, dtype=np.float64)
@@ -374,9 +427,26 @@ def _row_sum(a):
 
 
 @numba.njit(cache=True)
-def _evaluate_rates(rates, rate_index, base, Q, max_condition, child_ptr, children, n_tips,
-                    length, E1, E1c, tip_partials, data_weighted, weights, coef, root_partial,
-                    grad, dlen):
+def _evaluate_rates(
+    rates,
+    rate_index,
+    base,
+    Q,
+    max_condition,
+    child_ptr,
+    children,
+    n_tips,
+    length,
+    E1,
+    E1c,
+    tip_partials,
+    data_weighted,
+    weights,
+    coef,
+    root_partial,
+    grad,
+    dlen,
+):
     """Q, its eigensystem, expm1 and ``_value_and_gradient`` in one compiled call, for a
     root whose weights do not depend on Q. Returns (status, lnL) with status 0-2 as
     ``_value_and_gradient`` and 3 where this path does not apply (an ill-conditioned
@@ -387,9 +457,25 @@ def _evaluate_rates(rates, rate_index, base, Q, max_condition, child_ptr, childr
     ok, lam, V, Vinv = _real_eigensystem(Q, max_condition)
     if ok:
         _expm1_real(length, lam, E1)
-        return _value_and_gradient(child_ptr, children, n_tips, length, Q, lam, E1, V, Vinv,
-                                   tip_partials, data_weighted, weights, rate_index, coef,
-                                   root_partial, grad, dlen)
+        return _value_and_gradient(
+            child_ptr,
+            children,
+            n_tips,
+            length,
+            Q,
+            lam,
+            E1,
+            V,
+            Vinv,
+            tip_partials,
+            data_weighted,
+            weights,
+            rate_index,
+            coef,
+            root_partial,
+            grad,
+            dlen,
+        )
     if Q.shape[0] == 2:
         return 3, 0.0
     try:
@@ -405,9 +491,25 @@ def _evaluate_rates(rates, rate_index, base, Q, max_condition, child_ptr, childr
     if real or not cond < max_condition:  # real: the real solver turned Q down
         return 3, 0.0
     _expm1_complex(length, lamc, E1c)
-    return _value_and_gradient(child_ptr, children, n_tips, length, Q, lamc, E1c, Vc, Vinvc,
-                               tip_partials, data_weighted, weights, rate_index, coef,
-                               root_partial, grad, dlen)
+    return _value_and_gradient(
+        child_ptr,
+        children,
+        n_tips,
+        length,
+        Q,
+        lamc,
+        E1c,
+        Vc,
+        Vinvc,
+        tip_partials,
+        data_weighted,
+        weights,
+        rate_index,
+        coef,
+        root_partial,
+        grad,
+        dlen,
+    )
 
 
 class Evaluator:
@@ -428,8 +530,13 @@ class Evaluator:
         self.stationary = root == "stationary"
         self.data_weighted = root == "data_weighted"
         # uniform and fixed-state roots: weights that do not depend on Q
-        self.weights = (_ONE if self.data_weighted else None if self.stationary
-                        else root_weights(root, np.zeros((k, k)), None, self.states))
+        self.weights = (
+            _ONE
+            if self.data_weighted
+            else None
+            if self.stationary
+            else root_weights(root, np.zeros((k, k)), None, self.states)
+        )
         self.E1 = {False: np.empty((n, k)), True: np.empty((n, k), dtype=np.complex128)}
         self.root_partial = np.empty(k)
         self.grad = np.empty(model.n_params)
@@ -446,10 +553,25 @@ class Evaluator:
         status, Q = 3, None
         if self.fused:
             status, ll = _evaluate_rates(
-                rates, self.model.rate_index, self.base, self.Q, _MAX_EIGEN_CONDITION,
-                tree.child_ptr, tree.children, tree.n_tips, length, self.E1[False],
-                self.E1[True], self.tips, self.data_weighted, self.weights, _PHI1,
-                self.root_partial, self.grad, self.dlen)
+                rates,
+                self.model.rate_index,
+                self.base,
+                self.Q,
+                _MAX_EIGEN_CONDITION,
+                tree.child_ptr,
+                tree.children,
+                tree.n_tips,
+                length,
+                self.E1[False],
+                self.E1[True],
+                self.tips,
+                self.data_weighted,
+                self.weights,
+                _PHI1,
+                self.root_partial,
+                self.grad,
+                self.dlen,
+            )
         if status == 3:  # a stationary root, or an ill-conditioned or defective Q
             Q = self.model.q_matrix(rates)
             es = _analytic_eigensystem(Q, self.root)
@@ -460,10 +582,25 @@ class Evaluator:
             complex_ = lam.dtype == np.complex128
             E1 = self.E1[complex_]
             (_expm1_complex if complex_ else _expm1_real)(length, lam, E1)
-            status, ll = _value_and_gradient(tree.child_ptr, tree.children, tree.n_tips, length,
-                                             Q, lam, E1, V, Vinv, self.tips, self.data_weighted,
-                                             weights, self.model.rate_index, _PHI1,
-                                             self.root_partial, self.grad, self.dlen)
+            status, ll = _value_and_gradient(
+                tree.child_ptr,
+                tree.children,
+                tree.n_tips,
+                length,
+                Q,
+                lam,
+                E1,
+                V,
+                Vinv,
+                self.tips,
+                self.data_weighted,
+                weights,
+                self.model.rate_index,
+                _PHI1,
+                self.root_partial,
+                self.grad,
+                self.dlen,
+            )
         if status == 1:
             self.dlen[:] = 0.0
             return -np.inf, np.zeros(self.model.n_params), self.dlen
@@ -476,18 +613,22 @@ class Evaluator:
             z = np.linalg.solve(Q - weights[None, :], self.root_partial)
             M = -weights[:, None] * (z[None, :] - z[:, None])
             free = self.model.rate_index >= 0
-            grad = grad + np.bincount(self.model.rate_index[free], weights=M[free],
-                                      minlength=self.model.n_params)
+            grad = grad + np.bincount(
+                self.model.rate_index[free], weights=M[free], minlength=self.model.n_params
+            )
         return ll, grad * rates, self.dlen
 
     def _finite_differences(self, rates, length):
         tree = self.tree if length is self.tree.length else self.tree.with_lengths(length)
-        return (*finite_difference_gradient(tree, self.tips, self.model, rates, self.root,
-                                            self.states), None)
+        return (
+            *finite_difference_gradient(tree, self.tips, self.model, rates, self.root, self.states),
+            None,
+        )
 
 
-def log_likelihood_and_gradient(tree, tip_partials, model, rates, root="uniform", states=None,
-                                lengths_gradient: bool = False):
+def log_likelihood_and_gradient(
+    tree, tip_partials, model, rates, root="uniform", states=None, lengths_gradient: bool = False
+):
     """(lnL, d lnL / d log(rate_p) for every free rate p) of ``model`` at ``rates``.
 
     lnL is the engine's ``likelihood.log_likelihood`` (same kernels; equal to

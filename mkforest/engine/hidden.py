@@ -45,8 +45,9 @@ def combined_label(state: str, cls: int) -> str:
 
 def check_switch(class_switch, where: str) -> str:
     if class_switch not in SWITCH_KINDS:
-        raise InputError(f"{where}: class_switch is {class_switch!r}; use one of "
-                         f"{', '.join(SWITCH_KINDS)}.")
+        raise InputError(
+            f"{where}: class_switch is {class_switch!r}; use one of {', '.join(SWITCH_KINDS)}."
+        )
     return class_switch
 
 
@@ -61,11 +62,13 @@ def check_no_class_in_transitions(transitions, states, where: str) -> None:
                     f"{where}: transition '{key}' names hidden class {cls} ('{name}'); list "
                     "transitions between observed states only: with hidden_classes every class "
                     "gets the same structure with its own rates, and class_switch sets how "
-                    "lineages change class.")
+                    "lineages change class."
+                )
 
 
-def with_hidden_classes(base: RateModel, n_classes: int, class_switch: str = "equal",
-                        name: str | None = None) -> RateModel:
+def with_hidden_classes(
+    base: RateModel, n_classes: int, class_switch: str = "equal", name: str | None = None
+) -> RateModel:
     """The model ``base`` (on the observed states) with R hidden rate classes (module docstring).
 
     R = 1 returns ``base`` itself. Parameter labels: within-class rates are the base
@@ -106,8 +109,17 @@ def with_hidden_classes(base: RateModel, n_classes: int, class_switch: str = "eq
             for s in range(k):
                 idx[c * k + s, d * k + s] = p
     states = tuple(combined_label(s, c + 1) for c in range(R) for s in base.states)
-    return RateModel(name or base.name, base.kind, states, idx, fixed, tuple(labels),
-                     n_classes=R, observed=tuple(base.states), class_switch=class_switch)
+    return RateModel(
+        name or base.name,
+        base.kind,
+        states,
+        idx,
+        fixed,
+        tuple(labels),
+        n_classes=R,
+        observed=tuple(base.states),
+        class_switch=class_switch,
+    )
 
 
 # First optimiser start: class c's within-class log-rates are offset by
@@ -123,7 +135,7 @@ def spread_classes(model: RateModel, x0) -> np.ndarray:
         return x
     k = len(model.observed_states)
     for c in range(model.n_classes):
-        block = model.rate_index[c * k:(c + 1) * k, c * k:(c + 1) * k]
+        block = model.rate_index[c * k : (c + 1) * k, c * k : (c + 1) * k]
         params = np.unique(block[block >= 0])
         x[params] += (c - (model.n_classes - 1) / 2) * START_SPREAD
     return x
@@ -134,7 +146,7 @@ def class_leaving_rates(model: RateModel, Q) -> np.ndarray:
     k = len(model.observed_states)
     out = np.empty(model.n_classes)
     for c in range(model.n_classes):
-        block = np.asarray(Q)[c * k:(c + 1) * k, c * k:(c + 1) * k]
+        block = np.asarray(Q)[c * k : (c + 1) * k, c * k : (c + 1) * k]
         out[c] = (block.sum(axis=1) - np.diag(block)).mean()
     return out
 
@@ -151,15 +163,17 @@ def parameter_permutation(model: RateModel, order) -> np.ndarray:
     same under any renumbering of the classes, so each new parameter governs
     exactly the transitions one old parameter governed."""
     k = len(model.observed_states)
-    combined = np.concatenate([np.arange(k) + c * k for c in order])   # new index -> old index
+    combined = np.concatenate([np.arange(k) + c * k for c in order])  # new index -> old index
     old_idx = model.rate_index[np.ix_(combined, combined)]
     perm = np.full(model.n_params, -1, dtype=np.int64)
     new = model.rate_index
     for p in range(model.n_params):
         olds = np.unique(old_idx[new == p])
         if olds.size != 1 or olds[0] < 0:
-            raise ValueError(f"model '{model.name}': class renumbering does not map parameter "
-                             f"'{model.labels[p]}' onto one parameter")
+            raise ValueError(
+                f"model '{model.name}': class renumbering does not map parameter "
+                f"'{model.labels[p]}' onto one parameter"
+            )
         perm[p] = olds[0]
     return perm
 
@@ -194,10 +208,14 @@ def class_notes(model: RateModel, fit) -> list:
     notes = []
     leave = class_leaving_rates(model, fit.q_matrix)
     if leave.min() > 0 and leave.max() / leave.min() < ALIKE_FACTOR:
-        notes.append(f"the {model.n_classes} hidden classes have nearly the same rates (within "
-                     f"{ALIKE_FACTOR - 1:.0%}): the data show no rate variation among lineages")
+        notes.append(
+            f"the {model.n_classes} hidden classes have nearly the same rates (within "
+            f"{ALIKE_FACTOR - 1:.0%}): the data show no rate variation among lineages"
+        )
     switching = [lab for lab in fit.at_upper if lab.startswith("class ")]
     if switching:
-        notes.append("switching between hidden classes is at the upper rate bound: lineages "
-                     "change class too fast for the classes to be told apart")
+        notes.append(
+            "switching between hidden classes is at the upper rate bound: lineages "
+            "change class too fast for the classes to be told apart"
+        )
     return notes

@@ -37,8 +37,7 @@ _STOP = 5
 _direct = None if _lbfgsb is not None and hasattr(_lbfgsb, "setulb") else False
 
 
-def minimise(fun, x0, lower, upper, ftol: float, gtol: float, maxiter: int = 1000,
-             stop=None):
+def minimise(fun, x0, lower, upper, ftol: float, gtol: float, maxiter: int = 1000, stop=None):
     """x at the end of one L-BFGS-B run of ``fun`` (x -> (f, gradient)) from x0 within
     [lower, upper] (arrays, finite), with minimize's ``ftol``, ``gtol`` and ``maxiter``.
     ``stop(x)``, if given, is asked at every new iterate; True ends the run there."""
@@ -58,9 +57,15 @@ def _public(fun, x0, lower, upper, ftol, gtol, maxiter, stop=None):
             last.append(np.array(xk))
             raise StopIteration  # SciPy >= 1.11 ends the run and returns
 
-    res = minimize(fun, x0, method="L-BFGS-B", jac=True, bounds=list(zip(lower, upper)),
-                   options={"maxiter": maxiter, "ftol": ftol, "gtol": gtol},
-                   callback=callback if stop is not None else None)
+    res = minimize(
+        fun,
+        x0,
+        method="L-BFGS-B",
+        jac=True,
+        bounds=list(zip(lower, upper)),
+        options={"maxiter": maxiter, "ftol": ftol, "gtol": gtol},
+        callback=callback if stop is not None else None,
+    )
     return last[0] if last else res.x
 
 
@@ -100,8 +105,25 @@ def _bare(fun, x0, lower, upper, ftol, gtol, maxiter, stop=None):
     factr = ftol / _EPS
     iterations = evaluations = 0
     while True:
-        _lbfgsb.setulb(m, x, low, up, nbd, f, g, factr, gtol, wa, iwa, task, lsave, isave,
-                       dsave, MAXLS, ln_task)
+        _lbfgsb.setulb(
+            m,
+            x,
+            low,
+            up,
+            nbd,
+            f,
+            g,
+            factr,
+            gtol,
+            wa,
+            iwa,
+            task,
+            lsave,
+            isave,
+            dsave,
+            MAXLS,
+            ln_task,
+        )
         if task[0] == _FG:
             fx, gx = fun(x.copy())
             f = np.array(fx, dtype=np.float64)

@@ -19,7 +19,7 @@ from ..errors import InputError
 # Rescale a partial likelihood vector when its largest entry drops below 2^-256;
 # scaling by a power of two is exact in floating point.
 _SCALE_EXP = 256
-_SCALE_LIMIT = 2.0 ** -_SCALE_EXP
+_SCALE_LIMIT = 2.0**-_SCALE_EXP
 _LOG_SCALE = _SCALE_EXP * math.log(2.0)
 
 # Eigen-decomposition is used when V is well conditioned (error ~ cond(V) * 1e-16);
@@ -52,8 +52,9 @@ def _p_from_eigen(E1, V, Vinv, reach, t, out):
 
 
 @numba.njit(cache=True)
-def _down_pass_eigen(child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, scale_count,
-                     B, msg):
+def _down_pass_eigen(
+    child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, scale_count, B, msg
+):
     """Postorder pass for an irreducible chain, with P(t) D = D + V diag(E1) Vinv D
     applied as two small products per branch (E1[c] = expm1(lam t_c)); real or
     complex eigensystems. Zero-length branches pass the partials on unchanged.
@@ -146,8 +147,8 @@ def _rescale(partials, v, k):
     n = 0
     while m < _SCALE_LIMIT:
         for i in range(k):
-            partials[v, i] *= 2.0 ** _SCALE_EXP
-        m *= 2.0 ** _SCALE_EXP
+            partials[v, i] *= 2.0**_SCALE_EXP
+        m *= 2.0**_SCALE_EXP
         n += 1
     return n
 
@@ -180,8 +181,9 @@ def _expm1_complex(t, lam, out):
             else:
                 y = im * t[b]
                 h = math.sin(0.5 * y)
-                out[b, m] = complex(math.expm1(x) * math.cos(y) - 2.0 * h * h,
-                                    math.exp(x) * math.sin(y))
+                out[b, m] = complex(
+                    math.expm1(x) * math.cos(y) - 2.0 * h * h, math.exp(x) * math.sin(y)
+                )
 
 
 def expm1_outer(t, lam) -> np.ndarray:
@@ -220,8 +222,12 @@ def _real_eigensystem(Q, max_condition):
         s = a + b
         pa = a / s
         pb = b / s
-        return (True, np.array([0.0, -s]), np.array([[1.0, pa], [1.0, -pb]]),
-                np.array([[pb, pa], [1.0, -1.0]]))
+        return (
+            True,
+            np.array([0.0, -s]),
+            np.array([[1.0, pa], [1.0, -pb]]),
+            np.array([[pb, pa], [1.0, -1.0]]),
+        )
     try:
         lam, V = np.linalg.eig(Q)
         Vinv = np.linalg.inv(V)
@@ -348,14 +354,19 @@ def _root_state_index(root, states, k) -> list:
     if states is not None and root in states:
         return [list(states).index(root)]
     if states is not None and isinstance(root, str):
-        at = [i for i, s in enumerate(states)
-              if s.rpartition("@")[0] == root and s.rpartition("@")[2].isdigit()]
+        at = [
+            i
+            for i, s in enumerate(states)
+            if s.rpartition("@")[0] == root and s.rpartition("@")[2].isdigit()
+        ]
         if at:
             return at
     if isinstance(root, (int, np.integer)) and 0 <= root < k:
         return [int(root)]
     shown = f" or one of the states ({', '.join(states)})" if states is not None else ""
-    raise InputError(f"root treatment '{root}' is not known: use uniform, stationary, data_weighted{shown}.")
+    raise InputError(
+        f"root treatment '{root}' is not known: use uniform, stationary, data_weighted{shown}."
+    )
 
 
 def prune(tree, tip_partials, Q):
@@ -377,12 +388,24 @@ def prune(tree, tip_partials, Q):
         E1 = expm1_outer(tree.length, lam)
         B = np.empty((n, Q.shape[0]), dtype=E1.dtype)
         msg = np.empty((n, Q.shape[0]))
-        ok = _down_pass_eigen(tree.child_ptr, tree.children, tree.n_tips, E1, V, Vinv,
-                              tip_partials, partials, count, B, msg)
+        ok = _down_pass_eigen(
+            tree.child_ptr,
+            tree.children,
+            tree.n_tips,
+            E1,
+            V,
+            Vinv,
+            tip_partials,
+            partials,
+            count,
+            B,
+            msg,
+        )
     else:
         P = transition_matrices(Q, tree.length)
-        ok = _prune_matrices(tree.child_ptr, tree.children, tree.n_tips, P,
-                             tip_partials, partials, count)
+        ok = _prune_matrices(
+            tree.child_ptr, tree.children, tree.n_tips, P, tip_partials, partials, count
+        )
     if not ok:
         return None, None
     return partials, -count * _LOG_SCALE

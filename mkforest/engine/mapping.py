@@ -79,6 +79,7 @@ class MapSet:
 
 # --------------------------------------------------------------------------- tables
 
+
 def uniformisation(Q):
     """(mu, R^n for n = 0.._MAX_POWER): mu = max_i(-q_ii), R = I + Q/mu (all entries >= 0)."""
     Q = np.asarray(Q, dtype=np.float64)
@@ -207,8 +208,21 @@ def _segment(rng, a, b, t, mu, powers, Pt, counts, dwell, times, w):
 
 
 @numba.njit(cache=True)
-def _map_kernel(rng, parent, mu, powers, n_seg, seg_ptr, tau, Ppow, node_weights, root_post,
-                counts, dwell, node_states):
+def _map_kernel(
+    rng,
+    parent,
+    mu,
+    powers,
+    n_seg,
+    seg_ptr,
+    tau,
+    Ppow,
+    node_weights,
+    root_post,
+    counts,
+    dwell,
+    node_states,
+):
     n = parent.shape[0]
     k = root_post.shape[0]
     times = np.empty(powers.shape[0] + 1)
@@ -241,6 +255,7 @@ def _map_kernel(rng, parent, mu, powers, n_seg, seg_ptr, tau, Ppow, node_weights
 
 # --------------------------------------------------------------------------- public API
 
+
 def _prepare(tree, tip_partials, Q, root, states):
     ps = passes(tree, tip_partials, Q, root, states)
     mu, powers = uniformisation(Q)
@@ -255,7 +270,16 @@ def _prepare(tree, tip_partials, Q, root, states):
     root_post = ps.root_prior * ps.down[tree.root]
     root_post = root_post / root_post.sum()
     tau = tree.length / n_seg
-    return mu, powers, n_seg, seg_ptr[:-1].copy(), tau, Ppow, np.ascontiguousarray(node_weights), root_post
+    return (
+        mu,
+        powers,
+        n_seg,
+        seg_ptr[:-1].copy(),
+        tau,
+        Ppow,
+        np.ascontiguousarray(node_weights),
+        root_post,
+    )
 
 
 def stochastic_maps(tree, tip_partials, Q, n_maps: int, rng, root="uniform", states=None) -> MapSet:
@@ -267,13 +291,27 @@ def stochastic_maps(tree, tip_partials, Q, n_maps: int, rng, root="uniform", sta
     Q = np.asarray(Q, dtype=np.float64)
     k = Q.shape[0]
     mu, powers, n_seg, seg_ptr, tau, Ppow, node_weights, root_post = _prepare(
-        tree, tip_partials, Q, root, states)
+        tree, tip_partials, Q, root, states
+    )
     counts = np.zeros((n_maps, k, k), dtype=np.int64)
     dwell = np.zeros((n_maps, k))
     node_states = np.zeros((n_maps, tree.n_nodes), dtype=np.int64)
     if n_maps > 0:
-        _map_kernel(rng, tree.parent, mu, powers, n_seg, seg_ptr, tau, Ppow, node_weights,
-                    root_post, counts, dwell, node_states)
+        _map_kernel(
+            rng,
+            tree.parent,
+            mu,
+            powers,
+            n_seg,
+            seg_ptr,
+            tau,
+            Ppow,
+            node_weights,
+            root_post,
+            counts,
+            dwell,
+            node_states,
+        )
     return MapSet(counts, dwell, node_states, np.zeros(n_maps, dtype=np.int64))
 
 
@@ -302,18 +340,24 @@ def mixed_stochastic_maps(tree, tip_partials, fits, n_maps: int, rng, states=Non
         model = extra[0] if extra else None
         on = extra[1] if len(extra) > 1 and extra[1] is not None else tree
         if model is not None and model.n_classes > 1:
-            ms = observed_maps(stochastic_maps(on, model.expand_tips(tip_partials), Q, int(n),
-                                               rng, root, model.states), model)
+            ms = observed_maps(
+                stochastic_maps(
+                    on, model.expand_tips(tip_partials), Q, int(n), rng, root, model.states
+                ),
+                model,
+            )
         else:
             ms = stochastic_maps(on, tip_partials, Q, int(n), rng, root, states)
         if on is not tree and on.total_length > 0:
             ms.dwell *= tree.total_length / on.total_length
         ms.model[:] = i
         parts.append(ms)
-    return MapSet(np.concatenate([p.counts for p in parts]),
-                  np.concatenate([p.dwell for p in parts]),
-                  np.concatenate([p.node_states for p in parts]),
-                  np.concatenate([p.model for p in parts]))
+    return MapSet(
+        np.concatenate([p.counts for p in parts]),
+        np.concatenate([p.dwell for p in parts]),
+        np.concatenate([p.node_states for p in parts]),
+        np.concatenate([p.model for p in parts]),
+    )
 
 
 def observed_maps(ms: MapSet, model) -> MapSet:
@@ -344,13 +388,27 @@ def summarise(counts, dwell, states, quantiles=(0.025, 0.975)) -> dict:
             if i == j:
                 continue
             x = counts[:, i, j]
-            rows.append(dict(from_state=states[i], to_state=states[j], mean=float(x.mean()),
-                             lower=float(np.quantile(x, lo)), upper=float(np.quantile(x, hi))))
+            rows.append(
+                dict(
+                    from_state=states[i],
+                    to_state=states[j],
+                    mean=float(x.mean()),
+                    lower=float(np.quantile(x, lo)),
+                    upper=float(np.quantile(x, hi)),
+                )
+            )
     total = dwell.sum(axis=1, keepdims=True)
     frac = np.divide(dwell, total, out=np.zeros_like(dwell), where=total > 0)
     drows = []
     for i in range(k):
         x = dwell[:, i]
-        drows.append(dict(state=states[i], mean=float(x.mean()), lower=float(np.quantile(x, lo)),
-                          upper=float(np.quantile(x, hi)), mean_fraction=float(frac[:, i].mean())))
+        drows.append(
+            dict(
+                state=states[i],
+                mean=float(x.mean()),
+                lower=float(np.quantile(x, lo)),
+                upper=float(np.quantile(x, hi)),
+                mean_fraction=float(frac[:, i].mean()),
+            )
+        )
     return {"transitions": rows, "dwell": drows}

@@ -70,8 +70,9 @@ class RateModel:
         if X.shape[-1] == self.k:
             return X
         if X.shape[-1] != k_obs:
-            raise ValueError(f"model '{self.name}': tip partials have {X.shape[-1]} states, "
-                             f"expected {k_obs}")
+            raise ValueError(
+                f"model '{self.name}': tip partials have {X.shape[-1]} states, expected {k_obs}"
+            )
         return np.tile(X, (1,) * (X.ndim - 1) + (self.n_classes,))
 
     def collapse(self, x, axis: int = -1) -> np.ndarray:
@@ -154,16 +155,20 @@ def parse_transition(key: str, states, where: str) -> list:
     """'a -> b -> c' / 'a <-> b' into a list of (i, j) index pairs."""
     pieces = _ARROW.split(str(key).strip())
     if len(pieces) < 3 or len(pieces) % 2 == 0:
-        raise InputError(f"{where}: transition '{key}' is not of the form 'from -> to' "
-                         "(or 'a <-> b', or a chain 'a -> b -> c').")
+        raise InputError(
+            f"{where}: transition '{key}' is not of the form 'from -> to' "
+            "(or 'a <-> b', or a chain 'a -> b -> c')."
+        )
     names = pieces[0::2]
     arrows = pieces[1::2]
     index = {s: i for i, s in enumerate(states)}
     for n in names:
         if n not in index:
-            raise InputError(f"{where}: transition '{key}' names state '{n}', which this trait "
-                             f"does not have (its states: {', '.join(states)})."
-                             f"{did_you_mean(n, states)}")
+            raise InputError(
+                f"{where}: transition '{key}' names state '{n}', which this trait "
+                f"does not have (its states: {', '.join(states)})."
+                f"{did_you_mean(n, states)}"
+            )
     pairs = []
     for a, arrow, b in zip(names[:-1], arrows, names[1:]):
         if a == b:
@@ -207,19 +212,25 @@ def build_model(kind: str, states, transitions=None, name: str | None = None) ->
         for key, value in dict(transitions).items():
             for i, j in parse_transition(key, states, where):
                 if (i, j) in seen:
-                    raise InputError(f"{where}: transition {states[i]}->{states[j]} is listed twice "
-                                     f"('{seen[(i, j)]}' and '{key}').")
+                    raise InputError(
+                        f"{where}: transition {states[i]}->{states[j]} is listed twice "
+                        f"('{seen[(i, j)]}' and '{key}')."
+                    )
                 seen[(i, j)] = key
                 if isinstance(value, Number) and not isinstance(value, bool):
                     if not np.isfinite(value) or value < 0:
-                        raise InputError(f"{where}: transition '{key}' is fixed at {value}; a fixed "
-                                         "rate must be zero or positive.")
+                        raise InputError(
+                            f"{where}: transition '{key}' is fixed at {value}; a fixed "
+                            "rate must be zero or positive."
+                        )
                     idx[i, j] = FIXED
                     fixed[i, j] = float(value)
                 else:
                     label = str(value).strip()
                     if not label:
-                        raise InputError(f"{where}: transition '{key}' needs a rate label or a number.")
+                        raise InputError(
+                            f"{where}: transition '{key}' needs a rate label or a number."
+                        )
                     if label not in labels:
                         labels.append(label)
                     idx[i, j] = labels.index(label)
@@ -241,10 +252,13 @@ def check_root(root, states, at: str, what: str = "a state of the trait") -> str
     if root in ROOTS or root in states:
         return root
     if root in RENAMED_ROOTS:
-        raise InputError(f"{at}.root is '{root}': this root treatment is now called "
-                         f"'{RENAMED_ROOTS[root]}'.")
-    raise InputError(f"{at}.root is '{root}': use uniform, stationary, data_weighted, or "
-                     f"{what} ({', '.join(states)}).{did_you_mean(root, [*ROOTS, *states])}")
+        raise InputError(
+            f"{at}.root is '{root}': this root treatment is now called '{RENAMED_ROOTS[root]}'."
+        )
+    raise InputError(
+        f"{at}.root is '{root}': use uniform, stationary, data_weighted, or "
+        f"{what} ({', '.join(states)}).{did_you_mean(root, [*ROOTS, *states])}"
+    )
 
 
 # The kinds of a pair's models (mkforest.engine.pairs): how the two traits' changes

@@ -96,6 +96,7 @@ def joint_label(first_state: str, second_state: str) -> str:
 
 # --------------------------------------------------------------------------- the pair
 
+
 @dataclass(frozen=True, eq=False)
 class TraitPair:
     """Two traits on a shared set of taxa, seen as one trait on their joint states."""
@@ -164,42 +165,53 @@ def make_pair(name: str, first: Trait, second: Trait) -> TraitPair:
     """Check and join two traits (InputError naming the pair when they cannot be paired)."""
     where = f"trait pair '{name}'"
     if first.name == second.name:
-        raise InputError(f"{where}: pairs trait '{first.name}' with itself; name two different traits.")
+        raise InputError(
+            f"{where}: pairs trait '{first.name}' with itself; name two different traits."
+        )
     for trait in (first, second):
         bad = [s for s in trait.states if JOINT_SEPARATOR in s]
         if bad:
             raise InputError(
                 f"{where}: trait '{trait.name}' has state '{bad[0]}' containing "
                 f"'{JOINT_SEPARATOR}', which joins the two traits' states in joint labels "
-                f"(e.g. '{joint_label('a', 'b')}'). Rename the state in the trait table.")
+                f"(e.g. '{joint_label('a', 'b')}'). Rename the state in the trait table."
+            )
     n = first.k * second.k
     if n > MAX_JOINT_STATES:
         raise InputError(
             f"{where}: traits '{first.name}' ({first.k} states) and '{second.name}' "
             f"({second.k} states) make {n} joint states; at most {MAX_JOINT_STATES} are "
             "supported (the number of rates grows as the square of it and the fits stop "
-            "being informative). Merge states of one trait, or test fewer states.")
+            "being informative). Merge states of one trait, or test fewer states."
+        )
     return TraitPair(name, first, second)
 
 
 # --------------------------------------------------------------------------- built-in hypotheses
 
-def _rate_label(trait: Trait, a: int, b: int, other: Trait | None = None, c: int | None = None) -> str:
+
+def _rate_label(
+    trait: Trait, a: int, b: int, other: Trait | None = None, c: int | None = None
+) -> str:
     text = f"{trait.name}: {trait.states[a]}->{trait.states[b]}"
     if other is not None:
         text += f" | {other.name}={other.states[c]}"
     return text
 
 
-def hypothesis_model(pair: TraitPair, hypothesis: str, transitions=None, name: str | None = None) -> RateModel:
+def hypothesis_model(
+    pair: TraitPair, hypothesis: str, transitions=None, name: str | None = None
+) -> RateModel:
     """The rate model of a built-in hypothesis on the pair's joint states, or of a
     custom one when ``transitions`` are given (see the module docstring)."""
     if transitions is not None:
         return custom_hypothesis(pair, name or hypothesis, transitions)
     if hypothesis not in HYPOTHESES:
-        raise InputError(f"trait pair '{pair.name}': unknown hypothesis '{hypothesis}'; choose one of "
-                         f"{', '.join(HYPOTHESES)}, or describe it under 'custom'."
-                         f"{did_you_mean(hypothesis, HYPOTHESES)}")
+        raise InputError(
+            f"trait pair '{pair.name}': unknown hypothesis '{hypothesis}'; choose one of "
+            f"{', '.join(HYPOTHESES)}, or describe it under 'custom'."
+            f"{did_you_mean(hypothesis, HYPOTHESES)}"
+        )
     first_varies = hypothesis in ("dependent", "first_depends_on_second")
     second_varies = hypothesis in ("dependent", "second_depends_on_first")
     n = pair.k1 * pair.k2
@@ -222,7 +234,9 @@ def hypothesis_model(pair: TraitPair, hypothesis: str, transitions=None, name: s
         for c in range(pair.k1):
             lab = _rate_label(s, a, b, f, c) if second_varies else _rate_label(s, a, b)
             idx[pair.joint(c, a), pair.joint(c, b)] = param(lab)
-    return RateModel(name or hypothesis, hypothesis, pair.states, idx, np.zeros((n, n)), tuple(labels))
+    return RateModel(
+        name or hypothesis, hypothesis, pair.states, idx, np.zeros((n, n)), tuple(labels)
+    )
 
 
 _PLUS = re.compile(r"\s*\+\s*")
@@ -240,10 +254,14 @@ def custom_hypothesis(pair: TraitPair, name: str, transitions) -> RateModel:
     """
     where = f"trait pair '{pair.name}', hypothesis '{name}'"
     if name in HYPOTHESES:
-        raise InputError(f"{where}: the name is a built-in hypothesis; give the custom one another name.")
+        raise InputError(
+            f"{where}: the name is a built-in hypothesis; give the custom one another name."
+        )
     if not transitions or not isinstance(transitions, dict):
-        raise InputError(f"{where}: needs 'transitions', a mapping such as "
-                         f"'{pair.states[0]} -> {pair.states[pair.k2]}: gain'.")
+        raise InputError(
+            f"{where}: needs 'transitions', a mapping such as "
+            f"'{pair.states[0]} -> {pair.states[pair.k2]}: gain'."
+        )
     states = pair.states
     cleaned = {}
     for key, value in transitions.items():
@@ -252,12 +270,17 @@ def custom_hypothesis(pair: TraitPair, name: str, transitions) -> RateModel:
         for i, j in parse_transition(key_text, states, where):
             (a1, a2), (b1, b2) = pair.split(i), pair.split(j)
             if a1 != b1 and a2 != b2:
-                step1 = f"{states[i]} -> {joint_label(pair.first.states[b1], pair.second.states[a2])}"
-                step2 = f"{joint_label(pair.first.states[b1], pair.second.states[a2])} -> {states[j]}"
+                step1 = (
+                    f"{states[i]} -> {joint_label(pair.first.states[b1], pair.second.states[a2])}"
+                )
+                step2 = (
+                    f"{joint_label(pair.first.states[b1], pair.second.states[a2])} -> {states[j]}"
+                )
                 raise InputError(
                     f"{where}: transition '{key}' changes both traits at once "
                     f"({states[i]} -> {states[j]}); in a joint model only one trait changes at a "
-                    f"time. Write it as two steps, e.g. '{step1}' and '{step2}'.")
+                    f"time. Write it as two steps, e.g. '{step1}' and '{step2}'."
+                )
         if key_text in cleaned:
             raise InputError(f"{where}: transition '{key}' is listed twice.")
         cleaned[key_text] = value
@@ -266,6 +289,7 @@ def custom_hypothesis(pair: TraitPair, name: str, transitions) -> RateModel:
 
 
 # --------------------------------------------------------------------------- configuration
+
 
 def _check_root(root, pair: TraitPair, at: str) -> str:
     return check_root(root, pair.states, at, "a joint state of the pair")
@@ -276,11 +300,15 @@ def pair_from_config(name: str, spec: dict, traits: dict, where: str = "config")
     at = f"{where}: pairs.{name}"
     names = spec.get("traits") if isinstance(spec, dict) else None
     if not isinstance(names, (list, tuple)) or len(names) != 2:
-        raise InputError(f"{at}.traits must list exactly two trait columns, e.g. [banding, aperture].")
+        raise InputError(
+            f"{at}.traits must list exactly two trait columns, e.g. [banding, aperture]."
+        )
     for t in names:
         if t not in traits:
-            raise InputError(f"{at}.traits: trait '{t}' is not among the traits read from the table "
-                             f"({', '.join(traits)}); add it to traits.columns.")
+            raise InputError(
+                f"{at}.traits: trait '{t}' is not among the traits read from the table "
+                f"({', '.join(traits)}); add it to traits.columns."
+            )
     return make_pair(name, traits[names[0]], traits[names[1]])
 
 
@@ -304,9 +332,11 @@ def pair_models(name: str, spec: dict, pair: TraitPair, where: str = "config") -
         if h in models:
             raise InputError(f"{at}.hypotheses lists '{h}' twice.")
         if h not in HYPOTHESES:
-            raise InputError(f"{at}.hypotheses: '{h}' is neither a built-in hypothesis "
-                             f"({', '.join(HYPOTHESES)}) nor described under pairs.{name}.custom."
-                             f"{did_you_mean(h, [*HYPOTHESES, *custom])}")
+            raise InputError(
+                f"{at}.hypotheses: '{h}' is neither a built-in hypothesis "
+                f"({', '.join(HYPOTHESES)}) nor described under pairs.{name}.custom."
+                f"{did_you_mean(h, [*HYPOTHESES, *custom])}"
+            )
         models[h] = (classes(hypothesis_model(pair, h)), root)
     for h, body in custom.items():
         if not isinstance(body, dict) or "transitions" not in body:
@@ -325,7 +355,8 @@ def check_hidden_pair(pair: TraitPair, n_classes, at: str) -> int:
             f"{at}.hidden_classes is {R}: traits '{pair.first.name}' ({pair.k1} states) and "
             f"'{pair.second.name}' ({pair.k2} states) make {pair.k1 * pair.k2} joint states, "
             f"{n} with {R} classes; at most {MAX_COMBINED_STATES} combined states are supported. "
-            "Use fewer classes or merge states of one trait.")
+            "Use fewer classes or merge states of one trait."
+        )
     return R
 
 
@@ -334,7 +365,7 @@ def pair_analysis(name: str, spec: dict, traits: dict, where: str = "config") ->
     need to fit a pair exactly as they fit a single trait."""
     pair = pair_from_config(name, spec, traits, where)
     models = pair_models(name, spec, pair, where)
-    selected_tests(name, spec, models, where)     # a test that cannot be run fails here, early
+    selected_tests(name, spec, models, where)  # a test that cannot be run fails here, early
     return pair.joint_trait(), models
 
 
@@ -358,27 +389,35 @@ def selected_tests(name: str, spec: dict, models: dict, where: str = "config") -
     for null, alt in wanted:
         for h in (null, alt):
             if h not in models:
-                raise InputError(f"{where}: pairs.{name}.tests names hypothesis '{h}', which is not "
-                                 f"among the pair's hypotheses ({', '.join(models)})."
-                                 f"{did_you_mean(h, models)}")
+                raise InputError(
+                    f"{where}: pairs.{name}.tests names hypothesis '{h}', which is not "
+                    f"among the pair's hypotheses ({', '.join(models)})."
+                    f"{did_you_mean(h, models)}"
+                )
         if (null, alt) not in nested:
-            why = ("they use different root treatments" if models[null][1] != models[alt][1]
-                   else f"'{null}' is not nested in '{alt}' (not every rate matrix of the first is "
-                        "one of the second), so their likelihood ratio has no chi-square reference")
-            raise InputError(f"{where}: pairs.{name}.tests: [{null}, {alt}] cannot be tested: {why}. "
-                             "Compare them by AICc weight instead (model_support.tsv).")
+            why = (
+                "they use different root treatments"
+                if models[null][1] != models[alt][1]
+                else f"'{null}' is not nested in '{alt}' (not every rate matrix of the first is "
+                "one of the second), so their likelihood ratio has no chi-square reference"
+            )
+            raise InputError(
+                f"{where}: pairs.{name}.tests: [{null}, {alt}] cannot be tested: {why}. "
+                "Compare them by AICc weight instead (model_support.tsv)."
+            )
         out.append(nested[(null, alt)])
     return out
 
 
 # --------------------------------------------------------------------------- nesting
 
+
 @dataclass(frozen=True)
 class Nesting:
     null: str
     alternative: str
     df: int
-    boundary: bool   # the null forbids a rate the alternative leaves free
+    boundary: bool  # the null forbids a rate the alternative leaves free
 
 
 def _entry(model: RateModel, i: int, j: int):
@@ -437,6 +476,7 @@ def nested_tests(models) -> list:
 
 # --------------------------------------------------------------------------- parametric bootstrap
 
+
 def bootstrap_p_value(observed: float, simulated) -> float:
     """(1 + #{simulated >= observed}) / (N + 1) (Davison & Hinkley 1997, ch. 4; from memory)."""
     sims = np.asarray(simulated, dtype=float)
@@ -453,7 +493,7 @@ def _simulation_root(null: RateModel, q, root, tree, tip_partials):
     if root in ("uniform", "stationary"):
         return None, root_weights(root, q, np.ones(null.k))
     w = root_weights(root, q, np.ones(null.k), null.states)
-    if np.count_nonzero(w) > 1:      # a fixed observed state with hidden classes: draw the class
+    if np.count_nonzero(w) > 1:  # a fixed observed state with hidden classes: draw the class
         return None, w
     return int(np.argmax(w)), None
 
@@ -478,8 +518,15 @@ def simulate_pair_partials(pair: TraitPair, tree, joint_states, masks) -> np.nda
 SIMULATION_LIMIT = float(chdtri(1, 0.05)) / 2
 
 
-def simulation_rates(tree, tip_partials, null: RateModel, rates, root="uniform",
-                     lower: float = LOWER, upper: float = UPPER) -> tuple:
+def simulation_rates(
+    tree,
+    tip_partials,
+    null: RateModel,
+    rates,
+    root="uniform",
+    lower: float = LOWER,
+    upper: float = UPPER,
+) -> tuple:
     """(rates to simulate the bootstrap data from, labels of the rates moved).
 
     A null rate fitted at, or indistinguishable from, the lower bound (ln L with
@@ -500,6 +547,7 @@ def simulation_rates(tree, tip_partials, null: RateModel, rates, root="uniform",
     the bound are left at their estimates.
     """
     from .fitting import LogLikelihood
+
     rates = np.asarray(rates, dtype=float).copy()
     height = tree.height if tree.height > 0 else 1.0
     lo, hi = math.log(lower / height), math.log(upper / height)
@@ -510,39 +558,76 @@ def simulation_rates(tree, tip_partials, null: RateModel, rates, root="uniform",
     target = best - SIMULATION_LIMIT
     out, moved = rates.copy(), []
     for i, label in enumerate(null.labels):
+
         def ll_at(log_rate, i=i):
             trial = rates.copy()
             trial[i] = math.exp(log_rate)
             return f(trial) - target
+
         start = max(math.log(rates[i]), lo)
         if ll_at(lo) < 0 or ll_at(hi) >= 0:
-            continue        # clearly above the bound, or not bounded by the data at all
+            continue  # clearly above the bound, or not bounded by the data at all
         out[i] = math.exp(brentq(ll_at, start, hi, xtol=1e-6))
         moved.append(label)
     return out, tuple(moved)
 
 
-def lr_statistic(tree, tip_partials, null: RateModel, alt: RateModel, root="uniform",
-                 n_starts: int = 5, seed: int = 0, lower: float = LOWER,
-                 upper: float = UPPER, max_starts: int = MAX_STARTS) -> tuple:
+def lr_statistic(
+    tree,
+    tip_partials,
+    null: RateModel,
+    alt: RateModel,
+    root="uniform",
+    n_starts: int = 5,
+    seed: int = 0,
+    lower: float = LOWER,
+    upper: float = UPPER,
+    max_starts: int = MAX_STARTS,
+) -> tuple:
     """(statistic, null FitResult, alternative FitResult): both hypotheses fitted by
     fit_model exactly as the fit jobs fit them, statistic 2 (ln L_alt - ln L_null)
     floored at 0 (a nested alternative cannot do worse than its null)."""
-    fit_null = fit_model(tree, tip_partials, null, root=root, n_starts=n_starts,
-                         seed=derive_seed(seed, "null"), lower=lower, upper=upper,
-                         max_starts=max_starts)
-    fit_alt = fit_model(tree, tip_partials, alt, root=root, n_starts=n_starts,
-                        seed=derive_seed(seed, "alternative"), lower=lower, upper=upper,
-                        max_starts=max_starts)
+    fit_null = fit_model(
+        tree,
+        tip_partials,
+        null,
+        root=root,
+        n_starts=n_starts,
+        seed=derive_seed(seed, "null"),
+        lower=lower,
+        upper=upper,
+        max_starts=max_starts,
+    )
+    fit_alt = fit_model(
+        tree,
+        tip_partials,
+        alt,
+        root=root,
+        n_starts=n_starts,
+        seed=derive_seed(seed, "alternative"),
+        lower=lower,
+        upper=upper,
+        max_starts=max_starts,
+    )
     stat = 2.0 * (fit_alt.log_likelihood - fit_null.log_likelihood)
     return (max(0.0, stat) if np.isfinite(stat) else float("nan")), fit_null, fit_alt
 
 
-def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel, null_rates,
-                         root="uniform", replicates=range(0), seed: int = 0, n_starts: int = 5,
-                         lower: float = LOWER, upper: float = UPPER,
-                         max_starts: int = MAX_STARTS,
-                         from_interval_edge: bool = True) -> np.ndarray:
+def bootstrap_statistics(
+    pair: TraitPair,
+    tree,
+    null: RateModel,
+    alt: RateModel,
+    null_rates,
+    root="uniform",
+    replicates=range(0),
+    seed: int = 0,
+    n_starts: int = 5,
+    lower: float = LOWER,
+    upper: float = UPPER,
+    max_starts: int = MAX_STARTS,
+    from_interval_edge: bool = True,
+) -> np.ndarray:
     """LR statistics of data sets simulated under the fitted null (Goldman 1993), with
     rates at or near the lower bound moved to the edge of their 95% interval
     (``simulation_rates``).
@@ -555,7 +640,7 @@ def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel,
     other replicates are run, in which order or in which job.
     """
     tip_partials = null.expand_tips(pair.joint_trait().tip_partials(tree, absent="missing"))
-    if from_interval_edge:      # False: simulate at the estimates (the first release's way)
+    if from_interval_edge:  # False: simulate at the estimates (the first release's way)
         null_rates, _ = simulation_rates(tree, tip_partials, null, null_rates, root, lower, upper)
     q = null.q_matrix(null_rates)
     root_state, weights = _simulation_root(null, q, root, tree, tip_partials)
@@ -568,7 +653,6 @@ def bootstrap_statistics(pair: TraitPair, tree, null: RateModel, alt: RateModel,
         states = simulate_states(tree, q, rng, root_state=root_state, root_weights=weights)
         # hidden classes: the tips show the joint state only (combined index = class * n + joint)
         sim = simulate_pair_partials(pair, tree, states % n_joint, masks)
-        stat, _, _ = lr_statistic(tree, sim, null, alt, root, n_starts, s, lower, upper,
-                                  max_starts)
+        stat, _, _ = lr_statistic(tree, sim, null, alt, root, n_starts, s, lower, upper, max_starts)
         out.append(stat)
     return np.asarray(out, dtype=float)

@@ -35,8 +35,10 @@ import pandas as pd
 
 from .compare import IMPOSSIBLE
 
-FEW_TREES = 20   # below this, 95% intervals across trees are rough
-BOUND_SHARE = 0.01  # an averaged rate is bound-limited when bound-limited models make this share of it
+FEW_TREES = 20  # below this, 95% intervals across trees are rough
+BOUND_SHARE = (
+    0.01  # an averaged rate is bound-limited when bound-limited models make this share of it
+)
 
 
 def mark_duplicates(fits: pd.DataFrame, model_order=None) -> pd.DataFrame:
@@ -50,7 +52,9 @@ def mark_duplicates(fits: pd.DataFrame, model_order=None) -> pd.DataFrame:
     for _, g in fits.groupby("analysis", sort=False):
         models = list(dict.fromkeys(g["model"]))
         if model_order:
-            models.sort(key=lambda m: model_order.index(m) if m in model_order else len(model_order))
+            models.sort(
+                key=lambda m: model_order.index(m) if m in model_order else len(model_order)
+            )
         first = {}
         for m in models:
             sig = g.loc[g["model"] == m, "structure"].iloc[0]
@@ -109,33 +113,40 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
         fitted = g[np.isfinite(g["delta"].astype(float))]
         n = len(fitted)
         ll = g["log_likelihood"].astype(float)
-        impossible = ll == -np.inf                 # the data cannot arise under the model
-        tried = ~ll.isna()                          # NaN: not fitted (trait does not vary)
+        impossible = ll == -np.inf  # the data cannot arise under the model
+        tried = ~ll.isna()  # NaN: not fitted (trait does not vary)
         at_bound = ((as_text(g["at_lower"]) != "") | (as_text(g["at_upper"]) != "")).sum()
-        rows.append({
-            **({"tree_set": key[0]} if len(key) == 3 else {}),
-            "analysis": analysis, "model": model, "n_params": int(g["n_params"].iloc[0]),
-            **branch_columns(g, fitted),
-            "n_trees": n,
-            "mean_weight": fitted["weight"].mean() if n else np.nan,
-            "median_weight": fitted["weight"].median() if n else np.nan,
-            "fraction_best": float((fitted["delta"] == 0).mean()) if n else np.nan,
-            "median_delta": fitted["delta"].median() if n else np.nan,
-            "delta_low95": _q(fitted["delta"], 0.025),
-            "delta_high95": _q(fitted["delta"], 0.975),
-            "median_log_likelihood": fitted["log_likelihood"].median() if n else np.nan,
-            "n_fits": int(len(g)),
-            "n_impossible": int(impossible.sum()),
-            "n_not_converged": int((~g["converged"].astype(bool) & tried & ~impossible).sum()),
-            "n_rates_at_bound": int(at_bound),
-            "n_rates_at_upper": int((as_text(g["at_upper"]) != "").sum()),
-            "n_rates_open_upper": int(((as_text(g["open_upper"]) != "")
-                                       & (as_text(g["at_upper"]) == "")).sum())
-            if "open_upper" in g else 0,
-            "n_branch_at_bound": int((as_text(g["branch_at_bound"]) != "").sum())
-            if "branch_at_bound" in g else 0,
-            "same_as": as_text(g["same_as"]).iloc[0] if "same_as" in g else "",
-        })
+        rows.append(
+            {
+                **({"tree_set": key[0]} if len(key) == 3 else {}),
+                "analysis": analysis,
+                "model": model,
+                "n_params": int(g["n_params"].iloc[0]),
+                **branch_columns(g, fitted),
+                "n_trees": n,
+                "mean_weight": fitted["weight"].mean() if n else np.nan,
+                "median_weight": fitted["weight"].median() if n else np.nan,
+                "fraction_best": float((fitted["delta"] == 0).mean()) if n else np.nan,
+                "median_delta": fitted["delta"].median() if n else np.nan,
+                "delta_low95": _q(fitted["delta"], 0.025),
+                "delta_high95": _q(fitted["delta"], 0.975),
+                "median_log_likelihood": fitted["log_likelihood"].median() if n else np.nan,
+                "n_fits": int(len(g)),
+                "n_impossible": int(impossible.sum()),
+                "n_not_converged": int((~g["converged"].astype(bool) & tried & ~impossible).sum()),
+                "n_rates_at_bound": int(at_bound),
+                "n_rates_at_upper": int((as_text(g["at_upper"]) != "").sum()),
+                "n_rates_open_upper": int(
+                    ((as_text(g["open_upper"]) != "") & (as_text(g["at_upper"]) == "")).sum()
+                )
+                if "open_upper" in g
+                else 0,
+                "n_branch_at_bound": int((as_text(g["branch_at_bound"]) != "").sum())
+                if "branch_at_bound" in g
+                else 0,
+                "same_as": as_text(g["same_as"]).iloc[0] if "same_as" in g else "",
+            }
+        )
     out = pd.DataFrame(rows)
     out["caution"] = [cautions(r) for r in out.to_dict("records")]
     return out
@@ -147,45 +158,64 @@ def branch_columns(g: pd.DataFrame, fitted: pd.DataFrame) -> dict:
     if "branches" not in g:
         return {}
     est = fitted["branch_parameter"].astype(float) if "branch_parameter" in fitted else []
-    return {"branches": g["branches"].iloc[0],
-            "branch_parameter_median": float(np.median(est[np.isfinite(est)]))
-            if np.isfinite(est).any() else np.nan,
-            "branch_parameter_low95": _q(est, 0.025),
-            "branch_parameter_high95": _q(est, 0.975)}
+    return {
+        "branches": g["branches"].iloc[0],
+        "branch_parameter_median": float(np.median(est[np.isfinite(est)]))
+        if np.isfinite(est).any()
+        else np.nan,
+        "branch_parameter_low95": _q(est, 0.025),
+        "branch_parameter_high95": _q(est, 0.975),
+    }
 
 
 def cautions(row: dict) -> str:
     """Plain-words warnings for one analysis x model summary row."""
     words = []
     if row.get("same_as"):
-        return (f"same hypothesis as '{row['same_as']}' for this analysis (identical rate "
-                "structure); left out of the weights")
-    total = row.get("n_fits", row["n_trees"])     # every tree tried, fitted or not
+        return (
+            f"same hypothesis as '{row['same_as']}' for this analysis (identical rate "
+            "structure); left out of the weights"
+        )
+    total = row.get("n_fits", row["n_trees"])  # every tree tried, fitted or not
     if row.get("n_impossible"):
-        words.append(f"{row['n_impossible']} of {total} fits are impossible (ln L = -inf: the "
-                     "data cannot arise under this model on those trees, e.g. tips joined by "
-                     "zero-length branches in different states; see tables/data_check.tsv and "
-                     "trees.min_branch_length); those trees are left out of the weights")
+        words.append(
+            f"{row['n_impossible']} of {total} fits are impossible (ln L = -inf: the "
+            "data cannot arise under this model on those trees, e.g. tips joined by "
+            "zero-length branches in different states; see tables/data_check.tsv and "
+            "trees.min_branch_length); those trees are left out of the weights"
+        )
     if row["n_trees"] == 0:
         return "; ".join(words) if words else "not fitted"
     if row["n_not_converged"]:
-        words.append(f"{row['n_not_converged']} of {total} fits did not converge "
-                     "(optimiser starts disagree); treat their likelihoods with care")
+        words.append(
+            f"{row['n_not_converged']} of {total} fits did not converge "
+            "(optimiser starts disagree); treat their likelihoods with care"
+        )
     if row.get("n_rates_at_upper"):
-        words.append(f"{row['n_rates_at_upper']} of {total} fits have a rate at the upper "
-                     "bound: that rate cannot be estimated from these data")
+        words.append(
+            f"{row['n_rates_at_upper']} of {total} fits have a rate at the upper "
+            "bound: that rate cannot be estimated from these data"
+        )
     if row.get("n_rates_open_upper"):
-        words.append(f"{row['n_rates_open_upper']} of {row['n_trees']} fits have a rate whose 95% "
-                     "interval reaches the upper bound: the data do not bound it from above")
+        words.append(
+            f"{row['n_rates_open_upper']} of {row['n_trees']} fits have a rate whose 95% "
+            "interval reaches the upper bound: the data do not bound it from above"
+        )
     lower_only = row["n_rates_at_bound"] - row.get("n_rates_at_upper", 0)
     if lower_only > 0:
-        words.append(f"{lower_only} of {total} fits put a rate at the lower bound "
-                     "(effectively zero: no support for that change)")
+        words.append(
+            f"{lower_only} of {total} fits put a rate at the lower bound "
+            "(effectively zero: no support for that change)"
+        )
     if row.get("n_branch_at_bound"):
-        words.append(f"{row['n_branch_at_bound']} of {row['n_trees']} fits put the branch-length "
-                     f"parameter ({row.get('branches', '')}) at a bound of its range")
+        words.append(
+            f"{row['n_branch_at_bound']} of {row['n_trees']} fits put the branch-length "
+            f"parameter ({row.get('branches', '')}) at a bound of its range"
+        )
     if row["n_trees"] < FEW_TREES:
-        words.append(f"only {row['n_trees']} tree{'' if row['n_trees'] == 1 else 's'}: intervals across trees are rough")
+        words.append(
+            f"only {row['n_trees']} tree{'' if row['n_trees'] == 1 else 's'}: intervals across trees are rough"
+        )
     return "; ".join(words)
 
 
@@ -218,8 +248,10 @@ def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
     keys = _keys(fits, "analysis", "model", "tree")
     w = fits[keys + ["weight"]].dropna()
     r = rates.merge(w, on=keys, how="inner")
-    groups = {key: class_count(set(g["from_state"]) | set(g["to_state"]))
-              for key, g in rates.groupby(["analysis", "model"], sort=False)}
+    groups = {
+        key: class_count(set(g["from_state"]) | set(g["to_state"]))
+        for key, g in rates.groupby(["analysis", "model"], sort=False)
+    }
     r["classes"] = [groups[(a, m)] for a, m in zip(r["analysis"], r["model"])]
     wg = w.copy()
     wg["classes"] = [groups.get((a, m), 1) for a, m in zip(wg["analysis"], wg["model"])]
@@ -232,11 +264,17 @@ def averaged_rates(fits: pd.DataFrame, rates: pd.DataFrame) -> pd.DataFrame:
     upper = _upper_flags(r)
     r["weighted_upper"] = r["weighted"].where(upper, 0.0)
     r["weight_upper"] = r["group_w"].where(upper, 0.0)
-    out = (r.groupby(_keys(fits, "analysis", "tree", "from_state", "to_state"), sort=False)
-           [["weighted", "weighted_upper", "weight_upper"]].sum().reset_index()
-           .rename(columns={"weighted": "rate", "weight_upper": "weight_unbounded"}))
-    out["unbounded"] = (out["weighted_upper"] > 0) & \
-        (out["weighted_upper"] >= BOUND_SHARE * out["rate"])
+    out = (
+        r.groupby(_keys(fits, "analysis", "tree", "from_state", "to_state"), sort=False)[
+            ["weighted", "weighted_upper", "weight_upper"]
+        ]
+        .sum()
+        .reset_index()
+        .rename(columns={"weighted": "rate", "weight_upper": "weight_unbounded"})
+    )
+    out["unbounded"] = (out["weighted_upper"] > 0) & (
+        out["weighted_upper"] >= BOUND_SHARE * out["rate"]
+    )
     out.insert(out.columns.get_loc("analysis") + 1, "model", "averaged")
     return out.drop(columns="weighted_upper")
 
@@ -284,21 +322,29 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
     n_unbounded) counts the trees where the fit is possible, as in model_support.
     For the model average, a tree is impossible when every model that allows the
     change is impossible there."""
-    per_model = rates[_keys(rates, "analysis", "model", "tree", "from_state", "to_state", "rate")].copy()
+    per_model = rates[
+        _keys(rates, "analysis", "model", "tree", "from_state", "to_state", "rate")
+    ].copy()
     per_model["upper"] = _upper_flags(rates).to_numpy()
     per_model["lower"] = _lower_flags(rates).to_numpy()
-    per_model["at_upper"] = as_text(rates["at_bound"]).str.strip().eq(
-        "upper").to_numpy() if "at_bound" in rates else False
+    per_model["at_upper"] = (
+        as_text(rates["at_bound"]).str.strip().eq("upper").to_numpy()
+        if "at_bound" in rates
+        else False
+    )
     per_model["impossible"] = impossible_flags(rates).to_numpy()
-    avg = averaged[_keys(averaged, "analysis", "model", "tree", "from_state", "to_state", "rate")].copy()
+    avg = averaged[
+        _keys(averaged, "analysis", "model", "tree", "from_state", "to_state", "rate")
+    ].copy()
     avg["upper"] = _upper_flags(averaged).to_numpy()
     avg["lower"] = False
     avg["at_upper"] = False
     avg["impossible"] = False
     both = pd.concat([per_model, avg, _impossible_averages(per_model, avg)], ignore_index=True)
     rows = []
-    for key, g in both.groupby(_keys(both, "analysis", "model", "from_state", "to_state"),
-                               sort=False):
+    for key, g in both.groupby(
+        _keys(both, "analysis", "model", "from_state", "to_state"), sort=False
+    ):
         a, m, f, t = key[-4:]
         impossible = g["impossible"].to_numpy(bool)
         g = g[~impossible]
@@ -306,18 +352,33 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
         upper = g["upper"].to_numpy(bool)
         at_upper = g["at_upper"].to_numpy(bool)
         est = x[~upper]
-        status = "impossible" if not len(g) else "estimated" if not upper.any() else (
-            "unbounded" if est.size == 0 else "partly_unbounded")
-        rows.append({**({"tree_set": key[0]} if len(key) == 5 else {}),
-                     "analysis": a, "model": m, "from_state": f, "to_state": t,
-                     "n_trees": len(x), "n_estimated": int(est.size),
-                     "n_unbounded": int(upper.sum()), "n_at_upper": int(at_upper.sum()),
-                     "n_at_lower": int(g["lower"].sum()),
-                     "n_impossible": int(impossible.sum()),
-                     "median_rate": float(np.median(est)) if est.size else np.nan,
-                     "rate_low95": _q(est, 0.025), "rate_high95": _q(est, 0.975),
-                     "at_upper_min": float(x[at_upper].min()) if at_upper.any() else np.nan,
-                     "status": status})
+        status = (
+            "impossible"
+            if not len(g)
+            else "estimated"
+            if not upper.any()
+            else ("unbounded" if est.size == 0 else "partly_unbounded")
+        )
+        rows.append(
+            {
+                **({"tree_set": key[0]} if len(key) == 5 else {}),
+                "analysis": a,
+                "model": m,
+                "from_state": f,
+                "to_state": t,
+                "n_trees": len(x),
+                "n_estimated": int(est.size),
+                "n_unbounded": int(upper.sum()),
+                "n_at_upper": int(at_upper.sum()),
+                "n_at_lower": int(g["lower"].sum()),
+                "n_impossible": int(impossible.sum()),
+                "median_rate": float(np.median(est)) if est.size else np.nan,
+                "rate_low95": _q(est, 0.025),
+                "rate_high95": _q(est, 0.975),
+                "at_upper_min": float(x[at_upper].min()) if at_upper.any() else np.nan,
+                "status": status,
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -331,5 +392,6 @@ def _impossible_averages(per_model: pd.DataFrame, avg: pd.DataFrame) -> pd.DataF
         have = avg[tree_keys].drop_duplicates().assign(_have=True)
         every = every.merge(have, on=tree_keys, how="left")
         every = every[every["_have"].isna()].drop(columns="_have")
-    return every.assign(model="averaged", rate=np.nan, upper=False, lower=False, at_upper=False,
-                        impossible=True)
+    return every.assign(
+        model="averaged", rate=np.nan, upper=False, lower=False, at_upper=False, impossible=True
+    )

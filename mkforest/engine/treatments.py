@@ -16,10 +16,14 @@ TREATMENTS = ("as_given", "unit", "kappa", "lambda", "delta", "early_burst")
 ESTIMABLE = ("kappa", "lambda", "delta", "early_burst")
 # Optimiser bounds on x (see the module docstring) and the value giving the tree's lengths.
 DELTA_RANGE = (0.01, 3.0)
-BOUNDS = {"kappa": (0.0, 3.0), "lambda": (0.0, 1.0),
-          "delta": (math.log(DELTA_RANGE[0]), math.log(DELTA_RANGE[1])),
-          "early_burst": (-10.0, 10.0)}
+BOUNDS = {
+    "kappa": (0.0, 3.0),
+    "lambda": (0.0, 1.0),
+    "delta": (math.log(DELTA_RANGE[0]), math.log(DELTA_RANGE[1])),
+    "early_burst": (-10.0, 10.0),
+}
 NULL_VALUE = {"kappa": 1.0, "lambda": 1.0, "delta": 0.0, "early_burst": 0.0}
+
 
 @dataclass(frozen=True)
 class Treatment:
@@ -70,26 +74,35 @@ def parse_treatment(spec, at: str) -> Treatment:
         return Treatment()
     if isinstance(spec, str):
         if spec not in TREATMENTS:
-            raise InputError(f"{at} is '{spec}': use one of {', '.join(TREATMENTS)}, or a fixed "
-                             "value such as {kappa: 0}.")
+            raise InputError(
+                f"{at} is '{spec}': use one of {', '.join(TREATMENTS)}, or a fixed "
+                "value such as {kappa: 0}."
+            )
         return Treatment(spec)
     if isinstance(spec, dict) and len(spec) == 1:
-        (name, value), = spec.items()
+        ((name, value),) = spec.items()
         if name not in ESTIMABLE:
-            raise InputError(f"{at}: '{name}' has no parameter to fix; a fixed value goes with "
-                             f"{', '.join(ESTIMABLE)}.")
+            raise InputError(
+                f"{at}: '{name}' has no parameter to fix; a fixed value goes with "
+                f"{', '.join(ESTIMABLE)}."
+            )
         if not isinstance(value, Number) or isinstance(value, bool) or not math.isfinite(value):
             raise InputError(f"{at}.{name} is '{value}': give a number.")
-        lo, hi = {"kappa": (0.0, math.inf), "lambda": (0.0, 1.0), "delta": (0.0, math.inf),
-                  "early_burst": (-math.inf, math.inf)}[name]
+        lo, hi = {
+            "kappa": (0.0, math.inf),
+            "lambda": (0.0, 1.0),
+            "delta": (0.0, math.inf),
+            "early_burst": (-math.inf, math.inf),
+        }[name]
         if not lo <= value <= hi:
             raise InputError(f"{at}.{name} is {value}: it must lie in [{lo:g}, {hi:g}].")
         return Treatment(name, float(value))
-    raise InputError(f"{at} must be a treatment name ({', '.join(TREATMENTS)}) or one fixed "
-                     "value such as {kappa: 0}.")
+    raise InputError(
+        f"{at} must be a treatment name ({', '.join(TREATMENTS)}) or one fixed "
+        "value such as {kappa: 0}."
+    )
 
 
 def _height(tree) -> float:
     h = tree.height
     return h if h > 0 else 1.0
-

@@ -54,8 +54,13 @@ def warm() -> float:
         Q = np.zeros((k, k))
         Q[0, 1] = 1.0
         np.fill_diagonal(Q, -Q.sum(axis=1))
-        fit_model(tree, X, build_model("custom", states, {f"{states[0]} -> {states[1]}": "loss"}),
-                  n_starts=1, max_starts=1)
+        fit_model(
+            tree,
+            X,
+            build_model("custom", states, {f"{states[0]} -> {states[1]}": "loss"}),
+            n_starts=1,
+            max_starts=1,
+        )
         Q = build_model("unconstrained", states).q_matrix(np.ones(k * (k - 1)))
         marginal_probabilities(tree, X, Q)
         stochastic_maps(tree, X, Q, 2, rng)

@@ -25,26 +25,34 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     """(Trait to fit, {model name: (RateModel, root)}) for a trait or a pair analysis."""
     if analysis in config["traits"]["columns"]:
         from ..data.config import trait_models
+
         trait = traits[analysis]
         models = {}
         for name in trait_models(config, analysis):
             spec = config["models"][name]
             try:
-                check_no_class_in_transitions(spec.get("transitions"), trait.states,
-                                              f"model '{name}'")
+                check_no_class_in_transitions(
+                    spec.get("transitions"), trait.states, f"model '{name}'"
+                )
                 model = build_model(spec["kind"], trait.states, spec.get("transitions"), name)
-                model = with_hidden_classes(model, spec.get("hidden_classes", 1),
-                                            spec.get("class_switch", "equal"), name)
+                model = with_hidden_classes(
+                    model, spec.get("hidden_classes", 1), spec.get("class_switch", "equal"), name
+                )
             except InputError as exc:
                 raise InputError(f"trait '{analysis}': {exc}") from None
-            root = check_root(spec.get("root", "uniform"), trait.states, f"models.{name}",
-                              f"a state of trait '{analysis}'")
+            root = check_root(
+                spec.get("root", "uniform"),
+                trait.states,
+                f"models.{name}",
+                f"a state of trait '{analysis}'",
+            )
             models[name] = (model, root)
         return trait, models
     if analysis in config.get("pairs", {}):
         # contract: pair_analysis(name, pair config (defaults filled), {trait name: Trait})
         #   -> (joint Trait, {hypothesis name: (RateModel, root)})
         from ..engine.pairs import pair_analysis
+
         return pair_analysis(analysis, config["pairs"][analysis], traits)
     raise InputError(f"analysis '{analysis}' is neither a trait in traits.columns nor a pair.")
 
@@ -67,16 +75,24 @@ def table_problems(config: dict, source: str = "config") -> list:
     if not Path(tcfg["file"]).is_file():
         return problems
     try:
-        traits = read_traits(tcfg["file"], tcfg["taxon_column"], tcfg["columns"], tcfg["missing"],
-                             tcfg["separator"], tcfg["order"])
+        traits = read_traits(
+            tcfg["file"],
+            tcfg["taxon_column"],
+            tcfg["columns"],
+            tcfg["missing"],
+            tcfg["separator"],
+            tcfg["order"],
+        )
     except InputError as exc:
         return problems + [str(exc)]
     for name, trait in traits.items():
         if trait.k < 2:
             which = f"only the state '{trait.states[0]}'" if trait.k else "no state at all"
-            problems.append(f"trait table '{tcfg['file']}': trait '{name}' has {which} in its "
-                            "column, so there is no change to model. Drop it from traits.columns "
-                            f"(or list its possible states in traits.order.{name}).")
+            problems.append(
+                f"trait table '{tcfg['file']}': trait '{name}' has {which} in its "
+                "column, so there is no change to model. Drop it from traits.columns "
+                f"(or list its possible states in traits.order.{name})."
+            )
     for analysis in analyses(config):
         # one model at a time, so that every faulty model is named, not only the first
         if analysis in traits and traits[analysis].k < 2:

@@ -54,16 +54,25 @@ from ..engine.mapping import mixed_stochastic_maps
 from ..errors import InputError
 from ..seeds import derive_seed
 
-CLADE_COLUMNS = ["clade", "kind", "n_tips", "frequency", "n_trees_with_clade", "key", "members",
-                 "summary_tree"]
+CLADE_COLUMNS = [
+    "clade",
+    "kind",
+    "n_tips",
+    "frequency",
+    "n_trees_with_clade",
+    "key",
+    "members",
+    "summary_tree",
+]
 # kinds of clade that are nodes of the summary tree (matched exactly in every tree)
 TREE_KINDS = ("consensus", "sampled", "reference")
-FEW_TREES = 20          # fewer trees than this: intervals across trees are rough
-RARE_CLADE = 0.5        # a clade in fewer trees than this fraction is flagged
-WEAK_WEIGHT = 0.1       # non-converged / at-bound fits carrying more weight than this are flagged
+FEW_TREES = 20  # fewer trees than this: intervals across trees are rough
+RARE_CLADE = 0.5  # a clade in fewer trees than this fraction is flagged
+WEAK_WEIGHT = 0.1  # non-converged / at-bound fits carrying more weight than this are flagged
 
 
 # --------------------------------------------------------------------------- 1. target clades
+
 
 def most_supported_tree(trees, counts, bits):
     """(position in ``trees``, log product of clade frequencies): the sampled tree whose
@@ -73,15 +82,16 @@ def most_supported_tree(trees, counts, bits):
     n = len(trees)
     best, best_score = 0, -np.inf
     for i, tree in enumerate(trees):
-        masks = node_masks(tree, bits)[tree.n_tips:-1]
+        masks = node_masks(tree, bits)[tree.n_tips : -1]
         score = float(sum(np.log(counts[m] / n) for m in masks))
         if score > best_score + 1e-12:
             best, best_score = i, score
     return best, best_score
 
 
-def target_clades(trees, named=(), reference=None, reference_source="reference tree",
-                  summary="consensus"):
+def target_clades(
+    trees, named=(), reference=None, reference_source="reference tree", summary="consensus"
+):
     """(clade table, summary tree).
 
     named: list of clades.NamedClade. reference: a TreeArrays to use instead of
@@ -102,31 +112,45 @@ def target_clades(trees, named=(), reference=None, reference_source="reference t
         if ref_taxa != set(taxa):
             extra = sorted(ref_taxa - set(taxa))
             lacking = sorted(set(taxa) - ref_taxa)
-            what = (f"has taxon '{extra[0]}', which is in none of the sampled trees" if extra
-                    else f"lacks taxon '{lacking[0]}' of the sampled trees")
-            raise InputError(f"{reference_source} (ancestral.reference_tree) {what}; the reference "
-                             "tree must have exactly the taxa of the tree sample.")
+            what = (
+                f"has taxon '{extra[0]}', which is in none of the sampled trees"
+                if extra
+                else f"lacks taxon '{lacking[0]}' of the sampled trees"
+            )
+            raise InputError(
+                f"{reference_source} (ancestral.reference_tree) {what}; the reference "
+                "tree must have exactly the taxa of the tree sample."
+            )
         summary, kind = reference, "reference"
         described = f"{reference_source}"
     elif summary == "most_supported":
         pick, _ = most_supported_tree(trees, counts, bits)
         summary, kind = trees[pick], "sampled"
-        described = (f"sampled tree {trees[pick].index} (highest product of clade frequencies "
-                     f"among {n} trees)")
+        described = (
+            f"sampled tree {trees[pick].index} (highest product of clade frequencies "
+            f"among {n} trees)"
+        )
     else:
         summary, kind = majority_consensus(trees), "consensus"
         n_clades = summary.n_nodes - summary.n_tips - 1
-        described = (f"majority-rule consensus of {n} trees"
-                     + ("; no clade is in more than half of them, so it is unresolved"
-                        if n_clades == 0 else ""))
+        described = f"majority-rule consensus of {n} trees" + (
+            "; no clade is in more than half of them, so it is unresolved" if n_clades == 0 else ""
+        )
     names = consensus_names(summary)
     sets = node_clades(summary)
     rows = {}
     for v in range(summary.n_tips, summary.n_nodes):
         m = mask_of(sets[v], bits)
-        rows[m] = dict(clade=names[v], kind=kind, n_tips=len(sets[v]), frequency=counts[m] / n,
-                       n_trees_with_clade=counts[m], key=clade_key(sets[v]),
-                       members=",".join(sorted(sets[v])), summary_tree=described)
+        rows[m] = dict(
+            clade=names[v],
+            kind=kind,
+            n_tips=len(sets[v]),
+            frequency=counts[m] / n,
+            n_trees_with_clade=counts[m],
+            key=clade_key(sets[v]),
+            members=",".join(sorted(sets[v])),
+            summary_tree=described,
+        )
     out = list(rows.values())
     for nc in named:
         m = mask_of(nc.members, bits)
@@ -134,20 +158,30 @@ def target_clades(trees, named=(), reference=None, reference_source="reference t
             # a named clade that is also a node of the summary tree: one row, the config's name
             rows[m].update(clade=nc.name, kind="named")
             continue
-        out.append(dict(clade=nc.name, kind="named_mrca" if nc.mrca_only else "named",
-                        n_tips=len(nc.members), frequency=counts[m] / n if not nc.mrca_only else np.nan,
-                        n_trees_with_clade=counts[m] if not nc.mrca_only else n,
-                        key=clade_key(nc.members), members=",".join(sorted(nc.members)),
-                        summary_tree=described))
+        out.append(
+            dict(
+                clade=nc.name,
+                kind="named_mrca" if nc.mrca_only else "named",
+                n_tips=len(nc.members),
+                frequency=counts[m] / n if not nc.mrca_only else np.nan,
+                n_trees_with_clade=counts[m] if not nc.mrca_only else n,
+                key=clade_key(nc.members),
+                members=",".join(sorted(nc.members)),
+                summary_tree=described,
+            )
+        )
     table = pd.DataFrame(out, columns=CLADE_COLUMNS)
     dup = table["clade"][table["clade"].duplicated()]
     if len(dup):
-        raise InputError(f"ancestral.clades: the name '{dup.iloc[0]}' is used twice (a named clade "
-                         "and a consensus clade share it); choose another name.")
+        raise InputError(
+            f"ancestral.clades: the name '{dup.iloc[0]}' is used twice (a named clade "
+            "and a consensus clade share it); choose another name."
+        )
     return table, summary
 
 
 # --------------------------------------------------------------------------- 2. one chunk
+
 
 def q_from_rate_rows(rows: pd.DataFrame, states) -> np.ndarray:
     """Rate matrix from tidy rate rows (from_state, to_state, rate) of one fit."""
@@ -183,13 +217,26 @@ def resolve_choice(choice: str, model_names, analysis: str) -> tuple:
     this analysis falls back to the Akaike-weight average, and says so."""
     if choice in ("average", "best") or choice in model_names:
         return choice, ""
-    return "average", (f"model '{choice}' (ancestral.model) is not fitted for '{analysis}'; "
-                       "the Akaike-weight average of its models is used instead")
+    return "average", (
+        f"model '{choice}' (ancestral.model) is not fitted for '{analysis}'; "
+        "the Akaike-weight average of its models is used instead"
+    )
 
 
-def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.DataFrame,
-                    clades: pd.DataFrame, analysis: str, choice: str, n_maps: int, seed: int,
-                    criterion: str = "aicc", absent: str = "error") -> dict:
+def chunk_ancestral(
+    trees,
+    trait,
+    models: dict,
+    fits: pd.DataFrame,
+    rates: pd.DataFrame,
+    clades: pd.DataFrame,
+    analysis: str,
+    choice: str,
+    n_maps: int,
+    seed: int,
+    criterion: str = "aicc",
+    absent: str = "error",
+) -> dict:
     """Probabilities at the target clades and maps on every tree of a chunk.
 
     models: {model name: (RateModel, root)} in a fixed order; fits / rates: the
@@ -211,7 +258,7 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
     at_bound = np.zeros(n_trees)
     model_at_upper = np.zeros((n_trees, len(names)), dtype=bool)
     skipped = np.zeros(n_trees, dtype=bool)
-    impossible = np.zeros(n_trees, dtype=bool)     # every model's fit has ln L = -inf
+    impossible = np.zeros(n_trees, dtype=bool)  # every model's fit has ln L = -inf
     # clade in the tree (a named clade: its taxa monophyletic; a named MRCA: always),
     # on every tree, fitted or not: each tree set's clade frequencies come from here
     present = np.zeros((n_trees, n_clades), dtype=bool)
@@ -239,25 +286,37 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
         for name in names:
             row = fit_by.get((name, tree.index))
             if row is None:
-                raise InputError(f"analysis '{analysis}': no fit of model '{name}' for tree "
-                                 f"{tree.index} in this chunk; rerun the fit jobs.")
+                raise InputError(
+                    f"analysis '{analysis}': no fit of model '{name}' for tree "
+                    f"{tree.index} in this chunk; rerun the fit jobs."
+                )
             crit.append(float(row[criterion]) if pd.notna(row[criterion]) else np.inf)
             g = rate_groups.get((name, tree.index))
             mstates = models[name][0].states
-            Qs.append(q_from_rate_rows(g, mstates) if g is not None
-                      else np.zeros((len(mstates), len(mstates))))
+            Qs.append(
+                q_from_rate_rows(g, mstates)
+                if g is not None
+                else np.zeros((len(mstates), len(mstates)))
+            )
             roots.append(models[name][1])
             # an impossible fit (ln L = -inf) has no rates and no branch parameter: weight 0
             lls.append(float(row["log_likelihood"]))
-            own.append(tree_of_fit(tree, row.get("branches"), row.get("branch_parameter"))
-                       if np.isfinite(lls[-1]) else tree)
+            own.append(
+                tree_of_fit(tree, row.get("branches"), row.get("branch_parameter"))
+                if np.isfinite(lls[-1])
+                else tree
+            )
             conv.append(str(row["converged"]).lower() == "true")
             # a rate at the lower bound is a change the data do not support (rate ~ 0), which
             # maps handle; a rate at the upper bound, or whose 95% interval reaches it, has no
             # upper limit in the data, and neither have the changes a map draws under it
-            bound.append(any(str(row.get(col, "") or "").strip() not in ("", "nan")
-                             for col in ("at_upper", "open_upper"))
-                         or branch_at_box_edge(row.get("branches"), row.get("branch_at_bound")))
+            bound.append(
+                any(
+                    str(row.get(col, "") or "").strip() not in ("", "nan")
+                    for col in ("at_upper", "open_upper")
+                )
+                or branch_at_box_edge(row.get("branches"), row.get("branch_at_bound"))
+            )
         w = model_weights(crit, choice_used, names)
         if not (w > 0).any():
             skipped[t] = True
@@ -267,8 +326,9 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
         model_at_upper[t] = bound
         unconverged[t] = float(sum(wi for wi, c in zip(w, conv) if not c))
         at_bound[t] = float(sum(wi for wi, b in zip(w, bound) if b))
-        mix = [(Q, r, wi, models[name][0], tr)
-               for Q, r, wi, name, tr in zip(Qs, roots, w, names, own)]
+        mix = [
+            (Q, r, wi, models[name][0], tr) for Q, r, wi, name, tr in zip(Qs, roots, w, names, own)
+        ]
         try:
             p = averaged_probabilities(tree, X, mix, states)
         except (ImpossibleData, ValueError):
@@ -281,8 +341,9 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             if not np.isfinite(crit[i]):
                 continue
             try:
-                per_model[name] = marginal_probabilities(own[i], models[name][0].expand_tips(X),
-                                                         Qs[i], roots[i], models[name][0].states)
+                per_model[name] = marginal_probabilities(
+                    own[i], models[name][0].expand_tips(X), Qs[i], roots[i], models[name][0].states
+                )
             except ImpossibleData:
                 continue
         for c in range(n_clades):
@@ -303,20 +364,33 @@ def chunk_ancestral(trees, trait, models: dict, fits: pd.DataFrame, rates: pd.Da
             counts[t] = ms.counts
             dwell[t] = ms.dwell
             map_model[t] = ms.model
-    return dict(tree=np.array([t.index for t in trees], dtype=np.int64),
-                tree_set=np.array([t.tree_set for t in trees], dtype=str), present=present,
-                prob=prob, extra=extra,
-                counts=counts, dwell=dwell, map_model=map_model, weights=weights,
-                unconverged_weight=unconverged, bound_weight=at_bound,
-                model_at_upper=model_at_upper, skipped=skipped, impossible=impossible,
-                states=np.array(json.dumps(list(states))), models=np.array(json.dumps(names)),
-                clades=np.array(json.dumps(list(clades["clade"]))),
-                choice=np.array(choice_used), choice_note=np.array(choice_note),
-                hidden_models=np.array(json.dumps({n: list(models[n][0].states) for n in hidden})),
-                **{f"combined::{n}": combined[n] for n in hidden})
+    return dict(
+        tree=np.array([t.index for t in trees], dtype=np.int64),
+        tree_set=np.array([t.tree_set for t in trees], dtype=str),
+        present=present,
+        prob=prob,
+        extra=extra,
+        counts=counts,
+        dwell=dwell,
+        map_model=map_model,
+        weights=weights,
+        unconverged_weight=unconverged,
+        bound_weight=at_bound,
+        model_at_upper=model_at_upper,
+        skipped=skipped,
+        impossible=impossible,
+        states=np.array(json.dumps(list(states))),
+        models=np.array(json.dumps(names)),
+        clades=np.array(json.dumps(list(clades["clade"]))),
+        choice=np.array(choice_used),
+        choice_note=np.array(choice_note),
+        hidden_models=np.array(json.dumps({n: list(models[n][0].states) for n in hidden})),
+        **{f"combined::{n}": combined[n] for n in hidden},
+    )
 
 
 # --------------------------------------------------------------------------- 3. across chunks
+
 
 def load_chunks(paths) -> dict:
     """Concatenate the arrays of an analysis's chunk files (tree order kept)."""
@@ -340,16 +414,25 @@ def tree_set_slices(data: dict) -> list:
 
     Every per-tree array (first axis the trees) is cut; the rest is shared."""
     if "tree_set" not in data or "present" not in data:
-        raise ValueError("ancestral chunk files without 'tree_set' or 'present' (written by an "
-                         "older mkforest): rerun the ancestral chunk jobs (snakemake --forcerun "
-                         "ancestral_chunk)")
+        raise ValueError(
+            "ancestral chunk files without 'tree_set' or 'present' (written by an "
+            "older mkforest): rerun the ancestral chunk jobs (snakemake --forcerun "
+            "ancestral_chunk)"
+        )
     sets = np.asarray(data["tree_set"]).astype(str)
     n = len(sets)
     out = []
     for ts in dict.fromkeys(sets.tolist()):
         keep = sets == ts
-        out.append((ts, {k: (v[keep] if isinstance(v, np.ndarray) and v.ndim and len(v) == n
-                             else v) for k, v in data.items()}))
+        out.append(
+            (
+                ts,
+                {
+                    k: (v[keep] if isinstance(v, np.ndarray) and v.ndim and len(v) == n else v)
+                    for k, v in data.items()
+                },
+            )
+        )
     return out
 
 
@@ -376,22 +459,32 @@ def _common_cautions(data, n_total) -> list:
     n_used = int(used.sum())
     n_impossible = int(np.asarray(data.get("impossible", np.zeros(0)), dtype=bool).sum())
     if n_impossible:
-        notes.append(f"{n_impossible} of {n_total} trees skipped: the data are impossible there "
-                     "under every model (ln L = -inf; see tables/data_check.tsv)")
+        notes.append(
+            f"{n_impossible} of {n_total} trees skipped: the data are impossible there "
+            "under every model (ln L = -inf; see tables/data_check.tsv)"
+        )
     if n_used + n_impossible < n_total:
-        notes.append(f"{n_total - n_used - n_impossible} of {n_total} trees skipped (no model "
-                     "could be fitted there, or the data are impossible under the chosen model)")
+        notes.append(
+            f"{n_total - n_used - n_impossible} of {n_total} trees skipped (no model "
+            "could be fitted there, or the data are impossible under the chosen model)"
+        )
     if n_used and n_used < FEW_TREES:
-        notes.append(f"only {n_used} tree{'' if n_used == 1 else 's'}: intervals across trees are rough")
+        notes.append(
+            f"only {n_used} tree{'' if n_used == 1 else 's'}: intervals across trees are rough"
+        )
     nc = int((data["unconverged_weight"][used] > WEAK_WEIGHT).sum())
     if nc:
-        notes.append(f"on {nc} of {n_used} trees, fits carrying over {WEAK_WEIGHT:.0%} of the "
-                     "weight did not converge")
+        notes.append(
+            f"on {nc} of {n_used} trees, fits carrying over {WEAK_WEIGHT:.0%} of the "
+            "weight did not converge"
+        )
     nb = int((data["bound_weight"][used] > WEAK_WEIGHT).sum())
     if nb:
-        notes.append(f"on {nb} of {n_used} trees, fits carrying over {WEAK_WEIGHT:.0%} of the "
-                     "weight have a rate the data do not bound from above (a change too fast to "
-                     "estimate; maps from those fits are left out of the change counts)")
+        notes.append(
+            f"on {nb} of {n_used} trees, fits carrying over {WEAK_WEIGHT:.0%} of the "
+            "weight have a rate the data do not bound from above (a change too fast to "
+            "estimate; maps from those fits are left out of the change counts)"
+        )
     if data.get("choice_note"):
         notes.append(str(data["choice_note"]))
     return notes
@@ -412,21 +505,27 @@ def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
         if kind in TREE_KINDS + ("named",):
             freq = crow["frequency"]
             if freq < RARE_CLADE:
-                notes.append(f"this clade is in only {freq:.0%} of the trees "
-                             f"({crow['n_trees_with_clade']} of {n_total})"
-                             + ("; probabilities come from those trees only" if kind != "named" else ""))
+                notes.append(
+                    f"this clade is in only {freq:.0%} of the trees "
+                    f"({crow['n_trees_with_clade']} of {n_total})"
+                    + ("; probabilities come from those trees only" if kind != "named" else "")
+                )
         if kind == "named":
             ex = data["extra"][used, c][present]
             bad = int((ex > 0).sum())
             if bad:
-                notes.append(f"the listed taxa are not monophyletic in {bad} of {n} trees; there "
-                             f"their most recent common ancestor is used, which holds up to "
-                             f"{int(ex.max())} other tips")
+                notes.append(
+                    f"the listed taxa are not monophyletic in {bad} of {n} trees; there "
+                    f"their most recent common ancestor is used, which holds up to "
+                    f"{int(ex.max())} other tips"
+                )
         if kind == "named_mrca":
             size = data["extra"][used, c][present] + crow["n_tips"]
             if len(size) and size.min() != size.max():
-                notes.append(f"the ancestor of the listed taxa holds {int(size.min())} to "
-                             f"{int(size.max())} tips across trees")
+                notes.append(
+                    f"the ancestor of the listed taxa holds {int(size.min())} to "
+                    f"{int(size.max())} tips across trees"
+                )
         if n == 0:
             notes.append("absent from every tree analysed")
         if 0 < n < FEW_TREES:
@@ -434,11 +533,21 @@ def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
         caution = "; ".join(notes + common)
         for i, s in enumerate(states):
             x = p[:, i] if n else np.array([])
-            rows.append(dict(analysis=analysis, clade=crow["clade"], clade_kind=kind,
-                             clade_frequency=crow["frequency"], n_trees=n, state=s,
-                             mean_probability=float(x.mean()) if n else np.nan,
-                             probability_low95=_q(x, 0.025), probability_high95=_q(x, 0.975),
-                             model_choice=data["choice"], caution=caution))
+            rows.append(
+                dict(
+                    analysis=analysis,
+                    clade=crow["clade"],
+                    clade_kind=kind,
+                    clade_frequency=crow["frequency"],
+                    n_trees=n,
+                    state=s,
+                    mean_probability=float(x.mean()) if n else np.nan,
+                    probability_low95=_q(x, 0.025),
+                    probability_high95=_q(x, 0.975),
+                    model_choice=data["choice"],
+                    caution=caution,
+                )
+            )
     return pd.DataFrame(rows)
 
 
@@ -446,8 +555,7 @@ def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
 # the data do not bound the parameter, and a map's count of changes follows the box
 # (a kappa of 3 with its rates drew 900 changes per map on a 90-tip demo tree). kappa = 0
 # (speciation events) and lambda's 0 and 1 are models in their own right, not box edges.
-BOX_EDGES = {"kappa": ("upper",), "delta": ("lower", "upper"),
-             "early_burst": ("lower", "upper")}
+BOX_EDGES = {"kappa": ("upper",), "delta": ("lower", "upper"), "early_burst": ("lower", "upper")}
 
 
 def branch_at_box_edge(treatment, at_bound) -> bool:
@@ -460,11 +568,13 @@ def bound_limited_maps(data: dict) -> np.ndarray:
     from above (fits.tsv at_upper or open_upper), or with its branch-length parameter at an
     edge of its search box (``branch_at_box_edge``)."""
     if "model_at_upper" not in data:
-        raise ValueError("ancestral chunk files without 'model_at_upper' (written by an older "
-                         "mkforest): rerun the ancestral chunk jobs (snakemake --forcerun "
-                         "ancestral_chunk)")
-    flags = np.asarray(data["model_at_upper"], dtype=bool)        # [T, models]
-    model = np.asarray(data["map_model"], dtype=np.int64)         # [T, M], -1: no map
+        raise ValueError(
+            "ancestral chunk files without 'model_at_upper' (written by an older "
+            "mkforest): rerun the ancestral chunk jobs (snakemake --forcerun "
+            "ancestral_chunk)"
+        )
+    flags = np.asarray(data["model_at_upper"], dtype=bool)  # [T, models]
+    model = np.asarray(data["map_model"], dtype=np.int64)  # [T, M], -1: no map
     if model.size == 0:
         return np.zeros(model.shape, dtype=bool)
     padded = np.concatenate([flags, np.zeros((flags.shape[0], 1), dtype=bool)], axis=1)
@@ -475,13 +585,17 @@ def _bound_caution(n_out: int, n_maps: int, n_trees_out: int, n_trees: int) -> l
     if not n_out:
         return []
     if n_out == n_maps:
-        return [f"every map ({n_maps}) was drawn under a fit with a rate the data do not bound "
-                "from above: the change counts cannot be estimated from these data and are not "
-                "given"]
-    return [f"{n_out} of {n_maps} maps (on {n_trees_out} of {n_trees} trees) were drawn under a "
-            "fit with a rate the data do not bound from above (or a branch-length parameter at "
-            "the edge of its range) and are left out: their counts grow with that rate, not "
-            "with the data"]
+        return [
+            f"every map ({n_maps}) was drawn under a fit with a rate the data do not bound "
+            "from above: the change counts cannot be estimated from these data and are not "
+            "given"
+        ]
+    return [
+        f"{n_out} of {n_maps} maps (on {n_trees_out} of {n_trees} trees) were drawn under a "
+        "fit with a rate the data do not bound from above (or a branch-length parameter at "
+        "the edge of its range) and are left out: their counts grow with that rate, not "
+        "with the data"
+    ]
 
 
 def transition_tables(analysis: str, data: dict, n_total: int) -> tuple:
@@ -494,16 +608,18 @@ def transition_tables(analysis: str, data: dict, n_total: int) -> tuple:
     """
     states = data["states"]
     used = ~data["skipped"]
-    counts = data["counts"][used]          # [T, M, k, k]
-    dwell = data["dwell"][used]            # [T, M, k]
+    counts = data["counts"][used]  # [T, M, k, k]
+    dwell = data["dwell"][used]  # [T, M, k]
     tree_ids = data["tree"][used]
     T, M = counts.shape[:2]
-    out = bound_limited_maps(data)[used]   # [T, M]
+    out = bound_limited_maps(data)[used]  # [T, M]
     keep = ~out
     n_out = int(out.sum())
-    caution = "; ".join(_common_cautions(data, n_total)
-                        + _bound_caution(n_out, T * M, int(out.any(axis=1).sum()), T)
-                        + (["no maps were drawn (ancestral.maps is 0)"] if M == 0 else []))
+    caution = "; ".join(
+        _common_cautions(data, n_total)
+        + _bound_caution(n_out, T * M, int(out.any(axis=1).sum()), T)
+        + (["no maps were drawn (ancestral.maps is 0)"] if M == 0 else [])
+    )
     kept = keep.reshape(T * M)
     pooled_c = counts.reshape(T * M, len(states), len(states)).astype(float)[kept]
     pooled_d = dwell.reshape(T * M, len(states))[kept]
@@ -515,35 +631,71 @@ def transition_tables(analysis: str, data: dict, n_total: int) -> tuple:
             if i == j:
                 continue
             x = pooled_c[:, i, j]
-            trows.append(dict(analysis=analysis, from_state=a, to_state=b, n_trees=T,
-                              n_maps=n_kept, n_maps_at_upper=n_out,
-                              mean_count=float(x.mean()) if len(x) else np.nan,
-                              count_low95=_q(x, 0.025), count_high95=_q(x, 0.975),
-                              fraction_of_maps_with_change=float((x > 0).mean()) if len(x) else np.nan,
-                              caution=caution))
+            trows.append(
+                dict(
+                    analysis=analysis,
+                    from_state=a,
+                    to_state=b,
+                    n_trees=T,
+                    n_maps=n_kept,
+                    n_maps_at_upper=n_out,
+                    mean_count=float(x.mean()) if len(x) else np.nan,
+                    count_low95=_q(x, 0.025),
+                    count_high95=_q(x, 0.975),
+                    fraction_of_maps_with_change=float((x > 0).mean()) if len(x) else np.nan,
+                    caution=caution,
+                )
+            )
             if M:
                 c = counts[:, :, i, j].astype(float)
                 sums = np.where(keep, c, 0.0).sum(axis=1)
                 for tid, total, n_ok in zip(tree_ids, sums, per_tree_kept):
-                    per_tree.append(dict(analysis=analysis, tree=int(tid), from_state=a,
-                                         to_state=b, n_maps=int(n_ok),
-                                         n_maps_at_upper=int(M - n_ok),
-                                         mean_count=float(total / n_ok) if n_ok else np.nan))
+                    per_tree.append(
+                        dict(
+                            analysis=analysis,
+                            tree=int(tid),
+                            from_state=a,
+                            to_state=b,
+                            n_maps=int(n_ok),
+                            n_maps_at_upper=int(M - n_ok),
+                            mean_count=float(total / n_ok) if n_ok else np.nan,
+                        )
+                    )
     total = pooled_d.sum(axis=1, keepdims=True)
     frac = np.divide(pooled_d, total, out=np.zeros_like(pooled_d), where=total > 0)
     for i, s in enumerate(states):
         x = pooled_d[:, i]
-        drows.append(dict(analysis=analysis, state=s, n_trees=T, n_maps=n_kept,
-                          n_maps_at_upper=n_out,
-                          mean_time=float(x.mean()) if len(x) else np.nan,
-                          time_low95=_q(x, 0.025), time_high95=_q(x, 0.975),
-                          mean_fraction=float(frac[:, i].mean()) if len(x) else np.nan,
-                          caution=caution))
+        drows.append(
+            dict(
+                analysis=analysis,
+                state=s,
+                n_trees=T,
+                n_maps=n_kept,
+                n_maps_at_upper=n_out,
+                mean_time=float(x.mean()) if len(x) else np.nan,
+                time_low95=_q(x, 0.025),
+                time_high95=_q(x, 0.975),
+                mean_fraction=float(frac[:, i].mean()) if len(x) else np.nan,
+                caution=caution,
+            )
+        )
     return pd.DataFrame(trows), pd.DataFrame(drows), pd.DataFrame(per_tree)
 
 
-CLASS_COLUMNS = ["analysis", "model", "clade", "clade_kind", "clade_frequency", "n_trees", "class",
-                 "state", "mean_probability", "probability_low95", "probability_high95", "caution"]
+CLASS_COLUMNS = [
+    "analysis",
+    "model",
+    "clade",
+    "clade_kind",
+    "clade_frequency",
+    "n_trees",
+    "class",
+    "state",
+    "mean_probability",
+    "probability_low95",
+    "probability_high95",
+    "caution",
+]
 
 
 def class_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -> pd.DataFrame:
@@ -555,7 +707,7 @@ def class_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
     rows = []
     common = _common_cautions(data, n_total)
     for model, combined_states in data.get("hidden_models", {}).items():
-        arr = data[f"combined::{model}"]                 # [trees, clades, K]
+        arr = data[f"combined::{model}"]  # [trees, clades, K]
         cls = [int(c.rpartition("@")[2]) for c in combined_states]
         R = max(cls)
         for c, crow in enumerate(clades.to_dict("records")):
@@ -566,18 +718,42 @@ def class_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
             if n == 0:
                 notes.insert(0, "absent from every tree analysed, or the model was not fitted")
             caution = "; ".join(notes)
-            base = dict(analysis=analysis, model=model, clade=crow["clade"],
-                        clade_kind=crow["kind"], clade_frequency=crow["frequency"], n_trees=n)
+            base = dict(
+                analysis=analysis,
+                model=model,
+                clade=crow["clade"],
+                clade_kind=crow["kind"],
+                clade_frequency=crow["frequency"],
+                n_trees=n,
+            )
             for r in range(1, R + 1):
-                x = p[:, [i for i, q in enumerate(cls) if q == r]].sum(axis=1) if n else np.array([])
-                rows.append(dict(base, **{"class": r}, state="",
-                                 mean_probability=float(x.mean()) if n else np.nan,
-                                 probability_low95=_q(x, 0.025), probability_high95=_q(x, 0.975),
-                                 caution=caution))
+                x = (
+                    p[:, [i for i, q in enumerate(cls) if q == r]].sum(axis=1)
+                    if n
+                    else np.array([])
+                )
+                rows.append(
+                    dict(
+                        base,
+                        **{"class": r},
+                        state="",
+                        mean_probability=float(x.mean()) if n else np.nan,
+                        probability_low95=_q(x, 0.025),
+                        probability_high95=_q(x, 0.975),
+                        caution=caution,
+                    )
+                )
             for i, label in enumerate(combined_states):
                 x = p[:, i] if n else np.array([])
-                rows.append(dict(base, **{"class": cls[i]}, state=label,
-                                 mean_probability=float(x.mean()) if n else np.nan,
-                                 probability_low95=_q(x, 0.025), probability_high95=_q(x, 0.975),
-                                 caution=caution))
+                rows.append(
+                    dict(
+                        base,
+                        **{"class": cls[i]},
+                        state=label,
+                        mean_probability=float(x.mean()) if n else np.nan,
+                        probability_low95=_q(x, 0.025),
+                        probability_high95=_q(x, 0.975),
+                        caution=caution,
+                    )
+                )
     return pd.DataFrame(rows, columns=CLASS_COLUMNS)

@@ -49,15 +49,18 @@ def query_nodes(partition=None, timeout: float = 20.0):
     return parse_sinfo(out.stdout) or None
 
 
-def request_problem(cores_asked: int, mem_asked: int, nodes: list, group_size: int,
-                    cores_setting) -> str | None:
+def request_problem(
+    cores_asked: int, mem_asked: int, nodes: list, group_size: int, cores_setting
+) -> str | None:
     """One sentence when no node can hold the request, else None."""
     if any(c >= cores_asked and m >= mem_asked for c, m in nodes):
         return None
     big_c = max(c for c, _ in nodes)
     big_m = max(m for _, m in nodes)
     set_to = f"cores: {cores_setting}" if cores_setting is not None else "no cores: line"
-    return (f"mkforest: a group of {group_size} fits would ask SLURM for {cores_asked} cores and "
-            f"{mem_asked} MB at once, but the largest node has {big_c} cores and {big_m} MB "
-            f"(sinfo). In profiles/slurm/config.yaml ({set_to}) set cores: to at most {big_c}, "
-            "the cores of your nodes; the fits of a group beyond that run one after another.")
+    return (
+        f"mkforest: a group of {group_size} fits would ask SLURM for {cores_asked} cores and "
+        f"{mem_asked} MB at once, but the largest node has {big_c} cores and {big_m} MB "
+        f"(sinfo). In profiles/slurm/config.yaml ({set_to}) set cores: to at most {big_c}, "
+        "the cores of your nodes; the fits of a group beyond that run one after another."
+    )

@@ -16,8 +16,9 @@ def burnin_count(n_total: int, burnin) -> int:
     return min(n_total, int(math.floor(burnin * n_total)) if burnin < 1 else int(burnin))
 
 
-def select_trees(n_total: int, burnin=0, thin: int = 1, sample=None, seed: int = 1,
-                 source: str = "trees") -> list:
+def select_trees(
+    n_total: int, burnin=0, thin: int = 1, sample=None, seed: int = 1, source: str = "trees"
+) -> list:
     """Indices (0-based, in file order) of the trees to use.
 
     burnin: a fraction below 1 (of n_total, rounded down) or a count of trees;
@@ -28,12 +29,16 @@ def select_trees(n_total: int, burnin=0, thin: int = 1, sample=None, seed: int =
         raise InputError(f"{source}: trees.burnin must not be negative (got {burnin}).")
     drop = burnin_count(n_total, burnin)
     if burnin >= 1 and burnin != int(burnin):
-        raise InputError(f"{source}: trees.burnin {burnin} is neither a fraction below 1 nor a "
-                         "whole number of trees.")
+        raise InputError(
+            f"{source}: trees.burnin {burnin} is neither a fraction below 1 nor a "
+            "whole number of trees."
+        )
     kept = list(range(drop, n_total, thin))
     if not kept:
-        raise InputError(f"{source}: burn-in of {drop} tree(s) and thinning by {thin} leave no "
-                         f"trees (the file holds {n_total}). Lower trees.burnin or trees.thin.")
+        raise InputError(
+            f"{source}: burn-in of {drop} tree(s) and thinning by {thin} leave no "
+            f"trees (the file holds {n_total}). Lower trees.burnin or trees.thin."
+        )
     if sample is not None and sample < len(kept):
         rng = np.random.default_rng(derive_seed(seed, "tree-sample"))
         kept = sorted(int(i) for i in rng.choice(kept, size=sample, replace=False))
@@ -47,8 +52,10 @@ def check_same_tips(trees: list, source: str) -> None:
         tips = set(t.tip_labels)
         if tips != first:
             what = _tip_difference(tips, first, f" that tree {trees[0].index} lacks")
-            raise InputError(f"{source}: tree {t.index} {what}; every tree in "
-                             "the sample must have the same tips.")
+            raise InputError(
+                f"{source}: tree {t.index} {what}; every tree in "
+                "the sample must have the same tips."
+            )
 
 
 def _tip_difference(tips: set, reference: set, extra_note: str = "") -> str:
@@ -68,12 +75,18 @@ def check_tree_lengths(trees: list, source: str) -> None:
     under every model, and the rate bounds (set from the tree's height) mean nothing."""
     flat = [t.index for t in trees if not t.total_length > 0]
     if flat:
-        more = f" (and {len(flat) - 1} more: {', '.join(map(str, flat[1:6]))}" \
-               f"{', ...' if len(flat) > 6 else ''})" if len(flat) > 1 else ""
-        raise InputError(f"{source}: tree {flat[0]}{more} has no length: every branch is 0, so no "
-                         "trait can change along it. Give the trees branch lengths (a dated or "
-                         "otherwise scaled tree), leave that tree out, or set "
-                         "trees.min_branch_length to give every branch a small length.")
+        more = (
+            f" (and {len(flat) - 1} more: {', '.join(map(str, flat[1:6]))}"
+            f"{', ...' if len(flat) > 6 else ''})"
+            if len(flat) > 1
+            else ""
+        )
+        raise InputError(
+            f"{source}: tree {flat[0]}{more} has no length: every branch is 0, so no "
+            "trait can change along it. Give the trees branch lengths (a dated or "
+            "otherwise scaled tree), leave that tree out, or set "
+            "trees.min_branch_length to give every branch a small length."
+        )
 
 
 def short_branches(tree: TreeArrays, minimum: float = 0.0) -> dict:
@@ -83,11 +96,13 @@ def short_branches(tree: TreeArrays, minimum: float = 0.0) -> dict:
     branches of length zero; below_minimum: branches (any) shorter than ``minimum``.
     The root has no branch and is never counted.
     """
-    lengths = tree.length[:-1]           # every node but the root (the last node)
+    lengths = tree.length[:-1]  # every node but the root (the last node)
     zero = lengths == 0
-    return {"zero_tips": [tree.tip_labels[v] for v in np.flatnonzero(zero[: tree.n_tips])],
-            "zero_internal": int(zero[tree.n_tips:].sum()),
-            "below_minimum": int((lengths < minimum).sum()) if minimum else 0}
+    return {
+        "zero_tips": [tree.tip_labels[v] for v in np.flatnonzero(zero[: tree.n_tips])],
+        "zero_internal": int(zero[tree.n_tips :].sum()),
+        "below_minimum": int((lengths < minimum).sum()) if minimum else 0,
+    }
 
 
 def lengthen_branches(tree: TreeArrays, minimum) -> TreeArrays:
@@ -103,8 +118,9 @@ def lengthen_branches(tree: TreeArrays, minimum) -> TreeArrays:
     length = tree.length.copy()
     body = length[:-1]
     body[body < minimum] = minimum
-    return TreeArrays(tree.tip_labels, tree.parent, length, tree.child_ptr, tree.children,
-                      tree.index)
+    return TreeArrays(
+        tree.tip_labels, tree.parent, length, tree.child_ptr, tree.children, tree.index
+    )
 
 
 def zero_distance_groups(tree: TreeArrays) -> list:
@@ -112,7 +128,7 @@ def zero_distance_groups(tree: TreeArrays) -> list:
     joined through branches of length zero only."""
     parent = tree.parent
     top = np.arange(tree.n_nodes)
-    for v in range(tree.n_nodes - 2, -1, -1):       # preorder: a parent's group is known first
+    for v in range(tree.n_nodes - 2, -1, -1):  # preorder: a parent's group is known first
         if tree.length[v] == 0:
             top[v] = top[parent[v]]
     groups: dict = {}
@@ -130,34 +146,64 @@ def impossible_tips(tree: TreeArrays, trait) -> list:
         labels = [tree.tip_labels[v] for v in group if tree.tip_labels[v] in row]
         possible = [trait.possible[row[lab]] for lab in labels]
         if len(possible) > 1 and not np.logical_and.reduce(possible).any():
-            out.append([(lab, "|".join(s for s, ok in zip(trait.states, p) if ok))
-                        for lab, p in zip(labels, possible) if not p.all()])
+            out.append(
+                [
+                    (lab, "|".join(s for s, ok in zip(trait.states, p) if ok))
+                    for lab, p in zip(labels, possible)
+                    if not p.all()
+                ]
+            )
     return out
 
 
 def tree_check_rows(summary: dict, used: list) -> list:
     """data_check rows about the tree sample (trait '(trees)'): trees in the file, dropped as
     burn-in, used, rooting, and per tree the tips on zero-length branches."""
-    rows = [dict(trait="(trees)", item="trees_in_file", value=summary["n_in_file"], detail=""),
-            dict(trait="(trees)", item="dropped_as_burnin", value=summary["burnin_dropped"],
-                 detail=""),
-            dict(trait="(trees)", item="trees_used", value=len(used), detail=""),
-            dict(trait="(trees)", item="rooted", value=int(summary.get("root") is not None),
-                 detail=summary.get("rooting", ""))]
+    rows = [
+        dict(trait="(trees)", item="trees_in_file", value=summary["n_in_file"], detail=""),
+        dict(trait="(trees)", item="dropped_as_burnin", value=summary["burnin_dropped"], detail=""),
+        dict(trait="(trees)", item="trees_used", value=len(used), detail=""),
+        dict(
+            trait="(trees)",
+            item="rooted",
+            value=int(summary.get("root") is not None),
+            detail=summary.get("rooting", ""),
+        ),
+    ]
     total_zero = sum(len(r["zero_tips"]) + r["zero_internal"] for r in used)
-    rows.append(dict(trait="(trees)", item="zero_length_branches", value=total_zero,
-                     detail=f"on {sum(1 for r in used if r['zero_tips'] or r['zero_internal'])} "
-                            "trees, as read"))
+    rows.append(
+        dict(
+            trait="(trees)",
+            item="zero_length_branches",
+            value=total_zero,
+            detail=f"on {sum(1 for r in used if r['zero_tips'] or r['zero_internal'])} "
+            "trees, as read",
+        )
+    )
     minimum = summary.get("min_branch_length")
-    rows.append(dict(trait="(trees)", item="branches_lengthened",
-                     value=sum(r["below_minimum"] for r in used),
-                     detail=f"to trees.min_branch_length {minimum:g}" if minimum else
-                     "none (trees.min_branch_length not set)"))
+    rows.append(
+        dict(
+            trait="(trees)",
+            item="branches_lengthened",
+            value=sum(r["below_minimum"] for r in used),
+            detail=f"to trees.min_branch_length {minimum:g}"
+            if minimum
+            else "none (trees.min_branch_length not set)",
+        )
+    )
     for r in used:
         if r["zero_tips"]:
-            rows.append(dict(trait="(trees)", item="zero_length_tips", tree=r["tree"],
-                             value=len(r["zero_tips"]), detail=", ".join(r["zero_tips"])))
+            rows.append(
+                dict(
+                    trait="(trees)",
+                    item="zero_length_tips",
+                    tree=r["tree"],
+                    value=len(r["zero_tips"]),
+                    detail=", ".join(r["zero_tips"]),
+                )
+            )
     return rows
+
 
 def check_same_taxa_across_sets(firsts: dict) -> None:
     """Every tree set must hold the same taxa. firsts: {set name: (a tree, its source)}."""
@@ -167,9 +213,11 @@ def check_same_taxa_across_sets(firsts: dict) -> None:
     for name, (tree, source) in items[1:]:
         tips = set(tree.tip_labels)
         if tips != tips0:
-            raise InputError(f"tree set '{name}' ({source}) {_tip_difference(tips, tips0)} compared with "
-                             f"tree set '{name0}' ({source0}); tree sets are compared on the same "
-                             "taxa, so every set must have the same tips.")
+            raise InputError(
+                f"tree set '{name}' ({source}) {_tip_difference(tips, tips0)} compared with "
+                f"tree set '{name0}' ({source0}); tree sets are compared on the same "
+                "taxa, so every set must have the same tips."
+            )
 
 
 # trees.per_job: auto. Every job pays a start-up (Python, NumPy, SciPy, numba and the
@@ -195,7 +243,7 @@ def auto_trees_per_job(n_trees: int, n_tips: int, fits_per_tree: int, slots: int
 
 
 def chunk(items: list, per_job: int) -> list:
-    return [items[i:i + per_job] for i in range(0, len(items), per_job)]
+    return [items[i : i + per_job] for i in range(0, len(items), per_job)]
 
 
 def impossible_rows(traits: dict, trees: list) -> list:
@@ -205,9 +253,18 @@ def impossible_rows(traits: dict, trees: list) -> list:
         for tree in trees:
             groups = impossible_tips(tree, t)
             if groups:
-                detail = "; ".join(" vs ".join(f"{lab} ({cell})" for lab, cell in g) for g in groups)
-                rows.append(dict(trait=name, item="impossible_zero_length_tips", tree=tree.index,
-                                 value=sum(len(g) for g in groups), detail=detail))
+                detail = "; ".join(
+                    " vs ".join(f"{lab} ({cell})" for lab, cell in g) for g in groups
+                )
+                rows.append(
+                    dict(
+                        trait=name,
+                        item="impossible_zero_length_tips",
+                        tree=tree.index,
+                        value=sum(len(g) for g in groups),
+                        detail=detail,
+                    )
+                )
     return rows
 
 
@@ -224,32 +281,74 @@ def data_check(traits: dict, tree_tips, absent: str = "error", source: str = "tr
         taxa = set(t.taxa)
         only_tree = sorted(tips - taxa)
         only_table = sorted(taxa - tips)
-        rows.append({"trait": name, "item": "taxa_in_trees_only", "value": len(only_tree),
-                     "detail": ",".join(only_tree)})
-        rows.append({"trait": name, "item": "taxa_in_table_only", "value": len(only_table),
-                     "detail": ",".join(only_table)})
+        rows.append(
+            {
+                "trait": name,
+                "item": "taxa_in_trees_only",
+                "value": len(only_tree),
+                "detail": ",".join(only_tree),
+            }
+        )
+        rows.append(
+            {
+                "trait": name,
+                "item": "taxa_in_table_only",
+                "value": len(only_table),
+                "detail": ",".join(only_table),
+            }
+        )
         if only_tree and absent == "error":
             shown = ", ".join(f"'{x}'" for x in only_tree[:5])
             more = f" and {len(only_tree) - 5} more" if len(only_tree) > 5 else ""
             near = {" ".join(x.lower().split()): x for x in only_table}
-            close = [(x, near[" ".join(x.lower().split())]) for x in only_tree
-                     if " ".join(x.lower().split()) in near]
-            hint = (f" The table has '{close[0][1]}' where the trees have '{close[0][0]}': names "
-                    "must match exactly, including case and spaces." if close else "")
-            problems.append(f"{source}: taxon {shown}{more} is in the trees but has no row in the "
-                            "trait table. Add rows with '?' for unknown values, or set "
-                            f"traits.absent_taxa: missing.{hint}")
+            close = [
+                (x, near[" ".join(x.lower().split())])
+                for x in only_tree
+                if " ".join(x.lower().split()) in near
+            ]
+            hint = (
+                f" The table has '{close[0][1]}' where the trees have '{close[0][0]}': names "
+                "must match exactly, including case and spaces."
+                if close
+                else ""
+            )
+            problems.append(
+                f"{source}: taxon {shown}{more} is in the trees but has no row in the "
+                "trait table. Add rows with '?' for unknown values, or set "
+                f"traits.absent_taxa: missing.{hint}"
+            )
         in_tree = np.array([x in tips for x in t.taxa], dtype=bool)
         p = t.possible[in_tree]
         n_states = p.sum(axis=1)
         for i, s in enumerate(t.states):
-            rows.append({"trait": name, "item": f"state:{s}", "value": int((p[:, i] & (n_states == 1)).sum()),
-                         "detail": ""})
-        rows.append({"trait": name, "item": "missing", "value": int((n_states == t.k).sum()), "detail": ""})
-        rows.append({"trait": name, "item": "ambiguous", "value": int(((n_states > 1) & (n_states < t.k)).sum()),
-                     "detail": ""})
+            rows.append(
+                {
+                    "trait": name,
+                    "item": f"state:{s}",
+                    "value": int((p[:, i] & (n_states == 1)).sum()),
+                    "detail": "",
+                }
+            )
+        rows.append(
+            {"trait": name, "item": "missing", "value": int((n_states == t.k).sum()), "detail": ""}
+        )
+        rows.append(
+            {
+                "trait": name,
+                "item": "ambiguous",
+                "value": int(((n_states > 1) & (n_states < t.k)).sum()),
+                "detail": "",
+            }
+        )
         observed = [s for i, s in enumerate(t.states) if (p[:, i] & (n_states == 1)).any()]
-        rows.append({"trait": name, "item": "varies", "value": int(len(observed) >= 2),
-                     "detail": "" if len(observed) >= 2 else
-                     f"only {observed[0] if observed else 'no'} state observed: not fitted"})
+        rows.append(
+            {
+                "trait": name,
+                "item": "varies",
+                "value": int(len(observed) >= 2),
+                "detail": ""
+                if len(observed) >= 2
+                else f"only {observed[0] if observed else 'no'} state observed: not fitted",
+            }
+        )
     return rows, problems

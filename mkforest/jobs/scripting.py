@@ -28,8 +28,9 @@ def run_job(snakemake, main) -> None:
     if log_path:
         Path(log_path).parent.mkdir(parents=True, exist_ok=True)
         handlers.append(logging.FileHandler(log_path, mode="w"))
-    logging.basicConfig(level=logging.INFO, format="%(asctime)s %(message)s", handlers=handlers,
-                        force=True)
+    logging.basicConfig(
+        level=logging.INFO, format="%(asctime)s %(message)s", handlers=handlers, force=True
+    )
     log = logging.getLogger("mkforest")
     start = time.perf_counter()
     final = snakemake.output
@@ -45,8 +46,12 @@ def run_job(snakemake, main) -> None:
         raise
     publish_outputs(snakemake.output, final)
     # process CPU time counts from the interpreter's start: imports included
-    log.info("done in %.2f s (CPU %.2f s since the process started, peak memory %.0f MB)",
-             time.perf_counter() - start, time.process_time(), peak_memory_mb())
+    log.info(
+        "done in %.2f s (CPU %.2f s since the process started, peak memory %.0f MB)",
+        time.perf_counter() - start,
+        time.process_time(),
+        peak_memory_mb(),
+    )
 
 
 def peak_memory_mb() -> float:
@@ -68,14 +73,16 @@ def peak_memory_mb() -> float:
 # an output's name: Snakemake's own incomplete-file check does not reach the jobs that
 # depend on a checkpoint, which in this workflow is nearly every job.
 
+
 def _staging_dir(path: str) -> Path:
     return Path(path).parent / f".mkforest-writing-{os.getpid()}"
 
 
 def staged_outputs(outputs):
     """A copy of Snakemake's output list (names kept) pointing into the staging folders."""
-    staged = type(outputs)(toclone=outputs,
-                           custom_map=lambda p: str(_staging_dir(p) / Path(p).name))
+    staged = type(outputs)(
+        toclone=outputs, custom_map=lambda p: str(_staging_dir(p) / Path(p).name)
+    )
     for p in staged:
         Path(p).parent.mkdir(parents=True, exist_ok=True)
     return staged

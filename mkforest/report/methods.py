@@ -29,8 +29,11 @@ from .methods_branches import branches_paragraph, first_set, results_lines, tree
 from .words import hypothesis_words, model_words
 
 CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
-CRITERION_REFS = {"aicc": ("akaike1974", "hurvich1989"), "aic": ("akaike1974",),
-                  "bic": ("schwarz1978",)}
+CRITERION_REFS = {
+    "aicc": ("akaike1974", "hurvich1989"),
+    "aic": ("akaike1974",),
+    "bic": ("schwarz1978",),
+}
 KIND_WORDS = {
     "equal": "one rate for every change",
     "symmetric": "one rate per pair of states, the same in both directions",
@@ -40,13 +43,14 @@ KIND_WORDS = {
 
 # --------------------------------------------------------------------------- numbers as words
 
+
 def number(x, digits: int = 2) -> str:
     """Rounded for the text; 'n/a' when missing, '<0.01' rather than a misleading 0.00."""
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return "n/a"
     x = float(x)
-    if x != 0 and abs(x) < 0.5 * 10 ** -digits:
-        return f"<{10 ** -digits:.{digits}f}" if x > 0 else f"-<{10 ** -digits:.{digits}f}"
+    if x != 0 and abs(x) < 0.5 * 10**-digits:
+        return f"<{10**-digits:.{digits}f}" if x > 0 else f"-<{10**-digits:.{digits}f}"
     return f"{x:.{digits}f}"
 
 
@@ -89,18 +93,19 @@ def _how_often(k: int, n: int) -> str:
 
 # --------------------------------------------------------------------------- model structures
 
+
 def describe_model(model, pair_traits=None) -> str:
     """Plain-words structure of one candidate model, with its number of rates."""
     if pair_traits and model.kind in HYPOTHESES:
         first, second = pair_traits
         words = {
             "independent": f"{first} and {second} each change at their own rates, whatever the "
-                           "state of the other",
+            "state of the other",
             "dependent": f"the rates of {first} depend on the state of {second} and vice versa",
             "first_depends_on_second": f"the rates of {first} depend on the state of {second}; "
-                                       f"those of {second} do not",
+            f"those of {second} do not",
             "second_depends_on_first": f"the rates of {second} depend on the state of {first}; "
-                                       f"those of {first} do not",
+            f"those of {first} do not",
         }[model.kind]
     elif model.kind in KIND_WORDS:
         words = KIND_WORDS[model.kind]
@@ -109,12 +114,16 @@ def describe_model(model, pair_traits=None) -> str:
     else:
         words = f"only the changes listed are allowed ({model.describe()})"
     if model.n_classes > 1:
-        switch = {"equal": "one rate for every switch", "symmetric": "a shared rate in each "
-                  "direction between two classes", "unconstrained": "a rate of its own for "
-                  "every switch"}[model.class_switch]
-        words += (f", in each of {model.n_classes} hidden rate classes, each with rates of its own; "
-                  f"lineages switch class without changing state ({switch}) "
-                  + cite("beaulieu2013", "tuffley1998", "galtier2001"))
+        switch = {
+            "equal": "one rate for every switch",
+            "symmetric": "a shared rate in each direction between two classes",
+            "unconstrained": "a rate of its own for every switch",
+        }[model.class_switch]
+        words += (
+            f", in each of {model.n_classes} hidden rate classes, each with rates of its own; "
+            f"lineages switch class without changing state ({switch}) "
+            + cite("beaulieu2013", "tuffley1998", "galtier2001")
+        )
     return f"{words} ({plural(model.n_params, 'rate')})"
 
 
@@ -127,19 +136,26 @@ def _first_class(model) -> str:
         if label.endswith("@1"):
             parts.append(f"{label[:-2]}: {body.replace('@1', '')}")
         elif label == "fixed":
-            parts.append("fixed: " + ", ".join(x.replace("@1", "") for x in body.split(", ")
-                                               if "@1" in x.split("=")[0]))
+            parts.append(
+                "fixed: "
+                + ", ".join(
+                    x.replace("@1", "") for x in body.split(", ") if "@1" in x.split("=")[0]
+                )
+            )
     return "; ".join(parts)
 
 
 def root_words(root: str) -> str:
-    return {"uniform": "every state equally probable at the root",
-            "stationary": "the root states at the model's stationary distribution",
-            "data_weighted": "each root state weighted by its conditional likelihood "
-                           + cite("fitzjohn2009")}.get(root, f"the root fixed in state '{root}'")
+    return {
+        "uniform": "every state equally probable at the root",
+        "stationary": "the root states at the model's stationary distribution",
+        "data_weighted": "each root state weighted by its conditional likelihood "
+        + cite("fitzjohn2009"),
+    }.get(root, f"the root fixed in state '{root}'")
 
 
 # --------------------------------------------------------------------------- paragraphs
+
 
 def _data_paragraph(config, tables) -> str:
     check = tables["data_check"]
@@ -156,20 +172,24 @@ def _data_paragraph(config, tables) -> str:
         if int(rows.get("missing", 0)):
             missing = True
         detail = f"; {', '.join(extra)}" if extra else ""
-        parts.append(f"{trait} ({len(states)} states: {', '.join(states)}; scored for {scored} "
-                     f"taxa{detail})")
+        parts.append(
+            f"{trait} ({len(states)} states: {', '.join(states)}; scored for {scored} taxa{detail})"
+        )
     n_tips = int(used["n_tips"].iloc[0])
-    text = (f"We analysed {plural(len(parts), 'categorical trait')} of {n_tips} taxa: "
-            f"{listing(parts)}.")
+    text = (
+        f"We analysed {plural(len(parts), 'categorical trait')} of {n_tips} taxa: {listing(parts)}."
+    )
     only = check[check["item"] == "taxa_in_table_only"]
     if len(only) and int(only["value"].max()) > 0:
         row = only.sort_values("value").iloc[-1]
         names = [x for x in str(row["detail"]).split(",") if x]
         shown = listing(names[:10]) + (f" and {len(names) - 10} more" if len(names) > 10 else "")
-        text += (f" {plural(int(row['value']), 'taxon', 'taxa')} of the trait table "
-                 f"{'is' if int(row['value']) == 1 else 'are'} in none of the trees and "
-                 f"{'was' if int(row['value']) == 1 else 'were'} not analysed ({shown}; "
-                 "tables/data_check.tsv).")
+        text += (
+            f" {plural(int(row['value']), 'taxon', 'taxa')} of the trait table "
+            f"{'is' if int(row['value']) == 1 else 'are'} in none of the trees and "
+            f"{'was' if int(row['value']) == 1 else 'were'} not analysed ({shown}; "
+            "tables/data_check.tsv)."
+        )
     if missing:
         text += " Cells scored as unknown were treated as compatible with every state."
     if ambiguous:
@@ -184,38 +204,53 @@ def _trees_paragraph(config, tables) -> str:
     n = len(positions)
     name = Path(tcfg["file"]).name
     if n == 1:
-        return (f"Every model was fitted on one tree, the tree at position {positions[0]} "
-                f"(counted from 0) of {name}; phylogenetic uncertainty was not taken into account."
-                + _rooting_sentence(tcfg))
+        return (
+            f"Every model was fitted on one tree, the tree at position {positions[0]} "
+            f"(counted from 0) of {name}; phylogenetic uncertainty was not taken into account."
+            + _rooting_sentence(tcfg)
+        )
     steps = []
     burnin = tcfg["burnin"]
     counts = _tree_counts(tables)
     dropped = counts.get("dropped_as_burnin")
     in_file = counts.get("trees_in_file")
-    if dropped is None:              # a run from before these counts were recorded
+    if dropped is None:  # a run from before these counts were recorded
         dropped = positions[0] if burnin else 0
     of_file = f" of the {in_file} in the file" if in_file is not None else " in the file"
     if dropped == 0:
-        steps.append("no trees were discarded as burn-in" if burnin == 0 else
-                     f"the burn-in setting ({burnin:g}) discarded none of the trees")
+        steps.append(
+            "no trees were discarded as burn-in"
+            if burnin == 0
+            else f"the burn-in setting ({burnin:g}) discarded none of the trees"
+        )
     elif burnin < 1:
-        steps.append(f"the first {dropped} trees{of_file} ({burnin * 100:g}%) were discarded as "
-                     "burn-in" if dropped > 1 else
-                     f"the first tree{of_file} ({burnin * 100:g}%) was discarded as burn-in")
+        steps.append(
+            f"the first {dropped} trees{of_file} ({burnin * 100:g}%) were discarded as burn-in"
+            if dropped > 1
+            else f"the first tree{of_file} ({burnin * 100:g}%) was discarded as burn-in"
+        )
     else:
-        steps.append(f"the first tree{of_file} was discarded as burn-in" if dropped == 1 else
-                     f"the first {dropped} trees{of_file} were discarded as burn-in")
+        steps.append(
+            f"the first tree{of_file} was discarded as burn-in"
+            if dropped == 1
+            else f"the first {dropped} trees{of_file} were discarded as burn-in"
+        )
     if tcfg["thin"] > 1:
         steps.append(f"every {_ordinal(tcfg['thin'])} tree was kept")
     regular = all(b - a == tcfg["thin"] for a, b in zip(positions, positions[1:]))
     if tcfg.get("sample") is not None and not regular:
         steps.append(f"{n} trees were drawn at random from those left (seed {config['seed']})")
-    span = (f"positions {positions[0]} to {positions[-1]}" if regular and tcfg["thin"] == 1
-            else f"{n} positions from {positions[0]} to {positions[-1]}")
-    return (f"To take phylogenetic uncertainty into account, every model was fitted separately on "
-            f"each of {n} trees from the tree sample in {name}: {listing(steps)}. The trees used "
-            f"are listed in tables/trees_used.tsv by their position in the file ({span}, counted "
-            "from 0)." + _rooting_sentence(tcfg) + _branch_sentence(tcfg, tables, n))
+    span = (
+        f"positions {positions[0]} to {positions[-1]}"
+        if regular and tcfg["thin"] == 1
+        else f"{n} positions from {positions[0]} to {positions[-1]}"
+    )
+    return (
+        f"To take phylogenetic uncertainty into account, every model was fitted separately on "
+        f"each of {n} trees from the tree sample in {name}: {listing(steps)}. The trees used "
+        f"are listed in tables/trees_used.tsv by their position in the file ({span}, counted "
+        "from 0)." + _rooting_sentence(tcfg) + _branch_sentence(tcfg, tables, n)
+    )
 
 
 def _tree_counts(tables) -> dict:
@@ -236,21 +271,27 @@ def _branch_sentence(tcfg, tables, n) -> str:
     text = ""
     per_tree = check[check["item"] == "zero_length_tips"]
     if len(per_tree):
-        text += (f" {len(per_tree)} of the {n} trees had tips on branches of length zero "
-                 f"({int(per_tree['value'].sum())} such tips in all; named per tree in "
-                 "tables/data_check.tsv).")
+        text += (
+            f" {len(per_tree)} of the {n} trees had tips on branches of length zero "
+            f"({int(per_tree['value'].sum())} such tips in all; named per tree in "
+            "tables/data_check.tsv)."
+        )
     counts = _tree_counts(tables)
     minimum = tcfg.get("min_branch_length") or 0
     if minimum:
-        text += (f" Branches shorter than {minimum:g} were lengthened to {minimum:g} before "
-                 f"fitting ({plural(counts.get('branches_lengthened', 0), 'branch', 'branches')} "
-                 "in all).")
+        text += (
+            f" Branches shorter than {minimum:g} were lengthened to {minimum:g} before "
+            f"fitting ({plural(counts.get('branches_lengthened', 0), 'branch', 'branches')} "
+            "in all)."
+        )
     bad = check[check["item"] == "impossible_zero_length_tips"]
     for trait, g in bad.groupby("trait", sort=False):
         k = g["tree"].nunique()
-        text += (f" On {k} of the {n} trees, tips joined by zero-length branches differ in "
-                 f"{trait}, which no model allows (likelihood zero); those trees were left out "
-                 f"of the comparison of {trait}'s models.")
+        text += (
+            f" On {k} of the {n} trees, tips joined by zero-length branches differ in "
+            f"{trait}, which no model allows (likelihood zero); those trees were left out "
+            f"of the comparison of {trait}'s models."
+        )
     return text
 
 
@@ -259,12 +300,16 @@ def _rooting_sentence(tcfg) -> str:
     if root is None:
         return ""
     if root == "midpoint":
-        return (" The trees were rooted at the midpoint of their longest tip-to-tip path before "
-                "fitting.")
+        return (
+            " The trees were rooted at the midpoint of their longest tip-to-tip path before "
+            "fitting."
+        )
     out = root["outgroup"]
-    return (f" The trees were rooted on the {'outgroup' if len(out) > 1 else 'outgroup taxon'} "
-            f"{listing(out)}, with the root placed halfway along the branch that separates "
-            f"{'it' if len(out) == 1 else 'them'} from the other taxa.")
+    return (
+        f" The trees were rooted on the {'outgroup' if len(out) > 1 else 'outgroup taxon'} "
+        f"{listing(out)}, with the root placed halfway along the branch that separates "
+        f"{'it' if len(out) == 1 else 'them'} from the other taxa."
+    )
 
 
 def _ordinal(n: int) -> str:
@@ -278,30 +323,40 @@ def _models_paragraph(config, models, support) -> str:
     roots = {}
     for analysis, named in models.items():
         pair_traits = tuple(pairs[analysis]["traits"]) if analysis in pairs else None
-        label = (f"the pair {pair_traits[0]} × {pair_traits[1]} ({analysis})" if pair_traits
-                 else analysis)
-        described = [f"{name}, {describe_model(m, pair_traits)}"
-                     for name, (m, _) in named.items()]
+        label = (
+            f"the pair {pair_traits[0]} × {pair_traits[1]} ({analysis})"
+            if pair_traits
+            else analysis
+        )
+        described = [f"{name}, {describe_model(m, pair_traits)}" for name, (m, _) in named.items()]
         lines.append(f"for {label}: {'; '.join(described)}")
         for name, (_, root) in named.items():
             who = roots.setdefault(root, [])
-            if name not in who:          # roots are set per model, whatever the trait
+            if name not in who:  # roots are set per model, whatever the trait
                 who.append(name)
-    text = ("Each trait was modelled as a continuous-time Markov chain on its states (the Mk "
-            f"model; {REFERENCES['lewis2001'].cite()}), and likelihoods were computed with the "
-            f"pruning algorithm {cite('felsenstein1981')}. The candidate models were, "
-            + "; ".join(lines) + ".")
+    text = (
+        "Each trait was modelled as a continuous-time Markov chain on its states (the Mk "
+        f"model; {REFERENCES['lewis2001'].cite()}), and likelihoods were computed with the "
+        f"pruning algorithm {cite('felsenstein1981')}. The candidate models were, "
+        + "; ".join(lines)
+        + "."
+    )
     if len(roots) == 1:
         text += f" Every model was fitted with {root_words(next(iter(roots)))}."
     else:
-        text += " Root treatment: " + "; ".join(
-            f"{root_words(r)} for {listing(who)}" for r, who in roots.items()) + "."
+        text += (
+            " Root treatment: "
+            + "; ".join(f"{root_words(r)} for {listing(who)}" for r, who in roots.items())
+            + "."
+        )
     if "same_as" in support:
         same = support[as_text(support["same_as"]) != ""]
         for row in same.to_dict("records"):
-            text += (f" For {row['analysis']}, {row['model']} has the same rate structure and root "
-                     f"as {row['same_as']}; it is the same hypothesis and was left out of the "
-                     "weights.")
+            text += (
+                f" For {row['analysis']}, {row['model']} has the same rate structure and root "
+                f"as {row['same_as']}; it is the same hypothesis and was left out of the "
+                "weights."
+            )
     return text
 
 
@@ -311,29 +366,35 @@ def _fitting_paragraph(config, software) -> str:
     most = max(fit.get("max_starts", starts), starts)
     scipy_version = software.get("scipy", "")
     if most > starts:
-        begun = (f"from at least {plural(starts, 'starting point')} per tree and model (and at "
-                 f"least as many as the model has free rates, up to {RATE_STARTS}), tried in a "
-                 "fixed seeded order, with further starts (at most "
-                 f"{most} in all) while the two best disagreed by more than {AGREE_TOL:g} "
-                 "log-likelihood units")
+        begun = (
+            f"from at least {plural(starts, 'starting point')} per tree and model (and at "
+            f"least as many as the model has free rates, up to {RATE_STARTS}), tried in a "
+            "fixed seeded order, with further starts (at most "
+            f"{most} in all) while the two best disagreed by more than {AGREE_TOL:g} "
+            "log-likelihood units"
+        )
     else:
         begun = f"from {plural(starts, 'starting point')} per tree and model"
-    text = ("Rates were estimated by maximum likelihood, on a log scale, with the L-BFGS-B "
-            f"algorithm {cite('byrd1995')} of SciPy {scipy_version}, {begun}. "
-            "Each rate was bounded between "
-            f"{fit['lower']:g} and {fit['upper']:g} expected changes along the tree's root-to-tip "
-            "height, so the bounds scale with each tree; estimates at a bound are flagged in "
-            "tables/rates.tsv. A rate at the upper bound, or whose 95% likelihood interval "
-            "reaches it, is one the data do not bound from above: it is never reported as an "
-            "estimate (at the bound, as at least the bound) and is left out of medians, "
-            "intervals and averages, with the number of trees where it occurred beside them.")
+    text = (
+        "Rates were estimated by maximum likelihood, on a log scale, with the L-BFGS-B "
+        f"algorithm {cite('byrd1995')} of SciPy {scipy_version}, {begun}. "
+        "Each rate was bounded between "
+        f"{fit['lower']:g} and {fit['upper']:g} expected changes along the tree's root-to-tip "
+        "height, so the bounds scale with each tree; estimates at a bound are flagged in "
+        "tables/rates.tsv. A rate at the upper bound, or whose 95% likelihood interval "
+        "reaches it, is one the data do not bound from above: it is never reported as an "
+        "estimate (at the bound, as at least the bound) and is left out of medians, "
+        "intervals and averages, with the number of trees where it occurred beside them."
+    )
     if most > 1:
-        text += (f" A fit counted as converged when at least two starts reached the best "
-                 f"log-likelihood within {AGREE_TOL:g} units. A start that came within "
-                 f"{SAME_X:g} of an earlier start's optimum in every parameter as the "
-                 "optimiser sees it (log-rates; a branch-length parameter in its own step "
-                 f"unit), and within {SAME_F:g} units of its log-likelihood, was stopped "
-                 "there as having reached it.")
+        text += (
+            f" A fit counted as converged when at least two starts reached the best "
+            f"log-likelihood within {AGREE_TOL:g} units. A start that came within "
+            f"{SAME_X:g} of an earlier start's optimum in every parameter as the "
+            "optimiser sees it (log-rates; a branch-length parameter in its own step "
+            f"unit), and within {SAME_F:g} units of its log-likelihood, was stopped "
+            "there as having reached it."
+        )
     else:
         text += " With a single start per fit, convergence could not be checked."
     return text
@@ -342,52 +403,67 @@ def _fitting_paragraph(config, software) -> str:
 def _comparison_paragraph(config) -> str:
     crit = config["criterion"]
     name = CRITERION_NAMES[crit]
-    return (f"On each tree, the models of each trait were ranked by {name} "
-            f"{cite(*CRITERION_REFS[crit])}, with the number of taxa scored as the sample size, and "
-            f"{name} differences were converted to Akaike weights {cite('burnham2002')}. Support "
-            "across the tree sample is given as the mean Akaike weight over trees and the number "
-            f"of trees on which a model had the lowest {name}; the {name} difference to the best "
-            "model is summarised by its median and central 95% interval across trees. Rates were "
-            "also averaged over models with each tree's Akaike weights.")
+    return (
+        f"On each tree, the models of each trait were ranked by {name} "
+        f"{cite(*CRITERION_REFS[crit])}, with the number of taxa scored as the sample size, and "
+        f"{name} differences were converted to Akaike weights {cite('burnham2002')}. Support "
+        "across the tree sample is given as the mean Akaike weight over trees and the number "
+        f"of trees on which a model had the lowest {name}; the {name} difference to the best "
+        "model is summarised by its median and central 95% interval across trees. Rates were "
+        "also averaged over models with each tree's Akaike weights."
+    )
 
 
 def _pairs_paragraph(config, pair_summary) -> str:
     pairs = config["pairs"]
     described = [f"{p} ({spec['traits'][0]} × {spec['traits'][1]})" for p, spec in pairs.items()]
-    text = (f"For the trait {'pair' if len(pairs) == 1 else 'pairs'} {listing(described)}, the two "
-            "traits were combined into one Markov chain on their joint states in which only one "
-            f"trait changes at a time {cite('pagel1994')}, and the hypotheses listed above were "
-            "fitted on every tree like the models of single traits. Nested hypotheses were "
-            "compared on each tree by likelihood-ratio tests, referring twice the difference in "
-            "log-likelihood to a chi-square distribution with as many degrees of freedom as the "
-            "alternative has extra rates.")
+    text = (
+        f"For the trait {'pair' if len(pairs) == 1 else 'pairs'} {listing(described)}, the two "
+        "traits were combined into one Markov chain on their joint states in which only one "
+        f"trait changes at a time {cite('pagel1994')}, and the hypotheses listed above were "
+        "fitted on every tree like the models of single traits. Nested hypotheses were "
+        "compared on each tree by likelihood-ratio tests, referring twice the difference in "
+        "log-likelihood to a chi-square distribution with as many degrees of freedom as the "
+        "alternative has extra rates."
+    )
     hidden = [p for p, spec in pairs.items() if spec.get("hidden_classes", 1) > 1]
     if hidden:
-        text += (f" For {listing(hidden)}, every hypothesis was fitted with hidden rate classes "
-                 f"{cite('beaulieu2013')}, so that a burst of change in one clade is not taken "
-                 f"for correlated evolution {cite('maddison2015', 'boyko2021')}.")
-    if pair_summary is not None and "boundary" in pair_summary and \
-            pair_summary["boundary"].astype(str).str.lower().eq("true").any():
-        text += (" Where the null hypothesis forbids rates that the alternative leaves free, it "
-                 "lies on the boundary of the alternative's parameter space and the chi-square "
-                 f"reference is only approximate {cite('self1987')}.")
+        text += (
+            f" For {listing(hidden)}, every hypothesis was fitted with hidden rate classes "
+            f"{cite('beaulieu2013')}, so that a burst of change in one clade is not taken "
+            f"for correlated evolution {cite('maddison2015', 'boyko2021')}."
+        )
+    if (
+        pair_summary is not None
+        and "boundary" in pair_summary
+        and pair_summary["boundary"].astype(str).str.lower().eq("true").any()
+    ):
+        text += (
+            " Where the null hypothesis forbids rates that the alternative leaves free, it "
+            "lies on the boundary of the alternative's parameter space and the chi-square "
+            f"reference is only approximate {cite('self1987')}."
+        )
     boot = {p: spec for p, spec in pairs.items() if spec.get("bootstrap", 0) > 0}
     for p, spec in boot.items():
         n_boot = spec.get("bootstrap_trees", 10)
         if pair_summary is not None and "n_trees_bootstrap" in pair_summary:
             rows = pair_summary[pair_summary["pair"] == p]["n_trees_bootstrap"]
-            n_boot = int(rows.max()) if len(rows) else n_boot     # as many as were bootstrapped
-        text += (f" For {p}, the statistic was also compared with its distribution in "
-                 f"{spec['bootstrap']} data sets simulated under the fitted null hypothesis on each "
-                 f"of {plural(n_boot, 'tree')} spread evenly through the sample (parametric "
-                 f"bootstrap; {REFERENCES['goldman1993'].cite()}).")
+            n_boot = int(rows.max()) if len(rows) else n_boot  # as many as were bootstrapped
+        text += (
+            f" For {p}, the statistic was also compared with its distribution in "
+            f"{spec['bootstrap']} data sets simulated under the fitted null hypothesis on each "
+            f"of {plural(n_boot, 'tree')} spread evenly through the sample (parametric "
+            f"bootstrap; {REFERENCES['goldman1993'].cite()})."
+        )
     if boot:
-        text += (" A null rate estimated at or near zero (its likelihood at the lower bound within "
-                 "1.92 log-units of the maximum) was simulated at the upper edge of its 95% "
-                 "interval rather than at its estimate, since a bootstrap from an estimate on the "
-                 f"boundary rejects too often {cite('andrews2000', 'berger1994')}; p-values are "
-                 "(1 + the number of simulated statistics at least as large as the observed one) "
-                 "/ (1 + the number of data sets).")
+        text += (
+            " A null rate estimated at or near zero (its likelihood at the lower bound within "
+            "1.92 log-units of the maximum) was simulated at the upper edge of its 95% "
+            "interval rather than at its estimate, since a bootstrap from an estimate on the "
+            f"boundary rejects too often {cite('andrews2000', 'berger1994')}; p-values are "
+            "(1 + the number of simulated statistics at least as large as the observed one) "
+            "/ (1 + the number of data sets)."
+        )
     alphas = sorted({spec.get("alpha", 0.05) for spec in pairs.values()})
     text += f" Tests used a significance level of {listing(f'{a:g}' for a in alphas)}."
     return text
@@ -396,50 +472,72 @@ def _pairs_paragraph(config, pair_summary) -> str:
 def _ancestral_paragraph(config, tables) -> str:
     anc = config.get("ancestral", {})
     choice = anc.get("model", "average")
-    how = {"average": "averaged over models with each tree's Akaike weights",
-           "best": f"under the model with the lowest {CRITERION_NAMES[config['criterion']]} on "
-                   "each tree"}.get(choice, f"under the model {choice}")
+    how = {
+        "average": "averaged over models with each tree's Akaike weights",
+        "best": f"under the model with the lowest {CRITERION_NAMES[config['criterion']]} on "
+        "each tree",
+    }.get(choice, f"under the model {choice}")
     clades = tables.get("clades")
-    sampled = (clades[clades["kind"] == "sampled"] if clades is not None and "kind" in clades
-               else None)
+    sampled = (
+        clades[clades["kind"] == "sampled"] if clades is not None and "kind" in clades else None
+    )
     if anc.get("reference_tree"):
         where = f"the clades of the reference tree {Path(anc['reference_tree']).name}"
     elif sampled is not None and len(sampled):
-        where = (f"the clades of the {sampled['summary_tree'].iloc[0]}, counted from 0 in the "
-                 "file")
+        where = f"the clades of the {sampled['summary_tree'].iloc[0]}, counted from 0 in the file"
     else:
-        where = ("the clades of the majority-rule consensus of the tree sample "
-                 + cite("margush1981"))
-        consensus = (clades[clades["kind"] == "consensus"] if clades is not None and "kind" in clades
-                     else None)
+        where = "the clades of the majority-rule consensus of the tree sample " + cite(
+            "margush1981"
+        )
+        consensus = (
+            clades[clades["kind"] == "consensus"]
+            if clades is not None and "kind" in clades
+            else None
+        )
         if consensus is not None and len(consensus) == 1:
-            where += (" (no clade is in more than half of the trees, so the consensus is "
-                      "unresolved and only its root is reported)")
+            where += (
+                " (no clade is in more than half of the trees, so the consensus is "
+                "unresolved and only its root is reported)"
+            )
     named = list(anc.get("clades", {}))
     if named:
         where += f" and at the named {'clade' if len(named) == 1 else 'clades'} {listing(named)}"
     text = ""
     if "ancestral_states" in tables:
-        text += (f"Marginal ancestral state probabilities {cite('yang1995')} were computed on each "
-                 f"tree at {where}, {how}, and averaged across the trees that contain each clade.")
+        text += (
+            f"Marginal ancestral state probabilities {cite('yang1995')} were computed on each "
+            f"tree at {where}, {how}, and averaged across the trees that contain each clade."
+        )
     maps = anc.get("maps", 0)
     if "transitions" in tables and maps:
-        text += (f" {plural(maps, 'stochastic character map')} per tree "
-                 f"{cite('nielsen2002', 'huelsenbeck2003')} gave the expected number of changes "
-                 "between states along the whole tree.")
+        text += (
+            f" {plural(maps, 'stochastic character map')} per tree "
+            f"{cite('nielsen2002', 'huelsenbeck2003')} gave the expected number of changes "
+            "between states along the whole tree."
+        )
     return text.strip()
 
 
 def _software_paragraph(config, software) -> str:
-    libs = [f"{name} {software[key]}" for key, name in
-            (("numpy", "NumPy"), ("scipy", "SciPy"), ("dendropy", "DendroPy"),
-             ("pandas", "pandas"), ("matplotlib", "Matplotlib"), ("numba", "Numba"))
-            if software.get(key)]
-    return (f"The analysis ran with mkforest {software.get('mkforest', '')} as a Snakemake "
-            f"{software.get('snakemake', '')} workflow under Python {software.get('python', '')} "
-            f"({', '.join(libs)}), with seed {config['seed']}. The file manifest.json beside this "
-            "text lists the complete settings and the SHA-256 checksum of every input and result "
-            "file.")
+    libs = [
+        f"{name} {software[key]}"
+        for key, name in (
+            ("numpy", "NumPy"),
+            ("scipy", "SciPy"),
+            ("dendropy", "DendroPy"),
+            ("pandas", "pandas"),
+            ("matplotlib", "Matplotlib"),
+            ("numba", "Numba"),
+        )
+        if software.get(key)
+    ]
+    return (
+        f"The analysis ran with mkforest {software.get('mkforest', '')} as a Snakemake "
+        f"{software.get('snakemake', '')} workflow under Python {software.get('python', '')} "
+        f"({', '.join(libs)}), with seed {config['seed']}. The file manifest.json beside this "
+        "text lists the complete settings and the SHA-256 checksum of every input and result "
+        "file."
+    )
 
 
 # --------------------------------------------------------------------------- the paragraph
@@ -463,7 +561,7 @@ def _quoted_models(config, models) -> list:
 
 
 def _quote(name: str) -> str:
-    return f"\"{name}\""
+    return f'"{name}"'
 
 
 def _brief_roots(config, models) -> str:
@@ -478,8 +576,11 @@ def _brief_roots(config, models) -> str:
     if len(roots) == 1:
         return f"with {root_words(next(iter(roots)))}"
     main = max(roots, key=lambda r: len(roots[r]))
-    others = "; ".join(f"{root_words(r)} for {listing(_quote(w) for w in who)}"
-                       for r, who in roots.items() if r != main)
+    others = "; ".join(
+        f"{root_words(r)} for {listing(_quote(w) for w in who)}"
+        for r, who in roots.items()
+        if r != main
+    )
     return f"with {root_words(main)} ({others})"
 
 
@@ -492,8 +593,9 @@ def _brief_pairs(config, models, tables) -> str:
     for name, spec in pairs.items():
         first, second = spec["traits"]
         for h, (m, _) in models.get(name, {}).items():
-            words = kinds.get(m.kind) or (hypothesis_words(h, m.kind, first, second)
-                                          if m.kind in HYPOTHESES else _quote(h))
+            words = kinds.get(m.kind) or (
+                hypothesis_words(h, m.kind, first, second) if m.kind in HYPOTHESES else _quote(h)
+            )
             if words not in hyps:
                 hyps.append(words)
         if spec.get("bootstrap", 0) > 0:
@@ -504,13 +606,17 @@ def _brief_pairs(config, models, tables) -> str:
                 n_boot = int(rows.max()) if len(rows) else n_boot
             boots.append((spec["bootstrap"], n_boot))
     who = listing(f"{spec['traits'][0]} with {spec['traits'][1]}" for spec in pairs.values())
-    text = (f" For {who}, hypotheses of joint change (one trait changing at a time; "
-            f"{REFERENCES['pagel1994'].cite()}) were compared on each tree by likelihood-ratio "
-            f"tests: {listing(hyps)}")
+    text = (
+        f" For {who}, hypotheses of joint change (one trait changing at a time; "
+        f"{REFERENCES['pagel1994'].cite()}) were compared on each tree by likelihood-ratio "
+        f"tests: {listing(hyps)}"
+    )
     if boots:
         n_sets, n_trees = max(boots)
-        text += (f"; a parametric bootstrap {cite('goldman1993')} simulated {n_sets} data sets "
-                 f"on each of {plural(n_trees, 'tree')}")
+        text += (
+            f"; a parametric bootstrap {cite('goldman1993')} simulated {n_sets} data sets "
+            f"on each of {plural(n_trees, 'tree')}"
+        )
     return text + "."
 
 
@@ -524,8 +630,10 @@ def _brief_ancestral(config, tables) -> str:
         text += ", averaged over models by Akaike weight,"
     text += " were summarised at the clades of the majority-rule consensus"
     if maps and "transitions" in tables:
-        text += (f", and {maps} stochastic character maps per tree "
-                 f"{cite('nielsen2002', 'huelsenbeck2003')} counted changes")
+        text += (
+            f", and {maps} stochastic character maps per tree "
+            f"{cite('nielsen2002', 'huelsenbeck2003')} counted changes"
+        )
     return text + "."
 
 
@@ -543,16 +651,24 @@ def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) ->
         rows = check[check["trait"] == trait]
         k = int(sum(str(i).startswith("state:") for i in rows["item"]))
         by_k.setdefault(k, []).append(trait)
-    traits = [f"{listing(names)} ({k} states{' each' if len(names) > 1 else ''})"
-              for k, names in by_k.items()]
+    traits = [
+        f"{listing(names)} ({k} states{' each' if len(names) > 1 else ''})"
+        for k, names in by_k.items()
+    ]
     tcfg = next(iter(tree_sets(config).values()))  # the first tree set
     burn = tcfg["burnin"]
-    dropped = _tree_counts(tables).get("dropped_as_burnin")     # counted, not the setting
-    if dropped is None:              # a run from before these counts were recorded
+    dropped = _tree_counts(tables).get("dropped_as_burnin")  # counted, not the setting
+    if dropped is None:  # a run from before these counts were recorded
         dropped = int(used["tree"].min()) if burn else 0
-    how = ("no burn-in" if not burn else "none discarded as burn-in" if dropped == 0 else
-           "first tree discarded as burn-in" if dropped == 1 else
-           f"first {dropped} trees discarded as burn-in")
+    how = (
+        "no burn-in"
+        if not burn
+        else "none discarded as burn-in"
+        if dropped == 0
+        else "first tree discarded as burn-in"
+        if dropped == 1
+        else f"first {dropped} trees discarded as burn-in"
+    )
     if tcfg["thin"] > 1:
         how += f", every {_ordinal(tcfg['thin'])} tree kept"
     if tcfg.get("sample") is not None:
@@ -564,23 +680,28 @@ def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) ->
     else:
         trees = "on a single tree"
     n_models = len(_model_names(config, models))
-    text = (f"We analysed {'; '.join(traits)} for {n_taxa} taxa {trees}. We fitted "
-            f"{n_models} continuous-time Markov (Mk) {'model' if n_models == 1 else 'models'} "
-            f"{cite('lewis2001')}: {listing(_quoted_models(config, models))}, by maximum "
-            f"likelihood {_brief_roots(config, models)}, using L-BFGS-B {cite('byrd1995')} from "
-            f"{plural(fit['starts'], 'starting point')} per fit. Models were ranked by {crit} "
-            f"{cite(*CRITERION_REFS[config['criterion']])} on each tree; support across trees is "
-            f"the mean Akaike weight {cite('burnham2002')} and the share of trees where each "
-            "model ranked best.")
+    text = (
+        f"We analysed {'; '.join(traits)} for {n_taxa} taxa {trees}. We fitted "
+        f"{n_models} continuous-time Markov (Mk) {'model' if n_models == 1 else 'models'} "
+        f"{cite('lewis2001')}: {listing(_quoted_models(config, models))}, by maximum "
+        f"likelihood {_brief_roots(config, models)}, using L-BFGS-B {cite('byrd1995')} from "
+        f"{plural(fit['starts'], 'starting point')} per fit. Models were ranked by {crit} "
+        f"{cite(*CRITERION_REFS[config['criterion']])} on each tree; support across trees is "
+        f"the mean Akaike weight {cite('burnham2002')} and the share of trees where each "
+        "model ranked best."
+    )
     text += _brief_pairs(config, models, tables)
     text += _brief_ancestral(config, tables)
-    text += (f" Analyses ran in mkforest {software.get('mkforest', '')} (citation in the run's "
-             f"CITATION.cff) with Snakemake {software.get('snakemake', '')} "
-             f"{cite('molder2021')} and SciPy {software.get('scipy', '')}.")
-    if word_count(text) > BRIEF_MAX_WORDS:      # many models: their names without the words
-        text = text.replace(listing(_quoted_models(config, models)),
-                            listing(_quote(m) for m in _model_names(config, models))
-                            + " (described below)")
+    text += (
+        f" Analyses ran in mkforest {software.get('mkforest', '')} (citation in the run's "
+        f"CITATION.cff) with Snakemake {software.get('snakemake', '')} "
+        f"{cite('molder2021')} and SciPy {software.get('scipy', '')}."
+    )
+    if word_count(text) > BRIEF_MAX_WORDS:  # many models: their names without the words
+        text = text.replace(
+            listing(_quoted_models(config, models)),
+            listing(_quote(m) for m in _model_names(config, models)) + " (described below)",
+        )
     return text
 
 
@@ -595,41 +716,59 @@ def word_count(text: str) -> int:
 
 # --------------------------------------------------------------------------- results
 
+
 def _analysis_results(analysis, support, rate_summary, crit_name, n_used=None) -> str:
     rows = support[support["analysis"] == analysis]
     same = as_text(rows["same_as"]) if "same_as" in rows else pd.Series("", rows.index)
     ranked = rows[same == ""].sort_values("mean_weight", ascending=False, na_position="last")
     n = int(ranked["n_trees"].max()) if len(ranked) else 0
     if n == 0:
-        return (f"{analysis} was not fitted (see tables/data_check.tsv: a trait needs at least "
-                "two observed states).")
+        return (
+            f"{analysis} was not fitted (see tables/data_check.tsv: a trait needs at least "
+            "two observed states)."
+        )
     best = ranked.iloc[0]
     k_best = count_of(best["fraction_best"], int(best["n_trees"]))
-    across = (f"Across the {n} trees" if n_used is None or n == n_used else
-              f"Across the {n} of {n_used} trees on which {analysis} could be fitted")
-    text = (f"{across}, {best['model']} received the most support (mean Akaike "
-            f"weight {number(best['mean_weight'])}; lowest {crit_name} on {k_best} of "
-            f"{int(best['n_trees'])} trees): it was the best model "
-            f"{_how_often(k_best, int(best['n_trees']))}.")
+    across = (
+        f"Across the {n} trees"
+        if n_used is None or n == n_used
+        else f"Across the {n} of {n_used} trees on which {analysis} could be fitted"
+    )
+    text = (
+        f"{across}, {best['model']} received the most support (mean Akaike "
+        f"weight {number(best['mean_weight'])}; lowest {crit_name} on {k_best} of "
+        f"{int(best['n_trees'])} trees): it was the best model "
+        f"{_how_often(k_best, int(best['n_trees']))}."
+    )
     if best["mean_weight"] < 0.5:
-        text += (" No model carries most of the weight on average: the data do not clearly "
-                 "favour one model.")
+        text += (
+            " No model carries most of the weight on average: the data do not clearly "
+            "favour one model."
+        )
     others = []
     for row in ranked.iloc[1:].to_dict("records"):
         m = int(row["n_trees"])
-        others.append(f"{row['model']} (mean weight {number(row['mean_weight'])}; lowest "
-                      f"{crit_name} on {count_of(row['fraction_best'], m)} of {m} trees; median "
-                      f"Δ{crit_name} {number(row['median_delta'])}, 95% interval across trees "
-                      f"{number(row['delta_low95'])} to {number(row['delta_high95'])})")
+        others.append(
+            f"{row['model']} (mean weight {number(row['mean_weight'])}; lowest "
+            f"{crit_name} on {count_of(row['fraction_best'], m)} of {m} trees; median "
+            f"Δ{crit_name} {number(row['median_delta'])}, 95% interval across trees "
+            f"{number(row['delta_low95'])} to {number(row['delta_high95'])})"
+        )
     if others:
-        text += (" The other model: " if len(others) == 1 else " The other models: ") \
-            + "; ".join(others) + "."
-    rates = rate_summary[(rate_summary["analysis"] == analysis)
-                         & (rate_summary["model"] == best["model"])]
+        text += (
+            (" The other model: " if len(others) == 1 else " The other models: ")
+            + "; ".join(others)
+            + "."
+        )
+    rates = rate_summary[
+        (rate_summary["analysis"] == analysis) & (rate_summary["model"] == best["model"])
+    ]
     if len(rates):
         parts = [rate_words(r) for r in rates.to_dict("records")]
-        text += (f" Under {best['model']}, the median rates across trees (central 95% interval; "
-                 f"changes per unit branch length) were: {'; '.join(parts)}.")
+        text += (
+            f" Under {best['model']}, the median rates across trees (central 95% interval; "
+            f"changes per unit branch length) were: {'; '.join(parts)}."
+        )
     return text
 
 
@@ -643,15 +782,21 @@ def rate_words(r: dict) -> str:
     n_up = int(r.get("n_at_upper", 0) or 0)
     n_est = int(r.get("n_estimated", r.get("n_trees", 0)) or 0)
     if n_unb == 0:
-        return f"{head} {number(r['median_rate'])} ({number(r['rate_low95'])} to " \
-               f"{number(r['rate_high95'])})"
+        return (
+            f"{head} {number(r['median_rate'])} ({number(r['rate_low95'])} to "
+            f"{number(r['rate_high95'])})"
+        )
     at_bound = f", at the upper bound (≥ {number(r['at_upper_min'])}) on {n_up}" if n_up else ""
     if n_est == 0:
-        return (f"{head} not bounded above by the data on any tree{at_bound}; not estimable "
-                "from these data")
-    return (f"{head} {number(r['median_rate'])} ({number(r['rate_low95'])} to "
-            f"{number(r['rate_high95'])}) over the {plural(n_est, 'tree')} where the data bound "
-            f"it; not bounded above on {n_unb}{at_bound}")
+        return (
+            f"{head} not bounded above by the data on any tree{at_bound}; not estimable "
+            "from these data"
+        )
+    return (
+        f"{head} {number(r['median_rate'])} ({number(r['rate_low95'])} to "
+        f"{number(r['rate_high95'])}) over the {plural(n_est, 'tree')} where the data bound "
+        f"it; not bounded above on {n_unb}{at_bound}"
+    )
 
 
 def _cautions(rows: pd.DataFrame, key: str) -> list:
@@ -669,21 +814,26 @@ def _pair_results(pair, summary) -> str:
     for r in rows.to_dict("records"):
         n = int(r["n_trees"])
         if n == 0:
-            sentences.append(f"{r['null']} against {r['alternative']}: not tested (no tree has "
-                             "both fits).")
+            sentences.append(
+                f"{r['null']} against {r['alternative']}: not tested (no tree has both fits)."
+            )
             continue
         k = count_of(r["fraction_reject_chi2"], n)
-        s = (f"The likelihood-ratio test of {r['null']} against {r['alternative']} "
-             f"({plural(int(r['df']), 'degree')} of freedom, critical value "
-             f"{number(r['critical_chi2'])} at α = {r['alpha']:g}) rejected {r['null']} on {k} of "
-             f"{n} trees (median statistic {number(r['median_statistic'])}, 95% interval across "
-             f"trees {number(r['statistic_low95'])} to {number(r['statistic_high95'])}; median "
-             f"p = {p_value(r['median_p_chi2'])})")
+        s = (
+            f"The likelihood-ratio test of {r['null']} against {r['alternative']} "
+            f"({plural(int(r['df']), 'degree')} of freedom, critical value "
+            f"{number(r['critical_chi2'])} at α = {r['alpha']:g}) rejected {r['null']} on {k} of "
+            f"{n} trees (median statistic {number(r['median_statistic'])}, 95% interval across "
+            f"trees {number(r['statistic_low95'])} to {number(r['statistic_high95'])}; median "
+            f"p = {p_value(r['median_p_chi2'])})"
+        )
         nb = int(r.get("n_trees_bootstrap", 0) or 0)
         if nb:
             kb = count_of(r["fraction_reject_bootstrap"], nb)
-            s += (f"; the parametric bootstrap rejected it on {kb} of {nb} trees (median p = "
-                  f"{p_value(r['median_p_bootstrap'])})")
+            s += (
+                f"; the parametric bootstrap rejected it on {kb} of {nb} trees (median p = "
+                f"{p_value(r['median_p_bootstrap'])})"
+            )
         sentences.append(s + ".")
     return " ".join(sentences)
 
@@ -696,29 +846,42 @@ def _ancestral_results(analysis, tables) -> str:
         top = clades.sort_values("n_tips", ascending=False).iloc[0]
         root = states[(states["analysis"] == analysis) & (states["clade"] == top["clade"])]
         if len(root) and int(top["n_tips"]) == int(clades["n_tips"].max()):
-            parts = [f"{r['state']} {number(r['mean_probability'])} "
-                     f"({number(r['probability_low95'])} to {number(r['probability_high95'])})"
-                     for r in root.to_dict("records")]
-            text.append("Mean probabilities of the states at the root across trees (central 95% "
-                        f"interval): {'; '.join(parts)}.")
+            parts = [
+                f"{r['state']} {number(r['mean_probability'])} "
+                f"({number(r['probability_low95'])} to {number(r['probability_high95'])})"
+                for r in root.to_dict("records")
+            ]
+            text.append(
+                "Mean probabilities of the states at the root across trees (central 95% "
+                f"interval): {'; '.join(parts)}."
+            )
     trans = tables.get("transitions")
     if trans is not None:
         rows = trans[trans["analysis"] == analysis]
-        n_out = int(rows["n_maps_at_upper"].max()) if "n_maps_at_upper" in rows and len(rows) \
-            else 0
-        left_out = (f"; {plural(n_out, 'map')} drawn under fits with a rate the data do not "
-                    "bound from above left out" if n_out else "")
+        n_out = int(rows["n_maps_at_upper"].max()) if "n_maps_at_upper" in rows and len(rows) else 0
+        left_out = (
+            f"; {plural(n_out, 'map')} drawn under fits with a rate the data do not "
+            "bound from above left out"
+            if n_out
+            else ""
+        )
         if len(rows) and int(rows["n_maps"].max()) > 0:
-            parts = [f"{r['from_state']}→{r['to_state']} {number(r['mean_count'], 1)} "
-                     f"({number(r['count_low95'], 1)} to {number(r['count_high95'], 1)})"
-                     for r in rows.to_dict("records")]
-            text.append(f"Expected numbers of changes along the whole tree (mean over "
-                        f"{int(rows['n_maps'].max())} maps on {plural(int(rows['n_trees'].max()), 'tree')}"
-                        f"{left_out}, central 95% interval of the maps): {'; '.join(parts)}.")
+            parts = [
+                f"{r['from_state']}→{r['to_state']} {number(r['mean_count'], 1)} "
+                f"({number(r['count_low95'], 1)} to {number(r['count_high95'], 1)})"
+                for r in rows.to_dict("records")
+            ]
+            text.append(
+                f"Expected numbers of changes along the whole tree (mean over "
+                f"{int(rows['n_maps'].max())} maps on {plural(int(rows['n_trees'].max()), 'tree')}"
+                f"{left_out}, central 95% interval of the maps): {'; '.join(parts)}."
+            )
         elif len(rows) and n_out:
-            text.append(f"No numbers of changes are given: all {n_out} stochastic maps were drawn "
-                        "under fits with a rate the data do not bound from above, whose change "
-                        "counts grow with that rate, not with the data.")
+            text.append(
+                f"No numbers of changes are given: all {n_out} stochastic maps were drawn "
+                "under fits with a rate the data do not bound from above, whose change "
+                "counts grow with that rate, not with the data."
+            )
     return " ".join(text)
 
 
@@ -736,43 +899,62 @@ def _ancestral_cautions(analysis, tables) -> list:
     if states is not None:
         rows = states[states["analysis"] == analysis]
         per_clade = rows.groupby("clade", sort=False)["caution"].first().astype(str)
-        own = [c for c in per_clade
-               if {part.strip() for part in c.split(";") if part.strip()} - common]
+        own = [
+            c for c in per_clade if {part.strip() for part in c.split(";") if part.strip()} - common
+        ]
         if own:
-            out.append(f"ancestral states: {len(own)} of {len(per_clade)} clades carry a caution "
-                       "of their own (few trees contain them, their taxa are not monophyletic, or "
-                       "their fits did not converge); see the caution column of "
-                       "tables/ancestral_states.tsv")
+            out.append(
+                f"ancestral states: {len(own)} of {len(per_clade)} clades carry a caution "
+                "of their own (few trees contain them, their taxa are not monophyletic, or "
+                "their fits did not converge); see the caution column of "
+                "tables/ancestral_states.tsv"
+            )
     return out
 
 
 # --------------------------------------------------------------------------- the whole text
 
+
 def methods_text(config: dict, tables: dict, models: dict, software: dict) -> str:
     sets = tree_sets(config)
     # the sections below describe the first tree set; the comparison of sets has its own
-    tables = {name: (t if name in ("tree_set_support", "treatment_support") else first_set(t))
-              for name, t in tables.items()}
+    tables = {
+        name: (t if name in ("tree_set_support", "treatment_support") else first_set(t))
+        for name, t in tables.items()
+    }
     support = tables["model_support"]
     crit_name = CRITERION_NAMES[config["criterion"]]
     pair_summary = tables.get("pair_summary")
     has_pairs = bool(config.get("pairs")) and ("pair_tests" in tables or pair_summary is not None)
     has_ancestral = "ancestral_states" in tables or "transitions" in tables
 
-    out = ["# Methods and results", "",
-           f"_Written by mkforest {software.get('mkforest', '')} from this run's settings and "
-           "tables. Every number is rounded from the table named beside it; edit the wording, "
-           "keep the numbers, and check the cautions before citing a result._", "",
-           BRIEF_HEADING, "",
-           brief_paragraph(config, tables, models, software), "",
-           "## Methods in full", "",
-           "**Data and trees.** " + _data_paragraph(config, tables) + " "
-           + (f"Tree set '{next(iter(sets))}'. " if len(sets) > 1 else "")
-           + _trees_paragraph(config, tables)
-           + (" " + tree_sets_paragraph(sets) if len(sets) > 1 else ""), "",
-           "**Models.** " + _models_paragraph(config, models, support), "",
-           "**Fitting.** " + _fitting_paragraph(config, software), "",
-           "**Model comparison.** " + _comparison_paragraph(config), ""]
+    out = [
+        "# Methods and results",
+        "",
+        f"_Written by mkforest {software.get('mkforest', '')} from this run's settings and "
+        "tables. Every number is rounded from the table named beside it; edit the wording, "
+        "keep the numbers, and check the cautions before citing a result._",
+        "",
+        BRIEF_HEADING,
+        "",
+        brief_paragraph(config, tables, models, software),
+        "",
+        "## Methods in full",
+        "",
+        "**Data and trees.** "
+        + _data_paragraph(config, tables)
+        + " "
+        + (f"Tree set '{next(iter(sets))}'. " if len(sets) > 1 else "")
+        + _trees_paragraph(config, tables)
+        + (" " + tree_sets_paragraph(sets) if len(sets) > 1 else ""),
+        "",
+        "**Models.** " + _models_paragraph(config, models, support),
+        "",
+        "**Fitting.** " + _fitting_paragraph(config, software),
+        "",
+        "**Model comparison.** " + _comparison_paragraph(config),
+        "",
+    ]
     if branches_paragraph(config):
         out += ["**Branch lengths.** " + branches_paragraph(config), ""]
     if has_pairs:
@@ -783,15 +965,23 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
             out += ["**Ancestral states.** " + para, ""]
     out += ["**Software.** " + _software_paragraph(config, software), ""]
 
-    out += ["## Results", "",
-            f"Model support is from tables/model_support.tsv, rates from "
-            f"tables/rate_summary.tsv{', pair tests from tables/pair_summary.tsv' if has_pairs else ''}"
-            f"{', ancestral states and changes from tables/ancestral_states.tsv and tables/transitions.tsv' if has_ancestral else ''}.",
-            ""]
+    out += [
+        "## Results",
+        "",
+        f"Model support is from tables/model_support.tsv, rates from "
+        f"tables/rate_summary.tsv{', pair tests from tables/pair_summary.tsv' if has_pairs else ''}"
+        f"{', ancestral states and changes from tables/ancestral_states.tsv and tables/transitions.tsv' if has_ancestral else ''}.",
+        "",
+    ]
     rate_summary = tables["rate_summary"]
     for analysis in models:
-        out += [f"### {analysis}", "", _analysis_results(analysis, support, rate_summary, crit_name,
-                                                        len(tables["trees_used"]))]
+        out += [
+            f"### {analysis}",
+            "",
+            _analysis_results(
+                analysis, support, rate_summary, crit_name, len(tables["trees_used"])
+            ),
+        ]
         extra = results_lines(analysis, tables)
         if extra:
             out += ["", " ".join(extra)]
@@ -823,11 +1013,22 @@ def read_tables(paths: dict) -> dict:
     """{name: DataFrame} from {name: path}; state labels and captions stay text."""
     out = {}
     for name, path in paths.items():
-        out[name] = pd.read_csv(path, sep="\t", keep_default_na=False,
-                                na_values=["", "nan", "NaN"],
-                                dtype={"state": str, "from_state": str, "to_state": str,
-                                       "caution": str, "same_as": str, "clade": str,
-                                       "model": str, "analysis": str})
+        out[name] = pd.read_csv(
+            path,
+            sep="\t",
+            keep_default_na=False,
+            na_values=["", "nan", "NaN"],
+            dtype={
+                "state": str,
+                "from_state": str,
+                "to_state": str,
+                "caution": str,
+                "same_as": str,
+                "clade": str,
+                "model": str,
+                "analysis": str,
+            },
+        )
         for col in ("caution", "same_as"):
             if col in out[name]:
                 out[name][col] = as_text(out[name][col])
@@ -836,7 +1037,6 @@ def read_tables(paths: dict) -> dict:
 
 def table_name(path) -> str:
     return Path(path).name.removesuffix(".tsv")
-
 
 
 def run_warnings(run_dir) -> list:
@@ -849,12 +1049,16 @@ def run_warnings(run_dir) -> list:
     out = []
     if "n_impossible" in support:
         for row in support[support["n_impossible"] > 0].to_dict("records"):
-            out.append(f"{row['analysis']} / {row['model']}: {int(row['n_impossible'])} of "
-                       f"{int(row['n_fits'])} fits are impossible (ln L = -inf); see "
-                       f"{Path(run_dir) / 'tables' / 'data_check.tsv'} and trees.min_branch_length.")
+            out.append(
+                f"{row['analysis']} / {row['model']}: {int(row['n_impossible'])} of "
+                f"{int(row['n_fits'])} fits are impossible (ln L = -inf); see "
+                f"{Path(run_dir) / 'tables' / 'data_check.tsv'} and trees.min_branch_length."
+            )
     cautious = support[support["caution"].str.strip() != ""]
     if len(cautious):
-        out.append(f"{len(cautious)} of {len(support)} model summaries carry a caution: read the "
-                   f"caution column of {path} and the Cautions in {Path(run_dir) / 'methods.md'} "
-                   "before citing a result.")
+        out.append(
+            f"{len(cautious)} of {len(support)} model summaries carry a caution: read the "
+            f"caution column of {path} and the Cautions in {Path(run_dir) / 'methods.md'} "
+            "before citing a result."
+        )
     return out

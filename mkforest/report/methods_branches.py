@@ -13,13 +13,19 @@ WORDS = {
     "as_given": "the branch lengths as given",
     "unit": "every branch of length one (change per speciation event)",
     "kappa": f"every branch length raised to an estimated power kappa {cite('pagel1994')}",
-    "lambda": ("internal branches multiplied by an estimated lambda in [0, 1], tip branches "
-               f"lengthened to keep each tip's distance from the root {cite('pagel1999')}"),
-    "delta": ("node distances from the root d transformed to H (d/H)^delta with H the tree "
-              f"height and delta estimated {cite('pagel1999')}"),
-    "early_burst": ("a rate that changes exponentially with distance from the root, "
-                    "e^(a s), a branch from s0 to s1 counting (e^(a s1) - e^(a s0))/a "
-                    f"{cite('harmon2010')}"),
+    "lambda": (
+        "internal branches multiplied by an estimated lambda in [0, 1], tip branches "
+        f"lengthened to keep each tip's distance from the root {cite('pagel1999')}"
+    ),
+    "delta": (
+        "node distances from the root d transformed to H (d/H)^delta with H the tree "
+        f"height and delta estimated {cite('pagel1999')}"
+    ),
+    "early_burst": (
+        "a rate that changes exponentially with distance from the root, "
+        "e^(a s), a branch from s0 to s1 counting (e^(a s1) - e^(a s0))/a "
+        f"{cite('harmon2010')}"
+    ),
 }
 
 
@@ -46,15 +52,17 @@ def branches_paragraph(config: dict) -> str:
         name, _, fixed = label.partition("=")
         what = WORDS[name] + (f", fixed at {fixed}" if fixed else "")
         parts.append(f"{', '.join(names)}: {what}")
-    return ("Branch lengths were treated per model (" + "; ".join(parts) + "). An estimated "
-            "branch-length parameter was fitted jointly with the rates and counted as one more "
-            "parameter; the treatments were compared like any other candidate models by their "
-            "Akaike weights (tables/treatment_support.tsv), and each model with an estimated "
-            "parameter was tested against the same model on the given lengths, which it nests "
-            "(kappa = lambda = delta = 1, a = 0), by a likelihood-ratio test with one degree of "
-            "freedom; lambda's null value lies on the bound of its range, so its statistic was "
-            f"referred to an equal mixture of chi-square with 0 and 1 degrees of freedom "
-            f"{cite('self1987')} (tables/branch_test_summary.tsv).")
+    return (
+        "Branch lengths were treated per model (" + "; ".join(parts) + "). An estimated "
+        "branch-length parameter was fitted jointly with the rates and counted as one more "
+        "parameter; the treatments were compared like any other candidate models by their "
+        "Akaike weights (tables/treatment_support.tsv), and each model with an estimated "
+        "parameter was tested against the same model on the given lengths, which it nests "
+        "(kappa = lambda = delta = 1, a = 0), by a likelihood-ratio test with one degree of "
+        "freedom; lambda's null value lies on the bound of its range, so its statistic was "
+        f"referred to an equal mixture of chi-square with 0 and 1 degrees of freedom "
+        f"{cite('self1987')} (tables/branch_test_summary.tsv)."
+    )
 
 
 def tree_sets_paragraph(sets: dict) -> str:
@@ -62,18 +70,20 @@ def tree_sets_paragraph(sets: dict) -> str:
     if len(sets) < 2:
         return ""
     listing = "; ".join(f"'{n}' from {Path(s['file']).name}" for n, s in sets.items())
-    return (f"Every analysis and model was fitted on every tree of {len(sets)} tree sets with "
-            f"the same taxa ({listing}). The sets were compared descriptively: the distribution "
-            "of ln L of each model across the trees of each set, and the fraction of pairs of "
-            "trees, one from each set, in which one set gives the higher ln L "
-            f"{cite('mcgraw1992')} (tables/tree_set_support.tsv). Trees are not parameters of "
-            "the model and the sets are not nested, so no likelihood-ratio test or weight "
-            "applies to them: the comparison says on which sample of trees the trait's "
-            "likelihood is higher, not which trees are closer to the truth; lengths in "
-            "different units, or trees inferred from different data, can change ln L for "
-            "reasons unrelated to how the trait evolved. Ancestral states, stochastic maps and "
-            "trait-pair tests were computed on every set, each on its own trees (tables carry "
-            f"tree_set); this text describes the first set, '{next(iter(sets))}'.")
+    return (
+        f"Every analysis and model was fitted on every tree of {len(sets)} tree sets with "
+        f"the same taxa ({listing}). The sets were compared descriptively: the distribution "
+        "of ln L of each model across the trees of each set, and the fraction of pairs of "
+        "trees, one from each set, in which one set gives the higher ln L "
+        f"{cite('mcgraw1992')} (tables/tree_set_support.tsv). Trees are not parameters of "
+        "the model and the sets are not nested, so no likelihood-ratio test or weight "
+        "applies to them: the comparison says on which sample of trees the trait's "
+        "likelihood is higher, not which trees are closer to the truth; lengths in "
+        "different units, or trees inferred from different data, can change ln L for "
+        "reasons unrelated to how the trait evolved. Ancestral states, stochastic maps and "
+        "trait-pair tests were computed on every set, each on its own trees (tables carry "
+        f"tree_set); this text describes the first set, '{next(iter(sets))}'."
+    )
 
 
 def results_lines(analysis: str, tables: dict) -> list:
@@ -85,20 +95,24 @@ def results_lines(analysis: str, tables: dict) -> list:
         g = g[g["analysis"] == analysis]
         if len(g) > 1:
             best = g.sort_values("mean_weight", ascending=False).iloc[0]
-            where = (f" of tree set '{best['tree_set']}'" if ts["tree_set"].nunique() > 1
-                     else "")
-            out.append(f"Across {int(best['n_trees'])} trees{where}, branch-length treatment "
-                       f"'{best['branches']}' carried the largest mean summed Akaike weight "
-                       f"({best['mean_weight']:.2f}) and was the treatment of the best model on "
-                       f"{best['fraction_best']:.0%} of trees (tables/treatment_support.tsv).")
+            where = f" of tree set '{best['tree_set']}'" if ts["tree_set"].nunique() > 1 else ""
+            out.append(
+                f"Across {int(best['n_trees'])} trees{where}, branch-length treatment "
+                f"'{best['branches']}' carried the largest mean summed Akaike weight "
+                f"({best['mean_weight']:.2f}) and was the treatment of the best model on "
+                f"{best['fraction_best']:.0%} of trees (tables/treatment_support.tsv)."
+            )
     tests = tables.get("branch_test_summary")
     if tests is not None and not tests.empty and "n_below_null" in tests:
         for row in tests[(tests["analysis"] == analysis) & (tests["n_below_null"] > 0)].to_dict(
-                "records"):
-            out.append(f"On {int(row['n_below_null'])} of {int(row['n_trees'])} trees the fit of "
-                       f"{row['alternative']} ended below that of {row['null']} on the given "
-                       "lengths, which it contains: its optimiser missed the maximum there, and "
-                       "those trees' test statistics were set to 0 (tables/branch_tests.tsv).")
+            "records"
+        ):
+            out.append(
+                f"On {int(row['n_below_null'])} of {int(row['n_trees'])} trees the fit of "
+                f"{row['alternative']} ended below that of {row['null']} on the given "
+                "lengths, which it contains: its optimiser missed the maximum there, and "
+                "those trees' test statistics were set to 0 (tables/branch_tests.tsv)."
+            )
     sets = tables.get("tree_set_support")
     if sets is not None and not sets.empty:
         g = sets[(sets["analysis"] == analysis) & (sets["model"] == "best_model")]

@@ -37,7 +37,7 @@ UNKNOWN_HATCH = "////"
 
 # Sizes in inches: the tree is laid out on a known canvas so that bars and labels
 # can be placed where they collide with nothing already drawn.
-ROW = 0.2            # height of one tip row (300 tips: 60 inches, 7-point labels legible)
+ROW = 0.2  # height of one tip row (300 tips: 60 inches, 7-point labels legible)
 BAR_W, BAR_H = 0.34, 0.11
 TIP_W = 0.11
 FONT_TIP, FONT_FREQ = 7.0, 6.0
@@ -88,8 +88,12 @@ class _Occupied:
         b = self.boxes
         if not len(b):
             return True
-        return not np.any((b[:, 0] < box[2] + pad) & (b[:, 2] > box[0] - pad)
-                          & (b[:, 1] < box[3] + pad) & (b[:, 3] > box[1] - pad))
+        return not np.any(
+            (b[:, 0] < box[2] + pad)
+            & (b[:, 2] > box[0] - pad)
+            & (b[:, 1] < box[3] + pad)
+            & (b[:, 3] > box[1] - pad)
+        )
 
 
 def _text_size(text: str, points: float):
@@ -97,9 +101,17 @@ def _text_size(text: str, points: float):
     return 0.62 * len(text) * points / 72 + 0.02, 1.3 * points / 72
 
 
-def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, analysis: str = "",
-               ordered: bool = False, colours: dict | None = None, title: str | None = None,
-               legend_title: str | None = None):
+def state_tree(
+    tree,
+    states: pd.DataFrame,
+    clades: pd.DataFrame,
+    trait=None,
+    analysis: str = "",
+    ordered: bool = False,
+    colours: dict | None = None,
+    title: str | None = None,
+    legend_title: str | None = None,
+):
     """Summary tree with mean ancestral state probabilities at its nodes.
 
     states: ancestral_states rows of one analysis; clades: the clade table
@@ -126,7 +138,7 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
     height = n * ROW + top + bottom
     width = 0.35 + tree_w + 0.15 + TIP_W * 2 + label_w + LEGEND_W
     fig = plt.figure(figsize=(width, height))
-    ax_w = tree_w + 0.3 + TIP_W * 2 + label_w + 0.1          # inches of the axes
+    ax_w = tree_w + 0.3 + TIP_W * 2 + label_w + 0.1  # inches of the axes
     ax = fig.add_axes((0.3 / width, bottom / height, ax_w / width, (n * ROW) / height))
     per_in = span / tree_w
     x_lo = -0.25 * per_in
@@ -157,8 +169,9 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
     for v in range(n):
         label = tree.tip_labels[v]
         xi, yi = inch(tip_x, y[v])
-        occupied.add([xi, yi - ROW * 0.4, xi + TIP_W + 0.04 + _text_size(label, FONT_TIP)[0],
-                      yi + ROW * 0.4])
+        occupied.add(
+            [xi, yi - ROW * 0.4, xi + TIP_W + 0.04 + _text_size(label, FONT_TIP)[0], yi + ROW * 0.4]
+        )
         ax.text(tip_x + (TIP_W + 0.05) * per_in, y[v], label, va="center", fontsize=FONT_TIP)
         i = tip_row.get(label)
         if i is None:
@@ -166,15 +179,33 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
         possible = np.flatnonzero(trait.possible[i])
         h = 0.7
         if len(possible) == len(trait.states):
-            ax.add_patch(Rectangle((tip_x, y[v] - h / 2), TIP_W * per_in, h, facecolor="white",
-                                   edgecolor="#777777", hatch=UNKNOWN_HATCH, lw=0.5, zorder=3))
+            ax.add_patch(
+                Rectangle(
+                    (tip_x, y[v] - h / 2),
+                    TIP_W * per_in,
+                    h,
+                    facecolor="white",
+                    edgecolor="#777777",
+                    hatch=UNKNOWN_HATCH,
+                    lw=0.5,
+                    zorder=3,
+                )
+            )
             unknown = True
             continue
         ambiguous |= len(possible) > 1
         w = TIP_W * per_in / len(possible)
         for k, s in enumerate(possible):
-            ax.add_patch(Rectangle((tip_x + k * w, y[v] - h / 2), w, h,
-                                   facecolor=colours[trait.states[s]], edgecolor="none", zorder=3))
+            ax.add_patch(
+                Rectangle(
+                    (tip_x + k * w, y[v] - h / 2),
+                    w,
+                    h,
+                    facecolor=colours[trait.states[s]],
+                    edgecolor="none",
+                    zorder=3,
+                )
+            )
 
     # node bars: mean probability of each state, stacked left to right
     by_members = {}
@@ -185,7 +216,7 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
     sets = node_clades(tree)
     full_w = BAR_W * per_in
     placed = {}
-    order = sorted(range(n, tree.n_nodes), key=lambda v: (x[v], y[v]))     # root side first
+    order = sorted(range(n, tree.n_nodes), key=lambda v: (x[v], y[v]))  # root side first
     for v in order:
         row = by_members.get(sets[v])
         if row is None:
@@ -193,7 +224,7 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
         probs = np.array([float(table.get((row["clade"], s), np.nan)) for s in labels])
         parent_x = x[tree.parent[v]] if v != tree.root else x[v] - 0.6 * full_w
         centre = None
-        for scale in (1.0, 0.6):              # a narrower bar where a full one has no room
+        for scale in (1.0, 0.6):  # a narrower bar where a full one has no room
             w_in = BAR_W * scale
             for shift in np.arange(0.0, max(x[v] - parent_x, 0.0) + 1e-12, 0.1 * full_w):
                 cx = x[v] - shift
@@ -213,11 +244,28 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
         hh = BAR_H / ROW
         if np.all(np.isfinite(probs)):
             for s, pr in zip(labels, probs):
-                ax.add_patch(Rectangle((left, y[v] - hh / 2), bar_w * pr, hh, facecolor=colours[s],
-                                       edgecolor="none", zorder=3))
+                ax.add_patch(
+                    Rectangle(
+                        (left, y[v] - hh / 2),
+                        bar_w * pr,
+                        hh,
+                        facecolor=colours[s],
+                        edgecolor="none",
+                        zorder=3,
+                    )
+                )
                 left += bar_w * pr
-        ax.add_patch(Rectangle((centre - bar_w / 2, y[v] - hh / 2), bar_w, hh, fill=False,
-                               edgecolor="black", lw=0.5, zorder=4))
+        ax.add_patch(
+            Rectangle(
+                (centre - bar_w / 2, y[v] - hh / 2),
+                bar_w,
+                hh,
+                fill=False,
+                edgecolor="black",
+                lw=0.5,
+                zorder=4,
+            )
+        )
     occupied.add(branch_boxes)
     n_freq = n_hidden = 0
     for v in order:
@@ -231,17 +279,30 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
         tw, th = _text_size(text, FONT_FREQ)
         bx, by = inch(centre - bar_w / 2, y[v])
         bw = bar_w / per_in
-        candidates = [(bx - tw - 0.03 - dx, y0, va) for dx in (0.0, 0.12, 0.24)
-                      for y0, va in ((by + 0.03, "bottom"), (by - th - 0.03, "top"))]
-        candidates += [(bx + (bw - tw) / 2, by + BAR_H / 2 + 0.02, "bottom"),
-                       (bx + (bw - tw) / 2, by - BAR_H / 2 - th - 0.02, "top")]
+        candidates = [
+            (bx - tw - 0.03 - dx, y0, va)
+            for dx in (0.0, 0.12, 0.24)
+            for y0, va in ((by + 0.03, "bottom"), (by - th - 0.03, "top"))
+        ]
+        candidates += [
+            (bx + (bw - tw) / 2, by + BAR_H / 2 + 0.02, "bottom"),
+            (bx + (bw - tw) / 2, by - BAR_H / 2 - th - 0.02, "top"),
+        ]
         for x0, y0, va in candidates:
             box = (x0, y0, x0 + tw, y0 + th)
             if occupied.free(box, pad=0.015):
                 occupied.add(box)
                 yt = n - 0.5 - (y0 + (0 if va == "bottom" else th)) / ROW
-                ax.text(x_lo + (x0 + tw / 2) * per_in, yt, text, ha="center", va=va,
-                        fontsize=FONT_FREQ, color=SUPPORT_COLOUR, zorder=5)
+                ax.text(
+                    x_lo + (x0 + tw / 2) * per_in,
+                    yt,
+                    text,
+                    ha="center",
+                    va=va,
+                    fontsize=FONT_FREQ,
+                    color=SUPPORT_COLOUR,
+                    zorder=5,
+                )
                 n_freq += 1
                 break
         else:
@@ -250,27 +311,45 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
     handles = [Patch(facecolor=colours[s], label=s.replace("+", " + ")) for s in labels]
     if trait is not None:
         if ambiguous:
-            handles.append((Patch(facecolor=colours[labels[0]]), Patch(facecolor=colours[labels[-1]])))
+            handles.append(
+                (Patch(facecolor=colours[labels[0]]), Patch(facecolor=colours[labels[-1]]))
+            )
         if unknown:
             handles.append(Patch(facecolor="white", edgecolor="#777777", hatch=UNKNOWN_HATCH))
-    names = [h.get_label() if not isinstance(h, tuple) else "tip: several states possible"
-             for h in handles]
+    names = [
+        h.get_label() if not isinstance(h, tuple) else "tip: several states possible"
+        for h in handles
+    ]
     if trait is not None and unknown:
         names[-1] = "tip: state unknown"
     handles.append(Line2D([], [], ls="none", marker="$0.9$", color=SUPPORT_COLOUR, markersize=12))
-    names.append("clade frequency in the tree sample\n(written when below 1 and where it fits;"
-                 "\nall in tables/clades.tsv)")
+    names.append(
+        "clade frequency in the tree sample\n(written when below 1 and where it fits;"
+        "\nall in tables/clades.tsv)"
+    )
     left_out = len([v for v in order if by_members.get(sets[v]) is not None and v not in placed])
     if left_out:
         handles.append(Line2D([], [], ls="none"))
-        names.append(f"{left_out} node bars left out: branches too\nshort to draw them apart "
-                     "(values in\ntables/ancestral_states.tsv)")
+        names.append(
+            f"{left_out} node bars left out: branches too\nshort to draw them apart "
+            "(values in\ntables/ancestral_states.tsv)"
+        )
     if legend_title is None:
-        legend_title = ("state" if trait is None or "+" not in labels[0]
-                        else f"{analysis} (joint state)")
-    ax.legend(handles, names, title=legend_title, loc="upper left", bbox_to_anchor=(1.0, 1.0),
-              frameon=False, fontsize=8, title_fontsize=9, alignment="left",
-              handler_map={tuple: HandlerTuple(ndivide=None, pad=0)})
+        legend_title = (
+            "state" if trait is None or "+" not in labels[0] else f"{analysis} (joint state)"
+        )
+    ax.legend(
+        handles,
+        names,
+        title=legend_title,
+        loc="upper left",
+        bbox_to_anchor=(1.0, 1.0),
+        frameon=False,
+        fontsize=8,
+        title_fontsize=9,
+        alignment="left",
+        handler_map={tuple: HandlerTuple(ndivide=None, pad=0)},
+    )
     ax.set_yticks([])
     for side in ("left", "right", "top"):
         ax.spines[side].set_visible(False)
@@ -279,11 +358,14 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
     ax.tick_params(axis="x", labelsize=7.5)
     n_trees = int(states["n_trees"].max()) if len(states) else 0
     ax.set_xlabel("distance from the root (branch length units)", fontsize=8, loc="left")
-    drawn_on = (str(clades["summary_tree"].iloc[0]) if "summary_tree" in clades and len(clades)
-                else "")
-    default = (f"Ancestral states of '{analysis}': mean probability across trees "
-               f"(up to {n_trees} tree{'' if n_trees == 1 else 's'})"
-               + (f"\ndrawn on the {drawn_on}" if drawn_on else ""))
+    drawn_on = (
+        str(clades["summary_tree"].iloc[0]) if "summary_tree" in clades and len(clades) else ""
+    )
+    default = (
+        f"Ancestral states of '{analysis}': mean probability across trees "
+        f"(up to {n_trees} tree{'' if n_trees == 1 else 's'})"
+        + (f"\ndrawn on the {drawn_on}" if drawn_on else "")
+    )
     ax.set_title(title or default, fontsize=10, loc="left")
     fig.mkforest_nodes_drawn = sum(np.all(np.isfinite(p[1])) for p in placed.values())
     fig.mkforest_bars_left_out = left_out
@@ -291,7 +373,7 @@ def state_tree(tree, states: pd.DataFrame, clades: pd.DataFrame, trait=None, ana
     return fig
 
 
-CLASS_PALETTE = "coolwarm"   # blue = slow, red = fast
+CLASS_PALETTE = "coolwarm"  # blue = slow, red = fast
 
 
 def class_label(cls: int, n_classes: int) -> str:
@@ -310,13 +392,20 @@ def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str,
     n_classes = int(rows["class"].max()) if len(rows) else 1
     rows["state"] = [class_label(int(c), n_classes) for c in rows["class"]]
     labels = [class_label(c, n_classes) for c in range(1, n_classes + 1)]
-    cmap = colormaps[CLASS_PALETTE]   # the map's full range: strong ends
+    cmap = colormaps[CLASS_PALETTE]  # the map's full range: strong ends
     colours = dict(zip(labels, [cmap(x) for x in np.linspace(0.0, 1.0, n_classes)]))
     n_trees = int(rows["n_trees"].max()) if len(rows) else 0
-    return state_tree(tree, rows, clades, None, analysis, colours=colours,
-                      title=f"Hidden rate classes of '{analysis}' under model '{model}': mean "
-                            f"probability across trees (up to {n_trees} trees)",
-                      legend_title="rate class")
+    return state_tree(
+        tree,
+        rows,
+        clades,
+        None,
+        analysis,
+        colours=colours,
+        title=f"Hidden rate classes of '{analysis}' under model '{model}': mean "
+        f"probability across trees (up to {n_trees} trees)",
+        legend_title="rate class",
+    )
 
 
 def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dict | None = None):
@@ -327,19 +416,29 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
     {analysis: states in their declared order}, for the order of the rows."""
     pairs, states = pairs or {}, states or {}
     d = per_tree.copy()
-    double = [a in pairs and style.is_double_change(f, t)
-              for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])]
+    double = [
+        a in pairs and style.is_double_change(f, t)
+        for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])
+    ]
     d = d[~np.asarray(double, bool)]
     analyses = list(dict.fromkeys(d["analysis"]))
-    n_rows = [d.loc[d["analysis"] == a, ["from_state", "to_state"]].drop_duplicates().shape[0]
-              for a in analyses] or [1]
-    fig, axes = plt.subplots(len(n_rows), 1, squeeze=False, layout="constrained",
-                             figsize=(7.5, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
-                             gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]})
+    n_rows = [
+        d.loc[d["analysis"] == a, ["from_state", "to_state"]].drop_duplicates().shape[0]
+        for a in analyses
+    ] or [1]
+    fig, axes = plt.subplots(
+        len(n_rows),
+        1,
+        squeeze=False,
+        layout="constrained",
+        figsize=(7.5, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
+        gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]},
+    )
     for ax, a in zip(axes[:, 0], analyses):
         g = d[d["analysis"] == a].copy()
-        keys = style.ordered_changes(zip(g["from_state"], g["to_state"]), pairs.get(a),
-                                     states.get(a))
+        keys = style.ordered_changes(
+            zip(g["from_state"], g["to_state"]), pairs.get(a), states.get(a)
+        )
         label = {k: style.change_label(*k, pairs.get(a)) for k in keys}
         g["direction"] = [label[k] for k in zip(g["from_state"], g["to_state"])]
         order = [label[k] for k in keys]
@@ -348,17 +447,33 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
         g = g[np.isfinite(g["mean_count"].astype(float))]
         if g.empty:
             ax.set_title(f"{a}", fontsize=9, loc="left", fontweight="bold")
-            ax.text(0.5, 0.5, "no change counts: every map was drawn under a fit with a rate\n"
-                    "the data do not bound from above (tables/transitions.tsv)",
-                    ha="center", va="center", transform=ax.transAxes, fontsize=8)
+            ax.text(
+                0.5,
+                0.5,
+                "no change counts: every map was drawn under a fit with a rate\n"
+                "the data do not bound from above (tables/transitions.tsv)",
+                ha="center",
+                va="center",
+                transform=ax.transAxes,
+                fontsize=8,
+            )
             ax.set_xticks([])
             ax.set_yticks([])
             continue
-        style.box_and_points(ax, [g.loc[g["direction"] == o, "mean_count"] for o in order],
-                             order, size=2.2, jitter=0.2)
+        style.box_and_points(
+            ax,
+            [g.loc[g["direction"] == o, "mean_count"] for o in order],
+            order,
+            size=2.2,
+            jitter=0.2,
+        )
         n_trees = g["tree"].nunique()
-        ax.set_title(f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'})", fontsize=9,
-                     loc="left", fontweight="bold")
+        ax.set_title(
+            f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'})",
+            fontsize=9,
+            loc="left",
+            fontweight="bold",
+        )
         ax.set_ylabel("")
         ax.set_xlabel("changes on the tree (mean of the tree's maps)", fontsize=8)
         ax.set_xlim(left=0)

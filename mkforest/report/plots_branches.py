@@ -12,8 +12,14 @@ import pandas as pd  # noqa: E402
 from . import style  # noqa: E402
 from .methods_branches import first_set  # noqa: E402
 
-TREATMENT_COLOURS = {"as_given": "#4c6a92", "unit": "#c3793a", "kappa": "#5f9e6e",
-                     "lambda": "#8d6ab8", "delta": "#b5545c", "early_burst": "#8c8c3a"}
+TREATMENT_COLOURS = {
+    "as_given": "#4c6a92",
+    "unit": "#c3793a",
+    "kappa": "#5f9e6e",
+    "lambda": "#8d6ab8",
+    "delta": "#b5545c",
+    "early_burst": "#8c8c3a",
+}
 
 
 def _colour(label: str) -> str:
@@ -24,8 +30,7 @@ def treatment_weights_per_tree(fits: pd.DataFrame) -> pd.DataFrame:
     """Akaike weight summed by treatment on every tree of the first tree set."""
     f = first_set(fits)
     f = f[np.isfinite(f["weight"].astype(float))]
-    return (f.groupby(["analysis", "tree", "branches"], sort=False)["weight"].sum()
-            .reset_index())
+    return f.groupby(["analysis", "tree", "branches"], sort=False)["weight"].sum().reset_index()
 
 
 def best_per_tree(fits: pd.DataFrame, criterion: str) -> pd.DataFrame:
@@ -51,21 +56,32 @@ def support_branches(fits: pd.DataFrame, criterion: str = "aicc"):
     sets = list(dict.fromkeys(fits["tree_set"])) if "tree_set" in fits else [""]
     two = len(sets) > 1
     order = ["as_given", "unit", "kappa", "lambda", "delta", "early_burst"]
-    labels = sorted(dict.fromkeys(w["branches"]),
-                    key=lambda b: (order.index(b.split("=")[0]) if b.split("=")[0] in order
-                                   else len(order), "=" in b, b))
+    labels = sorted(
+        dict.fromkeys(w["branches"]),
+        key=lambda b: (
+            order.index(b.split("=")[0]) if b.split("=")[0] in order else len(order),
+            "=" in b,
+            b,
+        ),
+    )
     height = 0.9 + 0.32 * len(analyses) * max(len(labels), 1)
-    fig, axes = plt.subplots(1, 2 if two else 1, figsize=(11.5 if two else 6.5, max(3.2, height)),
-                             squeeze=False)
+    fig, axes = plt.subplots(
+        1, 2 if two else 1, figsize=(11.5 if two else 6.5, max(3.2, height)), squeeze=False
+    )
     ax = axes[0, 0]
-    rows = [(a, b) for a in analyses for b in labels if ((w["analysis"] == a) &
-                                                          (w["branches"] == b)).any()]
+    rows = [
+        (a, b)
+        for a in analyses
+        for b in labels
+        if ((w["analysis"] == a) & (w["branches"] == b)).any()
+    ]
     rng = np.random.default_rng(0)
     for y, (a, b) in enumerate(rows):
         x = w.loc[(w["analysis"] == a) & (w["branches"] == b), "weight"].to_numpy(float)
         ax.barh(y, x.mean(), color=_colour(b), alpha=0.35, height=0.7)
-        ax.scatter(x, y + rng.uniform(-0.25, 0.25, len(x)), s=7, color=_colour(b), alpha=0.7,
-                   linewidths=0)
+        ax.scatter(
+            x, y + rng.uniform(-0.25, 0.25, len(x)), s=7, color=_colour(b), alpha=0.7, linewidths=0
+        )
     ax.set_yticks(range(len(rows)))
     ax.set_yticklabels([f"{a} · {b}" for a, b in rows])
     ax.invert_yaxis()
@@ -75,8 +91,9 @@ def support_branches(fits: pd.DataFrame, criterion: str = "aicc"):
     ax.set_xlim(-0.02, 1.02)
     ax.set_xlabel("Akaike weight summed over the models of a treatment (per tree; bar = mean)")
     n = w["tree"].nunique()
-    ax.set_title(f"Branch-length treatments across {n} trees"
-                 + (f" (tree set '{sets[0]}')" if two else ""))
+    ax.set_title(
+        f"Branch-length treatments across {n} trees" + (f" (tree set '{sets[0]}')" if two else "")
+    )
     if two:
         ax = axes[0, 1]
         best = best_per_tree(fits, criterion)
@@ -88,8 +105,9 @@ def support_branches(fits: pd.DataFrame, criterion: str = "aicc"):
             for i, a in enumerate(analyses):
                 x = best.loc[(best["analysis"] == a) & (best["tree_set"] == ts), "relative"]
                 y = i - 0.4 + width * (j + 0.5) + rng.uniform(-width / 4, width / 4, len(x))
-                ax.scatter(x, y, s=9, color=colour, alpha=0.6, linewidths=0,
-                           label=ts if i == 0 else None)
+                ax.scatter(
+                    x, y, s=9, color=colour, alpha=0.6, linewidths=0, label=ts if i == 0 else None
+                )
         ax.set_yticks(range(len(analyses)), analyses)
         ax.set_ylim(len(analyses) - 0.5, -0.5)
         ax.axvline(0, color="#999999", linewidth=0.8, linestyle="--")

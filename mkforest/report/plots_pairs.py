@@ -23,13 +23,12 @@ from matplotlib.ticker import NullFormatter  # noqa: E402
 from scipy.stats import chi2  # noqa: E402
 
 from ..engine.models import FREE_FORBIDDEN  # noqa: E402
-
 from . import style  # noqa: E402
 from .plots import interval_panel  # noqa: E402
 from .words import hypothesis_words  # noqa: E402
 
-FIRST_COLOUR = style.CATEGORICAL[5]     # vermillion: the first trait's side of a test
-SECOND_COLOUR = style.CATEGORICAL[0]    # blue
+FIRST_COLOUR = style.CATEGORICAL[5]  # vermillion: the first trait's side of a test
+SECOND_COLOUR = style.CATEGORICAL[0]  # blue
 DOUBLE_HATCH = "xxxx"
 
 
@@ -64,7 +63,7 @@ def _hypotheses(pair, rates: pd.DataFrame, support, models=None) -> list:
     without hypotheses reported ``same_as`` another."""
     names = list(dict.fromkeys(rates.loc[rates["analysis"] == pair.name, "model"]))
     repeats = style.same_as(support, pair.name)
-    if models:                         # the config's order, not the table's
+    if models:  # the config's order, not the table's
         order = list(models)
         names.sort(key=lambda h: (order.index(_base(h)) if _base(h) in order else len(order), h))
     return [h for h in names if _base(h) not in repeats and (models is None or _base(h) in models)]
@@ -75,7 +74,9 @@ def _with_impossible(title: str, pair, rates: pd.DataFrame, support) -> str:
     trees (ln L = -inf: no rates, not drawn), counted."""
     mine = rates[rates["analysis"] == pair.name]
     repeats = style.same_as(support, pair.name)
-    note = style.impossible_note(mine, [h for h in dict.fromkeys(mine["model"]) if h not in repeats])
+    note = style.impossible_note(
+        mine, [h for h in dict.fromkeys(mine["model"]) if h not in repeats]
+    )
     return f"{title}\n{note}" if note else title
 
 
@@ -95,8 +96,9 @@ def _weights(pair, support) -> dict:
     return dict(zip(s["model"], s["mean_weight"].astype(float)))
 
 
-def rates_by_state(pair, rates: pd.DataFrame, support: pd.DataFrame | None = None,
-                   models: dict | None = None):
+def rates_by_state(
+    pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
+):
     """For each trait of the pair, each of its changes in each state of the other
     trait: the median rate across trees and the central 95% interval across trees,
     one colour per hypothesis. Under independence a change has one rate whatever the
@@ -117,27 +119,61 @@ def rates_by_state(pair, rates: pd.DataFrame, support: pd.DataFrame | None = Non
         rows = []
         for a, b in itertools.permutations(range(trait.k), 2):
             for c in range(other.k):
-                i, j = (pair.joint(a, c), pair.joint(b, c)) if which == 0 else \
-                    (pair.joint(c, a), pair.joint(c, b))
-                rows.append(((pair.states[i], pair.states[j]),
-                             f"{trait.states[a]} → {trait.states[b]}  ({other.name} {other.states[c]})"))
+                i, j = (
+                    (pair.joint(a, c), pair.joint(b, c))
+                    if which == 0
+                    else (pair.joint(c, a), pair.joint(c, b))
+                )
+                rows.append(
+                    (
+                        (pair.states[i], pair.states[j]),
+                        f"{trait.states[a]} → {trait.states[b]}  ({other.name} {other.states[c]})",
+                    )
+                )
         panels.append((trait, rows))
     m = max(len(hyps), 1)
     heights = [len(rows) * (0.06 + 0.14 * m) for _, rows in panels]
-    fig, axes = plt.subplots(2, 1, figsize=(9.0, sum(heights) + 2.0), layout="constrained",
-                             gridspec_kw={"height_ratios": heights})
+    fig, axes = plt.subplots(
+        2,
+        1,
+        figsize=(9.0, sum(heights) + 2.0),
+        layout="constrained",
+        gridspec_kw={"height_ratios": heights},
+    )
     weights = _weights(pair, support)
     for ax, (trait, rows) in zip(axes, panels):
         interval_panel(ax, rows, stats, hyps, colours, markers, xlim=xlim)
         ax.set_title(f"changes in {trait.name}", fontsize=9, loc="left", fontweight="bold")
         ax.set_xlabel("rate (changes per unit branch length)", fontsize=8)
-    handles = [Line2D([], [], color=colours[h], marker=markers[h], lw=1.4,
-                      label=_legend_label(h, models, pair, weights)) for h in hyps]
-    fig.legend(handles=handles, loc="outside lower center", ncol=1, fontsize=7.5, frameon=False,
-               title="hypothesis: median across trees (marker), central 95% of trees (line)",
-               title_fontsize=7.5)
-    fig.suptitle(_with_impossible(f"{pair.name}: rates of each trait in each state of the other, "
-                                  "across trees", pair, rates, support), fontsize=10)
+    handles = [
+        Line2D(
+            [],
+            [],
+            color=colours[h],
+            marker=markers[h],
+            lw=1.4,
+            label=_legend_label(h, models, pair, weights),
+        )
+        for h in hyps
+    ]
+    fig.legend(
+        handles=handles,
+        loc="outside lower center",
+        ncol=1,
+        fontsize=7.5,
+        frameon=False,
+        title="hypothesis: median across trees (marker), central 95% of trees (line)",
+        title_fontsize=7.5,
+    )
+    fig.suptitle(
+        _with_impossible(
+            f"{pair.name}: rates of each trait in each state of the other, across trees",
+            pair,
+            rates,
+            support,
+        ),
+        fontsize=10,
+    )
     return fig
 
 
@@ -168,8 +204,9 @@ def _grid_cells(pair, model, stats):
     return med, text, allowed, double
 
 
-def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = None,
-                    models: dict | None = None):
+def joint_rate_grid(
+    pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
+):
     """One from-state x to-state grid of joint rates per hypothesis: each allowed
     cell coloured and written with the median rate across trees (all trees, those at
     a bound included, counted below the value); changes of both traits at once
@@ -178,11 +215,15 @@ def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = No
     hyps = _hypotheses(pair, r, support, models)
     stats = style.rate_intervals(r[r["model"].isin(hyps)])
     med_all = r.groupby(["model", "from_state", "to_state"], sort=False)["rate"].median()
-    stats["median_all"] = [med_all.get((m, f, t), np.nan) for m, f, t in
-                           zip(stats["model"], stats["from_state"], stats["to_state"])]
+    stats["median_all"] = [
+        med_all.get((m, f, t), np.nan)
+        for m, f, t in zip(stats["model"], stats["from_state"], stats["to_state"])
+    ]
     positive = stats["median_all"].to_numpy(float)
     positive = positive[np.isfinite(positive) & (positive > 0)]
-    lo, hi = (max(positive.min(), style.PRECISION / 10), positive.max()) if positive.size else (0.1, 1)
+    lo, hi = (
+        (max(positive.min(), style.PRECISION / 10), positive.max()) if positive.size else (0.1, 1)
+    )
     norm = LogNorm(vmin=lo, vmax=max(hi, lo * 10))
     cmap = colormaps[style.ORDERED_MAP]
     k = len(pair.states)
@@ -191,8 +232,13 @@ def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = No
     rows_n = int(np.ceil(n / cols))
     cell = 0.62
     size = k * cell + 1.4
-    fig, axes = plt.subplots(rows_n, cols, squeeze=False, layout="constrained",
-                             figsize=(cols * size + 1.0, rows_n * (size + 0.5) + 1.3))
+    fig, axes = plt.subplots(
+        rows_n,
+        cols,
+        squeeze=False,
+        layout="constrained",
+        figsize=(cols * size + 1.0, rows_n * (size + 0.5) + 1.3),
+    )
     weights = _weights(pair, support)
     labels = [s.replace("+", " + ") for s in pair.states]
     for ax, h in zip(axes.flat, hyps):
@@ -212,11 +258,28 @@ def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = No
         for i in range(k):
             for j in range(k):
                 if double[i, j]:
-                    ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch=DOUBLE_HATCH,
-                                           edgecolor="#b0b0b0", lw=0))
+                    ax.add_patch(
+                        Rectangle(
+                            (j - 0.5, i - 0.5),
+                            1,
+                            1,
+                            fill=False,
+                            hatch=DOUBLE_HATCH,
+                            edgecolor="#b0b0b0",
+                            lw=0,
+                        )
+                    )
                 elif allowed[i, j] and text[i, j]:
-                    ax.text(j, i, text[i, j], ha="center", va="center", fontsize=6,
-                            color=style.text_colour_on(rgba[i, j][:3]), linespacing=1.1)
+                    ax.text(
+                        j,
+                        i,
+                        text[i, j],
+                        ha="center",
+                        va="center",
+                        fontsize=6,
+                        color=style.text_colour_on(rgba[i, j][:3]),
+                        linespacing=1.1,
+                    )
         ax.set_xticks(range(k), labels, rotation=90, fontsize=7)
         ax.set_yticks(range(k), labels, fontsize=7)
         ax.set_xticks(np.arange(-0.5, k), minor=True)
@@ -226,26 +289,44 @@ def joint_rate_grid(pair, rates: pd.DataFrame, support: pd.DataFrame | None = No
         ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=7.5)
         ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=7.5)
         label = _legend_label(h, models, pair, weights).split(": ", 1)
-        ax.set_title(f"{label[0]}\n{label[1].replace(' (mean weight', chr(10) + '(mean weight')}",
-                     fontsize=8)
-    for ax in list(axes.flat)[len(hyps):]:
+        ax.set_title(
+            f"{label[0]}\n{label[1].replace(' (mean weight', chr(10) + '(mean weight')}", fontsize=8
+        )
+    for ax in list(axes.flat)[len(hyps) :]:
         ax.set_visible(False)
     sm = plt.cm.ScalarMappable(norm=norm, cmap=cmap)
     bar = fig.colorbar(sm, ax=axes.ravel().tolist(), shrink=0.5, pad=0.02)
     bar.set_label("median rate across trees", fontsize=7.5)
     bar.ax.tick_params(labelsize=7)
-    bar.set_ticks(style.log_ticks(norm.vmin, norm.vmax),
-                  labels=[style.plain_number(v) for v in style.log_ticks(norm.vmin, norm.vmax)])
+    bar.set_ticks(
+        style.log_ticks(norm.vmin, norm.vmax),
+        labels=[style.plain_number(v) for v in style.log_ticks(norm.vmin, norm.vmax)],
+    )
     bar.ax.yaxis.set_minor_formatter(NullFormatter())
-    handles = [Patch(facecolor="white", edgecolor="#b0b0b0", hatch=DOUBLE_HATCH,
-                     label="both traits at once: never allowed"),
-               Patch(facecolor="#e6e6e6", edgecolor="none", label="not allowed by this hypothesis"),
-               Line2D([], [], ls="none", label=f"values below {style.PRECISION:g} written "
-                                                f"\"< {style.PRECISION:g}\"; "
-                                                "'k/n bound': trees with the rate at a bound")]
+    handles = [
+        Patch(
+            facecolor="white",
+            edgecolor="#b0b0b0",
+            hatch=DOUBLE_HATCH,
+            label="both traits at once: never allowed",
+        ),
+        Patch(facecolor="#e6e6e6", edgecolor="none", label="not allowed by this hypothesis"),
+        Line2D(
+            [],
+            [],
+            ls="none",
+            label=f"values below {style.PRECISION:g} written "
+            f'"< {style.PRECISION:g}"; '
+            "'k/n bound': trees with the rate at a bound",
+        ),
+    ]
     fig.legend(handles=handles, loc="outside lower center", ncol=1, fontsize=7, frameon=False)
-    fig.suptitle(_with_impossible(f"{pair.name}: joint-state rates, from (rows) to (columns)",
-                                  pair, rates, support), fontsize=10)
+    fig.suptitle(
+        _with_impossible(
+            f"{pair.name}: joint-state rates, from (rows) to (columns)", pair, rates, support
+        ),
+        fontsize=10,
+    )
     return fig
 
 
@@ -260,8 +341,14 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
     if not keys:
         for ax in axes.flat:
             ax.axis("off")
-        axes[0, 0].text(0.5, 0.5, f"{pair_name}: no nested hypotheses to test",
-                        ha="center", va="center", transform=axes[0, 0].transAxes)
+        axes[0, 0].text(
+            0.5,
+            0.5,
+            f"{pair_name}: no nested hypotheses to test",
+            ha="center",
+            va="center",
+            transform=axes[0, 0].transAxes,
+        )
     for row, (null, alt) in enumerate(keys):
         g = t[(t["null"] == null) & (t["alternative"] == alt)]
         stat = g["statistic"].to_numpy(float)
@@ -274,47 +361,83 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
         above = stat > crit
         ax.scatter(stat[~above], y[~above], s=14, color="#8a8a8a", alpha=0.8, label="not rejected")
         ax.scatter(stat[above], y[above], s=14, color=FIRST_COLOUR, alpha=0.9, label="rejected")
-        ax.axvline(crit, color="black", lw=1.2, ls="--",
-                   label=f"χ² {1 - alpha:.0%} point, df {df}: {crit:.2f}")
+        ax.axvline(
+            crit,
+            color="black",
+            lw=1.2,
+            ls="--",
+            label=f"χ² {1 - alpha:.0%} point, df {df}: {crit:.2f}",
+        )
         if stat.size:
-            ax.axvline(np.median(stat), color=SECOND_COLOUR, lw=1.2,
-                       label=f"median across trees: {np.median(stat):.2f}")
+            ax.axvline(
+                np.median(stat),
+                color=SECOND_COLOUR,
+                lw=1.2,
+                label=f"median across trees: {np.median(stat):.2f}",
+            )
         ax.set_ylim(-0.5, 0.5)
         ax.set_yticks([])
         ax.set_xlim(left=0, right=max(crit, stat.max() if stat.size else 0) * 1.12 + 0.5)
         ax.set_xlabel("likelihood-ratio statistic 2 (ln L alternative − ln L null)")
-        ax.set_title(f"{null} vs {alt}\n{int(above.sum())} of {stat.size} trees reject "
-                     f"at {alpha:g} (χ²)", fontsize=9)
-        ax.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.22), ncol=2,
-                  frameon=False)
+        ax.set_title(
+            f"{null} vs {alt}\n{int(above.sum())} of {stat.size} trees reject at {alpha:g} (χ²)",
+            fontsize=9,
+        )
+        ax.legend(
+            fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.22), ncol=2, frameon=False
+        )
         ax = axes[row, 1]
         sims = b[(b["null"] == null) & (b["alternative"] == alt)] if len(b) else b
         if len(sims) == 0:
             ax.axis("off")
-            ax.text(0.5, 0.5, "no parametric bootstrap\n(set pairs.<name>.bootstrap > 0)",
-                    ha="center", va="center", fontsize=9, transform=ax.transAxes)
+            ax.text(
+                0.5,
+                0.5,
+                "no parametric bootstrap\n(set pairs.<name>.bootstrap > 0)",
+                ha="center",
+                va="center",
+                fontsize=9,
+                transform=ax.transAxes,
+            )
             continue
         x = sims["statistic"].to_numpy(float)
         x = x[np.isfinite(x)]
         boot_trees = sorted(set(sims["tree"]))
         obs = g[g["tree"].isin(boot_trees)]["statistic"].to_numpy(float)
         hi = max(np.quantile(x, 0.995), obs.max() if obs.size else 0, crit) * 1.1 + 0.5
-        heights, _, _ = ax.hist(x, bins=np.linspace(0, hi, 40), density=True, color="#cfd8d3",
-                edgecolor="#7f948a", lw=0.5, label=f"simulated under {null} "
-                f"({len(x)} data sets, {len(boot_trees)} trees)")
+        heights, _, _ = ax.hist(
+            x,
+            bins=np.linspace(0, hi, 40),
+            density=True,
+            color="#cfd8d3",
+            edgecolor="#7f948a",
+            lw=0.5,
+            label=f"simulated under {null} ({len(x)} data sets, {len(boot_trees)} trees)",
+        )
         grid = np.linspace(1e-3, hi, 300)
         ax.plot(grid, chi2.pdf(grid, df), color="black", lw=1, ls="--", label=f"χ², df {df}")
-        ax.axvline(float(np.quantile(x, 1 - alpha)), color="#555555", lw=1, ls=":",
-                   label=f"bootstrap {1 - alpha:.0%} point")
+        ax.axvline(
+            float(np.quantile(x, 1 - alpha)),
+            color="#555555",
+            lw=1,
+            ls=":",
+            label=f"bootstrap {1 - alpha:.0%} point",
+        )
         for i, o in enumerate(obs):
-            ax.axvline(o, color=FIRST_COLOUR, lw=1.3, alpha=0.8,
-                       label="observed (per tree)" if i == 0 else None)
+            ax.axvline(
+                o,
+                color=FIRST_COLOUR,
+                lw=1.3,
+                alpha=0.8,
+                label="observed (per tree)" if i == 0 else None,
+            )
         ax.set_xlim(0, hi)
         ax.set_ylim(0, 1.05 * max(heights.max(), 1e-9))
         ax.set_xlabel("likelihood-ratio statistic")
         ax.set_ylabel("density")
         ax.set_title(f"parametric bootstrap\n{null} vs {alt}", fontsize=9)
-        ax.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.22), ncol=2,
-                  frameon=False)
+        ax.legend(
+            fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.22), ncol=2, frameon=False
+        )
     fig.suptitle(f"{pair_name}: likelihood-ratio tests across trees", fontsize=10)
     return fig

@@ -46,16 +46,34 @@ SUMS = "SHA256SUMS"
 FORMAT_VERSION = 1
 # Config keys that name input files: (role, key path). A stage that adds a file
 # key adds it here, so the manifest hashes it and the archive packs it.
-INPUT_KEYS = (("trees", ("trees", "file")), ("traits", ("traits", "file")),
-              ("reference_tree", ("ancestral", "reference_tree")))
+INPUT_KEYS = (
+    ("trees", ("trees", "file")),
+    ("traits", ("traits", "file")),
+    ("reference_tree", ("ancestral", "reference_tree")),
+)
 # Distribution names of the software recorded in the manifest.
-PACKAGES = ("mkforest", "snakemake", "numpy", "scipy", "dendropy", "pandas",
-            "matplotlib", "numba", "pyyaml")
-KEYWORDS = ["phylogenetic comparative methods", "Mk model", "categorical traits",
-            "model selection", "phylogenetic uncertainty"]
+PACKAGES = (
+    "mkforest",
+    "snakemake",
+    "numpy",
+    "scipy",
+    "dendropy",
+    "pandas",
+    "matplotlib",
+    "numba",
+    "pyyaml",
+)
+KEYWORDS = [
+    "phylogenetic comparative methods",
+    "Mk model",
+    "categorical traits",
+    "model selection",
+    "phylogenetic uncertainty",
+]
 
 
 # --------------------------------------------------------------------------- checksums
+
 
 def sha256_file(path) -> str:
     h = hashlib.sha256()
@@ -80,10 +98,12 @@ def now_utc() -> str:
 
 # --------------------------------------------------------------------------- the manifest
 
+
 def input_keys(config: dict) -> tuple:
     """INPUT_KEYS plus one ('tree_set.<name>', key path) per tree set of ``tree_sets``."""
-    return INPUT_KEYS + tuple((f"tree_set.{n}", ("tree_sets", n, "file"))
-                              for n in (config.get("tree_sets") or {}))
+    return INPUT_KEYS + tuple(
+        (f"tree_set.{n}", ("tree_sets", n, "file")) for n in (config.get("tree_sets") or {})
+    )
 
 
 def input_files(config: dict) -> list:
@@ -113,16 +133,27 @@ def source_revision() -> dict:
     tracked files differ from it). Recorded so a result can be traced to the exact code."""
     import subprocess
 
-    out = {"version": software_versions().get("mkforest", "not installed"), "git_commit": None,
-           "uncommitted_changes": None}
+    out = {
+        "version": software_versions().get("mkforest", "not installed"),
+        "git_commit": None,
+        "uncommitted_changes": None,
+    }
     repo = Path(__file__).resolve().parents[2]
     if not (repo / ".git").exists():
         return out
     try:
-        head = subprocess.run(["git", "-C", str(repo), "rev-parse", "HEAD"], capture_output=True,
-                              text=True, timeout=20)
-        dirty = subprocess.run(["git", "-C", str(repo), "status", "--porcelain",
-                                "--untracked-files=no"], capture_output=True, text=True, timeout=20)
+        head = subprocess.run(
+            ["git", "-C", str(repo), "rev-parse", "HEAD"],
+            capture_output=True,
+            text=True,
+            timeout=20,
+        )
+        dirty = subprocess.run(
+            ["git", "-C", str(repo), "status", "--porcelain", "--untracked-files=no"],
+            capture_output=True,
+            text=True,
+            timeout=20,
+        )
     except (OSError, subprocess.SubprocessError):
         return out
     if head.returncode == 0:
@@ -147,9 +178,13 @@ def relative_command(command, directory) -> list:
 
 
 def platform_info() -> dict:
-    return {"system": platform.system(), "release": platform.release(),
-            "machine": platform.machine(), "platform": platform.platform(),
-            "python_implementation": platform.python_implementation()}
+    return {
+        "system": platform.system(),
+        "release": platform.release(),
+        "machine": platform.machine(),
+        "platform": platform.platform(),
+        "python_implementation": platform.python_implementation(),
+    }
 
 
 def _posix(path) -> str:
@@ -172,24 +207,31 @@ def build_manifest(config: dict, run_dir, outputs, inputs, trees_used, invocatio
     positions, per_set = _tree_positions(trees_used)
     sets = tree_sets(config)
     tcfg = next(iter(sets.values()))
-    trees_record = next(r for r in input_records
-                        if r["role"] == "trees" or r["role"].startswith("tree_set."))
+    trees_record = next(
+        r for r in input_records if r["role"] == "trees" or r["role"].startswith("tree_set.")
+    )
     return {
         "mkforest_manifest": FORMAT_VERSION,
         "run": config["run"],
         "run_folder": _posix(run_dir),
         "seed": config["seed"],
         "trees": {
-            "file": tcfg["file"], "sha256": trees_record["sha256"],
-            "burnin": tcfg["burnin"], "thin": tcfg["thin"], "sample": tcfg.get("sample"),
-            "root": tcfg.get("root"), "rooted": describe_rooting(tcfg.get("root")),
+            "file": tcfg["file"],
+            "sha256": trees_record["sha256"],
+            "burnin": tcfg["burnin"],
+            "thin": tcfg["thin"],
+            "sample": tcfg.get("sample"),
+            "root": tcfg.get("root"),
+            "rooted": describe_rooting(tcfg.get("root")),
             "n_used": len(positions),
             "positions": positions,
             "positions_are": "0-based positions of the trees used in the tree file, after "
-                             "burn-in, thinning and sampling (tables/trees_used.tsv)",
+            "burn-in, thinning and sampling (tables/trees_used.tsv)",
         },
-        "tree_sets": {name: {"file": spec["file"], "n_used": per_set.get(name, 0)}
-                      for name, spec in sets.items()},
+        "tree_sets": {
+            name: {"file": spec["file"], "n_used": per_set.get(name, 0)}
+            for name, spec in sets.items()
+        },
         "inputs": input_records,
         "outputs": records,
         "config": config,
@@ -246,6 +288,7 @@ def _check_manifest(data, source: str) -> dict:
 
 # --------------------------------------------------------------------------- checking
 
+
 @dataclass
 class Check:
     """What a verification found. Paths are as the user sees them."""
@@ -271,9 +314,15 @@ class Check:
         if self.ok:
             out.append(f"{self.checked} files checked: all match.")
         else:
-            bad = [f"{len(v)} {k}" for k, v in (("changed", self.changed),
-                                                 ("missing", self.missing),
-                                                 ("extra", self.extra)) if v]
+            bad = [
+                f"{len(v)} {k}"
+                for k, v in (
+                    ("changed", self.changed),
+                    ("missing", self.missing),
+                    ("extra", self.extra),
+                )
+                if v
+            ]
             out.append(f"{self.checked} files checked: {', '.join(bad)}.")
         return out
 
@@ -344,8 +393,10 @@ def parse_sums(text: str, source: str) -> dict:
             continue
         sha, sep, name = line.partition("  ")
         if not sep or len(sha) != 64 or any(c not in "0123456789abcdef" for c in sha):
-            raise InputError(f"{source}, line {n}: not a '<sha256>  <file>' line; the listing was "
-                             "edited or damaged.")
+            raise InputError(
+                f"{source}, line {n}: not a '<sha256>  <file>' line; the listing was "
+                "edited or damaged."
+            )
         out[name.removeprefix("*")] = sha
     return out
 
@@ -356,8 +407,11 @@ def _cross_check(check: Check, sums: dict, manifest: dict, run: str, label) -> N
         name = f"results/{run}/{rec['path']}"
         if name in sums and sums[name] != rec["sha256"]:
             check.changed.append(f"{label(name)} (differs from the manifest)")
-    packed = {PurePosixPath(n).parts[1] + "/" + PurePosixPath(n).name: sha
-              for n, sha in sums.items() if n.startswith("inputs/")}
+    packed = {
+        PurePosixPath(n).parts[1] + "/" + PurePosixPath(n).name: sha
+        for n, sha in sums.items()
+        if n.startswith("inputs/")
+    }
     for rec in manifest["inputs"]:
         key = f"{rec['role']}/{Path(rec['path']).name}"
         if key in packed and packed[key] != rec["sha256"]:
@@ -396,8 +450,10 @@ def verify_archive(path) -> Check:
         if listed.get(path.name) != sha256_file(path):
             check.changed.append(f"{path.name} (its checksum differs from {side.name})")
     else:
-        check.notes.append(f"no {side.name} beside the archive: the archive file itself is not "
-                           "checked, only its contents")
+        check.notes.append(
+            f"no {side.name} beside the archive: the archive file itself is not "
+            "checked, only its contents"
+        )
     try:
         tar = tarfile.open(path, "r:gz")
     except (tarfile.TarError, OSError, EOFError) as exc:
@@ -424,8 +480,9 @@ def verify_archive(path) -> Check:
             elif not m.isdir():
                 odd.append(m.name)
         if SUMS not in present:
-            raise InputError(f"'{path}' holds no {SUMS} in a top folder: it is not an "
-                             "mkforest archive.")
+            raise InputError(
+                f"'{path}' holds no {SUMS} in a top folder: it is not an mkforest archive."
+            )
         sums_text = tar.extractfile(f"{top}/{SUMS}").read().decode()
         sums = parse_sums(sums_text, f"{path}:{top}/{SUMS}")
         manifest = None
@@ -435,8 +492,9 @@ def verify_archive(path) -> Check:
                 try:
                     manifest = _check_manifest(json.loads(raw), f"{path}:{top}/{n}")
                 except (json.JSONDecodeError, UnicodeDecodeError, InputError) as exc:
-                    check.notes.append(f"manifest not readable, not compared with the "
-                                       f"listing: {exc}")
+                    check.notes.append(
+                        f"manifest not readable, not compared with the listing: {exc}"
+                    )
     del present[SUMS]
     _compare(check, sums, present, lambda n: f"{top}/{n}")
     check.extra += [f"{n} (not a regular file in the archive's folder)" for n in odd]
@@ -449,12 +507,15 @@ def verify(path, against=None) -> Check:
     """Check an archive (.tar.gz), an unpacked archive, or a run folder."""
     path = Path(path)
     if not path.exists():
-        raise InputError(f"'{path}' does not exist: give an archive (.tar.gz), an unpacked "
-                         "archive folder or a run folder (results/<run>).")
+        raise InputError(
+            f"'{path}' does not exist: give an archive (.tar.gz), an unpacked "
+            "archive folder or a run folder (results/<run>)."
+        )
     if path.is_file():
         if against:
-            raise InputError("--against compares a run folder with another run's manifest; "
-                             f"'{path}' is a file.")
+            raise InputError(
+                f"--against compares a run folder with another run's manifest; '{path}' is a file."
+            )
         return verify_archive(path)
     if against:
         return verify_run_folder(path, against)
@@ -462,11 +523,14 @@ def verify(path, against=None) -> Check:
         return verify_unpacked(path)
     if (path / MANIFEST).is_file():
         return verify_run_folder(path)
-    raise InputError(f"'{path}' holds neither {MANIFEST} (a run folder) nor {SUMS} (an unpacked "
-                     "mkforest archive). A run folder gets its manifest when the workflow finishes.")
+    raise InputError(
+        f"'{path}' holds neither {MANIFEST} (a run folder) nor {SUMS} (an unpacked "
+        "mkforest archive). A run folder gets its manifest when the workflow finishes."
+    )
 
 
 # --------------------------------------------------------------------------- the archive
+
 
 def parse_author(text: str) -> dict:
     """'Family, Given' or 'Given Family' as a CITATION.cff person."""
@@ -480,8 +544,9 @@ def parse_author(text: str) -> dict:
     return {"family-names": family, "given-names": given}
 
 
-def citation_cff(manifest: dict, methods: str, authors, title: str | None, date: str,
-                 identifiers) -> str:
+def citation_cff(
+    manifest: dict, methods: str, authors, title: str | None, date: str, identifiers
+) -> str:
     """CITATION.cff (format 1.2.0) for the archive of a run, as YAML text."""
     from .citations import cited_in
 
@@ -489,8 +554,9 @@ def citation_cff(manifest: dict, methods: str, authors, title: str | None, date:
     traits = manifest["config"]["traits"]["columns"]
     n = manifest["trees"]["n_used"]
     names = traits[0] if len(traits) == 1 else ", ".join(traits[:-1]) + " and " + traits[-1]
-    title = title or (f"mkforest run '{run}': Markov models of {names} over "
-                      f"{n} {'tree' if n == 1 else 'trees'}")
+    title = title or (
+        f"mkforest run '{run}': Markov models of {names} over {n} {'tree' if n == 1 else 'trees'}"
+    )
     sw = manifest["software"]
     doc = {
         "cff-version": "1.2.0",
@@ -499,20 +565,32 @@ def citation_cff(manifest: dict, methods: str, authors, title: str | None, date:
         "title": title,
         "authors": [parse_author(a) for a in authors],
         "date-released": date,
-        "abstract": (f"Results of the mkforest run '{run}': continuous-time Markov (Mk) models of "
-                     f"{len(traits)} categorical trait{'s' if len(traits) != 1 else ''} fitted on "
-                     f"each of {n} trees, with model support, rates, plots, a methods text, the "
-                     "inputs, the resolved configuration and a manifest of SHA-256 checksums."),
+        "abstract": (
+            f"Results of the mkforest run '{run}': continuous-time Markov (Mk) models of "
+            f"{len(traits)} categorical trait{'s' if len(traits) != 1 else ''} fitted on "
+            f"each of {n} trees, with model support, rates, plots, a methods text, the "
+            "inputs, the resolved configuration and a manifest of SHA-256 checksums."
+        ),
         "keywords": KEYWORDS,
-        "identifiers": [{"type": "other", "value": f"sha256:{sha}", "description": what}
-                        for sha, what in identifiers],
-        "references": [{"type": "software", "title": "mkforest",
-                        "authors": [{"name": "The mkforest developers"}],
-                        "version": sw.get("mkforest", "")},
-                       {"type": "software", "title": "Snakemake",
-                        "authors": [{"name": "The Snakemake developers"}],
-                        "version": sw.get("snakemake", "")}]
-                      + [r.cff() for r in cited_in(methods)],
+        "identifiers": [
+            {"type": "other", "value": f"sha256:{sha}", "description": what}
+            for sha, what in identifiers
+        ],
+        "references": [
+            {
+                "type": "software",
+                "title": "mkforest",
+                "authors": [{"name": "The mkforest developers"}],
+                "version": sw.get("mkforest", ""),
+            },
+            {
+                "type": "software",
+                "title": "Snakemake",
+                "authors": [{"name": "The Snakemake developers"}],
+                "version": sw.get("snakemake", ""),
+            },
+        ]
+        + [r.cff() for r in cited_in(methods)],
     }
     return yaml.safe_dump(doc, sort_keys=False, allow_unicode=True, width=100)
 
@@ -525,8 +603,10 @@ def _rerun_config(config: dict, packed_inputs: dict) -> str:
             for k in keys[:-1]:
                 node = node[k]
             node[keys[-1]] = packed_inputs[role]
-    head = ("# The resolved configuration of this run (defaults filled in), with its input\n"
-            "# files read from inputs/. See README.txt to run it again.\n")
+    head = (
+        "# The resolved configuration of this run (defaults filled in), with its input\n"
+        "# files read from inputs/. See README.txt to run it again.\n"
+    )
     return head + yaml.safe_dump(cfg, sort_keys=False, allow_unicode=True)
 
 
@@ -534,7 +614,7 @@ def _readme(manifest: dict, top: str) -> str:
     run = manifest["run"]
     inv = manifest.get("invocation", {})
     return f"""mkforest run '{run}'
-Finished {inv.get('finished', '?')} with mkforest {manifest['software'].get('mkforest', '?')}.
+Finished {inv.get("finished", "?")} with mkforest {manifest["software"].get("mkforest", "?")}.
 
 results/{run}/methods.md      methods and results text, written from this run's tables
 results/{run}/manifest.json   settings, software versions, trees used, SHA-256 of every file
@@ -572,19 +652,25 @@ def archive_run(run_dir, out_dir=None, authors=(), title=None, date=None) -> dic
     """
     run_dir = Path(run_dir)
     if not (run_dir / MANIFEST).is_file():
-        raise InputError(f"'{run_dir}' has no {MANIFEST}: give a finished run folder "
-                         "(results/<run>); the workflow writes the manifest last.")
+        raise InputError(
+            f"'{run_dir}' has no {MANIFEST}: give a finished run folder "
+            "(results/<run>); the workflow writes the manifest last."
+        )
     if not authors:
-        raise InputError("name at least one author for CITATION.cff with --author "
-                         "'Family, Given' (repeat it for several authors).")
+        raise InputError(
+            "name at least one author for CITATION.cff with --author "
+            "'Family, Given' (repeat it for several authors)."
+        )
     for a in authors:
-        parse_author(a)          # a badly written name stops here, before any work
+        parse_author(a)  # a badly written name stops here, before any work
     check = verify_run_folder(run_dir)
     if check.changed or check.missing:
         first = (check.changed + check.missing)[0]
-        raise InputError(f"cannot archive '{run_dir}': {len(check.changed)} file(s) changed and "
-                         f"{len(check.missing)} missing since the run (first: {first}). Run the "
-                         "workflow again so the manifest describes the results, then archive.")
+        raise InputError(
+            f"cannot archive '{run_dir}': {len(check.changed)} file(s) changed and "
+            f"{len(check.missing)} missing since the run (first: {first}). Run the "
+            "workflow again so the manifest describes the results, then archive."
+        )
     manifest = load_manifest(run_dir / MANIFEST)
     run = manifest["run"]
     top = f"{run}-archive"
@@ -611,13 +697,17 @@ def archive_run(run_dir, out_dir=None, authors=(), title=None, date=None) -> dic
     methods_path = run_dir / "methods.md"
     methods = methods_path.read_text() if methods_path.is_file() else ""
     manifest_sha = sha256_file(run_dir / MANIFEST)
-    manifest_id = (manifest_sha, f"SHA-256 of results/{run}/{MANIFEST}, which lists the "
-                                 "checksum of every input and result file of the run")
+    manifest_id = (
+        manifest_sha,
+        f"SHA-256 of results/{run}/{MANIFEST}, which lists the "
+        "checksum of every input and result file of the run",
+    )
     generated = {
         "config.yaml": _rerun_config(manifest["config"], packed_inputs).encode(),
         "README.txt": _readme(manifest, top).encode(),
-        "CITATION.cff": citation_cff(manifest, methods, authors, title, date,
-                                     [manifest_id]).encode(),
+        "CITATION.cff": citation_cff(
+            manifest, methods, authors, title, date, [manifest_id]
+        ).encode(),
     }
     sums = {name: sha256_file(src) for name, src in files}
     sums.update({name: sha256_bytes(data) for name, data in generated.items()})
@@ -641,9 +731,21 @@ def archive_run(run_dir, out_dir=None, authors=(), title=None, date=None) -> dic
     sha_path = archive.with_name(archive.name + ".sha256")
     sha_path.write_text(f"{archive_sha}  {archive.name}\n")
     cff_path = out_dir / "CITATION.cff"
-    cff_path.write_text(citation_cff(
-        manifest, methods, authors, title, date,
-        [(archive_sha, f"SHA-256 of {archive.name}"), manifest_id]))
-    return {"archive": archive, "sha256": archive_sha, "sha256_file": sha_path,
-            "citation": cff_path, "n_files": len(files) + len(generated),
-            "not_packed": check.extra}
+    cff_path.write_text(
+        citation_cff(
+            manifest,
+            methods,
+            authors,
+            title,
+            date,
+            [(archive_sha, f"SHA-256 of {archive.name}"), manifest_id],
+        )
+    )
+    return {
+        "archive": archive,
+        "sha256": archive_sha,
+        "sha256_file": sha_path,
+        "citation": cff_path,
+        "n_files": len(files) + len(generated),
+        "not_packed": check.extra,
+    }

@@ -30,8 +30,8 @@ MARKERS = ["o", "s", "D", "^", "v", "P", "X", "*"]
 ORDERED_MAP = "cividis"
 AVERAGE_COLOUR = "#000000"
 BOUND_COLOUR = "#555555"
-BACKGROUND = "background"   # gid of guides (grid lines, shaded columns) that text may sit on
-PRECISION = 0.001          # rates below it are written "< 0.001"
+BACKGROUND = "background"  # gid of guides (grid lines, shaded columns) that text may sit on
+PRECISION = 0.001  # rates below it are written "< 0.001"
 
 
 def categorical(n: int) -> list:
@@ -76,12 +76,19 @@ def text_colour_on(colour) -> str:
     return "black" if 0.2126 * r + 0.7152 * g + 0.0722 * b > 0.45 else "white"
 
 
-
 # --------------------------------------------------------------------------- shapes
 
-def box_and_points(ax, values: list, labels: list, box_colour: str = "#cfe8f7",
-                   point_colour: str = CATEGORICAL[0], size: float = 2.5,
-                   jitter: float = 0.25, seed: int = 0) -> None:
+
+def box_and_points(
+    ax,
+    values: list,
+    labels: list,
+    box_colour: str = "#cfe8f7",
+    point_colour: str = CATEGORICAL[0],
+    size: float = 2.5,
+    jitter: float = 0.25,
+    seed: int = 0,
+) -> None:
     """Horizontal rows, the first at the top: a box per row (quartiles, whiskers to
     1.5 IQR, no outlier marks) and every value as a point, jittered across the row
     with a fixed seed (the same figure every run). An empty row stays empty."""
@@ -89,33 +96,52 @@ def box_and_points(ax, values: list, labels: list, box_colour: str = "#cfe8f7",
     pos = np.arange(len(rows))
     full = [i for i, v in enumerate(rows) if len(v)]
     if full:
-        ax.boxplot([rows[i] for i in full], positions=pos[full], orientation="horizontal",
-                   widths=0.6, showfliers=False, patch_artist=True,
-                   boxprops={"facecolor": box_colour, "edgecolor": "#444444", "linewidth": 0.8},
-                   medianprops={"color": "#444444", "linewidth": 0.8},
-                   whiskerprops={"color": "#444444", "linewidth": 0.8},
-                   capprops={"color": "#444444", "linewidth": 0.8})
+        ax.boxplot(
+            [rows[i] for i in full],
+            positions=pos[full],
+            orientation="horizontal",
+            widths=0.6,
+            showfliers=False,
+            patch_artist=True,
+            boxprops={"facecolor": box_colour, "edgecolor": "#444444", "linewidth": 0.8},
+            medianprops={"color": "#444444", "linewidth": 0.8},
+            whiskerprops={"color": "#444444", "linewidth": 0.8},
+            capprops={"color": "#444444", "linewidth": 0.8},
+        )
     rng = np.random.default_rng(seed)
     for i in full:
         y = i + rng.uniform(-jitter / 2, jitter / 2, len(rows[i]))
-        ax.scatter(rows[i], y, s=size ** 2, color=point_colour, alpha=0.6, linewidths=0,
-                   zorder=3)
+        ax.scatter(rows[i], y, s=size**2, color=point_colour, alpha=0.6, linewidths=0, zorder=3)
     ax.set_yticks(pos, labels)
     ax.set_ylim(len(rows) - 0.5, -0.5)
 
 
-def annotated_grid(ax, table: pd.DataFrame, cmap: str, vmin: float, vmax: float, label: str,
-                   fontsize: float = 7.5):
+def annotated_grid(
+    ax, table: pd.DataFrame, cmap: str, vmin: float, vmax: float, label: str, fontsize: float = 7.5
+):
     """A colour grid of a table (rows top to bottom, NaN cells blank) with each value
     written in its cell to two decimals, and a colour bar labelled ``label``."""
     data = table.to_numpy(dtype=float)
-    image = ax.imshow(np.ma.masked_invalid(data), cmap=cmap, vmin=vmin, vmax=vmax,
-                      aspect="auto", interpolation="nearest")
+    image = ax.imshow(
+        np.ma.masked_invalid(data),
+        cmap=cmap,
+        vmin=vmin,
+        vmax=vmax,
+        aspect="auto",
+        interpolation="nearest",
+    )
     scale = colormaps[cmap]
     for (r, c), x in np.ndenumerate(data):
         if np.isfinite(x):
-            ax.text(c, r, f"{x:.2f}", ha="center", va="center", fontsize=fontsize,
-                    color=text_colour_on(scale((x - vmin) / (vmax - vmin))))
+            ax.text(
+                c,
+                r,
+                f"{x:.2f}",
+                ha="center",
+                va="center",
+                fontsize=fontsize,
+                color=text_colour_on(scale((x - vmin) / (vmax - vmin))),
+            )
     ax.set_xticks(range(data.shape[1]), [str(c) for c in table.columns])
     ax.set_yticks(range(data.shape[0]), [str(i) for i in table.index])
     ax.set_xticks(np.arange(data.shape[1] + 1) - 0.5, minor=True)
@@ -126,7 +152,9 @@ def annotated_grid(ax, table: pd.DataFrame, cmap: str, vmin: float, vmax: float,
         spine.set_visible(False)
     ax.figure.colorbar(image, ax=ax, label=label)
 
+
 # --------------------------------------------------------------------------- numbers
+
 
 def rate_text(x, precision: float = PRECISION) -> str:
     """A rate as written in figures: three significant digits, never an exponent;
@@ -159,8 +187,11 @@ def log_ticks(lo: float, hi: float) -> list:
     powers of ten when the range spans more than three decades."""
     decades = np.log10(hi) - np.log10(lo)
     subs = (1,) if decades > 3 else (1, 2, 5) if decades > 1 else (1, 1.5, 2, 3, 5, 7)
-    out = [s * 10.0 ** e for e in range(int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi))) + 1)
-           for s in subs]
+    out = [
+        s * 10.0**e
+        for e in range(int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi))) + 1)
+        for s in subs
+    ]
     return [x for x in out if lo <= x <= hi]
 
 
@@ -168,16 +199,22 @@ def plain_log_axis(ax, axis: str = "x") -> None:
     """Log axis with ticks at 1, 2, 5 times powers of ten (at 1 only when the range
     spans more than three decades), written as plain numbers."""
     target = ax.xaxis if axis == "x" else ax.yaxis
-    lo, hi = (ax.get_xlim() if axis == "x" else ax.get_ylim())
+    lo, hi = ax.get_xlim() if axis == "x" else ax.get_ylim()
     decades = np.log10(max(hi, 1e-300)) - np.log10(max(lo, 1e-300))
-    subs = (1.0,) if decades > 3 else (1.0, 2.0, 5.0) if decades > 1.2 else \
-        (1.0, 1.5, 2.0, 3.0, 5.0, 7.0)
+    subs = (
+        (1.0,)
+        if decades > 3
+        else (1.0, 2.0, 5.0)
+        if decades > 1.2
+        else (1.0, 1.5, 2.0, 3.0, 5.0, 7.0)
+    )
     target.set_major_locator(LogLocator(base=10, subs=subs))
     target.set_major_formatter(FuncFormatter(lambda v, _: plain_number(v)))
     target.set_minor_formatter(NullFormatter())
 
 
 # --------------------------------------------------------------------------- names of changes
+
 
 def change_label(from_state: str, to_state: str, pair_traits=None) -> str:
     """'a → b'; for a trait pair, the one trait that changes and the other's state:
@@ -199,6 +236,7 @@ def is_double_change(from_state: str, to_state: str) -> bool:
 
 
 # --------------------------------------------------------------------------- rates at bounds
+
 
 def rate_intervals(rates: pd.DataFrame, keys=("analysis", "model", "from_state", "to_state")):
     """Per key: median and central 95% interval across trees of the rates NOT at an
@@ -260,10 +298,10 @@ def ordered_changes(keys, pair_traits=None, states=None) -> list:
     pair = bool(pair_traits) and all("+" in str(a) and "+" in str(b) for a, b in keys)
     rank = {}
     for s in states or []:
-        for part in (str(s).split("+", 1) if pair else [str(s)]):
+        for part in str(s).split("+", 1) if pair else [str(s)]:
             rank.setdefault(part, len(rank))
     for a, b in keys:
-        for part in ((*str(a).split("+", 1), *str(b).split("+", 1)) if pair else (str(a), str(b))):
+        for part in (*str(a).split("+", 1), *str(b).split("+", 1)) if pair else (str(a), str(b)):
             rank.setdefault(part, len(rank))
 
     def order(key):
@@ -273,6 +311,7 @@ def ordered_changes(keys, pair_traits=None, states=None) -> list:
         if a2 == b2:
             return (0, rank[a1], rank[b1], rank[a2])
         return (1, rank[a2], rank[b2], rank[a1])
+
     return sorted(keys, key=order)
 
 
@@ -281,7 +320,7 @@ def ordered_changes(keys, pair_traits=None, states=None) -> list:
 # SVG element ids from a fixed salt, and no date in the files: a rerun writes the
 # same bytes, so the checksums in manifest.json repeat.
 matplotlib.rcParams["svg.hashsalt"] = "mkforest"
-matplotlib.rcParams["svg.fonttype"] = "none"     # text stays text in SVG: smaller, editable
+matplotlib.rcParams["svg.fonttype"] = "none"  # text stays text in SVG: smaller, editable
 
 
 def save(fig, paths, dpi: int = 100) -> None:
@@ -290,8 +329,12 @@ def save(fig, paths, dpi: int = 100) -> None:
     and the files shrink about threefold (the report carries every figure)."""
     for p in paths:
         svg = str(p).endswith(".svg")
-        fig.savefig(p, dpi=None if svg else dpi, bbox_inches="tight",
-                    metadata={"Date": None} if svg else None)
+        fig.savefig(
+            p,
+            dpi=None if svg else dpi,
+            bbox_inches="tight",
+            metadata={"Date": None} if svg else None,
+        )
         if str(p).endswith(".png"):
             with Image.open(p) as img:
                 flat = img.convert("RGB").quantize(colors=256, dither=Image.Dither.NONE)

@@ -23,16 +23,28 @@ def hypothesis_words(name: str, kind: str, first: str, second: str) -> str:
 def allowed_changes(model) -> list:
     """(i, j) of every change the model allows (free, or fixed above zero)."""
     k = len(model.states)
-    return [(i, j) for i in range(k) for j in range(k) if i != j and (
-        model.rate_index[i, j] >= 0 or (model.rate_index[i, j] == FIXED and model.fixed[i, j] > 0))]
+    return [
+        (i, j)
+        for i in range(k)
+        for j in range(k)
+        if i != j
+        and (
+            model.rate_index[i, j] >= 0
+            or (model.rate_index[i, j] == FIXED and model.fixed[i, j] > 0)
+        )
+    ]
 
 
 def is_stepwise(model) -> bool:
     """Changes only between neighbours in the state order, every step allowed."""
     k = len(model.states)
     allowed = allowed_changes(model)
-    return (k >= 3 and bool(allowed) and all(abs(i - j) == 1 for i, j in allowed)
-            and {min(i, j) for i, j in allowed} == set(range(k - 1)))
+    return (
+        k >= 3
+        and bool(allowed)
+        and all(abs(i - j) == 1 for i, j in allowed)
+        and {min(i, j) for i, j in allowed} == set(range(k - 1))
+    )
 
 
 def model_words(model) -> str:
@@ -58,5 +70,6 @@ def _structure_words(model) -> str:
     one_way = [(i, j) for i, j in allowed if (j, i) not in allowed]
     if allowed and len(one_way) == len(allowed):
         return "one-way only: " + ", ".join(
-            f"{model.states[i]} → {model.states[j]}" for i, j in allowed)
+            f"{model.states[i]} → {model.states[j]}" for i, j in allowed
+        )
     return "only the changes listed"

@@ -35,14 +35,14 @@ rule aggregate_fits:
             caption="../report/tree_set_support.rst",
             category="Tables",
         ),
+    log:
+        f"{OUT}/logs/aggregate_fits.log",
+    conda:
+        ENV
     params:
         criterion=config["criterion"],
         tree_sets=list(TREE_SETS),
         analyses=ANALYSES,
         model_order=[m for models in ANALYSES.values() for m in models],
-    log:
-        f"{OUT}/logs/aggregate_fits.log",
-    conda:
-        ENV
     script:
         "../../scripts/aggregate_fits.py"

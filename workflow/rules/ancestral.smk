@@ -3,6 +3,7 @@
 # summary job and one plot job: the job count grows with trees / per_job, never
 # with the number of trees itself.
 
+
 include: "ancestral_inputs.smk"
 
 
@@ -17,14 +18,14 @@ rule ancestral_clades:
             category="Ancestral states",
         ),
         tree=f"{OUT}/ancestral/summary_tree.nwk",
-    params:
-        clades=ANC["clades"],
-        reference=ANC["reference_tree"],
-        summary=ANC["summary_tree"],
     log:
         f"{OUT}/logs/ancestral_clades.log",
     conda:
         ENV
+    params:
+        clades=ANC["clades"],
+        reference=ANC["reference_tree"],
+        summary=ANC["summary_tree"],
     script:
         "../../scripts/ancestral_clades.py"
 
@@ -38,15 +39,15 @@ rule ancestral_chunk:
         rates=ancestral_chunk_inputs("rates"),
     output:
         f"{OUT}/ancestral/{{analysis}}/chunk_{{chunk}}.npz",
-    params:
-        job=ancestral_params,
-    resources:
-        runtime=ancestral_runtime,
-        mem_mb=1000,
     log:
         f"{OUT}/logs/ancestral/{{analysis}}/chunk_{{chunk}}.log",
     conda:
         ENV
+    resources:
+        runtime=ancestral_runtime,
+        mem_mb=1000,
+    params:
+        job=ancestral_params,
     script:
         "../../scripts/ancestral_chunk.py"
 
@@ -74,12 +75,12 @@ rule ancestral_summary:
             caption="../report/ancestral_classes.rst",
             category="Ancestral states",
         ),
-    params:
-        analyses=list(ANALYSES),
     log:
         f"{OUT}/logs/ancestral_summary.log",
     conda:
         ENV
+    params:
+        analyses=list(ANALYSES),
     script:
         "../../scripts/ancestral_summary.py"
 
@@ -94,7 +95,9 @@ rule plot_ancestral:
         traits=f"{OUT}/prepared/traits.json",
     output:
         trees=[
-            figure(p, caption="../report/ancestral_tree.rst", category="Ancestral states")
+            figure(
+                p, caption="../report/ancestral_tree.rst", category="Ancestral states"
+            )
             for p in ANCESTRAL_TREE_PLOTS
         ],
         class_trees=[
@@ -111,6 +114,10 @@ rule plot_ancestral:
             caption="../report/changes.rst",
             category="Ancestral states",
         ),
+    log:
+        f"{OUT}/logs/plot_ancestral.log",
+    conda:
+        ENV
     params:
         analyses=list(ANALYSES),
         hidden=HIDDEN_CLASS_MODELS,
@@ -121,10 +128,6 @@ rule plot_ancestral:
                 "pairs": config["pairs"],
             }
         ),
-    log:
-        f"{OUT}/logs/plot_ancestral.log",
-    conda:
-        ENV
     script:
         "../../scripts/plot_ancestral.py"
 

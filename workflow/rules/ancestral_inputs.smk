@@ -22,13 +22,19 @@ def ancestral_chunk_files(wildcards):
 
 def prepared_tree_chunks(wildcards):
     """The first tree set's chunks: its summary tree gives the clades every set reports."""
-    return [f"{OUT}/prepared/trees/chunk_{c}.npz" for c in chunk_ids(first_set_only=True)]
+    return [
+        f"{OUT}/prepared/trees/chunk_{c}.npz" for c in chunk_ids(first_set_only=True)
+    ]
 
 
 def ancestral_params(wildcards):
     """Only this analysis's slice of the config (see fit_params)."""
-    return stable({"analysis": wildcards.analysis,
-                   "config": ancestral_job_config(config, wildcards.analysis)})
+    return stable(
+        {
+            "analysis": wildcards.analysis,
+            "config": ancestral_job_config(config, wildcards.analysis),
+        }
+    )
 
 
 def ancestral_runtime(wildcards, attempt):
@@ -54,15 +60,19 @@ CLASS_TREE_PLOTS = [
 def ancestral_targets(wildcards):
     if not ANC["enabled"]:
         return []
-    return [
-        f"{OUT}/tables/ancestral_states.tsv",
-        f"{OUT}/tables/transitions.tsv",
-        f"{OUT}/tables/state_times.tsv",
-        f"{OUT}/tables/clades.tsv",
-        f"{OUT}/tables/ancestral_classes.tsv",
-        f"{OUT}/plots/changes.png",
-        f"{OUT}/plots/changes.svg",
-    ] + ANCESTRAL_TREE_PLOTS + CLASS_TREE_PLOTS
+    return (
+        [
+            f"{OUT}/tables/ancestral_states.tsv",
+            f"{OUT}/tables/transitions.tsv",
+            f"{OUT}/tables/state_times.tsv",
+            f"{OUT}/tables/clades.tsv",
+            f"{OUT}/tables/ancestral_classes.tsv",
+            f"{OUT}/plots/changes.png",
+            f"{OUT}/plots/changes.svg",
+        ]
+        + ANCESTRAL_TREE_PLOTS
+        + CLASS_TREE_PLOTS
+    )
 
 
 TARGET_FUNCTIONS.append(ancestral_targets)

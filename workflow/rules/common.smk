@@ -21,8 +21,11 @@ from mkforest.jobs.scripting import cancel_scheduler_timers
 # the table exists) before any job runs. Every mistake is reported at once, one
 # sentence per line, and the run stops with status 2 without the workflow
 # engine's traceback or wrapper text around our sentences.
-_CONFIG_SOURCE = (f"config file '{workflow.config_settings.configfiles[-1]}'"
-                  if workflow.config_settings.configfiles else "config")
+_CONFIG_SOURCE = (
+    f"config file '{workflow.config_settings.configfiles[-1]}'"
+    if workflow.config_settings.configfiles
+    else "config"
+)
 try:
     config = check_config(config, _CONFIG_SOURCE)
 except InputError as exc:
@@ -117,7 +120,9 @@ onstart:
         size = dict(workflow.group_settings.group_components).get("fit", 1)
         asked = group_request(size, workflow._cores, FIT_MEM_MB, _default_mem_mb())
         nodes = query_nodes()
-        problem = request_problem(*asked, nodes, size, workflow._cores) if nodes else None
+        problem = (
+            request_problem(*asked, nodes, size, workflow._cores) if nodes else None
+        )
         if problem:
             raise WorkflowError(problem)
 
@@ -132,7 +137,9 @@ def tree_layout():
 def trees_per_job():
     """Trees per chunk: the largest per_job of the tree sets, or what prepare_trees chose
     for 'auto' (the first set's)."""
-    given = [s["per_job"] for s in TREE_SETS.values() if s.get("per_job", "auto") != "auto"]
+    given = [
+        s["per_job"] for s in TREE_SETS.values() if s.get("per_job", "auto") != "auto"
+    ]
     if len(given) == len(TREE_SETS):
         return max(given)
     return max(given + [tree_layout()["per_job"]])
@@ -140,7 +147,8 @@ def trees_per_job():
 
 def fit_runtime(wildcards, attempt):
     """Minutes for one fit job: 0.5 s per tree at 200 tips (measured: 3-60 ms per fit
-    with adaptive starts, benchmarks/bench_reference.py; pairs cost more), plus 2 min."""
+    with adaptive starts, benchmarks/bench_reference.py; pairs cost more), plus 2 min.
+    """
     per_tree = 0.5 * max(1.0, tree_layout()["tips"] / 200)
     return 2 + attempt * math.ceil(trees_per_job() * per_tree / 60)
 
@@ -166,14 +174,19 @@ TARGET_FUNCTIONS = []
 
 def all_targets(wildcards):
     extra = [f for fn in TARGET_FUNCTIONS for f in fn(wildcards)]
-    return extra + [
-        f"{OUT}/tables/fits.tsv",
-        f"{OUT}/tables/rates.tsv",
-        f"{OUT}/tables/model_support.tsv",
-        f"{OUT}/tables/rate_summary.tsv",
-        f"{OUT}/tables/data_check.tsv",
-        f"{OUT}/tables/treatment_support.tsv",
-        f"{OUT}/tables/branch_tests.tsv",
-        f"{OUT}/tables/branch_test_summary.tsv",
-        f"{OUT}/tables/tree_set_support.tsv",
-    ] + BRANCH_PLOTS + [f"{OUT}/plots/{p}.{ext}" for p in PLOTS for ext in ("png", "svg")]
+    return (
+        extra
+        + [
+            f"{OUT}/tables/fits.tsv",
+            f"{OUT}/tables/rates.tsv",
+            f"{OUT}/tables/model_support.tsv",
+            f"{OUT}/tables/rate_summary.tsv",
+            f"{OUT}/tables/data_check.tsv",
+            f"{OUT}/tables/treatment_support.tsv",
+            f"{OUT}/tables/branch_tests.tsv",
+            f"{OUT}/tables/branch_test_summary.tsv",
+            f"{OUT}/tables/tree_set_support.tsv",
+        ]
+        + BRANCH_PLOTS
+        + [f"{OUT}/plots/{p}.{ext}" for p in PLOTS for ext in ("png", "svg")]
+    )

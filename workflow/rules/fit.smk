@@ -8,18 +8,18 @@ rule fit:
     output:
         fits=f"{OUT}/fits/{{analysis}}/{{model}}/chunk_{{chunk}}.fits.tsv",
         rates=f"{OUT}/fits/{{analysis}}/{{model}}/chunk_{{chunk}}.rates.tsv",
-    params:
-        job=fit_params,
-    resources:
-        runtime=fit_runtime,
-        mem_mb=FIT_MEM_MB,
+    log:
+        f"{OUT}/logs/fit/{{analysis}}/{{model}}/chunk_{{chunk}}.log",
     # costliest fits first (mkforest.data.config.fit_job_weight): same results, less idle time
     priority: lambda wildcards: fit_job_weight(config, wildcards.analysis, wildcards.model)
     group:
         "fit"
-    log:
-        f"{OUT}/logs/fit/{{analysis}}/{{model}}/chunk_{{chunk}}.log",
     conda:
         ENV
+    resources:
+        runtime=fit_runtime,
+        mem_mb=FIT_MEM_MB,
+    params:
+        job=fit_params,
     script:
         "../../scripts/fit_chunk.py"

@@ -4,6 +4,7 @@
 # with bootstrap > 0), one summary job and one plot job per pair. The job count
 # grows with trees / per_job, never with the number of trees itself.
 
+
 include: "pairs_inputs.smk"
 
 
@@ -16,15 +17,15 @@ rule pair_bootstrap:
         rates=pair_chunk_fits("rates"),
     output:
         f"{OUT}/pairs/{{pair}}/bootstrap/chunk_{{chunk}}.tsv",
-    params:
-        job=pair_params,
-    resources:
-        runtime=pair_bootstrap_runtime,
-        mem_mb=1000,
     log:
         f"{OUT}/logs/pairs/{{pair}}/bootstrap_chunk_{{chunk}}.log",
     conda:
         ENV
+    resources:
+        runtime=pair_bootstrap_runtime,
+        mem_mb=1000,
+    params:
+        job=pair_params,
     script:
         "../../scripts/pair_bootstrap.py"
 
@@ -42,12 +43,12 @@ rule pair_summary:
             category="Trait pairs",
         ),
         bootstrap=f"{OUT}/tables/pair_bootstrap.tsv",
-    params:
-        config=stable(config),
     log:
         f"{OUT}/logs/pairs/pair_summary.log",
     conda:
         ENV
+    params:
+        config=stable(config),
     script:
         "../../scripts/pair_summary.py"
 
@@ -71,11 +72,11 @@ rule plot_pair:
             for kind in PAIR_PLOTS
             for ext in ("png", "svg")
         },
-    params:
-        job=pair_params,
     log:
         f"{OUT}/logs/pairs/{{pair}}/plot.log",
     conda:
         ENV
+    params:
+        job=pair_params,
     script:
         "../../scripts/plot_pair.py"

@@ -31,8 +31,11 @@ def pair_chunk_fits(kind):
 def pair_params(wildcards):
     """Only what a pair job reads, so that editing other parts of the config does
     not rerun a costly bootstrap."""
-    job = {"pairs": {wildcards.pair: PAIRS[wildcards.pair]}, "fitting": config["fitting"],
-           "seed": config["seed"]}
+    job = {
+        "pairs": {wildcards.pair: PAIRS[wildcards.pair]},
+        "fitting": config["fitting"],
+        "seed": config["seed"],
+    }
     return {"pair": wildcards.pair, "config": stable(job)}
 
 
@@ -42,7 +45,9 @@ def pair_bootstrap_runtime(wildcards, attempt):
     with a wide margin."""
     spec = PAIRS[wildcards.pair]
     per_chunk = min(spec["bootstrap_trees"], trees_per_job())
-    n_tests = max(1, len(ANALYSES[wildcards.pair]) * (len(ANALYSES[wildcards.pair]) - 1) // 2)
+    n_tests = max(
+        1, len(ANALYSES[wildcards.pair]) * (len(ANALYSES[wildcards.pair]) - 1) // 2
+    )
     return 10 + attempt * int(per_chunk * n_tests * spec["bootstrap"] * 0.5 / 60)
 
 
@@ -55,8 +60,12 @@ def pair_targets(wildcards):
     return [
         f"{OUT}/tables/pair_tests.tsv",
         f"{OUT}/tables/pair_summary.tsv",
-    ] + [f"{OUT}/plots/pairs/{p}.{kind}.{ext}" for p in PAIRS for kind in PAIR_PLOTS
-         for ext in ("png", "svg")]
+    ] + [
+        f"{OUT}/plots/pairs/{p}.{kind}.{ext}"
+        for p in PAIRS
+        for kind in PAIR_PLOTS
+        for ext in ("png", "svg")
+    ]
 
 
 TARGET_FUNCTIONS.append(pair_targets)

@@ -17,13 +17,13 @@ rule plot_support:
             for p in PLOTS
             for ext in ("png", "svg")
         },
-    params:
-        criterion=config["criterion"],
-        pairs={name: spec["traits"] for name, spec in config.get("pairs", {}).items()},
     log:
         f"{OUT}/logs/plot_support.log",
     conda:
         ENV
+    params:
+        criterion=config["criterion"],
+        pairs={name: spec["traits"] for name, spec in config.get("pairs", {}).items()},
     script:
         "../../scripts/plot_support.py"
 
@@ -38,11 +38,11 @@ rule plot_branches:
             category="Plots",
         ),
         svg=f"{OUT}/plots/support_branches.svg",  # for print; the report shows the PNG
-    params:
-        criterion=config["criterion"],
     log:
         f"{OUT}/logs/plot_branches.log",
     conda:
         ENV
+    params:
+        criterion=config["criterion"],
     script:
         "../../scripts/plot_branches.py"

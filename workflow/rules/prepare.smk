@@ -11,17 +11,17 @@ checkpoint prepare_trees:
             caption="../report/trees_used.rst",
             category="Data",
         ),
-    params:
-        tree_sets=stable(TREE_SETS),
-        seed=config["seed"],
-    resources:
-        # read by trees.per_job: auto (resources are no rerun trigger, params are)
-        fit_slots=FIT_SLOTS,
-        fits_per_tree=sum(len(models) for models in ANALYSES.values()),
     log:
         f"{OUT}/logs/prepare_trees.log",
     conda:
         ENV
+    resources:
+        # read by trees.per_job: auto (resources are no rerun trigger, params are)
+        fit_slots=FIT_SLOTS,
+        fits_per_tree=sum(len(models) for models in ANALYSES.values()),
+    params:
+        tree_sets=stable(TREE_SETS),
+        seed=config["seed"],
     script:
         "../../scripts/prepare_trees.py"
 
@@ -37,12 +37,12 @@ rule prepare_traits:
             caption="../report/data_check.rst",
             category="Data",
         ),
-    params:
-        traits=stable(config["traits"]),
     log:
         f"{OUT}/logs/prepare_traits.log",
     conda:
         ENV
+    params:
+        traits=stable(config["traits"]),
     script:
         "../../scripts/prepare_traits.py"
 

@@ -16,13 +16,13 @@ rule methods:
         tables=final_tables,
     output:
         report(f"{OUT}/methods.md", caption="../report/methods.rst", category="Methods"),
-    params:
-        config=stable(config),
-        analyses=list(ANALYSES),
     log:
         f"{OUT}/logs/methods.log",
     conda:
         ENV
+    params:
+        config=stable(config),
+        analyses=list(ANALYSES),
     script:
         "../../scripts/write_methods.py"
 
@@ -34,17 +34,21 @@ rule manifest:
         inputs=[path for _, path in input_files(config)],
         configfiles=CONFIG_FILES,
     output:
-        report(f"{OUT}/manifest.json", caption="../report/manifest.rst", category="Provenance"),
+        report(
+            f"{OUT}/manifest.json",
+            caption="../report/manifest.rst",
+            category="Provenance",
+        ),
+    log:
+        f"{OUT}/logs/manifest.log",
+    conda:
+        ENV
     params:
         config=stable(config),
         run_folder=lambda wildcards, output: os.path.dirname(output[0]),
         inputs=input_files(config),
         configfiles=CONFIG_FILES,
         invocation=INVOCATION,
-    log:
-        f"{OUT}/logs/manifest.log",
-    conda:
-        ENV
     script:
         "../../scripts/write_manifest.py"
 

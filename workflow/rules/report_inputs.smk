@@ -42,7 +42,8 @@ def run_results(wildcards):
         outs = [str(f) for f in r.output if not is_flagged(f, "directory")]
         if wanted.intersection(outs):
             siblings.update(
-                o for o in outs
+                o
+                for o in outs
                 if o.startswith((f"{OUT}/tables/", f"{OUT}/plots/")) and "{" not in o
             )
     return targets + sorted(siblings - wanted)

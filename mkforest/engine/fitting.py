@@ -28,7 +28,6 @@ from scipy.special import chdtri
 from .branches import (
     _DPHI,
     _PHI,
-    NULL_VALUE,
     Transform,
     Treatment,
     _transform,
@@ -267,13 +266,6 @@ def starting_points(
 # It was 1e-2 relative to ln L: on a 400-tip tree (ln L -273) that stopped 12 log-units
 # short of the given lengths' optimum, and the joint descent then ended 0.3 below it.
 RATES_FIRST_DROP = 1e-2
-# The optimiser's unit of each branch value (w = 1 moves x by this much): a unit step
-# should change ln L about as much as a unit step of a log-rate. Chosen by measurement
-# (benchmarks/bench_treatment_fits.py: objective evaluations per fit on two sets of
-# simulated data): lambda's ln L is steep near 1 (tip branches are short next to
-# their parents' depths), a H and ln delta are flat. (early_burst: 2 with the rates held
-# to the geometric mean branch length, ``branches.HELD``; it was 3 with the total.)
-BRANCH_SCALE = {"kappa": 1.0, "lambda": 0.2, "delta": 2.0, "early_burst": 2.0}
 
 
 class _TreatmentSpace:
@@ -282,19 +274,19 @@ class _TreatmentSpace:
 
     T and T' are a length of the given and of the transformed tree (the total of
     every branch; for delta the tip branches' total, for early_burst the geometric
-    mean branch length: ``branches.HELD``): moving the branch parameter then keeps
+    mean branch length: the registry's ``held``): moving the branch parameter then keeps
     the expected number of changes about the same, so the two are nearly
     uncorrelated (the rates alone would move with the tree's total length). s is
-    the branch value's unit (``BRANCH_SCALE``); w = 0 is the null value and the
+    the branch value's unit (the registry's ``step``); w = 0 is the null value and the
     bounds of w map back onto the bounds of x exactly."""
 
     def __init__(self, tree, tip_partials, model, root, treatment):
         self.tree, self.tip_partials, self.model, self.root = tree, tip_partials, model, root
         self.treatment = treatment
         self.p = model.n_params
-        self.null = NULL_VALUE[treatment.name]
+        self.null = treatment.kind.null_x
         self.lo, self.hi = treatment.bounds()
-        self.s = BRANCH_SCALE[treatment.name]
+        self.s = treatment.kind.step
         self.bounds = ((self.lo - self.null) / self.s, (self.hi - self.null) / self.s)
         self.transform = Transform(tree, treatment)
         self.given = self.transform.given
@@ -562,7 +554,7 @@ def fit_model(
 
     branches: the branch-length treatment (mkforest.engine.branches); a fixed or
     parameter-free one transforms the tree once, an estimated one adds its
-    parameter to the optimiser's (bounds in ``branches.BOUNDS``)."""
+    parameter to the optimiser's (bounds: the registry's ``box``)."""
     treatment = branches or Treatment()
     if not treatment.free:
         tree = transformed_tree(tree, treatment)

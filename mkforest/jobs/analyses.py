@@ -13,12 +13,18 @@ from ..engine.treatments import Treatment, parse_treatment
 from ..errors import InputError, join_problems
 
 
+def model_treatment(config: dict, model: str) -> Treatment:
+    """The branch-length treatment of ``models.<model>`` (the one reader of its
+    ``branches`` value)."""
+    return parse_treatment(config["models"][model]["branches"], f"models.{model}.branches")
+
+
 def branch_treatment(config: dict, analysis: str, model: str) -> Treatment:
-    """The branch-length treatment of one model of an analysis (pair hypotheses and models
-    without ``branches`` use the given lengths)."""
+    """The branch-length treatment of one model of an analysis (pair hypotheses use the
+    given lengths)."""
     if analysis not in config["traits"]["columns"]:
         return Treatment()
-    return parse_treatment(config["models"][model].get("branches"), f"models.{model}.branches")
+    return model_treatment(config, model)
 
 
 def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
@@ -66,9 +72,9 @@ def table_problems(config: dict, source: str = "config") -> list:
     from ..data.traits import read_traits
 
     problems = []
-    for name, spec in config["models"].items():
+    for name in config["models"]:
         try:
-            parse_treatment(spec.get("branches"), f"models.{name}.branches")
+            model_treatment(config, name)
         except InputError as exc:
             problems.append(f"{source}: {exc}")
     tcfg = config["traits"]

@@ -14,7 +14,7 @@ from mkforest.data.config import (
     tree_sets,
 )
 from mkforest.errors import InputError
-from mkforest.jobs.analyses import check_config
+from mkforest.jobs.analyses import check_config, model_treatment
 from mkforest.jobs.scripting import cancel_scheduler_timers
 
 # Check the config (schema, names, and every model against the trait table when
@@ -160,7 +160,7 @@ BRANCH_PLOTS = (
     [f"{OUT}/plots/support_branches.png", f"{OUT}/plots/support_branches.svg"]
     if len(TREE_SETS) > 1
     or any(
-        len({repr(config["models"][m].get("branches", "as_given")) for m in models}) > 1
+        len({model_treatment(config, m) for m in models}) > 1
         for a, models in ANALYSES.items()
         if a in config["traits"]["columns"]
     )

@@ -282,7 +282,7 @@ def test_methods_open_with_one_paragraph_from_the_tables(run):
     assert "glow (2 states)" in para and "habitat (3 states)" in para
     assert "from 2 starting points per fit" in para
     assert para.count('"one_rate"') == 1 and para.count('"free"') == 1
-    assert '"one_rate" (one rate for all changes)' in para
+    assert '"one_rate" (one rate for every change)' in para
     assert '"free" (a separate rate for every change)' in para
     assert "ranked by AICc" in para and "mean Akaike weight" in para
     assert "every state equally probable at the root" in para

@@ -64,14 +64,15 @@ from scipy.special import (
     chdtri,  # chi-square inverse survival; lighter than scipy.stats
 )
 
-from ..data.config import check_classes
 from ..data.traits import Trait
 from ..errors import InputError, did_you_mean
 from ..seeds import derive_seed
 from .fitting import LOWER, MAX_STARTS, UPPER, fit_model
 from .hidden import (
     MAX_COMBINED_STATES,
+    check_classes,
     check_no_class_in_transitions,
+    config_classes,
     with_hidden_classes,
 )
 from .likelihood import prune, root_weights
@@ -319,7 +320,7 @@ def pair_models(name: str, spec: dict, pair: TraitPair, where: str = "config") -
     at = f"{where}: pairs.{name}"
     custom = spec.get("custom") or {}
     root = _check_root(spec.get("root", "uniform"), pair, at)
-    n_classes = check_hidden_pair(pair, spec.get("hidden_classes", 1), at)
+    n_classes = check_hidden_pair(pair, config_classes(spec, at), at)
     switch = spec.get("class_switch", "equal")
 
     def classes(model):

@@ -7,7 +7,8 @@ do not import the optimiser: on a cluster every job parses the Snakefile again.
 
 from __future__ import annotations
 
-from ..engine.hidden import check_no_class_in_transitions, with_hidden_classes
+from ..data.config import analyses, trait_models
+from ..engine.hidden import check_no_class_in_transitions, config_classes, with_hidden_classes
 from ..engine.models import KINDS, build_model, check_root
 from ..engine.treatments import Treatment, parse_treatment
 from ..errors import InputError, join_problems
@@ -17,6 +18,25 @@ def model_treatment(config: dict, model: str) -> Treatment:
     """The branch-length treatment of ``models.<model>`` (the one reader of its
     ``branches`` value)."""
     return parse_treatment(config["models"][model]["branches"], f"models.{model}.branches")
+
+
+def hidden_classes(config: dict, analysis: str, model: str | None = None) -> int:
+    """Hidden rate classes R of one model of a trait (``models.<model>``), or of every
+    hypothesis of a pair (``pairs.<analysis>``)."""
+    if analysis in config["traits"]["columns"]:
+        return config_classes(config["models"][model], f"models.{model}")
+    return config_classes(config["pairs"][analysis], f"pairs.{analysis}")
+
+
+def hidden_class_models(config: dict) -> dict:
+    """{analysis: [model names with hidden rate classes (hidden_classes > 1)]}, only
+    analyses that have such a model."""
+    out = {}
+    for analysis, names in analyses(config).items():
+        hid = [m for m in names if hidden_classes(config, analysis, m) > 1]
+        if hid:
+            out[analysis] = hid
+    return out
 
 
 def branch_treatment(config: dict, analysis: str, model: str) -> Treatment:
@@ -30,8 +50,6 @@ def branch_treatment(config: dict, analysis: str, model: str) -> Treatment:
 def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     """(Trait to fit, {model name: (RateModel, root)}) for a trait or a pair analysis."""
     if analysis in config["traits"]["columns"]:
-        from ..data.config import trait_models
-
         trait = traits[analysis]
         models = {}
         for name in trait_models(config, analysis):
@@ -42,7 +60,7 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
                 )
                 model = build_model(spec["kind"], trait.states, spec.get("transitions"), name)
                 model = with_hidden_classes(
-                    model, spec.get("hidden_classes", 1), spec.get("class_switch", "equal"), name
+                    model, hidden_classes(config, analysis, name), spec["class_switch"], name
                 )
             except InputError as exc:
                 raise InputError(f"trait '{analysis}': {exc}") from None
@@ -68,15 +86,26 @@ def table_problems(config: dict, source: str = "config") -> list:
     table exists yet: one sentence per mistake, naming the model, trait and label."""
     from pathlib import Path
 
-    from ..data.config import analyses, trait_models
     from ..data.traits import read_traits
 
     problems = []
+    faulty = set()  # entries named here, left out of the check against the table
     for name in config["models"]:
         try:
             model_treatment(config, name)
         except InputError as exc:
             problems.append(f"{source}: {exc}")
+        try:
+            config_classes(config["models"][name], f"{source}: models.{name}")
+        except InputError as exc:
+            problems.append(str(exc))
+            faulty.add(name)
+    for name in config["pairs"]:
+        try:
+            config_classes(config["pairs"][name], f"{source}: pairs.{name}")
+        except InputError as exc:
+            problems.append(str(exc))
+            faulty.add(name)
     tcfg = config["traits"]
     if not Path(tcfg["file"]).is_file():
         return problems
@@ -103,10 +132,12 @@ def table_problems(config: dict, source: str = "config") -> list:
         # one model at a time, so that every faulty model is named, not only the first
         if analysis in traits and traits[analysis].k < 2:
             continue  # named above
+        if analysis in faulty:
+            continue
         names = trait_models(config, analysis) if analysis in traits else [None]
         for name in names:
-            if name and config["models"][name].get("kind") not in KINDS:
-                continue  # the schema check has named it
+            if name in faulty or (name and config["models"][name].get("kind") not in KINDS):
+                continue  # named above, or by the schema check
             one = dict(config, models={name: config["models"][name]}) if name else config
             try:
                 analysis_setup(one, analysis, traits)

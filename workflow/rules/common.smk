@@ -5,16 +5,10 @@ import math
 import os
 import sys
 
-from mkforest.data.config import (
-    analyses,
-    ancestral_job_config,
-    fit_job_config,
-    fit_job_weight,
-    hidden_class_models,
-    tree_sets,
-)
+from mkforest.data.config import analyses, tree_sets
 from mkforest.errors import InputError
-from mkforest.jobs.analyses import check_config, model_treatment
+from mkforest.jobs.analyses import check_config, hidden_class_models, model_treatment
+from mkforest.jobs.shaping import ancestral_job_config, fit_job_config, fit_job_weight
 from mkforest.jobs.scripting import cancel_scheduler_timers
 
 # Check the config (schema, names, and every model against the trait table when

@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .summarise import FEW_TREES, _q, as_text
+from .summarise import FEW_TREES, as_text, finite_quantile
 from .treatments import parse_label
 
 ALPHA = 0.05
@@ -198,8 +198,8 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
                     "branches": label[alt],
                     "n_trees": int(ok.sum()),
                     "median_statistic": float(np.median(stats[ok])) if ok.any() else np.nan,
-                    "statistic_low95": _q(stats, 0.025),
-                    "statistic_high95": _q(stats, 0.975),
+                    "statistic_low95": finite_quantile(stats, 0.025),
+                    "statistic_high95": finite_quantile(stats, 0.975),
                     "fraction_rejected": float((ps[ok] < alpha).mean()) if ok.any() else np.nan,
                     "alpha": alpha,
                     "n_below_null": sum(1 for r in rows if r["note"]),
@@ -254,11 +254,11 @@ def tree_set_support(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFram
                 "tree_set": s,
                 "n_trees": len(ll[s]),
                 "median_log_likelihood": med[s] if len(ll[s]) else np.nan,
-                "log_likelihood_low95": _q(ll[s], 0.025),
-                "log_likelihood_high95": _q(ll[s], 0.975),
-                f"median_{criterion}": _q(crit, 0.5),
-                f"{criterion}_low95": _q(crit, 0.025),
-                f"{criterion}_high95": _q(crit, 0.975),
+                "log_likelihood_low95": finite_quantile(ll[s], 0.025),
+                "log_likelihood_high95": finite_quantile(ll[s], 0.975),
+                f"median_{criterion}": finite_quantile(crit, 0.5),
+                f"{criterion}_low95": finite_quantile(crit, 0.025),
+                f"{criterion}_high95": finite_quantile(crit, 0.975),
                 "compared_with": "",
                 "fraction_better": np.nan,
                 "statement": "",

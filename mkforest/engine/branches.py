@@ -202,6 +202,16 @@ def effective_lengths(tree, treatment: Treatment, x: float | None = None):
     return out, deriv
 
 
+@numba.njit(cache=True)
+def transform_lengths(arrays, x):
+    """``_transform`` on a transform bundle (``Transform.arrays``: code, given lengths t
+    [n], depths d [n], ln t [n], ln(d/H) [n], parent int64 [n], n_tips, H, held, output
+    lengths [n], output d lengths / dx [n]; lengths in the tree's units) at optimiser
+    value x: fills the two outputs and returns (held length, its d/dx)."""
+    code, t, d, log_t, log_r, parent, n_tips, H, held, out, deriv = arrays
+    return _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, _PHI, _DPHI, held, out, deriv)
+
+
 class Transform:
     """An estimable treatment's lengths on one tree, evaluated again and again (the
     optimiser's inner loop): the tree's logs are looked up once and the output
@@ -221,6 +231,20 @@ class Transform:
         self.H = H
         self.out = np.empty_like(tree.length)
         self.deriv = np.empty_like(tree.length)
+        # the kernels' transform bundle (``transform_lengths``)
+        self.arrays = (
+            self.code,
+            t,
+            self.d,
+            self.log_t,
+            self.log_r,
+            tree.parent,
+            tree.n_tips,
+            H,
+            self.held,
+            self.out,
+            self.deriv,
+        )
 
     def __call__(self, x: float):
         t = self.tree.length
@@ -228,22 +252,7 @@ class Transform:
             self.out[:] = t
             self.deriv[:] = 0.0
             return self.out, self.deriv, self.given, 0.0
-        total, dtotal = _transform(
-            self.code,
-            t,
-            self.d,
-            self.log_t,
-            self.log_r,
-            self.tree.parent,
-            self.tree.n_tips,
-            self.H,
-            float(x),
-            _PHI,
-            _DPHI,
-            self.held,
-            self.out,
-            self.deriv,
-        )
+        total, dtotal = transform_lengths(self.arrays, float(x))
         return self.out, self.deriv, total, dtotal
 
 

@@ -30,7 +30,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import InputError
-from .models import _ARROW, FIXED, FREE_FORBIDDEN, KIND_TABLE, RateModel
+from .models import ARROW, FIXED, FREE_FORBIDDEN, KIND_TABLE, RateModel
 
 MAX_CLASSES = 4
 MAX_COMBINED_STATES = 32
@@ -66,6 +66,7 @@ def combined_label(state: str, cls: int) -> str:
 
 
 def check_switch(class_switch, where: str) -> str:
+    """``class_switch`` when it is a known kind, else an InputError naming ``where``."""
     if class_switch not in SWITCH_KINDS:
         raise InputError(
             f"{where}: class_switch is {class_switch!r}; use one of {', '.join(SWITCH_KINDS)}."
@@ -77,7 +78,7 @@ def check_no_class_in_transitions(transitions, states, where: str) -> None:
     """A custom model's transitions name observed states only (InputError naming the model
     when one names a combined state such as 'rock@2'): the classes are added for it."""
     for key in dict(transitions or {}):
-        for name in _ARROW.split(str(key).strip())[0::2]:
+        for name in ARROW.split(str(key).strip())[0::2]:
             state, sep, cls = name.rpartition(CLASS_SEPARATOR)
             if name not in states and sep and cls.isdigit() and state in states:
                 raise InputError(

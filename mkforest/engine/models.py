@@ -87,6 +87,7 @@ class RateModel:
 
     @property
     def k(self) -> int:
+        """Number of states (combined states with hidden classes)."""
         return len(self.states)
 
     @property
@@ -120,6 +121,7 @@ class RateModel:
 
     @property
     def n_params(self) -> int:
+        """Number of free rates."""
         return len(self.labels)
 
     def q_matrix(self, rates) -> np.ndarray:
@@ -180,12 +182,12 @@ def _empty(k):
     return idx, np.zeros((k, k))
 
 
-_ARROW = re.compile(r"\s*(<->|->)\s*")
+ARROW = re.compile(r"\s*(<->|->)\s*")
 
 
 def parse_transition(key: str, states, where: str) -> list:
     """'a -> b -> c' / 'a <-> b' into a list of (i, j) index pairs."""
-    pieces = _ARROW.split(str(key).strip())
+    pieces = ARROW.split(str(key).strip())
     if len(pieces) < 3 or len(pieces) % 2 == 0:
         raise InputError(
             f"{where}: transition '{key}' is not of the form 'from -> to' "

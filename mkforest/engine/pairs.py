@@ -92,6 +92,7 @@ MAX_JOINT_STATES = 12
 
 
 def joint_label(first_state: str, second_state: str) -> str:
+    """The label of a joint state of two traits (first, second)."""
     return f"{first_state}{JOINT_SEPARATOR}{second_state}"
 
 
@@ -108,10 +109,12 @@ class TraitPair:
 
     @property
     def k1(self) -> int:
+        """Number of states of the first trait."""
         return self.first.k
 
     @property
     def k2(self) -> int:
+        """Number of states of the second trait."""
         return self.second.k
 
     @property
@@ -124,10 +127,12 @@ class TraitPair:
         return divmod(int(joint), self.k2)
 
     def joint(self, i: int, j: int) -> int:
+        """Index of the joint state (first trait in state i, second in state j)."""
         return int(i) * self.k2 + int(j)
 
     @property
     def taxa(self) -> tuple:
+        """Taxa of either trait: the first trait's, then the second's others."""
         extra = [t for t in self.second.taxa if t not in set(self.first.taxa)]
         return tuple(self.first.taxa) + tuple(extra)
 
@@ -415,6 +420,8 @@ def selected_tests(name: str, spec: dict, models: dict, where: str = "config") -
 
 @dataclass(frozen=True)
 class Nesting:
+    """A null hypothesis nested in an alternative, tested with ``df`` degrees of freedom."""
+
     null: str
     alternative: str
     df: int

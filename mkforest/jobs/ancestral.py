@@ -49,7 +49,7 @@ from ..data.clades import (
 )
 from ..engine.ancestral import ImpossibleData, averaged_probabilities, marginal_probabilities
 from ..engine.branches import tree_of_fit
-from ..engine.compare import akaike_weights
+from ..engine.compare import model_weights
 from ..engine.mapping import mixed_stochastic_maps
 from ..engine.treatments import parse_label
 from ..errors import InputError
@@ -193,24 +193,6 @@ def q_from_rate_rows(rows: pd.DataFrame, states) -> np.ndarray:
         Q[index[str(a)], index[str(b)]] = float(r)
     np.fill_diagonal(Q, -Q.sum(axis=1))
     return Q
-
-
-def model_weights(criteria, choice: str, names) -> np.ndarray:
-    """Weights of the models on one tree: Akaike weights ('average'), all on the best
-    ('best'), or all on one named model. Models without a finite criterion get 0."""
-    v = np.asarray(criteria, dtype=float)
-    w = np.zeros(len(v))
-    if not np.isfinite(v).any():
-        return w
-    if choice == "average":
-        return akaike_weights(v)
-    if choice == "best":
-        w[int(np.nanargmin(np.where(np.isfinite(v), v, np.nan)))] = 1.0
-        return w
-    i = list(names).index(choice)
-    if np.isfinite(v[i]):
-        w[i] = 1.0
-    return w
 
 
 def resolve_choice(choice: str, model_names, analysis: str) -> tuple:

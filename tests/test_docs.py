@@ -75,6 +75,19 @@ def test_readme_is_short_and_its_links_lead_to_files():
     assert not missing, f"README.md links to files that do not exist: {missing}"
 
 
+def test_readme_commands_are_make_targets_and_setup_comes_before_the_venv():
+    text = (REPO / "README.md").read_text()
+    makefile = (REPO / "Makefile").read_text()
+    targets = set(re.findall(r"^([a-z][\w-]*):", makefile, re.M))
+    named = set(re.findall(r"\bmake ([a-z][\w-]*)", text))
+    assert {"demo", "test", "setup", "init", "run", "docs"} <= named
+    assert not named - targets, f"README.md names make targets that do not exist: {named - targets}"
+    # nothing calls .venv/bin/... before a command that makes .venv has been given
+    first_venv = text.find(".venv/bin/")
+    first_setup = min(text.find(f"make {t}") for t in ("setup", "demo", "test"))
+    assert first_venv == -1 or first_setup < first_venv
+
+
 def test_config_error_example_is_what_the_workflow_prints(tmp_path):
     """The example on the configuration page, character for character, from a real
     dry run of a config with the same two mistakes."""

@@ -57,11 +57,27 @@ def test_site_builds_strictly_and_fails_on_a_broken_link_or_a_page_out_of_the_na
     assert proc.returncode != 0 and "orphan.md" in proc.stderr, proc.stderr
 
 
+def nav_pages(nav) -> list:
+    """The page files of mkdocs.yml's nav, sections opened (a page is a string, or a
+    one-item mapping of title to a page or to a list)."""
+    if isinstance(nav, str):
+        return [nav]
+    if isinstance(nav, dict):
+        return [p for v in nav.values() for p in nav_pages(v)]
+    return [p for item in nav for p in nav_pages(item)]
+
+
 def test_every_page_is_in_the_navigation_and_every_listed_page_exists():
     config = yaml.safe_load((REPO / "mkdocs.yml").read_text())
-    listed = [next(iter(item.values())) for item in config["nav"]]
-    on_disk = sorted(p.name for p in DOCS.glob("*.md"))
-    assert sorted(listed) == on_disk
+    listed = nav_pages(config["nav"])
+    on_disk = [p.relative_to(DOCS).as_posix() for p in DOCS.rglob("*.md")]
+    assert len(listed) == len(set(listed)), "a page is listed twice in mkdocs.yml's nav"
+    assert sorted(listed) == sorted(on_disk)
+    assert nav_pages([{"A": "a.md"}, {"B": [{"C": "b/c.md"}, "d.md"]}]) == [
+        "a.md",
+        "b/c.md",
+        "d.md",
+    ]
 
 
 def test_readme_is_short_and_its_links_lead_to_files():

@@ -65,14 +65,14 @@ def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
             except InputError as exc:
                 raise InputError(f"trait '{analysis}': {exc}") from None
             root = check_root(
-                spec.get("root", "uniform"),
+                spec["root"],
                 trait.states,
                 f"models.{name}",
                 f"a state of trait '{analysis}'",
             )
             models[name] = (model, root)
         return trait, models
-    if analysis in config.get("pairs", {}):
+    if analysis in config["pairs"]:
         # contract: pair_analysis(name, pair config (defaults filled), {trait name: Trait})
         #   -> (joint Trait, {hypothesis name: (RateModel, root)})
         from ..engine.pairs import pair_analysis

@@ -82,6 +82,27 @@ class Trait:
         return out
 
 
+# Characters spreadsheets and other programs write between the states of a polymorphic cell.
+SEPARATOR_LOOKALIKES = ("/", ",", ";", "&", "|", "+")
+
+
+def combined_states(states, separator: str = "|") -> dict:
+    """{separator: [labels]}: state labels that are two or more other labels joined by one
+    of SEPARATOR_LOOKALIKES (``0/1`` beside ``0`` and ``1``), i.e. polymorphic cells read as
+    states of their own because traits.separator is another character."""
+    plain = set(states)
+    out: dict = {}
+    for s in states:
+        for sep in SEPARATOR_LOOKALIKES:
+            if sep == separator or sep not in s:
+                continue
+            parts = [p.strip() for p in s.split(sep)]
+            if len(parts) > 1 and all(p in plain for p in parts):
+                out.setdefault(sep, []).append(s)
+                break
+    return out
+
+
 def _split(value: str, separator: str) -> list:
     return [p.strip() for p in value.split(separator)] if separator else [value]
 

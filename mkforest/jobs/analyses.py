@@ -21,6 +21,22 @@ def branch_treatment(config: dict, analysis: str, model: str) -> Treatment:
     return parse_treatment(config["models"][model].get("branches"), f"models.{model}.branches")
 
 
+def unit_branches_only(config: dict) -> bool:
+    """Every fit of the run uses one unit of length per branch (``branches: unit`` on every
+    model that applies to a trait, and no pairs): trees written without branch lengths
+    can then be read, each branch given the length 1."""
+    from ..data.config import analyses
+
+    if config.get("pairs"):
+        return False
+    names = {m for a, models in analyses(config).items() for m in models}
+    return bool(names) and all(
+        branch_treatment(config, a, m).name == "unit"
+        for a, models in analyses(config).items()
+        for m in models
+    )
+
+
 def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     """(Trait to fit, {model name: (RateModel, root)}) for a trait or a pair analysis."""
     if analysis in config["traits"]["columns"]:

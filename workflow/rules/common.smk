@@ -14,7 +14,7 @@ from mkforest.data.config import (
     tree_sets,
 )
 from mkforest.errors import InputError
-from mkforest.jobs.analyses import check_config
+from mkforest.jobs.analyses import check_config, unit_branches_only
 from mkforest.jobs.scripting import cancel_scheduler_timers
 
 # Check the config (schema, names, and every model against the trait table when

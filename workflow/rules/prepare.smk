@@ -22,6 +22,9 @@ checkpoint prepare_trees:
     params:
         tree_sets=stable(TREE_SETS),
         seed=config["seed"],
+        # trees written without lengths are read with one unit per branch only when
+        # every fit uses branches: unit
+        no_lengths="unit" if unit_branches_only(config) else "error",
     script:
         "../../scripts/prepare_trees.py"
 

@@ -1,0 +1,259 @@
+"""Inputs as users bring them (issue 21): bootstrap trees without lengths, a sampler's
+output with its starting tree, what the trees are, polymorphic cells, names with spaces
+against underscores, and the first messages of a run.
+
+Invented files of these shapes (tests/catalogue_inputs.py); no real data. The two
+`init`-to-results runs are real Snakemake runs on 4 trees of 8 tips.
+"""
+
+from __future__ import annotations
+
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+from catalogue_inputs import TAXA, posterior_nexus, rename, unrooted
+from conftest import random_newick
+from workflow_helpers import run_snakemake
+
+from mkforest.data.traits import combined_states
+from mkforest.data.trees import NO_LENGTHS_FIX, read_trees
+from mkforest.errors import InputError
+from mkforest.starter import starting_config, survey_trees
+
+MKFOREST = str(Path(sys.executable).with_name("mkforest"))
+NAMES = [t.replace(" ", "_").replace("'", "") for t in TAXA]  # unquoted Newick names
+
+
+def init(cwd: Path, *args):
+    return subprocess.run(
+        [MKFOREST, "init", *map(str, args)], cwd=cwd, capture_output=True, text=True, timeout=300
+    )
+
+
+def strip_lengths(newick: str) -> str:
+    return re.sub(r":[-0-9.eE]+", "", newick)
+
+
+def bootstrap_file(path: Path, n_trees: int = 4, lengths: bool = False, seed: int = 2) -> Path:
+    """Bare unrooted Newick trees, one per line, with support values on internal nodes and
+    (by default) no branch lengths, as bootstrap trees are often written."""
+    rng = np.random.default_rng(seed)
+    lines = []
+    for _ in range(n_trees):
+        nwk = random_newick(rng, len(NAMES), p_polytomy=0.0, p_zero=0.0)
+        nwk = unrooted(rename(nwk, dict(enumerate(NAMES))))
+        nwk = re.sub(r"\)(?=[:,);])", lambda m: f"){int(rng.integers(50, 101))}", nwk)
+        lines.append(nwk if lengths else strip_lengths(nwk))
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def trait_table(path: Path, names=TAXA, sep=",") -> Path:
+    rows = ["taxon,shell,spines"]
+    shell = ["smooth", "ridged", "smooth", "ridged", "ridged", "smooth", "ridged", "smooth"]
+    spines = ["0", "1", "2", "1", "0", "2", "1", "0"]
+    rows += [f'"{n}",{a},{b}' for n, a, b in zip(names, shell, spines)]
+    path.write_text("\n".join(rows).replace(",", sep) + "\n")
+    return path
+
+
+# --------------------------------------------------------------------------- item 1
+
+
+def test_bootstrap_trees_without_lengths_run_from_init_to_the_end(tmp_path):
+    """Issue 21, items 1 and 3: unrooted bootstrap trees with support values and no branch
+    lengths: init writes branches: unit on every model, a midpoint on unit lengths and
+    trees.kind bootstrap; the config runs as written; the methods text says bootstrap trees.
+    Red before the fix: init wrote 'BRANCH LENGTHS MISSING (the run will stop)' and the
+    run stopped at prepare_trees."""
+    data = tmp_path / "data"
+    data.mkdir()
+    trees = bootstrap_file(data / "boot.tre")
+    table = trait_table(data / "traits.csv", NAMES)
+    proc = init(tmp_path, "--trees", trees, "--traits", table)
+    assert proc.returncode == 0, proc.stderr
+    assert "no branch lengths -> branches: unit" in proc.stdout
+    text = (tmp_path / "my_config.yaml").read_text()
+    cfg = yaml.safe_load(text)
+    assert {m.get("branches") for m in cfg["models"].values()} == {"unit"}
+    assert cfg["trees"]["root"] == "midpoint" and cfg["trees"]["kind"] == "bootstrap"
+    words = " ".join(text.replace("#", " ").split())
+    assert "counted in branches" in words and "support values (ignored)" in words
+    proc = run_snakemake(tmp_path, tmp_path / "my_config.yaml", timeout=900)
+    assert proc.returncode == 0, (proc.stdout + proc.stderr)[-3000:]
+    out = tmp_path / "results" / "my_config"
+    fits = pd.read_csv(out / "tables" / "fits.tsv", sep="\t")
+    assert set(fits["branches"]) == {"unit"} and fits["tree"].nunique() == 4
+    assert np.isfinite(fits["log_likelihood"]).all()
+    check = pd.read_csv(out / "tables" / "data_check.tsv", sep="\t")
+    row = check[check["item"] == "trees_without_lengths"]
+    assert list(row["value"]) == [4]
+    methods = (out / "methods.md").read_text()
+    assert "4 bootstrap trees" in methods and "posterior sample" not in methods
+    assert "one unit of length" in methods
+
+
+@pytest.mark.parametrize("root", [None, "midpoint", {"outgroup": ["Brun_a"]}])
+def test_trees_without_lengths_stop_with_one_way_forward(tmp_path, root):
+    """Issue 21, item 1: whatever the rooting, a tree without lengths under a model that
+    needs them stops with the same sentence (branches: unit), never first with 'use an
+    outgroup' and then with another stop. Red before: midpoint asked for an outgroup, and
+    the outgroup then stopped at 'the branch above ... has no length'."""
+    trees = bootstrap_file(tmp_path / "boot.tre", n_trees=2)
+    with pytest.raises(InputError) as err:
+        read_trees(trees, root=root)
+    assert NO_LENGTHS_FIX in str(err.value) and "tree 0" in str(err.value)
+    # with every model on unit lengths the same file reads (rooted as asked), each branch
+    # one unit long; unrooted and not rooted, it stops as any unrooted tree does
+    if root is None:
+        with pytest.raises(InputError, match="unrooted"):
+            read_trees(trees, root=root, no_lengths="unit")
+        return
+    got = read_trees(trees, root=root, no_lengths="unit")
+    assert len(got) == 2
+    lengths = got[0].length[:-1]
+    assert set(np.round(lengths, 12)) <= {0.5, 1.0, 0.0}
+
+
+# --------------------------------------------------------------------------- item 2
+
+
+def chain_file(path: Path, start: str = "equal", name: str = "STATE_", n_trees: int = 10):
+    """A sampler's NEXUS output: trees named STATE_0, STATE_1000, ..., the first the chain's
+    starting tree (every branch one length, or lengths near 1e-7)."""
+    rng = np.random.default_rng(4)
+    texts = [random_newick(rng, 8, p_polytomy=0.0, p_zero=0.0) for _ in range(n_trees)]
+    value = {"equal": "0.1", "tiny": "9.99999993922529E-8"}[start]
+    texts[0] = re.sub(r":[-0-9.eE]+", f":{value}", texts[0])
+    posterior_nexus(path, texts, TAXA)
+    if name != "STATE_":
+        path.write_text(
+            re.sub(r"STATE_(\d+)", lambda m: f"{name}{int(m.group(1)) * 250}", path.read_text())
+        )
+    return path
+
+
+@pytest.mark.parametrize("start,name", [("equal", "STATE_"), ("tiny", "gen.")])
+def test_init_proposes_a_burnin_for_a_samplers_output(tmp_path, start, name):
+    """Issue 21, item 2. Red before: burnin 0 whatever the file."""
+    trees = chain_file(tmp_path / "chain.nex", start, name)
+    table = trait_table(tmp_path / "traits.csv")
+    survey = survey_trees(trees)
+    assert survey.chain[:2] == ([0, 1000] if name == "STATE_" else [0, 250000])
+    assert survey.first_start
+    starter = starting_config(trees, table, base=tmp_path)
+    cfg = yaml.safe_load(starter.text)
+    assert cfg["trees"]["burnin"] == 0.1 and cfg["trees"]["kind"] == "posterior"
+    words = " ".join(starter.text.replace("#", " ").split())
+    assert "numbered chain states" in words and "starting tree" in words
+    assert "burn-in 0.1 proposed" in starter.summary[0]
+
+
+def test_data_check_names_a_kept_first_tree_that_looks_like_a_chain_start(tmp_path):
+    """Issue 21, item 2: with burnin 0 the data check has a row for the starting tree.
+    Red before: no such row."""
+    (tmp_path / "data").mkdir()
+    chain_file(tmp_path / "data" / "chain.nex", "tiny", n_trees=3)
+    trait_table(tmp_path / "data" / "traits.csv")
+    cfg = tmp_path / "config.yaml"
+    cfg.write_text(
+        yaml.safe_dump(
+            {
+                "run": "c",
+                "trees": {"file": "data/chain.nex", "per_job": 10},
+                "traits": {"file": "data/traits.csv", "columns": ["shell"]},
+                "models": {"one": {"kind": "equal"}},
+                "ancestral": {"enabled": False},
+            }
+        )
+    )
+    proc = run_snakemake(tmp_path, cfg, "results/c/tables/data_check.tsv", cores=1)
+    assert proc.returncode == 0, (proc.stdout + proc.stderr)[-3000:]
+    check = pd.read_csv(tmp_path / "results/c/tables/data_check.tsv", sep="\t")
+    row = check[check["item"] == "first_tree_looks_like_chain_start"]
+    assert list(row["tree"]) == [0]
+    assert "trees.burnin" in row["detail"].iloc[0] and "1e-07" in row["detail"].iloc[0]
+
+
+# --------------------------------------------------------------------------- item 6
+
+
+def test_polymorphic_cells_are_recognised(tmp_path):
+    """Issue 21, item 6: cells 0/1 beside 0 and 1: init sets the separator '/' and reads
+    three states, not six. Red before: states 0, 0/1, 0/2, 1, 1/2, 2."""
+    trees = tmp_path / "t.nwk"
+    trees.write_text("[&R] ((a:1,b:1):1,((c:1,d:1):0.5,(e:1,(f:1,g:1):0.5):0.5):0.5);\n")
+    table = tmp_path / "t.csv"
+    table.write_text("taxon,teeth\na,0\nb,0/1\nc,1\nd,2\ne,1/2\nf,0/2\ng,2\n")
+    starter = starting_config(trees, table, base=tmp_path)
+    cfg = yaml.safe_load(starter.text)
+    assert cfg["traits"]["separator"] == "/"
+    assert "teeth: 0 1, 1 1, 2 2; missing 0; ambiguous 3" in starter.text
+    assert combined_states(("0", "0/1", "0/2", "1", "1/2", "2")) == {"/": ["0/1", "0/2", "1/2"]}
+    assert combined_states(("0", "1", "2")) == {}
+    assert combined_states(("a/b", "c")) == {}  # parts that are no states of their own
+
+
+def test_a_run_warns_when_states_look_like_combinations(tmp_path):
+    """Issue 21, item 6: a run with separator '|' and cells 0/1 names the column, the cells
+    and the setting in data_check.tsv. Red before: nothing warned."""
+    (tmp_path / "data").mkdir()
+    (tmp_path / "data" / "t.nwk").write_text(
+        "[&R] ((a:1,b:1):1,((c:1,d:1):0.5,(e:1,(f:1,g:1):0.5):0.5):0.5);\n"
+    )
+    (tmp_path / "data" / "t.csv").write_text("taxon,teeth\na,0\nb,0/1\nc,1\nd,2\ne,1/2\nf,0\ng,2\n")
+    cfg = tmp_path / "config.yaml"
+    cfg.write_text(
+        yaml.safe_dump(
+            {
+                "run": "p",
+                "trees": {"file": "data/t.nwk"},
+                "traits": {"file": "data/t.csv", "columns": ["teeth"]},
+                "models": {"one": {"kind": "equal"}},
+                "ancestral": {"enabled": False},
+            }
+        )
+    )
+    proc = run_snakemake(tmp_path, cfg, "results/p/tables/data_check.tsv", cores=1)
+    assert proc.returncode == 0, (proc.stdout + proc.stderr)[-3000:]
+    check = pd.read_csv(tmp_path / "results/p/tables/data_check.tsv", sep="\t")
+    row = check[check["item"] == "states_look_combined"]
+    assert list(row["trait"]) == ["teeth"] and list(row["value"]) == [2]
+    assert "0/1, 1/2" in row["detail"].iloc[0] and "traits.separator: '/'" in row["detail"].iloc[0]
+
+
+# --------------------------------------------------------------------------- item 7
+
+
+def test_spaces_against_underscores_match(tmp_path):
+    """Issue 21, item 7: the table writes 'Vexa minor' where the unquoted tips are
+    'Vexa_minor': init matches them and says so, and the run matches them and lists them
+    in the data check. Red before: 'no taxon ... is a tip'."""
+    (tmp_path / "data").mkdir()
+    trees = bootstrap_file(tmp_path / "data" / "t.nwk", n_trees=2, lengths=True)
+    table = trait_table(tmp_path / "data" / "t.csv", [n.replace("_", " ") for n in NAMES])
+    starter = starting_config(trees, table, base=tmp_path)
+    assert "8 matched (8 with underscores for spaces)" in starter.summary[2]
+    cfg = yaml.safe_load(starter.text)
+    cfg.update(models={"one": {"kind": "equal"}}, ancestral={"enabled": False}, run="s")
+    (tmp_path / "config.yaml").write_text(yaml.safe_dump(cfg))
+    proc = run_snakemake(tmp_path, tmp_path / "config.yaml", "results/s/tables/data_check.tsv")
+    assert proc.returncode == 0, (proc.stdout + proc.stderr)[-3000:]
+    check = pd.read_csv(tmp_path / "results/s/tables/data_check.tsv", sep="\t")
+    row = check[check["item"] == "matched_with_underscores_for_spaces"]
+    assert list(row["value"]) == [8] and "Vexa minor = Vexa_minor" in row["detail"].iloc[0]
+    assert int(check.loc[check["item"] == "taxa_in_trees_only", "value"].max()) == 0
+
+
+def test_names_that_still_differ_say_what_differs(tmp_path):
+    """Issue 21, item 7: no name matches: the message says what differs (a suffix)."""
+    trees = bootstrap_file(tmp_path / "t.nwk", n_trees=1, lengths=True)
+    table = trait_table(tmp_path / "t.csv", [n + "_1" for n in NAMES])
+    with pytest.raises(InputError, match=r"they differ in a suffix"):
+        starting_config(trees, table, base=tmp_path)

@@ -24,6 +24,7 @@ from workflow_helpers import run_snakemake
 from mkforest.data.traits import combined_states
 from mkforest.data.trees import NO_LENGTHS_FIX, read_trees
 from mkforest.errors import InputError
+from mkforest.jobs.analyses import check_config
 from mkforest.starter import starting_config, survey_trees
 
 MKFOREST = str(Path(sys.executable).with_name("mkforest"))
@@ -257,3 +258,54 @@ def test_names_that_still_differ_say_what_differs(tmp_path):
     table = trait_table(tmp_path / "t.csv", [n + "_1" for n in NAMES])
     with pytest.raises(InputError, match=r"they differ in a suffix"):
         starting_config(trees, table, base=tmp_path)
+
+
+# --------------------------------------------------------------------------- items 10, 11
+
+
+def test_misspelt_trait_column_is_blamed_where_it_is_misspelt(tmp_path):
+    """Issue 21, item 10: traits.columns says 'Symbiont' for the column 'Symbionts' and a
+    model names 'Symbionts' right: no message tells the user to copy the typo into the
+    model; one names the column in the table. Red before: 'models.free.applies_to names
+    trait 'Symbionts' ... Did you mean 'Symbiont'?'."""
+    table = tmp_path / "t.csv"
+    table.write_text("taxon,Symbionts\na,yes\nb,no\nc,yes\n")
+    raw = {
+        "run": "m",
+        "trees": {"file": str(bootstrap_file(tmp_path / "t.nwk", 1, lengths=True))},
+        "traits": {"file": str(table), "columns": ["Symbiont"]},
+        "models": {"free": {"kind": "unconstrained", "applies_to": ["Symbionts"]}},
+    }
+    with pytest.raises(InputError) as err:
+        check_config(raw, "my.yaml")
+    text = str(err.value)
+    assert "Did you mean 'Symbiont'" not in text
+    assert "'Symbionts', a column of the trait table" in text
+    assert "no column 'Symbiont'" in text and "Did you mean 'Symbionts'?" in text
+
+
+@pytest.mark.parametrize("key", ["trees", "traits"])
+def test_missing_input_files_are_named_before_the_workflow_starts(tmp_path, key):
+    """Issue 21, item 11: a tree file or trait table that does not exist stops the run
+    with our sentence naming the key, before Snakemake builds its graph. Red before:
+    Snakemake's MissingInputException in rule prepare_trees."""
+    (tmp_path / "data").mkdir()
+    bootstrap_file(tmp_path / "data" / "t.nwk", 2, lengths=True)
+    trait_table(tmp_path / "data" / "t.csv", NAMES)
+    cfg = {
+        "run": "f",
+        "trees": {"file": "data/t.nwk", "root": "midpoint"},
+        "traits": {"file": "data/t.csv", "columns": ["shell"]},
+        "models": {"one": {"kind": "equal"}},
+    }
+    cfg[key]["file"] = "data/nope.file"
+    (tmp_path / "config.yaml").write_text(yaml.safe_dump(cfg))
+    proc = run_snakemake(tmp_path, tmp_path / "config.yaml", "--dry-run")
+    text = proc.stdout + proc.stderr
+    assert proc.returncode == 2, text
+    assert (
+        f"mkforest: config file '{tmp_path / 'config.yaml'}': {key}.file 'data/nope.file' does not exist"
+        in text
+    )
+    for wrapper in ("MissingInputException", "Traceback"):
+        assert wrapper not in text, text

@@ -197,6 +197,17 @@ def trait_from_mapping(
     return code_trait(name, values, states, missing, separator)
 
 
+def table_header(path) -> list:
+    """The column names of a CSV or TSV table's first line; [] when it cannot be read."""
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as fh:
+            line = fh.readline()
+    except (OSError, UnicodeDecodeError):
+        return []
+    delimiter = "\t" if line.count("\t") >= max(1, line.count(",")) else ","
+    return [h.strip() for h in next(csv.reader([line], delimiter=delimiter), [])]
+
+
 def read_traits(
     path,
     taxon_column: str,

@@ -26,8 +26,16 @@ _CONFIG_SOURCE = (
     if workflow.config_settings.configfiles
     else "config"
 )
+# The demo's data files, written by rule make_demo_data (prepare.smk) when missing.
+DEMO_DATA = {
+    "trees": "demo/data/trees.nex",
+    "traits": "demo/data/traits.tsv",
+    "truth": "demo/data/truth.yaml",
+    "true_tree": "demo/data/true_tree.nwk",
+    "molecular": "demo/data/trees_molecular.nex",
+}
 try:
-    config = check_config(config, _CONFIG_SOURCE)
+    config = check_config(config, _CONFIG_SOURCE, made=DEMO_DATA.values())
 except InputError as exc:
     for line in str(exc).splitlines():
         print(f"mkforest: {line}", file=sys.stderr)

@@ -52,11 +52,7 @@ rule prepare_traits:
 
 rule make_demo_data:
     output:
-        trees="demo/data/trees.nex",
-        traits="demo/data/traits.tsv",
-        truth="demo/data/truth.yaml",
-        true_tree="demo/data/true_tree.nwk",
-        molecular="demo/data/trees_molecular.nex",
+        **DEMO_DATA,
     log:
         "demo/data/make_demo_data.log",
     conda:

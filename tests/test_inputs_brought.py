@@ -309,3 +309,60 @@ def test_missing_input_files_are_named_before_the_workflow_starts(tmp_path, key)
     )
     for wrapper in ("MissingInputException", "Traceback"):
         assert wrapper not in text, text
+
+
+# --------------------------------------------------------------------------- items 9, 4
+
+
+def test_init_guesses_an_ordered_chain_for_counts_and_one_rate_for_near_constant(
+    tmp_path, monkeypatch
+):
+    """Issue 21, item 9: a 0-4 count gets an ordered chain (in numeric order), words
+    (hook/rod/star) get none, a trait where one taxon differs gets one rate only. Red
+    before: the ordered example came from the words, the count got none, and the
+    near-constant trait got the every-rate-free model."""
+    names = [f"t{i}" for i in range(12)]
+    rng = np.random.default_rng(1)
+    trees = tmp_path / "t.nwk"
+    trees.write_text(random_newick(rng, 12, p_polytomy=0.0, p_zero=0.0) + "\n")
+    count = ["0", "1", "2", "3", "4", "10", "0", "1", "2", "3", "4", "10"]
+    form = ["hook", "rod", "star"] * 4
+    rare = ["no"] * 11 + ["yes"]
+    rows = ["taxon,count,form,rare"] + [
+        f"{n},{a},{b},{c}" for n, a, b, c in zip(names, count, form, rare)
+    ]
+    (tmp_path / "t.csv").write_text("\n".join(rows) + "\n")
+    starter = starting_config(trees, tmp_path / "t.csv", base=tmp_path)
+    monkeypatch.chdir(tmp_path)  # the paths are written relative to the working folder
+    cfg = check_config(yaml.safe_load(starter.text), "init")  # the workflow accepts it
+    models = cfg["models"]
+    assert cfg["traits"]["order"] == {"count": ["0", "1", "2", "3", "4", "10"]}
+    assert models["count_stepwise"]["applies_to"] == ["count"]
+    assert models["count_stepwise"]["transitions"] == {
+        "0 -> 1 -> 2 -> 3 -> 4 -> 10": "up",
+        "10 -> 4 -> 3 -> 2 -> 1 -> 0": "down",
+    }
+    assert "form_stepwise" not in models and "hook -> rod" not in starter.text
+    for name, spec in models.items():
+        if name != "one_rate":
+            assert "rare" not in (spec.get("applies_to") or ["rare"]), name
+    words = " ".join(starter.text.replace("#", " ").split())
+    assert "Only one taxon differs from the rest in rare" in words
+
+
+def test_init_says_which_file_features_it_met(tmp_path):
+    """Issue 21, item 4: translate table, rooting tags, comments on nodes, quoted names,
+    support values. Red before: none of them named."""
+    trees = chain_file(tmp_path / "chain.nex", n_trees=3)
+    text = trees.read_text().replace("):", ")95:", 1)
+    trees.write_text(text)
+    table = trait_table(tmp_path / "traits.csv")
+    words = " ".join(starting_config(trees, table, base=tmp_path).text.replace("#", " ").split())
+    for feature in (
+        "a translate table",
+        "rooting tags [&R]",
+        "comments on nodes or trees such as [&...] (ignored)",
+        "quoted names",
+        "labels on internal nodes, such as support values (ignored)",
+    ):
+        assert feature in words, feature

@@ -409,6 +409,11 @@ def reroot(tree, root, where: str = "tree") -> None:
     """
     if tree.seed_node.edge.length is None:
         tree.seed_node.edge.length = 0.0
+    if any(nd.taxon is None or not nd.taxon.label for nd in tree.leaf_node_iter()):
+        # found by fuzzing: DendroPy's midpoint fails on an unlabelled tip with an assertion
+        raise InputError(f"{where}: a tip has no label; every tip needs a taxon name.")
+    if len(tree.leaf_nodes()) < 2:
+        raise InputError(f"{where}: the tree has fewer than two tips.")
     if root == "midpoint":
         if any(
             nd.edge.length is None for nd in tree.preorder_node_iter() if nd is not tree.seed_node

@@ -20,8 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .data.config import SAFE_NAME
-from .data.traits import DEFAULT_MISSING, combined_states, read_traits
+from .data.traits import DEFAULT_MISSING, combined_states, read_traits, safe_column_name
 from .data.trees import looks_like_chain_start, looks_unrooted, parse_tree_file
 from .errors import InputError, did_you_mean
 from .jobs.prepare import name_difference
@@ -177,6 +176,7 @@ class TraitSurvey:
     use: bool
     why_not: str = ""
     short: str = ""  # why_not in a few words, for the printed summary
+    column: str = ""  # the column's name in the table, when the trait's name differs
 
 
 def survey_traits(
@@ -190,27 +190,35 @@ def survey_traits(
         )
     read_traits(path, taxon_column, [], missing)  # the table as a whole: rows, taxa, fields
     out = {}
-    for name in columns:
+    safe = [safe_column_name(c) for c in columns]
+    for column, name in zip(columns, safe):
+        if safe.count(name) > 1 or (name != column and name in header):
+            out[column] = TraitSurvey(
+                column,
+                (),
+                {},
+                0,
+                0,
+                False,
+                f"its name, made fit for file names ({name}), is that of another column; "
+                "rename one of them",
+                "name clashes with another column",
+            )
+            continue
         try:
             t = read_traits(path, taxon_column, [name], missing, separator)[name]
         except InputError as exc:
             # a column the workflow would refuse (states differing only in case, a cell
             # mixing a missing code with states): left out, with the workflow's sentence
-            out[name] = TraitSurvey(
-                name, (), {}, 0, 0, False, str(exc).rstrip("."), "the workflow would refuse it"
+            out[column] = TraitSurvey(
+                column, (), {}, 0, 0, False, str(exc).rstrip("."), "the workflow would refuse it"
             )
             continue
         counts = t.state_counts()
         n_missing = int(t.possible.all(axis=1).sum())
         observed = [s for s in t.states if counts[s] > 0]
         why = short = ""
-        if not SAFE_NAME.match(name):
-            short = "name unfit for file names"
-            why = (
-                "its name has characters that cannot be used in file names; rename the "
-                "column with letters, digits, '_', '-' or '.' to analyse it"
-            )
-        elif t.k > MAX_STATES:
+        if t.k > MAX_STATES:
             short = f"{t.k} distinct values"
             why = (
                 f"{t.k} distinct values: more like a label or a measurement than a "
@@ -219,8 +227,8 @@ def survey_traits(
         elif len(observed) < 2:
             short = f"only state '{observed[0]}' observed" if observed else "no observed value"
             why = short + ": nothing changes, so there is nothing to fit"
-        out[name] = TraitSurvey(
-            name, t.states, counts, n_missing, t.n_ambiguous(), not why, why, short
+        out[column] = TraitSurvey(
+            name, t.states, counts, n_missing, t.n_ambiguous(), not why, why, short, column
         )
     _, rows = _read_table(path)
     ti = header.index(taxon_column)
@@ -608,6 +616,8 @@ def _traits_block(w, tab: TableSurvey, file: str) -> None:
             if s.states
             else f"  #   {s.name}:"
         )
+        if s.column and s.column != s.name:
+            w(f"  #     column '{s.column}' is analysed as {s.name} (a name fit for file names)")
         if not s.use:
             w(f"  #     left out: {s.why_not}")
     w(f"  columns: {_y([s.name for s in tab.used])}")

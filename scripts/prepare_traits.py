@@ -10,7 +10,7 @@ import logging
 
 import pandas as pd
 
-from mkforest.data.traits import read_traits, traits_to_json
+from mkforest.data.traits import column_of, read_traits, table_header, traits_to_json
 from mkforest.data.trees import load_trees
 from mkforest.errors import InputError
 from mkforest.jobs.prepare import (
@@ -66,7 +66,20 @@ def main(smk):
         if renamed
         else []
     )
-    rows = tree_check_rows(summary, summary["trees"]) + spaced + rows + combined + impossible
+    header = table_header(smk.input.traits)
+    renamed_columns = [
+        dict(trait=name, item="column", value=1, detail=column_of(name, header))
+        for name in tcfg["columns"]
+        if column_of(name, header) != name
+    ]
+    rows = (
+        tree_check_rows(summary, summary["trees"])
+        + spaced
+        + renamed_columns
+        + rows
+        + combined
+        + impossible
+    )
     pd.DataFrame(rows, columns=COLUMNS).astype({"tree": "Int64"}).to_csv(
         smk.output.check, sep="\t", index=False
     )

@@ -251,7 +251,9 @@ def test_make_run_calls_the_workflow_with_the_config():
     assert bare.returncode != 0 and "usage: make run CONFIG=my_config.yaml" in bare.stdout
 
 
-def test_columns_the_workflow_would_refuse_are_left_out_and_zero_lengths_reported(tmp_path):
+def test_columns_the_workflow_would_refuse_are_left_out_and_zero_lengths_reported(
+    tmp_path, monkeypatch
+):
     trees = tmp_path / "t.nwk"
     trees.write_text("((a:1,b:0):1,(c:1,d:1):1);\n")
     table = _table(
@@ -271,4 +273,5 @@ def test_columns_the_workflow_would_refuse_are_left_out_and_zero_lengths_reporte
     assert "left out: trait table" in words and "differ only in case" in words
     assert "left out 'colour' (the workflow would refuse it)" in starter.summary[1]
     assert "zero-length branches: in 1 of 1 tree(s)" in words
+    monkeypatch.chdir(tmp_path)  # the config's paths are relative to the working folder
     assert check_config(cfg, "init")["traits"]["columns"] == ["shape"]

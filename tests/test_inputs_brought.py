@@ -366,3 +366,35 @@ def test_init_says_which_file_features_it_met(tmp_path):
         "labels on internal nodes, such as support values (ignored)",
     ):
         assert feature in words, feature
+
+
+# --------------------------------------------------------------------------- item 8
+
+
+def test_columns_with_spaces_are_analysed_under_a_safe_name(tmp_path):
+    """Issue 21, item 8: spreadsheet columns with spaces are analysed under a name fit for
+    files (Leaf_shape for 'Leaf shape'), shown beside the original in init's comments and
+    the data check. Red before: such columns were left out."""
+    (tmp_path / "data").mkdir()
+    trees = bootstrap_file(tmp_path / "data" / "t.nwk", n_trees=2, lengths=True)
+    table = tmp_path / "data" / "t.csv"
+    shape = ["flat", "round"] * 4
+    rows = ["taxon,Leaf shape,Spine count (adult)"] + [
+        f"{n},{a},{b}" for n, a, b in zip(NAMES, shape, ["0", "1", "2", "1", "0", "2", "1", "0"])
+    ]
+    table.write_text("\n".join(rows) + "\n")
+    starter = starting_config(trees, table, base=tmp_path)
+    cfg = yaml.safe_load(starter.text)
+    assert cfg["traits"]["columns"] == ["Leaf_shape", "Spine_count_adult"]
+    assert "column 'Leaf shape' is analysed as Leaf_shape" in starter.text
+    cfg.update(models={"one": {"kind": "equal"}}, ancestral={"enabled": False}, run="w")
+    cfg["trees"]["root"] = "midpoint"
+    (tmp_path / "config.yaml").write_text(yaml.safe_dump(cfg))
+    proc = run_snakemake(tmp_path, tmp_path / "config.yaml")
+    assert proc.returncode == 0, (proc.stdout + proc.stderr)[-3000:]
+    out = tmp_path / "results" / "w" / "tables"
+    check = pd.read_csv(out / "data_check.tsv", sep="\t")
+    row = check[check["item"] == "column"].set_index("trait")["detail"]
+    assert row.to_dict() == {"Leaf_shape": "Leaf shape", "Spine_count_adult": "Spine count (adult)"}
+    fits = pd.read_csv(out / "fits.tsv", sep="\t")
+    assert set(fits["analysis"]) == {"Leaf_shape", "Spine_count_adult"}

@@ -14,7 +14,7 @@ from pathlib import Path
 import yaml
 
 from ..errors import InputError, did_you_mean, join_problems
-from .traits import table_header
+from .traits import safe_column_name, table_header
 
 SCHEMA = Path(__file__).resolve().parents[2] / "workflow" / "schemas" / "config.schema.yaml"
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_.-]+$")
@@ -169,7 +169,8 @@ def name_problems(config: dict, source: str = "config") -> list:
         if not SAFE_NAME.match(t):
             problems.append(
                 f"{source}: trait column '{t}' (traits.columns) has characters that "
-                "cannot be used in file names; rename the column using letters, "
+                f"cannot be used in file names; write it as {safe_column_name(t)} (the "
+                "column is read under that name) or rename the column using letters, "
                 "digits, '_', '-' or '.'."
             )
     if len(set(traits)) != len(traits):

@@ -156,6 +156,28 @@ def test_init_proposes_a_burnin_for_a_samplers_output(tmp_path, start, name):
     assert "burn-in 0.1 proposed" in starter.summary[0]
 
 
+@pytest.mark.slow  # about 2.5 min on 2 shared cores (init turns ancestral maps on)
+def test_samplers_output_runs_from_init_to_the_end(tmp_path):
+    """Issue 21, items 2 and 3: a sampler's NEXUS output (STATE_ names, its starting tree
+    first, quoted names with spaces, a table writing them with underscores) runs from
+    init to the end with no edits; the starting tree is dropped as burn-in."""
+    (tmp_path / "data").mkdir()
+    trees = chain_file(tmp_path / "data" / "run1.nex", "equal", n_trees=10)
+    table = trait_table(tmp_path / "data" / "traits.csv", NAMES)
+    proc = init(tmp_path, "--trees", trees, "--traits", table)
+    assert proc.returncode == 0, proc.stderr
+    cfg = yaml.safe_load((tmp_path / "my_config.yaml").read_text())
+    assert cfg["trees"]["burnin"] == 0.1 and cfg["trees"]["kind"] == "posterior"
+    proc = run_snakemake(tmp_path, tmp_path / "my_config.yaml", timeout=900)
+    assert proc.returncode == 0, (proc.stdout + proc.stderr)[-3000:]
+    out = tmp_path / "results" / "my_config"
+    fits = pd.read_csv(out / "tables" / "fits.tsv", sep="\t")
+    assert sorted(fits["tree"].unique()) == list(range(1, 10))  # tree 0, the start, dropped
+    check = pd.read_csv(out / "tables" / "data_check.tsv", sep="\t")
+    assert "first_tree_looks_like_chain_start" not in set(check["item"])
+    assert "trees of a posterior sample" in (out / "methods.md").read_text()
+
+
 def test_data_check_names_a_kept_first_tree_that_looks_like_a_chain_start(tmp_path):
     """Issue 21, item 2: with burnin 0 the data check has a row for the starting tree.
     Red before: no such row."""

@@ -412,7 +412,7 @@ def test_columns_with_spaces_are_analysed_under_a_safe_name(tmp_path):
     cfg.update(models={"one": {"kind": "equal"}}, ancestral={"enabled": False}, run="w")
     cfg["trees"]["root"] = "midpoint"
     (tmp_path / "config.yaml").write_text(yaml.safe_dump(cfg))
-    proc = run_snakemake(tmp_path, tmp_path / "config.yaml")
+    proc = run_snakemake(tmp_path, tmp_path / "config.yaml", "results/w/tables/fits.tsv")
     assert proc.returncode == 0, (proc.stdout + proc.stderr)[-3000:]
     out = tmp_path / "results" / "w" / "tables"
     check = pd.read_csv(out / "data_check.tsv", sep="\t")

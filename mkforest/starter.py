@@ -566,8 +566,8 @@ def _trees_block(w, ts: TreeSurvey, file: str) -> None:
         w("  # Your trees are unrooted, and trait models need a root. Without lengths, the")
         w("  # midpoint is taken on one unit per branch: the root halves the longest tip-to-tip")
         w("  # path counted in branches (nothing else in such trees says where the root is).")
-        w("  # If you know an outgroup, root on")
-        w(outgroup)
+        w("  # If you know an outgroup, root on it instead, e.g.")
+        w("  #   root: {outgroup: [" + ", ".join(ts.tips[:2]) + "]}")
         w("  root: midpoint")
     elif ts.unrooted:
         w("  # Your trees are unrooted, and trait models need a root: they are rooted at the")

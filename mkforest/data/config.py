@@ -14,6 +14,7 @@ from pathlib import Path
 import yaml
 
 from ..errors import InputError, did_you_mean, join_problems
+from .traits import safe_column_name, table_header
 
 SCHEMA = Path(__file__).resolve().parents[2] / "workflow" / "schemas" / "config.schema.yaml"
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_.-]+$")
@@ -128,7 +129,8 @@ def name_problems(config: dict, source: str = "config") -> list:
         if not SAFE_NAME.match(t):
             problems.append(
                 f"{source}: trait column '{t}' (traits.columns) has characters that "
-                "cannot be used in file names; rename the column using letters, "
+                f"cannot be used in file names; write it as {safe_column_name(t)} (the "
+                "column is read under that name) or rename the column using letters, "
                 "digits, '_', '-' or '.'."
             )
     if len(set(traits)) != len(traits):
@@ -137,9 +139,19 @@ def name_problems(config: dict, source: str = "config") -> list:
     listed = f"traits.columns ({', '.join(traits)})"
 
     def unknown_trait(t, key):
+        if t in table_columns():  # then traits.columns is what is misspelt: say so there
+            problems.append(
+                f"{source}: {key} names trait '{t}', a column of the trait table that "
+                f"{listed} does not list; add it to traits.columns or correct the name there."
+            )
+            return
         problems.append(
             f"{source}: {key} names trait '{t}', which is not in {listed}.{did_you_mean(t, traits)}"
         )
+
+    def table_columns() -> list:
+        file = tcfg.get("file")
+        return table_header(file) if isinstance(file, str) and Path(file).is_file() else []
 
     for t in tcfg.get("order") if isinstance(tcfg.get("order"), dict) else {}:
         if traits and t not in traits:

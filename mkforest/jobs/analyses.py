@@ -47,6 +47,22 @@ def branch_treatment(config: dict, analysis: str, model: str) -> Treatment:
     return model_treatment(config, model)
 
 
+def unit_branches_only(config: dict) -> bool:
+    """Every fit of the run uses one unit of length per branch (``branches: unit`` on every
+    model that applies to a trait, and no pairs): trees written without branch lengths
+    can then be read, each branch given the length 1."""
+    from ..data.config import analyses
+
+    if config.get("pairs"):
+        return False
+    names = {m for a, models in analyses(config).items() for m in models}
+    return bool(names) and all(
+        branch_treatment(config, a, m).name == "unit"
+        for a, models in analyses(config).items()
+        for m in models
+    )
+
+
 def analysis_setup(config: dict, analysis: str, traits: dict) -> tuple:
     """(Trait to fit, {model name: (RateModel, root)}) for a trait or a pair analysis."""
     if analysis in config["traits"]["columns"]:
@@ -146,12 +162,45 @@ def table_problems(config: dict, source: str = "config") -> list:
     return problems
 
 
-def check_config(raw: dict, source: str = "config") -> dict:
-    """The workflow's check before any job: the config (schema, names) and its
-    models against the trait table, every mistake at once in one InputError."""
+def path_problems(config: dict, source: str = "config", made=()) -> list:
+    """Every input file of the config that does not exist and that no rule makes
+    (``made``: paths the workflow writes itself, the demo's data): one sentence each,
+    naming the key, before the workflow builds its graph."""
+    from pathlib import Path
+
+    keys = []
+    if isinstance(config.get("trees"), dict):
+        keys.append(("trees.file", config["trees"].get("file")))
+    for name, spec in (config.get("tree_sets") or {}).items():
+        if isinstance(spec, dict):
+            keys.append((f"tree_sets.{name}.file", spec.get("file")))
+    if isinstance(config.get("traits"), dict):
+        keys.append(("traits.file", config["traits"].get("file")))
+    made = {str(Path(m)) for m in made}
+    problems = []
+    for key, value in keys:
+        if not isinstance(value, str) or str(Path(value)) in made:
+            continue
+        path = Path(value)
+        if not path.is_file():
+            what = "is a folder, not a file" if path.is_dir() else "does not exist"
+            where = (
+                ""
+                if path.is_absolute()
+                else f" (read from the folder the run starts in, {Path.cwd()})"
+            )
+            problems.append(f"{source}: {key} '{value}' {what}{where}.")
+    return problems
+
+
+def check_config(raw: dict, source: str = "config", made=()) -> dict:
+    """The workflow's check before any job: the config (schema, names), its input files
+    (``made``: those a rule writes) and its models against the trait table, every mistake
+    at once in one InputError."""
     from ..data.config import config_problems
 
     config, problems = config_problems(raw, source)
+    problems += path_problems(raw if not isinstance(config, dict) else config, source, made)
     try:
         problems += table_problems(config, source)
     except Exception:  # a config already found faulty may not reach the table check

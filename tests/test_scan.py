@@ -1,0 +1,153 @@
+"""The all-pairs scan's engine (mkforest.engine.scan) against outside references.
+
+Sources, beside each check:
+- independent hypothesis of two traits = the two traits' separate chains: its
+  maximum ln L is the sum of theirs (uniform, stationary and data-weighted root) --
+  Pagel (1994) Proc. R. Soc. B 255:37 for the model; checked against the project's
+  own joint fit (engine/pairs.py, itself checked against a brute-force sum over
+  interior joint states in tests/test_pairs.py)
+- exp((Q1 (+) Q2) t) = exp(Q1 t) (x) exp(Q2 t) -- handbook identity (Horn & Johnson,
+  Topics in Matrix Analysis, ch. 4; from memory), checked with scipy.linalg.expm
+- independent vs dependent on two binary traits: 4 degrees of freedom; one trait
+  depending on the other: 2 -- Pagel (1994)
+- chi-square tail -- scipy.stats.chi2 (general-purpose reference library)
+- Benjamini-Hochberg adjusted p-values -- Benjamini & Hochberg (1995) J. R. Stat. Soc.
+  B 57:289 (published source), reproduced by scipy.stats.false_discovery_control
+  (general-purpose reference library)
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.linalg
+from conftest import random_newick, yule_newick
+from scipy.stats import chi2, false_discovery_control
+
+from mkforest.data.traits import trait_from_mapping
+from mkforest.data.trees import parse_newick
+from mkforest.engine import pairs, scan
+from mkforest.engine.fitting import LogLikelihood, fit_model
+from mkforest.engine.simulate import simulate_states
+
+ROOTS = ("uniform", "stationary", "data_weighted")
+
+
+def _binary(rng, tree, name, states, rate=1.0, p_missing=0.15):
+    q = np.array([[-rate, rate], [rate, -rate]])
+    nodes = simulate_states(tree, q, rng)
+    cells = {
+        t: "?" if rng.random() < p_missing else states[nodes[v]]
+        for v, t in enumerate(tree.tip_labels)
+    }
+    return trait_from_mapping(name, cells, states)
+
+
+def _data(seed, n_tips=30, polytomies=False):
+    rng = np.random.default_rng(seed)
+    text = random_newick(rng, n_tips) if polytomies else yule_newick(rng, n_tips)
+    tree = parse_newick(text)
+    a = _binary(rng, tree, "spines", ("none", "spined"))
+    b = _binary(rng, tree, "burrow", ("no", "yes"), rate=2.0)
+    return tree, a, b
+
+
+def test_kronecker_sum_is_product_of_transition_matrices():
+    # handbook identity (from memory), checked with scipy.linalg.expm
+    q1 = np.array([[-0.7, 0.7], [1.9, -1.9]])
+    q2 = np.array([[-0.2, 0.2], [0.5, -0.5]])
+    q = scan.independent_q(q1, q2)
+    for t in (0.0, 0.3, 2.5):
+        np.testing.assert_allclose(
+            scipy.linalg.expm(q * t),
+            np.kron(scipy.linalg.expm(q1 * t), scipy.linalg.expm(q2 * t)),
+            atol=1e-12,
+        )
+    off = ~np.eye(4, dtype=bool)
+    # a change of both traits at once (0,0)->(1,1) and (0,1)->(1,0) has rate 0
+    assert q[0, 3] == 0.0 and q[1, 2] == 0.0 and np.count_nonzero(q[off]) == 8
+
+
+@pytest.mark.parametrize("root", ROOTS)
+@pytest.mark.parametrize("seed", [1, 2])
+def test_independent_lnl_is_sum_of_single_fits(root, seed):
+    """Pagel (1994) independence: the joint fit of engine/pairs.py's independent
+    hypothesis reaches the sum of the two single unconstrained fits (to the optimiser's
+    tolerance), and at the singles' rates the joint ln L equals the sum exactly."""
+    tree, a, b = _data(seed, polytomies=seed == 2)
+    s1 = scan.fit_single(tree, a, root, seed=seed)
+    s2 = scan.fit_single(tree, b, root, seed=seed)
+    pair = pairs.make_pair("p", a, b)
+    joint = pair.joint_trait().tip_partials(tree)
+    ind = pairs.hypothesis_model(pair, "independent")
+    rates = scan.rates_from_q(ind, scan.independent_q(s1.q_matrix, s2.q_matrix))
+    at_singles = LogLikelihood(tree, joint, ind, root)(rates)
+    assert at_singles == pytest.approx(s1.log_likelihood + s2.log_likelihood, abs=1e-9)
+    fitted = fit_model(tree, joint, ind, root, n_starts=3, seed=seed)
+    assert fitted.log_likelihood == pytest.approx(s1.log_likelihood + s2.log_likelihood, abs=1e-4)
+
+
+def test_dependent_starts_from_independent_and_p_matches_chi_square():
+    tree, a, b = _data(5, n_tips=40)
+    singles = tuple(scan.single_from_result(scan.fit_single(tree, t, seed=5)) for t in (a, b))
+    rows = scan.test_pair(
+        tree,
+        a,
+        b,
+        singles,
+        ("dependent", "first_depends_on_second", "second_depends_on_first"),
+        seed=5,
+        max_starts=1,  # only the independent start and nothing else: the hook must hold
+        n_starts=1,
+    )
+    by = {r["alternative"]: r for r in rows}
+    assert {h: r["df"] for h, r in by.items()} == {
+        "dependent": 4,
+        "first_depends_on_second": 2,
+        "second_depends_on_first": 2,
+    }
+    for r in rows:
+        # started at the independent optimum, the alternative cannot end below it
+        assert r["log_likelihood_alternative"] >= r["log_likelihood_null"] - 1e-9
+        stat = 2 * (r["log_likelihood_alternative"] - r["log_likelihood_null"])
+        assert r["statistic"] == pytest.approx(max(stat, 0.0), abs=1e-12)
+        assert r["p_value"] == pytest.approx(chi2.sf(r["statistic"], r["df"]), rel=1e-10)
+        assert r["log_likelihood_null"] == singles[0].log_likelihood + singles[1].log_likelihood
+
+
+def test_hidden_classes_fit_independent_jointly():
+    tree, a, b = _data(3, n_tips=24)
+    rows = scan.test_pair(tree, a, b, None, ("dependent",), hidden_classes=2, seed=3)
+    (r,) = rows
+    # with two classes: independent 4x2 + switch, dependent 8x2 + switch
+    assert r["df"] == 8
+    assert r["log_likelihood_alternative"] >= r["log_likelihood_null"] - 1e-9
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_bh_matches_scipy(seed):
+    # Benjamini & Hochberg (1995) adjusted p-values == scipy.stats.false_discovery_control
+    rng = np.random.default_rng(seed)
+    p = np.concatenate([rng.uniform(size=40), rng.uniform(0, 1e-3, size=5), [0.2, 0.2, 1.0]])
+    rng.shuffle(p)
+    np.testing.assert_allclose(scan.bh_adjusted(p), false_discovery_control(p), rtol=1e-12)
+
+
+def test_bh_leaves_missing_p_values_out():
+    p = np.array([0.01, np.nan, 0.04, 0.03, np.nan])
+    q = scan.bh_adjusted(p)
+    assert np.isnan(q[1]) and np.isnan(q[4])
+    np.testing.assert_allclose(q[[0, 2, 3]], false_discovery_control(p[[0, 2, 3]]), rtol=1e-12)
+    assert np.isnan(scan.bh_adjusted([np.nan])).all()
+
+
+def test_scan_pairs_keeps_joint_chains_within_limit():
+    tree, a, b = _data(1, n_tips=10)
+    c = trait_from_mapping(
+        "soil",
+        {t: "clay" for t in tree.tip_labels[:5]}
+        | {t: "sand" for t in tree.tip_labels[5:]}
+        | {tree.tip_labels[0]: "loam"},
+    )
+    assert [(x.name, y.name) for x, y in scan.scan_pairs([a, b, c], 4)] == [("spines", "burrow")]
+    assert len(scan.scan_pairs([a, b, c], 6)) == 3

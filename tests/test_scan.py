@@ -26,7 +26,7 @@ from scipy.stats import chi2, false_discovery_control
 
 from mkforest.data.traits import trait_from_mapping
 from mkforest.data.trees import parse_newick
-from mkforest.engine import pairs, scan
+from mkforest.engine import fdr, pairs, scan
 from mkforest.engine.fitting import LogLikelihood, fit_model
 from mkforest.engine.simulate import simulate_states
 
@@ -130,15 +130,15 @@ def test_bh_matches_scipy(seed):
     rng = np.random.default_rng(seed)
     p = np.concatenate([rng.uniform(size=40), rng.uniform(0, 1e-3, size=5), [0.2, 0.2, 1.0]])
     rng.shuffle(p)
-    np.testing.assert_allclose(scan.bh_adjusted(p), false_discovery_control(p), rtol=1e-12)
+    np.testing.assert_allclose(fdr.bh_adjusted(p), false_discovery_control(p), rtol=1e-12)
 
 
 def test_bh_leaves_missing_p_values_out():
     p = np.array([0.01, np.nan, 0.04, 0.03, np.nan])
-    q = scan.bh_adjusted(p)
+    q = fdr.bh_adjusted(p)
     assert np.isnan(q[1]) and np.isnan(q[4])
     np.testing.assert_allclose(q[[0, 2, 3]], false_discovery_control(p[[0, 2, 3]]), rtol=1e-12)
-    assert np.isnan(scan.bh_adjusted([np.nan])).all()
+    assert np.isnan(fdr.bh_adjusted([np.nan])).all()
 
 
 def test_scan_pairs_keeps_joint_chains_within_limit():

@@ -11,6 +11,7 @@ from ..engine.hidden import check_no_class_in_transitions, with_hidden_classes
 from ..engine.models import KINDS, build_model, check_root
 from ..engine.treatments import Treatment, parse_treatment
 from ..errors import InputError, join_problems
+from . import scan_plan
 
 
 def branch_treatment(config: dict, analysis: str, model: str) -> Treatment:
@@ -93,6 +94,7 @@ def table_problems(config: dict, source: str = "config") -> list:
                 "column, so there is no change to model. Drop it from traits.columns "
                 f"(or list its possible states in traits.order.{name})."
             )
+    problems += scan_plan.table_problems(config, traits, source)
     for analysis in analyses(config):
         # one model at a time, so that every faulty model is named, not only the first
         if analysis in traits and traits[analysis].k < 2:
@@ -115,6 +117,7 @@ def check_config(raw: dict, source: str = "config") -> dict:
     from ..data.config import config_problems
 
     config, problems = config_problems(raw, source)
+    problems += scan_plan.name_problems(config, source)
     try:
         problems += table_problems(config, source)
     except Exception:  # a config already found faulty may not reach the table check

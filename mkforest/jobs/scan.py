@@ -66,19 +66,6 @@ SUMMARY_COLUMNS = [
 FEW_TREES = 10  # below this the spread across trees is rough (as for pairs)
 
 
-def job_config(config: dict) -> dict:
-    """Only what a scan job reads: editing models or other stages reruns no scan job."""
-    return {
-        "scan": config["scan"],
-        "fitting": config["fitting"],
-        "seed": config["seed"],
-        "traits": {
-            "columns": config["traits"]["columns"],
-            "absent_taxa": config["traits"]["absent_taxa"],
-        },
-    }
-
-
 def _fit_args(config: dict) -> dict:
     f = config["fitting"]
     return dict(

@@ -20,6 +20,19 @@ def enabled(config: dict) -> bool:
     return isinstance(scan, dict) and "traits" in scan
 
 
+def job_config(config: dict) -> dict:
+    """Only what a scan job reads: editing models or other stages reruns no scan job."""
+    return {
+        "scan": config["scan"],
+        "fitting": config["fitting"],
+        "seed": config["seed"],
+        "traits": {
+            "columns": config["traits"]["columns"],
+            "absent_taxa": config["traits"]["absent_taxa"],
+        },
+    }
+
+
 def named_traits(config: dict) -> list:
     """The scan's trait names as the config gives them (all: traits.columns)."""
     names = config["scan"]["traits"]

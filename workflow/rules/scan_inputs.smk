@@ -1,6 +1,5 @@
 # Input functions and settings of the scan rules (scan.smk).
 from mkforest.jobs import scan_plan
-from mkforest.jobs.scan import job_config
 
 SCAN = scan_plan.enabled(config)
 SCAN_JOBS = scan_plan.jobs_per_chunk(config) if SCAN else 0
@@ -12,7 +11,7 @@ wildcard_constraints:
 
 def scan_params(wildcards=None):
     """Only what a scan job reads (the scan block, fitting, seed, trait columns)."""
-    return stable(job_config(config))
+    return stable(scan_plan.job_config(config))
 
 
 def scan_pair_files(wildcards):

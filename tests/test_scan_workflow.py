@@ -189,3 +189,16 @@ def test_minimal_block_fills_defaults(tmp_path):
         "class_switch": "equal",
         "jobs_per_chunk": "auto",
     }
+
+
+@pytest.mark.parametrize("n_traits, jobs", [(4, 1), (8, 2), (30, 16), (50, 16)])
+def test_jobs_per_chunk_is_bounded(n_traits, jobs):
+    # 6, 28, 435 and 1,225 pairs: one job per 25 pairs, at most 16, whatever the trees
+    from mkforest.jobs import scan_plan
+
+    config = {"traits": {"columns": [f"t{i}" for i in range(n_traits)]}, "scan": {"traits": "all"}}
+    assert scan_plan.jobs_per_chunk(config) == jobs
+    pairs = [(a, b) for i, a in enumerate("abcdefg") for b in "abcdefg"[i + 1 :]]
+    dealt = [scan_plan.pairs_of_job(pairs, j, 3) for j in range(3)]
+    assert sorted(p for d in dealt for p in d) == sorted(pairs)
+    assert max(map(len, dealt)) - min(map(len, dealt)) <= 1

@@ -151,3 +151,17 @@ def test_scan_pairs_keeps_joint_chains_within_limit():
     )
     assert [(x.name, y.name) for x, y in scan.scan_pairs([a, b, c], 4)] == [("spines", "burrow")]
     assert len(scan.scan_pairs([a, b, c], 6)) == 3
+
+
+def test_first_starts_run_before_the_seeded_starts():
+    """fit_model(first_starts=...): the given point is start 0 and the seeded sequence
+    follows unchanged (project behaviour; no outside value)."""
+    tree, a, _ = _data(4, n_tips=30)
+    model, X = scan.single_model(a), a.tip_partials(tree)
+    far = np.full(model.n_params, 1e4 / tree.height)  # every rate at the upper bound
+    given = fit_model(tree, X, model, first_starts=(far,), n_starts=2, max_starts=3, seed=1)
+    plain = fit_model(tree, X, model, n_starts=2, max_starts=3, seed=1)
+    assert given.n_starts == plain.n_starts + 1
+    assert given.start_log_likelihoods[1:] == plain.start_log_likelihoods
+    assert given.start_log_likelihoods[0] >= LogLikelihood(tree, X, model)(far)
+    assert given.start_log_likelihoods[0] != plain.start_log_likelihoods[0]

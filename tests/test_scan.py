@@ -165,3 +165,47 @@ def test_first_starts_run_before_the_seeded_starts():
     assert given.start_log_likelihoods[1:] == plain.start_log_likelihoods
     assert given.start_log_likelihoods[0] >= LogLikelihood(tree, X, model)(far)
     assert given.start_log_likelihoods[0] != plain.start_log_likelihoods[0]
+
+
+def test_summary_leaves_impossible_trees_out_and_counts_them():
+    """An impossible fit (ln L = -inf) is no test: left out of the medians and fractions,
+    counted in n_impossible and said in the caution; q-values per tree from
+    scipy.stats.false_discovery_control over that tree's tests."""
+    import pandas as pd
+
+    from mkforest.jobs.scan import PAIR_COLUMNS, per_tree_table, summary_table
+
+    rows = []
+    for t in range(3):
+        for k, (a, b) in enumerate([("x", "y"), ("x", "z"), ("y", "z")]):
+            impossible = t == 0 and k == 0
+            rows.append(
+                dict(
+                    tree_set="s",
+                    tree=t,
+                    trait_1=a,
+                    trait_2=b,
+                    null="independent",
+                    alternative="dependent",
+                    n_taxa=10,
+                    log_likelihood_null=-np.inf if impossible else -10.0,
+                    log_likelihood_alternative=-8.0,
+                    statistic=np.nan if impossible else 4.0 + k,
+                    df=4,
+                    p_value=np.nan if impossible else 0.02 * (k + 1) + 0.01 * t,
+                    converged=True,
+                    n_at_upper=0,
+                    note="",
+                )
+            )
+    per_tree = per_tree_table(pd.DataFrame(rows, columns=PAIR_COLUMNS), 0.05)
+    for _, g in per_tree.groupby("tree"):
+        ok = g["p_value"].notna()
+        np.testing.assert_allclose(
+            g.loc[ok, "q_value"], false_discovery_control(g.loc[ok, "p_value"]), rtol=1e-12
+        )
+    s = summary_table(per_tree, 0.05).set_index(["trait_1", "trait_2"])
+    assert s.loc[("x", "y"), "n_trees"] == 2 and s.loc[("x", "y"), "n_impossible"] == 1
+    assert "1 of 3 trees left out" in s.loc[("x", "y"), "caution"]
+    assert s.loc[("x", "y"), "median_p"] == pytest.approx(np.median([0.03, 0.04]))
+    assert s.loc[("x", "z"), "n_impossible"] == 0 and s.loc[("x", "z"), "n_trees"] == 3

@@ -189,7 +189,6 @@ def summary_table(per_tree: pd.DataFrame, level: float) -> pd.DataFrame:
     keys = ["tree_set", "trait_1", "trait_2", "null", "alternative"]
     for key, g in per_tree.groupby(keys, sort=False):
         ok = g[np.isfinite(g["statistic"].astype(float))]
-        note = as_text(g["note"])
         row = dict(zip(keys, key))
         row.update(
             df=int(g["df"].iloc[0]),
@@ -200,7 +199,12 @@ def summary_table(per_tree: pd.DataFrame, level: float) -> pd.DataFrame:
             median_p=float(ok["p_value"].median()) if len(ok) else np.nan,
             fraction_discovered=float(ok["discovery"].astype(bool).mean()) if len(ok) else np.nan,
             level=level,
-            n_impossible=int(note.str.contains("impossible").sum()),
+            n_impossible=int(
+                (
+                    np.isneginf(g["log_likelihood_null"].astype(float))
+                    | np.isneginf(g["log_likelihood_alternative"].astype(float))
+                ).sum()
+            ),
             n_not_converged=int((~ok["converged"].astype(str).str.lower().eq("true")).sum()),
             n_at_upper=int((ok["n_at_upper"].astype(int) > 0).sum()),
         )

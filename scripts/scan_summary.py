@@ -15,6 +15,7 @@ def main(smk):
     frames = [
         pd.read_csv(p, sep="\t", keep_default_na=False, na_values=["", "nan"]) for p in smk.input
     ]
+    frames = [f for f in frames if len(f)]  # a job with no pair (more jobs than pairs)
     rows = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=PAIR_COLUMNS)
     level = smk.params.level
     per_tree = per_tree_table(rows, level)

@@ -162,6 +162,8 @@ def per_tree_table(rows: pd.DataFrame, level: float) -> pd.DataFrame:
     (pairs x alternatives) on that tree of that set, discovery = q_value <= level."""
     out = rows.copy()
     out["tree_set"] = as_text(out["tree_set"])
+    for col in ("log_likelihood_null", "log_likelihood_alternative", "statistic", "p_value"):
+        out[col] = out[col].astype(float)
     out["q_value"] = np.nan
     for _, idx in out.groupby(["tree_set", "tree"], sort=False).groups.items():
         out.loc[idx, "q_value"] = bh_adjusted(out.loc[idx, "p_value"].to_numpy(float))

@@ -55,6 +55,12 @@ def scan_paragraph(config: dict, summary: pd.DataFrame | None) -> str:
             f"{cite('beaulieu2013')}, the independent one on the joint states of each pair."
         )
     text += (
+        " Rate variation that neither hypothesis allows (for instance a trait whose rates "
+        "follow the state of a third trait) can make a pair appear dependent "
+        f"{cite('maddison2015')}; a flagged pair deserves a full pair analysis with a "
+        "parametric bootstrap before it is reported."
+    )
+    text += (
         " The trees of a sample are not independent replicates: the fraction of trees "
         "measures how robust a pair's result is to phylogenetic uncertainty, and the "
         "adjusted median p-value is a summary, not a test over trees."

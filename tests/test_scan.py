@@ -248,3 +248,16 @@ def test_results_do_not_depend_on_the_grouping_of_pairs():
         (r for j in range(3) for r in pair_rows(trees, traits, config, singles, j, 3)), key=key
     )
     assert len(one) == 2 * 6 and one == three
+
+
+def test_joint_state_limit_is_the_callers():
+    """pairs stay at 12 joint states; the scan may ask for up to 16 (project rule)."""
+    from mkforest.errors import InputError
+
+    four = ("w", "x", "y", "z")
+    taxa = [f"s{i}" for i in range(8)]
+    a = trait_from_mapping("shell", {t: four[i % 4] for i, t in enumerate(taxa)}, four)
+    b = trait_from_mapping("foot", {t: four[(i // 2) % 4] for i, t in enumerate(taxa)}, four)
+    with pytest.raises(InputError, match="'shell' \\(4 states\\) and 'foot' \\(4 states\\)"):
+        pairs.make_pair("p", a, b)
+    assert len(pairs.make_pair("p", a, b, max_joint=16).states) == 16

@@ -61,3 +61,9 @@ def test_traits_found_together_sit_together():
     g = [int(group[names.index(t)]) for t in order]
     # each group is one run of neighbours: the group changes exactly 3 times along the order
     assert sum(a != b for a, b in zip(g, g[1:])) == 3
+
+
+def test_no_discovery_keeps_the_column_order():
+    summary, names, _ = invented(6)
+    summary["fraction_discovered"] = 0.0
+    assert trait_order(summary, names) == names

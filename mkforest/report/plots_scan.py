@@ -16,7 +16,7 @@ def trait_order(summary: pd.DataFrame, columns=()) -> list:
     """Traits ordered so that traits found together sit together: average-linkage
     clustering of 1 - fraction of trees with a discovery (pairs not tested count as
     1), leaves in SciPy's optimal order (Bar-Joseph, Gifford & Jaakkola 2001, from
-    memory). Ties and fewer than three traits keep ``columns`` order."""
+    memory). Fewer than three traits, or every pair alike, keep ``columns`` order."""
     names = [c for c in columns if c in set(summary["trait_1"]) | set(summary["trait_2"])]
     names += [
         t for t in dict.fromkeys([*summary["trait_1"], *summary["trait_2"]]) if t not in names
@@ -34,6 +34,8 @@ def trait_order(summary: pd.DataFrame, columns=()) -> list:
         f = float(r.fraction_discovered)
         if np.isfinite(f):
             d[at[r.trait_1], at[r.trait_2]] = d[at[r.trait_2], at[r.trait_1]] = 1.0 - f
+    if np.ptp(d[~np.eye(n, dtype=bool)]) == 0:
+        return names  # every pair alike: nothing to group by, keep the table's order
     tree = linkage(squareform(d, checks=False), method="average", optimal_ordering=True)
     return [names[i] for i in leaves_list(tree)]
 

@@ -199,10 +199,7 @@ def sample_posterior(
             return density(x)[0]
 
         log_shift = math.lgamma(model.n_classes + 1)
-    log_prior = np.array(
-        [[density.log_prior(z[c, d])[0] for d in range(draws)] for c in range(chains)]
-    )
-    log_lik = log_q - log_prior
+    log_lik = log_q - density.log_prior_many(z)
     reported = density.reported(z)
     ess_bulk, ess_tail, r_hat = _diagnostics(reported)
     log_ml, mc_error = bridge_log_marginal(log_q_fn, z, log_q, np.random.default_rng(bridge_seed))

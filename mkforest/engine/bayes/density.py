@@ -52,8 +52,10 @@ class LogPosterior:
         # the prior on y = ln r: a (y + ln H) - b H e^y + c per rate, y within [ylo, yhi]
         self.a, self.bH = a, b * self.height
         self.const = self.p * (c + a * self.log_height)
-        self.ylo = math.log(lo / self.height) if lo > 0 else -math.inf
-        self.yhi = math.log(hi / self.height)
+        # beyond |y| = 700, e^y leaves the floating-point range: the density there is 0
+        # in double precision under every prior (a sampler's runaway trajectory)
+        self.ylo = math.log(lo / self.height) if lo > 0 else -700.0
+        self.yhi = min(math.log(hi / self.height), 700.0)
 
     def branch_x(self, w: float) -> float:
         """The treatment's value x for coordinate w (the range's ends never reached)."""
@@ -95,6 +97,8 @@ class LogPosterior:
     def log_prior(self, z):
         """(ln prior density of z, its gradient)."""
         p = self.p
+        if p and (z[:p].min() < self.ylo or z[:p].max() > self.yhi):
+            return -math.inf, np.zeros(self.n)
         value, grad_y = self.prior.log_density_log_scale(np.exp(z[:p] + self.log_height))
         if not self.free_branch:
             return value, grad_y

@@ -27,6 +27,7 @@ from ..engine.summarise import as_text
 from ..jobs.analyses import hidden_classes
 from .citations import REFERENCES, cite, cited_in
 from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
+from .methods_scan import scan_methods_lines, scan_results
 from .words import hypothesis_words, model_words
 
 CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
@@ -971,6 +972,7 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
         para = _ancestral_paragraph(config, tables)
         if para:
             out += ["**Ancestral states.** " + para, ""]
+    out += scan_methods_lines(config, tables)  # the all-pairs scan: report/methods_scan.py
     out += ["**Software.** " + _software_paragraph(config, software), ""]
 
     out += [
@@ -1011,6 +1013,8 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
         if notes:
             out += ["", "Cautions:", ""] + [f"- {n}" for n in notes]
         out.append("")
+    if scan_methods_lines(config, tables):
+        out += scan_results(tables.get("scan"))
     body = "\n".join(out)
     refs = cited_in(body)
     body += "\n## References\n\n" + "\n".join(f"- {r.full()}" for r in refs) + "\n"

@@ -310,7 +310,7 @@ def fit_model(
     max_starts = max(max_starts, n_starts)
     least = min_starts(model.n_params, n_starts, max_starts)
     space, starts, bounds, objective, value = _search_space(f, treatment, starts, seed, lo, hi)
-    results = _run_starts(space, starts, objective, bounds, least, max_starts, p)
+    results = _run_starts(space, starts, objective, bounds, least, max_starts, p, len(first_starts))
     run = len(results)
     best_fun, best_x = min(results, key=lambda r: r[0])
     ll = -best_fun if best_fun < IMPOSSIBLE_OBJECTIVE else -np.inf
@@ -414,19 +414,21 @@ def _search_space(f, treatment, starts, seed, lo, hi):
     return None, starts, bounds, objective, value
 
 
-def _run_starts(space, starts, objective, bounds, least, max_starts, n_rates) -> list:
+def _run_starts(space, starts, objective, bounds, least, max_starts, n_rates, n_given=0) -> list:
     """(objective, x) of each start run, in order, until the two best agree (after
     ``least`` starts) and lifting the best optimum's zero rates finds nothing better
     (``_release_zeros``; a lift that does joins the list), or ``max_starts`` have run;
     with a treatment the first start's rates are first brought near their optimum
-    (``TreatmentSpace.rates_first``). n_rates: the leading coordinates that are log-rates."""
+    (``TreatmentSpace.rates_first``). n_rates: the leading coordinates that are log-rates;
+    n_given: starts given before the seeded ones (a zero rate is lifted to its value at the
+    first seeded start, the parsimony-based guess)."""
     results = []
     probed = set()
     first = None
     for x0 in starts:
         if space is not None and not results:
             x0 = space.rates_first(x0, bounds[: space.p])
-        if first is None:
+        if len(results) == n_given:
             first = x0
         results.append(descend(objective, x0, bounds, known=results))
         if len(results) >= max_starts:
@@ -455,7 +457,7 @@ def _release_zeros(objective, results, all_bounds, n_rates, first, probed):
     above the best. ``probed`` holds the optima already tried (each is tried once)."""
     best_f, best_x = min(results, key=lambda r: r[0])
     key = best_x.tobytes()
-    if key in probed:
+    if first is None or key in probed:  # no seeded start run yet: nothing to lift to
         return None
     probed.add(key)
     for i, (lo, _) in enumerate(all_bounds[:n_rates]):

@@ -16,7 +16,7 @@ from mkforest.errors import InputError
 from mkforest.jobs.prepare import data_check, impossible_rows, tree_check_rows
 from mkforest.jobs.scripting import run_job
 
-COLUMNS = ["trait", "item", "value", "detail", "tree"]
+COLUMNS = ["tree_set", "trait", "item", "value", "detail", "tree"]
 
 
 def main(smk):
@@ -37,7 +37,10 @@ def main(smk):
         traits, trees[0].tip_labels, tcfg["absent_taxa"], f"trait table '{smk.input.traits}'"
     )
     impossible = impossible_rows(traits, trees)
-    rows = tree_check_rows(summary, summary["trees"]) + rows + impossible
+    # a row about the trait table alone holds for every tree set: its tree_set is empty
+    per_set = summary.get("sets") or {trees[0].tree_set: summary}
+    tree_rows = [r for name, s in per_set.items() for r in tree_check_rows(s, s["trees"], name)]
+    rows = tree_rows + [dict(r, tree_set="") for r in rows] + impossible
     pd.DataFrame(rows, columns=COLUMNS).astype({"tree": "Int64"}).to_csv(
         smk.output.check, sep="\t", index=False
     )

@@ -10,12 +10,15 @@ trait renders in the default suite; the other trees of that set are marked slow.
 
 from __future__ import annotations
 
+import numpy as np
+import pandas as pd
 import pytest
-from figure_checks import all_text, overlaps
+from figure_checks import all_text, overlaps, size_problems
 from figure_data import demo_like, large
 from matplotlib import colormaps
 from matplotlib.colors import to_hex
 
+from mkforest.engine.summarise import rate_summary
 from mkforest.report import plots, plots_ancestral, plots_pairs, style
 
 
@@ -72,7 +75,7 @@ def test_rates_across_trees(which, demo, big, tmp_path):
         for m in repeated:
             assert f"{m} = {data.same_as[(analysis, m)]}: drawn once" in legend
         ticks = [t.get_text() for t in ax.get_xticklabels()]
-        assert ticks[0] == "at lower\nbound" and ticks[-1] == "at upper\nbound"
+        assert ticks[0] == "at lower\nbound" and ticks[-1] == "no upper\nbound"
         for t in ticks[1:-1]:  # plain numbers, never 2×10⁰
             float(t.replace(",", ""))
     # joint changes read as the trait that changes, in the other trait's state
@@ -82,6 +85,52 @@ def test_rates_across_trees(which, demo, big, tmp_path):
     assert all(r.startswith((f"{first}: ", f"{second}: ")) for r in rows)
     assert "+" not in " ".join(rows)
     written(fig, tmp_path, "rates")
+    # the workflow draws one analysis per figure: each within a page, labels at body size
+    pages = plots.rate_pages(rates, support, pair_names(data))
+    assert list(pages) == list(data.models)
+    for analysis, page in pages.items():
+        assert size_problems(page) == [], analysis
+        assert overlaps(page) == [], analysis
+
+
+def _bound_rates(n_lower, values, bound=1e-6):
+    """rates.tsv rows of one change on len(values) + n_lower trees, n_lower at the bound."""
+    rows = [dict(tree=i, rate=bound, at_bound="lower") for i in range(n_lower)]
+    rows += [dict(tree=n_lower + i, rate=v, at_bound="") for i, v in enumerate(values)]
+    return pd.DataFrame(rows).assign(
+        analysis="size", model="free", from_state="small", to_state="large"
+    )
+
+
+def _marker_x(fig):
+    (ax,) = fig.axes
+    (points,) = [c for c in ax.collections if c.get_offsets().shape[0]]
+    return float(points.get_offsets()[0, 0]), ax
+
+
+@pytest.mark.parametrize("n_lower", [2, 7])
+def test_figure_medians_are_the_table_medians(n_lower):
+    """One statistic in table and figures (rate_summary.tsv's median over the trees the
+    data bound, those at the lower bound included). With 7 of 10 trees at the lower
+    bound the median is the bound: the marker sits at the bound column's edge and the
+    count is bold; with 2 of 10, the marker is at the table's median."""
+    rates = _bound_rates(n_lower, np.linspace(0.4, 0.9, 10 - n_lower))
+    table = rate_summary(rates).iloc[0]
+    fig = plots.rates_across_trees(rates)
+    x, ax = _marker_x(fig)
+    (count,) = [t for t in ax.texts if t.get_text() == f"{n_lower}/10"]
+    if n_lower == 7:
+        assert table["median_rate"] == 1e-6  # the bound is the headline ...
+        first_tick = ax.get_xticks()[1]
+        assert x < first_tick and x > ax.get_xticks()[0]  # ... drawn at the column's edge
+        assert count.get_fontweight() == "bold"
+    else:
+        assert x == pytest.approx(np.log10(table["median_rate"]))
+        assert count.get_fontweight() == "normal"
+    assert overlaps(fig) == []
+    # the pair figures take the same numbers (style.rate_intervals)
+    stats = style.rate_intervals(rates).iloc[0]
+    assert stats["median"] == table["median_rate"] and stats["low"] == table["rate_low95"]
 
 
 def test_rates_at_a_bound_are_counted_not_drawn(demo):

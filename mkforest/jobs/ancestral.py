@@ -55,6 +55,7 @@ from ..errors import InputError
 from ..seeds import derive_seed
 
 CLADE_COLUMNS = [
+    "tree_set",
     "clade",
     "kind",
     "n_tips",
@@ -101,7 +102,8 @@ def target_clades(
     frequencies). The table has one row per clade: ``kind`` is consensus /
     sampled / reference (a node of the summary tree), named (listed members;
     the MRCA is used and monophyly counted) or named_mrca (MRCA of a few taxa);
-    ``summary_tree`` says in words which tree the clades come from.
+    ``summary_tree`` says in words which tree the clades come from; ``tree_set`` is the set
+    whose trees gave them and their frequency (``trees`` is one set: the first).
     """
     taxa = check_same_taxa(trees)
     bits = taxon_bits(taxa)
@@ -142,6 +144,7 @@ def target_clades(
     for v in range(summary.n_tips, summary.n_nodes):
         m = mask_of(sets[v], bits)
         rows[m] = dict(
+            tree_set=trees[0].tree_set,
             clade=names[v],
             kind=kind,
             n_tips=len(sets[v]),
@@ -160,6 +163,7 @@ def target_clades(
             continue
         out.append(
             dict(
+                tree_set=trees[0].tree_set,
                 clade=nc.name,
                 kind="named_mrca" if nc.mrca_only else "named",
                 n_tips=len(nc.members),
@@ -360,7 +364,9 @@ def chunk_ancestral(
                 combined[name][t, c] = pm[v]
         if n_maps > 0:
             rng = np.random.default_rng(derive_seed(seed, tree.index, analysis, "map"))
-            ms = mixed_stochastic_maps(tree, X, mix, n_maps, rng, states)
+            # maps under a fit the data do not bound are left out of every count
+            # (bound_limited_maps): not drawn at all, as their cost grows with the rate
+            ms = mixed_stochastic_maps(tree, X, mix, n_maps, rng, states, skip=bound)
             counts[t] = ms.counts
             dwell[t] = ms.dwell
             map_model[t] = ms.model

@@ -751,8 +751,8 @@ def _analysis_results(analysis, support, rate_summary, crit_name, n_used=None) -
         others.append(
             f"{row['model']} (mean weight {number(row['mean_weight'])}; lowest "
             f"{crit_name} on {count_of(row['fraction_best'], m)} of {m} trees; median "
-            f"Δ{crit_name} {number(row['median_delta'])}, 95% interval across trees "
-            f"{number(row['delta_low95'])} to {number(row['delta_high95'])})"
+            f"Δ{crit_name} {number(row['median_criterion_difference'])}, 95% interval across trees "
+            f"{number(row['criterion_difference_low95'])} to {number(row['criterion_difference_high95'])})"
         )
     if others:
         text += (

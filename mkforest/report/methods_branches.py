@@ -30,11 +30,14 @@ WORDS = {
 
 
 def first_set(frame: pd.DataFrame | None) -> pd.DataFrame | None:
-    """The rows of the first tree set (tables keep set order); tables without sets as they are."""
+    """The rows of the first tree set (tables keep set order) and the rows that hold for
+    every set (``tree_set`` empty, e.g. data_check.tsv's rows about the trait table);
+    tables without sets as they are."""
     if frame is None or "tree_set" not in frame or frame.empty:
         return frame
     sets = as_text(frame["tree_set"])
-    return frame[sets == sets.iloc[0]]
+    named = sets[sets != ""]
+    return frame[(sets == "") | (sets == (named.iloc[0] if len(named) else ""))]
 
 
 def branches_paragraph(config: dict) -> str:

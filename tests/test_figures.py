@@ -19,7 +19,7 @@ from matplotlib import colormaps
 from matplotlib.colors import to_hex
 
 from mkforest.engine.summarise import rate_summary
-from mkforest.report import plots, plots_ancestral, plots_pairs, style
+from mkforest.report import plots, plots_ancestral, plots_branches, plots_pairs, style
 
 
 @pytest.fixture(scope="module")
@@ -50,11 +50,63 @@ def written(fig, tmp_path, name):
 def test_support_figures(which, demo, big, tmp_path):
     data = demo if which == "demo" else big
     fig = plots.support_weights(data.tables["fits"])
-    assert overlaps(fig) == []
+    assert overlaps(fig) == [] and size_problems(fig) == []
     written(fig, tmp_path, "weights")
     fig = plots.support_heatmap(data.tables["model_support"])
-    assert overlaps(fig) == []
+    assert overlaps(fig) == [] and size_problems(fig) == []
     written(fig, tmp_path, "heatmap")
+
+
+def test_support_figures_name_and_show_every_tree_set(demo):
+    """With two sets: the heatmap holds each set's rows, the weights figure names its set."""
+    support = demo.tables["model_support"]
+    two = pd.concat([support.assign(tree_set="dated"), support.assign(tree_set="molecular")])
+    fig = plots.support_heatmap(two)
+    rows = [t.get_text() for t in fig.axes[0].get_yticklabels()]
+    analyses = list(dict.fromkeys(support["analysis"]))
+    assert rows == [f"{t} · {a}" for t in ("dated", "molecular") for a in analyses]
+    assert "dated, molecular" in fig.axes[0].get_title(loc="left")
+    assert overlaps(fig) == [] and size_problems(fig) == []
+    fig = plots.support_weights(demo.tables["fits"], tree_set="dated")
+    assert "of tree set 'dated'" in fig.get_suptitle()
+
+
+def _treatment_fits():
+    """fits.tsv rows: 'glow' fitted with two treatments, 'habitat' with one, two sets."""
+    rng = np.random.default_rng(4)
+    rows = []
+    for ts in ("dated", "molecular"):
+        for tree in range(12):
+            for analysis, models in (
+                ("glow", [("one_rate", "as_given"), ("stretched", "kappa")]),
+                ("habitat", [("one_rate", "as_given"), ("free", "as_given")]),
+            ):
+                w = rng.dirichlet(np.ones(len(models)))
+                for (m, b), wi in zip(models, w):
+                    rows.append(
+                        dict(
+                            tree_set=ts,
+                            analysis=analysis,
+                            model=m,
+                            tree=tree,
+                            branches=b,
+                            weight=wi,
+                            aicc=-2 * np.log(wi),
+                            log_likelihood=-30 + rng.normal(),
+                        )
+                    )
+    return pd.DataFrame(rows)
+
+
+def test_support_branches_leaves_out_single_treatment_traits_and_says_why(tmp_path):
+    fig = plots_branches.support_branches(_treatment_fits())
+    top, bottom = fig.axes[:2]
+    rows = [t.get_text() for t in top.get_yticklabels()]
+    assert rows == ["glow · as_given", "glow · kappa"]  # no all-1.0 panel for habitat
+    assert "habitat: one treatment only" in top.get_title(loc="left")
+    assert [t.get_text() for t in bottom.get_yticklabels()] == ["glow", "habitat"]
+    assert overlaps(fig) == [] and size_problems(fig) == []
+    written(fig, tmp_path, "support_branches")
 
 
 @pytest.mark.parametrize("which", ["demo", "big"])
@@ -257,8 +309,16 @@ def test_pair_tests_figure(demo, tmp_path):
     fig = plots_pairs.pair_tests_figure(
         "shell_pattern", demo.tables["pair_tests"], demo.tables["pair_bootstrap"]
     )
-    assert overlaps(fig) == []
+    assert overlaps(fig) == [] and size_problems(fig) == []
+    labels = [ax.get_xlabel() for ax in fig.axes]
+    assert "likelihood-ratio statistic 2 × (ln L alternative − ln L null)" in labels
     written(fig, tmp_path, "tests")
+    # no bootstrap: one column, and the title says why
+    fig = plots_pairs.pair_tests_figure("shell_pattern", demo.tables["pair_tests"], pd.DataFrame())
+    n_tests = demo.tables["pair_tests"].query("pair == 'shell_pattern'")[["null", "alternative"]]
+    assert len(fig.axes) == len(n_tests.drop_duplicates())
+    assert "no parametric bootstrap" in fig.get_suptitle()
+    assert overlaps(fig) == [] and size_problems(fig) == []
 
 
 # --------------------------------------------------------------------------- ancestral

@@ -110,7 +110,11 @@ def test_support_summarises_the_fits(finished_run):
 def test_plots_written_and_labelled(finished_run):
     work, _ = finished_run
     plots = work / "results" / "tiny" / "plots"
-    for name in ("support_weights", "support_heatmap", "rates_across_trees"):
+    pages = [f"rates_across_trees/{a}" for a in ("glow", "habitat")]  # one per analysis
+    assert sorted(p.name for p in (plots / "rates_across_trees").iterdir()) == sorted(
+        f"{a}.{ext}" for a in ("glow", "habitat") for ext in ("png", "svg")
+    )
+    for name in ("support_weights", "support_heatmap", *pages):
         png = (plots / f"{name}.png").read_bytes()
         assert png[:8] == b"\x89PNG\r\n\x1a\n" and len(png) > 5000
         svg = (plots / f"{name}.svg").read_text()

@@ -28,9 +28,10 @@ def _grid(n):
     return rows, cols
 
 
-def support_weights(fits: pd.DataFrame, criterion: str = "aicc"):
+def support_weights(fits: pd.DataFrame, criterion: str = "aicc", tree_set: str = ""):
     """Akaike weights across trees per model (one row each), one panel per analysis.
-    Models reported ``same_as`` another have no weight and are not drawn."""
+    Models reported ``same_as`` another have no weight and are not drawn. tree_set: the
+    set the trees come from, named in the title (with several sets)."""
     analyses = list(dict.fromkeys(fits["analysis"]))
     d_all = fits[fits["weight"].notna()]
     counts = [max(d_all.loc[d_all["analysis"] == a, "model"].nunique(), 1) for a in analyses]
@@ -42,7 +43,7 @@ def support_weights(fits: pd.DataFrame, criterion: str = "aicc"):
         cols,
         squeeze=False,
         layout="constrained",
-        figsize=(4.6 * cols, sum(0.32 * n + 1.0 for n in per_row) + 0.5),
+        figsize=(style.PAGE[0], sum(0.32 * n + 1.0 for n in per_row) + 0.5),
         gridspec_kw={"height_ratios": [n + 2.5 for n in per_row]},
     )
     name = CRITERION_NAMES.get(criterion, criterion)
@@ -52,41 +53,60 @@ def support_weights(fits: pd.DataFrame, criterion: str = "aicc"):
         if order:
             style.box_and_points(ax, [d.loc[d["model"] == m, "weight"] for m in order], order)
         ax.set_xlim(-0.03, 1.03)
-        ax.set_title(a, fontsize=9, loc="left", fontweight="bold")
+        ax.set_title(a, fontsize=style.BODY_TEXT + 1, loc="left", fontweight="bold")
         ax.set_ylabel("")
-        ax.set_xlabel(f"{name} weight per tree", fontsize=8)
-        ax.tick_params(labelsize=7.5)
+        ax.set_xlabel(f"{name} weight per tree", fontsize=style.BODY_TEXT)
+        ax.tick_params(labelsize=style.BODY_TEXT)
         ax.tick_params(axis="y", length=0)
     for ax in list(axes.flat)[len(analyses) :]:
         ax.set_visible(False)
-    fig.suptitle(f"Model support across {fits['tree'].nunique()} trees", fontsize=10)
+    where = f" of tree set '{tree_set}'" if tree_set else ""
+    fig.suptitle(
+        f"Model support across {fits['tree'].nunique()} trees{where}",
+        fontsize=style.BODY_TEXT + 2,
+    )
     return fig
 
 
 def support_heatmap(support: pd.DataFrame):
-    """Mean Akaike weight, analysis x model (models reported ``same_as`` another: blank)."""
-    table = support.pivot(index="analysis", columns="model", values="mean_weight")
+    """Mean Akaike weight, analysis x model (models reported ``same_as`` another: blank);
+    with several tree sets, one row per set and analysis ("set · analysis"): every set's
+    support in one grid."""
+    sets = list(dict.fromkeys(support["tree_set"])) if "tree_set" in support else []
+    many = len(sets) > 1
+    rows = (
+        [f"{t} · {a}" for t, a in zip(support["tree_set"], support["analysis"])]
+        if many
+        else list(support["analysis"])
+    )
+    s = support.assign(row=rows)
+    table = s.pivot(index="row", columns="model", values="mean_weight")
     table = table.reindex(
-        index=list(dict.fromkeys(support["analysis"])),
-        columns=list(dict.fromkeys(support["model"])),
+        index=list(dict.fromkeys(s["row"])), columns=list(dict.fromkeys(s["model"]))
     )
     longest = max((len(str(c)) for c in table.columns), default=5)
+    width = min(style.PAGE[0], 3.4 + 0.8 * table.shape[1])
     fig, ax = plt.subplots(
-        figsize=(2.2 + 0.75 * table.shape[1], 1.6 + 0.45 * table.shape[0] + 0.07 * longest),
+        figsize=(width, min(style.PAGE[1], 2.0 + 0.4 * table.shape[0] + 0.08 * longest)),
         layout="constrained",
     )
-    style.annotated_grid(ax, table, PALETTE, 0.0, 1.0, "mean weight across trees")
-    ax.set_title(
-        "Mean model weight across trees (blank: model not fitted to that analysis or "
-        "the same as another)",
-        fontsize=9,
-        loc="left",
-        wrap=True,
+    style.annotated_grid(
+        ax, table, PALETTE, 0.0, 1.0, "mean weight across trees", fontsize=style.BODY_TEXT
     )
-    ax.set_xlabel("model")
-    ax.set_ylabel("analysis")
-    ax.tick_params(axis="x", rotation=90, labelsize=7.5)
-    ax.tick_params(axis="y", rotation=0, labelsize=7.5)
+    ax.set_title(
+        "Mean model weight across trees"
+        + (f" in each tree set ({', '.join(sets)})" if many else "")
+        + "\n(blank: model not fitted to that analysis or the same as another)",
+        fontsize=style.BODY_TEXT + 1,
+        loc="left",
+    )
+    ax.set_xlabel("model", fontsize=style.BODY_TEXT)
+    ax.set_ylabel("tree set · analysis" if many else "analysis", fontsize=style.BODY_TEXT)
+    ax.tick_params(axis="x", rotation=90, labelsize=style.BODY_TEXT)
+    ax.tick_params(axis="y", rotation=0, labelsize=style.BODY_TEXT)
+    bar = fig.axes[-1]
+    bar.tick_params(labelsize=style.BODY_TEXT)
+    bar.yaxis.label.set_fontsize(style.BODY_TEXT)
     return fig
 
 
@@ -231,6 +251,7 @@ def rates_across_trees(
     pairs: dict | None = None,
     states: dict | None = None,
     tree_set: str = "",
+    part: tuple | None = None,
 ):
     """Rates across trees per change, one panel per analysis and branch-length treatment
     (rates under different treatments are in different units: each panel's axis names
@@ -239,7 +260,7 @@ def rates_across_trees(
     (``style.rate_intervals``), with the trees at each bound counted beside the axis.
     pairs: {pair: (first, second)} to name joint-state changes by the trait that changes;
     states: {analysis: states in their declared order} for the order of the rows;
-    tree_set: named in the title. A model keeps its colour in every panel (single traits
+    tree_set: named in the title; part: (i, n) of an analysis cut into pages. A model keeps its colour in every panel (single traits
     and pairs have their own sets of colours). Fits with ln L = -inf have no rates: their
     changes keep their rows, and the panel's right-hand title counts them
     (style.impossible_note). The workflow draws one analysis per figure (``rate_pages``),
@@ -291,7 +312,12 @@ def rates_across_trees(
         d["row"] = list(zip(d["from_state"], d["to_state"]))
         d["series"] = d["model"]
         interval_panel(ax, rows, d, models, colour, marker)
-        ax.set_title(a, fontsize=style.BODY_TEXT + 1, loc="left", fontweight="bold")
+        ax.set_title(
+            a + (f" (changes, part {part[0]} of {part[1]})" if part else ""),
+            fontsize=style.BODY_TEXT + 1,
+            loc="left",
+            fontweight="bold",
+        )
         ax.set_title(
             style.impossible_note(rates[rates["analysis"] == a], models),
             fontsize=style.BODY_TEXT,
@@ -331,12 +357,35 @@ def rates_across_trees(
 
 
 def rate_pages(rates, support=None, pairs=None, states=None, tree_set: str = "") -> dict:
-    """{analysis: its rates-across-trees figure}: one figure per analysis keeps every
-    figure within a page however many traits a run has."""
-    return {
-        a: rates_across_trees(rates[rates["analysis"] == a], support, pairs, states, tree_set)
-        for a in dict.fromkeys(rates["analysis"])
-    }
+    """{page name: figure}: one figure per analysis ("<analysis>"), so a figure's size
+    never grows with the number of traits; an analysis too tall for a page (many joint
+    states) is cut into parts by its changes, in reading order ("<analysis>.part2", ...),
+    each within the page."""
+    out = {}
+    pairs = pairs or {}
+    for a in dict.fromkeys(rates["analysis"]):
+        mine = rates[rates["analysis"] == a]
+        fig = rates_across_trees(mine, support, pairs, states, tree_set)
+        height = fig.get_size_inches()[1]
+        if height <= style.PAGE[1]:
+            out[a] = fig
+            continue
+        plt.close(fig)
+        keys = style.ordered_changes(
+            zip(mine["from_state"], mine["to_state"]), pairs.get(a), (states or {}).get(a)
+        )
+        n = int(np.ceil(height / (style.PAGE[1] - 1.0)))
+        size = int(np.ceil(len(keys) / n))
+        change = pd.Series(list(zip(mine["from_state"], mine["to_state"])), index=mine.index)
+        for i in range(n):
+            part = set(keys[i * size : (i + 1) * size])
+            if not part:
+                continue
+            fig = rates_across_trees(
+                mine[change.isin(part)], support, pairs, states, tree_set, part=(i + 1, n)
+            )
+            out[a if i == 0 else f"{a}.part{i + 1}"] = fig
+    return out
 
 
 save = style.save

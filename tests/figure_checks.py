@@ -223,7 +223,11 @@ def size_problems(fig, page=None) -> list:
     matplotlib draws it at; a figure printed at 100%). [] when it fits."""
     from mkforest.report.style import BODY_TEXT, PAGE
 
-    width, height = fig.get_size_inches()
+    fig.canvas.draw()
+    # the size as saved (style.save crops to the drawn content: bbox_inches="tight", 0.1 in
+    # of padding), which can exceed the figure's own size when text spills over its edge
+    tight = fig.get_tightbbox(fig.canvas.get_renderer())
+    width, height = tight.width + 0.2, tight.height + 0.2
     page = page or PAGE
     out = []
     if width > page[0] + 1e-9 or height > page[1] + 1e-9:

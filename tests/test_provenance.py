@@ -66,7 +66,7 @@ def test_manifest_hashes_every_result_and_input(run):
     on_disk = {
         p.relative_to(out_dir(work)).as_posix()
         for sub in ("tables", "plots")
-        for p in (out_dir(work) / sub).rglob("*")
+        for p in (out_dir(work) / sub).rglob("[!.]*")
         if p.is_file()
     }
     on_disk.add("methods.md")

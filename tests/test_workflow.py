@@ -111,7 +111,7 @@ def test_plots_written_and_labelled(finished_run):
     work, _ = finished_run
     plots = work / "results" / "tiny" / "plots"
     pages = [f"rates_across_trees/{a}" for a in ("glow", "habitat")]  # one per analysis
-    assert sorted(p.name for p in (plots / "rates_across_trees").iterdir()) == sorted(
+    assert sorted(p.name for p in (plots / "rates_across_trees").glob("[!.]*")) == sorted(
         f"{a}.{ext}" for a in ("glow", "habitat") for ext in ("png", "svg")
     )
     for name in ("support_weights", "support_heatmap", *pages):

@@ -43,7 +43,7 @@ def support_weights(fits: pd.DataFrame, criterion: str = "aicc", tree_set: str =
         cols,
         squeeze=False,
         layout="constrained",
-        figsize=(style.PAGE[0], sum(0.32 * n + 1.0 for n in per_row) + 0.5),
+        figsize=(style.FULL_WIDTH, sum(0.32 * n + 1.0 for n in per_row) + 0.5),
         gridspec_kw={"height_ratios": [n + 2.5 for n in per_row]},
     )
     name = CRITERION_NAMES.get(criterion, criterion)
@@ -85,9 +85,9 @@ def support_heatmap(support: pd.DataFrame):
         index=list(dict.fromkeys(s["row"])), columns=list(dict.fromkeys(s["model"]))
     )
     longest = max((len(str(c)) for c in table.columns), default=5)
-    width = min(style.PAGE[0], 3.4 + 0.8 * table.shape[1])
+    width = min(style.FULL_WIDTH, 3.4 + 0.8 * table.shape[1])
     fig, ax = plt.subplots(
-        figsize=(width, min(style.PAGE[1], 2.0 + 0.4 * table.shape[0] + 0.08 * longest)),
+        figsize=(width, min(style.FULL_HEIGHT, 2.0 + 0.4 * table.shape[0] + 0.08 * longest)),
         layout="constrained",
     )
     style.annotated_grid(
@@ -290,7 +290,7 @@ def rates_across_trees(
         1,
         squeeze=False,
         layout="constrained",
-        figsize=(style.PAGE[0], sum(heights) + 0.75 * len(panels) + 0.6),
+        figsize=(style.FULL_WIDTH, sum(heights) + 0.75 * len(panels) + 0.6),
         gridspec_kw={"height_ratios": heights},
     )
     states = states or {}
@@ -349,7 +349,8 @@ def rates_across_trees(
     fig.suptitle(
         f"Rates across trees ({where}{n_trees} trees): median (marker) and central 95% "
         "of trees (line), as in rate_summary.tsv;\ntrees at the lower bound counted on the "
-        "left (bold: the median is the bound), trees the data do not bound above on the right",
+        "left (bold: the median is the bound),\ntrees the data do not bound above counted "
+        "on the right",
         fontsize=style.BODY_TEXT,
     )
     style.clear_end_ticks(fig)
@@ -367,14 +368,14 @@ def rate_pages(rates, support=None, pairs=None, states=None, tree_set: str = "")
         mine = rates[rates["analysis"] == a]
         fig = rates_across_trees(mine, support, pairs, states, tree_set)
         height = fig.get_size_inches()[1]
-        if height <= style.PAGE[1]:
+        if height <= style.FULL_HEIGHT:
             out[a] = fig
             continue
         plt.close(fig)
         keys = style.ordered_changes(
             zip(mine["from_state"], mine["to_state"]), pairs.get(a), (states or {}).get(a)
         )
-        n = int(np.ceil(height / (style.PAGE[1] - 1.0)))
+        n = int(np.ceil(height / (style.FULL_HEIGHT - 1.0)))
         size = int(np.ceil(len(keys) / n))
         change = pd.Series(list(zip(mine["from_state"], mine["to_state"])), index=mine.index)
         for i in range(n):

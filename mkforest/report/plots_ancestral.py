@@ -431,22 +431,24 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
         1,
         squeeze=False,
         layout="constrained",
-        figsize=(7.5, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
+        figsize=(style.FULL_WIDTH, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
         gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]},
     )
-    for ax, a in zip(axes[:, 0], analyses):
+    for ax, a in zip(axes.flat, analyses):
         g = d[d["analysis"] == a].copy()
+        n_all = g["tree"].nunique()
         keys = style.ordered_changes(
             zip(g["from_state"], g["to_state"]), pairs.get(a), states.get(a)
         )
         label = {k: style.change_label(*k, pairs.get(a)) for k in keys}
+
         g["direction"] = [label[k] for k in zip(g["from_state"], g["to_state"])]
         order = [label[k] for k in keys]
         # a tree whose every map came from a fit with a rate the data do not bound has no
         # count (mkforest.jobs.ancestral.transition_tables): it is left out of the panel
         g = g[np.isfinite(g["mean_count"].astype(float))]
         if g.empty:
-            ax.set_title(f"{a}", fontsize=9, loc="left", fontweight="bold")
+            ax.set_title(f"{a}", fontsize=style.BODY_TEXT + 1, loc="left", fontweight="bold")
             ax.text(
                 0.5,
                 0.5,
@@ -455,7 +457,7 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
                 ha="center",
                 va="center",
                 transform=ax.transAxes,
-                fontsize=8,
+                fontsize=style.BODY_TEXT,
             )
             ax.set_xticks([])
             ax.set_yticks([])
@@ -468,20 +470,30 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
             jitter=0.2,
         )
         n_trees = g["tree"].nunique()
+        missing = n_all - n_trees
         ax.set_title(
-            f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'})",
-            fontsize=9,
+            f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'})"
+            + (
+                f"\n{missing} of {n_all} trees left out: every map\nunder a rate the data "
+                "do not bound"
+                if missing
+                else ""
+            ),
+            fontsize=style.BODY_TEXT + 1,
             loc="left",
             fontweight="bold",
         )
         ax.set_ylabel("")
-        ax.set_xlabel("changes on the tree (mean of the tree's maps)", fontsize=8)
+        ax.set_xlabel("changes on the tree (mean of the tree's maps)", fontsize=style.BODY_TEXT)
         ax.set_xlim(left=0)
-        ax.tick_params(axis="y", labelsize=7.5, length=0)
-        ax.tick_params(axis="x", labelsize=7.5)
+        ax.tick_params(axis="y", labelsize=style.BODY_TEXT, length=0)
+        ax.tick_params(axis="x", labelsize=style.BODY_TEXT)
         ax.grid(axis="x", color="#eeeeee", lw=0.6)
         ax.set_axisbelow(True)
-    fig.suptitle("Stochastic maps: number of changes by direction across trees", fontsize=10)
+    fig.suptitle(
+        "Stochastic maps: number of changes by direction across trees",
+        fontsize=style.BODY_TEXT + 2,
+    )
     return fig
 
 

@@ -79,7 +79,7 @@ def support_branches(fits: pd.DataFrame, criterion: str = "aicc"):
     fig, axes = plt.subplots(
         len(heights),
         1,
-        figsize=(style.PAGE[0], min(sum(heights) + 0.8, style.PAGE[1])),
+        figsize=(style.FULL_WIDTH, min(sum(heights) + 0.8, style.FULL_HEIGHT)),
         squeeze=False,
         layout="constrained",
         gridspec_kw={"height_ratios": heights},

@@ -134,7 +134,7 @@ def rates_by_state(
     fig, axes = plt.subplots(
         2,
         1,
-        figsize=(style.PAGE[0], sum(heights) + 2.0),
+        figsize=(style.FULL_WIDTH, sum(heights) + 2.0),
         layout="constrained",
         gridspec_kw={"height_ratios": heights},
     )
@@ -342,7 +342,7 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
     fig, axes = plt.subplots(
         n,
         cols,
-        figsize=(style.PAGE[0], min(0.9 + 2.6 * n, style.PAGE[1])),
+        figsize=(style.FULL_WIDTH, min(0.9 + 2.6 * n, style.FULL_HEIGHT)),
         squeeze=False,
         layout="constrained",
     )
@@ -464,7 +464,7 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
         )
     fig.suptitle(
         f"{pair_name}: likelihood-ratio tests across trees"
-        + ("" if cols == 2 else " (no parametric bootstrap: set pairs.<name>.bootstrap > 0)"),
+        + ("" if cols == 2 else "\n(no parametric bootstrap: set pairs.<name>.bootstrap > 0)"),
         fontsize=style.BODY_TEXT + 1,
     )
     return fig

@@ -38,6 +38,8 @@ PRECISION = 0.001  # rates below it are written "< 0.001"
 # writes no text smaller.
 PAGE = (7.2, 9.7)  # inches, width x height
 BODY_TEXT = 8.0  # points
+# what a figure may draw: save crops to the drawn content and pads it by 0.1 in each side
+FULL_WIDTH, FULL_HEIGHT = PAGE[0] - 0.2, PAGE[1] - 0.2
 
 
 def categorical(n: int) -> list:
@@ -164,7 +166,8 @@ def annotated_grid(
 
 def clear_end_ticks(fig) -> None:
     """Hide the tick labels of an x axis that would overlap its first or last label (the
-    bound columns' names), measured after layout, in every axes of the figure."""
+    bound columns' names) or the tick label kept before it, measured after layout, in
+    every axes of the figure."""
     fig.canvas.draw()
     renderer = fig.canvas.get_renderer()
     for ax in fig.axes:
@@ -172,10 +175,15 @@ def clear_end_ticks(fig) -> None:
         if len(labels) < 3:
             continue
         ends = [labels[0].get_window_extent(renderer), labels[-1].get_window_extent(renderer)]
+        kept = None  # and any that would overlap the last one kept, left to right
         for t in labels[1:-1]:
             box = t.get_window_extent(renderer)
-            if any(box.x1 > e.x0 - 2 and box.x0 < e.x1 + 2 for e in ends):
+            if any(box.x1 > e.x0 - 2 and box.x0 < e.x1 + 2 for e in ends) or (
+                kept is not None and box.x0 < kept.x1 + 2
+            ):
                 t.set_visible(False)
+            else:
+                kept = box
 
 
 def rate_text(x, precision: float = PRECISION) -> str:

@@ -10,7 +10,7 @@ import json
 import pandas as pd
 
 from mkforest.data.traits import traits_from_json
-from mkforest.data.trees import parse_newick
+from mkforest.data.trees import describe_rooting, parse_newick
 from mkforest.jobs.analyses import analysis_setup
 from mkforest.jobs.scripting import run_job
 from mkforest.report import plots_ancestral
@@ -36,7 +36,13 @@ def main(smk):
             [m for m, _ in models.values()], trait.k
         )
         fig = plots_ancestral.state_tree(
-            tree, states[states["analysis"] == analysis], clades, trait, analysis, ordered
+            tree,
+            states[states["analysis"] == analysis],
+            clades,
+            trait,
+            analysis,
+            ordered,
+            rooting=describe_rooting(smk.params.rooting),
         )
         plots_ancestral.save(
             fig, [p for p in out.trees if Path(p).stem == f"ancestral_tree_{analysis}"]

@@ -180,6 +180,12 @@ def test_plot_and_methods(finished):
     text = (out / "methods.md").read_text()
     assert "not which trees are closer to the truth" in text
     assert "Pagel 1994" in text and "McGraw & Wong 1992" in text
+    # no stray fragment; the second set in the paragraph and in every analysis's results
+    assert "Tree set 'dated'. " not in text and "(tree set 'dated')" in text
+    brief = text.split("## Methods in one paragraph", 1)[1].split("##", 1)[0]
+    assert "tree set 'molecular' (5 trees)" in brief
+    assert "kappa, estimated on each tree" in brief and "kappa fixed at 0" in brief
+    assert text.count("On tree set 'molecular' (5 trees)") == 3  # glow, habitat, banding
 
 
 def test_pair_tests_on_every_set(finished):

@@ -17,7 +17,7 @@ from figure_checks import all_text, overlaps, size_problems
 from figure_data import demo_like, large
 from matplotlib import colormaps
 from matplotlib.collections import PathCollection
-from matplotlib.colors import to_hex
+from matplotlib.colors import to_hex, to_rgb
 
 from mkforest.engine.summarise import rate_summary
 from mkforest.report import plots, plots_ancestral, plots_branches, plots_pairs, style
@@ -249,7 +249,28 @@ def test_palettes_are_the_colour_blind_safe_ones():
     assert {c.upper() for c in style.categorical(7)} == published
     assert len(set(style.categorical(12))) == 12
     ramp = style.ordered(4)
-    assert len(set(ramp)) == 4 and ramp[0] == to_hex(colormaps["cividis"](0.0))
+    assert len(set(ramp)) == 4 and ramp[0] == to_hex(colormaps["viridis"](0.0))
+
+
+def _lab(hex_colour):
+    """CIE 1976 L*a*b* of an sRGB colour (D65 white; the sRGB and CIELAB formulas of
+    IEC 61966-2-1 and CIE 15, from memory)."""
+    c = np.array(to_rgb(hex_colour))
+    c = np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+    m = np.array([[0.4124, 0.3576, 0.1805], [0.2126, 0.7152, 0.0722], [0.0193, 0.1192, 0.9505]])
+    xyz = m @ c / np.array([0.95047, 1.0, 1.08883])
+    f = np.where(xyz > 216 / 24389, np.cbrt(xyz), (24389 / 27 * xyz + 16) / 116)
+    return np.array([116 * f[1] - 16, 500 * (f[0] - f[1]), 200 * (f[1] - f[2])])
+
+
+def test_ordered_states_are_told_apart():
+    """Five ordered states (a count 0-4): neighbouring colours at least 25 CIE76 units
+    apart (a just-noticeable difference is about 2.3, Sharma 2003, from memory; small tip
+    marks need far more: 25 is our own margin). cividis gave 18."""
+    lab = [_lab(c) for c in style.ordered(5)]
+    steps = [np.linalg.norm(b - a) for a, b in zip(lab, lab[1:])]
+    assert min(steps) >= 25, steps
+    assert lab[-1][0] < 90  # the lightest still shows on white
 
 
 # --------------------------------------------------------------------------- pairs

@@ -25,7 +25,17 @@ from ..engine.models import HYPOTHESES
 from ..engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X
 from ..engine.summarise import as_text
 from .citations import REFERENCES, cite, cited_in
-from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
+from .methods_branches import (
+    branches_paragraph,
+    first_set,
+    other_sets_lines,
+    rate_unit_words,
+    results_lines,
+    treatment_brief,
+    treatment_label,
+    tree_sets_brief,
+    tree_sets_paragraph,
+)
 from .words import hypothesis_words, model_words
 
 CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
@@ -198,11 +208,12 @@ def _data_paragraph(config, tables) -> str:
 
 
 def _trees_paragraph(config, tables) -> str:
-    tcfg = next(iter(tree_sets(config).values()))
+    sets = tree_sets(config)
+    tcfg = next(iter(sets.values()))
     used = first_set(tables["trees_used"])
     positions = sorted(int(t) for t in used["tree"])
     n = len(positions)
-    name = Path(tcfg["file"]).name
+    name = Path(tcfg["file"]).name + (f" (tree set '{next(iter(sets))}')" if len(sets) > 1 else "")
     if n == 1:
         return (
             f"Every model was fitted on one tree, the tree at position {positions[0]} "
@@ -547,8 +558,14 @@ BRIEF_MAX_WORDS = 250
 
 
 def _quoted_models(config, models) -> list:
-    """'"one_rate" (one rate for all changes)' once per model name, in config order."""
+    """'"one_rate" (one rate for all changes)' once per model name, in config order: its
+    rate structure and, when the models do not all use the given lengths, its branch-length
+    treatment ('"stretched" (one rate for all changes; branch lengths raised to a power
+    kappa, estimated on each tree)')."""
     pairs = config.get("pairs", {})
+    specs = config.get("models", {})
+    labels = {name: treatment_label(specs.get(name)) for name in specs}
+    mixed = set(labels.values()) != {"as_given"}
     out, seen = [], set()
     for analysis, named in models.items():
         if analysis in pairs:
@@ -556,7 +573,8 @@ def _quoted_models(config, models) -> list:
         for name, (model, _) in named.items():
             if name not in seen:
                 seen.add(name)
-                out.append(f"{_quote(name)} ({model_words(model)})")
+                how = f"; {treatment_brief(labels.get(name, 'as_given'))}" if mixed else ""
+                out.append(f"{_quote(name)} ({model_words(model)}{how})")
     return out
 
 
@@ -690,6 +708,7 @@ def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) ->
         f"the mean Akaike weight {cite('burnham2002')} and the share of trees where each "
         "model ranked best."
     )
+    text += tree_sets_brief(tree_sets(config), tables.get("all_trees_used"))
     text += _brief_pairs(config, models, tables)
     text += _brief_ancestral(config, tables)
     text += (
@@ -765,9 +784,10 @@ def _analysis_results(analysis, support, rate_summary, crit_name, n_used=None) -
     ]
     if len(rates):
         parts = [rate_words(r) for r in rates.to_dict("records")]
+        unit = rate_unit_words(best.get("branches", "as_given"))
         text += (
             f" Under {best['model']}, the median rates across trees (central 95% interval; "
-            f"changes per unit branch length) were: {'; '.join(parts)}."
+            f"{unit}) were: {'; '.join(parts)}."
         )
     return text
 
@@ -917,11 +937,14 @@ def _ancestral_cautions(analysis, tables) -> list:
 
 def methods_text(config: dict, tables: dict, models: dict, software: dict) -> str:
     sets = tree_sets(config)
+    every_support = tables["model_support"]  # every set's, for the other sets' results
+    every_used = tables.get("trees_used")
     # the sections below describe the first tree set; the comparison of sets has its own
     tables = {
         name: (t if name in ("tree_set_support", "treatment_support") else first_set(t))
         for name, t in tables.items()
     }
+    tables["all_trees_used"] = every_used
     support = tables["model_support"]
     crit_name = CRITERION_NAMES[config["criterion"]]
     pair_summary = tables.get("pair_summary")
@@ -944,7 +967,6 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
         "**Data and trees.** "
         + _data_paragraph(config, tables)
         + " "
-        + (f"Tree set '{next(iter(sets))}'. " if len(sets) > 1 else "")
         + _trees_paragraph(config, tables)
         + (" " + tree_sets_paragraph(sets) if len(sets) > 1 else ""),
         "",
@@ -982,7 +1004,9 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
                 analysis, support, rate_summary, crit_name, len(tables["trees_used"])
             ),
         ]
-        extra = results_lines(analysis, tables)
+        extra = other_sets_lines(analysis, every_support, crit_name) + results_lines(
+            analysis, tables
+        )
         if extra:
             out += ["", " ".join(extra)]
         if has_pairs and pair_summary is not None and analysis in config["pairs"]:

@@ -26,6 +26,7 @@ from matplotlib.collections import LineCollection  # noqa: E402
 from matplotlib.legend_handler import HandlerTuple  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
+from matplotlib.ticker import MaxNLocator  # noqa: E402
 
 from ..data.clades import ladder_children, node_clades, tips_in_drawing_order  # noqa: E402
 from . import style  # noqa: E402
@@ -111,6 +112,7 @@ def state_tree(
     colours: dict | None = None,
     title: str | None = None,
     legend_title: str | None = None,
+    rooting: str = "",
 ):
     """Summary tree with mean ancestral state probabilities at its nodes.
 
@@ -123,6 +125,12 @@ def state_tree(
     root, where it touches no other bar, tip mark or label; a clade frequency below
     1 is written beside its bar where it touches nothing (all are in clades.tsv).
     colours, title, legend_title: for other categories drawn the same way (hidden classes).
+    rooting: how the trees were rooted, in words (data.trees.describe_rooting), in the title.
+
+    Tips that end short of the label column (trees that are not ultrametric) are joined
+    to their mark by a dotted leader; a taxon absent from the trait table is hatched like
+    an unknown cell; a time tree (every tip at the same distance from the root) gets an
+    axis of time before present, in the trees' units.
     """
     labels = list(dict.fromkeys(states["state"].astype(str)))
     if trait is not None:
@@ -162,9 +170,24 @@ def state_tree(
         (x0, y0), (x1, y1) = inch(xa, ya), inch(xb, yb)
         branch_boxes.append([min(x0, x1), min(y0, y1) - 0.01, max(x0, x1), max(y0, y1) + 0.01])
 
-    # tips: a mark of the observed state(s), then the label
+    # tips: a mark of the observed state(s), then the label; a tip that ends short of the
+    # label column is joined to it by a dotted leader (a guide text may not sit on)
     tip_row = {t: i for i, t in enumerate(trait.taxa)} if trait is not None else {}
     tip_x = span + 0.08 * per_in
+    short = [v for v in range(n) if x[v] < span - 1e-6 * span]
+    if short:
+        ax.add_collection(
+            LineCollection(
+                [[(x[v], y[v]), (tip_x, y[v])] for v in short],
+                colors="#9a9a9a",
+                linewidths=0.6,
+                linestyles=(0, (1, 2)),
+                zorder=1,
+            )
+        )
+        for v in short:
+            (x0, y0), (x1, _) = inch(x[v], y[v]), inch(tip_x, y[v])
+            branch_boxes.append([x0, y0 - 0.01, x1, y0 + 0.01])
     unknown = ambiguous = False
     for v in range(n):
         label = tree.tip_labels[v]
@@ -173,10 +196,10 @@ def state_tree(
             [xi, yi - ROW * 0.4, xi + TIP_W + 0.04 + _text_size(label, FONT_TIP)[0], yi + ROW * 0.4]
         )
         ax.text(tip_x + (TIP_W + 0.05) * per_in, y[v], label, va="center", fontsize=FONT_TIP)
-        i = tip_row.get(label)
-        if i is None:
+        if trait is None:
             continue
-        possible = np.flatnonzero(trait.possible[i])
+        i = tip_row.get(label)  # a taxon absent from the table is unknown, as in the fits
+        possible = np.flatnonzero(trait.possible[i]) if i is not None else np.arange(trait.k)
         h = 0.7
         if len(possible) == len(trait.states):
             ax.add_patch(
@@ -354,10 +377,19 @@ def state_tree(
     for side in ("left", "right", "top"):
         ax.spines[side].set_visible(False)
     ax.spines["bottom"].set_bounds(0, span)
-    ax.set_xticks([t for t in ax.get_xticks() if 0 <= t <= span])
-    ax.tick_params(axis="x", labelsize=7.5)
+    tips = x[:n]
+    timed = n > 1 and float(tips.max() - tips.min()) <= 1e-6 * span  # a time tree
+    ticks = [t for t in ax.get_xticks() if 0 <= t <= span]
+    if timed:  # ticks at round times before present, counted back from the tips
+        before = [b for b in MaxNLocator(6).tick_values(0, span) if 0 <= b <= span * (1 + 1e-9)]
+        ax.set_xticks([span - b for b in before], [f"{b:g}" for b in before])
+        xlabel = "time before present (the trees' branch-length units)"
+    else:
+        ax.set_xticks(ticks)
+        xlabel = "distance from the root (branch length units)"
+    ax.tick_params(axis="x", labelsize=style.BODY_TEXT)
     n_trees = int(states["n_trees"].max()) if len(states) else 0
-    ax.set_xlabel("distance from the root (branch length units)", fontsize=8, loc="left")
+    ax.set_xlabel(xlabel, fontsize=style.BODY_TEXT, loc="left")
     drawn_on = (
         str(clades["summary_tree"].iloc[0]) if "summary_tree" in clades and len(clades) else ""
     )
@@ -366,7 +398,8 @@ def state_tree(
         f"(up to {n_trees} tree{'' if n_trees == 1 else 's'})"
         + (f"\ndrawn on the {drawn_on}" if drawn_on else "")
     )
-    ax.set_title(title or default, fontsize=10, loc="left")
+    roots = f"; trees rooted {rooting}" if rooting else ""
+    ax.set_title((title or default) + roots, fontsize=10, loc="left")
     fig.mkforest_nodes_drawn = sum(np.all(np.isfinite(p[1])) for p in placed.values())
     fig.mkforest_bars_left_out = left_out
     fig.mkforest_frequencies = (n_freq, n_hidden)

@@ -28,7 +28,7 @@ MODELS = {"glow": {n: (build_model("equal", STATES, name=n), "uniform") for n in
 
 
 def test_each_model_is_described_by_its_structure_and_its_treatment():
-    words = dict(zip(CONFIG["models"], methods._quoted_models(CONFIG, MODELS)))
+    words = dict(zip(CONFIG["models"], methods.quoted_models(CONFIG, MODELS)))
     assert len(set(words.values())) == 4  # no two models read alike
     assert "branch lengths as given" in words["one_rate"]
     assert "every branch of length one" in words["per_event"]
@@ -37,7 +37,7 @@ def test_each_model_is_described_by_its_structure_and_its_treatment():
     assert all("one rate for all changes" in w for w in words.values())
     # every model on the given lengths: no treatment words at all
     plain = {"models": {"one_rate": {"kind": "equal"}}}
-    (only,) = methods._quoted_models(plain, {"glow": {"one_rate": MODELS["glow"]["one_rate"]}})
+    (only,) = methods.quoted_models(plain, {"glow": {"one_rate": MODELS["glow"]["one_rate"]}})
     assert only == '"one_rate" (one rate for all changes)'
 
 

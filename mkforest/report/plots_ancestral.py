@@ -43,6 +43,9 @@ BAR_W, BAR_H = 0.34, 0.11
 TIP_W = 0.11
 FONT_TIP, FONT_FREQ = 7.0, 6.0
 LEGEND_W = 2.6
+# tips within this share of the tree height of the farthest count as ending together: a
+# time tree (a summary tree of averaged lengths is ultrametric only to rounding)
+TIME_TREE_TOL = 1e-3
 
 
 def state_colours(states, is_ordered: bool = False) -> dict:
@@ -111,7 +114,7 @@ def _draw_tips(ax, tree, trait, colours, x, y, span, per_in, inch, occupied, bra
     # label column is joined to it by a dotted leader (a guide text may not sit on)
     tip_row = {t: i for i, t in enumerate(trait.taxa)} if trait is not None else {}
     tip_x = span + 0.08 * per_in
-    short = [v for v in range(n) if x[v] < span - 1e-6 * span]
+    short = [v for v in range(n) if x[v] < span - TIME_TREE_TOL * span]
     if short:
         ax.add_collection(
             LineCollection(
@@ -224,7 +227,7 @@ def _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting):
         ax.spines[side].set_visible(False)
     ax.spines["bottom"].set_bounds(0, span)
     tips = x[:n]
-    timed = n > 1 and float(tips.max() - tips.min()) <= 1e-6 * span  # a time tree
+    timed = n > 1 and float(tips.max() - tips.min()) <= TIME_TREE_TOL * span  # a time tree
     ticks = [t for t in ax.get_xticks() if 0 <= t <= span]
     if timed:  # ticks at round times before present, counted back from the tips
         before = [b for b in MaxNLocator(6).tick_values(0, span) if 0 <= b <= span * (1 + 1e-9)]

@@ -440,3 +440,17 @@ def test_ancestral_trees_300_tips_others(analysis, big, tmp_path):
     assert ordered == (analysis == "depth")
     _check_tree(fig, big, analysis)
     written(fig, tmp_path, f"tree_{analysis}")
+
+
+def test_a_figure_of_one_set_among_several_names_it(demo):
+    """Figures drawn from the first of several tree sets say which set they show."""
+    per_tree = demo.tables["transitions_per_tree"]
+    two = pd.concat([per_tree.assign(tree_set="dated"), per_tree.assign(tree_set="molecular")])
+    assert style.set_named(two) == "dated" and style.set_named(per_tree) == ""
+    fig = plots_ancestral.change_counts(per_tree)
+    style.name_tree_set(fig, style.set_named(two))
+    assert fig.get_suptitle().endswith("(tree set 'dated')")
+    fig = plots_pairs.pair_tests_figure("shell_pattern", demo.tables["pair_tests"], pd.DataFrame())
+    style.name_tree_set(fig, "dated")
+    assert "(tree set 'dated')" in fig.get_suptitle()
+    assert overlaps(fig) == []

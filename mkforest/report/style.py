@@ -193,6 +193,28 @@ def clear_end_ticks(fig) -> None:
                 kept = box
 
 
+def set_named(frame: pd.DataFrame) -> str:
+    """The first tree set's name when a table holds several sets (the one the figures
+    show), else ''."""
+    if "tree_set" not in frame or frame.empty:
+        return ""
+    sets = [s for s in dict.fromkeys(as_text(frame["tree_set"])) if s]
+    return sets[0] if len(sets) > 1 else ""
+
+
+def name_tree_set(fig, tree_set: str) -> None:
+    """Add "(tree set 'X')" to a figure's title (its suptitle, else its first axes' left
+    title): a figure that shows one set of several says which."""
+    if not tree_set:
+        return
+    note = f"(tree set '{tree_set}')"
+    if fig.get_suptitle():
+        fig.suptitle(fig.get_suptitle() + f" {note}", fontsize=BODY_TEXT + 2)
+    elif fig.axes:
+        ax = fig.axes[0]
+        ax.set_title(ax.get_title(loc="left") + f"\n{note}", loc="left", fontsize=BODY_TEXT + 2)
+
+
 def rate_text(x, precision: float = PRECISION) -> str:
     """A rate as written in figures: three significant digits, never an exponent;
     below the display precision '< 0.001'."""

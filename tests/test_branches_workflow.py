@@ -184,7 +184,8 @@ def test_plot_and_methods(finished):
     assert "Tree set 'dated'. " not in text and "(tree set 'dated')" in text
     brief = text.split("## Methods in one paragraph", 1)[1].split("##", 1)[0]
     assert "tree set 'molecular' (5 trees)" in brief
-    assert "kappa, estimated on each tree" in brief and "kappa fixed at 0" in brief
+    # four models with their words pass 250 words: names with their treatments
+    assert '"stretched" (kappa estimated)' in brief and '"flat_kappa" (kappa 0)' in brief
     assert text.count("On tree set 'molecular' (5 trees)") == 3  # glow, habitat, banding
 
 

@@ -41,6 +41,16 @@ def test_each_model_is_described_by_its_structure_and_its_treatment():
     assert only == '"one_rate" (one rate for all changes)'
 
 
+def test_a_long_paragraph_keeps_each_models_treatment_by_name():
+    """Over 250 words the paragraph lists models by name: with the treatment beside each."""
+    from mkforest.report.methods.brief import treatment_names
+
+    assert treatment_names(CONFIG, MODELS) == (
+        '"one_rate" (lengths as given), "per_event" (unit lengths), "stretched" '
+        '(kappa estimated) and "flat" (kappa 0)'
+    )
+
+
 def test_rates_are_given_in_the_unit_of_their_treatment():
     assert rate_unit_words("as_given") == "changes per unit branch length"
     assert "every branch of length one" in rate_unit_words("unit")

@@ -180,12 +180,33 @@ def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) ->
         f"CITATION.cff) with Snakemake {software.get('snakemake', '')} "
         f"{cite('molder2021')} and SciPy {software.get('scipy', '')}."
     )
-    if word_count(text) > BRIEF_MAX_WORDS:  # many models: their names without the words
+    full = listing(quoted_models(config, models))
+    if word_count(text) > BRIEF_MAX_WORDS:  # many models: names and treatments only ...
+        text = text.replace(full, treatment_names(config, models) + " (described below)")
+    if word_count(text) > BRIEF_MAX_WORDS:  # ... or their names alone
         text = text.replace(
-            listing(quoted_models(config, models)),
-            listing(_quote(m) for m in _model_names(config, models)) + " (described below)",
+            treatment_names(config, models),
+            listing(_quote(m) for m in _model_names(config, models)),
         )
     return text
+
+
+def treatment_names(config, models) -> str:
+    """The models by name, each with its branch-length treatment in a word or two where
+    the models do not all use the given lengths ('"stretched" (kappa estimated)'):
+    two models of one structure never read alike."""
+    specs = config.get("models", {})
+    labels = {m: treatment_label(specs.get(m)) for m in _model_names(config, models)}
+    mixed = set(labels.values()) != {"as_given"}
+    short = {"as_given": "lengths as given", "unit": "unit lengths"}
+
+    def word(label):
+        name, _, fixed = label.partition("=")
+        return short.get(name) or (f"{name} {fixed}" if fixed else f"{name} estimated")
+
+    return listing(
+        _quote(m) + (f" ({word(labels[m])})" if mixed else "") for m in _model_names(config, models)
+    )
 
 
 def _model_names(config, models) -> list:

@@ -16,9 +16,9 @@ from mkforest.report.methods_branches import (
 )
 
 STATES = ("dull", "glowing")
-CONFIG = {
+CONFIG = {  # as the schema fills it (every model has branches)
     "models": {
-        "one_rate": {"kind": "equal"},
+        "one_rate": {"kind": "equal", "branches": "as_given"},
         "per_event": {"kind": "equal", "branches": "unit"},
         "stretched": {"kind": "equal", "branches": "kappa"},
         "flat": {"kind": "equal", "branches": {"kappa": 0}},
@@ -36,7 +36,7 @@ def test_each_model_is_described_by_its_structure_and_its_treatment():
     assert "kappa fixed at 0" in words["flat"]
     assert all("one rate for all changes" in w for w in words.values())
     # every model on the given lengths: no treatment words at all
-    plain = {"models": {"one_rate": {"kind": "equal"}}}
+    plain = {"models": {"one_rate": {"kind": "equal", "branches": "as_given"}}}
     (only,) = methods.quoted_models(plain, {"glow": {"one_rate": MODELS["glow"]["one_rate"]}})
     assert only == '"one_rate" (one rate for all changes)'
 

@@ -7,26 +7,15 @@ from pathlib import Path
 import pandas as pd
 
 from ..engine.summarise import as_text
+from ..engine.treatments import REGISTRY, null_words, parse_label
+from ..jobs.analyses import model_treatment
 from .citations import cite
 
-WORDS = {
-    "as_given": "the branch lengths as given",
-    "unit": "every branch of length one (change per speciation event)",
-    "kappa": f"every branch length raised to an estimated power kappa {cite('pagel1994')}",
-    "lambda": (
-        "internal branches multiplied by an estimated lambda in [0, 1], tip branches "
-        f"lengthened to keep each tip's distance from the root {cite('pagel1999')}"
-    ),
-    "delta": (
-        "node distances from the root d transformed to H (d/H)^delta with H the tree "
-        f"height and delta estimated {cite('pagel1999')}"
-    ),
-    "early_burst": (
-        "a rate that changes exponentially with distance from the root, "
-        "e^(a s), a branch from s0 to s1 counting (e^(a s1) - e^(a s0))/a "
-        f"{cite('harmon2010')}"
-    ),
-}
+
+def treatment_words(name: str) -> str:
+    """A treatment's description in the methods text, its source cited after it."""
+    kind = REGISTRY[name]
+    return kind.words + (f" {cite(kind.source)}" if kind.source else "")
 
 
 # A treatment in a few words, for the one-paragraph methods and the unit of rates.
@@ -40,25 +29,25 @@ BRIEF = {
 }
 
 
-def treatment_label(spec) -> str:
-    """A model's ``branches`` setting as fits.tsv writes it: a name, or name=value."""
-    b = (spec or {}).get("branches", "as_given") or "as_given"
-    return b if isinstance(b, str) else "{}={}".format(*next(iter(b.items())))
+def treatment_label(config: dict, model: str) -> str:
+    """A model's treatment as fits.tsv writes it ('kappa', 'kappa=0'), read by the
+    registry's one reader of ``models.<model>.branches``."""
+    return model_treatment(config, model).label
 
 
 def treatment_brief(label: str) -> str:
     """'branch lengths raised to a power kappa, estimated per tree' (or 'fixed at 0')."""
-    name, _, fixed = str(label or "as_given").partition("=")
-    words = BRIEF.get(name, name)
-    if name in ("as_given", "unit"):
+    t = parse_label(label)
+    words = BRIEF.get(t.name, t.name)
+    if not t.kind.estimable:
         return words
-    return words + (f" fixed at {fixed}" if fixed else ", estimated on each tree")
+    return words + (f" fixed at {t.fixed:g}" if t.fixed is not None else ", estimated on each tree")
 
 
 def rate_unit_words(label: str) -> str:
     """The unit of rates under a treatment, in words."""
-    name = str(label or "as_given").partition("=")[0]
-    if name in ("as_given", "", "nan"):
+    name = parse_label(label).name
+    if name == "as_given":
         return "changes per unit branch length"
     if name == "unit":
         return "changes per branch, every branch of length one"
@@ -80,14 +69,14 @@ def branches_paragraph(config: dict) -> str:
     """Which treatments the models use, how the parameter was fitted and compared; '' when
     every model uses the given lengths."""
     used = {}
-    for name, spec in config["models"].items():
-        used.setdefault(treatment_label(spec), []).append(name)
-    if set(used) <= {"as_given"}:
+    for name in config["models"]:
+        used.setdefault(model_treatment(config, name), []).append(name)
+    if all(t.name == "as_given" for t in used):
         return ""
     parts = []
-    for label, names in used.items():
-        name, _, fixed = label.partition("=")
-        what = WORDS[name] + (f", fixed at {fixed}" if fixed else "")
+    for treatment, names in used.items():
+        fixed = treatment.label.partition("=")[2]
+        what = treatment_words(treatment.name) + (f", fixed at {fixed}" if fixed else "")
         parts.append(f"{', '.join(names)}: {what}")
     return (
         "Branch lengths were treated per model (" + "; ".join(parts) + "). An estimated "
@@ -95,7 +84,7 @@ def branches_paragraph(config: dict) -> str:
         "parameter; the treatments were compared like any other candidate models by their "
         "Akaike weights (tables/treatment_support.tsv), and each model with an estimated "
         "parameter was tested against the same model on the given lengths, which it nests "
-        "(kappa = lambda = delta = 1, a = 0), by a likelihood-ratio test with one degree of "
+        f"({null_words('symbol')}), by a likelihood-ratio test with one degree of "
         "freedom; lambda's null value lies on the bound of its range, so its statistic was "
         f"referred to an equal mixture of chi-square with 0 and 1 degrees of freedom "
         f"{cite('self1987')} (tables/branch_test_summary.tsv)."

@@ -16,6 +16,7 @@ from matplotlib.collections import LineCollection  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 
 from ..engine.summarise import as_text  # noqa: E402
+from ..engine.treatments import parse_label  # noqa: E402
 from . import style  # noqa: E402
 
 PALETTE = "cividis"
@@ -227,13 +228,12 @@ def interval_panel(
 # treatments are in different units and never share an axis.
 def rate_unit(branches) -> str:
     """The axis label of rates under a branch-length treatment (fits.tsv ``branches``)."""
-    label = str(branches or "as_given")
-    if label in ("as_given", "nan", ""):
+    t = parse_label(branches)
+    if t.name == "as_given":
         return "rate (changes per unit branch length, as given)"
-    if label == "unit":
+    if t.name == "unit":
         return "rate (changes per branch: every branch of length 1)"
-    name, _, fixed = label.partition("=")
-    what = f"{name} {fixed}" if fixed else f"{name} estimated per tree"
+    what = f"{t.name} {t.fixed:g}" if t.fixed is not None else f"{t.name} estimated per tree"
     return f"rate (changes per unit of branch length transformed by {what})"
 
 

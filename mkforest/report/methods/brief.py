@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from ...data.config import tree_sets
 from ...engine.models import HYPOTHESES
+from ...engine.treatments import parse_label
 from ..citations import REFERENCES, cite
 from ..methods_branches import (
     treatment_brief,
@@ -11,7 +12,7 @@ from ..methods_branches import (
     tree_sets_brief,
 )
 from ..words import hypothesis_words, model_words
-from .data import tree_counts
+from .data import sample_words, tree_counts
 from .models import CRITERION_NAMES, CRITERION_REFS, root_words
 from .numbers import listing, ordinal, plural
 
@@ -22,13 +23,13 @@ BRIEF_MAX_WORDS = 250
 
 
 def quoted_models(config, models) -> list:
-    """'"one_rate" (one rate for all changes)' once per model name, in config order: its
+    """'"one_rate" (one rate for every change)' once per model name, in config order: its
     rate structure and, when the models do not all use the given lengths, its branch-length
     treatment ('"stretched" (one rate for all changes; branch lengths raised to a power
     kappa, estimated on each tree)')."""
     pairs = config.get("pairs", {})
     specs = config.get("models", {})
-    labels = {name: treatment_label(specs.get(name)) for name in specs}
+    labels = {name: treatment_label(config, name) for name in specs}
     mixed = set(labels.values()) != {"as_given"}
     out, seen = [], set()
     for analysis, named in models.items():
@@ -158,7 +159,7 @@ def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) ->
     crit = CRITERION_NAMES[config["criterion"]]
     fit = config["fitting"]
     if n_trees > 1:
-        trees = f"on each of {n_trees} trees of a posterior sample ({how})"
+        trees = f"on each of {n_trees} {sample_words(tcfg)} ({how})"
     else:
         trees = "on a single tree"
     n_models = len(_model_names(config, models))
@@ -195,14 +196,16 @@ def treatment_names(config, models) -> str:
     """The models by name, each with its branch-length treatment in a word or two where
     the models do not all use the given lengths ('"stretched" (kappa estimated)'):
     two models of one structure never read alike."""
-    specs = config.get("models", {})
-    labels = {m: treatment_label(specs.get(m)) for m in _model_names(config, models)}
+
+    labels = {m: treatment_label(config, m) for m in _model_names(config, models)}
     mixed = set(labels.values()) != {"as_given"}
     short = {"as_given": "lengths as given", "unit": "unit lengths"}
 
     def word(label):
-        name, _, fixed = label.partition("=")
-        return short.get(name) or (f"{name} {fixed}" if fixed else f"{name} estimated")
+        t = parse_label(label)
+        return short.get(t.name) or (
+            f"{t.name} {t.fixed:g}" if t.fixed is not None else f"{t.name} estimated"
+        )
 
     return listing(
         _quote(m) + (f" ({word(labels[m])})" if mixed else "") for m in _model_names(config, models)

@@ -104,10 +104,21 @@ def trees_paragraph(config, tables) -> str:
     )
     return (
         f"To take phylogenetic uncertainty into account, every model was fitted separately on "
-        f"each of {n} trees from the tree sample in {name}: {listing(steps)}. The trees used "
+        f"each of {n} {sample_words(tcfg, 'in')} {name}: {listing(steps)}. The trees used "
         f"are listed in tables/trees_used.tsv by their position in the file ({span}, counted "
         "from 0)." + _rooting_sentence(tcfg) + _branch_sentence(tcfg, tables, n)
     )
+
+
+def sample_words(tcfg, where: str = "") -> str:
+    """What the trees are (trees.kind), in the words of a methods text: 'trees of a
+    posterior sample', 'bootstrap trees' or 'trees'; with ``where``, the words before
+    the file name ('trees from the tree sample in', 'bootstrap trees in')."""
+    kind = tcfg.get("kind", "posterior")
+    if kind == "posterior":
+        return "trees from the tree sample in" if where else "trees of a posterior sample"
+    words = "bootstrap trees" if kind == "bootstrap" else "trees"
+    return f"{words} {where}" if where else words
 
 
 def tree_counts(tables) -> dict:
@@ -134,6 +145,11 @@ def _branch_sentence(tcfg, tables, n) -> str:
             "tables/data_check.tsv)."
         )
     counts = tree_counts(tables)
+    if counts.get("trees_without_lengths"):
+        text += (
+            f" {plural(counts['trees_without_lengths'], 'tree')} had no branch lengths in the "
+            "file; every branch was given one unit of length (change per speciation event)."
+        )
     minimum = tcfg.get("min_branch_length") or 0
     if minimum:
         text += (

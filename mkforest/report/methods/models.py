@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from ...engine.models import HYPOTHESES
+from ...engine.models import HYPOTHESES, KIND_TABLE
 from ...engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X
 from ...engine.summarise import as_text
 from ..citations import REFERENCES, cite
@@ -13,11 +13,6 @@ CRITERION_REFS = {
     "aicc": ("akaike1974", "hurvich1989"),
     "aic": ("akaike1974",),
     "bic": ("schwarz1978",),
-}
-KIND_WORDS = {
-    "equal": "one rate for every change",
-    "symmetric": "one rate per pair of states, the same in both directions",
-    "unconstrained": "a separate rate for every change",
 }
 
 
@@ -37,18 +32,14 @@ def describe_model(model, pair_traits=None) -> str:
             "second_depends_on_first": f"the rates of {second} depend on the state of {first}; "
             f"those of {first} do not",
         }[model.kind]
-    elif model.kind in KIND_WORDS:
-        words = KIND_WORDS[model.kind]
+    elif model.kind in KIND_TABLE and KIND_TABLE[model.kind].words:
+        words = KIND_TABLE[model.kind].words
     elif model.n_classes > 1:
         words = f"only the changes listed are allowed ({_first_class(model)})"
     else:
         words = f"only the changes listed are allowed ({model.describe()})"
     if model.n_classes > 1:
-        switch = {
-            "equal": "one rate for every switch",
-            "symmetric": "a shared rate in each direction between two classes",
-            "unconstrained": "a rate of its own for every switch",
-        }[model.class_switch]
+        switch = KIND_TABLE[model.class_switch].switch_words
         words += (
             f", in each of {model.n_classes} hidden rate classes, each with rates of its own; "
             f"lineages switch class without changing state ({switch}) "

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from ...jobs.analyses import hidden_classes
 from ..citations import REFERENCES, cite
 from .numbers import count_of, listing, number, p_value, plural
 
@@ -18,7 +19,7 @@ def pairs_paragraph(config, pair_summary) -> str:
         "log-likelihood to a chi-square distribution with as many degrees of freedom as the "
         "alternative has extra rates."
     )
-    hidden = [p for p, spec in pairs.items() if spec.get("hidden_classes", 1) > 1]
+    hidden = [p for p in pairs if hidden_classes(config, p) > 1]
     if hidden:
         text += (
             f" For {listing(hidden)}, every hypothesis was fitted with hidden rate classes "

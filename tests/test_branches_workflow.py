@@ -186,7 +186,8 @@ def test_plot_and_methods(finished):
     assert "tree set 'molecular' (5 trees)" in brief
     # four models with their words pass 250 words: names with their treatments
     assert '"stretched" (kappa estimated)' in brief and '"flat_kappa" (kappa 0)' in brief
-    assert text.count("On tree set 'molecular' (5 trees)") == 3  # glow, habitat, banding
+    # glow, habitat, banding and the pair lit
+    assert text.count("On tree set 'molecular' (5 trees)") == 4
 
 
 def test_pair_tests_on_every_set(finished):

@@ -9,12 +9,12 @@ import pandas as pd
 
 from mkforest.engine.models import build_model
 from mkforest.report import methods
-from mkforest.report.words import model_words
 from mkforest.report.methods_branches import (
     other_sets_lines,
     rate_unit_words,
     tree_sets_brief,
 )
+from mkforest.report.words import model_words
 
 STATES = ("dull", "glowing")
 CONFIG = {  # as the schema fills it (every model has branches)

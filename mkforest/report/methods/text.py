@@ -16,6 +16,7 @@ from ..methods_branches import (
     results_lines,
     tree_sets_paragraph,
 )
+from ..methods_scan import scan_methods_lines, scan_results
 from .ancestral import ancestral_cautions, ancestral_paragraph, ancestral_results
 from .brief import BRIEF_HEADING, brief_paragraph
 from .data import data_paragraph, trees_paragraph
@@ -99,6 +100,7 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
         para = ancestral_paragraph(config, tables)
         if para:
             out += ["**Ancestral states.** " + para, ""]
+    out += scan_methods_lines(config, tables)  # the all-pairs scan: report/methods_scan.py
     out += ["**Software.** " + _software_paragraph(config, software), ""]
 
     out += [
@@ -139,6 +141,8 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
         if notes:
             out += ["", "Cautions:", ""] + [f"- {n}" for n in notes]
         out.append("")
+    if scan_methods_lines(config, tables):
+        out += scan_results(tables.get("scan"))
     body = "\n".join(out)
     refs = cited_in(body)
     body += "\n## References\n\n" + "\n".join(f"- {r.full()}" for r in refs) + "\n"

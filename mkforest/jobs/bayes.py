@@ -494,8 +494,10 @@ def read_rows(paths: list, columns: list):
     """Concatenated chunk tables; states, models and notes stay text."""
     import pandas as pd
 
+    from ..engine.summarise import as_text
+
     text = {c: str for c in ("analysis", "model", "tree_set", "from_state", "to_state")}
-    text.update({c: str for c in ("parameter", "flag", "method", "note")})
+    text.update({c: str for c in ("parameter", "flag", "method", "note", "versus", "changes")})
     frames = [
         pd.read_csv(p, sep="\t", dtype=text, keep_default_na=False, na_values=["", "nan", "NaN"])
         for p in paths
@@ -504,9 +506,12 @@ def read_rows(paths: list, columns: list):
     if not frames:
         return pd.DataFrame(columns=columns)
     out = pd.concat(frames, ignore_index=True)
-    for c in ("from_state", "to_state", "flag", "method", "note", "versus"):
+    for c in ("from_state", "to_state", "flag", "method", "note", "versus", "changes"):
         if c in out:
-            out[c] = out[c].fillna("") if out[c].dtype == object else out[c]
+            out[c] = as_text(out[c])
+    for c in ("evidence", "caution"):
+        if c in out:
+            out[c] = as_text(out[c])
     if "flagged" in out:
         out["flagged"] = out["flagged"].astype(str).str.lower() == "true"
     return out

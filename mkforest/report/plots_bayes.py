@@ -70,8 +70,8 @@ def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str
     )
     every = np.concatenate([np.ravel(v) for v in pooled.values()]) if pooled else np.array([1.0])
     every = every[np.isfinite(every) & (every > 0)]
-    lo, hi = np.quantile(every, [0.001, 0.999]) if len(every) else (0.01, 10.0)
-    lo, hi = lo / 2, hi * 2
+    lo, hi = np.quantile(every, [0.002, 0.998]) if len(every) else (0.01, 10.0)
+    lo, hi = lo / 1.4, hi * 1.4
     grid = np.linspace(np.log10(lo), np.log10(hi), 300)
     colours = dict(zip(models, style.categorical(len(models))))
     for ax, model in zip(axes[:, 0], models):
@@ -163,7 +163,7 @@ def model_probabilities(marginal, support, models: dict):
     analyses = [a for a in models if a in set(marginal["analysis"])]
     ncols = min(3, max(1, len(analyses)))
     nrows = int(np.ceil(len(analyses) / ncols)) or 1
-    fig, axes = plt.subplots(nrows, ncols, figsize=(3.4 * ncols, 2.9 * nrows + 0.6), squeeze=False)
+    fig, axes = plt.subplots(nrows, ncols, figsize=(max(5.5, 3.4 * ncols), 2.9 * nrows + 0.6), squeeze=False)
     for ax in axes.ravel()[len(analyses) :]:
         ax.set_visible(False)
     for ax, analysis in zip(axes.ravel(), analyses):

@@ -28,6 +28,7 @@ from mkforest.engine.posterior_pooling import (
     weighted_model_probabilities,
     weighted_quantiles,
 )
+from mkforest.jobs import bayes as bayes_job
 from mkforest.jobs.bayes import parameter_flag, saved_per_chain, thin_draws
 
 
@@ -101,9 +102,10 @@ def test_pooled_quantiles_are_numpy_quantiles_of_the_pooled_draws():
 def test_kass_raftery_scale():
     # 2 ln B: 0-2 bare mention, 2-6 positive, 6-10 strong, above 10 very strong
     assert evidence_words(1.0).startswith("not worth")
-    assert evidence_words(2.5) == "positive (for)"
-    assert evidence_words(-7.0) == "strong (against)"
-    assert evidence_words(12.0) == "very strong (for)"
+    assert evidence_words(-1.0).startswith("not worth")
+    assert evidence_words(2.5) == "positive"
+    assert evidence_words(-7.0) == "strong, for the null"
+    assert evidence_words(12.0) == "very strong"
 
 
 def test_trees_spread_evenly_through_the_sample():
@@ -125,3 +127,10 @@ def test_flags_and_thinning():
     assert saved_per_chain(200, 4, 20) == 20
     x = np.arange(2 * 10).reshape(2, 10)
     assert thin_draws(x, 4).tolist() == [[0, 3, 6, 9], [10, 13, 16, 19]]
+
+
+def test_flag_thresholds_are_the_engines():
+    """One fact in two places (the summary job does not import the sampler): kept equal."""
+    from mkforest.engine import bayes as engine
+
+    assert (bayes_job.R_HAT_MAX, bayes_job.ESS_MIN) == (engine.R_HAT_MAX, engine.ESS_MIN)

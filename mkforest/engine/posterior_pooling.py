@@ -120,11 +120,12 @@ EVIDENCE_SCALE = ((2.0, "not worth more than a bare mention"), (6.0, "positive")
 
 
 def evidence_words(two_log_bf: float) -> str:
-    """Kass & Raftery's words for 2 ln B in favour of the alternative (negative: for the
-    null, described with the same scale)."""
+    """Kass & Raftery's words for 2 ln B of an alternative against its null; a negative
+    value is read on the same scale and said to favour the null."""
     if not np.isfinite(two_log_bf):
         return ""
     size = abs(two_log_bf)
     words = next((w for top, w in EVIDENCE_SCALE if size < top), "very strong")
-    side = "for" if two_log_bf >= 0 else "against"
-    return f"{words} ({side})"
+    if size < EVIDENCE_SCALE[0][0] or two_log_bf >= 0:
+        return words
+    return f"{words}, for the null"

@@ -252,8 +252,8 @@ PAIR_NULL = "independent"
 
 def few_trees_carry(effective: float, n: int) -> bool:
     """True when the trait-weighted summary rests on a few trees: an effective number of
-    trees below 3, or below a tenth of the trees sampled."""
-    return bool(np.isfinite(effective) and n > 1 and (effective < 3 or effective < 0.1 * n))
+    trees below max(2, n / 10) (a rule of this project, not a published threshold)."""
+    return bool(np.isfinite(effective) and n > 1 and effective < max(2.0, 0.1 * n))
 
 
 def merge_kept(parts: list) -> dict:

@@ -25,6 +25,7 @@ from ..engine.models import HYPOTHESES
 from ..engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X
 from ..engine.summarise import as_text
 from .citations import REFERENCES, cite, cited_in
+from .methods_bayes import bayes_paragraph, bayes_results
 from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
 from .words import hypothesis_words, model_words
 
@@ -963,6 +964,8 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
         para = _ancestral_paragraph(config, tables)
         if para:
             out += ["**Ancestral states.** " + para, ""]
+    if bayes_paragraph(config, tables):
+        out += ["**Bayesian estimation.** " + bayes_paragraph(config, tables), ""]
     out += ["**Software.** " + _software_paragraph(config, software), ""]
 
     out += [
@@ -993,6 +996,8 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
             ar = _ancestral_results(analysis, tables)
             if ar:
                 out += ["", ar]
+        if bayes_results(analysis, tables):
+            out += ["", bayes_results(analysis, tables)]
         notes = _cautions(support[support["analysis"] == analysis], "model")
         if has_pairs and pair_summary is not None and analysis in config["pairs"]:
             rows = pair_summary[pair_summary["pair"] == analysis].copy()

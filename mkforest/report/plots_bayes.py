@@ -163,7 +163,9 @@ def model_probabilities(marginal, support, models: dict):
     analyses = [a for a in models if a in set(marginal["analysis"])]
     ncols = min(3, max(1, len(analyses)))
     nrows = int(np.ceil(len(analyses) / ncols)) or 1
-    fig, axes = plt.subplots(nrows, ncols, figsize=(max(5.5, 3.4 * ncols), 2.9 * nrows + 0.6), squeeze=False)
+    fig, axes = plt.subplots(
+        nrows, ncols, figsize=(max(5.5, 3.4 * ncols), 2.9 * nrows + 0.6), squeeze=False
+    )
     for ax in axes.ravel()[len(analyses) :]:
         ax.set_visible(False)
     for ax, analysis in zip(axes.ravel(), analyses):

@@ -1,6 +1,6 @@
 # mkforest: Markov models of categorical trait evolution over a sample of trees.
-# The demo: make demo. Your data: .venv/bin/mkforest init --trees FILE --traits FILE, then
-# make run CONFIG=my_config.yaml (both from this folder).
+# The demo: make demo. Your data: make setup, make init TREES=FILE TRAITS=FILE, then
+# make run CONFIG=my_config.yaml (all from this folder).
 import sys
 
 from snakemake.utils import min_version

@@ -2,7 +2,7 @@
 
 Every case either runs to the end with sound numbers or stops with one sentence naming the
 file, the item and what to do, and a finished run's results are never lost. The cases are
-listed (by number) in README.md, section Troubleshooting; keep the two in step.
+listed (by number) in docs/troubleshooting.md; keep the two in step.
 
 To stay fast, cases are batched: several odd columns share one trait table, several tree
 shapes share one tree file, errors found before any job runs are checked with --dry-run,

@@ -1,5 +1,5 @@
 """The broader input catalogue (make test-slow): larger invented samples through the real
-workflow, with the ancestral stage on. Cases are listed in README, Troubleshooting (S1, S2)."""
+workflow, with the ancestral stage on. Cases are listed in docs/troubleshooting.md (S1, S2)."""
 
 from __future__ import annotations
 

@@ -1,5 +1,5 @@
 """Small versions of benchmarks/hidden_classes.py (the full runs and their figures are
-in the README): a two-speed trait and a pair of independent traits with a one-clade
+in docs/validation.md): a two-speed trait and a pair of independent traits with a one-clade
 burst. The checks are the nesting facts every data set must satisfy (a fit may not
 beat a model that contains it: the plain model is the two-class model with equal
 classes; independent-with-classes sits inside dependent-with-classes), the ordering

@@ -225,7 +225,7 @@ def check_same_taxa_across_sets(firsts: dict) -> None:
 # gets at least this many trees when there are that many ...
 AUTO_MIN_TREES = 250
 # ... and at most this many tree-tips, which bounds a job's memory (measured: see
-# README, "How the work divides at scale").
+# docs/cluster.md, "How the work divides at scale").
 AUTO_MAX_TREE_TIPS = 1_000_000
 
 

@@ -99,7 +99,7 @@ def fit_params(wildcards):
 # Fits that can run at once: cores on one machine; on a cluster, submissions in
 # flight (jobs) x fits side by side in each (cores, the node size).
 FIT_SLOTS = (workflow._cores or 1) * (workflow.nodes or 1)
-# Memory of one fit job (measured peak: README, "How the work divides at scale").
+# Memory of one fit job (measured peak: docs/cluster.md, "How the work divides at scale").
 FIT_MEM_MB = 1000
 
 

@@ -160,7 +160,11 @@ def test_figures_methods_and_job_count(run):
     out, res = run
     for name in ("spines.posterior_rates", "body.posterior_rates", "model_probabilities"):
         assert (out / "plots" / "bayes" / f"{name}.png").stat().st_size > 5000
+    # 2 chains x 100 draws cannot reach an ESS of 400: every posterior is flagged, and
+    # the run's last words say so
+    assert "12 of 12 Bayesian posteriors are flagged" in res.stderr
     methods = (out / "methods.md").read_text()
+    assert "12 of 12 posteriors (tree by model) had an R-hat above 1.01" in methods
     assert "Bayesian" in methods and "changes along the tree's root-to-tip height" in methods
     # sampling jobs: analyses x models x chunks holding a chosen tree (per_job 3: trees
     # 1, 3 in chunk 0 and 5 in chunk 1), not one per tree (4 x 3 = 12)

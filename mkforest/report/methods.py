@@ -25,7 +25,7 @@ from ..engine.models import HYPOTHESES
 from ..engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X
 from ..engine.summarise import as_text
 from .citations import REFERENCES, cite, cited_in
-from .methods_bayes import bayes_paragraph, bayes_results
+from .methods_bayes import bayes_paragraph, bayes_results, bayes_warnings
 from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
 from .words import hypothesis_words, model_words
 
@@ -1049,7 +1049,7 @@ def run_warnings(run_dir) -> list:
     number of models whose summary carries a caution. Empty when the tables are not there."""
     path = Path(run_dir) / "tables" / "model_support.tsv"
     if not path.is_file():
-        return []
+        return bayes_warnings(run_dir)
     support = read_tables({"model_support": path})["model_support"]
     out = []
     if "n_impossible" in support:
@@ -1066,4 +1066,4 @@ def run_warnings(run_dir) -> list:
             f"caution column of {path} and the Cautions in {Path(run_dir) / 'methods.md'} "
             "before citing a result."
         )
-    return out
+    return out + bayes_warnings(run_dir)

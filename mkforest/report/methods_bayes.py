@@ -122,3 +122,24 @@ def bayes_results(analysis: str, tables: dict) -> str:
     if n_flag:
         text += f" {n_flag} of this analysis's posteriors are flagged (R-hat or ESS)."
     return text
+
+
+def bayes_warnings(run_dir) -> list:
+    """The run's last words on the Bayesian stage: how many posteriors are flagged."""
+    from pathlib import Path
+
+    from ..jobs.bayes import ESS_MIN, R_HAT_MAX, read_table
+
+    path = Path(run_dir) / "tables" / "marginal_likelihoods.tsv"
+    if not path.is_file():
+        return []
+    ml = read_table(path)
+    sampled = ml[ml["log_marginal_likelihood"].notna()]
+    flagged = int(sampled["flagged"].sum())
+    if not flagged:
+        return []
+    return [
+        f"{flagged} of {len(sampled)} Bayesian posteriors are flagged (R-hat above "
+        f"{R_HAT_MAX} or ESS below {ESS_MIN}): see the flagged column of {path}; raise "
+        "bayes.warmup and bayes.draws before citing them."
+    ]

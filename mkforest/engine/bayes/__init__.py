@@ -26,6 +26,8 @@ likelihood.
   draw is renumbered slowest class first (``hidden.relabel_classes``, as ML fits
   are); the marginal likelihood is bridged on that ordered region (the proposal's
   draws outside it count as density 0) and ln R! added back.
+- Imports: this package's top and ``prior`` load no compiled kernel, SciPy or
+  sampler (the config check can parse a prior); ``sample_posterior`` loads them.
 - Seeds: everything random derives from ``seed`` (starts, the sampler, the bridge's
   proposal), so a result depends only on (tree, data, model, prior, settings, seed).
 """
@@ -39,11 +41,17 @@ import numpy as np
 
 from ..hidden import relabel_classes
 from ..treatments import Treatment
-from .bridge import bridge_log_marginal
-from .density import LogPosterior
 from .prior import PRIOR_KINDS, Prior
 
-__all__ = ["PRIOR_KINDS", "Posterior", "Prior", "sample_posterior", "ESS_MIN", "R_HAT_MAX"]
+__all__ = [
+    "ESS_MIN",
+    "PRIOR_KINDS",
+    "R_HAT_MAX",
+    "Posterior",
+    "Prior",
+    "posterior_ancestral_states",
+    "sample_posterior",
+]
 
 # Vehtari et al. (2021): R-hat at most 1.01, bulk and tail ESS at least 400.
 R_HAT_MAX = 1.01
@@ -148,6 +156,8 @@ def sample_posterior(
     model's combined states), as for ``fitting.fit_model``."""
     import time
 
+    from .bridge import bridge_log_marginal
+    from .density import LogPosterior
     from .sampler import run_chains
 
     t0 = time.process_time()
@@ -199,10 +209,7 @@ def sample_posterior(
             return density(x)[0]
 
         log_shift = math.lgamma(model.n_classes + 1)
-    log_prior = np.array(
-        [[density.log_prior(z[c, d])[0] for d in range(draws)] for c in range(chains)]
-    )
-    log_lik = log_q - log_prior
+    log_lik = log_q - density.log_prior_many(z)
     reported = density.reported(z)
     ess_bulk, ess_tail, r_hat = _diagnostics(reported)
     log_ml, mc_error = bridge_log_marginal(log_q_fn, z, log_q, np.random.default_rng(bridge_seed))
@@ -255,3 +262,30 @@ def sample_posterior(
         divergences,
         time.process_time() - t0,
     )
+
+
+def posterior_ancestral_states(
+    tree, tip_partials, model, posterior: Posterior, *, root="uniform", branches=None, n_draws=100
+):
+    """Posterior-mean marginal ancestral states, float [n_nodes, k_observed]: the marginal
+    probabilities of Yang, Kumar & Nei (1995; ``ancestral.observed_marginals``) averaged
+    over ``n_draws`` draws spread evenly over every chain (each draw on its own branch
+    lengths where a treatment is estimated). Integrates the rates out instead of holding
+    them at one estimate; about n_draws times one marginal computation."""
+    from ..ancestral import observed_marginals
+    from ..branches import transformed_tree
+
+    treatment = branches or Treatment()
+    flat = posterior.draws.reshape(-1, posterior.draws.shape[-1])
+    flat = flat[np.all(np.isfinite(flat), axis=1)]
+    if not len(flat):
+        raise ValueError("the posterior has no finite draw")
+    pick = flat[np.linspace(0, len(flat) - 1, min(n_draws, len(flat))).astype(int)]
+    p = model.n_params
+    base = transformed_tree(tree, treatment) if not treatment.free else tree
+    total = None
+    for d in pick:
+        on = transformed_tree(tree, treatment, float(d[p])) if treatment.free else base
+        m = observed_marginals(on, tip_partials, model.q_matrix(d[:p]), root, model)
+        total = m if total is None else total + m
+    return total / len(pick)

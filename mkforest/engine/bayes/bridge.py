@@ -69,7 +69,8 @@ def bridge_log_marginal(log_q, z, log_q_draws, rng, tol=1e-10, max_iter=1000):
     # f2 at the posterior draws, both in units of the estimate
     f1 = np.exp(finite2 - log_r - np.logaddexp(ls1 + finite2 - log_r, ls2))
     f2 = np.exp(-np.logaddexp(ls1 + l1 - log_r, ls2))
-    ess = float(az.ess(f2.reshape(post.shape[0], post.shape[1]), method="mean"))
+    f2_chains = az.convert_to_dataset({"f2": f2.reshape(post.shape[0], post.shape[1])})
+    ess = float(az.ess(f2_chains, method="mean")["f2"])
     ess = min(max(ess, 1.0), n1)
     re2 = f1.var() / (n2 * f1.mean() ** 2) + f2.var() / (ess * f2.mean() ** 2)
     return log_r, math.sqrt(re2)

@@ -48,6 +48,14 @@ class LogPosterior:
         if self.free_branch:
             self.lo, self.hi = treatment.bounds()
             self.transform = Transform(tree, treatment)
+        a, b, c, lo, hi = prior.log_scale_terms()
+        # the prior on y = ln r: a (y + ln H) - b H e^y + c per rate, y within [ylo, yhi]
+        self.a, self.bH = a, b * self.height
+        self.const = self.p * (c + a * self.log_height)
+        # beyond |y| = 700, e^y leaves the floating-point range: the density there is 0
+        # in double precision under every prior (a sampler's runaway trajectory)
+        self.ylo = math.log(lo / self.height) if lo > 0 else -700.0
+        self.yhi = min(math.log(hi / self.height), 700.0)
 
     def branch_x(self, w: float) -> float:
         """The treatment's value x for coordinate w (the range's ends never reached)."""
@@ -89,6 +97,8 @@ class LogPosterior:
     def log_prior(self, z):
         """(ln prior density of z, its gradient)."""
         p = self.p
+        if p and (z[:p].min() < self.ylo or z[:p].max() > self.yhi):
+            return -math.inf, np.zeros(self.n)
         value, grad_y = self.prior.log_density_log_scale(np.exp(z[:p] + self.log_height))
         if not self.free_branch:
             return value, grad_y
@@ -96,17 +106,39 @@ class LogPosterior:
         value += _log_sigmoid(w) + _log_sigmoid(-w)
         return value, np.append(grad_y, 1.0 - 2.0 * math.exp(_log_sigmoid(w)))
 
-    def __call__(self, z):
-        """(ln posterior density up to nothing: ln L + ln prior, gradient); -inf with a
-        zero gradient where the data are impossible or the prior is 0."""
+    def log_prior_many(self, z):
+        """ln prior density at every point of z [..., n] (vectorised ``log_prior``)."""
         z = np.asarray(z, dtype=np.float64)
-        lp, glp = self.log_prior(z)
-        if not np.isfinite(lp):
+        y = z[..., : self.p]
+        value = self.a * y.sum(axis=-1) - self.bH * np.exp(y).sum(axis=-1) + self.const
+        outside = np.any((y < self.ylo) | (y > self.yhi), axis=-1)
+        value = np.where(outside, -np.inf, value)
+        if self.free_branch:
+            w = z[..., self.p]
+            value = value - np.logaddexp(0.0, -w) - np.logaddexp(0.0, w)
+        return value
+
+    def __call__(self, z):
+        """(ln posterior density: ln L + ln prior, gradient); -inf with a zero gradient
+        where the data are impossible or the prior is 0. The sampler's inner loop: the
+        plain case is written out (a few array operations around one Evaluator call)."""
+        z = np.asarray(z, dtype=np.float64)
+        if self.free_branch:
+            lp, glp = self.log_prior(z)
+            if not np.isfinite(lp):
+                return -math.inf, np.zeros(self.n)
+            ll, gll = self._likelihood(z)
+            if not np.isfinite(ll):
+                return -math.inf, np.zeros(self.n)
+            return ll + lp, gll + glp
+        if self.p and (z.min() < self.ylo or z.max() > self.yhi):
             return -math.inf, np.zeros(self.n)
-        ll, gll = self._likelihood(z)
-        if not np.isfinite(ll):
+        r = np.exp(z)
+        ll, grad, _ = self.evaluate(r)
+        if not ll > -math.inf:
             return -math.inf, np.zeros(self.n)
-        return ll + lp, gll + glp
+        value = ll + self.a * float(z.sum()) - self.bH * float(r.sum()) + self.const
+        return value, grad + (self.a - self.bH * r)
 
     def reported(self, z):
         """[..., n] coordinates -> [..., n] values in their reported units: rates per

@@ -89,21 +89,26 @@ class Prior:
             return -math.inf
         return float(np.sum(-np.log(s) - math.log(math.log(self.upper / self.lower))))
 
-    def log_density_log_scale(self, scaled_rates):
-        """(ln p(y), d ln p(y) / dy) of y = ln s, per rate summed in the value: the
-        density of the log-rate, ln p(s) + ln s (the Jacobian), and its gradient
-        s d ln p / ds + 1. What the sampler adds to ln L."""
-        s = np.asarray(scaled_rates, dtype=np.float64)
+    def log_scale_terms(self):
+        """(a, b, c, lo, hi): the density of y = ln s, ln p(s) + ln s (the Jacobian), is
+        a ln s - b s + c for s in [lo, hi] and 0 outside (per rate); its gradient in y
+        is a - b s. What the sampler adds to ln L."""
         if self.kind == "exponential":
-            value = np.sum(np.log(s) - math.log(self.mean) - s / self.mean)
-            return float(value), 1.0 - s / self.mean
+            return 1.0, 1.0 / self.mean, -math.log(self.mean), 0.0, math.inf
         if self.kind == "gamma":
             a, b = self.shape, self.shape / self.mean
-            value = np.sum(a * math.log(b) - math.lgamma(a) + a * np.log(s) - b * s)
-            return float(value), a - b * s
-        inside = np.all((s >= self.lower) & (s <= self.upper))
-        value = -len(s) * math.log(math.log(self.upper / self.lower)) if inside else -math.inf
-        return float(value), np.zeros_like(s)
+            return a, b, a * math.log(b) - math.lgamma(a), 0.0, math.inf
+        return 0.0, 0.0, -math.log(math.log(self.upper / self.lower)), self.lower, self.upper
+
+    def log_density_log_scale(self, scaled_rates):
+        """(ln p(y), d ln p(y) / dy) of y = ln s: ln p(s) + ln s summed over the rates,
+        and its gradient per rate (``log_scale_terms``)."""
+        s = np.asarray(scaled_rates, dtype=np.float64)
+        a, b, c, lo, hi = self.log_scale_terms()
+        if np.any(s < lo) or np.any(s > hi):
+            return -math.inf, np.zeros_like(s)
+        value = a * float(np.sum(np.log(s))) - b * float(np.sum(s)) + c * len(s)
+        return value, a - b * s
 
     def draw(self, rng, size):
         """Scaled rates drawn from the prior (simulation-based calibration)."""

@@ -14,11 +14,11 @@ from __future__ import annotations
 import numpy as np
 
 
-def run_chains(density, n, starts, chains, warmup, draws, seed):
+def run_chains(density, n, starts, chains, warmup, draws, seed, low_rank=False):
     """(z [chains, draws, n], log density [chains, draws], stats) of NUTS on ``density``
     (z -> (value, gradient)). One thread: the workflow's parallelism comes from jobs.
     stats: 'diverging' [chains, draws] bool, 'maxdepth' [chains, draws] bool,
-    'step_size' [chains]."""
+    'step_size' [chains]. ``low_rank``: nutpie's low-rank modified mass matrix."""
     import nutpie
     from nutpie.compiled_pyfunc import from_pyfunc
 
@@ -61,6 +61,7 @@ def run_chains(density, n, starts, chains, warmup, draws, seed):
         seed=int(seed) % (2**63),
         progress_bar=False,
         save_warmup=False,
+        low_rank_modified_mass_matrix=low_rank,
     )
     z = np.asarray(trace.posterior["z"].values, dtype=np.float64).reshape(chains, draws, n)
     st = trace.sample_stats

@@ -28,7 +28,6 @@ from mkforest.engine.posterior_pooling import (
     weighted_model_probabilities,
     weighted_quantiles,
 )
-from mkforest.jobs import bayes as bayes_job
 from mkforest.jobs.bayes import parameter_flag, saved_per_chain, thin_draws
 
 
@@ -127,10 +126,3 @@ def test_flags_and_thinning():
     assert saved_per_chain(200, 4, 20) == 20
     x = np.arange(2 * 10).reshape(2, 10)
     assert thin_draws(x, 4).tolist() == [[0, 3, 6, 9], [10, 13, 16, 19]]
-
-
-def test_flag_thresholds_are_the_engines():
-    """One fact in two places (the summary job does not import the sampler): kept equal."""
-    from mkforest.engine import bayes as engine
-
-    assert (bayes_job.R_HAT_MAX, bayes_job.ESS_MIN) == (engine.R_HAT_MAX, engine.ESS_MIN)

@@ -14,13 +14,9 @@ from pathlib import Path
 
 import numpy as np
 
+from ..engine.bayes import ESS_MIN, R_HAT_MAX  # the package top imports no sampler
 from ..engine.treatments import Treatment
 from ..seeds import derive_seed
-
-# Vehtari et al. (2021): rank-normalised R-hat at most 1.01 and bulk and tail ESS at
-# least 400 (their recommended thresholds); a fit outside them is flagged.
-R_HAT_MAX = 1.01
-ESS_MIN = 400
 
 POSTERIOR_COLUMNS = [
     "tree_set",

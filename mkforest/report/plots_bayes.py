@@ -50,6 +50,16 @@ def _wrap(text: str, width: int = 28) -> str:
     return "\n".join(out[:3]) + (" …" if len(out) > 3 else "")
 
 
+def parameter_label(parameter: str, changes: str) -> str:
+    """The change a rate belongs to ('a → b'), or the parameter's label with the number
+    of changes sharing it ('rate (2 changes)'); a branch-length parameter by its name."""
+    listed = [c for c in changes.split(", ") if c]
+    if len(listed) == 1:
+        return listed[0].replace("->", " → ")
+    text = parameter.replace("<->", " ↔ ").replace("->", " → ")
+    return f"{text} ({len(listed)} changes)" if listed else text
+
+
 def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str):
     """One panel per model, one band per parameter: the pooled density of the draws (trees
     as given), the medians and 95% intervals of both across-tree summaries, and below
@@ -110,7 +120,7 @@ def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str
             if "changes" in summ:
                 c = summ[summ["parameter"] == p]["changes"]
                 change = str(c.iloc[0]) if len(c) and str(c.iloc[0]) not in ("", "nan") else ""
-            labels.append((base + 0.5, _wrap(change.replace("->", " → ") or p)))
+            labels.append((base + 0.5, _wrap(parameter_label(p, change))))
         ax.set_ylim(0, len(params[model]))
         ax.set_yticks([y for y, _ in labels])
         ax.set_yticklabels([t for _, t in labels], fontsize=8)

@@ -221,3 +221,35 @@ def test_figures_have_no_overlaps(run, tmp_path):
     assert overlaps(fig) == []
     style.save(fig, [tmp_path / "models.png", tmp_path / "models.svg"])
     assert (tmp_path / "models.png").stat().st_size > 5000
+
+
+def test_methods_sentences_from_the_tables(run):
+    from mkforest.report.methods_bayes import bayes_paragraph, bayes_results
+
+    tables = {
+        "marginal_likelihoods": bayes.read_table(run.marginal),
+        "bayes_model_support": bayes.read_table(run.support),
+    }
+    config = {
+        "bayes": {
+            "enabled": True,
+            "prior": {"log_uniform": {"lower": 0.01, "upper": 100}},
+            "chains": 2,
+            "warmup": 10,
+            "draws": 300,
+            "saved_draws": 100,
+        }
+    }
+    text = bayes_paragraph(config, tables)
+    assert "a log-uniform prior from 0.01 to 100 on its number of expected changes" in text
+    # tree 12 flagged under both models: 2 of 8 posteriors
+    assert "2 of 8 posteriors (tree by model) had an R-hat above 1.01" in text
+    assert "depend on the prior" in text
+    # joint weights 0.2, 0.2, 0.2, 0.4: 3.57 effective trees of 4, not 'a few'
+    assert "a few trees carry the weight" not in text
+    one_tree = tables["bayes_model_support"].assign(effective_trees=1.2)
+    text = bayes_paragraph(config, dict(tables, bayes_model_support=one_tree))
+    assert "a few trees carry the weight for glow (about 1.20 of 4 trees)" in text
+    words = bayes_results("glow", tables)
+    assert "one had the highest mean posterior probability over 4 trees (0.56;" in words
+    assert "most probable on 3 of 4 trees; 0.60 with the trees weighted by the trait" in words

@@ -22,6 +22,7 @@ def main(smk):
             summary[(summary["analysis"] == analysis)],
             smk.params.models,
             analysis,
+            smk.params.pair_traits or None,
         )
     else:
         fig = plots_bayes.model_probabilities(

@@ -67,6 +67,8 @@ def run(tmp_path_factory):
     path.write_text(yaml.safe_dump(config, sort_keys=False))
     res = run_snakemake(work, path, timeout=900)
     assert res.returncode == 0, res.stderr[-4000:]
+    report = run_snakemake(work, path, "--report", str(work / "report.html"), timeout=600)
+    assert report.returncode == 0, report.stderr[-4000:]
     return work / "results" / "bayes", res
 
 
@@ -158,6 +160,10 @@ def test_per_tree_rows_and_flags(run):
 
 def test_figures_methods_and_job_count(run):
     out, res = run
+    # the HTML report carries the tables and figures, with their captions
+    html = (out.parent.parent / "report.html").read_text(errors="replace")
+    for name in ("posterior_summary.tsv", "bayes_model_support.tsv", "model_probabilities.png"):
+        assert name in html
     for name in ("spines.posterior_rates", "body.posterior_rates", "model_probabilities"):
         assert (out / "plots" / "bayes" / f"{name}.png").stat().st_size > 5000
     # 2 chains x 100 draws cannot reach an ESS of 400: every posterior is flagged, and

@@ -50,17 +50,18 @@ def _wrap(text: str, width: int = 28) -> str:
     return "\n".join(out[:3]) + (" …" if len(out) > 3 else "")
 
 
-def parameter_label(parameter: str, changes: str) -> str:
-    """The change a rate belongs to ('a → b'), or the parameter's label with the number
-    of changes sharing it ('rate (2 changes)'); a branch-length parameter by its name."""
+def parameter_label(parameter: str, changes: str, pair_traits=None) -> str:
+    """The change a rate belongs to ('a → b'; for a pair, the trait that changes and the
+    other's state), or the parameter's label with the number of changes sharing it
+    ('rate (2 changes)'); a branch-length parameter by its name."""
     listed = [c for c in changes.split(", ") if c]
     if len(listed) == 1:
-        return listed[0].replace("->", " → ")
+        return style.change_label(*listed[0].split("->", 1), pair_traits)
     text = parameter.replace("<->", " ↔ ").replace("->", " → ")
     return f"{text} ({len(listed)} changes)" if listed else text
 
 
-def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str):
+def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str, pair_traits=None):
     """One panel per model, one band per parameter: the pooled density of the draws (trees
     as given), the medians and 95% intervals of both across-tree summaries, and below
     them each tree's 95% interval (flagged trees in purple).
@@ -120,7 +121,7 @@ def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str
             if "changes" in summ:
                 c = summ[summ["parameter"] == p]["changes"]
                 change = str(c.iloc[0]) if len(c) and str(c.iloc[0]) not in ("", "nan") else ""
-            labels.append((base + 0.5, _wrap(parameter_label(p, change))))
+            labels.append((base + 0.5, _wrap(parameter_label(p, change, pair_traits))))
         ax.set_ylim(0, len(params[model]))
         ax.set_yticks([y for y, _ in labels])
         ax.set_yticklabels([t for _, t in labels], fontsize=8)
@@ -162,7 +163,8 @@ def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str
         Line2D([], [], color=FLAG_COLOUR, lw=1.2, label="flagged tree (R-hat or ESS)"),
     ]
     fig.suptitle(f"{analysis}: posterior of each rate across trees", fontsize=10, x=0.02, ha="left")
-    fig.tight_layout(rect=(0, 0.09 if len(models) > 1 else 0.14, 1, 0.97))
+    height = fig.get_size_inches()[1]
+    fig.tight_layout(rect=(0, 0.85 / height, 1, 1 - 0.3 / height))
     fig.legend(handles=handles, loc="lower center", ncol=2, fontsize=8, frameon=False)
     return fig
 

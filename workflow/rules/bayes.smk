@@ -87,6 +87,9 @@ rule plot_bayes_rates:
         ENV
     params:
         models=lambda wildcards: BAYES[wildcards.analysis],
+        pair_traits=lambda wildcards: config["pairs"]
+        .get(wildcards.analysis, {})
+        .get("traits", []),
     script:
         "../../scripts/plot_bayes.py"
 

@@ -4,7 +4,7 @@
 
 1. one evaluation of ln L + gradient: the plain fit's objective (an Evaluator kept
    across calls, at exp of the log-rates, as in fit_model) against the treatment
-   fit's (fitting._TreatmentSpace.objective: the treatment's lengths and
+   fit's (treatment_search.TreatmentSpace.objective: the treatment's lengths and
    d lengths / d theta, the rates' scaling and the chain rule for the extra
    parameter, in one compiled call where it applies);
 2. whole fits (fit_model, the workflow's default starts) of equal, symmetric and
@@ -31,9 +31,10 @@ import numpy as np  # noqa: E402
 from bench_likelihood import best_time, make_case  # noqa: E402
 
 from mkforest.engine.branches import ESTIMABLE, NULL_VALUE, Treatment  # noqa: E402
-from mkforest.engine.fitting import _TreatmentSpace, fit_model  # noqa: E402
+from mkforest.engine.fitting import fit_model  # noqa: E402
 from mkforest.engine.gradient import Evaluator  # noqa: E402
 from mkforest.engine.models import build_model  # noqa: E402
+from mkforest.engine.treatment_search import TreatmentSpace  # noqa: E402
 
 STATES = ("x", "y", "z")
 TREATMENTS = ("as_given", "unit", *ESTIMABLE)
@@ -55,7 +56,7 @@ def section_evaluation(rng, repeat, n_tips):
 
     calls = {"as_given": plain}
     for name in ESTIMABLE:
-        space = _TreatmentSpace(tree, X, model, "uniform", Treatment(name))
+        space = TreatmentSpace(tree, X, model, "uniform", Treatment(name))
         xb = INSIDE[name] if name != "delta" else np.log(INSIDE[name])  # ln delta
         x = np.append(np.log(rates), (xb - NULL_VALUE[name]) / space.s)
         calls[name] = lambda objective=space.objective, x=x: objective(x)

@@ -34,6 +34,7 @@ from bench_mapping import pure_birth_tree  # noqa: E402
 from scipy.optimize import minimize  # noqa: E402
 
 from mkforest.engine import fitting  # noqa: E402
+from mkforest.engine.descent import IMPOSSIBLE_OBJECTIVE  # noqa: E402
 from mkforest.engine.fitting import LogLikelihood, fit_model  # noqa: E402
 from mkforest.engine.gradient import log_likelihood_and_gradient  # noqa: E402
 from mkforest.engine.models import build_model  # noqa: E402
@@ -68,7 +69,7 @@ def fit_finite_difference(tree, X, model, root="uniform", n_starts=5, seed=0):
 
     def objective(x):
         ll = f(np.exp(x))
-        return -ll if np.isfinite(ll) else fitting._IMPOSSIBLE
+        return -ll if np.isfinite(ll) else IMPOSSIBLE_OBJECTIVE
 
     best = math.inf
     for x0 in starts:

@@ -35,9 +35,10 @@ from bench_mapping import pure_birth_tree  # noqa: E402
 
 from mkforest.engine import gradient  # noqa: E402
 from mkforest.engine.branches import ESTIMABLE, Treatment, transformed_tree  # noqa: E402
-from mkforest.engine.fitting import _TreatmentSpace, fit_model  # noqa: E402
+from mkforest.engine.fitting import fit_model  # noqa: E402
 from mkforest.engine.models import build_model  # noqa: E402
 from mkforest.engine.simulate import simulate_states, tip_partials_from_states  # noqa: E402
+from mkforest.engine.treatment_search import TreatmentSpace  # noqa: E402
 
 TREATMENTS = ("as_given", "unit", *ESTIMABLE)
 SHAPES = {
@@ -50,7 +51,7 @@ SCENARIOS = {"null": (Treatment(), 1.0), "unit": (Treatment("unit"), 0.15)}
 _calls = [0]
 _inside = [False]
 _plain = gradient.Evaluator.__call__
-_objective = _TreatmentSpace.objective
+_objective = TreatmentSpace.objective
 
 
 def _counted(self, *args, **kwargs):
@@ -71,7 +72,7 @@ def _counted_objective(self, z):
 # objective's (one compiled call that does not go through the evaluator, or the
 # evaluator). ln L alone (moving estimates onto bounds) is not counted, as for plain fits.
 gradient.Evaluator.__call__ = _counted
-_TreatmentSpace.objective = _counted_objective
+TreatmentSpace.objective = _counted_objective
 
 
 def data_sets(seed, n_sets, n_tips, states, truth, scale):

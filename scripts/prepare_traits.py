@@ -10,10 +10,16 @@ import logging
 
 import pandas as pd
 
-from mkforest.data.traits import read_traits, traits_to_json
+from mkforest.data.traits import column_of, read_traits, table_header, traits_to_json
 from mkforest.data.trees import load_trees
 from mkforest.errors import InputError
-from mkforest.jobs.prepare import data_check, impossible_rows, tree_check_rows
+from mkforest.jobs.prepare import (
+    combined_state_rows,
+    data_check,
+    impossible_rows,
+    match_spaces,
+    tree_check_rows,
+)
 from mkforest.jobs.scripting import run_job
 
 COLUMNS = ["trait", "item", "value", "detail", "tree"]
@@ -33,11 +39,47 @@ def main(smk):
     folder = Path(smk.input.chunks)
     trees = [t for p in sorted(folder.glob("chunk_*.npz")) for t in load_trees(p)]
     summary = json.loads((folder / "summary.json").read_text())
+    traits, renamed = match_spaces(traits, trees[0].tip_labels)
+    if renamed:
+        log.info(
+            "%d taxa of the table matched tree tips with underscores for spaces (first: '%s' "
+            "as '%s')",
+            len(renamed),
+            *next(iter(renamed.items())),
+        )
     rows, problems = data_check(
         traits, trees[0].tip_labels, tcfg["absent_taxa"], f"trait table '{smk.input.traits}'"
     )
     impossible = impossible_rows(traits, trees)
-    rows = tree_check_rows(summary, summary["trees"]) + rows + impossible
+    combined = combined_state_rows(traits, tcfg["separator"])
+    for r in combined:
+        log.warning("trait '%s': states %s", r["trait"], r["detail"])
+    spaced = (
+        [
+            dict(
+                trait="(taxa)",
+                item="matched_with_underscores_for_spaces",
+                value=len(renamed),
+                detail=", ".join(f"{a} = {b}" for a, b in renamed.items()),
+            )
+        ]
+        if renamed
+        else []
+    )
+    header = table_header(smk.input.traits)
+    renamed_columns = [
+        dict(trait=name, item="column", value=1, detail=column_of(name, header))
+        for name in tcfg["columns"]
+        if column_of(name, header) != name
+    ]
+    rows = (
+        tree_check_rows(summary, summary["trees"])
+        + spaced
+        + renamed_columns
+        + rows
+        + combined
+        + impossible
+    )
     pd.DataFrame(rows, columns=COLUMNS).astype({"tree": "Int64"}).to_csv(
         smk.output.check, sep="\t", index=False
     )

@@ -16,6 +16,7 @@ from mkforest.data.trees import describe_rooting, read_trees, save_trees
 from mkforest.jobs.prepare import (
     auto_trees_per_job,
     burnin_count,
+    chain_start,
     check_same_taxa_across_sets,
     check_same_tips,
     check_tree_lengths,
@@ -37,7 +38,9 @@ def main(smk):
         source = f"tree file '{cfg['file']}'" + (
             f" (tree set '{name}')" if len(smk.params.tree_sets) > 1 else ""
         )
-        trees = read_trees(cfg["file"], root=cfg.get("root"))
+        no_lengths = smk.params.get("no_lengths", "error")
+        filled = []
+        trees = read_trees(cfg["file"], root=cfg.get("root"), no_lengths=no_lengths, filled=filled)
         keep = select_trees(
             len(trees), cfg["burnin"], cfg["thin"], cfg["sample"], smk.params.seed, source
         )
@@ -48,6 +51,15 @@ def main(smk):
         used = [lengthen_branches(t, minimum).with_tree_set(name) for t in used]
         check_tree_lengths(used, source)
         firsts[name] = (used[0], source)
+        start = "" if used[0].index in filled else chain_start(used[0])
+        if start:
+            log.warning(
+                "%s: the first tree kept (tree %d) looks like a sampler's starting tree (%s); "
+                "raise trees.burnin to drop it",
+                name,
+                used[0].index,
+                start,
+            )
         log.info(
             "%s: %d trees in %s; %d used after burn-in %s, thinning %d, sample %s; rooted %s",
             name,
@@ -110,6 +122,8 @@ def main(smk):
                 "root": cfg.get("root"),
                 "rooting": describe_rooting(cfg.get("root")),
                 "min_branch_length": minimum,
+                "without_lengths": len(filled),
+                "first_kept": {"tree": used[0].index, "why": start} if start else None,
                 "trees": report,
             }
     check_same_taxa_across_sets(firsts)

@@ -19,6 +19,8 @@ def main(smk):
         "finished": now_utc(),
     }
     inputs = list(smk.params.inputs) + [("config", p) for p in smk.params.configfiles]
+    # paths under the working folder relative to it: no home folder in an archive
+    inputs = [(role, relative_command([p], inv.directory)[0]) for role, p in inputs]
     manifest = build_manifest(
         smk.params.config,
         smk.params.run_folder,

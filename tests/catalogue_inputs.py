@@ -7,6 +7,7 @@ tree files, as programs that write posterior samples do.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import numpy as np
@@ -98,3 +99,95 @@ def unrooted(newick: str) -> str:
     )
     tree.deroot()
     return tree.as_string(schema="newick", suppress_rooting=True).strip()
+
+
+# --------------------------------------------------------------------------- issue 21, item 5
+# Invented files of the exact shapes tree programs write (no real data). Each writer
+# returns the path; the trees hold the eight TAXA.
+
+
+def _tips_named(newick: str, names: dict) -> str:
+    return rename(newick, names)
+
+
+def _random_trees(n_trees: int, seed: int, p_zero: float = 0.0) -> list:
+    rng = np.random.default_rng(seed)
+    return [random_newick(rng, len(TAXA), p_polytomy=0.0, p_zero=p_zero) for _ in range(n_trees)]
+
+
+def sampler_unrooted_translate(path: Path, n_trees: int = 4) -> Path:
+    """A sampler's output: no TAXA block, a lower-case translate block whose last entry
+    ends with ';' on its own line, trees marked [&U] and named by chain state."""
+    lines = ["#NEXUS", "", "begin trees;", "\ttranslate"]
+    lines += [f"\t\t{i + 1} {quote(t)}," for i, t in enumerate(TAXA)]
+    lines[-1] = lines[-1].rstrip(",")
+    lines.append("\t\t;")
+    for k, nwk in enumerate(_random_trees(n_trees, 11)):
+        body = unrooted(_tips_named(nwk, {i: str(i + 1) for i in range(len(TAXA))}))
+        lines.append(f"tree gen.{250000 * k} = [&U] {body}")
+    lines.append("end;")
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def consensus_with_comments(path: Path) -> Path:
+    """A consensus tree whose comments hold braces, quotes, % and +- , before and after the
+    colon, on internal nodes and tips."""
+    (nwk,) = _random_trees(1, 12)
+    nwk = _tips_named(nwk, {i: quote(t) for i, t in enumerate(TAXA)})
+    before = '[&prob=1.0,prob_range={0.1,0.2},prob(percent)="100",prob+-sd="100+-0"]'
+    after = "[&length_range={0.05,0.2},height_95%_HPD={1.5,2.5}]"
+    nwk = re.sub(r":([0-9.eE-]+)", lambda m: f"{before}:{after}{m.group(1)}", nwk)
+    path.write_text(f"#NEXUS\nbegin trees;\n\ttree con_50_majrule = [&R] {nwk}\nend;\n")
+    return path
+
+
+def bootstrap_lines(path: Path, lengths: bool = True, n_trees: int = 4) -> Path:
+    """Bare Newick trees one per line, support values as internal node labels."""
+    rng = np.random.default_rng(13)
+    out = []
+    for nwk in _random_trees(n_trees, 13):
+        nwk = unrooted(_tips_named(nwk, {i: quote(t) for i, t in enumerate(TAXA)}))
+        nwk = re.sub(r"\)(?=[:,);])", lambda m: f"){int(rng.integers(40, 101))}", nwk)
+        out.append(nwk if lengths else re.sub(r":[0-9.eE-]+", "", nwk))
+    path.write_text("\n".join(out) + "\n")
+    return path
+
+
+def time_trees_with_rates(path: Path, n_trees: int = 3) -> Path:
+    """Dated trees with [&rate=...] on every node, tips included, and a root ending ':0;'."""
+    rng = np.random.default_rng(14)
+    lines = ["#NEXUS", "begin trees;"]
+    for k, nwk in enumerate(_random_trees(n_trees, 14)):
+        nwk = _tips_named(nwk, {i: quote(t) for i, t in enumerate(TAXA)})
+        nwk = re.sub(
+            r":([0-9.eE-]+)",
+            lambda m: f"[&rate={rng.uniform(0.5, 2):.6f}]:{m.group(1)}",
+            nwk,
+        )
+        nwk = nwk.rstrip(";") + "[&rate=1.0]:0;"
+        lines.append(f"tree STATE_{k * 1000} = [&R] {nwk}")
+    lines.append("end;")
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def odd_length_digits(path: Path) -> Path:
+    """Lengths written 1.0000001999999988 and 9.99999993922529E-8, in a file whose name
+    has parentheses (pass such a path)."""
+    (nwk,) = _random_trees(1, 15)
+    nwk = _tips_named(nwk, {i: quote(t) for i, t in enumerate(TAXA)})
+    values = iter(["1.0000001999999988", "9.99999993922529E-8"] * 20)
+    nwk = re.sub(r":([0-9.eE-]+)", lambda m: f":{next(values)}", nwk)
+    path.write_text("[&R] " + nwk + "\n")
+    return path
+
+
+SHAPES = {
+    # name: (writer, file name, trees.root it needs)
+    "sampler_unrooted_translate": (sampler_unrooted_translate, "run1.trees", "midpoint"),
+    "consensus_with_comments": (consensus_with_comments, "consensus.tre", None),
+    "bootstrap_with_lengths": (bootstrap_lines, "boot.tre", "midpoint"),
+    "time_trees_with_rates": (time_trees_with_rates, "dated.trees", None),
+    "odd_length_digits": (odd_length_digits, "tree (final).nwk", None),
+}

@@ -11,8 +11,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from mkforest.engine.compare import model_weights
 from mkforest.jobs.ancestral import (
-    model_weights,
     q_from_rate_rows,
     resolve_choice,
     state_table,

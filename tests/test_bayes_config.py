@@ -6,8 +6,9 @@ import pytest
 import yaml
 from workflow_helpers import REPO
 
-from mkforest.data.config import bayes_analyses, bayes_job_config, validate_config
+from mkforest.data.config import bayes_analyses, validate_config
 from mkforest.errors import InputError
+from mkforest.jobs.shaping import bayes_job_config
 
 
 def config(**bayes):

@@ -40,10 +40,11 @@ from mkforest.engine.branches import (
     transformed_tree,
     tree_of_fit,
 )
-from mkforest.engine.fitting import _TreatmentSpace, fit_model
+from mkforest.engine.fitting import fit_model
 from mkforest.engine.gradient import log_likelihood_and_gradient
 from mkforest.engine.likelihood import log_likelihood
 from mkforest.engine.models import build_model
+from mkforest.engine.treatment_search import TreatmentSpace
 from mkforest.errors import InputError
 
 TOL = 1e-9  # absolute, on ln L, as for the other reference tests
@@ -179,7 +180,7 @@ def test_branch_parameter_gradient_matches_finite_differences(name, ultrametric)
         model = build_model("unconstrained", tuple(STATES))
         rng = np.random.default_rng(seed)
         for root in ("uniform", "data_weighted", "stationary"):
-            space = _TreatmentSpace(tree, X, model, root, Treatment(name))
+            space = TreatmentSpace(tree, X, model, root, Treatment(name))
             lo, hi = space.bounds
             x = np.append(
                 np.log(rng.uniform(0.2, 1.5, model.n_params)),
@@ -410,8 +411,8 @@ def test_one_call_objective_equals_the_step_by_step_one(name):
                 model = build_model(kind, tuple(STATES))
                 rng = np.random.default_rng(seed)
                 for root in ("uniform", "data_weighted"):
-                    one = _TreatmentSpace(tree, X, model, root, Treatment(name))
-                    steps = _TreatmentSpace(tree, X, model, root, Treatment(name))
+                    one = TreatmentSpace(tree, X, model, root, Treatment(name))
+                    steps = TreatmentSpace(tree, X, model, root, Treatment(name))
                     steps.evaluate.fused = False
                     lo, hi = one.bounds
                     for w in (lo, hi, 0.0, rng.uniform(lo, hi)):
@@ -503,7 +504,7 @@ def test_rates_first_reaches_the_given_lengths_optimum_on_large_trees(name):
         )
         best = -ref.fun
         assert best < -150.0
-        space = _TreatmentSpace(tree, X, model, "uniform", Treatment(name))
+        space = TreatmentSpace(tree, X, model, "uniform", Treatment(name))
         starts, (lo, hi) = start_sequence(tree, X, model, seed=1)
         z = space.rates_first(np.append(next(starts), 0.0), [(lo, hi)])
         assert space.value(z) >= best - 0.05, (name, space.value(z), best)

@@ -21,9 +21,11 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
-from catalogue_inputs import TAXA, posterior_nexus, quote, rename, unresolved_sample
+from catalogue_inputs import SHAPES, TAXA, posterior_nexus, quote, rename, unresolved_sample
 from reference import pruning_log_likelihood, ref_tree_from_newick
 from workflow_helpers import run_snakemake
+
+from mkforest.data.trees import read_trees
 
 RUN = "cat"
 PNG = b"\x89PNG\r\n\x1a\n"
@@ -590,3 +592,59 @@ def test_taxon_names_that_differ_only_in_case_get_a_hint(tmp_path):
         "The table has 'A' where the trees have 'a'",
         "absent_taxa",
     )
+
+
+# --------------------------------------------------------------------------- issue 21, item 5
+# Tree files of the exact shapes tree programs write: each reads to the trees, counts and
+# lengths DendroPy reads (general-purpose reference library), and runs end to end.
+
+
+def _dendropy_reading(path: Path, root) -> list:
+    """(sorted tip labels, total length) per tree, read by DendroPy itself."""
+    import dendropy
+
+    schema = "nexus" if path.read_text().lstrip().upper().startswith("#NEXUS") else "newick"
+    out = []
+    for t in dendropy.TreeList.get(path=str(path), schema=schema, preserve_underscores=True):
+        tips = sorted(nd.taxon.label for nd in t.leaf_node_iter())
+        total = sum(nd.edge.length or 0.0 for nd in t.preorder_node_iter() if nd is not t.seed_node)
+        out.append((tips, total))
+    return out
+
+
+@pytest.mark.parametrize("shape", list(SHAPES))
+def test_real_shapes_read_as_dendropy_reads_them(tmp_path, shape):
+    writer, name, root = SHAPES[shape]
+    path = writer(tmp_path / name)
+    theirs = _dendropy_reading(path, root)
+    for fast in (True, False):
+        ours = read_trees(path, root=root, fast=fast)
+        assert len(ours) == len(theirs)
+        for t, (tips, total) in zip(ours, theirs):
+            assert sorted(t.tip_labels) == tips
+            assert t.total_length == pytest.approx(total, rel=1e-12, abs=1e-15)
+    if shape == "odd_length_digits":
+        lengths = set(read_trees(path)[0].length[:-1])
+        assert lengths == {1.0000001999999988, 9.99999993922529e-8}
+
+
+@pytest.mark.slow  # one real run per shape (about 40 s each)
+@pytest.mark.parametrize("shape", list(SHAPES))
+def test_real_shapes_run_end_to_end(tmp_path, shape):
+    writer, name, root = SHAPES[shape]
+    (tmp_path / "data").mkdir()
+    writer(tmp_path / "data" / name)
+    colour = ["red", "blue", "red", "blue", "blue", "red", "blue", "red"]
+    rows = ["taxon\tcolour"] + [f"{t}\t{c}" for t, c in zip(TAXA, colour)]
+    (tmp_path / "data" / "traits.tsv").write_text("\n".join(rows) + "\n")
+    cfg = write_config(
+        tmp_path,
+        trees={"file": f"data/{name}", "root": root, "per_job": 50},
+        traits={"file": "data/traits.tsv", "columns": ["colour"]},
+        models={"one": {"kind": "equal"}},
+    )
+    proc = run_snakemake(tmp_path, cfg)
+    finished(proc, tmp_path)
+    fits = tables(tmp_path)["fits"]
+    assert fits["tree"].nunique() == len(read_trees(tmp_path / "data" / name, root=root))
+    assert np.isfinite(fits["log_likelihood"]).all()

@@ -246,18 +246,19 @@ def _config(models=None, pairs=None):
 
 @pytest.mark.parametrize("bad", [0, 5, 9])
 def test_config_with_classes_outside_one_to_four_names_the_model(bad):
-    from mkforest.data.config import validate_config
+    from mkforest.jobs.analyses import check_config
 
     with pytest.raises(
         InputError,
         match=rf"models\.two_speed: hidden_classes is {bad}; use a "
         r"whole number from 1 \(no hidden classes\) to 4",
     ):
-        validate_config(_config({"two_speed": {"kind": "equal", "hidden_classes": bad}}))
+        check_config(_config({"two_speed": {"kind": "equal", "hidden_classes": bad}}))
 
 
 def test_config_class_switch_and_defaults():
-    from mkforest.data.config import hidden_class_models, validate_config
+    from mkforest.data.config import validate_config
+    from mkforest.jobs.analyses import hidden_class_models
 
     cfg = validate_config(
         _config(

@@ -191,9 +191,11 @@ def test_odd_table_columns_are_left_out_with_reasons(tmp_path):
     assert cfg["traits"]["columns"] == ["colour", "size"]
     assert "N/A" in cfg["traits"]["missing"] and "unknown" in cfg["traits"]["missing"]
     assert "note: 9 distinct values" in starter.text and "left out: only state 'x'" in starter.text
-    # the three-state trait gets the symmetric model and the ordered-chain example
+    # the three-state trait gets the symmetric model and an ordered-chain example that
+    # proposes no order for words (sorted words are no scale)
     assert cfg["models"]["mirrored"]["applies_to"] == ["size"]
-    assert '#     "large -> medium -> small": up' in starter.text
+    assert '#     "<first> -> <second> -> ... -> <last>": up' in starter.text
+    assert "large -> medium -> small" not in starter.text and "size_stepwise" not in cfg["models"]
     # rows f, g, h and i are in no tree: listed
     assert "4 row(s) of the table are in no tree" in starter.text
 
@@ -208,7 +210,16 @@ def test_misspelt_taxon_column_and_missing_lengths(tmp_path):
     with pytest.raises(InputError, match="no column 'taxa'.*Did you mean 'taxon'"):
         starting_config(trees, table, "taxa", base=tmp_path)
     starter = starting_config(trees, table, base=tmp_path)
-    assert "MISSING in 1 tree(s)" in starter.text and "The run will stop" in starter.text
+    # no length anywhere: every model with branches: unit, and the run goes through
+    assert "branch lengths: none in any tree" in starter.text
+    assert "The run will stop" not in starter.text
+    cfg = yaml.safe_load(starter.text)
+    assert {m["branches"] for m in cfg["models"].values()} == {"unit"}
+    # lengths on some branches only: the run would stop, and the comment says how to go on
+    trees.write_text("((a:1,b),(c:1,d:2));\n")
+    starter = starting_config(trees, table, base=tmp_path)
+    words = " ".join(starter.text.replace("#", " ").split())  # comments wrap at 92 characters
+    assert "MISSING on some branches of 1 tree(s)" in words and "The run will stop" in words
 
 
 def test_init_refuses_to_replace_a_file(tmp_path):
@@ -240,7 +251,9 @@ def test_make_run_calls_the_workflow_with_the_config():
     assert bare.returncode != 0 and "usage: make run CONFIG=my_config.yaml" in bare.stdout
 
 
-def test_columns_the_workflow_would_refuse_are_left_out_and_zero_lengths_reported(tmp_path):
+def test_columns_the_workflow_would_refuse_are_left_out_and_zero_lengths_reported(
+    tmp_path, monkeypatch
+):
     trees = tmp_path / "t.nwk"
     trees.write_text("((a:1,b:0):1,(c:1,d:1):1);\n")
     table = _table(
@@ -260,4 +273,5 @@ def test_columns_the_workflow_would_refuse_are_left_out_and_zero_lengths_reporte
     assert "left out: trait table" in words and "differ only in case" in words
     assert "left out 'colour' (the workflow would refuse it)" in starter.summary[1]
     assert "zero-length branches: in 1 of 1 tree(s)" in words
+    monkeypatch.chdir(tmp_path)  # the config's paths are relative to the working folder
     assert check_config(cfg, "init")["traits"]["columns"] == ["shape"]

@@ -2,22 +2,29 @@
 first, a common practice for spreading jobs over cores; Graham 1969, from memory).
 Results do not depend on it (tests/test_workflow.py compares chunkings and cores)."""
 
-from mkforest.data.config import fit_job_weight
+from mkforest.data.config import validate_config
+from mkforest.jobs.shaping import fit_job_weight
 
 
 def config():
-    return {
-        "models": {
-            "one": {"kind": "equal"},
-            "mirrored": {"kind": "symmetric"},
-            "free": {"kind": "unconstrained"},
-            "own": {"kind": "custom"},
-            "free2": {"kind": "unconstrained", "hidden_classes": 2},
-            "stretched": {"kind": "equal", "branches": "kappa"},
-            "per_event": {"kind": "equal", "branches": "unit"},
-        },
-        "pairs": {"shells": {"traits": ["a", "b"]}},
-    }
+    """A schema-filled config (the weights read its defaults)."""
+    return validate_config(
+        {
+            "run": "x",
+            "trees": {"file": "t.nex"},
+            "traits": {"file": "t.tsv", "columns": ["trait", "a", "b"]},
+            "models": {
+                "one": {"kind": "equal"},
+                "mirrored": {"kind": "symmetric"},
+                "free": {"kind": "unconstrained"},
+                "own": {"kind": "custom", "applies_to": ["trait"], "transitions": {"x -> y": "r"}},
+                "free2": {"kind": "unconstrained", "hidden_classes": 2},
+                "stretched": {"kind": "equal", "branches": "kappa"},
+                "per_event": {"kind": "equal", "branches": "unit"},
+            },
+            "pairs": {"shells": {"traits": ["a", "b"]}},
+        }
+    )
 
 
 def test_costlier_models_start_first():

@@ -158,12 +158,13 @@ def test_a_start_that_reaches_a_known_optimum_stops_there(monkeypatch):
     of the same fit with every start run to its end, with fewer evaluations. On the
     hard cases (several optima) and on easy 2-state data, with and without an
     estimated branch-length treatment."""
-    from mkforest.engine import fitting
+    from mkforest.engine import descent, treatment_search
     from mkforest.engine.branches import Treatment
+    from mkforest.engine.gradient import Evaluator
 
     calls = [0]
-    evaluator = fitting.Evaluator.__call__
-    one_call = fitting._treatment_objective
+    evaluator = Evaluator.__call__
+    one_call = treatment_search.treatment_objective
 
     def counted(self, *args):
         calls[0] += 1
@@ -173,8 +174,8 @@ def test_a_start_that_reaches_a_known_optimum_stops_there(monkeypatch):
         calls[0] += 1
         return one_call(*args)
 
-    monkeypatch.setattr(fitting.Evaluator, "__call__", counted)
-    monkeypatch.setattr(fitting, "_treatment_objective", counted_one_call)
+    monkeypatch.setattr(Evaluator, "__call__", counted)
+    monkeypatch.setattr(treatment_search, "treatment_objective", counted_one_call)
     hard_model, hard = _hard_cases(15)
     rng = np.random.default_rng(3)
     easy_model = build_model("equal", ("p", "q"))
@@ -190,15 +191,15 @@ def test_a_start_that_reaches_a_known_optimum_stops_there(monkeypatch):
     ]
     used = {}  # evaluations on the hard cases, on the easy ones
     fits = {}
-    for same_f in (-1.0, fitting.SAME_F):  # -1: never stops early
-        monkeypatch.setattr(fitting, "SAME_F", same_f)
+    for same_f in (-1.0, descent.SAME_F):  # -1: never stops early
+        monkeypatch.setattr(descent, "SAME_F", same_f)
         fits[same_f], used[same_f] = [], [0, 0]
         for i, (model, (tree, X), tr) in enumerate(cases):
             calls[0] = 0
             fits[same_f].append(fit_model(tree, X, model, seed=i, branches=tr))
             used[same_f][i >= len(hard)] += calls[0]
     stopped_early = 0
-    for (model, (tree, X), _), full, fit in zip(cases, fits[-1.0], fits[fitting.SAME_F]):
+    for (model, (tree, X), _), full, fit in zip(cases, fits[-1.0], fits[descent.SAME_F]):
         assert fit.log_likelihood == pytest.approx(full.log_likelihood, abs=1e-6)
         _assert_same_optimum(fit, full, tree, X, model)
         assert (fit.n_starts, fit.n_agree, fit.converged) == (
@@ -214,5 +215,5 @@ def test_a_start_that_reaches_a_known_optimum_stops_there(monkeypatch):
     assert stopped_early >= len(cases) // 2
     # measured: about 1% fewer on the hard cases (their starts end in different
     # places), 10-16% on the easy ones
-    assert used[fitting.SAME_F][0] <= used[-1.0][0]
-    assert used[fitting.SAME_F][1] < 0.95 * used[-1.0][1]
+    assert used[descent.SAME_F][0] <= used[-1.0][0]
+    assert used[descent.SAME_F][1] < 0.95 * used[-1.0][1]

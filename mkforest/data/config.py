@@ -14,27 +14,10 @@ from pathlib import Path
 import yaml
 
 from ..errors import InputError, did_you_mean, join_problems
+from .traits import safe_column_name, table_header
 
 SCHEMA = Path(__file__).resolve().parents[2] / "workflow" / "schemas" / "config.schema.yaml"
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_.-]+$")
-BUILTIN_KINDS = ("equal", "symmetric", "unconstrained")
-
-
-MAX_CLASSES = 4
-
-
-def check_classes(n_classes, where: str) -> int:
-    """Hidden rate classes R as an int in 1..MAX_CLASSES, or an InputError naming ``where``."""
-    if (
-        isinstance(n_classes, bool)
-        or not isinstance(n_classes, int)
-        or not 1 <= n_classes <= MAX_CLASSES
-    ):
-        raise InputError(
-            f"{where}: hidden_classes is {n_classes!r}; use a whole number from 1 "
-            f"(no hidden classes) to {MAX_CLASSES}."
-        )
-    return n_classes
 
 
 def _fill_defaults(schema: dict, value):
@@ -102,13 +85,12 @@ def config_problems(config: dict, source: str = "config") -> tuple:
         return config, [
             f"{source}: the config must be a mapping of keys (run, trees, traits, models, ...)."
         ]
-    problems, renamed_at = renamed_problems(config, source)
+    problems = []
     for e in sorted(
         jsonschema.Draft202012Validator(schema).iter_errors(config),
         key=lambda e: [str(p) for p in e.absolute_path],
     ):
-        path = tuple(e.absolute_path)
-        if path not in renamed_at and path[:2] != ("bayes", "prior"):
+        if tuple(e.absolute_path)[:2] != ("bayes", "prior"):  # bayes_problems says it
             problems += _schema_problem(e, source)
     _fill_defaults(schema, config)
     problems += name_problems(config, source)
@@ -126,27 +108,6 @@ def validate_config(config: dict, source: str = "config") -> dict:
     if problems:
         raise InputError(join_problems(problems))
     return config
-
-
-RENAMED_KINDS = {"all_different": "unconstrained"}
-
-
-def renamed_problems(config: dict, source: str = "config") -> tuple:
-    """Model kinds of the first release: one sentence naming the new word.
-
-    Returns (sentences, {paths already explained}).
-    """
-    out, at = [], set()
-    models = config.get("models")
-    for name, model in (models if isinstance(models, dict) else {}).items():
-        kind = model.get("kind") if isinstance(model, dict) else None
-        if isinstance(kind, str) and kind in RENAMED_KINDS:
-            out.append(
-                f"{source}: models.{name}.kind is '{kind}': this model kind is now "
-                f"called '{RENAMED_KINDS[kind]}'."
-            )
-            at.add(("models", name, "kind"))
-    return out, at
 
 
 def _names(value) -> list:
@@ -170,7 +131,8 @@ def name_problems(config: dict, source: str = "config") -> list:
         if not SAFE_NAME.match(t):
             problems.append(
                 f"{source}: trait column '{t}' (traits.columns) has characters that "
-                "cannot be used in file names; rename the column using letters, "
+                f"cannot be used in file names; write it as {safe_column_name(t)} (the "
+                "column is read under that name) or rename the column using letters, "
                 "digits, '_', '-' or '.'."
             )
     if len(set(traits)) != len(traits):
@@ -178,16 +140,20 @@ def name_problems(config: dict, source: str = "config") -> list:
         problems.append(f"{source}: traits.columns lists trait '{twice[0]}' twice.")
     listed = f"traits.columns ({', '.join(traits)})"
 
-    def classes_problem(value, where):
-        try:
-            check_classes(value, where)
-        except InputError as exc:
-            problems.append(str(exc))
-
     def unknown_trait(t, key):
+        if t in table_columns():  # then traits.columns is what is misspelt: say so there
+            problems.append(
+                f"{source}: {key} names trait '{t}', a column of the trait table that "
+                f"{listed} does not list; add it to traits.columns or correct the name there."
+            )
+            return
         problems.append(
             f"{source}: {key} names trait '{t}', which is not in {listed}.{did_you_mean(t, traits)}"
         )
+
+    def table_columns() -> list:
+        file = tcfg.get("file")
+        return table_header(file) if isinstance(file, str) and Path(file).is_file() else []
 
     for t in tcfg.get("order") if isinstance(tcfg.get("order"), dict) else {}:
         if traits and t not in traits:
@@ -208,7 +174,6 @@ def name_problems(config: dict, source: str = "config") -> list:
                 problems.append(f"{source}: models.{name}: a custom model needs 'transitions'.")
         elif "transitions" in model:
             problems.append(f"{source}: models.{name}: 'transitions' only goes with kind: custom.")
-        classes_problem(model.get("hidden_classes", 1), f"{source}: models.{name}")
         for t in _names(model.get("applies_to")):
             if traits and t not in traits:
                 unknown_trait(t, f"models.{name}.applies_to")
@@ -224,7 +189,6 @@ def name_problems(config: dict, source: str = "config") -> list:
         for t in pt:
             if traits and t not in traits:
                 unknown_trait(t, f"pairs.{name}.traits")
-        classes_problem(pair.get("hidden_classes", 1), f"{source}: pairs.{name}")
         if len(pt) == 2 and pt[0] == pt[1]:
             problems.append(f"{source}: pairs.{name}: the two traits must differ.")
         for h in _names(pair.get("hypotheses")) + list(_entries(pair.get("custom"))):
@@ -338,18 +302,6 @@ def bayes_trees(used_rows: list, tree_set: str, wanted) -> list:
     return [(int(rows[i]["tree"]), int(rows[i]["chunk"])) for i in spread_evenly(len(rows), wanted)]
 
 
-def bayes_job_config(config: dict, analysis: str, model: str) -> dict:
-    """What one Bayesian job (analysis x model x chunk) reads: the fit job's slice plus the
-    sampler settings (not bayes.models or enabled, so that editing those does not rerun
-    the sampling of another model)."""
-    job = fit_job_config(config, analysis, model)
-    block = config["bayes"]
-    job["bayes"] = {
-        k: block[k] for k in ("chains", "warmup", "draws", "prior", "trees", "saved_draws")
-    }
-    return job
-
-
 def tree_set_problems(config: dict, source: str = "config") -> list:
     """Exactly one of trees and tree_sets; set names usable in file names."""
     problems = []
@@ -415,88 +367,3 @@ def analyses(config: dict) -> dict:
     for p in config.get("pairs", {}):
         out[p] = pair_models(config, p)
     return {a: m for a, m in out.items() if m}
-
-
-def hidden_class_models(config: dict) -> dict:
-    """{analysis: [model names with hidden rate classes (hidden_classes > 1)]}, only
-    analyses that have such a model."""
-    out = {}
-    for analysis, names in analyses(config).items():
-        if analysis in config["traits"]["columns"]:
-            hid = [m for m in names if config["models"][m].get("hidden_classes", 1) > 1]
-        else:
-            hid = names if config["pairs"][analysis].get("hidden_classes", 1) > 1 else []
-        if hid:
-            out[analysis] = hid
-    return out
-
-
-def fit_job_config(config: dict, analysis: str, model: str) -> dict:
-    """A reduced config holding only what one fit job (analysis x model) reads.
-
-    Snakemake reruns a job when its parameters change; passing the whole config
-    would rerun every fit whenever any model or trait is added.
-    """
-    tcfg = config["traits"]
-    job = {
-        "analysis": analysis,
-        "model": model,
-        "seed": config["seed"],
-        "fitting": config["fitting"],
-        "traits": {"columns": [], "absent_taxa": tcfg["absent_taxa"]},
-        "models": {},
-        "pairs": {},
-    }
-    if analysis in tcfg["columns"]:
-        job["traits"]["columns"] = [analysis]
-        job["models"] = {model: config["models"][model]}
-    else:
-        job["pairs"] = {analysis: config["pairs"][analysis]}
-    return job
-
-
-def ancestral_job_config(config: dict, analysis: str) -> dict:
-    """A reduced config holding only what one ancestral job (one analysis) reads: its models
-    (or its pair), the criterion, the seed and the ancestral settings. Changing another
-    analysis's model, or a setting of another stage, leaves this job's params unchanged."""
-    tcfg = config["traits"]
-    anc = config["ancestral"]
-    job = {
-        "analysis": analysis,
-        "seed": config["seed"],
-        "criterion": config["criterion"],
-        "traits": {"columns": [], "absent_taxa": tcfg["absent_taxa"]},
-        "models": {},
-        "pairs": {},
-        "ancestral": {"model": anc["model"], "maps": anc["maps"]},
-    }
-    if analysis in tcfg["columns"]:
-        job["traits"]["columns"] = [analysis]
-        job["models"] = {m: config["models"][m] for m in trait_models(config, analysis)}
-    else:
-        job["pairs"] = {analysis: config["pairs"][analysis]}
-    return job
-
-
-# Relative CPU per fit by kind, measured on 200-tip, 3-state trees (benchmarks/
-# bench_workflow.py job logs: equal ~2.5 ms, symmetric ~8 ms, unconstrained ~22 ms);
-# a custom model lies between. Pairs fit joint models of four or more states.
-_KIND_WEIGHT = {"equal": 1, "symmetric": 3, "unconstrained": 10, "custom": 5}
-_PAIR_WEIGHT = 30
-
-
-def fit_job_weight(config: dict, analysis: str, model: str) -> int:
-    """A fit job's expected cost relative to an equal-rates fit, for the scheduler:
-    the costliest jobs start first, so that no long job is left running alone at the
-    end while the other cores idle (longest-first is the classic rule for spreading
-    jobs over machines; Graham 1969, from memory). Only the order changes, never a result."""
-    if analysis in config.get("pairs", {}):
-        spec = config["pairs"][analysis]
-        weight = _PAIR_WEIGHT
-    else:
-        spec = config["models"][model]
-        weight = _KIND_WEIGHT.get(spec.get("kind"), 5)
-        branches = spec.get("branches", "as_given")
-        if isinstance(branches, str) and branches not in ("as_given", "unit"):
-            weight *= 2  # an estimated branch-length parameter
-    return int(weight * spec.get("hidden_classes", 1) ** 2)

@@ -7,6 +7,7 @@ when ambiguous or polymorphic (``red|blue``), all of them when missing.
 from __future__ import annotations
 
 import csv
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -80,6 +81,27 @@ class Trait:
                 "the trees."
             )
         return out
+
+
+# Characters spreadsheets and other programs write between the states of a polymorphic cell.
+SEPARATOR_LOOKALIKES = ("/", ",", ";", "&", "|", "+")
+
+
+def combined_states(states, separator: str = "|") -> dict:
+    """{separator: [labels]}: state labels that are two or more other labels joined by one
+    of SEPARATOR_LOOKALIKES (``0/1`` beside ``0`` and ``1``), i.e. polymorphic cells read as
+    states of their own because traits.separator is another character."""
+    plain = set(states)
+    out: dict = {}
+    for s in states:
+        for sep in SEPARATOR_LOOKALIKES:
+            if sep == separator or sep not in s:
+                continue
+            parts = [p.strip() for p in s.split(sep)]
+            if len(parts) > 1 and all(p in plain for p in parts):
+                out.setdefault(sep, []).append(s)
+                break
+    return out
 
 
 def _split(value: str, separator: str) -> list:
@@ -176,6 +198,33 @@ def trait_from_mapping(
     return code_trait(name, values, states, missing, separator)
 
 
+def safe_column_name(name: str) -> str:
+    """The name a column is analysed under: every run of characters other than letters,
+    digits, '_', '-' and '.' replaced by one '_' (``Leaf shape (2021)`` -> ``Leaf_shape_2021``),
+    so it can name files; the column keeps its own name in the table."""
+    return re.sub(r"[^A-Za-z0-9_.-]+", "_", name.strip()).strip("_") or "column"
+
+
+def column_of(name: str, header: list) -> str:
+    """The table column a trait name in the config reads: the column of that name, else the
+    one column whose safe name it is (``Leaf_shape`` reads ``Leaf shape``), else ``name``."""
+    if name in header:
+        return name
+    same = [h for h in header if safe_column_name(h) == name]
+    return same[0] if len(same) == 1 else name
+
+
+def table_header(path) -> list:
+    """The column names of a CSV or TSV table's first line; [] when it cannot be read."""
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as fh:
+            line = fh.readline()
+    except (OSError, UnicodeDecodeError):
+        return []
+    delimiter = "\t" if line.count("\t") >= max(1, line.count(",")) else ","
+    return [h.strip() for h in next(csv.reader([line], delimiter=delimiter), [])]
+
+
 def read_traits(
     path,
     taxon_column: str,
@@ -207,8 +256,9 @@ def read_traits(
             )
         if columns is None:
             columns = [h for h in header if h != taxon_column]
+        source_of = {c: column_of(c, header) for c in columns}
         for c in columns:
-            if c not in header:
+            if source_of[c] not in header:
                 raise InputError(
                     f"trait table '{path}', line 1: no column '{c}' (a trait named in "
                     f"the config); columns are: {', '.join(header)}."
@@ -235,7 +285,7 @@ def read_traits(
                 )
             rows[taxon] = lineno
             for c in columns:
-                table[c][taxon] = row[header.index(c)]
+                table[c][taxon] = row[header.index(source_of[c])]
     if not rows:
         raise InputError(f"trait table '{path}' has a header but no rows.")
     state_order = state_order or {}

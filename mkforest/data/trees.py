@@ -148,6 +148,48 @@ def _describe(node) -> str:
     return f"the ancestor of '{leaves[0]}' and '{leaves[-1]}'"
 
 
+# The one way forward for trees written without branch lengths (bootstrap trees often are):
+# the same words wherever such a tree stops a run.
+NO_LENGTHS_FIX = (
+    "no branch has a length. Trees without lengths can be analysed with one unit of "
+    "length per branch (change per speciation event): set branches: unit in every model "
+    "(models.<name>.branches; mkforest init writes it so) and leave out pairs, which use "
+    "the given lengths; or give trees with branch lengths."
+)
+
+
+def has_any_length(tree) -> bool:
+    """A DendroPy tree with a length on at least one branch (the root's own edge aside)."""
+    root = tree.seed_node
+    return any(nd.edge.length is not None for nd in tree.preorder_node_iter() if nd is not root)
+
+
+def unit_lengths(tree) -> None:
+    """Give every branch of a DendroPy tree written without lengths the length 1
+    (change per speciation event, when every model uses ``branches: unit``)."""
+    for nd in tree.preorder_node_iter():
+        if nd is not tree.seed_node:
+            nd.edge.length = 1.0
+
+
+# A sampler's chain often starts from a tree whose branches all have one length, or a
+# length near 1e-7; kept in a sample it is no draw from the posterior (common practice).
+START_TINY = 1e-6
+
+
+def looks_like_chain_start(lengths) -> str:
+    """Why a tree with these branch lengths (the root's own edge left out) looks like a
+    sampler's starting tree, or "" when it does not."""
+    body = np.asarray(lengths, dtype=float)
+    if len(body) < 3:
+        return ""
+    if body.max() <= START_TINY:
+        return f"every branch is {body.max():.2g} or shorter"
+    if body.max() - body.min() <= 1e-9 * body.max():
+        return f"every branch has the same length ({body[0]:g})"
+    return ""
+
+
 def looks_unrooted(tree) -> bool:
     """A DendroPy tree whose base splits three or more ways and is not marked [&R]."""
     return len(tree.seed_node.child_nodes()) > 2 and tree.is_rooted is not True
@@ -198,6 +240,8 @@ def from_dendropy(tree, index: int = 0, source: str = "tree", rooted: bool = Fal
             continue
         parent[v] = number[nd.parent_node]
         if nd.edge.length is None:
+            if not has_any_length(tree):
+                raise InputError(f"{where}: {NO_LENGTHS_FIX}")
             raise InputError(
                 f"{where}: the branch above {_describe(nd)} has no length. Every branch needs "
                 "a length (use a time-calibrated or otherwise dated tree)."
@@ -289,11 +333,21 @@ def iter_tree_file(path, schema: str | None = None, text: str | None = None):
         raise _unreadable(exc, path, schema) from None
 
 
-def read_trees(path, schema: str | None = None, root=None, fast: bool = True) -> list:
+def read_trees(
+    path,
+    schema: str | None = None,
+    root=None,
+    fast: bool = True,
+    no_lengths: str = "error",
+    filled: list | None = None,
+) -> list:
     """Read every tree in a Newick or NEXUS file (TRANSLATE tables, [&R]/[&U] and quoted labels handled).
 
     root: None (trees must be rooted as written), "midpoint", or {"outgroup": [taxa]}
     (the ``trees.root`` config key); see ``reroot``.
+    no_lengths: "unit" gives a tree written without any branch length one unit per
+    branch (before rooting, so a midpoint counts branches; their positions are appended
+    to ``filled``); "error" stops on it.
 
     Trees kept as written go through the fast reader (``newick.read_tree_text``);
     a file it does not handle, and every file to be rerooted, is read with DendroPy
@@ -310,14 +364,22 @@ def read_trees(path, schema: str | None = None, root=None, fast: bool = True) ->
                 _build(labels, parent, length, i)
                 for i, (labels, parent, length) in enumerate(arrays)
             ]
-    return _read_trees_dendropy(path, schema, root, text)
+    return _read_trees_dendropy(path, schema, root, text, no_lengths, filled)
 
 
-def _read_trees_dendropy(path: Path, schema: str, root, text: str) -> list:
+def _read_trees_dendropy(
+    path: Path, schema: str, root, text: str, no_lengths="error", filled=None
+) -> list:
     """read_trees through DendroPy objects (``from_dendropy``)."""
     source = f"tree file '{path}'"
     out = []
     for i, t in enumerate(iter_tree_file(path, schema, text)):
+        if not has_any_length(t):
+            if no_lengths != "unit":
+                raise InputError(f"{source}, tree {i}: {NO_LENGTHS_FIX}")
+            unit_lengths(t)
+            if filled is not None:
+                filled.append(i)
         if root is not None:
             reroot(t, root, f"{source}, tree {i}")
         out.append(from_dendropy(t, i, source, rooted=root is not None))
@@ -347,10 +409,17 @@ def reroot(tree, root, where: str = "tree") -> None:
     """
     if tree.seed_node.edge.length is None:
         tree.seed_node.edge.length = 0.0
+    if any(nd.taxon is None or not nd.taxon.label for nd in tree.leaf_node_iter()):
+        # found by fuzzing: DendroPy's midpoint fails on an unlabelled tip with an assertion
+        raise InputError(f"{where}: a tip has no label; every tip needs a taxon name.")
+    if len(tree.leaf_nodes()) < 2:
+        raise InputError(f"{where}: the tree has fewer than two tips.")
     if root == "midpoint":
         if any(
             nd.edge.length is None for nd in tree.preorder_node_iter() if nd is not tree.seed_node
         ):
+            if not has_any_length(tree):
+                raise InputError(f"{where}: {NO_LENGTHS_FIX}")
             raise InputError(
                 f"{where}: midpoint rooting needs every branch length; a branch has "
                 "none. Use trees.root: {outgroup: [...]} or give lengths."

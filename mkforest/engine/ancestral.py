@@ -32,7 +32,7 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
-from .likelihood import _LOG_SCALE, _prune_matrices, root_weights, transition_matrices
+from .likelihood import LOG_SCALE, prune_matrices, root_weights, transition_matrices
 
 
 class ImpossibleData(ValueError):
@@ -59,6 +59,7 @@ class Passes:
     log_likelihood: float
 
     def marginals(self) -> np.ndarray:
+        """Marginal probability of every state at every node [n_nodes, k] (rows sum to 1)."""
         out = self.up * self.down
         out /= out.sum(axis=1, keepdims=True)
         return out
@@ -144,9 +145,7 @@ def passes(tree, tip_partials, Q, root="uniform", states=None) -> Passes:
     n, k = tree.n_nodes, Q.shape[0]
     down = np.empty((n, k))
     count = np.empty(n, dtype=np.int64)
-    if not _prune_matrices(
-        tree.child_ptr, tree.children, tree.n_tips, P, tip_partials, down, count
-    ):
+    if not prune_matrices(tree.child_ptr, tree.children, tree.n_tips, P, tip_partials, down, count):
         raise ImpossibleData("the tip data are impossible under this rate matrix")
     r = down[tree.root]
     prior = np.asarray(root_weights(root, Q, r, states), dtype=np.float64)
@@ -155,7 +154,7 @@ def passes(tree, tip_partials, Q, root="uniform", states=None) -> Passes:
         raise ImpossibleData(
             "the tip data are impossible under this rate matrix and root treatment"
         )
-    log_likelihood = float(np.log(total) - count[tree.root] * _LOG_SCALE)
+    log_likelihood = float(np.log(total) - count[tree.root] * LOG_SCALE)
     n, k = down.shape
     above = np.zeros((n, k))
     up = np.zeros((n, k))

@@ -3,7 +3,7 @@
 Treatments: on every tree the Akaike weights of an analysis's models are summed
 by treatment (the treatments are candidate models like any other); a model with
 an estimated treatment is also tested against the same model on the given
-lengths, which it nests (kappa = lambda = delta = 1, a = 0), by a
+lengths, which it nests (kappa = lambda = delta = 1, rate_change = 0), by a
 likelihood-ratio test with one degree of freedom. For lambda the null value
 lies on the bound of its range [0, 1], so the statistic is referred to an equal
 mixture of chi-square with 0 and 1 degrees of freedom (Self & Liang 1987,
@@ -21,7 +21,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .summarise import FEW_TREES, _q, as_text
+from .summarise import FEW_TREES, as_text, finite_quantile
+from .treatments import parse_label
 
 ALPHA = 0.05
 BEST = "best_model"  # tree_set_support rows of the best model on each tree
@@ -38,10 +39,6 @@ def _set_col(fits):
 
 def _base_structure(structure: str) -> str:
     return str(structure).split(" | branches ")[0]
-
-
-def _treatment(label: str) -> str:
-    return str(label).split("=")[0]
 
 
 def treatment_support(fits: pd.DataFrame) -> pd.DataFrame:
@@ -144,7 +141,7 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
         base = {m: _base_structure(s) for m, s in zip(first["model"], first["structure"])}
         label = dict(zip(first["model"], first["branches"]))
         for alt in first["model"]:
-            if label[alt] not in ("kappa", "lambda", "delta", "early_burst"):
+            if not parse_label(label[alt]).free:
                 continue
             same = (
                 dict(zip(first["model"], as_text(first["same_as"]))) if "same_as" in first else {}
@@ -152,7 +149,9 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
             nulls = [
                 m
                 for m in first["model"]
-                if label[m] == "as_given" and base[m] == base[alt] and not same.get(m)
+                if parse_label(label[m]).name == "as_given"
+                and base[m] == base[alt]
+                and not same.get(m)
             ]
             if not nulls:
                 continue
@@ -199,8 +198,8 @@ def branch_tests(fits: pd.DataFrame, alpha: float = ALPHA) -> pd.DataFrame:
                     "branches": label[alt],
                     "n_trees": int(ok.sum()),
                     "median_statistic": float(np.median(stats[ok])) if ok.any() else np.nan,
-                    "statistic_low95": _q(stats, 0.025),
-                    "statistic_high95": _q(stats, 0.975),
+                    "statistic_low95": finite_quantile(stats, 0.025),
+                    "statistic_high95": finite_quantile(stats, 0.975),
                     "fraction_rejected": float((ps[ok] < alpha).mean()) if ok.any() else np.nan,
                     "alpha": alpha,
                     "n_below_null": sum(1 for r in rows if r["note"]),
@@ -255,11 +254,11 @@ def tree_set_support(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFram
                 "tree_set": s,
                 "n_trees": len(ll[s]),
                 "median_log_likelihood": med[s] if len(ll[s]) else np.nan,
-                "log_likelihood_low95": _q(ll[s], 0.025),
-                "log_likelihood_high95": _q(ll[s], 0.975),
-                f"median_{criterion}": _q(crit, 0.5),
-                f"{criterion}_low95": _q(crit, 0.025),
-                f"{criterion}_high95": _q(crit, 0.975),
+                "log_likelihood_low95": finite_quantile(ll[s], 0.025),
+                "log_likelihood_high95": finite_quantile(ll[s], 0.975),
+                f"median_{criterion}": finite_quantile(crit, 0.5),
+                f"{criterion}_low95": finite_quantile(crit, 0.025),
+                f"{criterion}_high95": finite_quantile(crit, 0.975),
                 "compared_with": "",
                 "fraction_better": np.nan,
                 "statement": "",

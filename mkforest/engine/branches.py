@@ -37,10 +37,14 @@ from .treatments import (  # noqa: F401 (the names users of this module import)
     BOUNDS,
     DELTA_RANGE,
     ESTIMABLE,
+    HELD_GEOMETRIC,
+    HELD_TIPS,
+    HELD_TOTAL,
     NULL_VALUE,
+    REGISTRY,
     TREATMENTS,
     Treatment,
-    _height,
+    parse_label,
     parse_treatment,
 )
 
@@ -51,7 +55,6 @@ if TYPE_CHECKING:
 # (18 terms: truncation error below 1e-20).
 _PHI = np.array([1.0 / math.factorial(n + 1) for n in range(18)])
 _DPHI = np.array([(n + 1) / math.factorial(n + 2) for n in range(18)])
-_CODES = {"kappa": 0, "lambda": 1, "delta": 2, "early_burst": 3}
 
 
 @numba.njit(cache=True)
@@ -75,7 +78,8 @@ def _transform(
 ):
     """Effective lengths (out) and d/dx (deriv) for one estimable treatment, every node
     (the formulas of the module docstring; the root's entry is 0), and the length the
-    fit holds the rates to with its d/dx (``_held_length``, kind ``held``). log_t = ln t
+    fit holds the rates to with its d/dx (``_held_length``, kind ``held``). ``code`` is
+    the registry's (``treatments.REGISTRY``). log_t = ln t
     and log_r = ln(d/H) per node, computed once per tree (0 where t or d is 0)."""
     n = t.shape[0]
     for v in range(n - 1):
@@ -125,12 +129,13 @@ def _transform(
 
 @numba.njit(cache=True)
 def _held_length(held, t, n_tips, out, deriv):
-    """(L, dL/dx) of lengths ``out`` with derivatives ``deriv``: held 0, the sum over every
-    branch; 1, over the tip branches; 2, the geometric mean over the branches whose
+    """(L, dL/dx) of lengths ``out`` with derivatives ``deriv``: held 0 (``HELD_TOTAL``),
+    the sum over every branch; 1, over the tip branches; 2 (``HELD_GEOMETRIC``), the
+    geometric mean over the branches whose
     given length t is positive (a treatment held this way must keep those positive,
     as early_burst does; a zero gives L = 0, which the fit reads as "no scaling")."""
     n = out.shape[0]
-    if held == 2:
+    if held == HELD_GEOMETRIC:
         logs, ratio, count = 0.0, 0.0, 0
         for v in range(n - 1):
             if t[v] > 0.0:
@@ -143,7 +148,7 @@ def _held_length(held, t, n_tips, out, deriv):
             return 0.0, 0.0
         g = math.exp(logs / count)
         return g, g * ratio / count
-    last = n_tips if held == 1 else n - 1
+    last = n_tips if held == HELD_TIPS else n - 1
     total, dtotal = 0.0, 0.0
     for v in range(last):
         total += out[v]
@@ -175,10 +180,11 @@ def effective_lengths(tree, treatment: Treatment, x: float | None = None):
         return t, np.zeros_like(t)
     if name == "unit":
         return np.where(t > 0.0, 1.0, 0.0), np.zeros_like(t)
+    kind = REGISTRY[name]
     out = np.empty_like(t)
     deriv = np.empty_like(t)
     _transform(
-        _CODES[name],
+        kind.code,
         t,
         d,
         log_t,
@@ -189,40 +195,35 @@ def effective_lengths(tree, treatment: Treatment, x: float | None = None):
         float(x),
         _PHI,
         _DPHI,
-        0,
+        HELD_TOTAL,
         out,
         deriv,
     )
     return out, deriv
 
 
-# The length a fit holds the rates to while the branch value moves
-# (fitting._TreatmentSpace): 0, the total of every branch; 1, the total of the tip
-# branches; 2, the geometric mean branch length. Chosen by measurement
-# (benchmarks/bench_treatment_fits.py, objective evaluations per fit against the
-# given lengths', and the optima reached). delta: as it falls towards 0 the internal
-# branches lengthen and the tip branches, where most change is seen, shorten, so the
-# rates that fit rise steeply when held to the whole tree's length (2.2 times the
-# given lengths' evaluations) and little when held to the tip branches' (1.7 times,
-# the same optima). early_burst: the geometric mean (1.81 times, against 1.89 for
-# the total, on 20 data sets per block, and no fit left below the given lengths'
-# optimum, against one). kappa and lambda: the choices took the same evaluations
-# within the benchmark's noise; the total is kept.
-HELD = {"kappa": 0, "lambda": 0, "delta": 1, "early_burst": 2}
+@numba.njit(cache=True)
+def transform_lengths(arrays, x):
+    """``_transform`` on a transform bundle (``Transform.arrays``: code, given lengths t
+    [n], depths d [n], ln t [n], ln(d/H) [n], parent int64 [n], n_tips, H, held, output
+    lengths [n], output d lengths / dx [n]; lengths in the tree's units) at optimiser
+    value x: fills the two outputs and returns (held length, its d/dx)."""
+    code, t, d, log_t, log_r, parent, n_tips, H, held, out, deriv = arrays
+    return _transform(code, t, d, log_t, log_r, parent, n_tips, H, x, _PHI, _DPHI, held, out, deriv)
 
 
 class Transform:
     """An estimable treatment's lengths on one tree, evaluated again and again (the
     optimiser's inner loop): the tree's logs are looked up once and the output
     arrays reused, so ``__call__`` is one compiled pass. Returns (lengths,
-    d lengths / dx, the length the fit holds the rates to (``HELD``), its derivative);
+    d lengths / dx, the length the fit holds the rates to (the registry's ``held``), its derivative);
     the arrays are overwritten by the next call. ``given`` is that length on the
     given branch lengths."""
 
     def __init__(self, tree, treatment: Treatment):
         self.tree = tree
-        self.code = _CODES[treatment.name]
-        self.held = HELD[treatment.name]
+        self.code = treatment.kind.code
+        self.held = treatment.kind.held
         self.d, self.log_t, self.log_r, H = _logs(tree)
         t = tree.length
         self.given = _held_length(self.held, t, tree.n_tips, t, np.zeros_like(t))[0]
@@ -230,6 +231,20 @@ class Transform:
         self.H = H
         self.out = np.empty_like(tree.length)
         self.deriv = np.empty_like(tree.length)
+        # the kernels' transform bundle (``transform_lengths``)
+        self.arrays = (
+            self.code,
+            t,
+            self.d,
+            self.log_t,
+            self.log_r,
+            tree.parent,
+            tree.n_tips,
+            H,
+            self.held,
+            self.out,
+            self.deriv,
+        )
 
     def __call__(self, x: float):
         t = self.tree.length
@@ -237,22 +252,7 @@ class Transform:
             self.out[:] = t
             self.deriv[:] = 0.0
             return self.out, self.deriv, self.given, 0.0
-        total, dtotal = _transform(
-            self.code,
-            t,
-            self.d,
-            self.log_t,
-            self.log_r,
-            self.tree.parent,
-            self.tree.n_tips,
-            self.H,
-            float(x),
-            _PHI,
-            _DPHI,
-            self.held,
-            self.out,
-            self.deriv,
-        )
+        total, dtotal = transform_lengths(self.arrays, float(x))
         return self.out, self.deriv, total, dtotal
 
 
@@ -275,12 +275,9 @@ def transformed_tree(tree, treatment: Treatment, theta: float | None = None) -> 
 def tree_of_fit(tree, label, parameter) -> TreeArrays:
     """The tree a fit used, from its fits.tsv ``branches`` label ('as_given', 'unit',
     'kappa', 'kappa=0', ...) and ``branch_parameter`` (estimate; nan when fixed or none)."""
-    label = str(label or "as_given")
-    if label in ("as_given", "nan"):
+    treatment = parse_label(label)
+    if treatment.name == "as_given":
         return tree
-    name, _, fixed = label.partition("=")
-    if fixed:
-        return transformed_tree(tree, Treatment(name, float(fixed)))
-    if name in ESTIMABLE:
-        return transformed_tree(tree, Treatment(name), float(parameter))
-    return transformed_tree(tree, Treatment(name))
+    if treatment.free:
+        return transformed_tree(tree, treatment, float(parameter))
+    return transformed_tree(tree, treatment)

@@ -56,3 +56,21 @@ def likelihood_ratio_test(lnl_null: float, k_null: int, lnl_alt: float, k_alt: i
     from scipy.special import chdtrc
 
     return stat, df, float(chdtrc(df, stat))
+
+
+def model_weights(criteria, choice: str, names) -> np.ndarray:
+    """Weights of the models on one tree: Akaike weights ('average'), all on the best
+    ('best'), or all on one named model. Models without a finite criterion get 0."""
+    v = np.asarray(criteria, dtype=float)
+    w = np.zeros(len(v))
+    if not np.isfinite(v).any():
+        return w
+    if choice == "average":
+        return akaike_weights(v)
+    if choice == "best":
+        w[int(np.nanargmin(np.where(np.isfinite(v), v, np.nan)))] = 1.0
+        return w
+    i = list(names).index(choice)
+    if np.isfinite(v[i]):
+        w[i] = 1.0
+    return w

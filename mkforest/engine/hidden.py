@@ -29,13 +29,35 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..data.config import check_classes
 from ..errors import InputError
-from .models import _ARROW, FIXED, FREE_FORBIDDEN, RateModel
+from .models import ARROW, FIXED, FREE_FORBIDDEN, KIND_TABLE, RateModel
 
+MAX_CLASSES = 4
 MAX_COMBINED_STATES = 32
 CLASS_SEPARATOR = "@"
-SWITCH_KINDS = ("equal", "symmetric", "unconstrained")
+# the kinds that also describe switching between classes (``class_switch``)
+SWITCH_KINDS = tuple(n for n, k in KIND_TABLE.items() if k.switch_words)
+
+
+def check_classes(n_classes, where: str) -> int:
+    """Hidden rate classes R as an int in 1..MAX_CLASSES, or an InputError naming ``where``."""
+    if (
+        isinstance(n_classes, bool)
+        or not isinstance(n_classes, int)
+        or not 1 <= n_classes <= MAX_CLASSES
+    ):
+        raise InputError(
+            f"{where}: hidden_classes is {n_classes!r}; use a whole number from 1 "
+            f"(no hidden classes) to {MAX_CLASSES}."
+        )
+    return n_classes
+
+
+def config_classes(spec: dict, where: str) -> int:
+    """The checked ``hidden_classes`` of one ``models.<name>`` or ``pairs.<name>`` entry
+    (``where`` names it): the one reader of that key. An entry without it (built by hand,
+    not through the schema) has none (1)."""
+    return check_classes(spec.get("hidden_classes", 1), where)
 
 
 def combined_label(state: str, cls: int) -> str:
@@ -44,6 +66,7 @@ def combined_label(state: str, cls: int) -> str:
 
 
 def check_switch(class_switch, where: str) -> str:
+    """``class_switch`` when it is a known kind, else an InputError naming ``where``."""
     if class_switch not in SWITCH_KINDS:
         raise InputError(
             f"{where}: class_switch is {class_switch!r}; use one of {', '.join(SWITCH_KINDS)}."
@@ -55,7 +78,7 @@ def check_no_class_in_transitions(transitions, states, where: str) -> None:
     """A custom model's transitions name observed states only (InputError naming the model
     when one names a combined state such as 'rock@2'): the classes are added for it."""
     for key in dict(transitions or {}):
-        for name in _ARROW.split(str(key).strip())[0::2]:
+        for name in ARROW.split(str(key).strip())[0::2]:
             state, sep, cls = name.rpartition(CLASS_SEPARATOR)
             if name not in states and sep and cls.isdigit() and state in states:
                 raise InputError(

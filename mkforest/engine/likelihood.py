@@ -20,15 +20,15 @@ from ..errors import InputError
 # scaling by a power of two is exact in floating point.
 _SCALE_EXP = 256
 _SCALE_LIMIT = 2.0**-_SCALE_EXP
-_LOG_SCALE = _SCALE_EXP * math.log(2.0)
+LOG_SCALE = _SCALE_EXP * math.log(2.0)
 
 # Eigen-decomposition is used when V is well conditioned (error ~ cond(V) * 1e-16);
 # otherwise (defective or nearly defective Q) scipy's scaling-and-squaring expm.
-_MAX_EIGEN_CONDITION = 1e5
+MAX_EIGEN_CONDITION = 1e5
 
 
 @numba.njit(cache=True)
-def _p_from_eigen(E1, V, Vinv, reach, t, out):
+def p_from_eigen(E1, V, Vinv, reach, t, out):
     """out[b] = I + V diag(E1[b]) Vinv with E1[b] = expm1(lam t_b), real part.
 
     Writing P = I + V diag(expm1) Vinv keeps the small entries of P accurate to
@@ -52,7 +52,7 @@ def _p_from_eigen(E1, V, Vinv, reach, t, out):
 
 
 @numba.njit(cache=True)
-def _down_pass_eigen(
+def down_pass_eigen(
     child_ptr, children, n_tips, E1, V, Vinv, tip_partials, partials, scale_count, B, msg
 ):
     """Postorder pass for an irreducible chain, with P(t) D = D + V diag(E1) Vinv D
@@ -108,7 +108,7 @@ def _down_pass_eigen(
 
 
 @numba.njit(cache=True)
-def _prune_matrices(child_ptr, children, n_tips, P, tip_partials, partials, scale_count):
+def prune_matrices(child_ptr, children, n_tips, P, tip_partials, partials, scale_count):
     """The same pass with explicit transition matrices P [n_nodes, k, k]."""
     n_nodes = partials.shape[0]
     k = partials.shape[1]
@@ -154,7 +154,7 @@ def _rescale(partials, v, k):
 
 
 @numba.njit(cache=True)
-def _expm1_real(t, lam, out):
+def expm1_real(t, lam, out):
     """out[b, m] = expm1(lam_m t_b) for real eigenvalues."""
     for b in range(t.shape[0]):
         for m in range(lam.shape[0]):
@@ -162,7 +162,7 @@ def _expm1_real(t, lam, out):
 
 
 @numba.njit(cache=True)
-def _expm1_complex(t, lam, out):
+def expm1_complex(t, lam, out):
     """out[b, m] = expm1(lam_m t_b) for complex eigenvalues, to full relative precision:
     e^{x+iy} - 1 = (expm1(x) cos y - 2 sin^2(y/2)) + i e^x sin y. A conjugate pair
     (as returned by LAPACK, one after the other) is computed once."""
@@ -190,13 +190,15 @@ def expm1_outer(t, lam) -> np.ndarray:
     """E1[b, m] = expm1(lam_m t_b), real or complex like lam, to full relative precision."""
     out = np.empty((t.shape[0], lam.shape[0]), dtype=lam.dtype)
     if lam.dtype == np.complex128:
-        _expm1_complex(t, lam, out)
+        expm1_complex(t, lam, out)
     else:
-        _expm1_real(t, lam, out)
+        expm1_real(t, lam, out)
     return out
 
 
 def check_rate_matrix(Q) -> np.ndarray:
+    """Q as a float64 array, or a ValueError unless square, finite, with non-negative
+    off-diagonal rates."""
     Q = np.asarray(Q, dtype=np.float64)
     off = Q - np.diag(np.diag(Q))
     if Q.ndim != 2 or Q.shape[0] != Q.shape[1]:
@@ -207,7 +209,7 @@ def check_rate_matrix(Q) -> np.ndarray:
 
 
 @numba.njit(cache=True)
-def _real_eigensystem(Q, max_condition):
+def real_eigensystem(Q, max_condition):
     """(ok, lam, V, Vinv) for a Q whose eigenvalues are all real: two states in closed
     form (a = Q01, b = Q10, s = a + b > 0): lam = (0, -s), V = [[1, a/s], [1, -b/s]],
     Vinv = [[b/s, a/s], [1, -1]] (det V = -1, so V is well conditioned whatever the
@@ -241,10 +243,10 @@ def eigensystem(Q):
     """(lam, V, Vinv) with Q = V diag(lam) Vinv, real when every eigenvalue is real;
     None when V is ill-conditioned (defective or nearly defective Q).
 
-    Real eigenvalues are decomposed in compiled code (``_real_eigensystem``: a fifth of
+    Real eigenvalues are decomposed in compiled code (``real_eigensystem``: a fifth of
     the Python wrapper's time); complex ones, and the rare real Q it turns down, by
     NumPy, which then also judges the condition."""
-    ok, lam, V, Vinv = _real_eigensystem(np.ascontiguousarray(Q), _MAX_EIGEN_CONDITION)
+    ok, lam, V, Vinv = real_eigensystem(np.ascontiguousarray(Q), MAX_EIGEN_CONDITION)
     if ok:
         return lam, V, Vinv
     lam, V = np.linalg.eig(Q)
@@ -252,7 +254,7 @@ def eigensystem(Q):
         Vinv = np.linalg.inv(V)
     except np.linalg.LinAlgError:
         return None
-    if np.abs(V).sum(axis=0).max() * np.abs(Vinv).sum(axis=0).max() >= _MAX_EIGEN_CONDITION:
+    if np.abs(V).sum(axis=0).max() * np.abs(Vinv).sum(axis=0).max() >= MAX_EIGEN_CONDITION:
         return None
     if not lam.imag.any():
         return lam.real.copy(), np.ascontiguousarray(V.real), np.ascontiguousarray(Vinv.real)
@@ -260,7 +262,7 @@ def eigensystem(Q):
 
 
 @numba.njit(cache=True)
-def _reachable(Q):
+def reachable_mask(Q):
     """bool [k,k]: j can be reached from i (i itself included); the transitive closure
     of Q > 0 (Warshall's algorithm)."""
     k = Q.shape[0]
@@ -279,7 +281,7 @@ def _reachable(Q):
 
 def reachable(Q) -> np.ndarray:
     """bool [k,k]: j can be reached from i (i itself included), i.e. P_ij(t) > 0 for t > 0."""
-    return _reachable(np.ascontiguousarray(Q, dtype=np.float64))
+    return reachable_mask(np.ascontiguousarray(Q, dtype=np.float64))
 
 
 def transition_matrices(Q, t) -> np.ndarray:
@@ -297,7 +299,7 @@ def transition_matrices(Q, t) -> np.ndarray:
     es = eigensystem(Q)
     if es is not None:
         lam, V, Vinv = es
-        _p_from_eigen(expm1_outer(t, lam), V, Vinv, reach, t, out)
+        p_from_eigen(expm1_outer(t, lam), V, Vinv, reach, t, out)
         return out
     out[:] = scipy.linalg.expm(Q[None, :, :] * t[:, None, None])
     np.maximum(out, 0.0, out=out)
@@ -388,7 +390,7 @@ def prune(tree, tip_partials, Q):
         E1 = expm1_outer(tree.length, lam)
         B = np.empty((n, Q.shape[0]), dtype=E1.dtype)
         msg = np.empty((n, Q.shape[0]))
-        ok = _down_pass_eigen(
+        ok = down_pass_eigen(
             tree.child_ptr,
             tree.children,
             tree.n_tips,
@@ -403,12 +405,12 @@ def prune(tree, tip_partials, Q):
         )
     else:
         P = transition_matrices(Q, tree.length)
-        ok = _prune_matrices(
+        ok = prune_matrices(
             tree.child_ptr, tree.children, tree.n_tips, P, tip_partials, partials, count
         )
     if not ok:
         return None, None
-    return partials, -count * _LOG_SCALE
+    return partials, -count * LOG_SCALE
 
 
 def log_likelihood(tree, tip_partials, Q, root="uniform", states=None) -> float:

@@ -69,6 +69,7 @@ class MapSet:
 
     @property
     def n_maps(self) -> int:
+        """Number of stochastic maps drawn."""
         return self.counts.shape[0]
 
     @property

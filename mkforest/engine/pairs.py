@@ -64,14 +64,15 @@ from scipy.special import (
     chdtri,  # chi-square inverse survival; lighter than scipy.stats
 )
 
-from ..data.config import check_classes
 from ..data.traits import Trait
 from ..errors import InputError, did_you_mean
 from ..seeds import derive_seed
 from .fitting import LOWER, MAX_STARTS, UPPER, fit_model
 from .hidden import (
     MAX_COMBINED_STATES,
+    check_classes,
     check_no_class_in_transitions,
+    config_classes,
     with_hidden_classes,
 )
 from .likelihood import prune, root_weights
@@ -91,6 +92,7 @@ MAX_JOINT_STATES = 12
 
 
 def joint_label(first_state: str, second_state: str) -> str:
+    """The label of a joint state of two traits (first, second)."""
     return f"{first_state}{JOINT_SEPARATOR}{second_state}"
 
 
@@ -107,10 +109,12 @@ class TraitPair:
 
     @property
     def k1(self) -> int:
+        """Number of states of the first trait."""
         return self.first.k
 
     @property
     def k2(self) -> int:
+        """Number of states of the second trait."""
         return self.second.k
 
     @property
@@ -123,10 +127,12 @@ class TraitPair:
         return divmod(int(joint), self.k2)
 
     def joint(self, i: int, j: int) -> int:
+        """Index of the joint state (first trait in state i, second in state j)."""
         return int(i) * self.k2 + int(j)
 
     @property
     def taxa(self) -> tuple:
+        """Taxa of either trait: the first trait's, then the second's others."""
         extra = [t for t in self.second.taxa if t not in set(self.first.taxa)]
         return tuple(self.first.taxa) + tuple(extra)
 
@@ -319,7 +325,7 @@ def pair_models(name: str, spec: dict, pair: TraitPair, where: str = "config") -
     at = f"{where}: pairs.{name}"
     custom = spec.get("custom") or {}
     root = _check_root(spec.get("root", "uniform"), pair, at)
-    n_classes = check_hidden_pair(pair, spec.get("hidden_classes", 1), at)
+    n_classes = check_hidden_pair(pair, config_classes(spec, at), at)
     switch = spec.get("class_switch", "equal")
 
     def classes(model):
@@ -414,6 +420,8 @@ def selected_tests(name: str, spec: dict, models: dict, where: str = "config") -
 
 @dataclass(frozen=True)
 class Nesting:
+    """A null hypothesis nested in an alternative, tested with ``df`` degrees of freedom."""
+
     null: str
     alternative: str
     df: int

@@ -99,7 +99,8 @@ def _keys(frame, *names) -> list:
     return (["tree_set"] if "tree_set" in frame else []) + list(names)
 
 
-def _q(x, p):
+def finite_quantile(x, p):
+    """The p-quantile of the finite values of x (NaN when there are none)."""
     x = np.asarray(x, dtype=float)
     x = x[np.isfinite(x)]
     return float(np.quantile(x, p)) if x.size else np.nan
@@ -128,8 +129,8 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
                 "median_weight": fitted["weight"].median() if n else np.nan,
                 "fraction_best": float((fitted["delta"] == 0).mean()) if n else np.nan,
                 "median_delta": fitted["delta"].median() if n else np.nan,
-                "delta_low95": _q(fitted["delta"], 0.025),
-                "delta_high95": _q(fitted["delta"], 0.975),
+                "delta_low95": finite_quantile(fitted["delta"], 0.025),
+                "delta_high95": finite_quantile(fitted["delta"], 0.975),
                 "median_log_likelihood": fitted["log_likelihood"].median() if n else np.nan,
                 "n_fits": int(len(g)),
                 "n_impossible": int(impossible.sum()),
@@ -163,8 +164,8 @@ def branch_columns(g: pd.DataFrame, fitted: pd.DataFrame) -> dict:
         "branch_parameter_median": float(np.median(est[np.isfinite(est)]))
         if np.isfinite(est).any()
         else np.nan,
-        "branch_parameter_low95": _q(est, 0.025),
-        "branch_parameter_high95": _q(est, 0.975),
+        "branch_parameter_low95": finite_quantile(est, 0.025),
+        "branch_parameter_high95": finite_quantile(est, 0.975),
     }
 
 
@@ -373,8 +374,8 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
                 "n_at_lower": int(g["lower"].sum()),
                 "n_impossible": int(impossible.sum()),
                 "median_rate": float(np.median(est)) if est.size else np.nan,
-                "rate_low95": _q(est, 0.025),
-                "rate_high95": _q(est, 0.975),
+                "rate_low95": finite_quantile(est, 0.025),
+                "rate_high95": finite_quantile(est, 0.975),
                 "at_upper_min": float(x[at_upper].min()) if at_upper.any() else np.nan,
                 "status": status,
             }

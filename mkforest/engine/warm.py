@@ -68,6 +68,7 @@ def warm() -> float:
 
 
 def main() -> int:
+    """Compile every kernel into the cache and say how long it took."""
     print(f"mkforest: numba kernels compiled and cached in {warm():.1f} s")
     return 0
 

@@ -49,8 +49,9 @@ from ..data.clades import (
 )
 from ..engine.ancestral import ImpossibleData, averaged_probabilities, marginal_probabilities
 from ..engine.branches import tree_of_fit
-from ..engine.compare import akaike_weights
+from ..engine.compare import model_weights
 from ..engine.mapping import mixed_stochastic_maps
+from ..engine.treatments import parse_label
 from ..errors import InputError
 from ..seeds import derive_seed
 
@@ -192,24 +193,6 @@ def q_from_rate_rows(rows: pd.DataFrame, states) -> np.ndarray:
         Q[index[str(a)], index[str(b)]] = float(r)
     np.fill_diagonal(Q, -Q.sum(axis=1))
     return Q
-
-
-def model_weights(criteria, choice: str, names) -> np.ndarray:
-    """Weights of the models on one tree: Akaike weights ('average'), all on the best
-    ('best'), or all on one named model. Models without a finite criterion get 0."""
-    v = np.asarray(criteria, dtype=float)
-    w = np.zeros(len(v))
-    if not np.isfinite(v).any():
-        return w
-    if choice == "average":
-        return akaike_weights(v)
-    if choice == "best":
-        w[int(np.nanargmin(np.where(np.isfinite(v), v, np.nan)))] = 1.0
-        return w
-    i = list(names).index(choice)
-    if np.isfinite(v[i]):
-        w[i] = 1.0
-    return w
 
 
 def resolve_choice(choice: str, model_names, analysis: str) -> tuple:
@@ -551,16 +534,14 @@ def state_table(analysis: str, data: dict, clades: pd.DataFrame, n_total: int) -
     return pd.DataFrame(rows)
 
 
-# Bounds of a branch-length parameter that are only the edge of the search box: there
-# the data do not bound the parameter, and a map's count of changes follows the box
-# (a kappa of 3 with its rates drew 900 changes per map on a 90-tip demo tree). kappa = 0
-# (speciation events) and lambda's 0 and 1 are models in their own right, not box edges.
-BOX_EDGES = {"kappa": ("upper",), "delta": ("lower", "upper"), "early_burst": ("lower", "upper")}
-
-
 def branch_at_box_edge(treatment, at_bound) -> bool:
-    """True when a fit's estimated branch-length parameter sits at an edge of its search box."""
-    return str(at_bound or "").strip() in BOX_EDGES.get(str(treatment or "").strip(), ())
+    """True when a fit's estimated branch-length parameter sits at an edge of its search box
+    (``treatment``: the fits.tsv label; the edges: the registry's ``box_edges``)."""
+    try:
+        kind = parse_label(treatment)
+    except ValueError:
+        return False
+    return kind.free and str(at_bound or "").strip() in kind.kind.box_edges
 
 
 def bound_limited_maps(data: dict) -> np.ndarray:

@@ -21,7 +21,7 @@ import pandas as pd
 from scipy.special import chdtrc, chdtri  # chi-square sf and isf; lighter than scipy.stats
 
 from ..engine.pairs import bootstrap_p_value, bootstrap_statistics, simulation_rates
-from ..engine.summarise import FEW_TREES, _q
+from ..engine.summarise import FEW_TREES, finite_quantile
 
 BOOTSTRAP_COLUMNS = [
     "tree_set",
@@ -319,8 +319,8 @@ def summary_rows(tests: pd.DataFrame, fits: pd.DataFrame, n_replicates: int) -> 
             if len(boot)
             else np.nan,
             "median_statistic": float(ok["statistic"].median()) if len(ok) else np.nan,
-            "statistic_low95": _q(ok["statistic"], 0.025),
-            "statistic_high95": _q(ok["statistic"], 0.975),
+            "statistic_low95": finite_quantile(ok["statistic"], 0.025),
+            "statistic_high95": finite_quantile(ok["statistic"], 0.975),
             "critical_chi2": float(chdtri(df, alpha)),
             "median_p_chi2": float(ok["p_chi2"].median()) if len(ok) else np.nan,
             "median_p_bootstrap": float(boot["p_bootstrap"].median()) if len(boot) else np.nan,

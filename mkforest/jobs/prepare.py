@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from ..data.trees import TreeArrays
+from ..data.trees import TreeArrays, looks_like_chain_start
 from ..errors import InputError
 from ..seeds import derive_seed
 
@@ -87,6 +87,11 @@ def check_tree_lengths(trees: list, source: str) -> None:
             "otherwise scaled tree), leave that tree out, or set "
             "trees.min_branch_length to give every branch a small length."
         )
+
+
+def chain_start(tree: TreeArrays) -> str:
+    """Why ``tree`` looks like a sampler's starting tree, or "" (``looks_like_chain_start``)."""
+    return looks_like_chain_start(tree.length[:-1])
 
 
 def short_branches(tree: TreeArrays, minimum: float = 0.0) -> dict:
@@ -170,6 +175,26 @@ def tree_check_rows(summary: dict, used: list) -> list:
             detail=summary.get("rooting", ""),
         ),
     ]
+    if summary.get("without_lengths"):
+        rows.append(
+            dict(
+                trait="(trees)",
+                item="trees_without_lengths",
+                value=summary["without_lengths"],
+                detail="read with one unit of length per branch (every model: branches: unit)",
+            )
+        )
+    if summary.get("first_kept"):
+        rows.append(
+            dict(
+                trait="(trees)",
+                item="first_tree_looks_like_chain_start",
+                tree=summary["first_kept"]["tree"],
+                value=1,
+                detail=f"{summary['first_kept']['why']}: a sampler's starting tree? Raise "
+                "trees.burnin to drop it",
+            )
+        )
     total_zero = sum(len(r["zero_tips"]) + r["zero_internal"] for r in used)
     rows.append(
         dict(
@@ -268,6 +293,64 @@ def impossible_rows(traits: dict, trees: list) -> list:
     return rows
 
 
+def combined_state_rows(traits: dict, separator: str = "|") -> list:
+    """data_check rows for traits whose state labels look like polymorphic cells
+    (``0/1`` beside ``0`` and ``1``) that traits.separator did not split."""
+    from ..data.traits import combined_states
+
+    rows = []
+    for name, t in traits.items():
+        for sep, labels in combined_states(t.states, separator).items():
+            rows.append(
+                dict(
+                    trait=name,
+                    item="states_look_combined",
+                    value=len(labels),
+                    detail=f"{', '.join(labels)}: read as states of their own; if they are "
+                    f"polymorphic cells, set traits.separator: '{sep}'",
+                )
+            )
+    return rows
+
+
+def match_spaces(traits: dict, tree_tips) -> tuple:
+    """(traits, {table name: tip}): table taxa renamed to the tree tip they match once
+    spaces and underscores count as one (in unquoted Newick and NEXUS names an underscore
+    stands for a space), where the exact name is no tip."""
+    from dataclasses import replace
+
+    tips = set(tree_tips)
+    by_key: dict = {}
+    for tip in tree_tips:
+        by_key.setdefault(tip.replace("_", " "), []).append(tip)
+    renamed: dict = {}
+    out = {}
+    for name, t in traits.items():
+        new = []
+        for x in t.taxa:
+            match = by_key.get(x.replace("_", " "), [])
+            if x not in tips and len(match) == 1 and match[0] not in t.taxa:
+                renamed[x] = match[0]
+                new.append(match[0])
+            else:
+                new.append(x)
+        out[name] = replace(t, taxa=tuple(new))
+    return out, renamed
+
+
+def name_difference(table: str, tip: str) -> str:
+    """What differs between a table name and a tree tip that nearly match: case, spaces,
+    underscores, or a suffix ('' when they are not near)."""
+    if table.lower() == tip.lower():
+        return "case"
+    a, b = table.replace("_", " ").lower(), tip.replace("_", " ").lower()
+    if " ".join(a.split()) == " ".join(b.split()):
+        return "spaces"
+    if a.startswith(b) or b.startswith(a):
+        return "a suffix"
+    return ""
+
+
 def data_check(traits: dict, tree_tips, absent: str = "error", source: str = "traits") -> tuple:
     """(rows, problems): a tidy report per trait, and the user mistakes found.
 
@@ -300,15 +383,16 @@ def data_check(traits: dict, tree_tips, absent: str = "error", source: str = "tr
         if only_tree and absent == "error":
             shown = ", ".join(f"'{x}'" for x in only_tree[:5])
             more = f" and {len(only_tree) - 5} more" if len(only_tree) > 5 else ""
-            near = {" ".join(x.lower().split()): x for x in only_table}
             close = [
-                (x, near[" ".join(x.lower().split())])
+                (x, y, name_difference(y, x))
                 for x in only_tree
-                if " ".join(x.lower().split()) in near
+                for y in only_table
+                if name_difference(y, x)
             ]
             hint = (
-                f" The table has '{close[0][1]}' where the trees have '{close[0][0]}': names "
-                "must match exactly, including case and spaces."
+                f" The table has '{close[0][1]}' where the trees have '{close[0][0]}' (they "
+                f"differ in {close[0][2]}): names must match exactly, including case and "
+                "spaces."
                 if close
                 else ""
             )

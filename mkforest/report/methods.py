@@ -21,9 +21,10 @@ from pathlib import Path
 import pandas as pd
 
 from ..data.config import tree_sets
-from ..engine.models import HYPOTHESES
+from ..engine.models import HYPOTHESES, KIND_TABLE
 from ..engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X
 from ..engine.summarise import as_text
+from ..jobs.analyses import hidden_classes
 from .citations import REFERENCES, cite, cited_in
 from .methods_bayes import bayes_paragraph, bayes_results, bayes_warnings
 from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
@@ -34,11 +35,6 @@ CRITERION_REFS = {
     "aicc": ("akaike1974", "hurvich1989"),
     "aic": ("akaike1974",),
     "bic": ("schwarz1978",),
-}
-KIND_WORDS = {
-    "equal": "one rate for every change",
-    "symmetric": "one rate per pair of states, the same in both directions",
-    "unconstrained": "a separate rate for every change",
 }
 
 
@@ -108,18 +104,14 @@ def describe_model(model, pair_traits=None) -> str:
             "second_depends_on_first": f"the rates of {second} depend on the state of {first}; "
             f"those of {first} do not",
         }[model.kind]
-    elif model.kind in KIND_WORDS:
-        words = KIND_WORDS[model.kind]
+    elif model.kind in KIND_TABLE and KIND_TABLE[model.kind].words:
+        words = KIND_TABLE[model.kind].words
     elif model.n_classes > 1:
         words = f"only the changes listed are allowed ({_first_class(model)})"
     else:
         words = f"only the changes listed are allowed ({model.describe()})"
     if model.n_classes > 1:
-        switch = {
-            "equal": "one rate for every switch",
-            "symmetric": "a shared rate in each direction between two classes",
-            "unconstrained": "a rate of its own for every switch",
-        }[model.class_switch]
+        switch = KIND_TABLE[model.class_switch].switch_words
         words += (
             f", in each of {model.n_classes} hidden rate classes, each with rates of its own; "
             f"lineages switch class without changing state ({switch}) "
@@ -248,10 +240,21 @@ def _trees_paragraph(config, tables) -> str:
     )
     return (
         f"To take phylogenetic uncertainty into account, every model was fitted separately on "
-        f"each of {n} trees from the tree sample in {name}: {listing(steps)}. The trees used "
+        f"each of {n} {sample_words(tcfg, 'in')} {name}: {listing(steps)}. The trees used "
         f"are listed in tables/trees_used.tsv by their position in the file ({span}, counted "
         "from 0)." + _rooting_sentence(tcfg) + _branch_sentence(tcfg, tables, n)
     )
+
+
+def sample_words(tcfg, where: str = "") -> str:
+    """What the trees are (trees.kind), in the words of a methods text: 'trees of a
+    posterior sample', 'bootstrap trees' or 'trees'; with ``where``, the words before
+    the file name ('trees from the tree sample in', 'bootstrap trees in')."""
+    kind = tcfg.get("kind", "posterior")
+    if kind == "posterior":
+        return "trees from the tree sample in" if where else "trees of a posterior sample"
+    words = "bootstrap trees" if kind == "bootstrap" else "trees"
+    return f"{words} {where}" if where else words
 
 
 def _tree_counts(tables) -> dict:
@@ -278,6 +281,11 @@ def _branch_sentence(tcfg, tables, n) -> str:
             "tables/data_check.tsv)."
         )
     counts = _tree_counts(tables)
+    if counts.get("trees_without_lengths"):
+        text += (
+            f" {plural(counts['trees_without_lengths'], 'tree')} had no branch lengths in the "
+            "file; every branch was given one unit of length (change per speciation event)."
+        )
     minimum = tcfg.get("min_branch_length") or 0
     if minimum:
         text += (
@@ -427,7 +435,7 @@ def _pairs_paragraph(config, pair_summary) -> str:
         "log-likelihood to a chi-square distribution with as many degrees of freedom as the "
         "alternative has extra rates."
     )
-    hidden = [p for p, spec in pairs.items() if spec.get("hidden_classes", 1) > 1]
+    hidden = [p for p in pairs if hidden_classes(config, p) > 1]
     if hidden:
         text += (
             f" For {listing(hidden)}, every hypothesis was fitted with hidden rate classes "
@@ -548,7 +556,7 @@ BRIEF_MAX_WORDS = 250
 
 
 def _quoted_models(config, models) -> list:
-    """'"one_rate" (one rate for all changes)' once per model name, in config order."""
+    """'"one_rate" (one rate for every change)' once per model name, in config order."""
     pairs = config.get("pairs", {})
     out, seen = [], set()
     for analysis, named in models.items():
@@ -677,7 +685,7 @@ def brief_paragraph(config: dict, tables: dict, models: dict, software: dict) ->
     crit = CRITERION_NAMES[config["criterion"]]
     fit = config["fitting"]
     if n_trees > 1:
-        trees = f"on each of {n_trees} trees of a posterior sample ({how})"
+        trees = f"on each of {n_trees} {sample_words(tcfg)} ({how})"
     else:
         trees = "on a single tree"
     n_models = len(_model_names(config, models))

@@ -7,26 +7,15 @@ from pathlib import Path
 import pandas as pd
 
 from ..engine.summarise import as_text
+from ..engine.treatments import REGISTRY, null_words
+from ..jobs.analyses import model_treatment
 from .citations import cite
 
-WORDS = {
-    "as_given": "the branch lengths as given",
-    "unit": "every branch of length one (change per speciation event)",
-    "kappa": f"every branch length raised to an estimated power kappa {cite('pagel1994')}",
-    "lambda": (
-        "internal branches multiplied by an estimated lambda in [0, 1], tip branches "
-        f"lengthened to keep each tip's distance from the root {cite('pagel1999')}"
-    ),
-    "delta": (
-        "node distances from the root d transformed to H (d/H)^delta with H the tree "
-        f"height and delta estimated {cite('pagel1999')}"
-    ),
-    "early_burst": (
-        "a rate that changes exponentially with distance from the root, "
-        "e^(a s), a branch from s0 to s1 counting (e^(a s1) - e^(a s0))/a "
-        f"{cite('harmon2010')}"
-    ),
-}
+
+def treatment_words(name: str) -> str:
+    """A treatment's description in the methods text, its source cited after it."""
+    kind = REGISTRY[name]
+    return kind.words + (f" {cite(kind.source)}" if kind.source else "")
 
 
 def first_set(frame: pd.DataFrame | None) -> pd.DataFrame | None:
@@ -41,16 +30,14 @@ def branches_paragraph(config: dict) -> str:
     """Which treatments the models use, how the parameter was fitted and compared; '' when
     every model uses the given lengths."""
     used = {}
-    for name, spec in config["models"].items():
-        b = spec.get("branches", "as_given") or "as_given"
-        label = b if isinstance(b, str) else "{}={}".format(*next(iter(b.items())))
-        used.setdefault(label, []).append(name)
-    if set(used) <= {"as_given"}:
+    for name in config["models"]:
+        used.setdefault(model_treatment(config, name), []).append(name)
+    if all(t.name == "as_given" for t in used):
         return ""
     parts = []
-    for label, names in used.items():
-        name, _, fixed = label.partition("=")
-        what = WORDS[name] + (f", fixed at {fixed}" if fixed else "")
+    for treatment, names in used.items():
+        fixed = treatment.label.partition("=")[2]
+        what = treatment_words(treatment.name) + (f", fixed at {fixed}" if fixed else "")
         parts.append(f"{', '.join(names)}: {what}")
     return (
         "Branch lengths were treated per model (" + "; ".join(parts) + "). An estimated "
@@ -58,7 +45,7 @@ def branches_paragraph(config: dict) -> str:
         "parameter; the treatments were compared like any other candidate models by their "
         "Akaike weights (tables/treatment_support.tsv), and each model with an estimated "
         "parameter was tested against the same model on the given lengths, which it nests "
-        "(kappa = lambda = delta = 1, a = 0), by a likelihood-ratio test with one degree of "
+        f"({null_words('symbol')}), by a likelihood-ratio test with one degree of "
         "freedom; lambda's null value lies on the bound of its range, so its statistic was "
         f"referred to an equal mixture of chi-square with 0 and 1 degrees of freedom "
         f"{cite('self1987')} (tables/branch_test_summary.tsv)."

@@ -9,21 +9,23 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
+from ..engine.treatments import TREATMENTS, parse_label  # noqa: E402
 from . import style  # noqa: E402
 from .methods_branches import first_set  # noqa: E402
 
-TREATMENT_COLOURS = {
-    "as_given": "#4c6a92",
-    "unit": "#c3793a",
-    "kappa": "#5f9e6e",
-    "lambda": "#8d6ab8",
-    "delta": "#b5545c",
-    "early_burst": "#8c8c3a",
-}
+
+def _kind(label: str):
+    """The registry entry of a fits.tsv ``branches`` label, None for an unknown one."""
+    try:
+        return parse_label(label).kind
+    except ValueError:
+        return None
 
 
-def _colour(label: str) -> str:
-    return TREATMENT_COLOURS.get(str(label).split("=")[0], "#777777")
+def treatment_colour(label: str) -> str:
+    """The figure colour of a fits.tsv `branches` label (the registry's; grey if unknown)."""
+    kind = _kind(label)
+    return kind.colour if kind else "#777777"
 
 
 def treatment_weights_per_tree(fits: pd.DataFrame) -> pd.DataFrame:
@@ -55,11 +57,11 @@ def support_branches(fits: pd.DataFrame, criterion: str = "aicc"):
     analyses = list(dict.fromkeys(w["analysis"]))
     sets = list(dict.fromkeys(fits["tree_set"])) if "tree_set" in fits else [""]
     two = len(sets) > 1
-    order = ["as_given", "unit", "kappa", "lambda", "delta", "early_burst"]
+    order = list(TREATMENTS)
     labels = sorted(
         dict.fromkeys(w["branches"]),
         key=lambda b: (
-            order.index(b.split("=")[0]) if b.split("=")[0] in order else len(order),
+            order.index(_kind(b).name) if _kind(b) else len(order),
             "=" in b,
             b,
         ),
@@ -78,9 +80,14 @@ def support_branches(fits: pd.DataFrame, criterion: str = "aicc"):
     rng = np.random.default_rng(0)
     for y, (a, b) in enumerate(rows):
         x = w.loc[(w["analysis"] == a) & (w["branches"] == b), "weight"].to_numpy(float)
-        ax.barh(y, x.mean(), color=_colour(b), alpha=0.35, height=0.7)
+        ax.barh(y, x.mean(), color=treatment_colour(b), alpha=0.35, height=0.7)
         ax.scatter(
-            x, y + rng.uniform(-0.25, 0.25, len(x)), s=7, color=_colour(b), alpha=0.7, linewidths=0
+            x,
+            y + rng.uniform(-0.25, 0.25, len(x)),
+            s=7,
+            color=treatment_colour(b),
+            alpha=0.7,
+            linewidths=0,
         )
     ax.set_yticks(range(len(rows)))
     ax.set_yticklabels([f"{a} · {b}" for a, b in rows])

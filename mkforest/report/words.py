@@ -7,7 +7,7 @@ model keeps the user's name, in quotes.
 
 from __future__ import annotations
 
-from ..engine.models import FIXED
+from ..engine.models import FIXED, KIND_TABLE
 
 
 def hypothesis_words(name: str, kind: str, first: str, second: str) -> str:
@@ -55,13 +55,9 @@ def model_words(model) -> str:
 
 
 def _structure_words(model) -> str:
-    kind = model.kind
-    if kind == "equal":
-        return "one rate for all changes"
-    if kind == "symmetric":
-        return "symmetric rates"
-    if kind == "unconstrained":
-        return "a separate rate for every change"
+    kind = KIND_TABLE.get(model.kind)
+    if kind is not None and kind.words:
+        return kind.words
     if getattr(model, "n_classes", 1) > 1:
         return "only the changes listed"
     allowed = allowed_changes(model)

@@ -1,7 +1,8 @@
 # Input functions and settings of the Bayesian rules (bayes.smk).
 import csv
 
-from mkforest.data.config import bayes_analyses, bayes_job_config, bayes_trees
+from mkforest.data.config import bayes_analyses, bayes_trees
+from mkforest.jobs.shaping import bayes_job_config
 
 # {analysis: [models sampled]}; empty when bayes.enabled is false
 BAYES = bayes_analyses(config)

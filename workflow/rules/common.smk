@@ -5,16 +5,15 @@ import math
 import os
 import sys
 
-from mkforest.data.config import (
-    analyses,
-    ancestral_job_config,
-    fit_job_config,
-    fit_job_weight,
-    hidden_class_models,
-    tree_sets,
-)
+from mkforest.data.config import analyses, tree_sets
 from mkforest.errors import InputError
-from mkforest.jobs.analyses import check_config
+from mkforest.jobs.analyses import (
+    check_config,
+    hidden_class_models,
+    model_treatment,
+    unit_branches_only,
+)
+from mkforest.jobs.shaping import ancestral_job_config, fit_job_config, fit_job_weight
 from mkforest.jobs.scripting import cancel_scheduler_timers
 
 # Check the config (schema, names, and every model against the trait table when
@@ -26,8 +25,16 @@ _CONFIG_SOURCE = (
     if workflow.config_settings.configfiles
     else "config"
 )
+# The demo's data files, written by rule make_demo_data (prepare.smk) when missing.
+DEMO_DATA = {
+    "trees": "demo/data/trees.nex",
+    "traits": "demo/data/traits.tsv",
+    "truth": "demo/data/truth.yaml",
+    "true_tree": "demo/data/true_tree.nwk",
+    "molecular": "demo/data/trees_molecular.nex",
+}
 try:
-    config = check_config(config, _CONFIG_SOURCE)
+    config = check_config(config, _CONFIG_SOURCE, made=DEMO_DATA.values())
 except InputError as exc:
     for line in str(exc).splitlines():
         print(f"mkforest: {line}", file=sys.stderr)
@@ -160,7 +167,7 @@ BRANCH_PLOTS = (
     [f"{OUT}/plots/support_branches.png", f"{OUT}/plots/support_branches.svg"]
     if len(TREE_SETS) > 1
     or any(
-        len({repr(config["models"][m].get("branches", "as_given")) for m in models}) > 1
+        len({model_treatment(config, m) for m in models}) > 1
         for a, models in ANALYSES.items()
         if a in config["traits"]["columns"]
     )

@@ -10,7 +10,7 @@ rule fit:
         rates=f"{OUT}/fits/{{analysis}}/{{model}}/chunk_{{chunk}}.rates.tsv",
     log:
         f"{OUT}/logs/fit/{{analysis}}/{{model}}/chunk_{{chunk}}.log",
-    # costliest fits first (mkforest.data.config.fit_job_weight): same results, less idle time
+    # costliest fits first (mkforest.jobs.shaping.fit_job_weight): same results, less idle time
     priority: lambda wildcards: fit_job_weight(config, wildcards.analysis, wildcards.model)
     group:
         "fit"

@@ -22,6 +22,9 @@ checkpoint prepare_trees:
     params:
         tree_sets=stable(TREE_SETS),
         seed=config["seed"],
+        # trees written without lengths are read with one unit per branch only when
+        # every fit uses branches: unit
+        no_lengths="unit" if unit_branches_only(config) else "error",
     script:
         "../../scripts/prepare_trees.py"
 
@@ -49,11 +52,7 @@ rule prepare_traits:
 
 rule make_demo_data:
     output:
-        trees="demo/data/trees.nex",
-        traits="demo/data/traits.tsv",
-        truth="demo/data/truth.yaml",
-        true_tree="demo/data/true_tree.nwk",
-        molecular="demo/data/trees_molecular.nex",
+        **DEMO_DATA,
     log:
         "demo/data/make_demo_data.log",
     conda:

@@ -5,9 +5,9 @@ Vehtari & Gelman 2018).
 
 For each replicate: scaled rates drawn from the prior (exponential, mean 1 change along
 the height), a binary trait simulated on a fixed 40-tip pure-birth tree of height 1,
-``sample_posterior`` (4 chains, 250 warm-up and 250 draws each), the draws thinned to
-L = 99 (every 10th of the 1,000 kept: about the effective sample size, so the ranks are
-nearly independent draws, as Talts et al. advise), and the rank of the true rate among
+``sample_posterior`` at its defaults (4 chains, 500 warm-up and 500 draws each), the
+draws thinned to L = 99 (every 20th of the 2,000 kept: below the effective sample size,
+so the ranks are nearly independent draws, as Talts et al. advise), and the rank of the true rate among
 them (0..99). If the sampler and the density are right, the ranks are uniform over the
 replicates. Two models: equal rates (one rate) and unconstrained (two rates). The
 figure shows each parameter's rank histogram (20 bins) with the band holding 99% of a
@@ -48,7 +48,7 @@ def ranks(kind: str, replicates: int, seed: int = 2018):
         truth = prior.draw(rng, model.n_params) / tree.height
         states = simulate_states(tree, model.q_matrix(truth), rng)
         X = tip_partials_from_states(states, tree.n_tips, 2)
-        post = sample_posterior(tree, X, model, prior=prior, warmup=250, draws=250, seed=i)
+        post = sample_posterior(tree, X, model, prior=prior, seed=i)
         flagged += post.flagged
         draws = post.draws.reshape(-1, model.n_params)
         keep = draws[np.linspace(0, len(draws) - 1, THIN).astype(int)]

@@ -242,10 +242,14 @@ def sample_posterior(
     if flagged:
         worst = []
         if np.any(~(r_hat <= R_HAT_MAX)):
-            worst.append(f"largest R-hat {np.nanmax(r_hat):.3f} (> {R_HAT_MAX})")
+            finite = r_hat[np.isfinite(r_hat)]
+            most = f"{finite.max():.3f}" if finite.size else "undefined"
+            worst.append(f"largest R-hat {most} (> {R_HAT_MAX})")
         low = np.minimum(ess_bulk, ess_tail)
         if np.any(~(low >= ESS_MIN)):
-            worst.append(f"smallest ESS {np.nanmin(low):.0f} (< {ESS_MIN})")
+            finite = low[np.isfinite(low)]
+            least = f"{math.floor(finite.min())}" if finite.size else "undefined"
+            worst.append(f"smallest ESS {least} (< {ESS_MIN})")
         notes.append("not converged: " + "; ".join(worst))
     return Posterior(
         labels,

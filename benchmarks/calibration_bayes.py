@@ -71,7 +71,9 @@ def figure(results, path):
     import matplotlib.pyplot as plt
     from scipy.stats import binom
 
-    panels = [(kind, lab, r[:, j]) for kind, (labels, r, _) in results for j, lab in enumerate(labels)]
+    panels = [
+        (kind, lab, r[:, j]) for kind, (labels, r, _) in results for j, lab in enumerate(labels)
+    ]
     fig, axes = plt.subplots(1, len(panels), figsize=(3.4 * len(panels), 3.0), sharey=True)
     for ax, (kind, lab, r) in zip(np.atleast_1d(axes), panels):
         n = len(r)

@@ -239,6 +239,27 @@ def test_slurm_run_tables_equal_local_run(slurm_cluster, tmp_path):
         assert a.read_bytes() == b.read_bytes(), f"{name} differs: {_first_difference(a, b)}"
 
 
+SCAN_CONFIG = REPO / "config" / "test_small_scan.yaml"
+
+
+def test_slurm_scan_tables_equal_local_run(slurm_cluster, tmp_path):
+    """A small all-pairs scan through the SLURM profile: its pair jobs go through the
+    scheduler and scan.tsv and scan_per_tree.tsv are byte-identical to a local run
+    (a pair's seeds come from the tree and the pair, never from its job)."""
+    local = run_workflow_locally(SCAN_CONFIG, tmp_path / "local", timeout=900)
+    assert local.returncode == 0 and not local.timed_out, local.output()
+    slurm = run_workflow_on_slurm(
+        SCAN_CONFIG, tmp_path / "slurm", timeout=1500, cluster=slurm_cluster
+    )
+    assert slurm.returncode == 0 and not slurm.timed_out, slurm.output()
+    log = slurm.log.read_text()
+    assert "rule scan_pairs" in log and "has been submitted with SLURM jobid" in log
+    for name in ("scan.tsv", "scan_per_tree.tsv"):
+        a = tmp_path / "local" / "results" / "small_scan" / "tables" / name
+        b = tmp_path / "slurm" / "results" / "small_scan" / "tables" / name
+        assert a.read_bytes() == b.read_bytes(), f"{name} differs: {_first_difference(a, b)}"
+
+
 @pytest.mark.skipif(not SMALL_CONFIGS, reason="needs a small config/test*.yaml")
 def test_request_larger_than_every_node_stops_before_submission(slurm_cluster, tmp_path):
     """Node size set above the test node's cores: the run stops before anything is

@@ -18,6 +18,7 @@ on run order or on how the work is split.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, field
 
@@ -261,6 +262,7 @@ def fit_model(
     upper: float = UPPER,
     max_starts: int = MAX_STARTS,
     branches: Treatment | None = None,
+    first_starts=(),
 ) -> FitResult:
     """Maximum-likelihood rates of ``model`` on one tree (see the module docstring).
 
@@ -275,7 +277,11 @@ def fit_model(
 
     branches: the branch-length treatment (mkforest.engine.branches); a fixed or
     parameter-free one transforms the tree once, an estimated one adds its
-    parameter to the optimiser's (bounds: the registry's ``box``)."""
+    parameter to the optimiser's (bounds: the registry's ``box``).
+
+    first_starts: rate vectors (in ``model.labels`` order, clipped into the bounds)
+    tried before the seeded starts and counted among them, e.g. a nested model's
+    optimum: the fit then ends at least as high as that point."""
     treatment = branches or Treatment()
     if not treatment.free:
         tree = transformed_tree(tree, treatment)
@@ -286,6 +292,12 @@ def fit_model(
     if p + q == 0:
         return _nothing_to_fit(f, treatment)
     starts, (lo, hi) = start_sequence(tree, tip_partials, model, seed, lower, upper)
+    if len(first_starts):
+        given = [
+            np.clip(np.log(np.maximum(np.asarray(r, dtype=float), 1e-300)), lo, hi)
+            for r in first_starts
+        ]
+        starts = itertools.chain(given, starts)
     max_starts = max(max_starts, n_starts)
     least = min_starts(model.n_params, n_starts, max_starts)
     space, starts, bounds, objective, value = _search_space(f, treatment, starts, seed, lo, hi)

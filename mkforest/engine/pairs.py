@@ -167,8 +167,11 @@ class TraitPair:
         return tuple(out)
 
 
-def make_pair(name: str, first: Trait, second: Trait) -> TraitPair:
-    """Check and join two traits (InputError naming the pair when they cannot be paired)."""
+def make_pair(
+    name: str, first: Trait, second: Trait, max_joint: int = MAX_JOINT_STATES
+) -> TraitPair:
+    """Check and join two traits (InputError naming the pair when they cannot be paired);
+    at most ``max_joint`` joint states (the scan allows up to 16)."""
     where = f"trait pair '{name}'"
     if first.name == second.name:
         raise InputError(
@@ -183,10 +186,10 @@ def make_pair(name: str, first: Trait, second: Trait) -> TraitPair:
                 f"(e.g. '{joint_label('a', 'b')}'). Rename the state in the trait table."
             )
     n = first.k * second.k
-    if n > MAX_JOINT_STATES:
+    if n > max_joint:
         raise InputError(
             f"{where}: traits '{first.name}' ({first.k} states) and '{second.name}' "
-            f"({second.k} states) make {n} joint states; at most {MAX_JOINT_STATES} are "
+            f"({second.k} states) make {n} joint states; at most {max_joint} are "
             "supported (the number of rates grows as the square of it and the fits stop "
             "being informative). Merge states of one trait, or test fewer states."
         )

@@ -12,6 +12,7 @@ from ..engine.hidden import check_no_class_in_transitions, config_classes, with_
 from ..engine.models import KINDS, build_model, check_root
 from ..engine.treatments import Treatment, parse_treatment
 from ..errors import InputError, join_problems
+from . import scan_plan
 
 
 def model_treatment(config: dict, model: str) -> Treatment:
@@ -144,6 +145,7 @@ def table_problems(config: dict, source: str = "config") -> list:
                 "column, so there is no change to model. Drop it from traits.columns "
                 f"(or list its possible states in traits.order.{name})."
             )
+    problems += scan_plan.table_problems(config, traits, source)
     for analysis in analyses(config):
         # one model at a time, so that every faulty model is named, not only the first
         if analysis in traits and traits[analysis].k < 2:
@@ -201,6 +203,7 @@ def check_config(raw: dict, source: str = "config", made=()) -> dict:
 
     config, problems = config_problems(raw, source)
     problems += path_problems(raw if not isinstance(config, dict) else config, source, made)
+    problems += scan_plan.name_problems(config, source)
     try:
         problems += table_problems(config, source)
     except Exception:  # a config already found faulty may not reach the table check

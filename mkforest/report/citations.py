@@ -417,6 +417,16 @@ _ALL = [
         43,
         (239, 244),
     ),
+    Reference(
+        "benjamini1995",
+        (("Benjamini", "Y."), ("Hochberg", "Y.")),
+        1995,
+        "Controlling the false discovery rate: a practical and powerful approach to "
+        "multiple testing",
+        "Journal of the Royal Statistical Society B",
+        57,
+        (289, 300),
+    ),
 ]
 
 REFERENCES = {r.key: r for r in _ALL}

@@ -28,6 +28,7 @@ from ..jobs.analyses import hidden_classes
 from .citations import REFERENCES, cite, cited_in
 from .methods_bayes import bayes_paragraph, bayes_results, bayes_warnings
 from .methods_branches import branches_paragraph, first_set, results_lines, tree_sets_paragraph
+from .methods_scan import scan_methods_lines, scan_results
 from .words import hypothesis_words, model_words
 
 CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
@@ -974,6 +975,7 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
             out += ["**Ancestral states.** " + para, ""]
     if bayes_paragraph(config, tables):
         out += ["**Bayesian estimation.** " + bayes_paragraph(config, tables), ""]
+    out += scan_methods_lines(config, tables)  # the all-pairs scan: report/methods_scan.py
     out += ["**Software.** " + _software_paragraph(config, software), ""]
 
     out += [
@@ -1016,6 +1018,8 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
         if notes:
             out += ["", "Cautions:", ""] + [f"- {n}" for n in notes]
         out.append("")
+    if scan_methods_lines(config, tables):
+        out += scan_results(tables.get("scan"))
     body = "\n".join(out)
     refs = cited_in(body)
     body += "\n## References\n\n" + "\n".join(f"- {r.full()}" for r in refs) + "\n"

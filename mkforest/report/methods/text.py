@@ -9,6 +9,7 @@ import pandas as pd
 from ...data.config import tree_sets
 from ...engine.summarise import as_text
 from ..citations import cited_in
+from ..methods_bayes import bayes_paragraph, bayes_results, bayes_warnings
 from ..methods_branches import (
     branches_paragraph,
     first_set,
@@ -16,7 +17,6 @@ from ..methods_branches import (
     results_lines,
     tree_sets_paragraph,
 )
-from ..methods_bayes import bayes_paragraph, bayes_results, bayes_warnings
 from ..methods_scan import scan_methods_lines, scan_results
 from .ancestral import ancestral_cautions, ancestral_paragraph, ancestral_results
 from .brief import BRIEF_HEADING, brief_paragraph

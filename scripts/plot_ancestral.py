@@ -10,10 +10,10 @@ import json
 import pandas as pd
 
 from mkforest.data.traits import traits_from_json
-from mkforest.data.trees import parse_newick
+from mkforest.data.trees import describe_rooting, parse_newick
 from mkforest.jobs.analyses import analysis_setup
 from mkforest.jobs.scripting import run_job
-from mkforest.report import plots_ancestral
+from mkforest.report import plots_ancestral, style
 from mkforest.report.methods_branches import first_set
 
 
@@ -23,6 +23,7 @@ def main(smk):
     clades = pd.read_csv(smk.input.clades, sep="\t", dtype={"members": str, "clade": str})
     per_tree = pd.read_csv(smk.input.per_tree, sep="\t", dtype={"from_state": str, "to_state": str})
     # the figures show the first tree set, whose summary tree they draw (the tables carry every set)
+    named = style.set_named(states)  # the set the figures show, named in their titles
     states, per_tree = first_set(states), first_set(per_tree)
     tree = parse_newick(Path(smk.input.tree).read_text().strip(), rooted=True)
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
@@ -36,14 +37,21 @@ def main(smk):
             [m for m, _ in models.values()], trait.k
         )
         fig = plots_ancestral.state_tree(
-            tree, states[states["analysis"] == analysis], clades, trait, analysis, ordered
+            tree,
+            states[states["analysis"] == analysis],
+            clades,
+            trait,
+            analysis,
+            ordered,
+            rooting=describe_rooting(smk.params.rooting),
         )
+        style.name_tree_set(fig, named)
         plots_ancestral.save(
             fig, [p for p in out.trees if Path(p).stem == f"ancestral_tree_{analysis}"]
         )
-    plots_ancestral.save(
-        plots_ancestral.change_counts(per_tree, pairs, orders), [out.changes_png, out.changes_svg]
-    )
+    fig = plots_ancestral.change_counts(per_tree, pairs, orders)
+    style.name_tree_set(fig, named)
+    plots_ancestral.save(fig, [out.changes_png, out.changes_svg])
     classes = first_set(
         pd.read_csv(
             smk.input.classes,
@@ -57,6 +65,7 @@ def main(smk):
         for model in models:
             rows = classes[(classes["analysis"] == analysis) & (classes["model"] == model)]
             fig = plots_ancestral.class_tree(tree, rows, clades, analysis, model)
+            style.name_tree_set(fig, named)
             plots_ancestral.save(
                 fig,
                 [p for p in out.class_trees if Path(p).stem == f"class_tree_{analysis}_{model}"],

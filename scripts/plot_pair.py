@@ -13,6 +13,7 @@ import pandas as pd
 from mkforest.data.traits import traits_from_json
 from mkforest.engine.pairs import pair_from_config, pair_models
 from mkforest.jobs.scripting import run_job
+from mkforest.report import style
 from mkforest.report.methods_branches import first_set
 from mkforest.report.plots import save
 from mkforest.report.plots_pairs import joint_rate_grid, pair_tests_figure, rates_by_state
@@ -42,15 +43,20 @@ def main(smk):
     )
     tests = pd.read_csv(smk.input.tests, sep="\t")
     boot = pd.read_csv(smk.input.bootstrap, sep="\t")
-    # the figures show the first tree set (the tables carry every set)
+    # the figures show the first tree set, named in their titles (the tables carry every set)
+    named = style.set_named(rates)
     rates, support, tests, boot = (first_set(t) for t in (rates, support, tests, boot))
     out = smk.output
-    save(
-        rates_by_state(pair, rates, support, models),
-        [out.rates_by_state_png, out.rates_by_state_svg],
-    )
-    save(joint_rate_grid(pair, rates, support, models), [out.joint_rates_png, out.joint_rates_svg])
-    save(pair_tests_figure(name, tests, boot), [out.tests_png, out.tests_svg])
+    for fig, paths in (
+        (
+            rates_by_state(pair, rates, support, models),
+            [out.rates_by_state_png, out.rates_by_state_svg],
+        ),
+        (joint_rate_grid(pair, rates, support, models), [out.joint_rates_png, out.joint_rates_svg]),
+        (pair_tests_figure(name, tests, boot), [out.tests_png, out.tests_svg]),
+    ):
+        style.name_tree_set(fig, named)
+        save(fig, paths)
 
 
 run_job(snakemake, main)  # noqa: F821

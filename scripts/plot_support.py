@@ -37,18 +37,22 @@ def main(smk):
     states = {name: list(t.states) for name, t in traits.items()}
     for pair, (first, second) in smk.params.pairs.items():  # joint states, first slowest
         states[pair] = [f"{a}+{b}" for a in states.get(first, []) for b in states.get(second, [])]
-    # these figures show the first tree set; plot_branches compares the sets
-    fits, rates, support = first_set(fits), first_set(rates), first_set(support)
     out = smk.output
+    # the heatmap shows every tree set's support; the other figures the first set's, named
+    # in their titles (plot_branches compares the sets)
+    plots.save(plots.support_heatmap(support), [out.support_heatmap_png, out.support_heatmap_svg])
+    sets = list(dict.fromkeys(fits["tree_set"])) if "tree_set" in fits else []
+    named = sets[0] if len(sets) > 1 else ""
+    fits, rates, support = first_set(fits), first_set(rates), first_set(support)
     plots.save(
-        plots.support_weights(fits, smk.params.criterion),
+        plots.support_weights(fits, smk.params.criterion, tree_set=named),
         [out.support_weights_png, out.support_weights_svg],
     )
-    plots.save(plots.support_heatmap(support), [out.support_heatmap_png, out.support_heatmap_svg])
-    plots.save(
-        plots.rates_across_trees(rates, support, smk.params.pairs, states),
-        [out.rates_across_trees_png, out.rates_across_trees_svg],
-    )
+    folder = Path(out.rates)
+    folder.mkdir(parents=True, exist_ok=True)
+    pages = plots.rate_pages(rates, support, smk.params.pairs, states, tree_set=named)
+    for name, fig in pages.items():
+        plots.save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
 
 
 run_job(snakemake, main)  # noqa: F821

@@ -22,7 +22,7 @@ from mkforest.jobs.prepare import (
 )
 from mkforest.jobs.scripting import run_job
 
-COLUMNS = ["trait", "item", "value", "detail", "tree"]
+COLUMNS = ["tree_set", "trait", "item", "value", "detail", "tree"]
 
 
 def main(smk):
@@ -72,14 +72,11 @@ def main(smk):
         for name in tcfg["columns"]
         if column_of(name, header) != name
     ]
-    rows = (
-        tree_check_rows(summary, summary["trees"])
-        + spaced
-        + renamed_columns
-        + rows
-        + combined
-        + impossible
-    )
+    # a row about the trait table alone holds for every tree set: its tree_set is empty
+    per_set = summary.get("sets") or {trees[0].tree_set: summary}
+    tree_rows = [r for name, s in per_set.items() for r in tree_check_rows(s, s["trees"], name)]
+    table_rows = spaced + renamed_columns + rows + combined
+    rows = tree_rows + [dict(r, tree_set="") for r in table_rows] + impossible
     pd.DataFrame(rows, columns=COLUMNS).astype({"tree": "Int64"}).to_csv(
         smk.output.check, sep="\t", index=False
     )

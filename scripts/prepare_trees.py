@@ -1,6 +1,6 @@
 """Select trees (burn-in, thinning, sampling) of every tree set, root them if asked, check
 them, and write them in chunks numbered on from one set to the next (sets.json lists each
-set's chunks), with a summary of what was done to the first set (prepared/trees/summary.json)."""
+set's chunks), with a summary of what was done to each set (prepared/trees/summary.json: the first set at the top, every set under "sets")."""
 
 import sys
 from pathlib import Path
@@ -115,20 +115,22 @@ def main(smk):
                 for t in part
             ]
             c += 1
-        if summary is None:  # the first set: what the data check and methods text describe
-            summary = {
-                "n_in_file": len(trees),
-                "burnin_dropped": burnin_count(len(trees), cfg["burnin"]),
-                "root": cfg.get("root"),
-                "rooting": describe_rooting(cfg.get("root")),
-                "min_branch_length": minimum,
-                "without_lengths": len(filled),
-                "first_kept": {"tree": used[0].index, "why": start} if start else None,
-                "file_features": tree_file_features(
-                    Path(cfg["file"]).read_text(encoding="utf-8-sig", errors="replace")
-                ),
-                "trees": report,
-            }
+        facts = {
+            "n_in_file": len(trees),
+            "burnin_dropped": burnin_count(len(trees), cfg["burnin"]),
+            "root": cfg.get("root"),
+            "rooting": describe_rooting(cfg.get("root")),
+            "min_branch_length": minimum,
+            "without_lengths": len(filled),
+            "first_kept": {"tree": used[0].index, "why": start} if start else None,
+            "file_features": tree_file_features(
+                Path(cfg["file"]).read_text(encoding="utf-8-sig", errors="replace")
+            ),
+            "trees": report,
+        }
+        if summary is None:  # the first set's facts at the top (the methods text's), every set's
+            summary = {**facts, "sets": {}}
+        summary["sets"][name] = facts
     check_same_taxa_across_sets(firsts)
     (out / "sets.json").write_text(json.dumps(sets, indent=1))
     (out / "layout.json").write_text(json.dumps(layout))

@@ -215,3 +215,24 @@ def overlaps(fig) -> list:
 def all_text(fig) -> list:
     fig.canvas.draw()
     return [t.get_text() for t, _ in texts(fig)]
+
+
+def size_problems(fig, page=None) -> list:
+    """What keeps a figure off a journal page: its size in inches beyond ``style.PAGE``
+    (width x height), or a text smaller than ``style.BODY_TEXT`` points (the size
+    matplotlib draws it at; a figure printed at 100%). [] when it fits."""
+    from mkforest.report.style import BODY_TEXT, PAGE
+
+    fig.canvas.draw()
+    # the size as saved (style.save crops to the drawn content: bbox_inches="tight", 0.1 in
+    # of padding), which can exceed the figure's own size when text spills over its edge
+    tight = fig.get_tightbbox(fig.canvas.get_renderer())
+    width, height = tight.width + 0.2, tight.height + 0.2
+    page = page or PAGE
+    out = []
+    if width > page[0] + 1e-9 or height > page[1] + 1e-9:
+        out.append(f"figure {width:.2f} x {height:.2f} in, page {page[0]} x {page[1]} in")
+    for t, _ in texts(fig):
+        if t.get_fontsize() < BODY_TEXT - 1e-9:
+            out.append(f"text {t.get_text()[:40]!r} at {t.get_fontsize():g} pt")
+    return out

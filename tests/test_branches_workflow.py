@@ -77,6 +77,7 @@ def finished(tmp_path_factory):
             "state_times",
             "transitions_per_tree",
             "clades",
+            "data_check",
         )
     }
     return work, out, read
@@ -179,6 +180,14 @@ def test_plot_and_methods(finished):
     text = (out / "methods.md").read_text()
     assert "not which trees are closer to the truth" in text
     assert "Pagel 1994" in text and "McGraw & Wong 1992" in text
+    # no stray fragment; the second set in the paragraph and in every analysis's results
+    assert "Tree set 'dated'. " not in text and "(tree set 'dated')" in text
+    brief = text.split("## Methods in one paragraph", 1)[1].split("##", 1)[0]
+    assert "tree set 'molecular' (5 trees)" in brief
+    # four models with their words pass 250 words: names with their treatments
+    assert '"stretched" (kappa estimated)' in brief and '"flat_kappa" (kappa 0)' in brief
+    # glow, habitat, banding and the pair lit
+    assert text.count("On tree set 'molecular' (5 trees)") == 4
 
 
 def test_pair_tests_on_every_set(finished):
@@ -239,6 +248,23 @@ def test_ancestral_tables_on_every_set(finished):
     a = states[states["tree_set"] == "dated"]["mean_probability"].to_numpy(float)
     b = states[states["tree_set"] == "molecular"]["mean_probability"].to_numpy(float)
     assert np.nanmax(np.abs(a - b)) > 1e-6
+
+
+def test_data_check_and_clades_name_their_tree_set(finished):
+    """Every table has tree_set: data_check's tree rows per set (each set's own counts),
+    its rows about the trait table empty (they hold for every set); clades.tsv names the
+    set whose trees gave its clades. Re-rooting is named for what it means."""
+    _, _, t = finished
+    check = t["data_check"]
+    assert list(check.columns)[0] == "tree_set"
+    trees = check[check["trait"] == "(trees)"]
+    assert list(dict.fromkeys(trees["tree_set"])) == ["dated", "molecular"]
+    used = trees[trees["item"] == "trees_used"].set_index("tree_set")["value"]
+    assert used.to_dict() == t["trees_used"].groupby("tree_set").size().to_dict()
+    assert check.loc[check["trait"] != "(trees)", "tree_set"].isna().all()
+    items = set(trees["item"])
+    assert "rerooted_by_mkforest" in items and "rooted" not in items
+    assert set(t["clades"]["tree_set"]) == {"dated"}
 
 
 def test_stage_jobs_follow_chunks_not_trees(finished):

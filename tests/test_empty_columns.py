@@ -109,5 +109,5 @@ def test_report_helpers_read_empty_text_columns_without_warnings():
     unnamed = _read_back(fits.assign(tree_set=""))  # a table without set names
     assert unnamed["tree_set"].dtype == float and len(first_set(unnamed)) == len(fits)
     summary = rate_summary(rates, averaged_rates(add_weights(fits), rates))
-    text = methods._analysis_results("colour", support, summary, "AICc")
+    text = methods.analysis_results("colour", support, summary, "AICc")
     assert text.startswith("Across the 3 trees")

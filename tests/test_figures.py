@@ -10,13 +10,17 @@ trait renders in the default suite; the other trees of that set are marked slow.
 
 from __future__ import annotations
 
+import numpy as np
+import pandas as pd
 import pytest
-from figure_checks import all_text, overlaps
+from figure_checks import all_text, overlaps, size_problems
 from figure_data import demo_like, large
 from matplotlib import colormaps
-from matplotlib.colors import to_hex
+from matplotlib.collections import PathCollection
+from matplotlib.colors import to_hex, to_rgb
 
-from mkforest.report import plots, plots_ancestral, plots_pairs, style
+from mkforest.engine.summarise import rate_summary
+from mkforest.report import plots, plots_ancestral, plots_branches, plots_pairs, style
 
 
 @pytest.fixture(scope="module")
@@ -47,11 +51,63 @@ def written(fig, tmp_path, name):
 def test_support_figures(which, demo, big, tmp_path):
     data = demo if which == "demo" else big
     fig = plots.support_weights(data.tables["fits"])
-    assert overlaps(fig) == []
+    assert overlaps(fig) == [] and size_problems(fig) == []
     written(fig, tmp_path, "weights")
     fig = plots.support_heatmap(data.tables["model_support"])
-    assert overlaps(fig) == []
+    assert overlaps(fig) == [] and size_problems(fig) == []
     written(fig, tmp_path, "heatmap")
+
+
+def test_support_figures_name_and_show_every_tree_set(demo):
+    """With two sets: the heatmap holds each set's rows, the weights figure names its set."""
+    support = demo.tables["model_support"]
+    two = pd.concat([support.assign(tree_set="dated"), support.assign(tree_set="molecular")])
+    fig = plots.support_heatmap(two)
+    rows = [t.get_text() for t in fig.axes[0].get_yticklabels()]
+    analyses = list(dict.fromkeys(support["analysis"]))
+    assert rows == [f"{t} · {a}" for t in ("dated", "molecular") for a in analyses]
+    assert "dated, molecular" in fig.axes[0].get_title(loc="left")
+    assert overlaps(fig) == [] and size_problems(fig) == []
+    fig = plots.support_weights(demo.tables["fits"], tree_set="dated")
+    assert "of tree set 'dated'" in fig.get_suptitle()
+
+
+def _treatment_fits():
+    """fits.tsv rows: 'glow' fitted with two treatments, 'habitat' with one, two sets."""
+    rng = np.random.default_rng(4)
+    rows = []
+    for ts in ("dated", "molecular"):
+        for tree in range(12):
+            for analysis, models in (
+                ("glow", [("one_rate", "as_given"), ("stretched", "kappa")]),
+                ("habitat", [("one_rate", "as_given"), ("free", "as_given")]),
+            ):
+                w = rng.dirichlet(np.ones(len(models)))
+                for (m, b), wi in zip(models, w):
+                    rows.append(
+                        dict(
+                            tree_set=ts,
+                            analysis=analysis,
+                            model=m,
+                            tree=tree,
+                            branches=b,
+                            weight=wi,
+                            aicc=-2 * np.log(wi),
+                            log_likelihood=-30 + rng.normal(),
+                        )
+                    )
+    return pd.DataFrame(rows)
+
+
+def test_support_branches_leaves_out_single_treatment_traits_and_says_why(tmp_path):
+    fig = plots_branches.support_branches(_treatment_fits())
+    top, bottom = fig.axes[:2]
+    rows = [t.get_text() for t in top.get_yticklabels()]
+    assert rows == ["glow · as_given", "glow · kappa"]  # no all-1.0 panel for habitat
+    assert "habitat: one treatment only" in top.get_title(loc="left")
+    assert [t.get_text() for t in bottom.get_yticklabels()] == ["glow", "habitat"]
+    assert overlaps(fig) == [] and size_problems(fig) == []
+    written(fig, tmp_path, "support_branches")
 
 
 @pytest.mark.parametrize("which", ["demo", "big"])
@@ -72,7 +128,7 @@ def test_rates_across_trees(which, demo, big, tmp_path):
         for m in repeated:
             assert f"{m} = {data.same_as[(analysis, m)]}: drawn once" in legend
         ticks = [t.get_text() for t in ax.get_xticklabels()]
-        assert ticks[0] == "at lower\nbound" and ticks[-1] == "at upper\nbound"
+        assert ticks[0] == "at lower\nbound" and ticks[-1] == "no upper\nbound"
         for t in ticks[1:-1]:  # plain numbers, never 2×10⁰
             float(t.replace(",", ""))
     # joint changes read as the trait that changes, in the other trait's state
@@ -82,6 +138,52 @@ def test_rates_across_trees(which, demo, big, tmp_path):
     assert all(r.startswith((f"{first}: ", f"{second}: ")) for r in rows)
     assert "+" not in " ".join(rows)
     written(fig, tmp_path, "rates")
+    # the workflow draws one analysis per figure: each within a page, labels at body size
+    pages = plots.rate_pages(rates, support, pair_names(data))
+    assert [p for p in pages if ".part" not in p] == list(data.models)
+    for analysis, page in pages.items():
+        assert size_problems(page) == [], analysis
+        assert overlaps(page) == [], analysis
+
+
+def _bound_rates(n_lower, values, bound=1e-6):
+    """rates.tsv rows of one change on len(values) + n_lower trees, n_lower at the bound."""
+    rows = [dict(tree=i, rate=bound, at_bound="lower") for i in range(n_lower)]
+    rows += [dict(tree=n_lower + i, rate=v, at_bound="") for i, v in enumerate(values)]
+    return pd.DataFrame(rows).assign(
+        analysis="size", model="free", from_state="small", to_state="large"
+    )
+
+
+def _marker_x(fig):
+    (ax,) = fig.axes
+    (points,) = [c for c in ax.collections if isinstance(c, PathCollection)]
+    return float(points.get_offsets()[0, 0]), ax
+
+
+@pytest.mark.parametrize("n_lower", [2, 7])
+def test_figure_medians_are_the_table_medians(n_lower):
+    """One statistic in table and figures (rate_summary.tsv's median over the trees the
+    data bound, those at the lower bound included). With 7 of 10 trees at the lower
+    bound the median is the bound: the marker sits at the bound column's edge and the
+    count is bold; with 2 of 10, the marker is at the table's median."""
+    rates = _bound_rates(n_lower, np.linspace(0.4, 0.9, 10 - n_lower))
+    table = rate_summary(rates).iloc[0]
+    fig = plots.rates_across_trees(rates)
+    x, ax = _marker_x(fig)
+    (count,) = [t for t in ax.texts if t.get_text() == f"{n_lower}/10"]
+    if n_lower == 7:
+        assert table["median_rate"] == 1e-6  # the bound is the headline ...
+        first_tick = ax.get_xticks()[1]
+        assert x < first_tick and x > ax.get_xticks()[0]  # ... drawn at the column's edge
+        assert count.get_fontweight() == "bold"
+    else:
+        assert x == pytest.approx(np.log10(table["median_rate"]))
+        assert count.get_fontweight() == "normal"
+    assert overlaps(fig) == []
+    # the pair figures take the same numbers (style.rate_intervals)
+    stats = style.rate_intervals(rates).iloc[0]
+    assert stats["median"] == table["median_rate"] and stats["low"] == table["rate_low95"]
 
 
 def test_rates_at_a_bound_are_counted_not_drawn(demo):
@@ -147,7 +249,28 @@ def test_palettes_are_the_colour_blind_safe_ones():
     assert {c.upper() for c in style.categorical(7)} == published
     assert len(set(style.categorical(12))) == 12
     ramp = style.ordered(4)
-    assert len(set(ramp)) == 4 and ramp[0] == to_hex(colormaps["cividis"](0.0))
+    assert len(set(ramp)) == 4 and ramp[0] == to_hex(colormaps["viridis"](0.0))
+
+
+def _lab(hex_colour):
+    """CIE 1976 L*a*b* of an sRGB colour (D65 white; the sRGB and CIELAB formulas of
+    IEC 61966-2-1 and CIE 15, from memory)."""
+    c = np.array(to_rgb(hex_colour))
+    c = np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+    m = np.array([[0.4124, 0.3576, 0.1805], [0.2126, 0.7152, 0.0722], [0.0193, 0.1192, 0.9505]])
+    xyz = m @ c / np.array([0.95047, 1.0, 1.08883])
+    f = np.where(xyz > 216 / 24389, np.cbrt(xyz), (24389 / 27 * xyz + 16) / 116)
+    return np.array([116 * f[1] - 16, 500 * (f[0] - f[1]), 200 * (f[1] - f[2])])
+
+
+def test_ordered_states_are_told_apart():
+    """Five ordered states (a count 0-4): neighbouring colours at least 25 CIE76 units
+    apart (a just-noticeable difference is about 2.3, Sharma 2003, from memory; small tip
+    marks need far more: 25 is our own margin). cividis gave 18."""
+    lab = [_lab(c) for c in style.ordered(5)]
+    steps = [np.linalg.norm(b - a) for a, b in zip(lab, lab[1:])]
+    assert min(steps) >= 25, steps
+    assert lab[-1][0] < 90  # the lightest still shows on white
 
 
 # --------------------------------------------------------------------------- pairs
@@ -208,8 +331,16 @@ def test_pair_tests_figure(demo, tmp_path):
     fig = plots_pairs.pair_tests_figure(
         "shell_pattern", demo.tables["pair_tests"], demo.tables["pair_bootstrap"]
     )
-    assert overlaps(fig) == []
+    assert overlaps(fig) == [] and size_problems(fig) == []
+    labels = [ax.get_xlabel() for ax in fig.axes]
+    assert "likelihood-ratio statistic 2 × (ln L alternative − ln L null)" in labels
     written(fig, tmp_path, "tests")
+    # no bootstrap: one column, and the title says why
+    fig = plots_pairs.pair_tests_figure("shell_pattern", demo.tables["pair_tests"], pd.DataFrame())
+    n_tests = demo.tables["pair_tests"].query("pair == 'shell_pattern'")[["null", "alternative"]]
+    assert len(fig.axes) == len(n_tests.drop_duplicates())
+    assert "no parametric bootstrap" in fig.get_suptitle()
+    assert overlaps(fig) == [] and size_problems(fig) == []
 
 
 # --------------------------------------------------------------------------- ancestral
@@ -226,7 +357,24 @@ def test_changes(which, demo, big, tmp_path):
     rows = [t.get_text() for t in ax.get_yticklabels()]
     n_single = len(pair.states) * (pair.k1 - 1 + pair.k2 - 1)
     assert len(rows) == n_single  # no double changes drawn
+    # labels at body size; its height still grows with the number of analyses
+    assert [p for p in size_problems(fig) if not p.startswith("figure")] == []
     written(fig, tmp_path, "changes")
+
+
+def test_changes_title_says_why_trees_are_missing(demo):
+    """Trees whose every map was drawn under a fit the data do not bound have no count
+    (transitions_per_tree.tsv mean_count empty): the title says how many and why."""
+    per_tree = demo.tables["transitions_per_tree"]
+    one = per_tree[per_tree["analysis"] == "habitat"].copy()
+    gone = one["tree"].isin(sorted(set(one["tree"]))[:3])
+    one.loc[gone, "mean_count"] = np.nan
+    fig = plots_ancestral.change_counts(one)
+    title = fig.axes[0].get_title(loc="left")
+    n = one["tree"].nunique()
+    assert title.startswith(f"habitat ({n - 3} trees)")
+    assert f"3 of {n} trees left out" in title and "the data do not bound" in title
+    assert overlaps(fig) == [] and size_problems(fig) == []
 
 
 def _tree(data, analysis):
@@ -292,3 +440,17 @@ def test_ancestral_trees_300_tips_others(analysis, big, tmp_path):
     assert ordered == (analysis == "depth")
     _check_tree(fig, big, analysis)
     written(fig, tmp_path, f"tree_{analysis}")
+
+
+def test_a_figure_of_one_set_among_several_names_it(demo):
+    """Figures drawn from the first of several tree sets say which set they show."""
+    per_tree = demo.tables["transitions_per_tree"]
+    two = pd.concat([per_tree.assign(tree_set="dated"), per_tree.assign(tree_set="molecular")])
+    assert style.set_named(two) == "dated" and style.set_named(per_tree) == ""
+    fig = plots_ancestral.change_counts(per_tree)
+    style.name_tree_set(fig, style.set_named(two))
+    assert fig.get_suptitle().endswith("(tree set 'dated')")
+    fig = plots_pairs.pair_tests_figure("shell_pattern", demo.tables["pair_tests"], pd.DataFrame())
+    style.name_tree_set(fig, "dated")
+    assert "(tree set 'dated')" in fig.get_suptitle()
+    assert overlaps(fig) == []

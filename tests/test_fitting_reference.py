@@ -342,7 +342,7 @@ def test_weights_table_matches_per_tree_weights():
     """summarise.add_weights (all trees at once) against akaike_weights tree by tree
     (the hand-checked formula above): values from 100, 102, 110 shifted per tree, an
     impossible fit (criterion inf: weight 0), a fit not run (NaN: weight 0 beside finite
-    ones), a tree where every fit is impossible (delta and weight left empty), and a
+    ones), a tree where every fit is impossible (criterion_difference and weight left empty), and a
     model marked same_as another (left out)."""
     import pandas as pd
 
@@ -373,9 +373,11 @@ def test_weights_table_matches_per_tree_weights():
         g = out[(out.tree == tree) & (out.model != "d")]
         np.testing.assert_allclose(g["weight"], akaike_weights(g["aicc"]), rtol=0, atol=1e-15)
         finite = np.isfinite(g["aicc"])
-        np.testing.assert_allclose(g["delta"][finite], g["aicc"][finite] - g["aicc"][finite].min())
+        np.testing.assert_allclose(
+            g["criterion_difference"][finite], g["aicc"][finite] - g["aicc"][finite].min()
+        )
     assert out.loc[out.tree == 0, "weight"].iloc[:3].tolist() == pytest.approx(
         [0.2676231541, 0.7274751568, 0.0049016890], abs=1e-10
     )
     assert out.loc[out.model == "d", "weight"].isna().all()
-    assert out.loc[out.tree == 3, ["delta", "weight"]].isna().all().all()
+    assert out.loc[out.tree == 3, ["criterion_difference", "weight"]].isna().all().all()

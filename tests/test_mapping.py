@@ -322,6 +322,30 @@ def test_mixture_draws_models_by_weight():
     assert abs(frac - 0.75) < Z * np.sqrt(0.75 * 0.25 / 4000)
 
 
+def test_skipped_fits_draw_no_maps_and_leave_the_others_unchanged():
+    """A fit marked skip gets its share of maps by weight, but they are empty (counts 0,
+    dwell NaN, node states -1) and drawing them or not leaves the other fits' maps as they
+    are (each fit has its own stream). Weight split: the mixture test above."""
+    tree = parse_newick("((a:0.3,b:0.2):0.4,(c:0.5,d:0.1):0.2);")
+    partials = np.array([[1, 0], [0, 1], [1, 1], [1, 0.0]])
+    fits = [  # the skipped fit first: drawn, it would come first in a shared stream
+        (q_from_rates([[0, 900.0], [900.0, 0]]), "uniform", 0.5),
+        (q_from_rates([[0, 2.0], [0.5, 0]]), "uniform", 0.5),
+    ]
+    every = mixed_stochastic_maps(tree, partials, fits, 200, np.random.default_rng(3))
+    some = mixed_stochastic_maps(
+        tree, partials, fits, 200, np.random.default_rng(3), skip=[True, False]
+    )
+    np.testing.assert_array_equal(every.model, some.model)
+    drawn, skipped = some.model == 1, some.model == 0
+    assert drawn.any() and skipped.any()
+    np.testing.assert_array_equal(every.counts[drawn], some.counts[drawn])
+    np.testing.assert_array_equal(every.dwell[drawn], some.dwell[drawn])
+    assert every.counts[skipped].sum() > 100 * skipped.sum()  # fast: many changes per map
+    assert (some.counts[skipped] == 0).all() and np.isnan(some.dwell[skipped]).all()
+    assert (some.node_states[skipped] == -1).all()
+
+
 def test_maps_reproducible_from_seed():
     """Same seed, same maps; another seed, other maps (fact of the trade)."""
     case = random_case(4)

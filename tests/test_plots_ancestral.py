@@ -76,6 +76,54 @@ def test_state_tree_drawn_labelled_and_written(tmp_path):
     assert b"<svg" in paths[1].read_bytes()[:500]
 
 
+UNEVEN = "(((a:0.2,b:1):1,c:0.5):1,((d:1,e:0.3):1.5,f:2.5):0.5);"  # a, c, e short of 3
+
+
+def test_tips_short_of_the_labels_get_leaders_and_an_absent_taxon_is_hatched(tmp_path):
+    """A tree that is not ultrametric: every tip that ends short of the label column is
+    joined to its mark by a leader; 'f' (in no row of the table) is drawn hatched, as the
+    legend says for unknown tips; no time axis (distances from the root); the title says
+    how the trees were rooted."""
+    tree = parse_newick(UNEVEN)
+    states, clades = tables(tree)
+    trait = trait_from_mapping(
+        "soil", {"a": "dry", "b": "wet", "c": "dry", "d": "wet", "e": "salt"}, states=STATES
+    )
+    fig = plots_ancestral.state_tree(
+        tree, states, clades, trait, "soil", rooting="at the midpoint of the longest path"
+    )
+    ax = fig.axes[0]
+    depths = tree.depths()[: tree.n_tips]
+    short = int((depths < depths.max() - 1e-9).sum())
+    leaders = [c for c in ax.collections if c.get_linestyle()[0][1] is not None]
+    assert (
+        short == 3 and len(leaders) == 1
+    )  # a, c and e and len(leaders[0].get_segments()) == short
+    hatched = [p for p in ax.patches if p.get_hatch()]
+    assert len(hatched) == 1  # f, absent from the table
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert "tip: state unknown" in legend
+    assert ax.get_xlabel().startswith("distance from the root")
+    assert "trees rooted at the midpoint of the longest path" in ax.get_title(loc="left")
+    assert overlaps(fig) == []
+    plots_ancestral.save(fig, [tmp_path / "uneven.png"])
+
+
+def test_time_trees_get_an_axis_of_time_before_present():
+    """TREE is ultrametric (every tip 3 from the root): ticks count back from the tips."""
+    tree = parse_newick(TREE)
+    states, clades = tables(tree)
+    fig = plots_ancestral.state_tree(tree, states, clades, None, "soil")
+    ax = fig.axes[0]
+    assert ax.get_xlabel().startswith("time before present")
+    fig.canvas.draw()
+    ticks = {
+        round(float(x), 9): t.get_text() for x, t in zip(ax.get_xticks(), ax.get_xticklabels())
+    }
+    assert ticks[3.0] == "0" and ticks[0.0] == "3"  # the tips at 0, the root 3 before
+    assert not [c for c in ax.collections if c.get_linestyle()[0][1] is not None]  # no leaders
+
+
 def test_change_counts_panels(tmp_path):
     rows = []
     for analysis, states in [("soil", STATES), ("colour", ("red", "blue"))]:

@@ -66,7 +66,7 @@ def test_manifest_hashes_every_result_and_input(run):
     on_disk = {
         p.relative_to(out_dir(work)).as_posix()
         for sub in ("tables", "plots")
-        for p in (out_dir(work) / sub).rglob("*")
+        for p in (out_dir(work) / sub).rglob("[!.]*")
         if p.is_file()
     }
     on_disk.add("methods.md")
@@ -388,6 +388,9 @@ def test_report_builds_offline_with_every_table_and_plot(run, tmp_path):
     }
     for path in expected:
         assert len(entries[path]) > 40, f"{path} has no caption"
+    # the landing page names this run's methods text, not a placeholder
+    assert f"results/{RUN}/methods.md" in html
+    assert "results/&lt;run&gt;/methods.md" not in html and "results/<run>/methods.md" not in html
     # the page loads nothing from elsewhere
     assert not re.search(r'<(script|link|img)[^>]+(src|href)="https?://', html)
 

@@ -87,3 +87,13 @@ def test_unbounded_rates_never_read_as_estimates(tmp_path):
     for x in glow["rate"]:
         assert f"{x:.2f}" not in bare, x
     assert not re.search(r"\d{3,}\.\d{2}", bare)  # no rate in the hundreds or more
+
+    # those maps were never drawn (their cost grows with the rate, and they would be left
+    # out): glow's chunk files hold empty maps, habitat's drawn ones
+    from mkforest.jobs.ancestral import bound_limited_maps, load_chunks
+
+    chunks = {a: sorted((out / "ancestral" / a).glob("chunk_*.npz")) for a in ("glow", "habitat")}
+    data = load_chunks(chunks["glow"])
+    assert bound_limited_maps(data).all()
+    assert np.isnan(data["dwell"]).all() and (data["counts"] == 0).all()
+    assert np.isfinite(load_chunks(chunks["habitat"])["dwell"]).all()

@@ -31,9 +31,9 @@ SUPPORT_CONTRACT = [
     "mean_weight",
     "median_weight",
     "fraction_best",
-    "median_delta",
-    "delta_low95",
-    "delta_high95",
+    "median_criterion_difference",
+    "criterion_difference_low95",
+    "criterion_difference_high95",
 ]
 
 
@@ -99,8 +99,10 @@ def test_support_summarises_the_fits(finished_run):
         g = fits[(fits["analysis"] == row["analysis"]) & (fits["model"] == row["model"])]
         assert row["mean_weight"] == pytest.approx(g["weight"].mean())
         assert row["median_weight"] == pytest.approx(g["weight"].median())
-        assert row["fraction_best"] == pytest.approx((g["delta"] < 1e-9).mean())
-        assert row["median_delta"] == pytest.approx(g["delta"].median())
+        assert row["fraction_best"] == pytest.approx((g["criterion_difference"] < 1e-9).mean())
+        assert row["median_criterion_difference"] == pytest.approx(
+            g["criterion_difference"].median()
+        )
         # five trees: the output says the intervals are rough
         assert "only 5 trees" in row["caution"]
 
@@ -108,7 +110,11 @@ def test_support_summarises_the_fits(finished_run):
 def test_plots_written_and_labelled(finished_run):
     work, _ = finished_run
     plots = work / "results" / "tiny" / "plots"
-    for name in ("support_weights", "support_heatmap", "rates_across_trees"):
+    pages = [f"rates_across_trees/{a}" for a in ("glow", "habitat")]  # one per analysis
+    assert sorted(p.name for p in (plots / "rates_across_trees").glob("[!.]*")) == sorted(
+        f"{a}.{ext}" for a in ("glow", "habitat") for ext in ("png", "svg")
+    )
+    for name in ("support_weights", "support_heatmap", *pages):
         png = (plots / f"{name}.png").read_bytes()
         assert png[:8] == b"\x89PNG\r\n\x1a\n" and len(png) > 5000
         svg = (plots / f"{name}.svg").read_text()

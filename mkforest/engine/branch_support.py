@@ -44,7 +44,7 @@ def _base_structure(structure: str) -> str:
 def treatment_support(fits: pd.DataFrame) -> pd.DataFrame:
     """One row per tree set x analysis x treatment label: the Akaike weight summed over
     the models with that treatment (mean and median across trees) and the fraction of
-    trees on which the best model has it. ``fits`` must carry delta and weight."""
+    trees on which the best model has it. ``fits`` must carry criterion_difference and weight."""
     fits = _set_col(fits)
     rows = []
     for (ts, analysis), g in fits.groupby(["tree_set", "analysis"], sort=False):
@@ -55,7 +55,7 @@ def treatment_support(fits: pd.DataFrame) -> pd.DataFrame:
         per_tree = g.pivot_table(
             index="tree", columns="branches", values="weight", aggfunc="sum", fill_value=0.0
         )
-        best = g.loc[g.groupby("tree")["delta"].idxmin(), ["tree", "branches"]]
+        best = g.loc[g.groupby("tree")["criterion_difference"].idxmin(), ["tree", "branches"]]
         for label in dict.fromkeys(g["branches"]):
             w = per_tree[label]
             rows.append(

@@ -316,7 +316,9 @@ def stochastic_maps(tree, tip_partials, Q, n_maps: int, rng, root="uniform", sta
     return MapSet(counts, dwell, node_states, np.zeros(n_maps, dtype=np.int64))
 
 
-def mixed_stochastic_maps(tree, tip_partials, fits, n_maps: int, rng, states=None) -> MapSet:
+def mixed_stochastic_maps(
+    tree, tip_partials, fits, n_maps: int, rng, states=None, skip=None
+) -> MapSet:
     """Maps under a mixture of models: each map's model is drawn with probability
     proportional to its weight (e.g. Akaike weights), then the map under it.
 
@@ -327,6 +329,13 @@ def mixed_stochastic_maps(tree, tip_partials, fits, n_maps: int, rng, states=Non
     A fifth item, the tree of that model (its own branch lengths, mkforest.engine.branches),
     maps on that tree, with dwell times scaled to the given tree's total length so they
     stay fractions of the same whole.
+
+    skip: one bool per fit; the maps that fall to a skipped fit keep its index in
+    ``model`` but are not drawn (counts 0, dwell NaN, node states -1): a caller that
+    would discard them (a rate the data do not bound, whose maps' changes grow with the
+    optimiser's box) saves their cost, which grows with the rate. Each fit draws from its
+    own stream (seeded from ``rng`` after the split of maps among fits), so the maps that
+    are drawn are the same whether or not the others are.
     """
     fits = list(fits)
     w = np.array([float(f[2]) for f in fits])
@@ -334,21 +343,35 @@ def mixed_stochastic_maps(tree, tip_partials, fits, n_maps: int, rng, states=Non
     if w.sum() <= 0:
         raise ValueError("mapping under a mixture needs at least one model with a positive weight")
     per_model = rng.multinomial(n_maps, w / w.sum())
+    streams = rng.integers(0, 2**63, size=len(fits))
+    skip = [False] * len(fits) if skip is None else [bool(x) for x in skip]
+    k = np.asarray(tip_partials).shape[1]  # observed states (a hidden-class Q has more)
     parts = []
     for i, ((Q, root, _, *extra), n) in enumerate(zip(fits, per_model)):
         if n == 0:
             continue
+        if skip[i]:
+            parts.append(
+                MapSet(
+                    np.zeros((n, k, k), dtype=np.int64),
+                    np.full((n, k), np.nan),
+                    np.full((n, tree.n_nodes), -1, dtype=np.int64),
+                    np.full(n, i, dtype=np.int64),
+                )
+            )
+            continue
+        own = np.random.default_rng(int(streams[i]))
         model = extra[0] if extra else None
         on = extra[1] if len(extra) > 1 and extra[1] is not None else tree
         if model is not None and model.n_classes > 1:
             ms = observed_maps(
                 stochastic_maps(
-                    on, model.expand_tips(tip_partials), Q, int(n), rng, root, model.states
+                    on, model.expand_tips(tip_partials), Q, int(n), own, root, model.states
                 ),
                 model,
             )
         else:
-            ms = stochastic_maps(on, tip_partials, Q, int(n), rng, root, states)
+            ms = stochastic_maps(on, tip_partials, Q, int(n), own, root, states)
         if on is not tree and on.total_length > 0:
             ms.dwell *= tree.total_length / on.total_length
         ms.model[:] = i

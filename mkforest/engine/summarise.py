@@ -66,10 +66,10 @@ def mark_duplicates(fits: pd.DataFrame, model_order=None) -> pd.DataFrame:
 
 
 def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
-    """Add delta (to the best model on the same tree) and weight columns
+    """Add criterion_difference (to the best model on the same tree) and weight columns
     (models marked ``same_as`` another are left out)."""
     fits = fits.copy()
-    fits["delta"] = np.nan
+    fits["criterion_difference"] = np.nan
     fits["weight"] = np.nan
     use = as_text(fits["same_as"]) == "" if "same_as" in fits else pd.Series(True, fits.index)
     # per (tree set, analysis, tree), as compare.akaike_weights does for one group, for all
@@ -81,8 +81,8 @@ def add_weights(fits: pd.DataFrame, criterion: str = "aicc") -> pd.DataFrame:
     best = vals.where(finite).groupby(groups, sort=False).transform("min")
     e = np.exp(-0.5 * (vals - best)).where(finite, 0.0)
     total = e.groupby(groups, sort=False).transform("sum")
-    fitted = best.notna()  # groups with no finite value keep delta and weight empty
-    fits.loc[sub.index[fitted], "delta"] = (vals - best)[fitted]
+    fitted = best.notna()  # groups with no finite value keep criterion_difference and weight empty
+    fits.loc[sub.index[fitted], "criterion_difference"] = (vals - best)[fitted]
     fits.loc[sub.index[fitted], "weight"] = (e / total)[fitted]
     return fits
 
@@ -107,11 +107,11 @@ def finite_quantile(x, p):
 
 
 def model_support(fits: pd.DataFrame) -> pd.DataFrame:
-    """One row per analysis x model (``fits`` must carry delta and weight)."""
+    """One row per analysis x model (``fits`` must carry criterion_difference and weight)."""
     rows = []
     for key, g in fits.groupby(_keys(fits, "analysis", "model"), sort=False):
         analysis, model = key[-2:]
-        fitted = g[np.isfinite(g["delta"].astype(float))]
+        fitted = g[np.isfinite(g["criterion_difference"].astype(float))]
         n = len(fitted)
         ll = g["log_likelihood"].astype(float)
         impossible = ll == -np.inf  # the data cannot arise under the model
@@ -127,10 +127,18 @@ def model_support(fits: pd.DataFrame) -> pd.DataFrame:
                 "n_trees": n,
                 "mean_weight": fitted["weight"].mean() if n else np.nan,
                 "median_weight": fitted["weight"].median() if n else np.nan,
-                "fraction_best": float((fitted["delta"] == 0).mean()) if n else np.nan,
-                "median_delta": fitted["delta"].median() if n else np.nan,
-                "delta_low95": finite_quantile(fitted["delta"], 0.025),
-                "delta_high95": finite_quantile(fitted["delta"], 0.975),
+                "fraction_best": float((fitted["criterion_difference"] == 0).mean())
+                if n
+                else np.nan,
+                "median_criterion_difference": fitted["criterion_difference"].median()
+                if n
+                else np.nan,
+                "criterion_difference_low95": finite_quantile(
+                    fitted["criterion_difference"], 0.025
+                ),
+                "criterion_difference_high95": finite_quantile(
+                    fitted["criterion_difference"], 0.975
+                ),
                 "median_log_likelihood": fitted["log_likelihood"].median() if n else np.nan,
                 "n_fits": int(len(g)),
                 "n_impossible": int(impossible.sum()),
@@ -306,7 +314,7 @@ def impossible_flags(rates: pd.DataFrame) -> pd.Series:
     return flags
 
 
-def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
+def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame | None = None) -> pd.DataFrame:
     """Median and 95% interval across trees per analysis x model x transition,
     for every model and for the model average, over the trees where the data
     bound the rate (``n_estimated``). Trees where they do not (``n_unbounded``:
@@ -322,7 +330,10 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
     of everything and counted in ``n_impossible``; ``n_trees`` (= n_estimated +
     n_unbounded) counts the trees where the fit is possible, as in model_support.
     For the model average, a tree is impossible when every model that allows the
-    change is impossible there."""
+    change is impossible there. ``averaged`` None: the models alone.
+
+    This is the one statistic of a rate across trees: every figure that draws a rate's
+    median and interval takes them from here (report.style.rate_intervals)."""
     per_model = rates[
         _keys(rates, "analysis", "model", "tree", "from_state", "to_state", "rate")
     ].copy()
@@ -334,6 +345,10 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame) -> pd.DataFrame:
         else False
     )
     per_model["impossible"] = impossible_flags(rates).to_numpy()
+    if averaged is None:
+        averaged = per_model.iloc[:0][
+            _keys(rates, "analysis", "model", "tree", "from_state", "to_state", "rate")
+        ]
     avg = averaged[
         _keys(averaged, "analysis", "model", "tree", "from_state", "to_state", "rate")
     ].copy()

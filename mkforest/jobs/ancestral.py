@@ -56,6 +56,7 @@ from ..errors import InputError
 from ..seeds import derive_seed
 
 CLADE_COLUMNS = [
+    "tree_set",
     "clade",
     "kind",
     "n_tips",
@@ -102,7 +103,8 @@ def target_clades(
     frequencies). The table has one row per clade: ``kind`` is consensus /
     sampled / reference (a node of the summary tree), named (listed members;
     the MRCA is used and monophyly counted) or named_mrca (MRCA of a few taxa);
-    ``summary_tree`` says in words which tree the clades come from.
+    ``summary_tree`` says in words which tree the clades come from; ``tree_set`` is the set
+    whose trees gave them and their frequency (``trees`` is one set: the first).
     """
     taxa = check_same_taxa(trees)
     bits = taxon_bits(taxa)
@@ -143,6 +145,7 @@ def target_clades(
     for v in range(summary.n_tips, summary.n_nodes):
         m = mask_of(sets[v], bits)
         rows[m] = dict(
+            tree_set=trees[0].tree_set,
             clade=names[v],
             kind=kind,
             n_tips=len(sets[v]),
@@ -161,6 +164,7 @@ def target_clades(
             continue
         out.append(
             dict(
+                tree_set=trees[0].tree_set,
                 clade=nc.name,
                 kind="named_mrca" if nc.mrca_only else "named",
                 n_tips=len(nc.members),
@@ -204,6 +208,57 @@ def resolve_choice(choice: str, model_names, analysis: str) -> tuple:
         f"model '{choice}' (ancestral.model) is not fitted for '{analysis}'; "
         "the Akaike-weight average of its models is used instead"
     )
+
+
+def fits_on_tree(tree, models: dict, fit_by: dict, rate_groups: dict, analysis: str, criterion):
+    """Per model (in ``models`` order), what one tree's fits give the ancestral stage:
+    (criterion values, rate matrices, roots, converged, bound, the tree of each fit, ln L).
+
+    ``bound``: the fit has a rate the data do not bound from above (at the upper bound, or
+    a 95% interval reaching it) or its branch parameter at the edge of its box: its maps
+    are not drawn (their changes grow with the box, not the data). A rate at the lower
+    bound is a change the data do not support (rate ~ 0), which maps handle. An impossible
+    fit (ln L = -inf) has no rates and no branch parameter: weight 0, the given tree."""
+    crit, Qs, roots, conv, bound, own, lls = [], [], [], [], [], [], []
+    for name, (model, root) in models.items():
+        row = fit_by.get((name, tree.index))
+        if row is None:
+            raise InputError(
+                f"analysis '{analysis}': no fit of model '{name}' for tree "
+                f"{tree.index} in this chunk; rerun the fit jobs."
+            )
+        crit.append(float(row[criterion]) if pd.notna(row[criterion]) else np.inf)
+        g = rate_groups.get((name, tree.index))
+        k = len(model.states)
+        Qs.append(q_from_rate_rows(g, model.states) if g is not None else np.zeros((k, k)))
+        roots.append(root)
+        lls.append(float(row["log_likelihood"]))
+        own.append(
+            tree_of_fit(tree, row.get("branches"), row.get("branch_parameter"))
+            if np.isfinite(lls[-1])
+            else tree
+        )
+        conv.append(str(row["converged"]).lower() == "true")
+        bound.append(
+            any(
+                str(row.get(col, "") or "").strip() not in ("", "nan")
+                for col in ("at_upper", "open_upper")
+            )
+            or branch_at_box_edge(row.get("branches"), row.get("branch_at_bound"))
+        )
+    return crit, Qs, roots, conv, bound, own, lls
+
+
+def _hidden_probabilities(model, own, Qs, roots, crit, X, names, name):
+    """Probabilities of every combined state state@class at every node under one
+    hidden-class model alone (None where its fit is impossible on this tree)."""
+    i = names.index(name)
+    if not np.isfinite(crit[i]):
+        return None
+    try:
+        return marginal_probabilities(own[i], model.expand_tips(X), Qs[i], roots[i], model.states)
+    except ImpossibleData:
+        return None
 
 
 def chunk_ancestral(
@@ -265,41 +320,9 @@ def chunk_ancestral(
         present[t] = [m in in_tree for m in masks] if masks else []
         present[t, mrca_only] = True
         X = trait.tip_partials(tree, absent=absent)
-        crit, Qs, roots, conv, bound, own, lls = [], [], [], [], [], [], []
-        for name in names:
-            row = fit_by.get((name, tree.index))
-            if row is None:
-                raise InputError(
-                    f"analysis '{analysis}': no fit of model '{name}' for tree "
-                    f"{tree.index} in this chunk; rerun the fit jobs."
-                )
-            crit.append(float(row[criterion]) if pd.notna(row[criterion]) else np.inf)
-            g = rate_groups.get((name, tree.index))
-            mstates = models[name][0].states
-            Qs.append(
-                q_from_rate_rows(g, mstates)
-                if g is not None
-                else np.zeros((len(mstates), len(mstates)))
-            )
-            roots.append(models[name][1])
-            # an impossible fit (ln L = -inf) has no rates and no branch parameter: weight 0
-            lls.append(float(row["log_likelihood"]))
-            own.append(
-                tree_of_fit(tree, row.get("branches"), row.get("branch_parameter"))
-                if np.isfinite(lls[-1])
-                else tree
-            )
-            conv.append(str(row["converged"]).lower() == "true")
-            # a rate at the lower bound is a change the data do not support (rate ~ 0), which
-            # maps handle; a rate at the upper bound, or whose 95% interval reaches it, has no
-            # upper limit in the data, and neither have the changes a map draws under it
-            bound.append(
-                any(
-                    str(row.get(col, "") or "").strip() not in ("", "nan")
-                    for col in ("at_upper", "open_upper")
-                )
-                or branch_at_box_edge(row.get("branches"), row.get("branch_at_bound"))
-            )
+        crit, Qs, roots, conv, bound, own, lls = fits_on_tree(
+            tree, models, fit_by, rate_groups, analysis, criterion
+        )
         w = model_weights(crit, choice_used, names)
         if not (w > 0).any():
             skipped[t] = True
@@ -317,18 +340,13 @@ def chunk_ancestral(
         except (ImpossibleData, ValueError):
             skipped[t] = True
             continue
+        per_model = {
+            name: pm
+            for name in hidden
+            if (pm := _hidden_probabilities(models[name][0], own, Qs, roots, crit, X, names, name))
+            is not None
+        }
         where = {m: v for v, m in enumerate(nm)}
-        per_model = {}
-        for name in hidden:
-            i = names.index(name)
-            if not np.isfinite(crit[i]):
-                continue
-            try:
-                per_model[name] = marginal_probabilities(
-                    own[i], models[name][0].expand_tips(X), Qs[i], roots[i], models[name][0].states
-                )
-            except ImpossibleData:
-                continue
         for c in range(n_clades):
             if exact[c]:  # a node of the summary tree: used only where the tree has it
                 v = where.get(masks[c])
@@ -343,7 +361,9 @@ def chunk_ancestral(
                 combined[name][t, c] = pm[v]
         if n_maps > 0:
             rng = np.random.default_rng(derive_seed(seed, tree.index, analysis, "map"))
-            ms = mixed_stochastic_maps(tree, X, mix, n_maps, rng, states)
+            # maps under a fit the data do not bound are left out of every count
+            # (bound_limited_maps): not drawn at all, as their cost grows with the rate
+            ms = mixed_stochastic_maps(tree, X, mix, n_maps, rng, states, skip=bound)
             counts[t] = ms.counts
             dwell[t] = ms.dwell
             map_model[t] = ms.model

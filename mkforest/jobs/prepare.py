@@ -161,18 +161,18 @@ def impossible_tips(tree: TreeArrays, trait) -> list:
     return out
 
 
-def tree_check_rows(summary: dict, used: list) -> list:
-    """data_check rows about the tree sample (trait '(trees)'): trees in the file, dropped as
-    burn-in, used, rooting, the file's features and what was done with them
-    (``trees.tree_file_features``: items ``file_translate_table`` ...), and per tree the
-    tips on zero-length branches."""
+def tree_check_rows(summary: dict, used: list, tree_set: str = "") -> list:
+    """data_check rows about one tree set (trait '(trees)'): trees in the file, dropped as
+    burn-in, used, whether mkforest re-rooted them (``trees.root``), the file's features and
+    what was done with them (``trees.tree_file_features``: items ``file_translate_table``
+    ...), and per tree the tips on zero-length branches. Every row names its ``tree_set``."""
     rows = [
         dict(trait="(trees)", item="trees_in_file", value=summary["n_in_file"], detail=""),
         dict(trait="(trees)", item="dropped_as_burnin", value=summary["burnin_dropped"], detail=""),
         dict(trait="(trees)", item="trees_used", value=len(used), detail=""),
         dict(
             trait="(trees)",
-            item="rooted",
+            item="rerooted_by_mkforest",
             value=int(summary.get("root") is not None),
             detail=summary.get("rooting", ""),
         ),
@@ -231,7 +231,7 @@ def tree_check_rows(summary: dict, used: list) -> list:
                     detail=", ".join(r["zero_tips"]),
                 )
             )
-    return rows
+    return [dict(r, tree_set=tree_set) for r in rows]
 
 
 def check_same_taxa_across_sets(firsts: dict) -> None:
@@ -289,6 +289,7 @@ def impossible_rows(traits: dict, trees: list) -> list:
                     dict(
                         trait=name,
                         item="impossible_zero_length_tips",
+                        tree_set=tree.tree_set,
                         tree=tree.index,
                         value=sum(len(g) for g in groups),
                         detail=detail,

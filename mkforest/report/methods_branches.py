@@ -7,7 +7,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..engine.summarise import as_text
-from ..engine.treatments import REGISTRY, null_words
+from ..engine.treatments import REGISTRY, null_words, parse_label
 from ..jobs.analyses import model_treatment
 from .citations import cite
 
@@ -18,12 +18,51 @@ def treatment_words(name: str) -> str:
     return kind.words + (f" {cite(kind.source)}" if kind.source else "")
 
 
+# A treatment in a few words, for the one-paragraph methods and the unit of rates.
+BRIEF = {
+    "as_given": "branch lengths as given",
+    "unit": "every branch of length one",
+    "kappa": "branch lengths raised to a power kappa",
+    "lambda": "internal branches scaled by lambda",
+    "delta": "node depths transformed by delta",
+    "early_burst": "a rate changing exponentially with time from the root",
+}
+
+
+def treatment_label(config: dict, model: str) -> str:
+    """A model's treatment as fits.tsv writes it ('kappa', 'kappa=0'), read by the
+    registry's one reader of ``models.<model>.branches``."""
+    return model_treatment(config, model).label
+
+
+def treatment_brief(label: str) -> str:
+    """'branch lengths raised to a power kappa, estimated per tree' (or 'fixed at 0')."""
+    t = parse_label(label)
+    words = BRIEF.get(t.name, t.name)
+    if not t.kind.estimable:
+        return words
+    return words + (f" fixed at {t.fixed:g}" if t.fixed is not None else ", estimated on each tree")
+
+
+def rate_unit_words(label: str) -> str:
+    """The unit of rates under a treatment, in words."""
+    name = parse_label(label).name
+    if name == "as_given":
+        return "changes per unit branch length"
+    if name == "unit":
+        return "changes per branch, every branch of length one"
+    return f"changes per unit of branch length transformed by {name}"
+
+
 def first_set(frame: pd.DataFrame | None) -> pd.DataFrame | None:
-    """The rows of the first tree set (tables keep set order); tables without sets as they are."""
+    """The rows of the first tree set (tables keep set order) and the rows that hold for
+    every set (``tree_set`` empty, e.g. data_check.tsv's rows about the trait table);
+    tables without sets as they are."""
     if frame is None or "tree_set" not in frame or frame.empty:
         return frame
     sets = as_text(frame["tree_set"])
-    return frame[sets == sets.iloc[0]]
+    named = sets[sets != ""]
+    return frame[(sets == "") | (sets == (named.iloc[0] if len(named) else ""))]
 
 
 def branches_paragraph(config: dict) -> str:
@@ -71,6 +110,52 @@ def tree_sets_paragraph(sets: dict) -> str:
         "trait-pair tests were computed on every set, each on its own trees (tables carry "
         f"tree_set); this text describes the first set, '{next(iter(sets))}'."
     )
+
+
+def tree_sets_brief(sets: dict, used: pd.DataFrame | None) -> str:
+    """One sentence for the one-paragraph methods: the other sets fitted and compared;
+    '' for one set."""
+    if len(sets) < 2:
+        return ""
+    counts = (
+        used.groupby(as_text(used["tree_set"])).size().to_dict()
+        if used is not None and "tree_set" in used
+        else {}
+    )
+    names = list(sets)
+    others = [
+        f"tree set '{n}'" + (f" ({counts[n]} trees)" if n in counts else "") for n in names[1:]
+    ]
+    return (
+        f" The same models were fitted on every tree of {' and '.join(others)}, and the "
+        f"sets were compared with '{names[0]}' by the distribution of ln L across their "
+        f"trees {cite('mcgraw1992')}; each set's model support is reported."
+    )
+
+
+def other_sets_lines(analysis: str, support: pd.DataFrame, crit_name: str) -> list:
+    """Per tree set after the first, the model with the largest mean Akaike weight for one
+    analysis (model_support.tsv of that set): every set's main result is in the text."""
+    if support is None or "tree_set" not in support:
+        return []
+    sets = list(dict.fromkeys(as_text(support["tree_set"])))
+    out = []
+    for ts in sets[1:]:
+        g = support[(as_text(support["tree_set"]) == ts) & (support["analysis"] == analysis)]
+        if "same_as" in g:
+            g = g[as_text(g["same_as"]) == ""]
+        g = g[g["n_trees"].astype(float) > 0].sort_values("mean_weight", ascending=False)
+        if g.empty:
+            continue
+        best = g.iloc[0]
+        n = int(best["n_trees"])
+        k = int(round(float(best["fraction_best"]) * n))
+        out.append(
+            f"On tree set '{ts}' ({n} trees), {best['model']} received the most support "
+            f"(mean Akaike weight {float(best['mean_weight']):.2f}; lowest {crit_name} on "
+            f"{k} of {n} trees; tables/model_support.tsv)."
+        )
+    return out
 
 
 def results_lines(analysis: str, tables: dict) -> list:

@@ -26,6 +26,7 @@ from matplotlib.collections import LineCollection  # noqa: E402
 from matplotlib.legend_handler import HandlerTuple  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
+from matplotlib.ticker import MaxNLocator  # noqa: E402
 
 from ..data.clades import ladder_children, node_clades, tips_in_drawing_order  # noqa: E402
 from . import style  # noqa: E402
@@ -42,6 +43,9 @@ BAR_W, BAR_H = 0.34, 0.11
 TIP_W = 0.11
 FONT_TIP, FONT_FREQ = 7.0, 6.0
 LEGEND_W = 2.6
+# tips within this share of the tree height of the farthest count as ending together: a
+# time tree (a summary tree of averaged lengths is ultrametric only to rounding)
+TIME_TREE_TOL = 1e-3
 
 
 def state_colours(states, is_ordered: bool = False) -> dict:
@@ -101,6 +105,213 @@ def _text_size(text: str, points: float):
     return 0.62 * len(text) * points / 72 + 0.02, 1.3 * points / 72
 
 
+def _draw_tips(ax, tree, trait, colours, x, y, span, per_in, inch, occupied, branch_boxes):
+    """Tip marks (the observed state, the possible ones side by side, hatching for unknown
+    or absent), labels, and dotted leaders from tips that end short of the label column.
+    Returns (an unknown tip drawn, an ambiguous tip drawn)."""
+    n = tree.n_tips
+    # tips: a mark of the observed state(s), then the label; a tip that ends short of the
+    # label column is joined to it by a dotted leader (a guide text may not sit on)
+    tip_row = {t: i for i, t in enumerate(trait.taxa)} if trait is not None else {}
+    tip_x = span + 0.08 * per_in
+    short = [v for v in range(n) if x[v] < span - TIME_TREE_TOL * span]
+    if short:
+        ax.add_collection(
+            LineCollection(
+                [[(x[v], y[v]), (tip_x, y[v])] for v in short],
+                colors="#9a9a9a",
+                linewidths=0.6,
+                linestyles=(0, (1, 2)),
+                zorder=1,
+            )
+        )
+        for v in short:
+            (x0, y0), (x1, _) = inch(x[v], y[v]), inch(tip_x, y[v])
+            branch_boxes.append([x0, y0 - 0.01, x1, y0 + 0.01])
+    unknown = ambiguous = False
+    for v in range(n):
+        label = tree.tip_labels[v]
+        xi, yi = inch(tip_x, y[v])
+        occupied.add(
+            [xi, yi - ROW * 0.4, xi + TIP_W + 0.04 + _text_size(label, FONT_TIP)[0], yi + ROW * 0.4]
+        )
+        ax.text(tip_x + (TIP_W + 0.05) * per_in, y[v], label, va="center", fontsize=FONT_TIP)
+        if trait is None:
+            continue
+        i = tip_row.get(label)  # a taxon absent from the table is unknown, as in the fits
+        possible = np.flatnonzero(trait.possible[i]) if i is not None else np.arange(trait.k)
+        h = 0.7
+        if len(possible) == len(trait.states):
+            ax.add_patch(
+                Rectangle(
+                    (tip_x, y[v] - h / 2),
+                    TIP_W * per_in,
+                    h,
+                    facecolor="white",
+                    edgecolor="#777777",
+                    hatch=UNKNOWN_HATCH,
+                    lw=0.5,
+                    zorder=3,
+                )
+            )
+            unknown = True
+            continue
+        ambiguous |= len(possible) > 1
+        w = TIP_W * per_in / len(possible)
+        for k, s in enumerate(possible):
+            ax.add_patch(
+                Rectangle(
+                    (tip_x + k * w, y[v] - h / 2),
+                    w,
+                    h,
+                    facecolor=colours[trait.states[s]],
+                    edgecolor="none",
+                    zorder=3,
+                )
+            )
+    return unknown, ambiguous
+
+
+def _write_frequencies(ax, tree, order, placed, y, per_in, x_lo, inch, occupied):
+    """Each clade frequency below 1 beside its bar, where it touches nothing.
+    Returns (written, left out)."""
+    n = tree.n_tips
+    n_freq = n_hidden = 0
+    for v in order:
+        if v not in placed or v == tree.root:
+            continue
+        centre, _, row, bar_w = placed[v]
+        f = row["frequency"]
+        if not np.isfinite(f) or f >= 0.995:
+            continue
+        text = f"{f:.2f}"
+        tw, th = _text_size(text, FONT_FREQ)
+        bx, by = inch(centre - bar_w / 2, y[v])
+        bw = bar_w / per_in
+        candidates = [
+            (bx - tw - 0.03 - dx, y0, va)
+            for dx in (0.0, 0.12, 0.24)
+            for y0, va in ((by + 0.03, "bottom"), (by - th - 0.03, "top"))
+        ]
+        candidates += [
+            (bx + (bw - tw) / 2, by + BAR_H / 2 + 0.02, "bottom"),
+            (bx + (bw - tw) / 2, by - BAR_H / 2 - th - 0.02, "top"),
+        ]
+        for x0, y0, va in candidates:
+            box = (x0, y0, x0 + tw, y0 + th)
+            if occupied.free(box, pad=0.015):
+                occupied.add(box)
+                yt = n - 0.5 - (y0 + (0 if va == "bottom" else th)) / ROW
+                ax.text(
+                    x_lo + (x0 + tw / 2) * per_in,
+                    yt,
+                    text,
+                    ha="center",
+                    va=va,
+                    fontsize=FONT_FREQ,
+                    color=SUPPORT_COLOUR,
+                    zorder=5,
+                )
+                n_freq += 1
+                break
+        else:
+            n_hidden += 1
+    return n_freq, n_hidden
+
+
+def _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting):
+    """Distances from the root, or time before present on a time tree; the title with the
+    number of trees, the summary tree and the rooting."""
+    ax.set_yticks([])
+    for side in ("left", "right", "top"):
+        ax.spines[side].set_visible(False)
+    ax.spines["bottom"].set_bounds(0, span)
+    tips = x[:n]
+    timed = n > 1 and float(tips.max() - tips.min()) <= TIME_TREE_TOL * span  # a time tree
+    ticks = [t for t in ax.get_xticks() if 0 <= t <= span]
+    if timed:  # ticks at round times before present, counted back from the tips
+        before = [b for b in MaxNLocator(6).tick_values(0, span) if 0 <= b <= span * (1 + 1e-9)]
+        ax.set_xticks([span - b for b in before], [f"{b:g}" for b in before])
+        xlabel = "time before present (the trees' branch-length units)"
+    else:
+        ax.set_xticks(ticks)
+        xlabel = "distance from the root (branch length units)"
+    ax.tick_params(axis="x", labelsize=style.BODY_TEXT)
+    n_trees = int(states["n_trees"].max()) if len(states) else 0
+    ax.set_xlabel(xlabel, fontsize=style.BODY_TEXT, loc="left")
+    drawn_on = (
+        str(clades["summary_tree"].iloc[0]) if "summary_tree" in clades and len(clades) else ""
+    )
+    default = (
+        f"Ancestral states of '{analysis}': mean probability across trees "
+        f"(up to {n_trees} tree{'' if n_trees == 1 else 's'})"
+        + (f"\ndrawn on the {drawn_on}" if drawn_on else "")
+    )
+    roots = f"; trees rooted {rooting}" if rooting else ""
+    ax.set_title((title or default) + roots, fontsize=10, loc="left")
+
+
+def _legend(
+    ax,
+    colours,
+    labels,
+    trait,
+    analysis,
+    legend_title,
+    ambiguous,
+    unknown,
+    order,
+    placed,
+    by_members,
+    sets,
+):
+    """States, tip marks, clade frequencies and the node bars left out, in one legend.
+    Returns the number of node bars left out."""
+    handles = [Patch(facecolor=colours[s], label=s.replace("+", " + ")) for s in labels]
+    if trait is not None:
+        if ambiguous:
+            handles.append(
+                (Patch(facecolor=colours[labels[0]]), Patch(facecolor=colours[labels[-1]]))
+            )
+        if unknown:
+            handles.append(Patch(facecolor="white", edgecolor="#777777", hatch=UNKNOWN_HATCH))
+    names = [
+        h.get_label() if not isinstance(h, tuple) else "tip: several states possible"
+        for h in handles
+    ]
+    if trait is not None and unknown:
+        names[-1] = "tip: state unknown"
+    handles.append(Line2D([], [], ls="none", marker="$0.9$", color=SUPPORT_COLOUR, markersize=12))
+    names.append(
+        "clade frequency in the tree sample\n(written when below 1 and where it fits;"
+        "\nall in tables/clades.tsv)"
+    )
+    left_out = len([v for v in order if by_members.get(sets[v]) is not None and v not in placed])
+    if left_out:
+        handles.append(Line2D([], [], ls="none"))
+        names.append(
+            f"{left_out} node bars left out: branches too\nshort to draw them apart "
+            "(values in\ntables/ancestral_states.tsv)"
+        )
+    if legend_title is None:
+        legend_title = (
+            "state" if trait is None or "+" not in labels[0] else f"{analysis} (joint state)"
+        )
+    ax.legend(
+        handles,
+        names,
+        title=legend_title,
+        loc="upper left",
+        bbox_to_anchor=(1.0, 1.0),
+        frameon=False,
+        fontsize=8,
+        title_fontsize=9,
+        alignment="left",
+        handler_map={tuple: HandlerTuple(ndivide=None, pad=0)},
+    )
+    return left_out
+
+
 def state_tree(
     tree,
     states: pd.DataFrame,
@@ -111,6 +322,7 @@ def state_tree(
     colours: dict | None = None,
     title: str | None = None,
     legend_title: str | None = None,
+    rooting: str = "",
 ):
     """Summary tree with mean ancestral state probabilities at its nodes.
 
@@ -123,6 +335,12 @@ def state_tree(
     root, where it touches no other bar, tip mark or label; a clade frequency below
     1 is written beside its bar where it touches nothing (all are in clades.tsv).
     colours, title, legend_title: for other categories drawn the same way (hidden classes).
+    rooting: how the trees were rooted, in words (data.trees.describe_rooting), in the title.
+
+    Tips that end short of the label column (trees that are not ultrametric) are joined
+    to their mark by a dotted leader; a taxon absent from the trait table is hatched like
+    an unknown cell; a time tree (every tip at the same distance from the root) gets an
+    axis of time before present, in the trees' units.
     """
     labels = list(dict.fromkeys(states["state"].astype(str)))
     if trait is not None:
@@ -162,50 +380,9 @@ def state_tree(
         (x0, y0), (x1, y1) = inch(xa, ya), inch(xb, yb)
         branch_boxes.append([min(x0, x1), min(y0, y1) - 0.01, max(x0, x1), max(y0, y1) + 0.01])
 
-    # tips: a mark of the observed state(s), then the label
-    tip_row = {t: i for i, t in enumerate(trait.taxa)} if trait is not None else {}
-    tip_x = span + 0.08 * per_in
-    unknown = ambiguous = False
-    for v in range(n):
-        label = tree.tip_labels[v]
-        xi, yi = inch(tip_x, y[v])
-        occupied.add(
-            [xi, yi - ROW * 0.4, xi + TIP_W + 0.04 + _text_size(label, FONT_TIP)[0], yi + ROW * 0.4]
-        )
-        ax.text(tip_x + (TIP_W + 0.05) * per_in, y[v], label, va="center", fontsize=FONT_TIP)
-        i = tip_row.get(label)
-        if i is None:
-            continue
-        possible = np.flatnonzero(trait.possible[i])
-        h = 0.7
-        if len(possible) == len(trait.states):
-            ax.add_patch(
-                Rectangle(
-                    (tip_x, y[v] - h / 2),
-                    TIP_W * per_in,
-                    h,
-                    facecolor="white",
-                    edgecolor="#777777",
-                    hatch=UNKNOWN_HATCH,
-                    lw=0.5,
-                    zorder=3,
-                )
-            )
-            unknown = True
-            continue
-        ambiguous |= len(possible) > 1
-        w = TIP_W * per_in / len(possible)
-        for k, s in enumerate(possible):
-            ax.add_patch(
-                Rectangle(
-                    (tip_x + k * w, y[v] - h / 2),
-                    w,
-                    h,
-                    facecolor=colours[trait.states[s]],
-                    edgecolor="none",
-                    zorder=3,
-                )
-            )
+    unknown, ambiguous = _draw_tips(
+        ax, tree, trait, colours, x, y, span, per_in, inch, occupied, branch_boxes
+    )
 
     # node bars: mean probability of each state, stacked left to right
     by_members = {}
@@ -267,106 +444,23 @@ def state_tree(
             )
         )
     occupied.add(branch_boxes)
-    n_freq = n_hidden = 0
-    for v in order:
-        if v not in placed or v == tree.root:
-            continue
-        centre, _, row, bar_w = placed[v]
-        f = row["frequency"]
-        if not np.isfinite(f) or f >= 0.995:
-            continue
-        text = f"{f:.2f}"
-        tw, th = _text_size(text, FONT_FREQ)
-        bx, by = inch(centre - bar_w / 2, y[v])
-        bw = bar_w / per_in
-        candidates = [
-            (bx - tw - 0.03 - dx, y0, va)
-            for dx in (0.0, 0.12, 0.24)
-            for y0, va in ((by + 0.03, "bottom"), (by - th - 0.03, "top"))
-        ]
-        candidates += [
-            (bx + (bw - tw) / 2, by + BAR_H / 2 + 0.02, "bottom"),
-            (bx + (bw - tw) / 2, by - BAR_H / 2 - th - 0.02, "top"),
-        ]
-        for x0, y0, va in candidates:
-            box = (x0, y0, x0 + tw, y0 + th)
-            if occupied.free(box, pad=0.015):
-                occupied.add(box)
-                yt = n - 0.5 - (y0 + (0 if va == "bottom" else th)) / ROW
-                ax.text(
-                    x_lo + (x0 + tw / 2) * per_in,
-                    yt,
-                    text,
-                    ha="center",
-                    va=va,
-                    fontsize=FONT_FREQ,
-                    color=SUPPORT_COLOUR,
-                    zorder=5,
-                )
-                n_freq += 1
-                break
-        else:
-            n_hidden += 1
+    n_freq, n_hidden = _write_frequencies(ax, tree, order, placed, y, per_in, x_lo, inch, occupied)
 
-    handles = [Patch(facecolor=colours[s], label=s.replace("+", " + ")) for s in labels]
-    if trait is not None:
-        if ambiguous:
-            handles.append(
-                (Patch(facecolor=colours[labels[0]]), Patch(facecolor=colours[labels[-1]]))
-            )
-        if unknown:
-            handles.append(Patch(facecolor="white", edgecolor="#777777", hatch=UNKNOWN_HATCH))
-    names = [
-        h.get_label() if not isinstance(h, tuple) else "tip: several states possible"
-        for h in handles
-    ]
-    if trait is not None and unknown:
-        names[-1] = "tip: state unknown"
-    handles.append(Line2D([], [], ls="none", marker="$0.9$", color=SUPPORT_COLOUR, markersize=12))
-    names.append(
-        "clade frequency in the tree sample\n(written when below 1 and where it fits;"
-        "\nall in tables/clades.tsv)"
+    left_out = _legend(
+        ax,
+        colours,
+        labels,
+        trait,
+        analysis,
+        legend_title,
+        ambiguous,
+        unknown,
+        order,
+        placed,
+        by_members,
+        sets,
     )
-    left_out = len([v for v in order if by_members.get(sets[v]) is not None and v not in placed])
-    if left_out:
-        handles.append(Line2D([], [], ls="none"))
-        names.append(
-            f"{left_out} node bars left out: branches too\nshort to draw them apart "
-            "(values in\ntables/ancestral_states.tsv)"
-        )
-    if legend_title is None:
-        legend_title = (
-            "state" if trait is None or "+" not in labels[0] else f"{analysis} (joint state)"
-        )
-    ax.legend(
-        handles,
-        names,
-        title=legend_title,
-        loc="upper left",
-        bbox_to_anchor=(1.0, 1.0),
-        frameon=False,
-        fontsize=8,
-        title_fontsize=9,
-        alignment="left",
-        handler_map={tuple: HandlerTuple(ndivide=None, pad=0)},
-    )
-    ax.set_yticks([])
-    for side in ("left", "right", "top"):
-        ax.spines[side].set_visible(False)
-    ax.spines["bottom"].set_bounds(0, span)
-    ax.set_xticks([t for t in ax.get_xticks() if 0 <= t <= span])
-    ax.tick_params(axis="x", labelsize=7.5)
-    n_trees = int(states["n_trees"].max()) if len(states) else 0
-    ax.set_xlabel("distance from the root (branch length units)", fontsize=8, loc="left")
-    drawn_on = (
-        str(clades["summary_tree"].iloc[0]) if "summary_tree" in clades and len(clades) else ""
-    )
-    default = (
-        f"Ancestral states of '{analysis}': mean probability across trees "
-        f"(up to {n_trees} tree{'' if n_trees == 1 else 's'})"
-        + (f"\ndrawn on the {drawn_on}" if drawn_on else "")
-    )
-    ax.set_title(title or default, fontsize=10, loc="left")
+    _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting)
     fig.mkforest_nodes_drawn = sum(np.all(np.isfinite(p[1])) for p in placed.values())
     fig.mkforest_bars_left_out = left_out
     fig.mkforest_frequencies = (n_freq, n_hidden)
@@ -431,22 +525,24 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
         1,
         squeeze=False,
         layout="constrained",
-        figsize=(7.5, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
+        figsize=(style.FULL_WIDTH, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
         gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]},
     )
-    for ax, a in zip(axes[:, 0], analyses):
+    for ax, a in zip(axes.flat, analyses):
         g = d[d["analysis"] == a].copy()
+        n_all = g["tree"].nunique()
         keys = style.ordered_changes(
             zip(g["from_state"], g["to_state"]), pairs.get(a), states.get(a)
         )
         label = {k: style.change_label(*k, pairs.get(a)) for k in keys}
+
         g["direction"] = [label[k] for k in zip(g["from_state"], g["to_state"])]
         order = [label[k] for k in keys]
         # a tree whose every map came from a fit with a rate the data do not bound has no
         # count (mkforest.jobs.ancestral.transition_tables): it is left out of the panel
         g = g[np.isfinite(g["mean_count"].astype(float))]
         if g.empty:
-            ax.set_title(f"{a}", fontsize=9, loc="left", fontweight="bold")
+            ax.set_title(f"{a}", fontsize=style.BODY_TEXT + 1, loc="left", fontweight="bold")
             ax.text(
                 0.5,
                 0.5,
@@ -455,7 +551,7 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
                 ha="center",
                 va="center",
                 transform=ax.transAxes,
-                fontsize=8,
+                fontsize=style.BODY_TEXT,
             )
             ax.set_xticks([])
             ax.set_yticks([])
@@ -468,20 +564,30 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
             jitter=0.2,
         )
         n_trees = g["tree"].nunique()
+        missing = n_all - n_trees
         ax.set_title(
-            f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'})",
-            fontsize=9,
+            f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'})"
+            + (
+                f"\n{missing} of {n_all} trees left out: every map\nunder a rate the data "
+                "do not bound"
+                if missing
+                else ""
+            ),
+            fontsize=style.BODY_TEXT + 1,
             loc="left",
             fontweight="bold",
         )
         ax.set_ylabel("")
-        ax.set_xlabel("changes on the tree (mean of the tree's maps)", fontsize=8)
+        ax.set_xlabel("changes on the tree (mean of the tree's maps)", fontsize=style.BODY_TEXT)
         ax.set_xlim(left=0)
-        ax.tick_params(axis="y", labelsize=7.5, length=0)
-        ax.tick_params(axis="x", labelsize=7.5)
+        ax.tick_params(axis="y", labelsize=style.BODY_TEXT, length=0)
+        ax.tick_params(axis="x", labelsize=style.BODY_TEXT)
         ax.grid(axis="x", color="#eeeeee", lw=0.6)
         ax.set_axisbelow(True)
-    fig.suptitle("Stochastic maps: number of changes by direction across trees", fontsize=10)
+    fig.suptitle(
+        "Stochastic maps: number of changes by direction across trees",
+        fontsize=style.BODY_TEXT + 2,
+    )
     return fig
 
 

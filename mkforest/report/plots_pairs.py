@@ -24,7 +24,7 @@ from scipy.stats import chi2  # noqa: E402
 
 from ..engine.models import FREE_FORBIDDEN  # noqa: E402
 from . import style  # noqa: E402
-from .plots import interval_panel  # noqa: E402
+from .plots import interval_panel, rate_limits  # noqa: E402
 from .words import hypothesis_words  # noqa: E402
 
 FIRST_COLOUR = style.CATEGORICAL[5]  # vermillion: the first trait's side of a test
@@ -111,9 +111,7 @@ def rates_by_state(
     stats = style.rate_intervals(r[r["model"].isin(hyps)])
     stats["series"] = stats["model"]
     stats["row"] = list(zip(stats["from_state"], stats["to_state"]))
-    values = np.concatenate([stats["low"].to_numpy(float), stats["high"].to_numpy(float)])
-    values = values[np.isfinite(values) & (values > 0)]
-    xlim = (values.min() / 2, values.max() * 2) if values.size else (0.1, 10.0)
+    xlim = rate_limits(stats)
     panels = []
     for which, (trait, other) in enumerate(((pair.first, pair.second), (pair.second, pair.first))):
         rows = []
@@ -136,15 +134,17 @@ def rates_by_state(
     fig, axes = plt.subplots(
         2,
         1,
-        figsize=(9.0, sum(heights) + 2.0),
+        figsize=(style.FULL_WIDTH, sum(heights) + 2.0),
         layout="constrained",
         gridspec_kw={"height_ratios": heights},
     )
     weights = _weights(pair, support)
     for ax, (trait, rows) in zip(axes, panels):
         interval_panel(ax, rows, stats, hyps, colours, markers, xlim=xlim)
-        ax.set_title(f"changes in {trait.name}", fontsize=9, loc="left", fontweight="bold")
-        ax.set_xlabel("rate (changes per unit branch length)", fontsize=8)
+        ax.set_title(
+            f"changes in {trait.name}", fontsize=style.BODY_TEXT + 1, loc="left", fontweight="bold"
+        )
+        ax.set_xlabel("rate (changes per unit branch length)", fontsize=style.BODY_TEXT)
     handles = [
         Line2D(
             [],
@@ -160,10 +160,11 @@ def rates_by_state(
         handles=handles,
         loc="outside lower center",
         ncol=1,
-        fontsize=7.5,
+        fontsize=style.BODY_TEXT,
         frameon=False,
-        title="hypothesis: median across trees (marker), central 95% of trees (line)",
-        title_fontsize=7.5,
+        title="hypothesis: median across trees (marker), central 95% of trees (line), "
+        "as in rate_summary.tsv",
+        title_fontsize=style.BODY_TEXT,
     )
     fig.suptitle(
         _with_impossible(
@@ -172,8 +173,9 @@ def rates_by_state(
             rates,
             support,
         ),
-        fontsize=10,
+        fontsize=style.BODY_TEXT + 2,
     )
+    style.clear_end_ticks(fig)
     return fig
 
 
@@ -208,17 +210,15 @@ def joint_rate_grid(
     pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
 ):
     """One from-state x to-state grid of joint rates per hypothesis: each allowed
-    cell coloured and written with the median rate across trees (all trees, those at
-    a bound included, counted below the value); changes of both traits at once
+    cell coloured and written with the median rate across trees of rate_summary.tsv
+    (trees at the lower bound included, those the data do not bound above left out;
+    both counted below the value); changes of both traits at once
     cross-hatched; changes the hypothesis forbids in plain grey."""
     r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
     hyps = _hypotheses(pair, r, support, models)
+    # the median of rate_summary.tsv (style.rate_intervals), as in rates_by_state
     stats = style.rate_intervals(r[r["model"].isin(hyps)])
-    med_all = r.groupby(["model", "from_state", "to_state"], sort=False)["rate"].median()
-    stats["median_all"] = [
-        med_all.get((m, f, t), np.nan)
-        for m, f, t in zip(stats["model"], stats["from_state"], stats["to_state"])
-    ]
+    stats["median_all"] = stats["median"]
     positive = stats["median_all"].to_numpy(float)
     positive = positive[np.isfinite(positive) & (positive > 0)]
     lo, hi = (
@@ -332,12 +332,20 @@ def joint_rate_grid(
 
 def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFrame):
     """Per test (one row of panels): the LR statistic on every tree against the chi-square
-    critical value; the bootstrap null distribution with the observed statistics."""
+    critical value; beside it, when a bootstrap ran, the bootstrap null distribution with
+    the observed statistics (without one, a single column, and the title says so)."""
     t = tests[tests["pair"] == pair_name]
     b = bootstrap[bootstrap["pair"] == pair_name] if len(bootstrap) else bootstrap
     keys = list(dict.fromkeys(zip(t["null"], t["alternative"])))
     n = max(len(keys), 1)
-    fig, axes = plt.subplots(n, 2, figsize=(10, 4.2 * n), squeeze=False, layout="constrained")
+    cols = 2 if len(b) else 1
+    fig, axes = plt.subplots(
+        n,
+        cols,
+        figsize=(style.FULL_WIDTH, min(0.9 + 2.6 * n, style.FULL_HEIGHT)),
+        squeeze=False,
+        layout="constrained",
+    )
     if not keys:
         for ax in axes.flat:
             ax.axis("off")
@@ -378,14 +386,24 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
         ax.set_ylim(-0.5, 0.5)
         ax.set_yticks([])
         ax.set_xlim(left=0, right=max(crit, stat.max() if stat.size else 0) * 1.12 + 0.5)
-        ax.set_xlabel("likelihood-ratio statistic 2 (ln L alternative − ln L null)")
+        ax.set_xlabel(
+            "likelihood-ratio statistic 2 × (ln L alternative − ln L null)",
+            fontsize=style.BODY_TEXT,
+        )
+        ax.tick_params(labelsize=style.BODY_TEXT)
         ax.set_title(
             f"{null} vs {alt}\n{int(above.sum())} of {stat.size} trees reject at {alpha:g} (χ²)",
-            fontsize=9,
+            fontsize=style.BODY_TEXT + 1,
         )
         ax.legend(
-            fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.22), ncol=2, frameon=False
+            fontsize=style.BODY_TEXT,
+            loc="upper center",
+            bbox_to_anchor=(0.5, -0.3),
+            ncol=1,
+            frameon=False,
         )
+        if cols == 1:
+            continue
         ax = axes[row, 1]
         sims = b[(b["null"] == null) & (b["alternative"] == alt)] if len(b) else b
         if len(sims) == 0:
@@ -393,10 +411,10 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
             ax.text(
                 0.5,
                 0.5,
-                "no parametric bootstrap\n(set pairs.<name>.bootstrap > 0)",
+                "no parametric bootstrap\nfor this test",
                 ha="center",
                 va="center",
-                fontsize=9,
+                fontsize=style.BODY_TEXT,
                 transform=ax.transAxes,
             )
             continue
@@ -433,11 +451,20 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
             )
         ax.set_xlim(0, hi)
         ax.set_ylim(0, 1.05 * max(heights.max(), 1e-9))
-        ax.set_xlabel("likelihood-ratio statistic")
-        ax.set_ylabel("density")
-        ax.set_title(f"parametric bootstrap\n{null} vs {alt}", fontsize=9)
+        ax.set_xlabel("likelihood-ratio statistic", fontsize=style.BODY_TEXT)
+        ax.set_ylabel("density", fontsize=style.BODY_TEXT)
+        ax.tick_params(labelsize=style.BODY_TEXT)
+        ax.set_title(f"parametric bootstrap\n{null} vs {alt}", fontsize=style.BODY_TEXT + 1)
         ax.legend(
-            fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.22), ncol=2, frameon=False
+            fontsize=style.BODY_TEXT,
+            loc="upper center",
+            bbox_to_anchor=(0.5, -0.3),
+            ncol=1,
+            frameon=False,
         )
-    fig.suptitle(f"{pair_name}: likelihood-ratio tests across trees", fontsize=10)
+    fig.suptitle(
+        f"{pair_name}: likelihood-ratio tests across trees"
+        + ("" if cols == 2 else "\n(no parametric bootstrap: set pairs.<name>.bootstrap > 0)"),
+        fontsize=style.BODY_TEXT + 1,
+    )
     return fig

@@ -194,13 +194,17 @@ def _posix(path) -> str:
 def build_manifest(config: dict, run_dir, outputs, inputs, trees_used, invocation: dict) -> dict:
     """The manifest of a finished run.
 
-    outputs: paths of the result files (inside run_dir); inputs: [(role, path)]
-    with paths as written in the config (relative to the working directory) or
-    to the config files; trees_used: path of tables/trees_used.tsv.
+    outputs: paths of the result files (inside run_dir; a folder of figures stands for
+    every file in it); inputs: [(role, path)] with paths as written in the config
+    (relative to the working directory) or to the config files; trees_used: path of
+    tables/trees_used.tsv.
     """
     run_dir = Path(run_dir)
     records = []
-    for p in sorted({_posix(p) for p in outputs}):
+    files = [  # Snakemake's .snakemake_timestamp in a folder output is not a result
+        f for p in outputs for f in (sorted(Path(p).rglob("[!.]*")) if Path(p).is_dir() else [p])
+    ]
+    for p in sorted({_posix(p) for p in files if not Path(p).is_dir()}):
         rel = Path(p).resolve().relative_to(run_dir.resolve())
         records.append(file_record(p, rel.as_posix()))
     input_records = [{"role": role, **file_record(path, str(path))} for role, path in inputs]

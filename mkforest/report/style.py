@@ -4,8 +4,8 @@ rates at an optimiser bound kept apart from estimates, and saving.
 
 Palettes: the eight colours of Okabe & Ito (2008), recommended for readers with
 colour-vision deficiencies by Wong (2011, Nature Methods 8:441), for categories;
-cividis (Nuñez, Anderton & Renslow 2018, PLOS ONE 13:e0199239) for ordered
-states and continuous scales.
+cividis (Nuñez, Anderton & Renslow 2018, PLOS ONE 13:e0199239) for continuous
+scales; viridis for ordered states (``ordered``).
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ from matplotlib.colors import to_hex, to_rgb  # noqa: E402
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
 from PIL import Image  # noqa: E402  (installed with matplotlib)
 
-from ..engine.summarise import as_text, impossible_flags  # noqa: E402
+from ..engine.summarise import as_text, impossible_flags, rate_summary  # noqa: E402
 
 # Okabe & Ito (2008), in an order where neighbours differ most; yellow last (faint
 # as a line or text on white) and black kept apart for model averages and text.
@@ -32,6 +32,14 @@ AVERAGE_COLOUR = "#000000"
 BOUND_COLOUR = "#555555"
 BACKGROUND = "background"  # gid of guides (grid lines, shaded columns) that text may sit on
 PRECISION = 0.001  # rates below it are written "< 0.001"
+# A journal page: the full-page figure area of common two-column journals (183 x 247 mm),
+# and the smallest text a printed figure should carry, its body text at 100% (common
+# practice of journals' figure guides; no single source). Every figure fits the page and
+# writes no text smaller.
+PAGE = (7.2, 9.7)  # inches, width x height
+BODY_TEXT = 8.0  # points
+# what a figure may draw: save crops to the drawn content and pads it by 0.1 in each side
+FULL_WIDTH, FULL_HEIGHT = PAGE[0] - 0.2, PAGE[1] - 0.2
 
 
 def categorical(n: int) -> list:
@@ -44,11 +52,18 @@ def categorical(n: int) -> list:
     return out
 
 
+STATE_MAP = "viridis"  # ordered states: lightness and hue both change along it
+
+
 def ordered(n: int) -> list:
-    """n colours along cividis, dark to light (skipping its palest end so the
-    lightest state still shows on white)."""
-    cmap = colormaps[ORDERED_MAP]
-    return [to_hex(cmap(x)) for x in np.linspace(0.0, 0.85, max(n, 2))][:n]
+    """n colours for ordered states along viridis (van der Walt & Smith's perceptually
+    uniform map, readable with colour-vision deficiencies), dark to light, skipping its
+    palest end so the lightest state still shows on white. cividis varies in lightness
+    alone: its middle states (1-3 of 0-4) were hard to tell apart at tip-mark size;
+    viridis's neighbours differ about twice as much (CIE76 distance 33 against 18 at
+    five states)."""
+    cmap = colormaps[STATE_MAP]
+    return [to_hex(cmap(x)) for x in np.linspace(0.0, 0.92, max(n, 2))][:n]
 
 
 def state_colours(states, is_ordered: bool = False) -> dict:
@@ -156,6 +171,50 @@ def annotated_grid(
 # --------------------------------------------------------------------------- numbers
 
 
+def clear_end_ticks(fig) -> None:
+    """Hide the tick labels of an x axis that would overlap its first or last label (the
+    bound columns' names) or the tick label kept before it, measured after layout, in
+    every axes of the figure."""
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    for ax in fig.axes:
+        labels = [t for t in ax.get_xticklabels() if t.get_visible() and t.get_text()]
+        if len(labels) < 3:
+            continue
+        ends = [labels[0].get_window_extent(renderer), labels[-1].get_window_extent(renderer)]
+        kept = None  # and any that would overlap the last one kept, left to right
+        for t in labels[1:-1]:
+            box = t.get_window_extent(renderer)
+            if any(box.x1 > e.x0 - 2 and box.x0 < e.x1 + 2 for e in ends) or (
+                kept is not None and box.x0 < kept.x1 + 2
+            ):
+                t.set_visible(False)
+            else:
+                kept = box
+
+
+def set_named(frame: pd.DataFrame) -> str:
+    """The first tree set's name when a table holds several sets (the one the figures
+    show), else ''."""
+    if "tree_set" not in frame or frame.empty:
+        return ""
+    sets = [s for s in dict.fromkeys(as_text(frame["tree_set"])) if s]
+    return sets[0] if len(sets) > 1 else ""
+
+
+def name_tree_set(fig, tree_set: str) -> None:
+    """Add "(tree set 'X')" to a figure's title (its suptitle, else its first axes' left
+    title): a figure that shows one set of several says which."""
+    if not tree_set:
+        return
+    note = f"(tree set '{tree_set}')"
+    if fig.get_suptitle():
+        fig.suptitle(fig.get_suptitle() + f" {note}", fontsize=BODY_TEXT + 2)
+    elif fig.axes:
+        ax = fig.axes[0]
+        ax.set_title(ax.get_title(loc="left") + f"\n{note}", loc="left", fontsize=BODY_TEXT + 2)
+
+
 def rate_text(x, precision: float = PRECISION) -> str:
     """A rate as written in figures: three significant digits, never an exponent;
     below the display precision '< 0.001'."""
@@ -238,31 +297,38 @@ def is_double_change(from_state: str, to_state: str) -> bool:
 # --------------------------------------------------------------------------- rates at bounds
 
 
-def rate_intervals(rates: pd.DataFrame, keys=("analysis", "model", "from_state", "to_state")):
-    """Per key: median and central 95% interval across trees of the rates NOT at an
-    optimiser bound, and how many trees put the rate at the lower or upper bound.
+def rate_intervals(rates: pd.DataFrame) -> pd.DataFrame:
+    """Per (tree set,) analysis x model x change: the median and central 95% interval
+    across trees of rate_summary.tsv (``summarise.rate_summary``: one statistic, computed
+    once, for the tables and every figure), under the names the figures use.
 
-    A rate at a bound is not an estimate (lower: the data carry no sign of that
-    change; upper: too fast to estimate), so it is counted, not averaged in.
-    ``rates`` is rates.tsv: ``at_bound`` is 'lower', 'upper' or empty; rows of impossible
-    fits (ln L = -inf, rate NaN) are left out (``impossible_note`` counts them).
+    median, low, high: over the trees where the data bound the rate, those at the lower
+    bound included (an estimate of about zero); n_lower: trees at the lower bound;
+    n_upper: trees where the data do not bound the rate from above (at the upper bound or
+    with a 95% interval reaching it), left out of the median and counted; n_free: trees
+    with a value inside the bounds. lower_value: the largest rate at the lower bound
+    (NaN if none); ``median_at_lower``: the median is that bound (most estimates sit
+    there), so a figure's headline is the bound with its count, not a value.
+    Rows of impossible fits (ln L = -inf) are left out (``impossible_note`` counts them).
     """
-    r = rates[~impossible_flags(rates)].copy()
-    bound = as_text(r["at_bound"]) if "at_bound" in r else pd.Series("", r.index)
-    keys = list(keys)
-    r["n_lower"] = bound.eq("lower")
-    r["n_upper"] = bound.eq("upper")
-    g = r.groupby(keys, sort=False)
-    out = g[["n_lower", "n_upper"]].sum().astype(int)
-    out.insert(0, "n_trees", g.size())
-    rate = r["rate"].to_numpy(float)
-    free = r[~(r["n_lower"] | r["n_upper"]) & np.isfinite(rate) & (rate > 0)]
-    fg = free.groupby(keys, sort=False)["rate"]
-    out["n_free"] = fg.size().reindex(out.index).fillna(0).astype(int)
-    out["median"] = fg.median().reindex(out.index)
-    out["low"] = fg.quantile(0.025).reindex(out.index)
-    out["high"] = fg.quantile(0.975).reindex(out.index)
-    return out.reset_index()
+    s = rate_summary(rates)
+    keys = [k for k in ("tree_set", "analysis", "model", "from_state", "to_state") if k in s]
+    r = rates[~impossible_flags(rates)]
+    lower = r[as_text(r["at_bound"]).str.strip().eq("lower")] if "at_bound" in r else r.iloc[:0]
+    bound = lower.groupby(keys, sort=False)["rate"].max().rename("lower_value").reset_index()
+    out = s.merge(bound, on=keys, how="left") if len(bound) else s.assign(lower_value=np.nan)
+    out = out.rename(
+        columns={
+            "median_rate": "median",
+            "rate_low95": "low",
+            "rate_high95": "high",
+            "n_at_lower": "n_lower",
+            "n_unbounded": "n_upper",
+        }
+    )
+    out["n_free"] = out["n_estimated"] - out["n_lower"]
+    out["median_at_lower"] = out["median"] <= out["lower_value"] * (1 + 1e-9)
+    return out
 
 
 def impossible_note(rates: pd.DataFrame, models=None) -> str:

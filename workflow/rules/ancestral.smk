@@ -121,6 +121,7 @@ rule plot_ancestral:
     params:
         analyses=list(ANALYSES),
         hidden=HIDDEN_CLASS_MODELS,
+        rooting=next(iter(TREE_SETS.values())).get("root"),
         setup=stable(
             {
                 "traits": {"columns": config["traits"]["columns"]},

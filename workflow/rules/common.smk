@@ -160,7 +160,10 @@ def fit_runtime(wildcards, attempt):
     return 2 + attempt * math.ceil(trees_per_job() * per_tree / 60)
 
 
-PLOTS = ["support_weights", "support_heatmap", "rates_across_trees"]
+PLOTS = ["support_weights", "support_heatmap"]
+# Rates across trees: one figure per analysis (an analysis too tall for a page in parts),
+# PNG and SVG, in one folder: their number follows the traits' states.
+RATE_PAGES = f"{OUT}/plots/rates_across_trees"
 # The treatment and tree-set figure is drawn only when there is something to compare:
 # two tree sets, or models of one trait with different branch-length treatments.
 BRANCH_PLOTS = (
@@ -196,4 +199,5 @@ def all_targets(wildcards):
         ]
         + BRANCH_PLOTS
         + [f"{OUT}/plots/{p}.{ext}" for p in PLOTS for ext in ("png", "svg")]
+        + [RATE_PAGES]
     )

@@ -17,6 +17,12 @@ rule plot_support:
             for p in PLOTS
             for ext in ("png", "svg")
         },
+        rates=report(
+            directory(RATE_PAGES),
+            patterns=["{name}.png"],
+            caption="../report/rates_across_trees.rst",
+            category="Plots",
+        ),
     log:
         f"{OUT}/logs/plot_support.log",
     conda:

@@ -90,8 +90,8 @@ def test_tables_and_plots(ancestral_run):
     for name in [
         "changes.png",
         "changes.svg",
-        "ancestral_tree_glow.png",
-        "ancestral_tree_habitat.svg",
+        "ancestral_trees/glow.png",
+        "ancestral_trees/habitat.svg",
     ]:
         assert (plots / name).stat().st_size > 1000, name
 

@@ -42,9 +42,10 @@ def ancestral_runtime(wildcards, attempt):
     return 10 + 5 * attempt * max(1, trees_per_job() // 100)
 
 
-ANCESTRAL_TREE_PLOTS = [
-    f"{OUT}/plots/ancestral_tree_{a}.{ext}" for a in ANALYSES for ext in ("png", "svg")
-]
+# Ancestral state trees: "<analysis>.png" and ".svg" per analysis, a tree of more tips
+# than a page holds in pages ("<analysis>.part2.png", ...), in one folder: their number
+# follows the summary tree's tips.
+ANCESTRAL_TREE_PAGES = f"{OUT}/plots/ancestral_trees"
 
 
 # {analysis: [models with hidden rate classes]}: one class tree per analysis x such model
@@ -70,7 +71,7 @@ def ancestral_targets(wildcards):
             f"{OUT}/plots/changes.png",
             f"{OUT}/plots/changes.svg",
         ]
-        + ANCESTRAL_TREE_PLOTS
+        + [ANCESTRAL_TREE_PAGES]
         + CLASS_TREE_PLOTS
     )
 

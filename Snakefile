@@ -27,6 +27,7 @@ include: "workflow/rules/aggregate.smk"
 include: "workflow/rules/plots.smk"
 include: "workflow/rules/ancestral.smk"
 include: "workflow/rules/pairs.smk"
+include: "workflow/rules/bayes.smk"
 include: "workflow/rules/scan.smk"
 include: "workflow/rules/report.smk"
 

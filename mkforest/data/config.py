@@ -90,9 +90,11 @@ def config_problems(config: dict, source: str = "config") -> tuple:
         jsonschema.Draft202012Validator(schema).iter_errors(config),
         key=lambda e: [str(p) for p in e.absolute_path],
     ):
-        problems += _schema_problem(e, source)
+        if tuple(e.absolute_path)[:2] != ("bayes", "prior"):  # bayes_problems says it
+            problems += _schema_problem(e, source)
     _fill_defaults(schema, config)
     problems += name_problems(config, source)
+    problems += bayes_problems(config, source)
     return config, problems
 
 
@@ -208,6 +210,96 @@ def name_problems(config: dict, source: str = "config") -> list:
             f"{did_you_mean(anc_model, ['average', 'best', *models])}"
         )
     return problems
+
+
+PRIOR_FORMS = {
+    "exponential": ("mean",),
+    "gamma": ("shape", "mean"),
+    "log_uniform": ("lower", "upper"),
+}
+
+
+def prior_problem(prior, where: str) -> str | None:
+    """One sentence when a rate prior block (``bayes.prior``) is not one of the three
+    forms with positive numbers, else None. Units: expected changes along the tree height."""
+    forms = "; ".join(
+        f"{{{k}: {{{', '.join(f'{a}: ...' for a in v)}}}}}" for k, v in PRIOR_FORMS.items()
+    )
+    if not isinstance(prior, dict) or len(prior) != 1:
+        return f"{where} must name one prior, one of {forms}."
+    ((kind, values),) = prior.items()
+    if kind not in PRIOR_FORMS:
+        return (
+            f"{where}: '{kind}' is not a prior; use one of {forms}."
+            f"{did_you_mean(str(kind), list(PRIOR_FORMS))}"
+        )
+    wanted = PRIOR_FORMS[kind]
+    if not isinstance(values, dict) or set(values) != set(wanted):
+        got = ", ".join(map(str, values)) if isinstance(values, dict) else repr(values)
+        return f"{where}.{kind} needs exactly {', '.join(wanted)} (it has {got or 'nothing'})."
+    for key in wanted:
+        v = values[key]
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not v > 0:
+            return (
+                f"{where}.{kind}.{key} is {v!r}; use a positive number (changes per tree height)."
+            )
+    if kind == "log_uniform" and not values["lower"] < values["upper"]:
+        return f"{where}.log_uniform: lower ({values['lower']}) must be below upper ({values['upper']})."
+    return None
+
+
+def bayes_problems(config: dict, source: str = "config") -> list:
+    """The bayes block: its prior, and model names that exist (a model of models, or a
+    hypothesis of a pair). One sentence per mistake."""
+    block = config.get("bayes")
+    if not isinstance(block, dict):
+        return []
+    problems = []
+    problem = prior_problem(block.get("prior"), "bayes.prior")
+    if problem:
+        problems.append(f"{source}: {problem}")
+    known = list(_entries(config.get("models")))
+    for pair in _entries(config.get("pairs")).values():
+        known += [h for h in _names(pair.get("hypotheses", ["independent", "dependent"]))]
+        known += list(_entries(pair.get("custom")))
+    for name in _names(block.get("models")):
+        if name not in known:
+            problems.append(
+                f"{source}: bayes.models names '{name}', which is neither a model in models "
+                f"nor a pair hypothesis.{did_you_mean(name, sorted(set(known)))}"
+            )
+    return problems
+
+
+def bayes_analyses(config: dict) -> dict:
+    """{analysis: [model names sampled]}: every analysis's models that bayes.models lists
+    (all of them when it is null); analyses left with none are dropped. Empty when
+    bayes is not enabled."""
+    block = config.get("bayes", {})
+    if not block.get("enabled"):
+        return {}
+    wanted = block.get("models")
+    out = {
+        a: [m for m in ms if wanted is None or m in wanted] for a, ms in analyses(config).items()
+    }
+    return {a: ms for a, ms in out.items() if ms}
+
+
+def spread_evenly(n: int, wanted) -> list:
+    """Positions 0..n-1 of ``wanted`` trees spread evenly through n (the first and the last
+    included; all n when wanted is None or at least n)."""
+    if wanted is None or wanted >= n:
+        return list(range(n))
+    if wanted == 1:
+        return [0]
+    return sorted({round(i * (n - 1) / (wanted - 1)) for i in range(wanted)})
+
+
+def bayes_trees(used_rows: list, tree_set: str, wanted) -> list:
+    """(tree, chunk) of the trees of one tree set that Bayesian estimation uses, from the
+    rows of tables/trees_used.tsv (dicts with tree_set, tree, chunk as text or numbers)."""
+    rows = [r for r in used_rows if str(r["tree_set"]) == tree_set]
+    return [(int(rows[i]["tree"]), int(rows[i]["chunk"])) for i in spread_evenly(len(rows), wanted)]
 
 
 def tree_set_problems(config: dict, source: str = "config") -> list:

@@ -73,3 +73,15 @@ def fit_job_weight(config: dict, analysis: str, model: str) -> int:
     else:
         weight = PAIR_COST
     return int(weight * hidden_classes(config, analysis, model) ** 2)
+
+
+def bayes_job_config(config: dict, analysis: str, model: str) -> dict:
+    """What one Bayesian job (analysis x model x chunk) reads: the fit job's slice plus the
+    sampler settings (not bayes.models or enabled, so that editing those does not rerun
+    the sampling of another model)."""
+    job = fit_job_config(config, analysis, model)
+    block = config["bayes"]
+    job["bayes"] = {
+        k: block[k] for k in ("chains", "warmup", "draws", "prior", "trees", "saved_draws")
+    }
+    return job

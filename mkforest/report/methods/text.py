@@ -9,6 +9,7 @@ import pandas as pd
 from ...data.config import tree_sets
 from ...engine.summarise import as_text
 from ..citations import cited_in
+from ..methods_bayes import bayes_paragraph, bayes_results, bayes_warnings
 from ..methods_branches import (
     branches_paragraph,
     first_set,
@@ -100,6 +101,9 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
         para = ancestral_paragraph(config, tables)
         if para:
             out += ["**Ancestral states.** " + para, ""]
+    bayes = bayes_paragraph(config, tables)  # report/methods_bayes.py
+    if bayes:
+        out += ["**Bayesian estimation.** " + bayes, ""]
     out += scan_methods_lines(config, tables)  # the all-pairs scan: report/methods_scan.py
     out += ["**Software.** " + _software_paragraph(config, software), ""]
 
@@ -131,6 +135,9 @@ def methods_text(config: dict, tables: dict, models: dict, software: dict) -> st
             ar = ancestral_results(analysis, tables)
             if ar:
                 out += ["", ar]
+        br = bayes_results(analysis, tables)
+        if br:
+            out += ["", br]
         notes = cautions(support[support["analysis"] == analysis], "model")
         if has_pairs and pair_summary is not None and analysis in config["pairs"]:
             rows = pair_summary[pair_summary["pair"] == analysis].copy()
@@ -184,7 +191,7 @@ def run_warnings(run_dir) -> list:
     number of models whose summary carries a caution. Empty when the tables are not there."""
     path = Path(run_dir) / "tables" / "model_support.tsv"
     if not path.is_file():
-        return []
+        return bayes_warnings(run_dir)
     support = read_tables({"model_support": path})["model_support"]
     out = []
     if "n_impossible" in support:
@@ -201,4 +208,4 @@ def run_warnings(run_dir) -> list:
             f"caution column of {path} and the Cautions in {Path(run_dir) / 'methods.md'} "
             "before citing a result."
         )
-    return out
+    return out + bayes_warnings(run_dir)

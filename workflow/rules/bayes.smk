@@ -1,0 +1,115 @@
+# Bayesian estimation: one sampling job per analysis x model x chunk of the first tree
+# set (only chunks holding a tree that bayes.trees picks), one summary job for the
+# tables and draws files, one figure job per analysis and one for model probabilities.
+# The job count grows with trees / per_job, never with the number of trees itself.
+
+
+include: "bayes_inputs.smk"
+
+
+rule bayes_chunk:
+    input:
+        trees=f"{OUT}/prepared/trees/chunk_{{chunk}}.npz",
+        traits=f"{OUT}/prepared/traits.json",
+        used=f"{OUT}/tables/trees_used.tsv",
+    output:
+        rates=f"{OUT}/bayes/{{analysis}}/{{model}}/chunk_{{chunk}}.rates.tsv",
+        ml=f"{OUT}/bayes/{{analysis}}/{{model}}/chunk_{{chunk}}.ml.tsv",
+        draws=f"{OUT}/bayes/{{analysis}}/{{model}}/chunk_{{chunk}}.draws.npz",
+    log:
+        f"{OUT}/logs/bayes/{{analysis}}/{{model}}/chunk_{{chunk}}.log",
+    priority: lambda wildcards: fit_job_weight(config, wildcards.analysis, wildcards.model)
+    group:
+        "bayes"
+    conda:
+        ENV
+    resources:
+        runtime=bayes_runtime,
+        mem_mb=FIT_MEM_MB,
+    params:
+        job=bayes_params,
+        tree_set=FIRST_SET,
+    script:
+        "../../scripts/bayes_chunk.py"
+
+
+rule bayes_summary:
+    input:
+        rates=bayes_files("rates.tsv"),
+        ml=bayes_files("ml.tsv"),
+        draws=bayes_files("draws.npz"),
+    output:
+        posterior_rates=f"{OUT}/tables/posterior_rates.tsv",  # on disk; summarised below
+        summary=report(
+            f"{OUT}/tables/posterior_summary.tsv",
+            caption="../report/posterior_summary.rst",
+            category="Bayesian estimation",
+        ),
+        marginal=report(
+            f"{OUT}/tables/marginal_likelihoods.tsv",
+            caption="../report/marginal_likelihoods.rst",
+            category="Bayesian estimation",
+        ),
+        support=report(
+            f"{OUT}/tables/bayes_model_support.tsv",
+            caption="../report/bayes_model_support.rst",
+            category="Bayesian estimation",
+        ),
+        draws=[f"{OUT}/posterior/{a}.nc" for a in BAYES],
+    log:
+        f"{OUT}/logs/bayes/summary.log",
+    conda:
+        ENV
+    params:
+        analyses=BAYES,
+        pairs=list(config["pairs"]),
+        settings=bayes_settings,
+    script:
+        "../../scripts/bayes_summary.py"
+
+
+rule plot_bayes_rates:
+    input:
+        rates=f"{OUT}/tables/posterior_rates.tsv",
+        summary=f"{OUT}/tables/posterior_summary.tsv",
+        draws=f"{OUT}/posterior/{{analysis}}.nc",
+    output:
+        png=report(
+            f"{OUT}/plots/bayes/{{analysis}}.posterior_rates.png",
+            caption="../report/posterior_rates_plot.rst",
+            category="Bayesian estimation",
+            subcategory="{analysis}",
+        ),
+        svg=f"{OUT}/plots/bayes/{{analysis}}.posterior_rates.svg",  # for print
+    log:
+        f"{OUT}/logs/bayes/plot_{{analysis}}.log",
+    conda:
+        ENV
+    params:
+        models=lambda wildcards: BAYES[wildcards.analysis],
+        pair_traits=lambda wildcards: config["pairs"]
+        .get(wildcards.analysis, {})
+        .get("traits", []),
+    script:
+        "../../scripts/plot_bayes.py"
+
+
+rule plot_bayes_models:
+    input:
+        marginal=f"{OUT}/tables/marginal_likelihoods.tsv",
+        support=f"{OUT}/tables/bayes_model_support.tsv",
+    output:
+        png=report(
+            f"{OUT}/plots/bayes/model_probabilities.png",
+            caption="../report/model_probabilities_plot.rst",
+            category="Bayesian estimation",
+        ),
+        svg=f"{OUT}/plots/bayes/model_probabilities.svg",  # for print
+    log:
+        f"{OUT}/logs/bayes/plot_models.log",
+    conda:
+        ENV
+    params:
+        models=BAYES,
+    script:
+        "../../scripts/plot_bayes.py"

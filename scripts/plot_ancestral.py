@@ -51,9 +51,11 @@ def main(smk):
             style.name_tree_set(fig, named)
             name = f"{analysis}{suffix}"
             plots_ancestral.save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
-    fig = plots_ancestral.change_counts(per_tree, pairs, orders)
-    style.name_tree_set(fig, named)
-    plots_ancestral.save(fig, [out.changes_png, out.changes_svg])
+    pages = Path(out.changes)  # as many analyses a page as fit
+    pages.mkdir(parents=True, exist_ok=True)
+    for name, fig in plots_ancestral.change_pages(per_tree, pairs, orders).items():
+        style.name_tree_set(fig, named)
+        plots_ancestral.save(fig, [pages / f"{name}.png", pages / f"{name}.svg"])
     classes = first_set(
         pd.read_csv(
             smk.input.classes,

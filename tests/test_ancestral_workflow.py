@@ -88,8 +88,8 @@ def test_tables_and_plots(ancestral_run):
 
     plots = work / "results" / "tiny" / "plots"
     for name in [
-        "changes.png",
-        "changes.svg",
+        "changes/changes.png",
+        "changes/changes.svg",
         "ancestral_trees/glow.png",
         "ancestral_trees/habitat.svg",
     ]:

@@ -359,9 +359,35 @@ def test_changes(which, demo, big, tmp_path):
     rows = [t.get_text() for t in ax.get_yticklabels()]
     n_single = len(pair.states) * (pair.k1 - 1 + pair.k2 - 1)
     assert len(rows) == n_single  # no double changes drawn
-    # labels at body size; its height still grows with the number of analyses
     assert [p for p in size_problems(fig) if not p.startswith("figure")] == []
     written(fig, tmp_path, "changes")
+
+
+@pytest.mark.parametrize("which", ["demo", "big"])
+def test_change_pages_fit_a_page_whatever_the_number_of_traits(which, demo, big):
+    """Five copies of the single traits (a run of many traits): every page within a
+    journal page, 8-point text, nothing overlapping; every analysis on exactly one page,
+    in order, each panel's rows those of change_counts alone."""
+    data = demo if which == "demo" else big
+    per_tree = data.tables["transitions_per_tree"]
+    pairs = pair_names(data)
+    single = per_tree[~per_tree["analysis"].isin(pairs)]
+    many = pd.concat(
+        [per_tree] + [single.assign(analysis=single["analysis"] + f"_{i}") for i in range(4)]
+    )
+    pages = plots_ancestral.change_pages(many, pairs)
+    assert len(pages) > 1 and list(pages)[:2] == ["changes", "changes.part2"]
+    shown = []
+    for name, fig in pages.items():
+        assert overlaps(fig) == [] and size_problems(fig) == [], name
+        for ax in fig.axes:
+            a = ax.get_title(loc="left").split(" (")[0]
+            shown.append(a)
+            mine = many[many["analysis"] == a]
+            drawn = [t.get_text() for t in ax.get_yticklabels()]
+            alone = plots_ancestral.change_counts(mine, pairs).axes[0].get_yticklabels()
+            assert drawn == [t.get_text() for t in alone]
+    assert shown == list(dict.fromkeys(many["analysis"]))
 
 
 def test_changes_title_says_why_trees_are_missing(demo):

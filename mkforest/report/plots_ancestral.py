@@ -589,7 +589,52 @@ def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str,
     )
 
 
-def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dict | None = None):
+CHANGE_ROW = 0.24  # inches per direction in change_counts (8-point labels)
+CHANGE_PANEL = 0.95  # inches per panel beyond its rows: title, axis and its label
+
+
+def _change_rows(d, pairs) -> dict:
+    """{analysis: directions drawn} (double changes of a pair left out)."""
+    double = [
+        a in pairs and style.is_double_change(f, t)
+        for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])
+    ]
+    d = d[~np.asarray(double, bool)]
+    return {
+        a: d.loc[d["analysis"] == a, ["from_state", "to_state"]].drop_duplicates().shape[0]
+        for a in dict.fromkeys(d["analysis"])
+    }
+
+
+def change_pages(per_tree: pd.DataFrame, pairs: dict | None = None, states: dict | None = None):
+    """{page name: figure} of ``change_counts``: "changes", "changes.part2", ...; the
+    analyses in order, as many on a page as fit within ``style.FULL_HEIGHT`` (the suptitle,
+    then each panel's rows and labels), so no page grows with the number of traits."""
+    rows = _change_rows(per_tree, pairs or {})
+    pages, height = [[]], 0.6
+    for a, n in rows.items():
+        h = CHANGE_ROW * n + CHANGE_PANEL
+        if pages[-1] and height + h > style.FULL_HEIGHT - 0.3:
+            pages.append([])
+            height = 0.6
+        pages[-1].append(a)
+        height += h
+    out = {}
+    for i, group in enumerate(pages):
+        part = (i + 1, len(pages)) if len(pages) > 1 else None
+        mine = per_tree[per_tree["analysis"].isin(group)]
+        out["changes" if i == 0 else f"changes.part{i + 1}"] = change_counts(
+            mine, pairs, states, part
+        )
+    return out
+
+
+def change_counts(
+    per_tree: pd.DataFrame,
+    pairs: dict | None = None,
+    states: dict | None = None,
+    part: tuple | None = None,
+):
     """Expected number of changes per direction across trees, one panel per analysis,
     one row per direction: a box of the trees' values (each tree: the mean over its
     maps) with the trees as points. Changes of both traits of a pair at once are
@@ -602,18 +647,16 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
         for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])
     ]
     d = d[~np.asarray(double, bool)]
-    analyses = list(dict.fromkeys(d["analysis"]))
-    n_rows = [
-        d.loc[d["analysis"] == a, ["from_state", "to_state"]].drop_duplicates().shape[0]
-        for a in analyses
-    ] or [1]
+    rows = _change_rows(per_tree, pairs)
+    analyses = list(rows)
+    n_rows = list(rows.values()) or [1]
     fig, axes = plt.subplots(
         len(n_rows),
         1,
         squeeze=False,
         layout="constrained",
-        figsize=(style.FULL_WIDTH, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
-        gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]},
+        figsize=(style.FULL_WIDTH, sum(CHANGE_ROW * n + CHANGE_PANEL for n in n_rows) + 0.6),
+        gridspec_kw={"height_ratios": [CHANGE_ROW * n + CHANGE_PANEL for n in n_rows]},
     )
     for ax, a in zip(axes.flat, analyses):
         g = d[d["analysis"] == a].copy()
@@ -672,7 +715,8 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
         ax.grid(axis="x", color="#eeeeee", lw=0.6)
         ax.set_axisbelow(True)
     fig.suptitle(
-        "Stochastic maps: number of changes by direction across trees",
+        "Stochastic maps: number of changes by direction across trees"
+        + (f" (part {part[0]} of {part[1]})" if part else ""),
         fontsize=style.BODY_TEXT + 2,
     )
     return fig

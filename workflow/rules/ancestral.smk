@@ -104,13 +104,9 @@ rule plot_ancestral:
             figure(p, caption="../report/class_tree.rst", category="Ancestral states")
             for p in CLASS_TREE_PLOTS
         ],
-        changes_png=figure(
-            f"{OUT}/plots/changes.png",
-            caption="../report/changes.rst",
-            category="Ancestral states",
-        ),
-        changes_svg=figure(
-            f"{OUT}/plots/changes.svg",
+        changes=report(
+            directory(CHANGE_PAGES),
+            patterns=["{name}.png"],
             caption="../report/changes.rst",
             category="Ancestral states",
         ),

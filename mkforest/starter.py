@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from .data.traits import DEFAULT_MISSING, combined_states, read_traits, safe_column_name
-from .data.trees import looks_like_chain_start, looks_unrooted, parse_tree_file
+from .data.trees import looks_like_chain_start, looks_unrooted, parse_tree_file, tree_file_features
 from .errors import InputError, did_you_mean
 from .jobs.prepare import name_difference
 
@@ -73,18 +73,9 @@ BURNIN_SHARE = 0.1  # proposed for a sampler's output: a common minimum (common 
 
 
 def file_features(text: str) -> list:
-    """What a tree file holds besides the trees, in words (for init's comments)."""
-    out = []
-    if re.search(r"(?im)^\s*translate\b", text):
-        out.append("a translate table (numbers for taxon names)")
-    tags = sorted(set(re.findall(r"\[&([RrUu])\]", text)))
-    if tags:
-        out.append("rooting tags " + " and ".join(f"[&{t.upper()}]" for t in tags))
-    if re.search(r"\[&(?![RrUu]\])", text):
-        out.append("comments on nodes or trees such as [&...] (ignored)")
-    if re.search(r"'[^']*'", text):
-        out.append("quoted names")
-    return out
+    """What a tree file holds besides the trees, in words (for init's comments); labels on
+    internal nodes are found by ``survey_trees`` from the trees read."""
+    return [words for item, words in tree_file_features(text) if item != "internal_labels"]
 
 
 def survey_trees(path) -> TreeSurvey:

@@ -30,13 +30,15 @@ def main(smk):
     setup = smk.params.setup
     pairs = {name: spec["traits"] for name, spec in setup["pairs"].items()}
     orders = {}
+    folder = Path(out.trees)  # one folder: a tree of many tips is cut into pages
+    folder.mkdir(parents=True, exist_ok=True)
     for analysis in smk.params.analyses:
         trait, models = analysis_setup(setup, analysis, traits)  # a pair: its joint trait
         orders[analysis] = list(trait.states)
         ordered = analysis not in pairs and plots_ancestral.is_ordered_trait(
             [m for m, _ in models.values()], trait.k
         )
-        fig = plots_ancestral.state_tree(
+        pages = plots_ancestral.state_tree_pages(
             tree,
             states[states["analysis"] == analysis],
             clades,
@@ -45,13 +47,15 @@ def main(smk):
             ordered,
             rooting=describe_rooting(smk.params.rooting),
         )
+        for suffix, fig in pages.items():
+            style.name_tree_set(fig, named)
+            name = f"{analysis}{suffix}"
+            plots_ancestral.save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
+    pages = Path(out.changes)  # as many analyses a page as fit
+    pages.mkdir(parents=True, exist_ok=True)
+    for name, fig in plots_ancestral.change_pages(per_tree, pairs, orders).items():
         style.name_tree_set(fig, named)
-        plots_ancestral.save(
-            fig, [p for p in out.trees if Path(p).stem == f"ancestral_tree_{analysis}"]
-        )
-    fig = plots_ancestral.change_counts(per_tree, pairs, orders)
-    style.name_tree_set(fig, named)
-    plots_ancestral.save(fig, [out.changes_png, out.changes_svg])
+        plots_ancestral.save(fig, [pages / f"{name}.png", pages / f"{name}.svg"])
     classes = first_set(
         pd.read_csv(
             smk.input.classes,

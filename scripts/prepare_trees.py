@@ -12,7 +12,7 @@ import logging
 
 import pandas as pd
 
-from mkforest.data.trees import describe_rooting, read_trees, save_trees
+from mkforest.data.trees import describe_rooting, read_trees, save_trees, tree_file_features
 from mkforest.jobs.prepare import (
     auto_trees_per_job,
     burnin_count,
@@ -123,6 +123,9 @@ def main(smk):
             "min_branch_length": minimum,
             "without_lengths": len(filled),
             "first_kept": {"tree": used[0].index, "why": start} if start else None,
+            "file_features": tree_file_features(
+                Path(cfg["file"]).read_text(encoding="utf-8-sig", errors="replace")
+            ),
             "trees": report,
         }
         if summary is None:  # the first set's facts at the top (the methods text's), every set's

@@ -88,10 +88,10 @@ def test_tables_and_plots(ancestral_run):
 
     plots = work / "results" / "tiny" / "plots"
     for name in [
-        "changes.png",
-        "changes.svg",
-        "ancestral_tree_glow.png",
-        "ancestral_tree_habitat.svg",
+        "changes/changes.png",
+        "changes/changes.svg",
+        "ancestral_trees/glow.png",
+        "ancestral_trees/habitat.svg",
     ]:
         assert (plots / name).stat().st_size > 1000, name
 

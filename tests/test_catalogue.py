@@ -148,7 +148,7 @@ def test_posterior_sample_runs_to_the_end(posterior_run):
         assert g["mean_probability"].sum() == pytest.approx(1.0, abs=1e-6)
     run = work / "results" / RUN
     for trait in ("code", "single"):
-        assert (run / "plots" / f"ancestral_tree_{trait}.png").read_bytes()[:8] == PNG
+        assert (run / "plots" / "ancestral_trees" / f"{trait}.png").read_bytes()[:8] == PNG
     methods = (run / "methods.md").read_text()
     assert "unresolved" in methods and "unrooted" not in methods
     # burn-in of 10% of 5 trees drops none, and the text says so (case 13)
@@ -250,7 +250,7 @@ def test_zero_length_sister_tips_run_to_the_end_and_say_so_loudly(zero_run):
     work, _, proc = zero_run
     finished(proc, work)
     run = work / "results" / RUN
-    assert (run / "plots" / "ancestral_tree_colour.png").read_bytes()[:8] == PNG
+    assert (run / "plots" / "ancestral_trees" / "colour.png").read_bytes()[:8] == PNG
     t = tables(work)
     check = t["data_check"]
     tips = check[check["item"] == "zero_length_tips"]

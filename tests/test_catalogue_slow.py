@@ -41,7 +41,7 @@ def test_unrooted_28_taxon_sample_midpoint_rooted_on_its_best_supported_tree(tmp
     proc = run_snakemake(tmp_path, cfg)
     assert proc.returncode == 0, (proc.stdout + proc.stderr)[-4000:]
     run = tmp_path / "results" / "s1"
-    assert (run / "plots" / "ancestral_tree_habitat.png").read_bytes()[:8] == PNG
+    assert (run / "plots" / "ancestral_trees" / "habitat.png").read_bytes()[:8] == PNG
     clades = (run / "tables" / "clades.tsv").read_text()
     assert "\tsampled\t" in clades and "highest product of clade frequencies" in clades
     methods = (run / "methods.md").read_text()

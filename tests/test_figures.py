@@ -19,6 +19,8 @@ from matplotlib import colormaps
 from matplotlib.collections import PathCollection
 from matplotlib.colors import to_hex, to_rgb
 
+from mkforest.data.clades import tips_in_drawing_order
+from mkforest.data.trees import parse_newick
 from mkforest.engine.summarise import rate_summary
 from mkforest.report import plots, plots_ancestral, plots_branches, plots_pairs, style
 
@@ -357,9 +359,35 @@ def test_changes(which, demo, big, tmp_path):
     rows = [t.get_text() for t in ax.get_yticklabels()]
     n_single = len(pair.states) * (pair.k1 - 1 + pair.k2 - 1)
     assert len(rows) == n_single  # no double changes drawn
-    # labels at body size; its height still grows with the number of analyses
     assert [p for p in size_problems(fig) if not p.startswith("figure")] == []
     written(fig, tmp_path, "changes")
+
+
+@pytest.mark.parametrize("which", ["demo", "big"])
+def test_change_pages_fit_a_page_whatever_the_number_of_traits(which, demo, big):
+    """Five copies of the single traits (a run of many traits): every page within a
+    journal page, 8-point text, nothing overlapping; every analysis on exactly one page,
+    in order, each panel's rows those of change_counts alone."""
+    data = demo if which == "demo" else big
+    per_tree = data.tables["transitions_per_tree"]
+    pairs = pair_names(data)
+    single = per_tree[~per_tree["analysis"].isin(pairs)]
+    many = pd.concat(
+        [per_tree] + [single.assign(analysis=single["analysis"] + f"_{i}") for i in range(4)]
+    )
+    pages = plots_ancestral.change_pages(many, pairs)
+    assert len(pages) > 1 and list(pages)[:2] == ["changes", "changes.part2"]
+    shown = []
+    for name, fig in pages.items():
+        assert overlaps(fig) == [] and size_problems(fig) == [], name
+        for ax in fig.axes:
+            a = ax.get_title(loc="left").split(" (")[0]
+            shown.append(a)
+            mine = many[many["analysis"] == a]
+            drawn = [t.get_text() for t in ax.get_yticklabels()]
+            alone = plots_ancestral.change_counts(mine, pairs).axes[0].get_yticklabels()
+            assert drawn == [t.get_text() for t in alone]
+    assert shown == list(dict.fromkeys(many["analysis"]))
 
 
 def test_changes_title_says_why_trees_are_missing(demo):
@@ -381,65 +409,93 @@ def _tree(data, analysis):
     trait = data.traits.get(analysis) or data.pairs[analysis].joint_trait()
     states = data.tables["ancestral_states"]
     ordered = plots_ancestral.is_ordered_trait(data.models[analysis].values(), trait.k)
-    fig = plots_ancestral.state_tree(
+    pages = plots_ancestral.state_tree_pages(
         data.tree,
         states[states["analysis"] == analysis],
         data.tables["clades"],
         trait,
         analysis,
         ordered,
+        rooting="at the midpoint of the longest path",
     )
-    return fig, ordered
+    return pages, ordered
 
 
-def _check_tree(fig, data, analysis):
-    assert overlaps(fig) == []
-    ax = fig.axes[0]
-    texts = {t.get_text() for t in ax.texts}
-    assert set(data.tree.tip_labels) <= texts  # every tip labelled
+def _check_tree(pages, data, analysis):
+    """Every page fits a journal page with 8-point text and no overlap; each tip is on
+    exactly one page, in drawing order, in contiguous blocks; every node bar is on a page."""
+    labels, shown = [], set()
+    for name, fig in pages.items():
+        assert overlaps(fig) == [] and size_problems(fig) == [], name
+        ax = fig.axes[0]
+        tips = [t for t in ax.texts if t.get_text() in data.tree.tip_labels]
+        labels += [t.get_text() for t in sorted(tips, key=lambda t: t.get_position()[1])]
+        shown |= fig.mkforest_nodes_shown
+    order = [data.tree.tip_labels[v] for v in tips_in_drawing_order(data.tree)]
+    assert labels == order  # every tip once, pages top to bottom
+    first = pages[""]
     n_internal = data.tree.n_nodes - data.tree.n_tips
     # nearly every node carries its bar; any left out are counted in the legend
-    assert fig.mkforest_nodes_drawn + fig.mkforest_bars_left_out == n_internal
-    assert fig.mkforest_bars_left_out <= 0.05 * n_internal
-    legend = [t.get_text() for t in ax.get_legend().get_texts()]
-    if fig.mkforest_bars_left_out:
-        assert any(t.startswith(f"{fig.mkforest_bars_left_out} node bars left out") for t in legend)
+    assert len(shown) == first.mkforest_nodes_drawn
+    assert first.mkforest_nodes_drawn + first.mkforest_bars_left_out == n_internal
+    assert first.mkforest_bars_left_out <= 0.05 * n_internal
+    legend = [t.get_text() for t in first.axes[0].get_legend().get_texts()]
+    if first.mkforest_bars_left_out:
+        assert any(
+            t.startswith(f"{first.mkforest_bars_left_out} node bars left out") for t in legend
+        )
     return legend
 
 
 @pytest.mark.parametrize("analysis", ["habitat", "size", "shell_pattern"])
 def test_ancestral_trees_demo(analysis, demo, tmp_path):
-    fig, ordered = _tree(demo, analysis)
-    legend = _check_tree(fig, demo, analysis)
+    pages, ordered = _tree(demo, analysis)
+    legend = _check_tree(pages, demo, analysis)
     assert ordered == (analysis == "size")  # stepwise model: ordered states
     if analysis in demo.pairs:
         pair = demo.pairs[analysis]
         assert {s.replace("+", " + ") for s in pair.states} <= set(legend)
-        tip_marks = [p for p in fig.axes[0].patches if p.get_x() > demo.tree.depths().max()]
+        tip_marks = [
+            p
+            for fig in pages.values()
+            for p in fig.axes[0].patches
+            if p.get_x() > demo.tree.depths().max()
+        ]
         assert len(tip_marks) >= demo.tree.n_tips  # pair trees show tip states
     else:
         assert "tip: state unknown" in legend  # both traits have unknown cells
     if analysis == "habitat":  # and habitat ambiguous ones
         assert "tip: several states possible" in legend
-    written(fig, tmp_path, f"tree_{analysis}")
+    written(pages[""], tmp_path, f"tree_{analysis}")
 
 
 def test_ancestral_tree_300_tips(big, tmp_path):
-    """300 tips, 4 states: labels stay 7-point on 0.2-inch rows, nothing overlaps."""
-    fig, ordered = _tree(big, "substrate")
+    """300 tips, 4 states: cut into pages within a journal page (was one figure of 60
+    inches), 8-point labels, nothing overlaps, each page a block of tips."""
+    pages, ordered = _tree(big, "substrate")
     assert not ordered
-    _check_tree(fig, big, "substrate")
-    assert fig.get_size_inches()[1] >= 300 * plots_ancestral.ROW
-    written(fig, tmp_path, "tree_substrate")
+    _check_tree(pages, big, "substrate")
+    assert len(pages) == 10  # 30 tips a page
+    assert list(pages)[1:3] == [".part2", ".part3"]
+    titles = [f.axes[0].get_title(loc="left") for f in pages.values()]
+    assert "tips 1-30 of 300" in titles[0] and "tips 271-300 of 300" in titles[-1]
+    written(pages[".part2"], tmp_path, "tree_substrate")
+
+
+def test_a_tree_that_fits_is_one_page(demo):
+    """A tree of few tips is one page, without a page line in its title."""
+    tree = parse_newick("((a:1,b:1):1,(c:1.5,d:0.5):0.5);")
+    assert plots_ancestral.page_rows(tree, 3) == [(0, 4)]
+    assert plots_ancestral.page_rows(demo.tree, 3) == [(0, 30), (30, 60), (60, 90)]
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("analysis", ["depth", "shell", "substrate_shell"])
 def test_ancestral_trees_300_tips_others(analysis, big, tmp_path):
-    fig, ordered = _tree(big, analysis)
+    pages, ordered = _tree(big, analysis)
     assert ordered == (analysis == "depth")
-    _check_tree(fig, big, analysis)
-    written(fig, tmp_path, f"tree_{analysis}")
+    _check_tree(pages, big, analysis)
+    written(pages[""], tmp_path, f"tree_{analysis}")
 
 
 def test_a_figure_of_one_set_among_several_names_it(demo):

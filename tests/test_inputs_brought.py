@@ -22,7 +22,7 @@ from conftest import random_newick
 from workflow_helpers import run_snakemake
 
 from mkforest.data.traits import combined_states
-from mkforest.data.trees import NO_LENGTHS_FIX, read_trees
+from mkforest.data.trees import NO_LENGTHS_FIX, read_trees, tree_file_features
 from mkforest.errors import InputError
 from mkforest.jobs.analyses import check_config
 from mkforest.starter import starting_config, survey_trees
@@ -388,6 +388,58 @@ def test_init_says_which_file_features_it_met(tmp_path):
         "labels on internal nodes, such as support values (ignored)",
     ):
         assert feature in words, feature
+
+
+@pytest.mark.parametrize(
+    "shape,expected",
+    [
+        ("sampler_unrooted_translate", {"translate_table", "rooting_tags", "quoted_names"}),
+        ("consensus_with_comments", {"rooting_tags", "node_comments", "quoted_names"}),
+        ("bootstrap_with_lengths", {"internal_labels", "quoted_names"}),
+        ("time_trees_with_rates", {"rooting_tags", "node_comments", "quoted_names"}),
+    ],
+)
+def test_tree_file_features_of_the_catalogue_shapes(tmp_path, shape, expected):
+    """Issue 21, item 4: what each catalogue shape holds besides its trees, and nothing
+    else: braces, quotes and parentheses inside comments ('prob(percent)="100"') are no
+    internal node label. What the files hold is known from how catalogue_inputs writes
+    them."""
+    from catalogue_inputs import SHAPES
+
+    writer, name, _ = SHAPES[shape]
+    text = writer(tmp_path / name).read_text()
+    assert {item for item, _ in tree_file_features(text)} == expected
+    assert tree_file_features("((a:1,b:1):1,c:2);\n") == []
+
+
+def test_data_check_says_which_tree_file_features_were_met(tmp_path):
+    """Issue 21, item 4: data_check.tsv has a row per feature of the tree file and what was
+    done (support values and comments ignored). Red before: no such rows (only init said it)."""
+    (tmp_path / "data").mkdir()
+    trees = chain_file(tmp_path / "data" / "chain.nex", n_trees=3)
+    trees.write_text(trees.read_text().replace("):", ")95:", 1))
+    trait_table(tmp_path / "data" / "traits.csv")
+    cfg = tmp_path / "config.yaml"
+    cfg.write_text(
+        yaml.safe_dump(
+            {
+                "run": "f",
+                "trees": {"file": "data/chain.nex", "per_job": 10, "burnin": 1},
+                "traits": {"file": "data/traits.csv", "columns": ["shell"]},
+                "models": {"one": {"kind": "equal"}},
+                "ancestral": {"enabled": False},
+            }
+        )
+    )
+    proc = run_snakemake(tmp_path, cfg, "results/f/tables/data_check.tsv", cores=1)
+    assert proc.returncode == 0, (proc.stdout + proc.stderr)[-3000:]
+    check = pd.read_csv(tmp_path / "results/f/tables/data_check.tsv", sep="\t")
+    rows = check[check["trait"] == "(trees)"].set_index("item")["detail"]
+    assert "translate table" in rows["file_translate_table"]
+    assert "[&R]" in rows["file_rooting_tags"]
+    assert "(ignored)" in rows["file_node_comments"]
+    assert "support values (ignored)" in rows["file_internal_labels"]
+    assert "quoted names" in rows["file_quoted_names"]
 
 
 # --------------------------------------------------------------------------- item 8

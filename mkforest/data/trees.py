@@ -14,6 +14,7 @@ from __future__ import annotations
 import dataclasses
 import io
 import json
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -188,6 +189,33 @@ def looks_like_chain_start(lengths) -> str:
     if body.max() - body.min() <= 1e-9 * body.max():
         return f"every branch has the same length ({body[0]:g})"
     return ""
+
+
+# What a tree file may hold besides the trees: (data-check item, words) for each.
+_COMMENT = re.compile(r"\[[^\]]*\]")
+# a label right after a closing parenthesis (comments removed first): a support value or name
+_INTERNAL_LABEL = re.compile(r"\)[ \t]*(?:'[^']*'|[^\s:,;()\[\]']+)")
+
+
+def tree_file_features(text: str) -> list:
+    """[(item, words)]: the features of a tree file's text that a reader meets besides the
+    trees (a translate table, rooting tags, comments, internal node labels, quoted names)
+    and what is done with each, for ``mkforest init``'s comments and the data check."""
+    out = []
+    if re.search(r"(?im)^\s*translate\b", text):
+        out.append(("translate_table", "a translate table (numbers for taxon names)"))
+    tags = sorted({t.upper() for t in re.findall(r"\[&([RrUu])\]", text)})
+    if tags:
+        out.append(("rooting_tags", "rooting tags " + " and ".join(f"[&{t}]" for t in tags)))
+    if re.search(r"\[&(?![RrUu]\])", text):
+        out.append(("node_comments", "comments on nodes or trees such as [&...] (ignored)"))
+    if re.search(r"'[^']*'", text):
+        out.append(("quoted_names", "quoted names"))
+    if _INTERNAL_LABEL.search(_COMMENT.sub("", text)):
+        out.append(
+            ("internal_labels", "labels on internal nodes, such as support values (ignored)")
+        )
+    return out
 
 
 def looks_unrooted(tree) -> bool:

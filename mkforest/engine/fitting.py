@@ -6,7 +6,15 @@ expected changes along a root-to-tip path). Starts are tried one after another
 in a fixed seeded order (the first at a parsimony-based guess, the others
 random points around it): at least ``n_starts`` (and at least as many as the
 model has free rates, up to 5), then more, up to ``max_starts``, while the two
-best disagree. The fit is called converged when
+best disagree. Before it accepts two agreeing starts, each rate that the best
+optimum holds at zero (within ``ZERO_MARGIN`` log-units of the lower bound) is
+lifted back, one at a time, to its value at the first start, and one descent runs
+from there: two starts can agree on an optimum where one set of rates is zero
+while the best optimum sets another set to zero (a 9-tip tree given three times
+gave three optima; benchmarks/agreement.py). A lift that finds a better optimum
+joins the starts (the starts then go on until the two best agree again), one that
+does not is dropped, so the reported ln L is never lower than without the lifts.
+The fit is called converged when
 at least two starts reach the best log-likelihood within ``AGREE_TOL``. A start
 that comes within ``SAME_X`` (every coordinate) and ``SAME_F`` (ln L) of an
 earlier start's optimum stops there: it has reached a known optimum, and
@@ -38,6 +46,7 @@ from .search import (
     MIN_STARTS,
     RATE_STARTS,
     UPPER,
+    ZERO_MARGIN,
 )
 from .treatment_search import TreatmentSpace
 
@@ -301,7 +310,7 @@ def fit_model(
     max_starts = max(max_starts, n_starts)
     least = min_starts(model.n_params, n_starts, max_starts)
     space, starts, bounds, objective, value = _search_space(f, treatment, starts, seed, lo, hi)
-    results = _run_starts(space, starts, objective, bounds, least, max_starts)
+    results = _run_starts(space, starts, objective, bounds, least, max_starts, p, len(first_starts))
     run = len(results)
     best_fun, best_x = min(results, key=lambda r: r[0])
     ll = -best_fun if best_fun < IMPOSSIBLE_OBJECTIVE else -np.inf
@@ -405,20 +414,61 @@ def _search_space(f, treatment, starts, seed, lo, hi):
     return None, starts, bounds, objective, value
 
 
-def _run_starts(space, starts, objective, bounds, least, max_starts) -> list:
+def _run_starts(space, starts, objective, bounds, least, max_starts, n_rates, n_given=0) -> list:
     """(objective, x) of each start run, in order, until the two best agree (after
-    ``least`` starts) or ``max_starts`` have run; with a treatment the first start's
-    rates are first brought near their optimum (``TreatmentSpace.rates_first``)."""
+    ``least`` starts) and lifting the best optimum's zero rates finds nothing better
+    (``_release_zeros``; a lift that does joins the list), or ``max_starts`` have run;
+    with a treatment the first start's rates are first brought near their optimum
+    (``TreatmentSpace.rates_first``). n_rates: the leading coordinates that are log-rates;
+    n_given: starts given before the seeded ones (a zero rate is lifted to its value at the
+    first seeded start, the parsimony-based guess)."""
     results = []
+    probed = set()
+    first = None
     for x0 in starts:
         if space is not None and not results:
             x0 = space.rates_first(x0, bounds[: space.p])
+        if len(results) == n_given:
+            first = x0
         results.append(descend(objective, x0, bounds, known=results))
         if len(results) >= max_starts:
             break
         if len(results) >= least and _best_two_agree(results):
-            break
+            if not RELEASE_ZEROS:
+                break
+            found = _release_zeros(objective, results, bounds, n_rates, first, probed)
+            if found is None:
+                break
+            results.append(found)
+            if len(results) >= max_starts:
+                break
     return results
+
+
+# False: accept two agreeing starts without lifting the best optimum's zero rates
+# (benchmarks/agreement.py compares the two).
+RELEASE_ZEROS = True
+
+
+def _release_zeros(objective, results, all_bounds, n_rates, first, probed):
+    """(objective, x) of a better optimum found by lifting, one at a time, each rate of
+    the best optimum that sits at its lower bound back to its value at the first start
+    and descending from there; None when no such descent ends more than AGREE_TOL
+    above the best. ``probed`` holds the optima already tried (each is tried once)."""
+    best_f, best_x = min(results, key=lambda r: r[0])
+    key = best_x.tobytes()
+    if first is None or key in probed:  # no seeded start run yet: nothing to lift to
+        return None
+    probed.add(key)
+    for i, (lo, _) in enumerate(all_bounds[:n_rates]):
+        if best_x[i] > lo + ZERO_MARGIN or first[i] <= lo + ZERO_MARGIN:
+            continue
+        x0 = best_x.copy()
+        x0[i] = first[i]
+        f, x = descend(objective, x0, all_bounds, known=results)
+        if f < best_f - AGREE_TOL:
+            return f, x
+    return None
 
 
 def _settle(f, value, best_x, ll, bounds, rate_box, p, q):

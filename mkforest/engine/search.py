@@ -21,3 +21,7 @@ RATE_STARTS = 5
 # optimiser's: log-rates, and a branch value in its own unit; and ln L) stops there.
 SAME_X = 1e-2
 SAME_F = 1e-3
+# Before two agreeing starts are accepted, each rate of the best optimum within this many
+# log-units of the lower bound (effectively zero) is lifted back to its first-start value
+# and descended from once (fitting._release_zeros; benchmarks/agreement.py).
+ZERO_MARGIN = 2.0

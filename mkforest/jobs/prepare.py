@@ -163,8 +163,9 @@ def impossible_tips(tree: TreeArrays, trait) -> list:
 
 def tree_check_rows(summary: dict, used: list, tree_set: str = "") -> list:
     """data_check rows about one tree set (trait '(trees)'): trees in the file, dropped as
-    burn-in, used, whether mkforest re-rooted them (``trees.root``), and per tree the tips
-    on zero-length branches. Every row names its ``tree_set``."""
+    burn-in, used, whether mkforest re-rooted them (``trees.root``), the file's features and
+    what was done with them (``trees.tree_file_features``: items ``file_translate_table``
+    ...), and per tree the tips on zero-length branches. Every row names its ``tree_set``."""
     rows = [
         dict(trait="(trees)", item="trees_in_file", value=summary["n_in_file"], detail=""),
         dict(trait="(trees)", item="dropped_as_burnin", value=summary["burnin_dropped"], detail=""),
@@ -176,6 +177,8 @@ def tree_check_rows(summary: dict, used: list, tree_set: str = "") -> list:
             detail=summary.get("rooting", ""),
         ),
     ]
+    for item, words in summary.get("file_features", []):
+        rows.append(dict(trait="(trees)", item=f"file_{item}", value=1, detail=words))
     if summary.get("without_lengths"):
         rows.append(
             dict(

@@ -38,11 +38,16 @@ UNKNOWN_HATCH = "////"
 
 # Sizes in inches: the tree is laid out on a known canvas so that bars and labels
 # can be placed where they collide with nothing already drawn.
-ROW = 0.2  # height of one tip row (300 tips: 60 inches, 7-point labels legible)
+ROW = 0.2  # height of one tip row: a tree of many tips is cut into pages (state_tree_pages)
 BAR_W, BAR_H = 0.34, 0.11
 TIP_W = 0.11
-FONT_TIP, FONT_FREQ = 7.0, 6.0
-LEGEND_W = 2.6
+FONT_TIP = FONT_FREQ = style.BODY_TEXT
+TOP = 0.95  # inches above the tips: the title (up to four lines, a fifth naming the tree set)
+AXIS_H = 0.55  # inches below the tips: the distance axis and its label
+LEGEND_LINE = 0.19  # inches per line of the legend (8-point text and its spacing)
+# rows of a page beyond its tips, each side: a node midway between two pages is drawn whole
+# on both, the next page's tips stay out
+EDGE = 0.4
 # tips within this share of the tree height of the farthest count as ending together: a
 # time tree (a summary tree of averaged lengths is ultrametric only to rounding)
 TIME_TREE_TOL = 1e-3
@@ -105,11 +110,13 @@ def _text_size(text: str, points: float):
     return 0.62 * len(text) * points / 72 + 0.02, 1.3 * points / 72
 
 
-def _draw_tips(ax, tree, trait, colours, x, y, span, per_in, inch, occupied, branch_boxes):
+def _draw_tips(ax, tree, trait, colours, x, y, span, per_in, inch, occupied, branch_boxes, rows):
     """Tip marks (the observed state, the possible ones side by side, hatching for unknown
-    or absent), labels, and dotted leaders from tips that end short of the label column.
+    or absent), labels, and dotted leaders from tips that end short of the label column;
+    drawn for the tips of rows (lo, hi), every tip's place kept in occupied.
     Returns (an unknown tip drawn, an ambiguous tip drawn)."""
     n = tree.n_tips
+    lo, hi = rows
     # tips: a mark of the observed state(s), then the label; a tip that ends short of the
     # label column is joined to it by a dotted leader (a guide text may not sit on)
     tip_row = {t: i for i, t in enumerate(trait.taxa)} if trait is not None else {}
@@ -118,7 +125,7 @@ def _draw_tips(ax, tree, trait, colours, x, y, span, per_in, inch, occupied, bra
     if short:
         ax.add_collection(
             LineCollection(
-                [[(x[v], y[v]), (tip_x, y[v])] for v in short],
+                [[(x[v], y[v]), (tip_x, y[v])] for v in short if lo <= y[v] < hi],
                 colors="#9a9a9a",
                 linewidths=0.6,
                 linestyles=(0, (1, 2)),
@@ -135,6 +142,8 @@ def _draw_tips(ax, tree, trait, colours, x, y, span, per_in, inch, occupied, bra
         occupied.add(
             [xi, yi - ROW * 0.4, xi + TIP_W + 0.04 + _text_size(label, FONT_TIP)[0], yi + ROW * 0.4]
         )
+        if not lo <= y[v] < hi:
+            continue
         ax.text(tip_x + (TIP_W + 0.05) * per_in, y[v], label, va="center", fontsize=FONT_TIP)
         if trait is None:
             continue
@@ -172,10 +181,11 @@ def _draw_tips(ax, tree, trait, colours, x, y, span, per_in, inch, occupied, bra
     return unknown, ambiguous
 
 
-def _write_frequencies(ax, tree, order, placed, y, per_in, x_lo, inch, occupied):
-    """Each clade frequency below 1 beside its bar, where it touches nothing.
-    Returns (written, left out)."""
+def _write_frequencies(ax, tree, order, placed, y, per_in, x_lo, inch, occupied, rows):
+    """Each clade frequency below 1 beside its bar, where it touches nothing; written when
+    it falls within the page's rows (lo, hi). Returns (written, left out)."""
     n = tree.n_tips
+    lo, hi = rows
     n_freq = n_hidden = 0
     for v in order:
         if v not in placed or v == tree.root:
@@ -202,6 +212,13 @@ def _write_frequencies(ax, tree, order, placed, y, per_in, x_lo, inch, occupied)
             if occupied.free(box, pad=0.015):
                 occupied.add(box)
                 yt = n - 0.5 - (y0 + (0 if va == "bottom" else th)) / ROW
+                y_far = yt - th / ROW if va == "bottom" else yt + th / ROW
+                page = lo - 0.5 - EDGE, hi - 0.5 + EDGE
+                if not (
+                    lo - 0.5 <= y[v] <= hi - 0.5
+                    and page[0] <= min(yt, y_far) <= max(yt, y_far) <= page[1]
+                ):
+                    break  # on another page (a frequency near a page's edge: clades.tsv)
                 ax.text(
                     x_lo + (x0 + tw / 2) * per_in,
                     yt,
@@ -219,9 +236,25 @@ def _write_frequencies(ax, tree, order, placed, y, per_in, x_lo, inch, occupied)
     return n_freq, n_hidden
 
 
-def _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting):
+def _label_width(tree) -> float:
+    longest = max((len(t) for t in tree.tip_labels), default=1)
+    return _text_size("M" * longest, FONT_TIP)[0] * 0.85
+
+
+def _legend_lines(names) -> int:
+    """Lines of text in the taller of the legend's two columns (matplotlib splits the
+    entries as numpy.array_split does), with its title."""
+    return 1 + max(sum(t.count("\n") + 1 for t in col) for col in np.array_split(names, 2))
+
+
+def _legend_height(legend) -> float:
+    return LEGEND_LINE * _legend_lines([t.get_text() for t in legend.get_texts()]) + 0.1
+
+
+def _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting, part=None):
     """Distances from the root, or time before present on a time tree; the title with the
-    number of trees, the summary tree and the rooting."""
+    number of trees, the summary tree and the rooting; part: (lo, hi, n), the tips of a
+    page."""
     ax.set_yticks([])
     for side in ("left", "right", "top"):
         ax.spines[side].set_visible(False)
@@ -247,8 +280,14 @@ def _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting):
         f"(up to {n_trees} tree{'' if n_trees == 1 else 's'})"
         + (f"\ndrawn on the {drawn_on}" if drawn_on else "")
     )
-    roots = f"; trees rooted {rooting}" if rooting else ""
-    ax.set_title((title or default) + roots, fontsize=10, loc="left")
+    roots = f"\ntrees rooted {rooting}" if rooting else ""
+    page = (
+        f"\ntips {part[0] + 1}-{part[1]} of {part[2]}, top to bottom (branches to other "
+        "tips run on to the pages before or after)"
+        if part
+        else ""
+    )
+    ax.set_title((title or default) + roots + page, fontsize=style.BODY_TEXT + 1, loc="left")
 
 
 def _legend(
@@ -264,8 +303,10 @@ def _legend(
     placed,
     by_members,
     sets,
+    legend_at,
 ):
-    """States, tip marks, clade frequencies and the node bars left out, in one legend.
+    """States, tip marks, clade frequencies and the node bars left out, in one legend of
+    two columns below the axis (legend_at: the axes' height in inches).
     Returns the number of node bars left out."""
     handles = [Patch(facecolor=colours[s], label=s.replace("+", " + ")) for s in labels]
     if trait is not None:
@@ -302,10 +343,11 @@ def _legend(
         names,
         title=legend_title,
         loc="upper left",
-        bbox_to_anchor=(1.0, 1.0),
+        bbox_to_anchor=(0.0, -AXIS_H / legend_at),
+        ncols=2,
         frameon=False,
-        fontsize=8,
-        title_fontsize=9,
+        fontsize=style.BODY_TEXT,
+        title_fontsize=style.BODY_TEXT + 1,
         alignment="left",
         handler_map={tuple: HandlerTuple(ndivide=None, pad=0)},
     )
@@ -323,6 +365,7 @@ def state_tree(
     title: str | None = None,
     legend_title: str | None = None,
     rooting: str = "",
+    rows: tuple | None = None,
 ):
     """Summary tree with mean ancestral state probabilities at its nodes.
 
@@ -341,6 +384,11 @@ def state_tree(
     to their mark by a dotted leader; a taxon absent from the trait table is hatched like
     an unknown cell; a time tree (every tip at the same distance from the root) gets an
     axis of time before present, in the trees' units.
+
+    rows: (lo, hi), a page of the tips lo..hi-1 in drawing order (top to bottom) with the
+    branches that reach them; branches running on to other pages are cut at the page's
+    edge. Bars and frequencies are placed on the whole tree first, so every page of one
+    tree places them alike. The figure is 7 inches wide (the legend below the tree).
     """
     labels = list(dict.fromkeys(states["state"].astype(str)))
     if trait is not None:
@@ -348,20 +396,19 @@ def state_tree(
     colours = colours or state_colours(labels, ordered)
     x, y, kids = _layout(tree)
     n = tree.n_tips
+    lo, hi = rows or (0, n)
     span = max(float(x.max()), 1e-12)
-    longest = max((len(t) for t in tree.tip_labels), default=1)
-    label_w = _text_size("M" * longest, FONT_TIP)[0] * 0.85
-    tree_w = 6.2
-    top, bottom = 0.55, 0.6
-    height = n * ROW + top + bottom
-    width = 0.35 + tree_w + 0.15 + TIP_W * 2 + label_w + LEGEND_W
-    fig = plt.figure(figsize=(width, height))
+    label_w = _label_width(tree)
+    width = style.FULL_WIDTH
+    tree_w = max(width - 0.3 - 0.4 - TIP_W * 2 - label_w - 0.1, 2.5)
     ax_w = tree_w + 0.3 + TIP_W * 2 + label_w + 0.1  # inches of the axes
-    ax = fig.add_axes((0.3 / width, bottom / height, ax_w / width, (n * ROW) / height))
+    ax_h = (hi - lo + 2 * EDGE) * ROW
+    fig = plt.figure(figsize=(width, ax_h + TOP + AXIS_H))  # the legend's height added below
+    ax = fig.add_axes((0, 0, 1, 1))
     per_in = span / tree_w
     x_lo = -0.25 * per_in
     ax.set_xlim(x_lo, x_lo + ax_w * per_in)
-    ax.set_ylim(n - 0.5, -0.5)
+    ax.set_ylim(hi - 0.5 + EDGE, lo - 0.5 - EDGE)
 
     def inch(xd, yd):
         return (xd - x_lo) / per_in, (n - 0.5 - yd) * ROW
@@ -381,7 +428,7 @@ def state_tree(
         branch_boxes.append([min(x0, x1), min(y0, y1) - 0.01, max(x0, x1), max(y0, y1) + 0.01])
 
     unknown, ambiguous = _draw_tips(
-        ax, tree, trait, colours, x, y, span, per_in, inch, occupied, branch_boxes
+        ax, tree, trait, colours, x, y, span, per_in, inch, occupied, branch_boxes, (lo, hi)
     )
 
     # node bars: mean probability of each state, stacked left to right
@@ -392,7 +439,7 @@ def state_tree(
     table = states.set_index(["clade", "state"])["mean_probability"]
     sets = node_clades(tree)
     full_w = BAR_W * per_in
-    placed = {}
+    placed, shown = {}, set()
     order = sorted(range(n, tree.n_nodes), key=lambda v: (x[v], y[v]))  # root side first
     for v in order:
         row = by_members.get(sets[v])
@@ -417,6 +464,9 @@ def state_tree(
         bar_w = w_in * per_in
         occupied.add(box)
         placed[v] = (centre, probs, row, bar_w)
+        if not lo - 0.5 <= y[v] <= hi - 0.5:
+            continue  # on another page
+        shown.add(v)
         left = centre - bar_w / 2
         hh = BAR_H / ROW
         if np.all(np.isfinite(probs)):
@@ -444,7 +494,9 @@ def state_tree(
             )
         )
     occupied.add(branch_boxes)
-    n_freq, n_hidden = _write_frequencies(ax, tree, order, placed, y, per_in, x_lo, inch, occupied)
+    n_freq, n_hidden = _write_frequencies(
+        ax, tree, order, placed, y, per_in, x_lo, inch, occupied, (lo, hi)
+    )
 
     left_out = _legend(
         ax,
@@ -459,12 +511,47 @@ def state_tree(
         placed,
         by_members,
         sets,
+        ax_h,
     )
-    _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting)
+    legend_h = _legend_height(ax.get_legend())
+    height = TOP + ax_h + AXIS_H + legend_h
+    fig.set_size_inches(width, height)
+    ax.set_position((0.3 / width, (AXIS_H + legend_h) / height, ax_w / width, ax_h / height))
+    part = (lo, hi, n) if rows and (lo, hi) != (0, n) else None
+    _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting, part)
+    fig.mkforest_nodes_shown = shown
     fig.mkforest_nodes_drawn = sum(np.all(np.isfinite(p[1])) for p in placed.values())
     fig.mkforest_bars_left_out = left_out
     fig.mkforest_frequencies = (n_freq, n_hidden)
     return fig
+
+
+def page_rows(tree, n_labels: int) -> list:
+    """(lo, hi) tip rows of each page of a state tree: as few pages as keep each within
+    ``style.FULL_HEIGHT`` (title, tips, axis, and a legend of n_labels states with every
+    note), the tips shared out evenly, in drawing order."""
+    names = ["x"] * (n_labels + 2) + ["x\nx\nx"] * 2  # states, tip marks, both notes
+    legend_h = LEGEND_LINE * _legend_lines(names) + 0.1
+    fit = int((style.FULL_HEIGHT - TOP - AXIS_H - legend_h) / ROW - 2 * EDGE)
+    n = tree.n_tips
+    pages = max(1, int(np.ceil(n / max(fit, 1))))
+    edges = np.linspace(0, n, pages + 1).round().astype(int)
+    return [(int(a), int(b)) for a, b in zip(edges[:-1], edges[1:])]
+
+
+def state_tree_pages(tree, states: pd.DataFrame, *args, **kwargs) -> dict:
+    """{page name: figure} of ``state_tree``: "" for the first page, ".part2", ... for the
+    next ones (a tree of more tips than a page holds, cut by tips in drawing order)."""
+    n_labels = len(kwargs.get("colours") or {}) or states["state"].nunique()
+    if len(args) > 1 and args[1] is not None:  # the trait
+        n_labels = max(n_labels, args[1].k)
+    rows = page_rows(tree, n_labels)
+    return {
+        "" if i == 0 else f".part{i + 1}": state_tree(
+            tree, states, *args, rows=r if len(rows) > 1 else None, **kwargs
+        )
+        for i, r in enumerate(rows)
+    }
 
 
 CLASS_PALETTE = "coolwarm"  # blue = slow, red = fast
@@ -502,7 +589,52 @@ def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str,
     )
 
 
-def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dict | None = None):
+CHANGE_ROW = 0.24  # inches per direction in change_counts (8-point labels)
+CHANGE_PANEL = 0.95  # inches per panel beyond its rows: title, axis and its label
+
+
+def _change_rows(d, pairs) -> dict:
+    """{analysis: directions drawn} (double changes of a pair left out)."""
+    double = [
+        a in pairs and style.is_double_change(f, t)
+        for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])
+    ]
+    d = d[~np.asarray(double, bool)]
+    return {
+        a: d.loc[d["analysis"] == a, ["from_state", "to_state"]].drop_duplicates().shape[0]
+        for a in dict.fromkeys(d["analysis"])
+    }
+
+
+def change_pages(per_tree: pd.DataFrame, pairs: dict | None = None, states: dict | None = None):
+    """{page name: figure} of ``change_counts``: "changes", "changes.part2", ...; the
+    analyses in order, as many on a page as fit within ``style.FULL_HEIGHT`` (the suptitle,
+    then each panel's rows and labels), so no page grows with the number of traits."""
+    rows = _change_rows(per_tree, pairs or {})
+    pages, height = [[]], 0.6
+    for a, n in rows.items():
+        h = CHANGE_ROW * n + CHANGE_PANEL
+        if pages[-1] and height + h > style.FULL_HEIGHT - 0.3:
+            pages.append([])
+            height = 0.6
+        pages[-1].append(a)
+        height += h
+    out = {}
+    for i, group in enumerate(pages):
+        part = (i + 1, len(pages)) if len(pages) > 1 else None
+        mine = per_tree[per_tree["analysis"].isin(group)]
+        out["changes" if i == 0 else f"changes.part{i + 1}"] = change_counts(
+            mine, pairs, states, part
+        )
+    return out
+
+
+def change_counts(
+    per_tree: pd.DataFrame,
+    pairs: dict | None = None,
+    states: dict | None = None,
+    part: tuple | None = None,
+):
     """Expected number of changes per direction across trees, one panel per analysis,
     one row per direction: a box of the trees' values (each tree: the mean over its
     maps) with the trees as points. Changes of both traits of a pair at once are
@@ -515,18 +647,16 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
         for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])
     ]
     d = d[~np.asarray(double, bool)]
-    analyses = list(dict.fromkeys(d["analysis"]))
-    n_rows = [
-        d.loc[d["analysis"] == a, ["from_state", "to_state"]].drop_duplicates().shape[0]
-        for a in analyses
-    ] or [1]
+    rows = _change_rows(per_tree, pairs)
+    analyses = list(rows)
+    n_rows = list(rows.values()) or [1]
     fig, axes = plt.subplots(
         len(n_rows),
         1,
         squeeze=False,
         layout="constrained",
-        figsize=(style.FULL_WIDTH, sum(0.3 * n + 0.9 for n in n_rows) + 0.6),
-        gridspec_kw={"height_ratios": [n + 1.2 for n in n_rows]},
+        figsize=(style.FULL_WIDTH, sum(CHANGE_ROW * n + CHANGE_PANEL for n in n_rows) + 0.6),
+        gridspec_kw={"height_ratios": [CHANGE_ROW * n + CHANGE_PANEL for n in n_rows]},
     )
     for ax, a in zip(axes.flat, analyses):
         g = d[d["analysis"] == a].copy()
@@ -585,7 +715,8 @@ def change_counts(per_tree: pd.DataFrame, pairs: dict | None = None, states: dic
         ax.grid(axis="x", color="#eeeeee", lw=0.6)
         ax.set_axisbelow(True)
     fig.suptitle(
-        "Stochastic maps: number of changes by direction across trees",
+        "Stochastic maps: number of changes by direction across trees"
+        + (f" (part {part[0]} of {part[1]})" if part else ""),
         fontsize=style.BODY_TEXT + 2,
     )
     return fig

@@ -94,23 +94,19 @@ rule plot_ancestral:
         tree=f"{OUT}/ancestral/summary_tree.nwk",
         traits=f"{OUT}/prepared/traits.json",
     output:
-        trees=[
-            figure(
-                p, caption="../report/ancestral_tree.rst", category="Ancestral states"
-            )
-            for p in ANCESTRAL_TREE_PLOTS
-        ],
+        trees=report(
+            directory(ANCESTRAL_TREE_PAGES),
+            patterns=["{name}.png"],
+            caption="../report/ancestral_tree.rst",
+            category="Ancestral states",
+        ),
         class_trees=[
             figure(p, caption="../report/class_tree.rst", category="Ancestral states")
             for p in CLASS_TREE_PLOTS
         ],
-        changes_png=figure(
-            f"{OUT}/plots/changes.png",
-            caption="../report/changes.rst",
-            category="Ancestral states",
-        ),
-        changes_svg=figure(
-            f"{OUT}/plots/changes.svg",
+        changes=report(
+            directory(CHANGE_PAGES),
+            patterns=["{name}.png"],
             caption="../report/changes.rst",
             category="Ancestral states",
         ),

@@ -42,9 +42,13 @@ def ancestral_runtime(wildcards, attempt):
     return 10 + 5 * attempt * max(1, trees_per_job() // 100)
 
 
-ANCESTRAL_TREE_PLOTS = [
-    f"{OUT}/plots/ancestral_tree_{a}.{ext}" for a in ANALYSES for ext in ("png", "svg")
-]
+# Ancestral state trees: "<analysis>.png" and ".svg" per analysis, a tree of more tips
+# than a page holds in pages ("<analysis>.part2.png", ...), in one folder: their number
+# follows the summary tree's tips.
+ANCESTRAL_TREE_PAGES = f"{OUT}/plots/ancestral_trees"
+# Change counts: "changes.png" and ".svg", as many analyses a page as fit, then
+# "changes.part2.png", ...: their number follows the traits.
+CHANGE_PAGES = f"{OUT}/plots/changes"
 
 
 # {analysis: [models with hidden rate classes]}: one class tree per analysis x such model
@@ -67,10 +71,8 @@ def ancestral_targets(wildcards):
             f"{OUT}/tables/state_times.tsv",
             f"{OUT}/tables/clades.tsv",
             f"{OUT}/tables/ancestral_classes.tsv",
-            f"{OUT}/plots/changes.png",
-            f"{OUT}/plots/changes.svg",
         ]
-        + ANCESTRAL_TREE_PLOTS
+        + [ANCESTRAL_TREE_PAGES, CHANGE_PAGES]
         + CLASS_TREE_PLOTS
     )
 

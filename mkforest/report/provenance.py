@@ -370,7 +370,10 @@ def verify_run_folder(run_dir, against=None) -> Check:
             continue
         for f in base.iterdir():
             rel = (PurePosixPath(folder) / f.name).as_posix()
-            if f.is_file() and rel != MANIFEST and not f.name.endswith(".part"):
+            # hidden files are no results (Snakemake marks a folder output with
+            # .snakemake_timestamp; the manifest lists a folder's files without them)
+            hidden = f.name.startswith(".")
+            if f.is_file() and rel != MANIFEST and not f.name.endswith(".part") and not hidden:
                 present[rel] = sha256_file(f)
     _compare(check, expected, present)
     if against:

@@ -345,6 +345,7 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame | None = None) -> p
         else False
     )
     per_model["impossible"] = impossible_flags(rates).to_numpy()
+    models_alone = averaged is None  # no model-average rows, not even impossible ones
     if averaged is None:
         averaged = per_model.iloc[:0][
             _keys(rates, "analysis", "model", "tree", "from_state", "to_state", "rate")
@@ -356,7 +357,8 @@ def rate_summary(rates: pd.DataFrame, averaged: pd.DataFrame | None = None) -> p
     avg["lower"] = False
     avg["at_upper"] = False
     avg["impossible"] = False
-    both = pd.concat([per_model, avg, _impossible_averages(per_model, avg)], ignore_index=True)
+    parts = [per_model] if models_alone else [per_model, avg, _impossible_averages(per_model, avg)]
+    both = pd.concat(parts, ignore_index=True)
     rows = []
     for key, g in both.groupby(
         _keys(both, "analysis", "model", "from_state", "to_state"), sort=False

@@ -6,6 +6,8 @@ Each function returns a matplotlib Figure, so tests can read its labels;
 
 from __future__ import annotations
 
+import textwrap
+
 import matplotlib
 
 matplotlib.use("Agg")
@@ -318,8 +320,8 @@ def rates_across_trees(
             loc="left",
             fontweight="bold",
         )
-        ax.set_title(
-            style.impossible_note(rates[rates["analysis"] == a], models),
+        ax.set_title(  # wrapped to the right half, clear of the analysis's name
+            textwrap.fill(style.impossible_note(rates[rates["analysis"] == a], models), 64),
             fontsize=style.BODY_TEXT,
             loc="right",
             color=style.BOUND_COLOUR,

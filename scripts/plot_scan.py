@@ -16,11 +16,14 @@ from mkforest.report.plots_scan import scan_matrix
 
 def main(smk):
     summary = pd.read_csv(smk.input.summary, sep="\t", keep_default_na=False, na_values=["", "nan"])
-    summary = first_set(summary)  # the figure shows the first tree set
+    sets = [t for t in dict.fromkeys(summary.get("tree_set", pd.Series(dtype=str))) if t]
+    summary = first_set(summary)  # the figure shows the first tree set, and names it
     alt = figure_alternative(summary)
     mine = summary[summary["alternative"] == alt]
     n_trees = int(mine["n_trees"].max()) if len(mine) else 0
     note = f"; independent against {alt}, {n_trees} tree{'' if n_trees == 1 else 's'}"
+    if len(sets) > 1:
+        note += f" of set '{sets[0]}' (the other sets: tables/scan.tsv)"
     style.save(scan_matrix(mine, smk.params.columns, note), [smk.output.png, smk.output.svg])
 
 

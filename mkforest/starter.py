@@ -133,6 +133,10 @@ def _read_table(path: Path) -> tuple:
         delimiter = "\t" if line.count("\t") >= max(1, line.count(",")) else ","
         fh.seek(0)
         rows = [r for r in csv.reader(fh, delimiter=delimiter) if any(x.strip() for x in r)]
+    if not rows:  # e.g. a line of bare delimiters
+        raise InputError(
+            f"trait table '{path}' has no cell with text; line 1 must name the columns."
+        )
     return [h.strip() for h in rows[0]], rows[1:]
 
 

@@ -610,6 +610,10 @@ def _rerun_config(config: dict, packed_inputs: dict) -> str:
             for k in keys[:-1]:
                 node = node[k]
             node[keys[-1]] = packed_inputs[role]
+    if isinstance(cfg.get("scan"), dict) and "traits" not in cfg["scan"]:
+        # no scan was asked for: the block holds only its defaults, and the schema asks
+        # a scan block for its traits, so the rerun config leaves it out
+        del cfg["scan"]
     head = (
         "# The resolved configuration of this run (defaults filled in), with its input\n"
         "# files read from inputs/. See README.txt to run it again.\n"

@@ -79,3 +79,35 @@ def test_tree_sets_in_one_sentence_and_every_sets_result():
     assert line.startswith("On tree set 'molecular' (4 trees), stretched received the most")
     assert "mean Akaike weight 0.99; lowest AICc on 4 of 4 trees" in line
     assert other_sets_lines("glow", support[support["tree_set"] == "dated"], "AICc") == []
+
+
+def test_pair_hypotheses_are_worded_in_one_place():
+    """Each built-in pair hypothesis's words live in report/words.HYPOTHESIS_WORDS; the
+    methods models section and the scan paragraph say the same thing (they used to keep
+    their own wordings, and the scan's 'dependent' differed from the models section's)."""
+    from pathlib import Path
+
+    from mkforest.engine.models import HYPOTHESES
+    from mkforest.report.methods_scan import scan_paragraph
+    from mkforest.report.words import HYPOTHESIS_WORDS, hypothesis_structure
+
+    assert set(HYPOTHESIS_WORDS) == set(HYPOTHESES)
+    report = Path(methods.__file__).parents[1]
+    holders = [
+        p.relative_to(report).as_posix()
+        for p in report.rglob("*.py")
+        if "depend on the state of" in p.read_text() and p.name != "words.py"
+    ]
+    assert holders == [], f"pair hypotheses worded outside words.py, in {holders}"
+    config = {
+        "scan": {
+            "alternatives": ["dependent", "first_depends_on_second"],
+            "joint_states": 4,
+            "traits": "all",
+            "level": 0.05,
+            "hidden_classes": 1,
+        }
+    }
+    text = scan_paragraph(config, pd.DataFrame({"trait_1": ["a"], "trait_2": ["b"]}))
+    for alt in config["scan"]["alternatives"]:
+        assert hypothesis_structure(alt, "the first trait", "the second") in text

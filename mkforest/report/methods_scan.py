@@ -6,6 +6,7 @@ import pandas as pd
 
 from ..engine.summarise import as_text
 from .citations import cite
+from .words import hypothesis_structure
 
 SHOWN = 10  # pairs named in the results text; the rest are in the table
 
@@ -22,11 +23,6 @@ def scan_paragraph(config: dict, summary: pd.DataFrame | None) -> str:
         sorted(set(summary["trait_1"]) | set(summary["trait_2"])) if summary is not None else []
     )
     n_pairs = len(summary[["trait_1", "trait_2"]].drop_duplicates()) if summary is not None else 0
-    alt_words = {
-        "dependent": "every change of each trait has its own rate in each state of the other",
-        "first_depends_on_second": "the first trait's rates depend on the second's state",
-        "second_depends_on_first": "the second trait's rates depend on the first's state",
-    }
     text = (
         f"Every pair of {_words(len(traits), 'trait')} ({n_pairs} pairs"
         + (
@@ -37,7 +33,9 @@ def scan_paragraph(config: dict, summary: pd.DataFrame | None) -> str:
         )
         + " was tested on each tree for correlated evolution: the hypothesis that the two "
         f"traits change independently {cite('pagel1994')} against "
-        + "; and against ".join(f"{a} ({alt_words[a]})" for a in alts)
+        + "; and against ".join(
+            f"{a} ({hypothesis_structure(a, 'the first trait', 'the second')})" for a in alts
+        )
         + ". The independent hypothesis's maximum log-likelihood is the sum of the two "
         "traits' separate unconstrained fits, so each trait was fitted once per tree; each "
         "alternative was fitted with the independent optimum among its starts. Twice the "

@@ -9,15 +9,38 @@ from __future__ import annotations
 
 from ..engine.models import FIXED, KIND_TABLE
 
+# Each built-in hypothesis of a pair, once: (short words for figures and the brief, its rate
+# structure for the methods text). {a} and {b} are the pair's first and second trait.
+HYPOTHESIS_WORDS = {
+    "independent": (
+        "{a} and {b} change independently",
+        "{a} and {b} each change at their own rates, whatever the state of the other",
+    ),
+    "dependent": (
+        "changes in each of {a} and {b} depend on the other",
+        "the rates of {a} depend on the state of {b} and vice versa",
+    ),
+    "first_depends_on_second": (
+        "changes in {a} depend on {b}",
+        "the rates of {a} depend on the state of {b}; those of {b} do not",
+    ),
+    "second_depends_on_first": (
+        "changes in {b} depend on {a}",
+        "the rates of {b} depend on the state of {a}; those of {a} do not",
+    ),
+}
+
 
 def hypothesis_words(name: str, kind: str, first: str, second: str) -> str:
     """'changes in banding depend on aperture' for a built-in hypothesis of a pair."""
-    return {
-        "independent": f"{first} and {second} change independently",
-        "dependent": f"changes in each of {first} and {second} depend on the other",
-        "first_depends_on_second": f"changes in {first} depend on {second}",
-        "second_depends_on_first": f"changes in {second} depend on {first}",
-    }.get(kind, f"'{name}' (custom: only the changes listed)")
+    if kind not in HYPOTHESIS_WORDS:
+        return f"'{name}' (custom: only the changes listed)"
+    return HYPOTHESIS_WORDS[kind][0].format(a=first, b=second)
+
+
+def hypothesis_structure(kind: str, first: str, second: str) -> str:
+    """A built-in hypothesis's rate structure in the words of a methods section."""
+    return HYPOTHESIS_WORDS[kind][1].format(a=first, b=second)
 
 
 def allowed_changes(model) -> list:

@@ -6,6 +6,7 @@ from ...engine.models import HYPOTHESES, KIND_TABLE
 from ...engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X
 from ...engine.summarise import as_text
 from ..citations import REFERENCES, cite
+from ..words import hypothesis_structure
 from .numbers import listing, plural
 
 CRITERION_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
@@ -23,15 +24,7 @@ def describe_model(model, pair_traits=None) -> str:
     """Plain-words structure of one candidate model, with its number of rates."""
     if pair_traits and model.kind in HYPOTHESES:
         first, second = pair_traits
-        words = {
-            "independent": f"{first} and {second} each change at their own rates, whatever the "
-            "state of the other",
-            "dependent": f"the rates of {first} depend on the state of {second} and vice versa",
-            "first_depends_on_second": f"the rates of {first} depend on the state of {second}; "
-            f"those of {second} do not",
-            "second_depends_on_first": f"the rates of {second} depend on the state of {first}; "
-            f"those of {first} do not",
-        }[model.kind]
+        words = hypothesis_structure(model.kind, first, second)
     elif model.kind in KIND_TABLE and KIND_TABLE[model.kind].words:
         words = KIND_TABLE[model.kind].words
     elif model.n_classes > 1:

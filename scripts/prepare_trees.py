@@ -34,7 +34,9 @@ def main(smk):
     out.mkdir(parents=True, exist_ok=True)
     rows, sets, firsts, summary, layout = [], {}, {}, None, None
     c = 0
-    for name, cfg in smk.params.tree_sets.items():
+    order = smk.params.get("tree_set_order") or list(smk.params.tree_sets)
+    for name in order:  # the config's order, not the sorted keys of the params
+        cfg = smk.params.tree_sets[name]
         source = f"tree file '{cfg['file']}'" + (
             f" (tree set '{name}')" if len(smk.params.tree_sets) > 1 else ""
         )

@@ -315,3 +315,31 @@ def test_tree_sets_with_other_taxa_are_named(tmp_path):
     assert proc.returncode != 0
     log = (tmp_path / "results" / "tiny" / "logs" / "prepare_trees.log").read_text()
     assert "tree set 'other'" in log and "Lumasta_stranger" in log and "same tips" in log
+
+
+def test_the_first_tree_set_is_the_configs_first(tmp_path):
+    """The first set named in the config is the one whose facts head summary.json (the
+    methods text's) and whose chunks come first, as FIRST_SET and the figures assume;
+    here the config's order ('molecular', 'dated') is not the sorted order."""
+    import json
+
+    import yaml
+
+    cfg = tiny_config(tmp_path)
+    config = yaml.safe_load(cfg.read_text())
+    del config["trees"]
+    data = tmp_path / "data"
+    config["tree_sets"] = {
+        "molecular": {"file": str(data / "trees_molecular.nex"), "burnin": 2, "per_job": 3},
+        "dated": {"file": str(data / "trees.nex"), "burnin": 1, "per_job": 3},
+    }
+    cfg.write_text(yaml.safe_dump(config, sort_keys=False))
+    proc = run_snakemake(tmp_path, cfg, "results/tiny/tables/trees_used.tsv")
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    folder = tmp_path / "results" / "tiny" / "prepared" / "trees"
+    summary = json.loads((folder / "summary.json").read_text())
+    assert summary["burnin_dropped"] == 2  # molecular's, not dated's 1
+    assert list(summary["sets"]) == ["molecular", "dated"]
+    assert json.loads((folder / "sets.json").read_text())["molecular"][0] == "0000"
+    used = pd.read_csv(tmp_path / "results" / "tiny" / "tables" / "trees_used.tsv", sep="\t")
+    assert used["tree_set"].iloc[0] == "molecular"

@@ -21,6 +21,8 @@ checkpoint prepare_trees:
         fits_per_tree=sum(len(models) for models in ANALYSES.values()),
     params:
         tree_sets=stable(TREE_SETS),
+        # the config's order: the first set is the one the methods text and figures describe
+        tree_set_order=list(TREE_SETS),
         seed=config["seed"],
         # trees written without lengths are read with one unit per branch only when
         # every fit uses branches: unit

@@ -21,6 +21,7 @@ from matplotlib.colors import to_hex, to_rgb  # noqa: E402
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
 from PIL import Image  # noqa: E402  (installed with matplotlib)
 
+from ..data.traits import written_text  # noqa: E402
 from ..engine.summarise import as_text, impossible_flags, rate_summary  # noqa: E402
 
 # Okabe & Ito (2008), in an order where neighbours differ most; yellow last (faint
@@ -213,6 +214,27 @@ def name_tree_set(fig, tree_set: str) -> None:
     elif fig.axes:
         ax = fig.axes[0]
         ax.set_title(ax.get_title(loc="left") + f"\n{note}", loc="left", fontsize=BODY_TEXT + 2)
+
+
+def show_written_names(fig, names: dict) -> None:
+    """Write each trait's header as written in the trait table (``Leaf shape``) wherever the
+    figure's text holds the name it is analysed under (``Leaf_shape``): titles, axis
+    labels, tick labels, legends and notes (``data.traits.written_text``; file names keep
+    the analysed name). Called on every figure before it is saved."""
+    if not any(a != w for a, w in names.items()):
+        return
+    from matplotlib.text import Text
+    from matplotlib.ticker import FixedFormatter
+
+    for ax in fig.axes:  # tick labels are drawn again from their formatter: change it there
+        for axis in (ax.xaxis, ax.yaxis):
+            for fmt in (axis.get_major_formatter(), axis.get_minor_formatter()):
+                if isinstance(fmt, FixedFormatter):
+                    fmt.seq = [written_text(str(t), names) for t in fmt.seq]
+    for text in fig.findobj(Text):
+        new = written_text(text.get_text(), names)
+        if new != text.get_text():
+            text.set_text(new)
 
 
 def rate_text(x, precision: float = PRECISION) -> str:

@@ -120,6 +120,8 @@ def test_written_text_keeps_file_names_and_config_keys():
         "Figure: plots/rates_across_trees/Leaf_shape.png; key traits.order.Leaf_shape; "
         "Leaf_shapes and my_Leaf_shape are other words."
     )
+    # a plain-word safe name (header 'wet?') may be a state label too: left as it is
+    assert written_text("wet → dry (wet)", {"wet": "wet?"}) == "wet → dry (wet)"
 
 
 def test_with_written_names_places_each_column_after_its_own():

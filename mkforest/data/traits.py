@@ -376,8 +376,10 @@ def with_written_names(frame, names: dict):
 def written_text(text: str, names: dict) -> str:
     """``text`` with every whole-word use of a renamed trait's analysed name replaced by
     its header as written. A name inside a path or file name (``/Leaf_shape.png``) or a
-    config key (``traits.order.Leaf_shape``) is kept: those hold the analysed name."""
-    changed = {a: w for a, w in names.items() if a != w}
+    config key (``traits.order.Leaf_shape``) is kept: those hold the analysed name. So is a
+    name without '_' (``wet`` for ``wet?``): it differs from the header only by the
+    characters stripped at its ends, and as a plain word it may also be a state label."""
+    changed = {a: w for a, w in names.items() if a != w and "_" in a}
     if not changed or not text:
         return text
     edge = r"A-Za-z0-9_./\\-"

@@ -368,8 +368,9 @@ def with_written_names(frame, names: dict):
     for col in NAME_COLUMNS:
         if col in out.columns and f"{col}_as_written" not in out.columns:
             at = list(out.columns).index(col) + 1
-            values = [names.get(str(v), v) if v == v else v for v in out[col]]  # NaN kept
-            out.insert(at, f"{col}_as_written", values)
+            given = out[col]
+            written = given.map(names)  # a hash look-up per row; no match: NaN
+            out.insert(at, f"{col}_as_written", written.where(written.notna(), given))
     return out
 
 

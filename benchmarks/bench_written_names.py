@@ -7,10 +7,10 @@ space, and a fits-shaped table of ``--rows`` rows naming them.
 
     python benchmarks/bench_written_names.py [--taxa 10000] [--traits 50] [--rows 1000000]
 
-Measured (2 shared cores under load, wall time, best of 3; two runs): 10,000 taxa × 50
-traits (traits.json 9.9 MB): written_names 1.2 and 1.4 s (the jobs that already read
-traits.json paid this before); 1,000,000 rows: with_written_names 0.26 s (a per-row
-Python loop took 2.9 s; pandas' lazy copy of the table 0.001 s).
+Measured (2 shared cores under load, wall time): 10,000 taxa × 50 traits (traits.json
+9.9 MB): written_names 1.4 s best of 3 (1.2 s in an earlier single timing; the jobs that
+already read traits.json paid this before); 1,000,000 rows: with_written_names 0.26 s
+best of 3 (a per-row Python loop took 2.9 s; pandas' lazy copy of the table 0.001 s).
 """
 
 from __future__ import annotations

@@ -9,6 +9,7 @@ import logging
 
 import pandas as pd
 
+from mkforest.data.traits import with_written_names, written_names
 from mkforest.engine.branch_support import branch_tests, treatment_support, tree_set_support
 from mkforest.engine.summarise import (
     add_weights,
@@ -48,19 +49,20 @@ def main(smk):
     )
     support = model_support(fits)
     averaged = averaged_rates(fits, rates)
-    fits.to_csv(smk.output.fits, sep="\t", index=False, float_format="%.10g")
-    rates.to_csv(smk.output.rates, sep="\t", index=False, float_format="%.10g")
-    support.to_csv(smk.output.support, sep="\t", index=False, float_format="%.10g")
-    averaged.to_csv(smk.output.averaged, sep="\t", index=False, float_format="%.10g")
-    rate_summary(rates, averaged).to_csv(
-        smk.output.rate_summary, sep="\t", index=False, float_format="%.10g"
-    )
     tests, test_summary = branch_tests(fits)
-    write = dict(sep="\t", index=False, float_format="%.10g")
-    treatment_support(fits).to_csv(smk.output.treatments, **write)
-    tests.to_csv(smk.output.branch_tests, **write)
-    test_summary.to_csv(smk.output.branch_test_summary, **write)
-    tree_set_support(fits, smk.params.criterion).to_csv(smk.output.tree_sets, **write)
+    names = written_names(smk.input.traits)
+    for table, path in (
+        (fits, smk.output.fits),
+        (rates, smk.output.rates),
+        (support, smk.output.support),
+        (averaged, smk.output.averaged),
+        (rate_summary(rates, averaged), smk.output.rate_summary),
+        (treatment_support(fits), smk.output.treatments),
+        (tests, smk.output.branch_tests),
+        (test_summary, smk.output.branch_test_summary),
+        (tree_set_support(fits, smk.params.criterion), smk.output.tree_sets),
+    ):
+        with_written_names(table, names).to_csv(path, sep="\t", index=False, float_format="%.10g")
     for row in support.to_dict("records"):
         if row["caution"]:
             log.warning(

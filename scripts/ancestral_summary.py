@@ -7,6 +7,7 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import pandas as pd
 
+from mkforest.data.traits import with_written_names, written_names
 from mkforest.jobs.ancestral import (
     clades_in_set,
     class_table,
@@ -43,11 +44,16 @@ def main(smk):
             ):
                 frame.append(table.assign(tree_set=ts)[["tree_set", *table.columns]])
     out = smk.output
-    pd.concat(states).to_csv(out.states, sep="\t", index=False, float_format="%.6g")
-    pd.concat(trans).to_csv(out.transitions, sep="\t", index=False, float_format="%.6g")
-    pd.concat(times).to_csv(out.times, sep="\t", index=False, float_format="%.6g")
-    pd.concat(per_tree).to_csv(out.per_tree, sep="\t", index=False, float_format="%.6g")
-    pd.concat(classes).to_csv(out.classes, sep="\t", index=False, float_format="%.6g")
+    names = written_names(smk.input.traits)
+    for frames, path in (
+        (states, out.states),
+        (trans, out.transitions),
+        (times, out.times),
+        (per_tree, out.per_tree),
+        (classes, out.classes),
+    ):
+        table = with_written_names(pd.concat(frames), names)
+        table.to_csv(path, sep="\t", index=False, float_format="%.6g")
 
 
 run_job(snakemake, main)  # noqa: F821

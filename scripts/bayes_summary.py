@@ -5,6 +5,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
+from mkforest.data.traits import written_names
 from mkforest.jobs.bayes import write_summary
 from mkforest.jobs.scripting import run_job
 
@@ -18,6 +19,7 @@ def main(smk):
         pairs=smk.params.pairs,
         settings=smk.params.settings,
         out=smk.output,
+        names=written_names(smk.input.traits),
     )
 
 

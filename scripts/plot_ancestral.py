@@ -9,7 +9,7 @@ import json
 
 import pandas as pd
 
-from mkforest.data.traits import traits_from_json
+from mkforest.data.traits import traits_from_json, written_names
 from mkforest.data.trees import describe_rooting, parse_newick
 from mkforest.jobs.analyses import analysis_setup
 from mkforest.jobs.scripting import run_job
@@ -27,6 +27,7 @@ def main(smk):
     states, per_tree = first_set(states), first_set(per_tree)
     tree = parse_newick(Path(smk.input.tree).read_text().strip(), rooted=True)
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
+    names = written_names(smk.input.traits)
     setup = smk.params.setup
     pairs = {name: spec["traits"] for name, spec in setup["pairs"].items()}
     orders = {}
@@ -49,12 +50,14 @@ def main(smk):
         )
         for suffix, fig in pages.items():
             style.name_tree_set(fig, named)
+            style.show_written_names(fig, names)
             name = f"{analysis}{suffix}"
             plots_ancestral.save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
     pages = Path(out.changes)  # as many analyses a page as fit
     pages.mkdir(parents=True, exist_ok=True)
     for name, fig in plots_ancestral.change_pages(per_tree, pairs, orders).items():
         style.name_tree_set(fig, named)
+        style.show_written_names(fig, names)
         plots_ancestral.save(fig, [pages / f"{name}.png", pages / f"{name}.svg"])
     classes = first_set(
         pd.read_csv(
@@ -70,6 +73,7 @@ def main(smk):
             rows = classes[(classes["analysis"] == analysis) & (classes["model"] == model)]
             fig = plots_ancestral.class_tree(tree, rows, clades, analysis, model)
             style.name_tree_set(fig, named)
+            style.show_written_names(fig, names)
             plots_ancestral.save(
                 fig,
                 [p for p in out.class_trees if Path(p).stem == f"class_tree_{analysis}_{model}"],

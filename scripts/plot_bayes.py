@@ -5,6 +5,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
+from mkforest.data.traits import written_names
 from mkforest.jobs.bayes import pooled_from_file, read_table
 from mkforest.jobs.scripting import run_job
 from mkforest.report import plots_bayes, style
@@ -28,6 +29,7 @@ def main(smk):
         fig = plots_bayes.model_probabilities(
             read_table(smk.input.marginal), read_table(smk.input.support), smk.params.models
         )
+    style.show_written_names(fig, written_names(smk.input.traits))
     style.save(fig, out)
 
 

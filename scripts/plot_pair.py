@@ -10,7 +10,7 @@ import json
 
 import pandas as pd
 
-from mkforest.data.traits import traits_from_json
+from mkforest.data.traits import traits_from_json, written_names
 from mkforest.engine.pairs import pair_from_config, pair_models
 from mkforest.jobs.scripting import run_job
 from mkforest.report import style
@@ -56,6 +56,7 @@ def main(smk):
         (pair_tests_figure(name, tests, boot), [out.tests_png, out.tests_svg]),
     ):
         style.name_tree_set(fig, named)
+        style.show_written_names(fig, written_names(smk.input.traits))
         save(fig, paths)
 
 

@@ -7,6 +7,7 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import pandas as pd
 
+from mkforest.data.traits import written_names
 from mkforest.jobs.scan import figure_alternative
 from mkforest.jobs.scripting import run_job
 from mkforest.report import style
@@ -24,7 +25,9 @@ def main(smk):
     note = f"; independent against {alt}, {n_trees} tree{'' if n_trees == 1 else 's'}"
     if len(sets) > 1:
         note += f" of set '{sets[0]}' (the other sets: tables/scan.tsv)"
-    style.save(scan_matrix(mine, smk.params.columns, note), [smk.output.png, smk.output.svg])
+    fig = scan_matrix(mine, smk.params.columns, note)
+    style.show_written_names(fig, written_names(smk.input.traits))
+    style.save(fig, [smk.output.png, smk.output.svg])
 
 
 run_job(snakemake, main)  # noqa: F821

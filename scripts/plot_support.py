@@ -9,9 +9,9 @@ import json
 
 import pandas as pd
 
-from mkforest.data.traits import traits_from_json
+from mkforest.data.traits import traits_from_json, written_names
 from mkforest.jobs.scripting import run_job
-from mkforest.report import plots
+from mkforest.report import plots, style
 from mkforest.report.methods_branches import first_set
 
 
@@ -38,13 +38,19 @@ def main(smk):
     for pair, (first, second) in smk.params.pairs.items():  # joint states, first slowest
         states[pair] = [f"{a}+{b}" for a in states.get(first, []) for b in states.get(second, [])]
     out = smk.output
+    names = written_names(smk.input.traits)
+
+    def save(fig, paths):
+        style.show_written_names(fig, names)
+        plots.save(fig, paths)
+
     # the heatmap shows every tree set's support; the other figures the first set's, named
     # in their titles (plot_branches compares the sets)
-    plots.save(plots.support_heatmap(support), [out.support_heatmap_png, out.support_heatmap_svg])
+    save(plots.support_heatmap(support), [out.support_heatmap_png, out.support_heatmap_svg])
     sets = list(dict.fromkeys(fits["tree_set"])) if "tree_set" in fits else []
     named = sets[0] if len(sets) > 1 else ""
     fits, rates, support = first_set(fits), first_set(rates), first_set(support)
-    plots.save(
+    save(
         plots.support_weights(fits, smk.params.criterion, tree_set=named),
         [out.support_weights_png, out.support_weights_svg],
     )
@@ -52,7 +58,7 @@ def main(smk):
     folder.mkdir(parents=True, exist_ok=True)
     pages = plots.rate_pages(rates, support, smk.params.pairs, states, tree_set=named)
     for name, fig in pages.items():
-        plots.save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
+        save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
 
 
 run_job(snakemake, main)  # noqa: F821

@@ -10,7 +10,13 @@ import logging
 
 import pandas as pd
 
-from mkforest.data.traits import column_of, read_traits, table_header, traits_to_json
+from mkforest.data.traits import (
+    column_of,
+    read_traits,
+    table_header,
+    traits_to_json,
+    with_written_names,
+)
 from mkforest.data.trees import load_trees
 from mkforest.errors import InputError
 from mkforest.jobs.prepare import (
@@ -77,9 +83,9 @@ def main(smk):
     tree_rows = [r for name, s in per_set.items() for r in tree_check_rows(s, s["trees"], name)]
     table_rows = spaced + renamed_columns + rows + combined
     rows = tree_rows + [dict(r, tree_set="") for r in table_rows] + impossible
-    pd.DataFrame(rows, columns=COLUMNS).astype({"tree": "Int64"}).to_csv(
-        smk.output.check, sep="\t", index=False
-    )
+    check = pd.DataFrame(rows, columns=COLUMNS).astype({"tree": "Int64"})
+    names = {name: t.written for name, t in traits.items()}
+    with_written_names(check, names).to_csv(smk.output.check, sep="\t", index=False)
     for r in rows:
         if r["item"] == "taxa_in_table_only" and r["value"]:
             log.warning(

@@ -7,7 +7,7 @@ sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
 
 import json
 
-from mkforest.data.traits import traits_from_json
+from mkforest.data.traits import traits_from_json, written_names, written_text
 from mkforest.jobs.analyses import analysis_setup
 from mkforest.jobs.scripting import run_job
 from mkforest.report.methods import methods_text, read_tables, table_name
@@ -26,7 +26,7 @@ def main(smk):
         }
     )
     text = methods_text(config, read_tables(paths), models, software_versions())
-    Path(smk.output[0]).write_text(text)
+    Path(smk.output[0]).write_text(written_text(text, written_names(smk.input.traits)))
 
 
 run_job(snakemake, main)  # noqa: F821

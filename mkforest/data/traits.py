@@ -24,12 +24,20 @@ class Trait:
 
     possible  bool [n_taxa, k]: True where the taxon may be in that state
               (a row of all True is missing data).
+    column    the table's header as written (``Leaf shape``) when the trait is analysed
+              under another, file-safe name (``Leaf_shape``); "" when they are the same.
     """
 
     name: str
     states: tuple
     taxa: tuple
     possible: np.ndarray
+    column: str = ""
+
+    @property
+    def written(self) -> str:
+        """The trait's name as written in the table's header."""
+        return self.column or self.name
 
     @property
     def k(self) -> int:
@@ -289,12 +297,13 @@ def read_traits(
     if not rows:
         raise InputError(f"trait table '{path}' has a header but no rows.")
     state_order = state_order or {}
-    return {
-        c: code_trait(
+    out = {}
+    for c in columns:
+        out[c] = code_trait(
             c, table[c], state_order.get(c), missing, separator, f"trait table '{path}'", rows
         )
-        for c in columns
-    }
+        out[c].column = source_of[c] if source_of[c] != c else ""
+    return out
 
 
 def check_variable(trait: Trait) -> None:
@@ -315,6 +324,7 @@ def traits_to_json(traits: dict) -> dict:
             "states": list(t.states),
             "taxa": list(t.taxa),
             "possible": t.possible.astype(int).tolist(),
+            "column": t.written,
         }
         for name, t in traits.items()
     }
@@ -327,6 +337,56 @@ def traits_from_json(data: dict) -> dict:
             tuple(d["states"]),
             tuple(d["taxa"]),
             np.array(d["possible"], dtype=bool).reshape(len(d["taxa"]), len(d["states"])),
+            "" if d.get("column", name) == name else d["column"],
         )
         for name, d in data.items()
     }
+
+
+# ------------------------------------------------------------------ names as written
+# A trait is analysed, and its files named, under its config name (``Leaf_shape``); every
+# table and figure also shows the header as written in the trait table (``Leaf shape``).
+
+NAME_COLUMNS = ("analysis", "trait", "trait_1", "trait_2")  # columns holding trait names
+
+
+def written_names(path) -> dict:
+    """{analysed name: header as written} for every trait of a prepared/traits.json (the
+    two are equal for a column whose header was already file-safe)."""
+    import json
+
+    data = json.loads(Path(path).read_text())
+    return {name: d.get("column", name) for name, d in data.items()}
+
+
+def with_written_names(frame, names: dict):
+    """The table with, right after each trait-name column it has (NAME_COLUMNS), a column
+    ``<column>_as_written`` holding the header as written (a pair's name, ``(trees)`` and
+    any other value that names no trait are kept as they are). The one way every results
+    table gets these columns."""
+    out = frame.copy()
+    for col in NAME_COLUMNS:
+        if col in out.columns and f"{col}_as_written" not in out.columns:
+            at = list(out.columns).index(col) + 1
+            given = out[col]
+            written = given.map(names)  # a hash look-up per row; no match: NaN
+            out.insert(at, f"{col}_as_written", written.where(written.notna(), given))
+    return out
+
+
+def written_text(text: str, names: dict) -> str:
+    """``text`` with every whole-word use of a renamed trait's analysed name replaced by
+    its header as written. A name inside a path or file name (``/Leaf_shape.png``) or a
+    config key (``traits.order.Leaf_shape``) is kept: those hold the analysed name. So is a
+    name without '_' (``wet`` for ``wet?``): it differs from the header only by the
+    characters stripped at its ends, and as a plain word it may also be a state label."""
+    changed = {a: w for a, w in names.items() if a != w and "_" in a}
+    if not changed or not text:
+        return text
+    edge = r"A-Za-z0-9_./\\-"
+    pattern = re.compile(
+        rf"(?<![{edge}])("
+        + "|".join(re.escape(a) for a in sorted(changed, key=len, reverse=True))
+        + r")(?![A-Za-z0-9_/\\-]|\.[A-Za-z0-9])"
+    )
+    return pattern.sub(lambda m: changed[m.group(1)], text)

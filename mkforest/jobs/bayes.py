@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..data.traits import with_written_names
 from ..engine.bayes import ESS_MIN, R_HAT_MAX  # the package top imports no sampler
 from ..engine.treatments import Treatment
 from ..seeds import derive_seed
@@ -513,8 +514,11 @@ def read_rows(paths: list, columns: list):
     return out
 
 
-def write_summary(rates, mls, draws, analyses: dict, pairs, settings: dict, out) -> None:
-    """Every Bayesian table and the draws files (one per analysis, in ``analyses`` order)."""
+def write_summary(
+    rates, mls, draws, analyses: dict, pairs, settings: dict, out, names: dict | None = None
+) -> None:
+    """Every Bayesian table and the draws files (one per analysis, in ``analyses`` order);
+    names: {analysed name: header as written} for the tables' ``_as_written`` columns."""
     rate_table = read_rows(rates, POSTERIOR_COLUMNS)
     ml = read_rows(mls, ML_COLUMNS)
     parts: dict = {}
@@ -525,10 +529,14 @@ def write_summary(rates, mls, draws, analyses: dict, pairs, settings: dict, out)
         parts.setdefault(key, []).append(part)
     kept = {key: merge_kept(v) for key, v in parts.items()}
     ml_table = marginal_table(ml, set(pairs))
-    rate_table.to_csv(out.posterior_rates, sep="\t", index=False)
-    ml_table.to_csv(out.marginal, sep="\t", index=False)
-    summary_table(rate_table, ml_table, kept).to_csv(out.summary, sep="\t", index=False)
-    support_table(ml_table, analyses).to_csv(out.support, sep="\t", index=False)
+    names = names or {}
+    for table, path in (
+        (rate_table, out.posterior_rates),
+        (ml_table, out.marginal),
+        (summary_table(rate_table, ml_table, kept), out.summary),
+        (support_table(ml_table, analyses), out.support),
+    ):
+        with_written_names(table, names).to_csv(path, sep="\t", index=False)
     for analysis, path in zip(analyses, out.draws):
         data = draws_dataset(kept, analysis, analyses[analysis], settings)
         data.to_netcdf(path)

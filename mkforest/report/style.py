@@ -18,9 +18,15 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 from matplotlib import colormaps  # noqa: E402
 from matplotlib.colors import to_hex, to_rgb  # noqa: E402
-from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
+from matplotlib.ticker import (  # noqa: E402
+    Formatter,
+    FuncFormatter,
+    LogLocator,
+    NullFormatter,
+)
 from PIL import Image  # noqa: E402  (installed with matplotlib)
 
+from ..data.traits import written_text  # noqa: E402
 from ..engine.summarise import as_text, impossible_flags, rate_summary  # noqa: E402
 
 # Okabe & Ito (2008), in an order where neighbours differ most; yellow last (faint
@@ -213,6 +219,53 @@ def name_tree_set(fig, tree_set: str) -> None:
     elif fig.axes:
         ax = fig.axes[0]
         ax.set_title(ax.get_title(loc="left") + f"\n{note}", loc="left", fontsize=BODY_TEXT + 2)
+
+
+class _WrittenTicks(Formatter):
+    """A tick formatter that writes its labels through ``written_text`` (tick labels are
+    made again at every draw from their formatter, so their text is changed there)."""
+
+    def __init__(self, inner, names: dict):
+        self.inner, self.names = inner, names
+
+    def __call__(self, x, pos=None):
+        return written_text(self.inner(x, pos), self.names)
+
+    def format_ticks(self, values):
+        return [written_text(t, self.names) for t in self.inner.format_ticks(values)]
+
+    def set_locs(self, locs):
+        self.inner.set_locs(locs)
+
+    def get_offset(self):
+        return self.inner.get_offset()
+
+    def set_axis(self, axis):
+        super().set_axis(axis)
+        self.inner.set_axis(axis)
+
+
+def show_written_names(fig, names: dict) -> None:
+    """Write each trait's header as written in the trait table (``Leaf shape``) wherever the
+    figure's text holds the name it is analysed under (``Leaf_shape``): titles, axis
+    labels, tick labels, legends and notes (``data.traits.written_text``; file names keep
+    the analysed name). Called on every figure before it is saved."""
+    if not any(a != w for a, w in names.items()):
+        return
+    from matplotlib.text import Text
+
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            for fmt, setter in (
+                (axis.get_major_formatter(), axis.set_major_formatter),
+                (axis.get_minor_formatter(), axis.set_minor_formatter),
+            ):
+                if not isinstance(fmt, _WrittenTicks):
+                    setter(_WrittenTicks(fmt, names))
+    for text in fig.findobj(Text):
+        new = written_text(text.get_text(), names)
+        if new != text.get_text():
+            text.set_text(new)
 
 
 def rate_text(x, precision: float = PRECISION) -> str:

@@ -5,6 +5,7 @@ rule aggregate_fits:
     input:
         fits=fit_files("fits"),
         rates=fit_files("rates"),
+        traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
         fits=f"{OUT}/tables/fits.tsv",  # on disk; its summary is in the report
         rates=f"{OUT}/tables/rates.tsv",  # on disk; its summary is in the report

@@ -57,6 +57,7 @@ rule ancestral_summary:
         chunks=ancestral_chunk_files,
         clades=f"{OUT}/tables/clades.tsv",
         used=f"{OUT}/tables/trees_used.tsv",
+        traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
         states=f"{OUT}/tables/ancestral_states.tsv",  # on disk; its summary is in the report
         transitions=report(

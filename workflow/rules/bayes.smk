@@ -38,6 +38,7 @@ rule bayes_summary:
         rates=bayes_files("rates.tsv"),
         ml=bayes_files("ml.tsv"),
         draws=bayes_files("draws.npz"),
+        traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
         posterior_rates=f"{OUT}/tables/posterior_rates.tsv",  # on disk; summarised below
         summary=report(
@@ -73,6 +74,7 @@ rule plot_bayes_rates:
         rates=f"{OUT}/tables/posterior_rates.tsv",
         summary=f"{OUT}/tables/posterior_summary.tsv",
         draws=f"{OUT}/posterior/{{analysis}}.nc",
+        traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
         png=report(
             f"{OUT}/plots/bayes/{{analysis}}.posterior_rates.png",
@@ -98,6 +100,7 @@ rule plot_bayes_models:
     input:
         marginal=f"{OUT}/tables/marginal_likelihoods.tsv",
         support=f"{OUT}/tables/bayes_model_support.tsv",
+        traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
         png=report(
             f"{OUT}/plots/bayes/model_probabilities.png",

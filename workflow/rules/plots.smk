@@ -37,6 +37,7 @@ rule plot_support:
 rule plot_branches:
     input:
         fits=f"{OUT}/tables/fits.tsv",
+        traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
         png=report(
             f"{OUT}/plots/support_branches.png",

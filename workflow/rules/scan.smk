@@ -50,7 +50,8 @@ rule scan_pairs:
 
 rule scan_summary:
     input:
-        scan_pair_files,
+        pairs=scan_pair_files,
+        traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
         per_tree=f"{OUT}/tables/scan_per_tree.tsv",
         summary=report(
@@ -71,6 +72,7 @@ rule scan_summary:
 rule plot_scan:
     input:
         summary=f"{OUT}/tables/scan.tsv",
+        traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
         png=figure(
             f"{OUT}/plots/scan.png",

@@ -8,6 +8,7 @@ mkforest.report.plots.save writes it.
 from __future__ import annotations
 
 import itertools
+import textwrap
 
 import matplotlib
 
@@ -48,7 +49,10 @@ def _within_classes(rates: pd.DataFrame) -> pd.DataFrame:
         return rates
     keep = [a[2] == b[2] for a, b in zip(f, t)]
     out = rates[keep].copy()
-    out["model"] = [f"{m}, class {a[2]}" for m, a, k in zip(rates["model"], f, keep) if k]
+    # a hypothesis without classes beside one with them keeps its name
+    out["model"] = [
+        f"{m}, class {a[2]}" if a[2] else m for m, a, k in zip(rates["model"], f, keep) if k
+    ]
     out["from_state"] = [a[0] for a, k in zip(f, keep) if k]
     out["to_state"] = [b[0] for b, k in zip(t, keep) if k]
     return out
@@ -202,42 +206,93 @@ def _grid_cells(pair, model, stats):
         text[i, j] = style.rate_text(row["median_all"])
         n_bound = row["n_lower"] + row["n_upper"]
         if n_bound:
-            text[i, j] += f"\n{n_bound}/{row['n_trees']} bound"
+            text[i, j] += f"\n{n_bound}/{row['n_trees']}"
     return med, text, allowed, double
 
 
-def joint_rate_grid(
-    pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
-):
-    """One from-state x to-state grid of joint rates per hypothesis: each allowed
-    cell coloured and written with the median rate across trees of rate_summary.tsv
-    (trees at the lower bound included, those the data do not bound above left out;
-    both counted below the value); changes of both traits at once
-    cross-hatched; changes the hypothesis forbids in plain grey."""
-    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
-    hyps = _hypotheses(pair, r, support, models)
-    # the median of rate_summary.tsv (style.rate_intervals), as in rates_by_state
-    stats = style.rate_intervals(r[r["model"].isin(hyps)])
-    stats["median_all"] = stats["median"]
+GRID_CELL = 0.52  # inches a side: two lines of body text ("< 0.001", "12/100")
+CHAR_WIDTH = 0.062  # inches per character of body text (DejaVu Sans at 8 pt, a margin over)
+
+
+def _grid_scale(stats):
+    """One colour scale for every grid of a pair (every page), from the medians drawn."""
     positive = stats["median_all"].to_numpy(float)
     positive = positive[np.isfinite(positive) & (positive > 0)]
     lo, hi = (
         (max(positive.min(), style.PRECISION / 10), positive.max()) if positive.size else (0.1, 1)
     )
-    norm = LogNorm(vmin=lo, vmax=max(hi, lo * 10))
+    return LogNorm(vmin=lo, vmax=max(hi, lo * 10))
+
+
+def _grid_geometry(pair):
+    """(grid width, grid height) in inches of one hypothesis's grid with its labels."""
+    k = len(pair.states)
+    longest = max(len(s.replace("+", " + ")) for s in pair.states)
+    labels = longest * CHAR_WIDTH + 0.35  # tick labels and the axis label beside them
+    return labels + k * GRID_CELL, labels + k * GRID_CELL + 0.55  # + a three-line title
+
+
+GRID_FIXED = 1.2  # inches of a grid page outside the grids: suptitle, legend
+
+
+def joint_rate_pages(
+    pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
+) -> dict:
+    """{page name: figure} of ``joint_rate_grid``: "<pair>", "<pair>.part2", ...; as many
+    hypothesis grids on a page as fit within ``style.FULL_WIDTH`` x ``style.FULL_HEIGHT``
+    (a grid's size grows with the joint states, a page's number with the hypotheses), all
+    pages on one colour scale."""
+    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
+    hyps = _hypotheses(pair, r, support, models)
+    width, height = _grid_geometry(pair)
+    cols = max(1, int((style.FULL_WIDTH - 1.0) // width))
+    rows = max(1, int((style.FULL_HEIGHT - GRID_FIXED) // height))
+    per_page = cols * rows
+    groups = [hyps[i : i + per_page] for i in range(0, len(hyps), per_page)] or [[]]
+    out = {}
+    for i, group in enumerate(groups):
+        part = (i + 1, len(groups)) if len(groups) > 1 else None
+        name = pair.name if i == 0 else f"{pair.name}.part{i + 1}"
+        out[name] = joint_rate_grid(pair, rates, support, models, shown=group, part=part)
+    return out
+
+
+def joint_rate_grid(
+    pair,
+    rates: pd.DataFrame,
+    support: pd.DataFrame | None = None,
+    models: dict | None = None,
+    shown: list | None = None,
+    part: tuple | None = None,
+):
+    """One from-state x to-state grid of joint rates per hypothesis: each allowed
+    cell coloured and written with the median rate across trees of rate_summary.tsv
+    (trees at the lower bound included, those the data do not bound above left out;
+    both counted below the value, as "k/n"); changes of both traits at once
+    cross-hatched; changes the hypothesis forbids in plain grey. shown: the hypotheses
+    of this page (default all; ``joint_rate_pages`` cuts them into pages), part: (i, n)
+    of a pair cut into pages. The colour scale spans every hypothesis, on every page."""
+    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
+    hyps = _hypotheses(pair, r, support, models)
+    # the median of rate_summary.tsv (style.rate_intervals), as in rates_by_state
+    stats = style.rate_intervals(r[r["model"].isin(hyps)])
+    stats["median_all"] = stats["median"]
+    norm = _grid_scale(stats)
+    lo = norm.vmin
+    if shown is not None:
+        hyps = [h for h in hyps if h in shown]
     cmap = colormaps[style.ORDERED_MAP]
     k = len(pair.states)
     n = max(len(hyps), 1)
-    cols = min(n, 2)
+    width, height = _grid_geometry(pair)
+    cols = max(1, min(n, int((style.FULL_WIDTH - 1.0) // width)))
     rows_n = int(np.ceil(n / cols))
-    cell = 0.62
-    size = k * cell + 1.4
     fig, axes = plt.subplots(
         rows_n,
         cols,
         squeeze=False,
         layout="constrained",
-        figsize=(cols * size + 1.0, rows_n * (size + 0.5) + 1.3),
+        figsize=(min(cols * width + 1.0, style.FULL_WIDTH), rows_n * height + GRID_FIXED),
     )
     weights = _weights(pair, support)
     labels = [s.replace("+", " + ") for s in pair.states]
@@ -276,28 +331,27 @@ def joint_rate_grid(
                         text[i, j],
                         ha="center",
                         va="center",
-                        fontsize=6,
+                        fontsize=style.BODY_TEXT,
                         color=style.text_colour_on(rgba[i, j][:3]),
                         linespacing=1.1,
                     )
-        ax.set_xticks(range(k), labels, rotation=90, fontsize=7)
-        ax.set_yticks(range(k), labels, fontsize=7)
+        ax.set_xticks(range(k), labels, rotation=90, fontsize=style.BODY_TEXT)
+        ax.set_yticks(range(k), labels, fontsize=style.BODY_TEXT)
         ax.set_xticks(np.arange(-0.5, k), minor=True)
         ax.set_yticks(np.arange(-0.5, k), minor=True)
         ax.grid(which="minor", color="white", lw=1.0)
         ax.tick_params(which="both", length=0)
-        ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=7.5)
-        ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=7.5)
+        ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=style.BODY_TEXT)
+        ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=style.BODY_TEXT)
         label = _legend_label(h, models, pair, weights).split(": ", 1)
-        ax.set_title(
-            f"{label[0]}\n{label[1].replace(' (mean weight', chr(10) + '(mean weight')}", fontsize=8
-        )
+        words = textwrap.wrap(label[1], max(20, int(k * GRID_CELL / CHAR_WIDTH)))
+        ax.set_title("\n".join([label[0], *words]), fontsize=style.BODY_TEXT)
     for ax in list(axes.flat)[len(hyps) :]:
         ax.set_visible(False)
     sm = plt.cm.ScalarMappable(norm=norm, cmap=cmap)
-    bar = fig.colorbar(sm, ax=axes.ravel().tolist(), shrink=0.5, pad=0.02)
-    bar.set_label("median rate across trees", fontsize=7.5)
-    bar.ax.tick_params(labelsize=7)
+    bar = fig.colorbar(sm, ax=axes.ravel().tolist(), shrink=0.6, pad=0.02)
+    bar.set_label("median rate across trees", fontsize=style.BODY_TEXT)
+    bar.ax.tick_params(labelsize=style.BODY_TEXT)
     bar.set_ticks(
         style.log_ticks(norm.vmin, norm.vmax),
         labels=[style.plain_number(v) for v in style.log_ticks(norm.vmin, norm.vmax)],
@@ -315,18 +369,17 @@ def joint_rate_grid(
             [],
             [],
             ls="none",
-            label=f"values below {style.PRECISION:g} written "
-            f'"< {style.PRECISION:g}"; '
-            "'k/n bound': trees with the rate at a bound",
+            label=f'values below {style.PRECISION:g} written "< {style.PRECISION:g}"; '
+            "k/n under a value: k of n trees with the rate at a bound",
         ),
     ]
-    fig.legend(handles=handles, loc="outside lower center", ncol=1, fontsize=7, frameon=False)
-    fig.suptitle(
-        _with_impossible(
-            f"{pair.name}: joint-state rates, from (rows) to (columns)", pair, rates, support
-        ),
-        fontsize=10,
+    fig.legend(
+        handles=handles, loc="outside lower center", ncol=1, fontsize=style.BODY_TEXT, frameon=False
     )
+    title = f"{pair.name}: joint-state rates, from (rows) to (columns)"
+    if part:
+        title += f", page {part[0]} of {part[1]}"
+    fig.suptitle(_with_impossible(title, pair, rates, support), fontsize=style.BODY_TEXT + 2)
     return fig
 
 

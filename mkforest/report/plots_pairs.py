@@ -404,6 +404,8 @@ def joint_rate_grid(
         ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=style.BODY_TEXT)
         ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=style.BODY_TEXT)
         label = _legend_label(h, models, pair, weights).split(": ", 1)
+        # "(mean weight 0.43)" kept on one line (textwrap does not break at U+00A0)
+        label[1] = label[1].replace("(mean weight ", "(mean\u00a0weight\u00a0")
         words = textwrap.wrap(label[1], max(20, int(k * GRID_CELL / CHAR_WIDTH)))
         ax.set_title("\n".join([label[0], *words]), fontsize=style.BODY_TEXT)
     for ax in list(axes.flat)[len(hyps) :]:

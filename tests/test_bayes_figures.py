@@ -67,7 +67,7 @@ def posterior_tables(n_trees: int = 12, seed: int = 3):
 @pytest.mark.slow
 def test_posterior_rates_of_the_widest_pair_fit_pages(tmp_path):
     """Four hypotheses of a pair with eight joint states (56 rates in all): drawn
-    unpaged, the figure was 7.90 x 67.80 in."""
+    unpaged (the code before pages), the figure measured 7.90 x 117.80 in."""
     pair, pooled, per_tree, summary = posterior_tables()
     traits = (pair.first.name, pair.second.name)
     pages = plots_bayes.posterior_rate_pages(

@@ -139,3 +139,11 @@ def test_model_probabilities_fit_pages(n_analyses, tmp_path):
         assert "model_probabilities.part2" in pages
         assert "page 1 of" in pages["model_probabilities"].get_suptitle()
     style.save(pages["model_probabilities"], [tmp_path / "m.png", tmp_path / "m.svg"])
+
+
+def test_posterior_rates_without_draws_says_so():
+    pair, pooled, per_tree, summary = posterior_tables(n_trees=2)
+    pages = plots_bayes.posterior_rate_pages({}, per_tree, summary, HYPOTHESES, "empty")
+    fig = pages["empty"]
+    assert [t.get_text() for t in fig.axes[0].texts] == ["empty: no posterior draws saved"]
+    assert size_problems(fig) == []

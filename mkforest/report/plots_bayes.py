@@ -124,6 +124,11 @@ def posterior_rates(
     pieces = pieces or [(m, 0, len(p)) for m, p in every_param.items()]
     panels = [(m, every_param[m][a:b], a > 0) for m, a, b in pieces]
     colours = dict(zip(every_param, style.categorical(len(every_param))))
+    if not panels:  # no draws saved for this analysis: say so rather than fail
+        fig, ax = plt.subplots(figsize=(style.FULL_WIDTH, 2.0))
+        ax.axis("off")
+        ax.text(0.5, 0.5, f"{analysis}: no posterior draws saved", ha="center", va="center")
+        return fig
     heights = [max(1, len(names)) for _, names, _ in panels]
     fig, axes = plt.subplots(
         len(panels),

@@ -1,4 +1,5 @@
-"""Figures of the Bayesian stage: one analysis's rate posteriors, or model probabilities."""
+"""Figures of the Bayesian stage: every analysis's rate posteriors, and the model
+probabilities; a folder per kind, pages where a figure would not fit one."""
 
 import sys
 from pathlib import Path
@@ -11,26 +12,33 @@ from mkforest.jobs.scripting import run_job
 from mkforest.report import plots_bayes, style
 
 
+def write(pages: dict, folder, names: dict) -> None:
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, fig in pages.items():
+        style.show_written_names(fig, names)
+        style.save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
+
+
 def main(smk):
-    out = [smk.output.png, smk.output.svg]
-    if "draws" in smk.input.keys():
-        analysis = smk.wildcards.analysis
-        rates = read_table(smk.input.rates)
-        summary = read_table(smk.input.summary)
-        fig = plots_bayes.posterior_rates(
-            pooled_from_file(smk.input.draws),
+    names = written_names(smk.input.traits)
+    rates = read_table(smk.input.rates)
+    summary = read_table(smk.input.summary)
+    # one draws file per analysis, in the order of params.models
+    for analysis, draws in zip(smk.params.models, smk.input.draws):
+        pages = plots_bayes.posterior_rate_pages(
+            pooled_from_file(draws),
             rates[rates["analysis"] == analysis],
-            summary[(summary["analysis"] == analysis)],
-            smk.params.models,
+            summary[summary["analysis"] == analysis],
+            smk.params.models[analysis],
             analysis,
-            smk.params.pair_traits or None,
+            smk.params.pair_traits.get(analysis) or None,
         )
-    else:
-        fig = plots_bayes.model_probabilities(
-            read_table(smk.input.marginal), read_table(smk.input.support), smk.params.models
-        )
-    style.show_written_names(fig, written_names(smk.input.traits))
-    style.save(fig, out)
+        write(pages, smk.output.rates, names)
+    pages = plots_bayes.model_probability_pages(
+        read_table(smk.input.marginal), read_table(smk.input.support), smk.params.models
+    )
+    write(pages, smk.output.models, names)
 
 
 run_job(snakemake, main)  # noqa: F821

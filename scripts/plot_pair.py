@@ -1,5 +1,5 @@
-"""Figures of one trait pair: rates in each state of the other trait, joint-rate grid,
-tests across trees."""
+"""Figures of every trait pair: rates in each state of the other trait, joint-rate grid,
+tests across trees; one folder per kind, one figure (or its pages) per pair."""
 
 import sys
 from pathlib import Path
@@ -16,7 +16,7 @@ from mkforest.jobs.scripting import run_job
 from mkforest.report import style
 from mkforest.report.methods_branches import first_set
 from mkforest.report.plots import save
-from mkforest.report.plots_pairs import joint_rate_grid, pair_tests_figure, rates_by_state
+from mkforest.report.plots_pairs import joint_rate_pages, pair_test_pages, rates_by_state_pages
 
 TEXT = {
     "model": str,
@@ -29,12 +29,7 @@ TEXT = {
 
 
 def main(smk):
-    job = smk.params.job
-    name = job["pair"]
     traits = traits_from_json(json.loads(Path(smk.input.traits).read_text()))
-    spec = job["config"]["pairs"][name]
-    pair = pair_from_config(name, spec, traits)
-    models = {h: m for h, (m, _) in pair_models(name, spec, pair).items()}
     rates = pd.read_csv(
         smk.input.rates, sep="\t", dtype=TEXT, keep_default_na=False, na_values=["", "nan", "NaN"]
     )
@@ -46,18 +41,22 @@ def main(smk):
     # the figures show the first tree set, named in their titles (the tables carry every set)
     named = style.set_named(rates)
     rates, support, tests, boot = (first_set(t) for t in (rates, support, tests, boot))
-    out = smk.output
-    for fig, paths in (
-        (
-            rates_by_state(pair, rates, support, models),
-            [out.rates_by_state_png, out.rates_by_state_svg],
-        ),
-        (joint_rate_grid(pair, rates, support, models), [out.joint_rates_png, out.joint_rates_svg]),
-        (pair_tests_figure(name, tests, boot), [out.tests_png, out.tests_svg]),
-    ):
-        style.name_tree_set(fig, named)
-        style.show_written_names(fig, written_names(smk.input.traits))
-        save(fig, paths)
+    names = written_names(smk.input.traits)
+    folders = {kind: Path(smk.output[kind]) for kind in ("rates_by_state", "joint_rates", "tests")}
+    for folder in folders.values():
+        folder.mkdir(parents=True, exist_ok=True)
+    for name, spec in smk.params.pairs.items():
+        pair = pair_from_config(name, spec, traits)
+        models = {h: m for h, (m, _) in pair_models(name, spec, pair).items()}
+        for kind, pages in (
+            ("rates_by_state", rates_by_state_pages(pair, rates, support, models)),
+            ("joint_rates", joint_rate_pages(pair, rates, support, models)),
+            ("tests", pair_test_pages(name, tests, boot)),
+        ):
+            for page, fig in pages.items():
+                style.name_tree_set(fig, named)
+                style.show_written_names(fig, names)
+                save(fig, [folders[kind] / f"{page}.png", folders[kind] / f"{page}.svg"])
 
 
 run_job(snakemake, main)  # noqa: F821

@@ -377,3 +377,56 @@ def large(seed: int = 11, n_tips: int = 300) -> FigureData:
         same_as={("shell", "mirrored"): "one_rate"},
     )
     return _finish(rng, data)
+
+
+def widest_pair(data: FigureData, seed: int = 5) -> dict:
+    """The widest pair figures a run draws, from ``large()``'s 4 x 2 pair (eight joint
+    states): its four hypotheses and a fifth with two hidden rate classes (states
+    'joint@class', each class at its own rates, and switches between the classes), and
+    every test among the hypotheses (six), each with a parametric bootstrap."""
+    rng = np.random.default_rng(seed)
+    name, pair = next(iter(data.pairs.items()))
+    rates = data.tables["rates"]
+    dep = rates[(rates["analysis"] == name) & (rates["model"] == "dependent")]
+    extra = []
+    for c in (1, 2):
+        e = dep.copy()
+        e["model"] = "dependent_classes"
+        e["from_state"] = e["from_state"] + f"@{c}"
+        e["to_state"] = e["to_state"] + f"@{c}"
+        e["rate"] = e["rate"] * c
+        extra.append(e)
+    switch = dep.drop_duplicates(["tree", "from_state"]).copy()
+    switch["model"] = "dependent_classes"
+    switch["to_state"] = switch["from_state"] + "@2"
+    switch["from_state"] = switch["from_state"] + "@1"
+    extra.append(switch)
+    models = dict(data.models[name], dependent_classes=data.models[name]["dependent"])
+    hyps = list(models)
+    tests, boot = [], []
+    for null, alt in itertools.combinations(hyps, 2):
+        for tree in range(data.n_trees):
+            stat = float(rng.chisquare(2) * 2)
+            tests.append(dict(pair=name, null=null, alternative=alt, tree=tree, df=2, alpha=0.05))
+            tests[-1]["statistic"] = stat
+            if tree in (0, data.n_trees - 1):
+                boot += [
+                    dict(
+                        pair=name,
+                        null=null,
+                        alternative=alt,
+                        tree=tree,
+                        replicate=rep,
+                        statistic=float(rng.chisquare(2)),
+                    )
+                    for rep in range(99)
+                ]
+    return dict(
+        name=name,
+        pair=pair,
+        rates=pd.concat([rates, *extra], ignore_index=True),
+        support=data.tables["model_support"],
+        models=models,
+        tests=pd.DataFrame(tests),
+        bootstrap=pd.DataFrame(boot),
+    )

@@ -173,8 +173,14 @@ def test_figures_methods_and_job_count(run):
     html = (out.parent.parent / "report.html").read_text(errors="replace")
     for name in ("posterior_summary.tsv", "bayes_model_support.tsv", "model_probabilities.png"):
         assert name in html
-    for name in ("spines.posterior_rates", "body.posterior_rates", "model_probabilities"):
+    # a folder per kind of figure, one figure per analysis, drawn by one job
+    for name in (
+        "posterior_rates/spines",
+        "posterior_rates/body",
+        "model_probabilities/model_probabilities",
+    ):
         assert (out / "plots" / "bayes" / f"{name}.png").stat().st_size > 5000
+    assert len(list((out / "logs" / "bayes").glob("plot*.log"))) == 1
     # 2 chains x 100 draws cannot reach an ESS of 400: every posterior is flagged, and
     # the run's last words say so
     assert "12 of 12 Bayesian posteriors are flagged" in res.stderr

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from figure_checks import all_text, overlaps, size_problems
-from figure_data import demo_like, large
+from figure_data import demo_like, large, widest_pair
 from matplotlib import colormaps
 from matplotlib.collections import PathCollection
 from matplotlib.colors import to_hex, to_rgb
@@ -343,6 +343,82 @@ def test_pair_tests_figure(demo, tmp_path):
     assert len(fig.axes) == len(n_tests.drop_duplicates())
     assert "no parametric bootstrap" in fig.get_suptitle()
     assert overlaps(fig) == [] and size_problems(fig) == []
+
+
+@pytest.fixture(scope="module")
+def widest(big):
+    return widest_pair(big)
+
+
+@pytest.mark.slow
+def test_pair_grid_pages_fit_a_page_at_the_widest(widest, tmp_path):
+    """Eight joint states, five hypotheses, one with two hidden classes: every grid on a
+    page of style.PAGE with its text at the body size, every series drawn once, and the
+    cells carry the medians of rate_summary (style.rate_intervals)."""
+    w = widest
+    pages = plots_pairs.joint_rate_pages(w["pair"], w["rates"], w["support"], w["models"])
+    assert len(pages) > 1 and list(pages)[1] == f"{w['name']}.part2"
+    titles = []
+    for name, fig in pages.items():
+        assert size_problems(fig) == [] and overlaps(fig) == [], name
+        titles += [ax.get_title().split("\n")[0] for ax in fig.axes if ax.get_title()]
+    series = ["dependent_classes, class 1", "dependent_classes, class 2"]
+    assert titles == [h for h in w["models"] if h != "dependent_classes"] + series
+    # the colour scale is one across pages
+    bars = [fig.axes[-1].get_ylim() for fig in pages.values()]
+    assert all(b == bars[0] for b in bars)
+    written(next(iter(pages.values())), tmp_path, "grid_page")
+
+
+def test_pair_grid_cells_say_the_table_medians_and_bound_counts(widest):
+    w = widest
+    # class 1 of the hidden-class hypothesis, as its page draws it
+    fig = plots_pairs.joint_rate_grid(
+        w["pair"], w["rates"], w["support"], w["models"], ["dependent_classes, class 1"], (5, 6)
+    )
+    assert size_problems(fig) == [] and overlaps(fig) == []
+    mine = w["rates"][(w["rates"]["model"] == "dependent_classes")]
+    mine = mine[mine["from_state"].str.endswith("@1") & mine["to_state"].str.endswith("@1")]
+    row = mine[(mine["from_state"] == mine["from_state"].iloc[0])]
+    row = row[row["to_state"] == row["to_state"].iloc[0]]
+    stats = style.rate_intervals(row.assign(model="x"))
+    expected = style.rate_text(float(stats["median"].iloc[0]))
+    n_bound = int((row["at_bound"] != "").sum())
+    i = list(w["pair"].states).index(row["from_state"].iloc[0][:-2])
+    j = list(w["pair"].states).index(row["to_state"].iloc[0][:-2])
+    cell = [t.get_text() for t in fig.axes[0].texts if t.get_position() == (j, i)]
+    assert cell == [expected + (f"\n{n_bound}/{row['tree'].nunique()}" if n_bound else "")]
+
+
+def test_pair_rates_by_state_pages_fit_a_page_at_the_widest(widest, tmp_path):
+    w = widest
+    pages = plots_pairs.rates_by_state_pages(w["pair"], w["rates"], w["support"], w["models"])
+    assert len(pages) > 1
+    rows = []
+    for name, fig in pages.items():
+        assert size_problems(fig) == [] and overlaps(fig) == [], name
+        rows += [t.get_text() for ax in fig.axes for t in ax.get_yticklabels()]
+    pair = w["pair"]
+    # every change of each trait in each state of the other, once, in order
+    assert (
+        len(rows)
+        == len(set(rows))
+        == pair.k1 * (pair.k1 - 1) * pair.k2 + pair.k2 * (pair.k2 - 1) * pair.k1
+    )
+    assert "page 2 of" in pages[f"{w['name']}.part2"].get_suptitle()
+    written(pages[f"{w['name']}.part2"], tmp_path, "by_state_page")
+
+
+@pytest.mark.slow
+def test_pair_test_pages_fit_a_page_at_the_widest(widest, tmp_path):
+    w = widest
+    pages = plots_pairs.pair_test_pages(w["name"], w["tests"], w["bootstrap"])
+    keys = []
+    for name, fig in pages.items():
+        assert size_problems(fig) == [] and overlaps(fig) == [], name
+        keys += [" ".join(ax.get_title().split("\n")[:-1]) for ax in fig.axes[::2]]
+    assert len(keys) == len(set(keys)) == 10 and len(pages) == 4  # five hypotheses
+    written(pages[f"{w['name']}.part2"], tmp_path, "tests_page")
 
 
 # --------------------------------------------------------------------------- ancestral

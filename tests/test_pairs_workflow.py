@@ -182,8 +182,13 @@ def test_bootstrap_does_not_depend_on_chunking(pair_run, tmp_path):
 def test_pair_plots_written_with_their_labels(pair_run):
     work, out, t = pair_run
     for kind in ("rates_by_state", "joint_rates", "tests"):
-        png = out / "plots" / "pairs" / f"shell.{kind}.png"
-        svg = out / "plots" / "pairs" / f"shell.{kind}.svg"
+        # one folder per kind of figure, one figure per pair (pages of a big one)
+        folder = out / "plots" / "pairs" / kind
+        pages = ["shell", "shell.part2"] if kind == "joint_rates" else ["shell"]  # 2 grids a page
+        assert sorted(p.name for p in folder.glob("[!.]*")) == sorted(
+            f"{page}.{ext}" for page in pages for ext in ("png", "svg")
+        )
+        png, svg = folder / "shell.png", folder / "shell.svg"
         assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and png.stat().st_size > 10_000
         assert svg.read_text().lstrip().startswith("<?xml") and svg.stat().st_size > 10_000
     # the same figures rebuilt from the run's tables: their texts name what they show

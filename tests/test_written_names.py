@@ -233,8 +233,8 @@ def test_every_stage_shows_the_headers_as_written(tmp_path):
     figures = {
         "scan.svg": ("Leaf shape", "Flower colour (main)"),
         "ancestral_trees/Leaf_shape.svg": ("Leaf shape",),
-        "pairs/leaf_flower.rates_by_state.svg": ("Leaf shape", "Flower colour (main)"),
-        "bayes/Flower_colour_main.posterior_rates.svg": ("Flower colour (main)",),
+        "pairs/rates_by_state/leaf_flower.svg": ("Leaf shape", "Flower colour (main)"),
+        "bayes/posterior_rates/Flower_colour_main.svg": ("Flower colour (main)",),
     }
     for name, shown in figures.items():
         text = svg_text(plots / name)

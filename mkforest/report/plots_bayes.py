@@ -61,20 +61,79 @@ def parameter_label(parameter: str, changes: str, pair_traits=None) -> str:
     return f"{text} ({len(listed)} changes)" if listed else text
 
 
-def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str, pair_traits=None):
+BAND = 0.85  # inches of one rate's band: its density, the two summaries, the trees
+RATE_PANEL = 0.55  # inches of a model's panel outside its bands: its title
+RATE_FIXED = 1.3  # inches of a page outside its panels: title, rate axis, legend
+
+
+def _parameters(pooled: dict, models: list) -> dict:
+    models = [m for m in models if any(k[0] == m for k in pooled)]
+    return {m: [p for (mm, p) in pooled if mm == m] for m in models}
+
+
+def posterior_rate_pages(
+    pooled: dict, per_tree, summary, models: list, analysis: str, pair_traits=None
+) -> dict:
+    """{page name: figure} of ``posterior_rates``: "<analysis>", "<analysis>.part2", ...;
+    a model's rates continue on the next page when a page (``style.FULL_HEIGHT``) is
+    full, so no page grows with the rates or the models. One rate axis on every page."""
+    params = _parameters(pooled, models)
+    budget = style.FULL_HEIGHT - RATE_FIXED
+    pages, left = [[]], budget
+    for model, names in params.items():
+        start = 0
+        while start < len(names):
+            fit = int((left - RATE_PANEL) // BAND)
+            if fit < 1:
+                pages.append([])
+                left = budget
+                continue
+            end = min(len(names), start + fit)
+            pages[-1].append((model, start, end))
+            left -= RATE_PANEL + (end - start) * BAND
+            start = end
+    out = {}
+    for i, pieces in enumerate(pages):
+        part = (i + 1, len(pages)) if len(pages) > 1 else None
+        out[analysis if i == 0 else f"{analysis}.part{i + 1}"] = posterior_rates(
+            pooled, per_tree, summary, models, analysis, pair_traits, pieces=pieces, part=part
+        )
+    return out
+
+
+def posterior_rates(
+    pooled: dict,
+    per_tree,
+    summary,
+    models: list,
+    analysis: str,
+    pair_traits=None,
+    pieces: list | None = None,
+    part: tuple | None = None,
+):
     """One panel per model, one band per parameter: the pooled density of the draws (trees
     as given), the medians and 95% intervals of both across-tree summaries, and below
     them each tree's 95% interval (flagged trees in purple).
 
     pooled: {(model, parameter): draws of every tree, pooled}; per_tree: posterior_rates
-    rows (one per tree and parameter suffices); summary: posterior_summary rows."""
-    models = [m for m in models if any(k[0] == m for k in pooled)]
-    params = {m: [p for (mm, p) in pooled if mm == m] for m in models}
-    heights = [max(1, len(params[m])) for m in models]
+    rows (one per tree and parameter suffices); summary: posterior_summary rows;
+    pieces: [(model, first parameter, end parameter)] of this page (default: every
+    parameter; ``posterior_rate_pages`` cuts them into pages), part: (i, n) of an
+    analysis cut into pages."""
+    every_param = _parameters(pooled, models)
+    pieces = pieces or [(m, 0, len(p)) for m, p in every_param.items()]
+    panels = [(m, every_param[m][a:b], a > 0) for m, a, b in pieces]
+    colours = dict(zip(every_param, style.categorical(len(every_param))))
+    if not panels:  # no draws saved for this analysis: say so rather than fail
+        fig, ax = plt.subplots(figsize=(style.FULL_WIDTH, 2.0))
+        ax.axis("off")
+        ax.text(0.5, 0.5, f"{analysis}: no posterior draws saved", ha="center", va="center")
+        return fig
+    heights = [max(1, len(names)) for _, names, _ in panels]
     fig, axes = plt.subplots(
-        len(models),
+        len(panels),
         1,
-        figsize=(8.0, 1.2 + 1.25 * sum(heights) + 0.55 * len(models)),
+        figsize=(style.FULL_WIDTH, RATE_FIXED + BAND * sum(heights) + RATE_PANEL * len(panels)),
         gridspec_kw={"height_ratios": heights},
         sharex=True,
         squeeze=False,
@@ -84,15 +143,14 @@ def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str
     lo, hi = np.quantile(every, [0.002, 0.998]) if len(every) else (0.01, 10.0)
     lo, hi = lo / 1.4, hi * 1.4
     grid = np.linspace(np.log10(lo), np.log10(hi), 300)
-    colours = dict(zip(models, style.categorical(len(models))))
-    for ax, model in zip(axes[:, 0], models):
+    for ax, (model, names, continued) in zip(axes[:, 0], panels):
         labels = []
         mine = per_tree[per_tree["model"] == model].drop_duplicates(["tree", "parameter"])
         summ = summary[summary["model"] == model]
         n_trees = int(summ["n_trees"].max()) if len(summ) else 0
         n_flag = int(summ["n_flagged"].max()) if len(summ) else 0
-        for i, p in enumerate(params[model]):
-            base = len(params[model]) - 1 - i  # first parameter on top
+        for i, p in enumerate(names):
+            base = len(names) - 1 - i  # first parameter on top
             dens = log_density(pooled[(model, p)], grid)
             if dens.max() > 0:
                 top = base + 0.5 + 0.45 * dens / dens.max()
@@ -122,15 +180,17 @@ def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str
                 c = summ[summ["parameter"] == p]["changes"]
                 change = str(c.iloc[0]) if len(c) and str(c.iloc[0]) not in ("", "nan") else ""
             labels.append((base + 0.5, _wrap(parameter_label(p, change, pair_traits))))
-        ax.set_ylim(0, len(params[model]))
+        ax.set_ylim(0, len(names))
         ax.set_yticks([y for y, _ in labels])
         ax.set_yticklabels([t for _, t in labels], fontsize=8)
         ax.tick_params(axis="y", length=0)
-        for k in range(1, len(params[model])):
+        for k in range(1, len(names)):
             ax.axhline(k, color="#dddddd", lw=0.6, gid=style.BACKGROUND)
         ax.set_title(
-            f"{model}: {n_trees} trees" + (f", {n_flag} flagged" if n_flag else "") + "",
-            fontsize=9,
+            f"{model}: {n_trees} trees"
+            + (f", {n_flag} flagged" if n_flag else "")
+            + (" (continued)" if continued else ""),
+            fontsize=style.BODY_TEXT + 1,
             loc="left",
         )
         ax.spines[["top", "right"]].set_visible(False)
@@ -162,21 +222,43 @@ def posterior_rates(pooled: dict, per_tree, summary, models: list, analysis: str
         Line2D([], [], color=TREE_COLOUR, lw=1, label="one tree's 95% interval"),
         Line2D([], [], color=FLAG_COLOUR, lw=1.2, label="flagged tree (R-hat or ESS)"),
     ]
-    fig.suptitle(f"{analysis}: posterior of each rate across trees", fontsize=10, x=0.02, ha="left")
+    title = f"{analysis}: posterior of each rate across trees"
+    if part:
+        title += f", page {part[0]} of {part[1]}"
+    fig.suptitle(title, fontsize=style.BODY_TEXT + 2, x=0.02, ha="left")
     height = fig.get_size_inches()[1]
     fig.tight_layout(rect=(0, 0.85 / height, 1, 1 - 0.3 / height))
-    fig.legend(handles=handles, loc="lower center", ncol=2, fontsize=8, frameon=False)
+    fig.legend(handles=handles, loc="lower center", ncol=2, fontsize=style.BODY_TEXT, frameon=False)
     return fig
 
 
-def model_probabilities(marginal, support, models: dict):
-    """One panel per analysis: each tree's posterior probability of each model (points),
-    their mean (black bar) and the trait-weighted probability (diamond)."""
+PROBABILITY_COLUMNS, PROBABILITY_ROWS = 2, 2  # panels of 3.4 x 3.8 in: a page's worth
+
+
+def model_probability_pages(marginal, support, models: dict) -> dict:
+    """{page name: figure} of ``model_probabilities``: "model_probabilities",
+    "model_probabilities.part2", ...; four analyses on a page, in the config's order,
+    so no page grows with the number of analyses."""
     analyses = [a for a in models if a in set(marginal["analysis"])]
-    ncols = min(3, max(1, len(analyses)))
+    size = PROBABILITY_COLUMNS * PROBABILITY_ROWS
+    groups = [analyses[i : i + size] for i in range(0, len(analyses), size)] or [[]]
+    out = {}
+    for i, group in enumerate(groups):
+        part = (i + 1, len(groups)) if len(groups) > 1 else None
+        name = "model_probabilities" if i == 0 else f"model_probabilities.part{i + 1}"
+        out[name] = model_probabilities(marginal, support, {a: models[a] for a in group}, part)
+    return out
+
+
+def model_probabilities(marginal, support, models: dict, part: tuple | None = None):
+    """One panel per analysis: each tree's posterior probability of each model (points),
+    their mean (black bar) and the trait-weighted probability (diamond). part: (i, n) of
+    analyses cut into pages (``model_probability_pages``)."""
+    analyses = [a for a in models if a in set(marginal["analysis"])]
+    ncols = min(PROBABILITY_COLUMNS, max(1, len(analyses)))
     nrows = int(np.ceil(len(analyses) / ncols)) or 1
     fig, axes = plt.subplots(
-        nrows, ncols, figsize=(max(5.5, 3.4 * ncols), 2.9 * nrows + 0.6), squeeze=False
+        nrows, ncols, figsize=(max(5.5, 3.4 * ncols), 3.8 * nrows + 0.8), squeeze=False
     )
     for ax in axes.ravel()[len(analyses) :]:
         ax.set_visible(False)
@@ -208,12 +290,12 @@ def model_probabilities(marginal, support, models: dict):
                 )
         n = int(sup["n_trees"].max()) if len(sup) else 0
         ax.set_xticks(range(len(names)))
-        ax.set_xticklabels(names, rotation=30, ha="right", fontsize=8)
+        ax.set_xticklabels(names, rotation=90, fontsize=style.BODY_TEXT)
         ax.set_xlim(-0.6, len(names) - 0.4)
         ax.set_ylim(-0.04, 1.04)
-        ax.set_title(f"{analysis} ({n} trees)", fontsize=9, loc="left")
-        ax.set_ylabel("posterior probability", fontsize=8)
-        ax.tick_params(axis="y", labelsize=8)
+        ax.set_title(f"{analysis} ({n} trees)", fontsize=style.BODY_TEXT + 1, loc="left")
+        ax.set_ylabel("posterior probability", fontsize=style.BODY_TEXT)
+        ax.tick_params(axis="y", labelsize=style.BODY_TEXT)
         ax.spines[["top", "right"]].set_visible(False)
         ax.grid(axis="y", color="#e6e6e6", lw=0.6, gid=style.BACKGROUND)
         ax.set_axisbelow(True)
@@ -231,11 +313,12 @@ def model_probabilities(marginal, support, models: dict):
         ),
     ]
     fig.suptitle(
-        "Posterior model probabilities across trees (equal prior on models)",
-        fontsize=10,
+        "Posterior model probabilities across trees (equal prior on models)"
+        + (f", page {part[0]} of {part[1]}" if part else ""),
+        fontsize=style.BODY_TEXT + 2,
         x=0.02,
         ha="left",
     )
     fig.tight_layout(rect=(0, 0.08, 1, 0.95))
-    fig.legend(handles=handles, loc="lower center", ncol=3, fontsize=8, frameon=False)
+    fig.legend(handles=handles, loc="lower center", ncol=3, fontsize=style.BODY_TEXT, frameon=False)
     return fig

@@ -8,6 +8,7 @@ mkforest.report.plots.save writes it.
 from __future__ import annotations
 
 import itertools
+import textwrap
 
 import matplotlib
 
@@ -48,7 +49,10 @@ def _within_classes(rates: pd.DataFrame) -> pd.DataFrame:
         return rates
     keep = [a[2] == b[2] for a, b in zip(f, t)]
     out = rates[keep].copy()
-    out["model"] = [f"{m}, class {a[2]}" for m, a, k in zip(rates["model"], f, keep) if k]
+    # a hypothesis without classes beside one with them keeps its name
+    out["model"] = [
+        f"{m}, class {a[2]}" if a[2] else m for m, a, k in zip(rates["model"], f, keep) if k
+    ]
     out["from_state"] = [a[0] for a, k in zip(f, keep) if k]
     out["to_state"] = [b[0] for b, k in zip(t, keep) if k]
     return out
@@ -96,22 +100,9 @@ def _weights(pair, support) -> dict:
     return dict(zip(s["model"], s["mean_weight"].astype(float)))
 
 
-def rates_by_state(
-    pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
-):
-    """For each trait of the pair, each of its changes in each state of the other
-    trait: the median rate across trees and the central 95% interval across trees,
-    one colour per hypothesis. Under independence a change has one rate whatever the
-    other trait's state, so dependence shows as a shift between neighbouring rows.
-    rates: rates.tsv (per tree, with ``at_bound``); models: {hypothesis: RateModel}."""
-    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
-    hyps = _hypotheses(pair, r, support, models)
-    colours = dict(zip(hyps, style.categorical(len(hyps))))
-    markers = {h: style.MARKERS[i % len(style.MARKERS)] for i, h in enumerate(hyps)}
-    stats = style.rate_intervals(r[r["model"].isin(hyps)])
-    stats["series"] = stats["model"]
-    stats["row"] = list(zip(stats["from_state"], stats["to_state"]))
-    xlim = rate_limits(stats)
+def _state_panels(pair) -> list:
+    """[(trait, rows)]: for each trait of the pair, each of its changes in each state of
+    the other (rows: ((from joint state, to joint state), label))."""
     panels = []
     for which, (trait, other) in enumerate(((pair.first, pair.second), (pair.second, pair.first))):
         rows = []
@@ -129,20 +120,98 @@ def rates_by_state(
                     )
                 )
         panels.append((trait, rows))
+    return panels
+
+
+STATE_PANEL = 0.7  # inches of a panel outside its rows: title, axis, its label
+
+
+def _state_row(m: int) -> float:
+    """Inches of one row (one change in one state) holding m series."""
+    return 0.06 + 0.14 * m
+
+
+def _state_fixed(m: int) -> float:
+    """Inches of a page outside its panels: the suptitle (two lines), the legend (its
+    title of two lines and one line per series)."""
+    return 0.6 + 0.17 * (m + 2)
+
+
+def rates_by_state_pages(
+    pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
+) -> dict:
+    """{page name: figure} of ``rates_by_state``: "<pair>", "<pair>.part2", ...; a
+    trait's rows continue on the next page when a page (``style.FULL_HEIGHT``) is full,
+    so no page grows with the states or the hypotheses."""
+    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
+    m = max(len(_hypotheses(pair, r, support, models)), 1)
+    row, budget = _state_row(m), style.FULL_HEIGHT - _state_fixed(m)
+    pages, left = [[]], budget
+    for which, (_, rows) in enumerate(_state_panels(pair)):
+        start = 0
+        while start < len(rows):
+            fit = int((left - STATE_PANEL) // row)
+            if fit < 1:
+                pages.append([])
+                left = budget
+                continue
+            end = min(len(rows), start + fit)
+            pages[-1].append((which, start, end))
+            left -= STATE_PANEL + (end - start) * row
+            start = end
+    out = {}
+    for i, pieces in enumerate(pages):
+        part = (i + 1, len(pages)) if len(pages) > 1 else None
+        name = pair.name if i == 0 else f"{pair.name}.part{i + 1}"
+        out[name] = rates_by_state(pair, rates, support, models, pieces=pieces, part=part)
+    return out
+
+
+def rates_by_state(
+    pair,
+    rates: pd.DataFrame,
+    support: pd.DataFrame | None = None,
+    models: dict | None = None,
+    pieces: list | None = None,
+    part: tuple | None = None,
+):
+    """For each trait of the pair, each of its changes in each state of the other
+    trait: the median rate across trees and the central 95% interval across trees,
+    one colour per hypothesis. Under independence a change has one rate whatever the
+    other trait's state, so dependence shows as a shift between neighbouring rows.
+    rates: rates.tsv (per tree, with ``at_bound``); models: {hypothesis: RateModel};
+    pieces: [(trait 0 or 1, first row, end row)] of this page (default: every row;
+    ``rates_by_state_pages`` cuts them into pages), part: (i, n) of a pair cut into
+    pages. The rate axis is the same on every page."""
+    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
+    hyps = _hypotheses(pair, r, support, models)
+    colours = dict(zip(hyps, style.categorical(len(hyps))))
+    markers = {h: style.MARKERS[i % len(style.MARKERS)] for i, h in enumerate(hyps)}
+    stats = style.rate_intervals(r[r["model"].isin(hyps)])
+    stats["series"] = stats["model"]
+    stats["row"] = list(zip(stats["from_state"], stats["to_state"]))
+    xlim = rate_limits(stats)
+    every = _state_panels(pair)
+    pieces = pieces or [(w, 0, len(rows)) for w, (_, rows) in enumerate(every)]
+    panels = [(every[w][0], every[w][1][a:b], a > 0) for w, a, b in pieces]
     m = max(len(hyps), 1)
-    heights = [len(rows) * (0.06 + 0.14 * m) for _, rows in panels]
+    heights = [len(rows) * _state_row(m) + STATE_PANEL for _, rows, _ in panels]
     fig, axes = plt.subplots(
-        2,
+        len(panels),
         1,
-        figsize=(style.FULL_WIDTH, sum(heights) + 2.0),
+        figsize=(style.FULL_WIDTH, sum(heights) + _state_fixed(m)),
         layout="constrained",
         gridspec_kw={"height_ratios": heights},
+        squeeze=False,
     )
     weights = _weights(pair, support)
-    for ax, (trait, rows) in zip(axes, panels):
+    for ax, (trait, rows, continued) in zip(axes[:, 0], panels):
         interval_panel(ax, rows, stats, hyps, colours, markers, xlim=xlim)
         ax.set_title(
-            f"changes in {trait.name}", fontsize=style.BODY_TEXT + 1, loc="left", fontweight="bold"
+            f"changes in {trait.name}" + (" (continued)" if continued else ""),
+            fontsize=style.BODY_TEXT + 1,
+            loc="left",
+            fontweight="bold",
         )
         ax.set_xlabel("rate (changes per unit branch length)", fontsize=style.BODY_TEXT)
     handles = [
@@ -166,15 +235,10 @@ def rates_by_state(
         "as in rate_summary.tsv",
         title_fontsize=style.BODY_TEXT,
     )
-    fig.suptitle(
-        _with_impossible(
-            f"{pair.name}: rates of each trait in each state of the other, across trees",
-            pair,
-            rates,
-            support,
-        ),
-        fontsize=style.BODY_TEXT + 2,
-    )
+    title = f"{pair.name}: rates of each trait in each state of the other, across trees"
+    if part:
+        title += f", page {part[0]} of {part[1]}"
+    fig.suptitle(_with_impossible(title, pair, rates, support), fontsize=style.BODY_TEXT + 2)
     style.clear_end_ticks(fig)
     return fig
 
@@ -202,42 +266,93 @@ def _grid_cells(pair, model, stats):
         text[i, j] = style.rate_text(row["median_all"])
         n_bound = row["n_lower"] + row["n_upper"]
         if n_bound:
-            text[i, j] += f"\n{n_bound}/{row['n_trees']} bound"
+            text[i, j] += f"\n{n_bound}/{row['n_trees']}"
     return med, text, allowed, double
 
 
-def joint_rate_grid(
-    pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
-):
-    """One from-state x to-state grid of joint rates per hypothesis: each allowed
-    cell coloured and written with the median rate across trees of rate_summary.tsv
-    (trees at the lower bound included, those the data do not bound above left out;
-    both counted below the value); changes of both traits at once
-    cross-hatched; changes the hypothesis forbids in plain grey."""
-    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
-    hyps = _hypotheses(pair, r, support, models)
-    # the median of rate_summary.tsv (style.rate_intervals), as in rates_by_state
-    stats = style.rate_intervals(r[r["model"].isin(hyps)])
-    stats["median_all"] = stats["median"]
+GRID_CELL = 0.52  # inches a side: two lines of body text ("< 0.001", "12/100")
+CHAR_WIDTH = 0.062  # inches per character of body text (DejaVu Sans at 8 pt, a margin over)
+
+
+def _grid_scale(stats):
+    """One colour scale for every grid of a pair (every page), from the medians drawn."""
     positive = stats["median_all"].to_numpy(float)
     positive = positive[np.isfinite(positive) & (positive > 0)]
     lo, hi = (
         (max(positive.min(), style.PRECISION / 10), positive.max()) if positive.size else (0.1, 1)
     )
-    norm = LogNorm(vmin=lo, vmax=max(hi, lo * 10))
+    return LogNorm(vmin=lo, vmax=max(hi, lo * 10))
+
+
+def _grid_geometry(pair):
+    """(grid width, grid height) in inches of one hypothesis's grid with its labels."""
+    k = len(pair.states)
+    longest = max(len(s.replace("+", " + ")) for s in pair.states)
+    labels = longest * CHAR_WIDTH + 0.35  # tick labels and the axis label beside them
+    return labels + k * GRID_CELL, labels + k * GRID_CELL + 0.55  # + a three-line title
+
+
+GRID_FIXED = 1.2  # inches of a grid page outside the grids: suptitle, legend
+
+
+def joint_rate_pages(
+    pair, rates: pd.DataFrame, support: pd.DataFrame | None = None, models: dict | None = None
+) -> dict:
+    """{page name: figure} of ``joint_rate_grid``: "<pair>", "<pair>.part2", ...; as many
+    hypothesis grids on a page as fit within ``style.FULL_WIDTH`` x ``style.FULL_HEIGHT``
+    (a grid's size grows with the joint states, a page's number with the hypotheses), all
+    pages on one colour scale."""
+    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
+    hyps = _hypotheses(pair, r, support, models)
+    width, height = _grid_geometry(pair)
+    cols = max(1, int((style.FULL_WIDTH - 1.0) // width))
+    rows = max(1, int((style.FULL_HEIGHT - GRID_FIXED) // height))
+    per_page = cols * rows
+    groups = [hyps[i : i + per_page] for i in range(0, len(hyps), per_page)] or [[]]
+    out = {}
+    for i, group in enumerate(groups):
+        part = (i + 1, len(groups)) if len(groups) > 1 else None
+        name = pair.name if i == 0 else f"{pair.name}.part{i + 1}"
+        out[name] = joint_rate_grid(pair, rates, support, models, shown=group, part=part)
+    return out
+
+
+def joint_rate_grid(
+    pair,
+    rates: pd.DataFrame,
+    support: pd.DataFrame | None = None,
+    models: dict | None = None,
+    shown: list | None = None,
+    part: tuple | None = None,
+):
+    """One from-state x to-state grid of joint rates per hypothesis: each allowed
+    cell coloured and written with the median rate across trees of rate_summary.tsv
+    (trees at the lower bound included, those the data do not bound above left out;
+    both counted below the value, as "k/n"); changes of both traits at once
+    cross-hatched; changes the hypothesis forbids in plain grey. shown: the hypotheses
+    of this page (default all; ``joint_rate_pages`` cuts them into pages), part: (i, n)
+    of a pair cut into pages. The colour scale spans every hypothesis, on every page."""
+    r = _within_classes(rates[(rates["analysis"] == pair.name) & rates["rate"].notna()])
+    hyps = _hypotheses(pair, r, support, models)
+    # the median of rate_summary.tsv (style.rate_intervals), as in rates_by_state
+    stats = style.rate_intervals(r[r["model"].isin(hyps)])
+    stats["median_all"] = stats["median"]
+    norm = _grid_scale(stats)
+    lo = norm.vmin
+    if shown is not None:
+        hyps = [h for h in hyps if h in shown]
     cmap = colormaps[style.ORDERED_MAP]
     k = len(pair.states)
     n = max(len(hyps), 1)
-    cols = min(n, 2)
+    width, height = _grid_geometry(pair)
+    cols = max(1, min(n, int((style.FULL_WIDTH - 1.0) // width)))
     rows_n = int(np.ceil(n / cols))
-    cell = 0.62
-    size = k * cell + 1.4
     fig, axes = plt.subplots(
         rows_n,
         cols,
         squeeze=False,
         layout="constrained",
-        figsize=(cols * size + 1.0, rows_n * (size + 0.5) + 1.3),
+        figsize=(min(cols * width + 1.0, style.FULL_WIDTH), rows_n * height + GRID_FIXED),
     )
     weights = _weights(pair, support)
     labels = [s.replace("+", " + ") for s in pair.states]
@@ -276,28 +391,29 @@ def joint_rate_grid(
                         text[i, j],
                         ha="center",
                         va="center",
-                        fontsize=6,
+                        fontsize=style.BODY_TEXT,
                         color=style.text_colour_on(rgba[i, j][:3]),
                         linespacing=1.1,
                     )
-        ax.set_xticks(range(k), labels, rotation=90, fontsize=7)
-        ax.set_yticks(range(k), labels, fontsize=7)
+        ax.set_xticks(range(k), labels, rotation=90, fontsize=style.BODY_TEXT)
+        ax.set_yticks(range(k), labels, fontsize=style.BODY_TEXT)
         ax.set_xticks(np.arange(-0.5, k), minor=True)
         ax.set_yticks(np.arange(-0.5, k), minor=True)
         ax.grid(which="minor", color="white", lw=1.0)
         ax.tick_params(which="both", length=0)
-        ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=7.5)
-        ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=7.5)
+        ax.set_xlabel(f"to ({pair.first.name} + {pair.second.name})", fontsize=style.BODY_TEXT)
+        ax.set_ylabel(f"from ({pair.first.name} + {pair.second.name})", fontsize=style.BODY_TEXT)
         label = _legend_label(h, models, pair, weights).split(": ", 1)
-        ax.set_title(
-            f"{label[0]}\n{label[1].replace(' (mean weight', chr(10) + '(mean weight')}", fontsize=8
-        )
+        # "(mean weight 0.43)" kept on one line (textwrap does not break at U+00A0)
+        label[1] = label[1].replace("(mean weight ", "(mean\u00a0weight\u00a0")
+        words = textwrap.wrap(label[1], max(20, int(k * GRID_CELL / CHAR_WIDTH)))
+        ax.set_title("\n".join([label[0], *words]), fontsize=style.BODY_TEXT)
     for ax in list(axes.flat)[len(hyps) :]:
         ax.set_visible(False)
     sm = plt.cm.ScalarMappable(norm=norm, cmap=cmap)
-    bar = fig.colorbar(sm, ax=axes.ravel().tolist(), shrink=0.5, pad=0.02)
-    bar.set_label("median rate across trees", fontsize=7.5)
-    bar.ax.tick_params(labelsize=7)
+    bar = fig.colorbar(sm, ax=axes.ravel().tolist(), shrink=0.6, pad=0.02)
+    bar.set_label("median rate across trees", fontsize=style.BODY_TEXT)
+    bar.ax.tick_params(labelsize=style.BODY_TEXT)
     bar.set_ticks(
         style.log_ticks(norm.vmin, norm.vmax),
         labels=[style.plain_number(v) for v in style.log_ticks(norm.vmin, norm.vmax)],
@@ -315,28 +431,62 @@ def joint_rate_grid(
             [],
             [],
             ls="none",
-            label=f"values below {style.PRECISION:g} written "
-            f'"< {style.PRECISION:g}"; '
-            "'k/n bound': trees with the rate at a bound",
+            label=f'values below {style.PRECISION:g} written "< {style.PRECISION:g}"; '
+            "k/n under a value: k of n trees with the rate at a bound",
         ),
     ]
-    fig.legend(handles=handles, loc="outside lower center", ncol=1, fontsize=7, frameon=False)
-    fig.suptitle(
-        _with_impossible(
-            f"{pair.name}: joint-state rates, from (rows) to (columns)", pair, rates, support
-        ),
-        fontsize=10,
+    fig.legend(
+        handles=handles, loc="outside lower center", ncol=1, fontsize=style.BODY_TEXT, frameon=False
     )
+    title = f"{pair.name}: joint-state rates, from (rows) to (columns)"
+    if part:
+        title += f", page {part[0]} of {part[1]}"
+    fig.suptitle(_with_impossible(title, pair, rates, support), fontsize=style.BODY_TEXT + 2)
     return fig
 
 
-def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFrame):
+TESTS_PER_PAGE = 3  # rows of 2.6 in: three and the title fit style.FULL_HEIGHT
+
+
+def _versus(null: str, alt: str) -> str:
+    """'null vs alt', on two lines when too long for half the page's width."""
+    return f"{null} vs {alt}" if len(null) + len(alt) < 36 else f"{null} vs\n{alt}"
+
+
+def _test_keys(pair_name: str, tests: pd.DataFrame) -> list:
+    t = tests[tests["pair"] == pair_name] if len(tests) else tests
+    return list(dict.fromkeys(zip(t["null"], t["alternative"]))) if len(t) else []
+
+
+def pair_test_pages(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFrame) -> dict:
+    """{page name: figure} of ``pair_tests_figure``: "<pair>", "<pair>.part2", ...;
+    ``TESTS_PER_PAGE`` tests on a page, so no page grows with the hypotheses."""
+    keys = _test_keys(pair_name, tests)
+    groups = [keys[i : i + TESTS_PER_PAGE] for i in range(0, len(keys), TESTS_PER_PAGE)] or [[]]
+    out = {}
+    for i, group in enumerate(groups):
+        part = (i + 1, len(groups)) if len(groups) > 1 else None
+        name = pair_name if i == 0 else f"{pair_name}.part{i + 1}"
+        out[name] = pair_tests_figure(pair_name, tests, bootstrap, keys=group, part=part)
+    return out
+
+
+def pair_tests_figure(
+    pair_name: str,
+    tests: pd.DataFrame,
+    bootstrap: pd.DataFrame,
+    keys: list | None = None,
+    part: tuple | None = None,
+):
     """Per test (one row of panels): the LR statistic on every tree against the chi-square
     critical value; beside it, when a bootstrap ran, the bootstrap null distribution with
-    the observed statistics (without one, a single column, and the title says so)."""
+    the observed statistics (without one, a single column, and the title says so).
+    keys: the (null, alternative) tests of this page (default all; ``pair_test_pages``
+    cuts them into pages), part: (i, n) of a pair cut into pages."""
     t = tests[tests["pair"] == pair_name]
     b = bootstrap[bootstrap["pair"] == pair_name] if len(bootstrap) else bootstrap
-    keys = list(dict.fromkeys(zip(t["null"], t["alternative"])))
+    if keys is None:
+        keys = _test_keys(pair_name, tests)
     n = max(len(keys), 1)
     cols = 2 if len(b) else 1
     fig, axes = plt.subplots(
@@ -392,7 +542,7 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
         )
         ax.tick_params(labelsize=style.BODY_TEXT)
         ax.set_title(
-            f"{null} vs {alt}\n{int(above.sum())} of {stat.size} trees reject at {alpha:g} (χ²)",
+            f"{_versus(null, alt)}\n{int(above.sum())} of {stat.size} trees reject at {alpha:g} (χ²)",
             fontsize=style.BODY_TEXT + 1,
         )
         ax.legend(
@@ -430,7 +580,7 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
             color="#cfd8d3",
             edgecolor="#7f948a",
             lw=0.5,
-            label=f"simulated under {null} ({len(x)} data sets, {len(boot_trees)} trees)",
+            label=f"simulated under {null}\n({len(x)} data sets, {len(boot_trees)} trees)",
         )
         grid = np.linspace(1e-3, hi, 300)
         ax.plot(grid, chi2.pdf(grid, df), color="black", lw=1, ls="--", label=f"χ², df {df}")
@@ -454,7 +604,7 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
         ax.set_xlabel("likelihood-ratio statistic", fontsize=style.BODY_TEXT)
         ax.set_ylabel("density", fontsize=style.BODY_TEXT)
         ax.tick_params(labelsize=style.BODY_TEXT)
-        ax.set_title(f"parametric bootstrap\n{null} vs {alt}", fontsize=style.BODY_TEXT + 1)
+        ax.set_title(f"parametric bootstrap\n{_versus(null, alt)}", fontsize=style.BODY_TEXT + 1)
         ax.legend(
             fontsize=style.BODY_TEXT,
             loc="upper center",
@@ -464,6 +614,7 @@ def pair_tests_figure(pair_name: str, tests: pd.DataFrame, bootstrap: pd.DataFra
         )
     fig.suptitle(
         f"{pair_name}: likelihood-ratio tests across trees"
+        + (f", page {part[0]} of {part[1]}" if part else "")
         + ("" if cols == 2 else "\n(no parametric bootstrap: set pairs.<name>.bootstrap > 0)"),
         fontsize=style.BODY_TEXT + 1,
     )

@@ -1,6 +1,6 @@
 # Bayesian estimation: one sampling job per analysis x model x chunk of the first tree
 # set (only chunks holding a tree that bayes.trees picks), one summary job for the
-# tables and draws files, one figure job per analysis and one for model probabilities.
+# tables and draws files, one figure job for every analysis (a folder per kind of figure).
 # The job count grows with trees / per_job, never with the number of trees itself.
 
 
@@ -69,50 +69,35 @@ rule bayes_summary:
         "../../scripts/bayes_summary.py"
 
 
-rule plot_bayes_rates:
+rule plot_bayes:
     input:
         rates=f"{OUT}/tables/posterior_rates.tsv",
         summary=f"{OUT}/tables/posterior_summary.tsv",
-        draws=f"{OUT}/posterior/{{analysis}}.nc",
-        traits=f"{OUT}/prepared/traits.json",  # the headers as written
-    output:
-        png=report(
-            f"{OUT}/plots/bayes/{{analysis}}.posterior_rates.png",
-            caption="../report/posterior_rates_plot.rst",
-            category="Bayesian estimation",
-            subcategory="{analysis}",
-        ),
-        svg=f"{OUT}/plots/bayes/{{analysis}}.posterior_rates.svg",  # for print
-    log:
-        f"{OUT}/logs/bayes/plot_{{analysis}}.log",
-    conda:
-        ENV
-    params:
-        models=lambda wildcards: BAYES[wildcards.analysis],
-        pair_traits=lambda wildcards: config["pairs"]
-        .get(wildcards.analysis, {})
-        .get("traits", []),
-    script:
-        "../../scripts/plot_bayes.py"
-
-
-rule plot_bayes_models:
-    input:
+        draws=[f"{OUT}/posterior/{a}.nc" for a in BAYES],
         marginal=f"{OUT}/tables/marginal_likelihoods.tsv",
         support=f"{OUT}/tables/bayes_model_support.tsv",
         traits=f"{OUT}/prepared/traits.json",  # the headers as written
     output:
-        png=report(
-            f"{OUT}/plots/bayes/model_probabilities.png",
+        rates=report(
+            directory(BAYES_PAGES["posterior_rates"]),
+            patterns=["{name}.png"],
+            caption="../report/posterior_rates_plot.rst",
+            category="Bayesian estimation",
+        ),
+        models=report(
+            directory(BAYES_PAGES["model_probabilities"]),
+            patterns=["{name}.png"],
             caption="../report/model_probabilities_plot.rst",
             category="Bayesian estimation",
         ),
-        svg=f"{OUT}/plots/bayes/model_probabilities.svg",  # for print
     log:
-        f"{OUT}/logs/bayes/plot_models.log",
+        f"{OUT}/logs/bayes/plot.log",
     conda:
         ENV
     params:
         models=BAYES,
+        pair_traits={
+            a: config["pairs"][a]["traits"] for a in BAYES if a in config["pairs"]
+        },
     script:
         "../../scripts/plot_bayes.py"

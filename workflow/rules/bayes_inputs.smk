@@ -6,6 +6,12 @@ from mkforest.jobs.shaping import bayes_job_config
 
 # {analysis: [models sampled]}; empty when bayes.enabled is false
 BAYES = bayes_analyses(config)
+# a folder per kind of figure: posterior_rates/<analysis>[.partN], and
+# model_probabilities/model_probabilities[.partN] (pages of four analyses)
+BAYES_PAGES = {
+    kind: f"{OUT}/plots/bayes/{kind}"
+    for kind in ("posterior_rates", "model_probabilities")
+}
 
 
 def bayes_chunks():
@@ -66,12 +72,7 @@ def bayes_targets(wildcards):
             )
         ]
         + [f"{OUT}/posterior/{a}.nc" for a in BAYES]
-        + [
-            f"{OUT}/plots/bayes/{a}.posterior_rates.{ext}"
-            for a in BAYES
-            for ext in ("png", "svg")
-        ]
-        + [f"{OUT}/plots/bayes/model_probabilities.{ext}" for ext in ("png", "svg")]
+        + list(BAYES_PAGES.values())
     )
 
 

@@ -1,7 +1,7 @@
 # Do two traits evolve together? Tests between the hypotheses of each trait pair.
 # The hypotheses themselves are fitted by the ordinary fit rule (analysis = pair
 # name). Here: a parametric bootstrap per pair x chunk of trees (only for pairs
-# with bootstrap > 0), one summary job and one plot job per pair. The job count
+# with bootstrap > 0), one summary job and one plot job for every pair. The job count
 # grows with trees / per_job, never with the number of trees itself.
 
 
@@ -53,7 +53,7 @@ rule pair_summary:
         "../../scripts/pair_summary.py"
 
 
-rule plot_pair:
+rule plot_pairs:
     input:
         tests=f"{OUT}/tables/pair_tests.tsv",
         summary=f"{OUT}/tables/pair_summary.tsv",
@@ -63,20 +63,19 @@ rule plot_pair:
         traits=f"{OUT}/prepared/traits.json",
     output:
         **{
-            f"{kind}_{ext}": figure(
-                f"{OUT}/plots/pairs/{{pair}}.{kind}.{ext}",
+            kind: report(
+                directory(PAIR_PAGES[kind]),
+                patterns=["{name}.png"],
                 caption=f"../report/pair_plot_{kind}.rst",
                 category="Trait pairs",
-                subcategory="{pair}",
             )
             for kind in PAIR_PLOTS
-            for ext in ("png", "svg")
         },
     log:
-        f"{OUT}/logs/pairs/{{pair}}/plot.log",
+        f"{OUT}/logs/pairs/plot.log",
     conda:
         ENV
     params:
-        job=pair_params,
+        pairs=stable(PAIRS),
     script:
         "../../scripts/plot_pair.py"

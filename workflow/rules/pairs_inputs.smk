@@ -51,7 +51,10 @@ def pair_bootstrap_runtime(wildcards, attempt):
     return 10 + attempt * int(per_chunk * n_tests * spec["bootstrap"] * 0.5 / 60)
 
 
+# one folder per kind of pair figure: <pair>.png/.svg, a pair too big for a page in
+# parts (<pair>.part2.png, ...); one job draws every pair
 PAIR_PLOTS = ["rates_by_state", "joint_rates", "tests"]
+PAIR_PAGES = {kind: f"{OUT}/plots/pairs/{kind}" for kind in PAIR_PLOTS}
 
 
 def pair_targets(wildcards):
@@ -60,12 +63,7 @@ def pair_targets(wildcards):
     return [
         f"{OUT}/tables/pair_tests.tsv",
         f"{OUT}/tables/pair_summary.tsv",
-    ] + [
-        f"{OUT}/plots/pairs/{p}.{kind}.{ext}"
-        for p in PAIRS
-        for kind in PAIR_PLOTS
-        for ext in ("png", "svg")
-    ]
+    ] + list(PAIR_PAGES.values())
 
 
 TARGET_FUNCTIONS.append(pair_targets)

@@ -163,29 +163,47 @@ def _counted(self, *args):
 Evaluator.__call__ = _counted  # ln L and gradient evaluations (the treatment-free path)
 
 
-def measure(cases: list, label: str) -> None:
+# Policies compared: module settings of ``fitting`` set for the fit (each name: value).
+POLICIES = {
+    "agreement only": {"RELEASE_ZEROS": False, "PROBE_BOUNDS": False},
+    "zero lifts": {"RELEASE_ZEROS": True, "PROBE_BOUNDS": False},
+    "lifts + bound probes": {"RELEASE_ZEROS": True, "PROBE_BOUNDS": True},
+}
+DEFAULTS = {
+    "RELEASE_ZEROS": True,
+    "PROBE_BOUNDS": True,
+    "PROBES": fitting.PROBES,
+    "ZERO_PROBES": fitting.ZERO_PROBES,
+    "RATE_STARTS": fitting.RATE_STARTS,
+}
+
+
+def measure(cases: list, label: str, policies: dict) -> None:
     if not cases:
         return
-    best20, fits = [], {False: [], True: []}
+    best20, fits = [], {name: [] for name in policies}
     for _, tree, X, model, root, seed in cases:
         full = fitting.fit_model(tree, X, model, root, n_starts=20, max_starts=20, seed=seed)
         best20.append(full.log_likelihood)
-    for release in (False, True):
-        fitting.RELEASE_ZEROS = release
+    for name, settings in policies.items():
+        for key, value in {**DEFAULTS, **settings}.items():
+            setattr(fitting, key, value)
         for _, tree, X, model, root, seed in cases:
             CALLS[0] = 0
             t0 = time.process_time()
             fit = fitting.fit_model(tree, X, model, root, seed=seed)
             cpu = time.process_time() - t0
-            fits[release].append((fit.log_likelihood, fit.n_starts, cpu, CALLS[0]))
-    fitting.RELEASE_ZEROS = True
-    best = [max(b, fits[False][i][0], fits[True][i][0]) for i, b in enumerate(best20)]
+            fits[name].append((fit.log_likelihood, fit.n_starts, cpu, CALLS[0]))
+    for key, value in DEFAULTS.items():
+        setattr(fitting, key, value)
+    best = [max([b] + [fits[n][i][0] for n in fits]) for i, b in enumerate(best20)]
     print(f"\n{label}: {len(cases)} fits")
     print(
-        f"  {'':<22} {'below best':>14} {'triplicates apart':>18} {'starts/fit':>13} {'CPU/fit':>9}"
+        f"  {'':<22} {'below best':>14} {'triplicates apart':>18} {'starts/fit':>11}"
+        f" {'evaluations':>12} {'CPU/fit':>9}"
     )
-    for release in (False, True):
-        rows = fits[release]
+    for name in policies:
+        rows = fits[name]
         below = sum(1 for (ll, *_), b in zip(rows, best) if b - ll > AGREE_TOL)
         groups = {}
         for (g, *_), (ll, *_) in zip(cases, rows):
@@ -193,15 +211,16 @@ def measure(cases: list, label: str) -> None:
                 groups.setdefault(g, []).append(ll)
         apart = sum(1 for v in groups.values() if max(v) - min(v) > AGREE_TOL)
         trip = f"{apart} of {len(groups)}" if groups else "-"
-        name = "release zeros" if release else "agreement as it was"
         print(
             f"  {name:<22} {below:4d} ({100 * below / len(rows):4.1f}%) {trip:>18}"
-            f" {np.mean([r[1] for r in rows]):13.2f} {np.mean([r[3] for r in rows]):16.1f}"
+            f" {np.mean([r[1] for r in rows]):11.2f} {np.mean([r[3] for r in rows]):12.1f}"
             f" {1000 * np.mean([r[2] for r in rows]):7.1f} ms"
         )
-    gained = sum(1 for a, b in zip(fits[False], fits[True]) if b[0] > a[0] + AGREE_TOL)
-    lost = sum(1 for a, b in zip(fits[False], fits[True]) if b[0] < a[0] - 1e-7)
-    print(f"  release raised ln L in {gained} fits, lowered it in {lost}")
+    names = list(policies)
+    for a, b in zip(names, names[1:]):
+        gained = sum(1 for x, y in zip(fits[a], fits[b]) if y[0] > x[0] + AGREE_TOL)
+        lost = sum(1 for x, y in zip(fits[a], fits[b]) if y[0] < x[0] - 1e-7)
+        print(f"  {b} vs {a}: ln L raised in {gained} fits, lowered in {lost}")
 
 
 def main() -> int:
@@ -209,17 +228,52 @@ def main() -> int:
     ap.add_argument("--cases", type=int, default=180, help="fits per invented data set")
     ap.add_argument("--seed", type=int, default=0, help="seed of the invented data sets")
     ap.add_argument("--demo-fits", type=int, default=150)
+    ap.add_argument(
+        "--rate-starts",
+        type=int,
+        nargs="*",
+        default=[],
+        help="also measure lifts + bound probes with these values of RATE_STARTS",
+    )
+    ap.add_argument(
+        "--probes",
+        nargs="*",
+        default=[],
+        help="also measure these subsets of fitting.PROBES (comma-separated names)",
+    )
+    ap.add_argument(
+        "--only",
+        nargs="+",
+        choices=["triplicates", "catalogue", "demo"],
+        default=["triplicates", "catalogue", "demo"],
+        help="data sets to measure",
+    )
     args = ap.parse_args()
-    measure(
-        triplicates(max(1, args.cases // 3), seed=args.seed),
-        "9-tip trees, 3 states, every rate free, each tree three times",
-    )
-    measure(
-        catalogue_like(args.cases, seed=args.seed + 1),
-        "catalogue-shaped trees (8 tips, polytomies, zero lengths), 2-4 states",
-    )
-    if args.demo_fits:
-        measure(demo_fits(args.demo_fits), "the demo's data and models (models with 2+ rates)")
+    policies = dict(POLICIES)
+    for probes in args.probes:
+        names, _, most = probes.partition(":")
+        policies[f"probes {probes}"] = {
+            "PROBES": tuple(names.split(",")),
+            "ZERO_PROBES": int(most) if most else fitting.ZERO_PROBES,
+        }
+    for n in args.rate_starts:
+        policies[f"probes, {n} starts"] = {"RATE_STARTS": n}
+    if "triplicates" in args.only:
+        measure(
+            triplicates(max(1, args.cases // 3), seed=args.seed),
+            "9-tip trees, 3 states, every rate free, each tree three times",
+            policies,
+        )
+    if "catalogue" in args.only:
+        measure(
+            catalogue_like(args.cases, seed=args.seed + 1),
+            "catalogue-shaped trees (8 tips, polytomies, zero lengths), 2-4 states",
+            policies,
+        )
+    if args.demo_fits and "demo" in args.only:
+        measure(
+            demo_fits(args.demo_fits), "the demo's data and models (models with 2+ rates)", policies
+        )
     return 0
 
 

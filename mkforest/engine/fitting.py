@@ -179,6 +179,9 @@ def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
 # ln L drop that still lies inside a one-rate 95% likelihood interval: chi2(0.95, 1 df) / 2
 # (scipy.special's inverse survival function: scipy.stats would add ~0.3 s to every job's start)
 OPEN_DROP = float(chdtri(1, 0.05)) / 2
+# How far past the upper bound rates at it are moved, with others, to tell whether the data
+# fix only their ratios (log-units)
+BEYOND = 2.0
 
 
 def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
@@ -198,6 +201,9 @@ def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
     (others held, or moved with them) reaches the bound: an estimate exists but
     the data do not bound it from above. Holding the other rates makes this a
     conservative check of the profile interval (the profile can only be higher).
+    Rates inside the box are also ``tied`` when, moved ``BEYOND`` the bound together
+    with the rates already at it, they do not lower ln L: their value is only the
+    bound divided by a ratio the data fix.
     """
     free = [i for i in np.argsort(-x) if lo < x[i] < hi]
     sets = [tuple(free[:m]) for m in range(1, len(free) + 1)] + [(i,) for i in free[1:]]
@@ -211,9 +217,18 @@ def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
             open_.update(chosen)
         if t_ll >= ll - tol and len(chosen) >= len(best[2] if best else ()):
             best = (trial, t_ll, chosen)
-    if best is None:
-        return x, ll, (), tuple(sorted(open_))
-    return best[0], best[1], best[2], tuple(sorted(open_ - set(best[2])))
+    x, ll, tied = (best[0], best[1], best[2]) if best else (x, ll, ())
+    # rates inside the box of which the data fix only the ratio to rates already at the
+    # bound: the set moved further up together (past the box: ln L is defined there)
+    # does not lower ln L
+    top = [i for i in range(len(x)) if x[i] >= hi]
+    inside = [i for i in free if x[i] < hi]
+    for m in range(1, len(inside) + 1) if top else ():
+        trial = x.copy()
+        trial[top + inside[:m]] += BEYOND
+        if f(np.exp(trial)) >= ll - tol:
+            tied = tuple(sorted(set(tied) | set(inside[:m])))
+    return x, ll, tuple(sorted(tied)), tuple(sorted(open_ - set(tied)))
 
 
 def start_sequence(
@@ -437,6 +452,8 @@ def _run_starts(space, starts, objective, bounds, least, max_starts, n_rates, n_
             if not RELEASE_ZEROS:
                 break
             found = _release_zeros(objective, results, bounds, n_rates, first, probed)
+            if found is None and PROBE_BOUNDS:
+                found = _probe_bounds(objective, results, bounds, n_rates, first, probed)
             if found is None:
                 break
             results.append(found)
@@ -468,6 +485,71 @@ def _release_zeros(objective, results, all_bounds, n_rates, first, probed):
         f, x = descend(objective, x0, all_bounds, known=results)
         if f < best_f - AGREE_TOL:
             return f, x
+    return None
+
+
+# False: accept the best optimum without the bound probes (``_probe_bounds``;
+# benchmarks/agreement.py compares the two).
+PROBE_BOUNDS = True
+# The probes tried, in order (benchmarks/agreement.py measures each).
+PROBES = ("saturation", "upper", "zeros")
+ZERO_PROBES = 20
+
+
+def _probe_bounds(objective, results, all_bounds, n_rates, first, probed):
+    """(objective, x) of a better optimum found from the best optimum by moves at the
+    bounds of its rates, each followed by one descent and kept only when it ends more
+    than AGREE_TOL above the best; None when none does. Tried once per best optimum,
+    in this order, stopping at the first that gains:
+
+    1. saturation: the m largest rates (m = 1..p) shifted together on the log scale
+       until the largest reaches the upper bound, keeping the shift that raises ln L
+       most (if any does). Where the data saturate, ln L depends only on the ratios of
+       those rates; the descent then sets their ratio at the bound, where the surface
+       is no longer flat in their common scale.
+    2. rates at the upper bound brought down together to their first-start values:
+       the plateau there has no gradient, so a start that reaches it stays, though a
+       better optimum may hold those rates inside the box.
+    3. each rate off the lower bound set to it, the smallest first: the better optimum
+       may hold other rates at zero, or more of them (``_release_zeros`` only lifts)."""
+    best_f, best_x = min(results, key=lambda r: r[0])
+    key = b"bounds" + best_x.tobytes()
+    if first is None or key in probed or not np.isfinite(best_f):
+        return None
+    probed.add(key)
+    lo = np.array([b[0] for b in all_bounds[:n_rates]])
+    hi = np.array([b[1] for b in all_bounds[:n_rates]])
+    x = best_x[:n_rates]
+    trials = []
+    inside = [i for i in np.argsort(-x) if lo[i] < x[i] < hi[i]]
+    shifted = []
+    for m in range(1, len(inside) + 1):
+        idx = inside[:m]
+        x0 = best_x.copy()
+        x0[idx] += float(np.min(hi[idx] - x[idx]))
+        shifted.append((objective(x0)[0], m, x0))
+    if shifted and "saturation" in PROBES:
+        f0, _, x0 = min(shifted, key=lambda r: (r[0], r[1]))
+        if f0 < best_f:
+            trials.append(x0)
+    top = x >= hi - 1e-9
+    if top.any() and "upper" in PROBES:
+        x0 = best_x.copy()
+        x0[:n_rates][top] = np.minimum(first[:n_rates][top], hi[top] - 1.0)
+        trials.append(x0)
+    if "corner" in PROBES:
+        x0 = best_x.copy()
+        x0[:n_rates] = hi
+        trials.append(x0)
+    zeros = [i for i in np.argsort(x) if x[i] > lo[i] + ZERO_MARGIN] if "zeros" in PROBES else []
+    for i in zeros[:ZERO_PROBES]:
+        x0 = best_x.copy()
+        x0[i] = lo[i]
+        trials.append(x0)
+    for x0 in trials:
+        f, xf = descend(objective, x0, all_bounds, known=results)
+        if f < best_f - AGREE_TOL:
+            return f, xf
     return None
 
 

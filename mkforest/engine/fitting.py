@@ -47,6 +47,7 @@ from .search import (
     RATE_STARTS,
     UPPER,
     ZERO_MARGIN,
+    ZERO_PROBES,
 )
 from .treatment_search import TreatmentSpace
 
@@ -492,26 +493,28 @@ def _release_zeros(objective, results, all_bounds, n_rates, first, probed):
 # benchmarks/agreement.py compares the two).
 PROBE_BOUNDS = True
 # The probes tried, in order (benchmarks/agreement.py measures each).
-PROBES = ("saturation", "upper", "zeros")
-ZERO_PROBES = 20
+PROBES = ("saturation", "corner", "zeros")
 
 
 def _probe_bounds(objective, results, all_bounds, n_rates, first, probed):
     """(objective, x) of a better optimum found from the best optimum by moves at the
     bounds of its rates, each followed by one descent and kept only when it ends more
-    than AGREE_TOL above the best; None when none does. Tried once per best optimum,
-    in this order, stopping at the first that gains:
+    than AGREE_TOL above the best (so ln L is never lower than without them); None when
+    none does. Tried once per best optimum, in this order, stopping at the first that
+    gains:
 
-    1. saturation: the m largest rates (m = 1..p) shifted together on the log scale
-       until the largest reaches the upper bound, keeping the shift that raises ln L
-       most (if any does). Where the data saturate, ln L depends only on the ratios of
-       those rates; the descent then sets their ratio at the bound, where the surface
-       is no longer flat in their common scale.
-    2. rates at the upper bound brought down together to their first-start values:
-       the plateau there has no gradient, so a start that reaches it stays, though a
-       better optimum may hold those rates inside the box.
-    3. each rate off the lower bound set to it, the smallest first: the better optimum
-       may hold other rates at zero, or more of them (``_release_zeros`` only lifts)."""
+    1. saturation: the m largest rates inside the box (m = 1..p) shifted together on
+       the log scale until the largest reaches the upper bound, keeping the shift that
+       raises ln L most, if one does. Where the data saturate, ln L depends only on the
+       ratios of those rates, and the descent from there sets their ratio at the bound
+       (starts end at an optimum inside the box, and ``_settle_jointly_at_upper`` alone
+       would move it up with the ratio it had there).
+    2. corner: every rate at the upper bound (equal rates), where the descent finds the
+       best ratios of saturated rates that the best optimum holds at zero.
+    3. zeros: each of the ``ZERO_PROBES`` smallest rates above zero (beyond
+       ``ZERO_MARGIN``) set to the lower bound: the better optimum may hold other rates
+       at zero, or more of them (``_release_zeros`` only lifts).
+    ``PROBES`` names the moves tried (benchmarks/agreement.py measures each)."""
     best_f, best_x = min(results, key=lambda r: r[0])
     key = b"bounds" + best_x.tobytes()
     if first is None or key in probed or not np.isfinite(best_f):
@@ -521,22 +524,17 @@ def _probe_bounds(objective, results, all_bounds, n_rates, first, probed):
     hi = np.array([b[1] for b in all_bounds[:n_rates]])
     x = best_x[:n_rates]
     trials = []
-    inside = [i for i in np.argsort(-x) if lo[i] < x[i] < hi[i]]
+    inside = [i for i in np.argsort(-x) if lo[i] < x[i] < hi[i]] if "saturation" in PROBES else []
     shifted = []
     for m in range(1, len(inside) + 1):
         idx = inside[:m]
         x0 = best_x.copy()
         x0[idx] += float(np.min(hi[idx] - x[idx]))
         shifted.append((objective(x0)[0], m, x0))
-    if shifted and "saturation" in PROBES:
+    if shifted:
         f0, _, x0 = min(shifted, key=lambda r: (r[0], r[1]))
         if f0 < best_f:
             trials.append(x0)
-    top = x >= hi - 1e-9
-    if top.any() and "upper" in PROBES:
-        x0 = best_x.copy()
-        x0[:n_rates][top] = np.minimum(first[:n_rates][top], hi[top] - 1.0)
-        trials.append(x0)
     if "corner" in PROBES:
         x0 = best_x.copy()
         x0[:n_rates] = hi

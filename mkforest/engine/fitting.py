@@ -14,6 +14,10 @@ while the best optimum sets another set to zero (a 9-tip tree given three times
 gave three optima; benchmarks/agreement.py). A lift that finds a better optimum
 joins the starts (the starts then go on until the two best agree again), one that
 does not is dropped, so the reported ln L is never lower than without the lifts.
+When the lifts find nothing, the same is done from the best optimum's rates moved to
+their bounds (``_probe_bounds``: saturated rates at the upper bound, where their ratio
+is set; every rate there; the smallest rates above zero at zero): optima that other
+rates at zero, or rates whose ratio alone matters, set apart.
 The fit is called converged when
 at least two starts reach the best log-likelihood within ``AGREE_TOL``. A start
 that comes within ``SAME_X`` (every coordinate) and ``SAME_F`` (ln L) of an

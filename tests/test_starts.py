@@ -435,3 +435,28 @@ def test_setting_a_small_rate_to_zero_finds_the_best_optimum(monkeypatch, zeros)
         return
     assert fit.log_likelihood >= best - 1e-6
     assert fit.converged
+
+
+def test_impossible_data_run_no_probes(monkeypatch):
+    """Tips a and b on zero-length branches in different states: no rates make the data
+    possible (every P(0) is the identity; the project's contract), so the fit runs its
+    starts and no probe at the bounds: the same descents with and without
+    ``fitting.PROBE_BOUNDS``."""
+    from mkforest.engine import fitting
+
+    tree = parse_newick("((a:0,b:0):0.6,(c:0.3,d:0.3):0.3);", rooted=True)
+    states = np.array([{"a": 0, "b": 1, "c": 1, "d": 0}[t] for t in tree.tip_labels])
+    X = tip_partials_from_states(states, tree.n_tips, 2)
+    model = build_model("unconstrained", ("p", "q"))
+    runs = {}
+    for on in (False, True):
+        monkeypatch.setattr(fitting, "PROBE_BOUNDS", on)
+        calls = []
+        monkeypatch.setattr(
+            fitting, "descend", lambda *a, _d=fitting.descend, **k: calls.append(1) or _d(*a, **k)
+        )
+        fit = fit_model(tree, X, model, seed=3)
+        monkeypatch.undo()
+        runs[on] = (len(calls), fit.n_starts)
+        assert fit.log_likelihood == -np.inf
+    assert runs[True] == runs[False]

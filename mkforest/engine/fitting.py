@@ -521,8 +521,8 @@ def _probe_bounds(objective, results, all_bounds, n_rates, first, probed):
     ``PROBES`` names the moves tried (benchmarks/agreement.py measures each)."""
     best_f, best_x = min(results, key=lambda r: r[0])
     key = b"bounds" + best_x.tobytes()
-    if first is None or key in probed or not np.isfinite(best_f):
-        return None
+    if first is None or key in probed or best_f >= IMPOSSIBLE_OBJECTIVE:
+        return None  # no seeded start yet, probed already, or the data impossible
     probed.add(key)
     lo = np.array([b[0] for b in all_bounds[:n_rates]])
     hi = np.array([b[1] for b in all_bounds[:n_rates]])

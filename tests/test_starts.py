@@ -6,6 +6,12 @@ a fit stops as soon as, after ``n_starts``, its two best starts agree within
 AGREE_TOL, else at ``max_starts``; ``converged`` says whether two starts reached
 the best ln L; the reported ln L is the best start's. Whether the best start is
 the maximum is checked against scipy in tests/test_fitting_reference.py.
+
+The moves tried before two agreeing starts are accepted (lifting zero rates, the probes
+at the bounds) are checked on invented trees of the shapes users bring (polytomies,
+zero-length branches) against outside values named beside each check: a closed form of
+the saturated likelihood, scipy.optimize's L-BFGS-B from a grid or many starts, and
+ln L recomputed by the plain expm-per-branch pruning of tests/reference.py.
 """
 
 import numpy as np

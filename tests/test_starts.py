@@ -443,6 +443,33 @@ def test_setting_a_small_rate_to_zero_finds_the_best_optimum(monkeypatch, zeros)
     assert fit.converged
 
 
+def _descents(monkeypatch, tree, X, model, probe):
+    """(descents run, starts run, ln L) of one fit with fitting.PROBE_BOUNDS = probe."""
+    from mkforest.engine import fitting
+
+    calls = []
+    with monkeypatch.context() as m:
+        m.setattr(fitting, "PROBE_BOUNDS", probe)
+        m.setattr(
+            fitting, "descend", lambda *a, _d=fitting.descend, **k: calls.append(1) or _d(*a, **k)
+        )
+        fit = fit_model(tree, X, model, seed=3)
+    return len(calls), fit.n_starts, fit.log_likelihood
+
+
+def test_a_one_rate_model_runs_no_probes(monkeypatch):
+    """A model with one free rate is not probed at the bounds (the probes would cost about
+    what the fit costs): the same descents, starts and ln L with and without
+    ``fitting.PROBE_BOUNDS``, on a catalogue-shaped tree (polytomy, zero-length branch)."""
+    tree = parse_newick(SATURATED_TREE)
+    states = np.array([1 if t in ("t1", "t4") else 0 for t in tree.tip_labels])
+    X = tip_partials_from_states(states, tree.n_tips, 2)
+    model = build_model("equal", ("p", "q"))
+    assert _descents(monkeypatch, tree, X, model, True) == _descents(
+        monkeypatch, tree, X, model, False
+    )
+
+
 def test_impossible_data_run_no_probes(monkeypatch):
     """Tips a and b on zero-length branches in different states: no rates make the data
     possible (every P(0) is the identity; the project's contract), so the fit runs its

@@ -457,7 +457,7 @@ def _run_starts(space, starts, objective, bounds, least, max_starts, n_rates, n_
             if not RELEASE_ZEROS:
                 break
             found = _release_zeros(objective, results, bounds, n_rates, first, probed)
-            if found is None and PROBE_BOUNDS:
+            if found is None and PROBE_BOUNDS and n_rates >= 2:
                 found = _probe_bounds(objective, results, bounds, n_rates, first, probed)
             if found is None:
                 break
@@ -518,7 +518,10 @@ def _probe_bounds(objective, results, all_bounds, n_rates, first, probed):
     3. zeros: each of the ``ZERO_PROBES`` smallest rates above zero (beyond
        ``ZERO_MARGIN``) set to the lower bound: the better optimum may hold other rates
        at zero, or more of them (``_release_zeros`` only lifts).
-    ``PROBES`` names the moves tried (benchmarks/agreement.py measures each)."""
+    ``PROBES`` names the moves tried (benchmarks/agreement.py measures each). Models
+    with one free rate are not probed: the moves cost about as much as the fit
+    (benchmarks/bench_reference.py), and benchmarks/agreement.py measures the gain on
+    models with two or more."""
     best_f, best_x = min(results, key=lambda r: r[0])
     key = b"bounds" + best_x.tobytes()
     if first is None or key in probed or best_f >= IMPOSSIBLE_OBJECTIVE:

@@ -16,8 +16,9 @@ joins the starts (the starts then go on until the two best agree again), one tha
 does not is dropped, so the reported ln L is never lower than without the lifts.
 When the lifts find nothing, the same is done from the best optimum's rates moved to
 their bounds (``_probe_bounds``: saturated rates at the upper bound, where their ratio
-is set; every rate there; the smallest rates above zero at zero): optima that other
-rates at zero, or rates whose ratio alone matters, set apart.
+is set; every rate there; the smallest rates above zero at zero): the better optimum
+may differ in which rates are zero, or in the ratio of rates so fast that only their
+ratio matters.
 The fit is called converged when
 at least two starts reach the best log-likelihood within ``AGREE_TOL``. A start
 that comes within ``SAME_X`` (every coordinate) and ``SAME_F`` (ln L) of an

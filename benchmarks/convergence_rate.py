@@ -43,10 +43,17 @@ from mkforest.jobs.prepare import select_trees  # noqa: E402
 from mkforest.seeds import derive_seed  # noqa: E402
 
 
+def first_tree_set(config: dict) -> dict:
+    """The config's block of trees: ``trees``, or the first of ``tree_sets``."""
+    sets = config.get("tree_sets") or {"trees": config["trees"]}
+    return next(iter(sets.values()))
+
+
 def record_starts(config: dict, n_starts: int) -> list:
-    """[(analysis, model, tree, [ln L per start])] for every fit of the config."""
-    trees = read_trees(config["trees"]["file"])
-    tcfg = config["trees"]
+    """[(analysis, model, tree, [ln L per start])] for every fit of the config, on the
+    trees of its first tree set."""
+    tcfg = first_tree_set(config)
+    trees = read_trees(tcfg["file"])
     kept = select_trees(len(trees), tcfg["burnin"], tcfg["thin"], tcfg["sample"], config["seed"])
     trees = [trees[i] for i in kept]
     c = config["traits"]
@@ -175,7 +182,7 @@ def main() -> int:
         with tempfile.TemporaryDirectory() as tmp:
             paths = make_demo(Path(tmp), seed=seed)
             config = load_config(args.config)
-            config["trees"]["file"] = str(paths["trees"])
+            first_tree_set(config)["file"] = str(paths["trees"])
             config["traits"]["file"] = str(paths["traits"])
             t0 = time.process_time()
             records = record_starts(config, args.starts)

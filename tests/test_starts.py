@@ -6,6 +6,12 @@ a fit stops as soon as, after ``n_starts``, its two best starts agree within
 AGREE_TOL, else at ``max_starts``; ``converged`` says whether two starts reached
 the best ln L; the reported ln L is the best start's. Whether the best start is
 the maximum is checked against scipy in tests/test_fitting_reference.py.
+
+The moves tried before two agreeing starts are accepted (lifting zero rates, the probes
+at the bounds) are checked on invented trees of the shapes users bring (polytomies,
+zero-length branches) against outside values named beside each check: a closed form of
+the saturated likelihood, scipy.optimize's L-BFGS-B from a grid or many starts, and
+ln L recomputed by the plain expm-per-branch pruning of tests/reference.py.
 """
 
 import numpy as np
@@ -262,3 +268,228 @@ def test_one_tree_given_three_times_gives_one_optimum(monkeypatch, release):
     assert max(lls) - min(lls) <= 1e-6
     assert min(lls) >= best - 1e-6
     assert all(f.converged for f in fits)
+
+
+# An 8-tip tree of the catalogue's shape (a polytomy, a zero-length tip branch) with one
+# tip of eight in state q: starts end at an optimum inside the box (ln L -3.5003), and
+# moving that optimum's rates up together to the upper bound keeps its ratio q->p / p->q
+# of 5.75 (ln L -3.0318). Where every branch saturates, each tip is an independent draw
+# from the stationary distribution pi, so ln L -> sum_s n_s ln pi_s (the root weights sum
+# to one), at most 7 ln(7/8) + ln(1/8) at pi = (7/8, 1/8), i.e. q->p / p->q = 7: the
+# multinomial maximum-likelihood frequencies (closed form).
+SATURATED_TREE = (
+    "(t2:0.0066061801677755319,((t3:0,t0:0.22255775403830744,t7:0.64195194646913067,"
+    "(t6:0.43223658633801193,t1:0.50108171370704757):0.23641787344106768)"
+    ":1.9676213979993848,(t4:0.41515475501599108,t5:0.52366593207251622)"
+    ":0.49455887465817644):0.27215808455212637);"
+)
+SATURATED_LIMIT = 7 * np.log(7 / 8) + np.log(1 / 8)
+
+
+def _saturated_case():
+    tree = parse_newick(SATURATED_TREE)
+    states = np.array([1 if t == "t1" else 0 for t in tree.tip_labels])
+    return (
+        tree,
+        tip_partials_from_states(states, tree.n_tips, 2),
+        build_model("unconstrained", ("p", "q")),
+    )
+
+
+@pytest.mark.parametrize("probe", [False, True])
+def test_saturated_rates_take_the_closed_form_ratio(monkeypatch, probe):
+    """Rates that saturate reach the closed-form limit: ratio 7 and ln L 7 ln(7/8) + ln(1/8)
+    (``fitting.PROBE_BOUNDS``: the saturation probe descends the ratio at the bound). Both
+    rates are flagged at the upper bound: only their ratio is estimated. Without the probe
+    the fit stops 0.018 below the limit with ratio 5.75: checked too, so the case can fail.
+    ln L at the reported rates is recomputed with the plain expm-per-branch pruning of
+    tests/reference.py (scipy.linalg.expm)."""
+    from reference import pruning_log_likelihood
+
+    from mkforest.engine import fitting
+
+    monkeypatch.setattr(fitting, "PROBE_BOUNDS", probe)
+    tree, X, model = _saturated_case()
+    fit = fit_model(tree, X, model, seed=19)
+    assert fit.log_likelihood == pytest.approx(
+        pruning_log_likelihood(tree, X, fit.q_matrix), abs=1e-9
+    )
+    assert fit.log_likelihood <= SATURATED_LIMIT + 1e-9  # a limit: never exceeded
+    if not probe:
+        assert fit.log_likelihood < SATURATED_LIMIT - AGREE_TOL
+        return
+    assert fit.log_likelihood == pytest.approx(SATURATED_LIMIT, abs=1e-6)
+    assert fit.rate_of("q->p") / fit.rate_of("p->q") == pytest.approx(7.0, rel=1e-4)
+    assert set(fit.at_upper) == {"p->q", "q->p"}
+
+
+def test_rate_fixed_only_in_ratio_to_one_at_the_bound_is_flagged():
+    """At the saturated optimum above (q->p at the upper bound, p->q = q->p / 7), p->q's value
+    is only the bound divided by the closed-form ratio: moving both further up leaves ln L
+    at the limit, so p->q is tied to the bound (``_settle_jointly_at_upper``; q->p, at it,
+    is flagged by ``fit_model``), while the rates are left where they are."""
+    from mkforest.engine.fitting import LogLikelihood, _settle_jointly_at_upper
+
+    tree, X, model = _saturated_case()
+    f = LogLikelihood(tree, X, model)
+    _, (lo, hi) = start_sequence(tree, X, model)
+    x = np.array([hi - np.log(7.0), hi])
+    y, ll, tied, _ = _settle_jointly_at_upper(f, x, f(np.exp(x)), lo, hi)
+    assert ll == pytest.approx(SATURATED_LIMIT, abs=1e-6)
+    assert np.array_equal(y, x)
+    assert tuple(tied) == (0,)
+
+
+# An 8-tip tree with one tip of eight in state q on which every start ends at one optimum
+# (ln L -3.1415, q->p at zero); the best optimum (ln L -2.9804) lies inside the box, and a
+# descent from every rate at the upper bound reaches it.
+CORNER_TREE = (
+    "((t4:0.60342362863669474,t2:0.29013149684304951,(t0:0.18655355301881305,"
+    "t5:1.5775837255788292,t1:1.4175804494867157):0.26718838205052647):0.21197871065283513,"
+    "(t6:0.027434204425683367,(t7:0.11137016740040209,t3:0.037575515404134091)"
+    ":1.9291980122751662):0.85886523395146153);"
+)
+
+
+@pytest.mark.parametrize("probe", [False, True])
+def test_descent_from_the_upper_corner_finds_the_best_optimum(monkeypatch, probe):
+    """The fit reaches the maximum that scipy.optimize's L-BFGS-B finds from a 6 x 6 grid of
+    starts over the whole log-rate box, on the plain expm-per-branch pruning of
+    tests/reference.py (``fitting.PROBES``' corner). Without the bound probes the fit
+    reports the poorer optimum, converged: checked too, so the case can fail."""
+    import scipy.optimize
+    from reference import pruning_log_likelihood
+
+    from mkforest.engine import fitting
+
+    monkeypatch.setattr(fitting, "PROBE_BOUNDS", probe)
+    tree = parse_newick(CORNER_TREE)
+    states = np.array([1 if t == "t5" else 0 for t in tree.tip_labels])
+    X = tip_partials_from_states(states, tree.n_tips, 2)
+    model = build_model("unconstrained", ("p", "q"))
+    _, (lo, hi) = start_sequence(tree, X, model)
+
+    def minus_ll(x):
+        return -pruning_log_likelihood(tree, X, model.q_matrix(np.exp(x)))
+
+    grid = np.linspace(lo + 1.0, hi - 1.0, 6)
+    best = max(
+        -scipy.optimize.minimize(
+            minus_ll, np.array([a, b]), method="L-BFGS-B", bounds=[(lo, hi)] * 2
+        ).fun
+        for a in grid
+        for b in grid
+    )
+    fit = fit_model(tree, X, model, seed=22)
+    if not probe:
+        assert fit.converged and fit.log_likelihood < best - AGREE_TOL
+        return
+    assert fit.log_likelihood >= best - 1e-6
+    assert fit.converged
+
+
+# An 8-tip tree of the catalogue's shape (zero-length tip branch) with a 3-state trait on
+# which the first five starts end at optima with q->p and r->q at zero (ln L -7.8855),
+# lifting either back finds nothing better, and the best optimum (ln L -7.8287) also holds
+# p->q at zero.
+ZEROS_TREE = (
+    "(((t3:0.18832386203770024,t2:0):0.29481209711204626,(t4:0.076166226381986404,"
+    "(t5:0.45754313741497343,t7:0.49314443383864726):0.30952435033257047)"
+    ":0.20181776002712809):0.16541247658518329,(t1:0.35028965530819728,"
+    "(t0:0.19485333909132385,t6:0.034758730332272024):0.87428884416127683)"
+    ":0.019926824704552017);"
+)
+ZEROS_STATES = {"t3": 2, "t2": 2, "t4": 1, "t5": 2, "t7": 0, "t1": 1, "t0": 0, "t6": 2}
+
+
+@pytest.mark.parametrize("zeros", [False, True])
+def test_setting_a_small_rate_to_zero_finds_the_best_optimum(monkeypatch, zeros):
+    """The fit reaches the best of scipy.optimize's L-BFGS-B from 40 seeded uniform starts
+    over the log-rate box once it tries each of the smallest rates above zero at zero
+    (``fitting.PROBES``' zeros); without that move it reports the poorer optimum,
+    converged (checked too, so the case can fail). ln L at the reported rates is
+    recomputed with the plain expm-per-branch pruning of tests/reference.py."""
+    import scipy.optimize
+    from reference import pruning_log_likelihood
+
+    from mkforest.engine import fitting
+
+    probes = fitting.PROBES if zeros else tuple(p for p in fitting.PROBES if p != "zeros")
+    monkeypatch.setattr(fitting, "PROBES", probes)
+    tree = parse_newick(ZEROS_TREE)
+    states = np.array([ZEROS_STATES[t] for t in tree.tip_labels])
+    X = tip_partials_from_states(states, tree.n_tips, 3)
+    model = build_model("unconstrained", ("p", "q", "r"))
+    _, (lo, hi) = start_sequence(tree, X, model)
+    f = fitting.LogLikelihood(tree, X, model)
+    rng = np.random.default_rng(0)
+    best = max(
+        -scipy.optimize.minimize(
+            lambda x: -f(np.exp(x)),
+            rng.uniform(lo, hi, model.n_params),
+            method="L-BFGS-B",
+            bounds=[(lo, hi)] * model.n_params,
+        ).fun
+        for _ in range(40)
+    )
+    fit = fit_model(tree, X, model, seed=71)
+    assert fit.log_likelihood == pytest.approx(
+        pruning_log_likelihood(tree, X, fit.q_matrix), abs=1e-9
+    )
+    if not zeros:
+        assert fit.converged and fit.log_likelihood < best - AGREE_TOL
+        return
+    assert fit.log_likelihood >= best - 1e-6
+    assert fit.converged
+
+
+def _descents(monkeypatch, tree, X, model, probe):
+    """(descents run, starts run, ln L) of one fit with fitting.PROBE_BOUNDS = probe."""
+    from mkforest.engine import fitting
+
+    calls = []
+    with monkeypatch.context() as m:
+        m.setattr(fitting, "PROBE_BOUNDS", probe)
+        m.setattr(
+            fitting, "descend", lambda *a, _d=fitting.descend, **k: calls.append(1) or _d(*a, **k)
+        )
+        fit = fit_model(tree, X, model, seed=3)
+    return len(calls), fit.n_starts, fit.log_likelihood
+
+
+def test_a_one_rate_model_runs_no_probes(monkeypatch):
+    """A model with one free rate is not probed at the bounds (the probes would cost about
+    what the fit costs): the same descents, starts and ln L with and without
+    ``fitting.PROBE_BOUNDS``, on a catalogue-shaped tree (polytomy, zero-length branch)."""
+    tree = parse_newick(SATURATED_TREE)
+    states = np.array([1 if t in ("t1", "t4") else 0 for t in tree.tip_labels])
+    X = tip_partials_from_states(states, tree.n_tips, 2)
+    model = build_model("equal", ("p", "q"))
+    assert _descents(monkeypatch, tree, X, model, True) == _descents(
+        monkeypatch, tree, X, model, False
+    )
+
+
+def test_impossible_data_run_no_probes(monkeypatch):
+    """Tips a and b on zero-length branches in different states: no rates make the data
+    possible (every P(0) is the identity; the project's contract), so the fit runs its
+    starts and no probe at the bounds: the same descents with and without
+    ``fitting.PROBE_BOUNDS``."""
+    from mkforest.engine import fitting
+
+    tree = parse_newick("((a:0,b:0):0.6,(c:0.3,d:0.3):0.3);", rooted=True)
+    states = np.array([{"a": 0, "b": 1, "c": 1, "d": 0}[t] for t in tree.tip_labels])
+    X = tip_partials_from_states(states, tree.n_tips, 2)
+    model = build_model("unconstrained", ("p", "q"))
+    runs = {}
+    for on in (False, True):
+        monkeypatch.setattr(fitting, "PROBE_BOUNDS", on)
+        calls = []
+        monkeypatch.setattr(
+            fitting, "descend", lambda *a, _d=fitting.descend, **k: calls.append(1) or _d(*a, **k)
+        )
+        fit = fit_model(tree, X, model, seed=3)
+        monkeypatch.undo()
+        runs[on] = (len(calls), fit.n_starts)
+        assert fit.log_likelihood == -np.inf
+    assert runs[True] == runs[False]

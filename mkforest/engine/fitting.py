@@ -14,6 +14,11 @@ while the best optimum sets another set to zero (a 9-tip tree given three times
 gave three optima; benchmarks/agreement.py). A lift that finds a better optimum
 joins the starts (the starts then go on until the two best agree again), one that
 does not is dropped, so the reported ln L is never lower than without the lifts.
+When the lifts find nothing, the same is done from the best optimum's rates moved to
+their bounds (``_probe_bounds``: saturated rates at the upper bound, where their ratio
+is set; every rate there; the smallest rates above zero at zero): the better optimum
+may differ in which rates are zero, or in the ratio of rates so fast that only their
+ratio matters.
 The fit is called converged when
 at least two starts reach the best log-likelihood within ``AGREE_TOL``. A start
 that comes within ``SAME_X`` (every coordinate) and ``SAME_F`` (ln L) of an
@@ -47,6 +52,7 @@ from .search import (
     RATE_STARTS,
     UPPER,
     ZERO_MARGIN,
+    ZERO_PROBES,
 )
 from .treatment_search import TreatmentSpace
 
@@ -179,6 +185,9 @@ def _settle_at_bounds(f, x, ll, lo, hi, tol=1e-7):
 # ln L drop that still lies inside a one-rate 95% likelihood interval: chi2(0.95, 1 df) / 2
 # (scipy.special's inverse survival function: scipy.stats would add ~0.3 s to every job's start)
 OPEN_DROP = float(chdtri(1, 0.05)) / 2
+# How far past the upper bound rates at it are moved, with others, to tell whether the data
+# fix only their ratios (log-units)
+BEYOND = 2.0
 
 
 def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
@@ -198,6 +207,9 @@ def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
     (others held, or moved with them) reaches the bound: an estimate exists but
     the data do not bound it from above. Holding the other rates makes this a
     conservative check of the profile interval (the profile can only be higher).
+    Rates inside the box are also ``tied`` when, moved ``BEYOND`` the bound together
+    with the rates already at it, they do not lower ln L: their value is only the
+    bound divided by a ratio the data fix.
     """
     free = [i for i in np.argsort(-x) if lo < x[i] < hi]
     sets = [tuple(free[:m]) for m in range(1, len(free) + 1)] + [(i,) for i in free[1:]]
@@ -211,9 +223,18 @@ def _settle_jointly_at_upper(f, x, ll, lo, hi, tol=1e-7):
             open_.update(chosen)
         if t_ll >= ll - tol and len(chosen) >= len(best[2] if best else ()):
             best = (trial, t_ll, chosen)
-    if best is None:
-        return x, ll, (), tuple(sorted(open_))
-    return best[0], best[1], best[2], tuple(sorted(open_ - set(best[2])))
+    x, ll, tied = (best[0], best[1], best[2]) if best else (x, ll, ())
+    # rates inside the box of which the data fix only the ratio to rates already at the
+    # bound: the set moved further up together (past the box: ln L is defined there)
+    # does not lower ln L
+    top = [i for i in range(len(x)) if x[i] >= hi]
+    inside = [i for i in free if x[i] < hi]
+    for m in range(1, len(inside) + 1) if top else ():
+        trial = x.copy()
+        trial[top + inside[:m]] += BEYOND
+        if f(np.exp(trial)) >= ll - tol:
+            tied = tuple(sorted(set(tied) | set(inside[:m])))
+    return x, ll, tuple(sorted(tied)), tuple(sorted(open_ - set(tied)))
 
 
 def start_sequence(
@@ -437,6 +458,8 @@ def _run_starts(space, starts, objective, bounds, least, max_starts, n_rates, n_
             if not RELEASE_ZEROS:
                 break
             found = _release_zeros(objective, results, bounds, n_rates, first, probed)
+            if found is None and PROBE_BOUNDS and n_rates >= 2:
+                found = _probe_bounds(objective, results, bounds, n_rates, first, probed)
             if found is None:
                 break
             results.append(found)
@@ -468,6 +491,71 @@ def _release_zeros(objective, results, all_bounds, n_rates, first, probed):
         f, x = descend(objective, x0, all_bounds, known=results)
         if f < best_f - AGREE_TOL:
             return f, x
+    return None
+
+
+# False: accept the best optimum without the bound probes (``_probe_bounds``;
+# benchmarks/agreement.py compares the two).
+PROBE_BOUNDS = True
+# The probes tried, in order (benchmarks/agreement.py measures each).
+PROBES = ("saturation", "corner", "zeros")
+
+
+def _probe_bounds(objective, results, all_bounds, n_rates, first, probed):
+    """(objective, x) of a better optimum found from the best optimum by moves at the
+    bounds of its rates, each followed by one descent and kept only when it ends more
+    than AGREE_TOL above the best (so ln L is never lower than without them); None when
+    none does. Tried once per best optimum, in this order, stopping at the first that
+    gains:
+
+    1. saturation: the m largest rates inside the box (m = 1..p) shifted together on
+       the log scale until the largest reaches the upper bound, keeping the shift that
+       raises ln L most, if one does. Where the data saturate, ln L depends only on the
+       ratios of those rates, and the descent from there sets their ratio at the bound
+       (starts end at an optimum inside the box, and ``_settle_jointly_at_upper`` alone
+       would move it up with the ratio it had there).
+    2. corner: every rate at the upper bound (equal rates), where the descent finds the
+       best ratios of saturated rates that the best optimum holds at zero.
+    3. zeros: each of the ``ZERO_PROBES`` smallest rates above zero (beyond
+       ``ZERO_MARGIN``) set to the lower bound: the better optimum may hold other rates
+       at zero, or more of them (``_release_zeros`` only lifts).
+    ``PROBES`` names the moves tried (benchmarks/agreement.py measures each). Models
+    with one free rate are not probed: the moves cost about as much as the fit
+    (benchmarks/bench_reference.py), and benchmarks/agreement.py measures the gain on
+    models with two or more."""
+    best_f, best_x = min(results, key=lambda r: r[0])
+    key = b"bounds" + best_x.tobytes()
+    if first is None or key in probed or best_f >= IMPOSSIBLE_OBJECTIVE:
+        return None  # no seeded start yet, probed already, or the data impossible
+    probed.add(key)
+    lo = np.array([b[0] for b in all_bounds[:n_rates]])
+    hi = np.array([b[1] for b in all_bounds[:n_rates]])
+    x = best_x[:n_rates]
+    trials = []
+    inside = [i for i in np.argsort(-x) if lo[i] < x[i] < hi[i]] if "saturation" in PROBES else []
+    shifted = []
+    for m in range(1, len(inside) + 1):
+        idx = inside[:m]
+        x0 = best_x.copy()
+        x0[idx] += float(np.min(hi[idx] - x[idx]))
+        shifted.append((objective(x0)[0], m, x0))
+    if shifted:
+        f0, _, x0 = min(shifted, key=lambda r: (r[0], r[1]))
+        if f0 < best_f:
+            trials.append(x0)
+    if "corner" in PROBES:
+        x0 = best_x.copy()
+        x0[:n_rates] = hi
+        trials.append(x0)
+    zeros = [i for i in np.argsort(x) if x[i] > lo[i] + ZERO_MARGIN] if "zeros" in PROBES else []
+    for i in zeros[:ZERO_PROBES]:
+        x0 = best_x.copy()
+        x0[i] = lo[i]
+        trials.append(x0)
+    for x0 in trials:
+        f, xf = descend(objective, x0, all_bounds, known=results)
+        if f < best_f - AGREE_TOL:
+            return f, xf
     return None
 
 

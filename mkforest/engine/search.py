@@ -25,3 +25,7 @@ SAME_F = 1e-3
 # log-units of the lower bound (effectively zero) is lifted back to its first-start value
 # and descended from once (fitting._release_zeros; benchmarks/agreement.py).
 ZERO_MARGIN = 2.0
+# After that, moves at the bounds of the best optimum's rates, each followed by one descent
+# (fitting._probe_bounds): its rates saturated together at the upper bound, every rate at
+# the upper bound, and each of the ZERO_PROBES smallest rates above zero set to zero.
+ZERO_PROBES = 2

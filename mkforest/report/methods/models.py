@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from ...engine.models import HYPOTHESES, KIND_TABLE
-from ...engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X
+from ...engine.search import AGREE_TOL, RATE_STARTS, SAME_F, SAME_X, ZERO_PROBES
 from ...engine.summarise import as_text
 from ..citations import REFERENCES, cite
 from ..words import hypothesis_structure
@@ -144,7 +144,12 @@ def fitting_paragraph(config, software) -> str:
             f"{SAME_X:g} of an earlier start's optimum in every parameter as the "
             "optimiser sees it (log-rates; a branch-length parameter in its own step "
             f"unit), and within {SAME_F:g} units of its log-likelihood, was stopped "
-            "there as having reached it."
+            "there as having reached it. Before two agreeing starts were accepted, one "
+            "further descent was run from the best optimum with, in turn, each rate it held "
+            "at zero lifted, its largest rates moved together to the upper bound, every "
+            f"rate at the upper bound, and each of its {ZERO_PROBES} smallest rates above "
+            f"zero set to zero; a descent that ended more than {AGREE_TOL:g} units higher "
+            "counted as a start."
         )
     else:
         text += " With a single start per fit, convergence could not be checked."

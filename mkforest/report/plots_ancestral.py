@@ -15,6 +15,8 @@ writes it in several formats.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import matplotlib
 
 matplotlib.use("Agg")
@@ -290,60 +292,57 @@ def _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting, pa
     ax.set_title((title or default) + roots + page, fontsize=style.BODY_TEXT + 1, loc="left")
 
 
-def _legend(
-    ax,
-    colours,
-    labels,
-    trait,
-    analysis,
-    legend_title,
-    ambiguous,
-    unknown,
-    order,
-    placed,
-    by_members,
-    sets,
-    legend_at,
-):
+@dataclass
+class TreeKey:
+    """What the legend of a state tree says: the categories and their colours, the tip
+    marks drawn, the node bars left out, and where the legend sits."""
+
+    colours: dict
+    labels: list  # the categories, in the order of the bars' segments
+    title: str  # the legend's title
+    tip_marks: bool  # tips carry marks (a trait was given)
+    ambiguous: bool  # a tip of several possible states is drawn
+    unknown: bool  # a tip of unknown state is drawn
+    left_out: int  # node bars that found no room
+    axes_height: float  # inches: the legend starts AXIS_H below the axes
+    table: str = "tables/ancestral_states.tsv"  # where the bars' values are
+
+
+def _legend(ax, key: TreeKey) -> None:
     """States, tip marks, clade frequencies and the node bars left out, in one legend of
-    two columns below the axis (legend_at: the axes' height in inches).
-    Returns the number of node bars left out."""
+    two columns below the axis."""
+    colours, labels = key.colours, key.labels
     handles = [Patch(facecolor=colours[s], label=s.replace("+", " + ")) for s in labels]
-    if trait is not None:
-        if ambiguous:
+    if key.tip_marks:
+        if key.ambiguous:
             handles.append(
                 (Patch(facecolor=colours[labels[0]]), Patch(facecolor=colours[labels[-1]]))
             )
-        if unknown:
+        if key.unknown:
             handles.append(Patch(facecolor="white", edgecolor="#777777", hatch=UNKNOWN_HATCH))
     names = [
         h.get_label() if not isinstance(h, tuple) else "tip: several states possible"
         for h in handles
     ]
-    if trait is not None and unknown:
+    if key.tip_marks and key.unknown:
         names[-1] = "tip: state unknown"
     handles.append(Line2D([], [], ls="none", marker="$0.9$", color=SUPPORT_COLOUR, markersize=12))
     names.append(
         "clade frequency in the tree sample\n(written when below 1 and where it fits;"
         "\nall in tables/clades.tsv)"
     )
-    left_out = len([v for v in order if by_members.get(sets[v]) is not None and v not in placed])
-    if left_out:
+    if key.left_out:
         handles.append(Line2D([], [], ls="none"))
         names.append(
-            f"{left_out} node bars left out: branches too\nshort to draw them apart "
-            "(values in\ntables/ancestral_states.tsv)"
-        )
-    if legend_title is None:
-        legend_title = (
-            "state" if trait is None or "+" not in labels[0] else f"{analysis} (joint state)"
+            f"{key.left_out} node bars left out: branches too\nshort to draw them apart "
+            f"(values in\n{key.table})"
         )
     ax.legend(
         handles,
         names,
-        title=legend_title,
+        title=key.title,
         loc="upper left",
-        bbox_to_anchor=(0.0, -AXIS_H / legend_at),
+        bbox_to_anchor=(0.0, -AXIS_H / key.axes_height),
         ncols=2,
         frameon=False,
         fontsize=style.BODY_TEXT,
@@ -351,7 +350,6 @@ def _legend(
         alignment="left",
         handler_map={tuple: HandlerTuple(ndivide=None, pad=0)},
     )
-    return left_out
 
 
 def state_tree(
@@ -498,21 +496,15 @@ def state_tree(
         ax, tree, order, placed, y, per_in, x_lo, inch, occupied, (lo, hi)
     )
 
-    left_out = _legend(
-        ax,
-        colours,
-        labels,
-        trait,
-        analysis,
-        legend_title,
-        ambiguous,
-        unknown,
-        order,
-        placed,
-        by_members,
-        sets,
-        ax_h,
+    left_out = len([v for v in order if by_members.get(sets[v]) is not None and v not in placed])
+    if legend_title is None:
+        legend_title = (
+            "state" if trait is None or "+" not in labels[0] else f"{analysis} (joint state)"
+        )
+    key = TreeKey(
+        colours, labels, legend_title, trait is not None, ambiguous, unknown, left_out, ax_h
     )
+    _legend(ax, key)
     legend_h = _legend_height(ax.get_legend())
     height = TOP + ax_h + AXIS_H + legend_h
     fig.set_size_inches(width, height)

@@ -35,7 +35,7 @@ def cpu_seconds(draw, folder: Path) -> tuple:
     start = time.process_time()
     pages = draw()
     for name, fig in pages.items():
-        style.save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
+        style.save(fig, [folder / f"page{name}.png", folder / f"page{name}.svg"])
     return len(pages), time.process_time() - start
 
 

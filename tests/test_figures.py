@@ -528,6 +528,11 @@ def test_class_tree_pages_fit_a_page(tmp_path):
     _check_class_pages(pages, tree)
     titles = [f.axes[0].get_title(loc="left") for f in pages.values()]
     assert "under model 'two_pace'" in titles[0] and "tips 61-90 of 90" in titles[-1]
+    # each page carries only the branches that reach it (its SVG does not hold the whole
+    # tree): the first collection drawn is the branches
+    whole = (tree.n_nodes - 1) + (tree.n_nodes - tree.n_tips)
+    for fig in pages.values():
+        assert 0 < len(fig.axes[0].collections[0].get_segments()) < 0.6 * whole
     written(pages[".part2"], tmp_path, "class_tree")
 
 

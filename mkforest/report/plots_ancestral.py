@@ -421,7 +421,15 @@ def state_tree(
         if v >= tree.n_tips:
             ys = [y[c] for c in kids[v]]
             segments.append([(x[v], min(ys)), (x[v], max(ys))])
-    ax.add_collection(LineCollection(segments, colors=BRANCH_COLOUR, linewidths=0.9, zorder=1))
+    # only the branches that reach the page (the others would be clipped, yet each page's
+    # SVG would carry the whole tree); every branch still takes its place below
+    top, bottom = lo - 0.5 - EDGE, hi - 0.5 + EDGE
+    on_page = [
+        sg
+        for sg in segments
+        if min(sg[0][1], sg[1][1]) <= bottom and max(sg[0][1], sg[1][1]) >= top
+    ]
+    ax.add_collection(LineCollection(on_page, colors=BRANCH_COLOUR, linewidths=0.9, zorder=1))
     branch_boxes = []
     for (xa, ya), (xb, yb) in segments:
         (x0, y0), (x1, y1) = inch(xa, ya), inch(xb, yb)

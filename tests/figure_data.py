@@ -9,6 +9,8 @@ from them; they only have to look like what users bring):
   some rates at the lower bound on some trees, one at the upper bound.
 - ``large()``: a 300-tip tree, a 4-state trait and a 4 x 2 trait pair (eight
   joint states), with ambiguous and unknown tips.
+- ``class_table()``: clades and ancestral_classes.tsv rows on any tree (hidden
+  classes); ``many_state_changes()``: change counts of a trait of many states.
 
 The rate structures come from the engine (build_model, hypothesis_model), so the
 tables hold exactly the transitions the real run would.

@@ -579,10 +579,19 @@ def _class_drawing(classes: pd.DataFrame, analysis: str, model: str):
     cmap = colormaps[CLASS_PALETTE]  # the map's full range: strong ends
     colours = dict(zip(labels, [cmap(x) for x in np.linspace(0.0, 1.0, n_classes)]))
     n_trees = int(rows["n_trees"].max()) if len(rows) else 0
+    title = (
+        f"Hidden rate classes of '{analysis}' under model '{model}': mean "
+        f"probability across trees (up to {n_trees} tree{'' if n_trees == 1 else 's'})"
+    )
+    if n_trees == 0:  # the bars would be empty: say why rather than draw a bare tree
+        title = (
+            f"Hidden rate classes of '{analysis}' under model '{model}': nothing to draw,\n"
+            "no tree gives class probabilities (the model was not fitted on any tree; see\n"
+            f"the caution columns of {CLASS_TABLE} and tables/model_support.tsv)"
+        )
     return rows, dict(
         colours=colours,
-        title=f"Hidden rate classes of '{analysis}' under model '{model}': mean "
-        f"probability across trees (up to {n_trees} tree{'' if n_trees == 1 else 's'})",
+        title=title,
         legend_title=f"rate class (values: {CLASS_TABLE}, rows without a state)",
         table=CLASS_TABLE,
     )

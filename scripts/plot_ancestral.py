@@ -68,16 +68,21 @@ def main(smk):
             na_values=[""],
         )
     )
+    if not smk.params.hidden:
+        return
+    folder = Path(out.class_trees[0])  # one folder: a tree of many tips is cut into pages
+    folder.mkdir(parents=True, exist_ok=True)
     for analysis, models in smk.params.hidden.items():
         for model in models:
             rows = classes[(classes["analysis"] == analysis) & (classes["model"] == model)]
-            fig = plots_ancestral.class_tree(tree, rows, clades, analysis, model)
-            style.name_tree_set(fig, named)
-            style.show_written_names(fig, names)
-            plots_ancestral.save(
-                fig,
-                [p for p in out.class_trees if Path(p).stem == f"class_tree_{analysis}_{model}"],
+            pages = plots_ancestral.class_tree_pages(
+                tree, rows, clades, analysis, model, rooting=describe_rooting(smk.params.rooting)
             )
+            for suffix, fig in pages.items():
+                style.name_tree_set(fig, named)
+                style.show_written_names(fig, names)
+                name = f"{analysis}_{model}{suffix}"
+                plots_ancestral.save(fig, [folder / f"{name}.png", folder / f"{name}.svg"])
 
 
 run_job(snakemake, main)  # noqa: F821

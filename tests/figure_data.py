@@ -9,6 +9,8 @@ from them; they only have to look like what users bring):
   some rates at the lower bound on some trees, one at the upper bound.
 - ``large()``: a 300-tip tree, a 4-state trait and a 4 x 2 trait pair (eight
   joint states), with ambiguous and unknown tips.
+- ``class_table()``: clades and ancestral_classes.tsv rows on any tree (hidden
+  classes); ``many_state_changes()``: change counts of a trait of many states.
 
 The rate structures come from the engine (build_model, hypothesis_model), so the
 tables hold exactly the transitions the real run would.
@@ -430,3 +432,51 @@ def widest_pair(data: FigureData, seed: int = 5) -> dict:
         tests=pd.DataFrame(tests),
         bootstrap=pd.DataFrame(boot),
     )
+
+
+def class_table(rng, tree, n_classes: int = 2, n_trees: int = 30, analysis="ink", model="two_pace"):
+    """Clades of ``tree`` (as ``_ancestral``) and ancestral_classes.tsv rows of one analysis
+    and model on them: per node, a row per class (``state`` empty, summing to 1) and the
+    combined-state rows 'state@class' that the figure leaves to the table."""
+    names, sets = consensus_names(tree), node_clades(tree)
+    clades, rows = [], []
+    for v in range(tree.n_tips, tree.n_nodes):
+        freq = 1.0 if rng.random() < 0.6 else float(np.round(rng.uniform(0.3, 1.0), 2))
+        clades.append(
+            dict(
+                clade=names[v],
+                kind="consensus",
+                n_tips=len(sets[v]),
+                frequency=freq,
+                n_trees_with_clade=int(freq * n_trees),
+                key="k",
+                members=",".join(sorted(sets[v])),
+            )
+        )
+        p = rng.dirichlet(np.full(n_classes, 0.5))
+        for cls, x in enumerate(p, start=1):
+            common = dict(analysis=analysis, model=model, clade=names[v], n_trees=n_trees)
+            rows.append(dict(common, state=np.nan, mean_probability=x, **{"class": cls}))
+            for s, share in zip(("pale", "dark"), (0.4, 0.6)):
+                rows.append(
+                    dict(common, state=f"{s}@{cls}", mean_probability=x * share, **{"class": cls})
+                )
+    return pd.DataFrame(clades), pd.DataFrame(rows)
+
+
+def many_state_changes(rng, k: int = 7, n_trees: int = 20, analysis: str = "hue"):
+    """transitions_per_tree.tsv rows of one trait of k states with every rate free: all
+    k(k-1) directions on every tree (42 for 7 states). Returns (rows, states)."""
+    states = [f"hue{i}" for i in range(1, k + 1)]
+    rows = [
+        dict(
+            analysis=analysis,
+            tree=t,
+            from_state=a,
+            to_state=b,
+            mean_count=float(rng.gamma(2.0, 2.0)),
+        )
+        for t in range(n_trees)
+        for a, b in itertools.permutations(states, 2)
+    ]
+    return pd.DataFrame(rows), states

@@ -94,6 +94,7 @@ def test_tables_and_plots(ancestral_run):
         "ancestral_trees/habitat.svg",
     ]:
         assert (plots / name).stat().st_size > 1000, name
+    assert not (plots / "class_trees").exists()  # no model has hidden classes: no folder
 
 
 def test_same_maps_whatever_the_chunking(ancestral_run, tmp_path):

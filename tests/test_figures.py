@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from figure_checks import all_text, overlaps, size_problems
-from figure_data import demo_like, large, widest_pair
+from figure_data import class_table, demo_like, large, many_state_changes, random_tree, widest_pair
 from matplotlib import colormaps
 from matplotlib.collections import PathCollection
 from matplotlib.colors import to_hex, to_rgb
@@ -443,7 +443,8 @@ def test_changes(which, demo, big, tmp_path):
 def test_change_pages_fit_a_page_whatever_the_number_of_traits(which, demo, big):
     """Five copies of the single traits (a run of many traits): every page within a
     journal page, 8-point text, nothing overlapping; every analysis on exactly one page,
-    in order, each panel's rows those of change_counts alone."""
+    in order (the 4 x 2 pair's 32 directions split over two panels), its panels' rows
+    together those of change_counts alone."""
     data = demo if which == "demo" else big
     per_tree = data.tables["transitions_per_tree"]
     pairs = pair_names(data)
@@ -453,17 +454,18 @@ def test_change_pages_fit_a_page_whatever_the_number_of_traits(which, demo, big)
     )
     pages = plots_ancestral.change_pages(many, pairs)
     assert len(pages) > 1 and list(pages)[:2] == ["changes", "changes.part2"]
-    shown = []
+    drawn = {}
     for name, fig in pages.items():
         assert overlaps(fig) == [] and size_problems(fig) == [], name
         for ax in fig.axes:
             a = ax.get_title(loc="left").split(" (")[0]
-            shown.append(a)
-            mine = many[many["analysis"] == a]
-            drawn = [t.get_text() for t in ax.get_yticklabels()]
-            alone = plots_ancestral.change_counts(mine, pairs).axes[0].get_yticklabels()
-            assert drawn == [t.get_text() for t in alone]
-    assert shown == list(dict.fromkeys(many["analysis"]))
+            drawn.setdefault(a, []).extend(t.get_text() for t in ax.get_yticklabels())
+    assert list(drawn) == list(dict.fromkeys(many["analysis"]))
+    for a, rows in drawn.items():
+        alone = plots_ancestral.change_counts(many[many["analysis"] == a], pairs).axes[0]
+        assert rows == [t.get_text() for t in alone.get_yticklabels()], a
+    n_panels = sum(len(f.axes) for f in pages.values())
+    assert n_panels == len(drawn) + (which == "big")  # substrate_shell: 32 > CHANGE_MAX_ROWS
 
 
 def test_changes_title_says_why_trees_are_missing(demo):
@@ -572,6 +574,108 @@ def test_ancestral_trees_300_tips_others(analysis, big, tmp_path):
     assert ordered == (analysis == "depth")
     _check_tree(pages, big, analysis)
     written(pages[""], tmp_path, f"tree_{analysis}")
+
+
+def _check_class_pages(pages, tree):
+    """Every page of a class tree within a journal page (8-point text, nothing
+    overlapping), naming the table of its values; every tip on exactly one page, in
+    drawing order; page names "", ".part2", ..."""
+    labels = []
+    for name, fig in pages.items():
+        assert size_problems(fig) == [] and overlaps(fig) == [], name
+        ax = fig.axes[0]
+        assert plots_ancestral.CLASS_TABLE in ax.get_legend().get_title().get_text()
+        tips = [t for t in ax.texts if t.get_text() in tree.tip_labels]
+        labels += [t.get_text() for t in sorted(tips, key=lambda t: t.get_position()[1])]
+    assert labels == [tree.tip_labels[v] for v in tips_in_drawing_order(tree)]
+    assert list(pages) == [""] + [f".part{i}" for i in range(2, len(pages) + 1)]
+
+
+def test_class_tree_pages_fit_a_page(tmp_path):
+    """A 90-tip class tree (was one figure about 20 inches tall) in pages within a
+    journal page; the legend names tables/ancestral_classes.tsv."""
+    rng = np.random.default_rng(21)
+    tree = random_tree(rng, 90, "Vell")
+    clades, classes = class_table(rng, tree, n_classes=3)
+    pages = plots_ancestral.class_tree_pages(
+        tree, classes, clades, "ink", "two_pace", rooting="at the midpoint of the longest path"
+    )
+    assert len(pages) == 3
+    _check_class_pages(pages, tree)
+    titles = [f.axes[0].get_title(loc="left") for f in pages.values()]
+    assert "under model 'two_pace'" in titles[0] and "tips 61-90 of 90" in titles[-1]
+    # each page carries only the branches that reach it (its SVG does not hold the whole
+    # tree): the first collection drawn is the branches
+    whole = (tree.n_nodes - 1) + (tree.n_nodes - tree.n_tips)
+    for fig in pages.values():
+        assert 0 < len(fig.axes[0].collections[0].get_segments()) < 0.6 * whole
+    written(pages[".part2"], tmp_path, "class_tree")
+
+
+def test_class_tree_pages_on_polytomies_and_zero_length_branches():
+    """Polytomies of three and four, zero-length branches, tips of unequal depth (not a
+    time tree): still paged within a journal page, every tip once. (A tree without
+    lengths stops at reading, data.trees.)"""
+    blocks = [
+        "(A{0}a:1,A{0}b:0.5,A{0}c:2):1"
+        if i % 2
+        else "((A{0}a:1,A{0}b:1):0,A{0}c:1,A{0}d:0,A{0}e:3):0"
+        for i in range(12)
+    ]
+    tree = parse_newick(
+        "(" + ",".join(b.format(i) for i, b in enumerate(blocks)) + ");", rooted=True
+    )
+    rng = np.random.default_rng(3)
+    clades, classes = class_table(rng, tree)
+    pages = plots_ancestral.class_tree_pages(tree, classes, clades, "ink", "two_pace")
+    assert len(pages) == 2 and tree.n_tips == 48
+    _check_class_pages(pages, tree)
+
+
+@pytest.mark.slow
+def test_class_tree_250_tips(tmp_path):
+    """250 tips (was one figure of 6.8 x 52.5 inches): nine pages, each within a journal
+    page, every tip on exactly one."""
+    rng = np.random.default_rng(8)
+    tree = random_tree(rng, 250, "Orrin")
+    clades, classes = class_table(rng, tree)
+    pages = plots_ancestral.class_tree_pages(tree, classes, clades, "ink", "two_pace")
+    assert len(pages) == 9
+    _check_class_pages(pages, tree)
+    written(pages[".part9"], tmp_path, "class_tree_250")
+
+
+def test_changes_of_seven_states_split_over_pages():
+    """7 states with every rate free (42 directions, was one page of 7.1 x 11.8 inches):
+    panels of at most CHANGE_MAX_ROWS rows, every page within a journal page; every
+    direction drawn exactly once, in the order of a single panel; the panels of one
+    trait on one scale and each saying which directions it holds."""
+    rng = np.random.default_rng(5)
+    per_tree, states = many_state_changes(rng)
+    pages = plots_ancestral.change_pages(per_tree, {}, {"hue": states})
+    assert list(pages) == ["changes", "changes.part2"]
+    drawn, limits = [], []
+    for name, fig in pages.items():
+        assert overlaps(fig) == [] and size_problems(fig) == [], name
+        for ax in fig.axes:
+            title = ax.get_title(loc="left")
+            if title.startswith("hue ("):
+                rows = [t.get_text() for t in ax.get_yticklabels()]
+                assert len(rows) <= plots_ancestral.CHANGE_MAX_ROWS
+                assert f"directions {len(drawn) + 1}-{len(drawn) + len(rows)} of 42" in title
+                drawn += rows
+                limits.append(ax.get_xlim())
+    one = plots_ancestral.change_counts(per_tree, states={"hue": states}).axes[0]
+    assert drawn == [t.get_text() for t in one.get_yticklabels()] and len(drawn) == 42
+    assert len(limits) == 2 and limits[0] == limits[1]
+    assert plots_ancestral.change_panels({"hue": 42, "x": 30, "y": 61}) == [
+        ("hue", 0, 21, 42),
+        ("hue", 21, 42, 42),
+        ("x", 0, 30, 30),
+        ("y", 0, 20, 61),
+        ("y", 20, 41, 61),
+        ("y", 41, 61, 61),
+    ]
 
 
 def test_a_figure_of_one_set_among_several_names_it(demo):

@@ -101,8 +101,17 @@ def test_ancestral_classes_add_up(run):
 
 
 def test_class_figures_and_methods(run):
-    for name in ("class_tree_glow_two_speed", "class_tree_shells_independent"):
-        png = run / "plots" / f"{name}.png"
+    # one folder of class trees, a page per tree of this size, PNG and SVG (and Snakemake's
+    # hidden timestamp of a folder output)
+    folder = run / "plots" / "class_trees"
+    pages = sorted(p.name for p in folder.iterdir() if not p.name.startswith("."))
+    assert pages == [
+        f"{a}_{m}.{ext}"
+        for a, m in (("glow", "two_speed"), ("shells", "dependent"), ("shells", "independent"))
+        for ext in ("png", "svg")
+    ]
+    for name in ("glow_two_speed", "shells_independent"):
+        png = run / "plots" / "class_trees" / f"{name}.png"
         assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and png.stat().st_size > 5000
     text = (run / "methods.md").read_text()
     assert "hidden rate classes" in text

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from figure_checks import overlaps
+from figure_checks import overlaps, size_problems
 
 from mkforest.data.clades import consensus_names, node_clades
 from mkforest.data.traits import trait_from_mapping
@@ -206,3 +206,30 @@ def test_change_counts_panel_of_one_tree_says_tree():
     fig = plots_ancestral.change_counts(pd.DataFrame(rows))
     visible = [ax for ax in fig.axes if ax.get_visible()]
     assert [ax.get_title(loc="left") for ax in visible] == ["colour (1 tree)"]
+
+
+def test_class_tree_of_a_model_fitted_on_no_tree_says_so():
+    """A hidden-class model fitted on no tree has class rows with n_trees 0 and no
+    probabilities (seen in a real run: a pair's dependent model 'not fitted'): the title
+    says nothing is drawn and why, not 'up to 0 trees' over a bare tree."""
+    tree = parse_newick(TREE)
+    _, clades = tables(tree)
+    rows = [
+        dict(
+            analysis="soil",
+            model="two_speed",
+            clade=c["clade"],
+            n_trees=0,
+            state=np.nan,
+            mean_probability=np.nan,
+            **{"class": cls},
+        )
+        for c in clades.to_dict("records")
+        for cls in (1, 2)
+    ]
+    fig = plots_ancestral.class_tree(tree, pd.DataFrame(rows), clades, "soil", "two_speed")
+    title = fig.axes[0].get_title(loc="left")
+    assert "nothing to draw" in title and "not fitted on any tree" in title
+    assert "up to 0 trees" not in title
+    assert fig.mkforest_nodes_drawn == 0
+    assert overlaps(fig) == [] and size_problems(fig) == []

@@ -15,6 +15,8 @@ writes it in several formats.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import matplotlib
 
 matplotlib.use("Agg")
@@ -290,60 +292,57 @@ def _axis_and_title(ax, x, n, span, states, clades, analysis, title, rooting, pa
     ax.set_title((title or default) + roots + page, fontsize=style.BODY_TEXT + 1, loc="left")
 
 
-def _legend(
-    ax,
-    colours,
-    labels,
-    trait,
-    analysis,
-    legend_title,
-    ambiguous,
-    unknown,
-    order,
-    placed,
-    by_members,
-    sets,
-    legend_at,
-):
+@dataclass
+class TreeKey:
+    """What the legend of a state tree says: the categories and their colours, the tip
+    marks drawn, the node bars left out, and where the legend sits."""
+
+    colours: dict
+    labels: list  # the categories, in the order of the bars' segments
+    title: str  # the legend's title
+    tip_marks: bool  # tips carry marks (a trait was given)
+    ambiguous: bool  # a tip of several possible states is drawn
+    unknown: bool  # a tip of unknown state is drawn
+    left_out: int  # node bars that found no room
+    axes_height: float  # inches: the legend starts AXIS_H below the axes
+    table: str = "tables/ancestral_states.tsv"  # where the bars' values are
+
+
+def _legend(ax, key: TreeKey) -> None:
     """States, tip marks, clade frequencies and the node bars left out, in one legend of
-    two columns below the axis (legend_at: the axes' height in inches).
-    Returns the number of node bars left out."""
+    two columns below the axis."""
+    colours, labels = key.colours, key.labels
     handles = [Patch(facecolor=colours[s], label=s.replace("+", " + ")) for s in labels]
-    if trait is not None:
-        if ambiguous:
+    if key.tip_marks:
+        if key.ambiguous:
             handles.append(
                 (Patch(facecolor=colours[labels[0]]), Patch(facecolor=colours[labels[-1]]))
             )
-        if unknown:
+        if key.unknown:
             handles.append(Patch(facecolor="white", edgecolor="#777777", hatch=UNKNOWN_HATCH))
     names = [
         h.get_label() if not isinstance(h, tuple) else "tip: several states possible"
         for h in handles
     ]
-    if trait is not None and unknown:
+    if key.tip_marks and key.unknown:
         names[-1] = "tip: state unknown"
     handles.append(Line2D([], [], ls="none", marker="$0.9$", color=SUPPORT_COLOUR, markersize=12))
     names.append(
         "clade frequency in the tree sample\n(written when below 1 and where it fits;"
         "\nall in tables/clades.tsv)"
     )
-    left_out = len([v for v in order if by_members.get(sets[v]) is not None and v not in placed])
-    if left_out:
+    if key.left_out:
         handles.append(Line2D([], [], ls="none"))
         names.append(
-            f"{left_out} node bars left out: branches too\nshort to draw them apart "
-            "(values in\ntables/ancestral_states.tsv)"
-        )
-    if legend_title is None:
-        legend_title = (
-            "state" if trait is None or "+" not in labels[0] else f"{analysis} (joint state)"
+            f"{key.left_out} node bars left out: branches too\nshort to draw them apart "
+            f"(values in\n{key.table})"
         )
     ax.legend(
         handles,
         names,
-        title=legend_title,
+        title=key.title,
         loc="upper left",
-        bbox_to_anchor=(0.0, -AXIS_H / legend_at),
+        bbox_to_anchor=(0.0, -AXIS_H / key.axes_height),
         ncols=2,
         frameon=False,
         fontsize=style.BODY_TEXT,
@@ -351,7 +350,6 @@ def _legend(
         alignment="left",
         handler_map={tuple: HandlerTuple(ndivide=None, pad=0)},
     )
-    return left_out
 
 
 def state_tree(
@@ -366,6 +364,7 @@ def state_tree(
     legend_title: str | None = None,
     rooting: str = "",
     rows: tuple | None = None,
+    table: str = "tables/ancestral_states.tsv",
 ):
     """Summary tree with mean ancestral state probabilities at its nodes.
 
@@ -379,6 +378,7 @@ def state_tree(
     1 is written beside its bar where it touches nothing (all are in clades.tsv).
     colours, title, legend_title: for other categories drawn the same way (hidden classes).
     rooting: how the trees were rooted, in words (data.trees.describe_rooting), in the title.
+    table: the table that holds the bars' values, named in the legend.
 
     Tips that end short of the label column (trees that are not ultrametric) are joined
     to their mark by a dotted leader; a taxon absent from the trait table is hatched like
@@ -421,7 +421,15 @@ def state_tree(
         if v >= tree.n_tips:
             ys = [y[c] for c in kids[v]]
             segments.append([(x[v], min(ys)), (x[v], max(ys))])
-    ax.add_collection(LineCollection(segments, colors=BRANCH_COLOUR, linewidths=0.9, zorder=1))
+    # only the branches that reach the page (the others would be clipped, yet each page's
+    # SVG would carry the whole tree); every branch still takes its place below
+    top, bottom = lo - 0.5 - EDGE, hi - 0.5 + EDGE
+    on_page = [
+        sg
+        for sg in segments
+        if min(sg[0][1], sg[1][1]) <= bottom and max(sg[0][1], sg[1][1]) >= top
+    ]
+    ax.add_collection(LineCollection(on_page, colors=BRANCH_COLOUR, linewidths=0.9, zorder=1))
     branch_boxes = []
     for (xa, ya), (xb, yb) in segments:
         (x0, y0), (x1, y1) = inch(xa, ya), inch(xb, yb)
@@ -436,7 +444,7 @@ def state_tree(
     for row in clades.to_dict("records"):
         if row["kind"] in ("consensus", "sampled", "reference", "named"):
             by_members[frozenset(str(row["members"]).split(","))] = row
-    table = states.set_index(["clade", "state"])["mean_probability"]
+    mean_of = states.set_index(["clade", "state"])["mean_probability"]
     sets = node_clades(tree)
     full_w = BAR_W * per_in
     placed, shown = {}, set()
@@ -445,7 +453,7 @@ def state_tree(
         row = by_members.get(sets[v])
         if row is None:
             continue
-        probs = np.array([float(table.get((row["clade"], s), np.nan)) for s in labels])
+        probs = np.array([float(mean_of.get((row["clade"], s), np.nan)) for s in labels])
         parent_x = x[tree.parent[v]] if v != tree.root else x[v] - 0.6 * full_w
         centre = None
         for scale in (1.0, 0.6):  # a narrower bar where a full one has no room
@@ -498,21 +506,15 @@ def state_tree(
         ax, tree, order, placed, y, per_in, x_lo, inch, occupied, (lo, hi)
     )
 
-    left_out = _legend(
-        ax,
-        colours,
-        labels,
-        trait,
-        analysis,
-        legend_title,
-        ambiguous,
-        unknown,
-        order,
-        placed,
-        by_members,
-        sets,
-        ax_h,
+    left_out = len([v for v in order if by_members.get(sets[v]) is not None and v not in placed])
+    if legend_title is None:
+        legend_title = (
+            "state" if trait is None or "+" not in labels[0] else f"{analysis} (joint state)"
+        )
+    key = TreeKey(
+        colours, labels, legend_title, trait is not None, ambiguous, unknown, left_out, ax_h, table
     )
+    _legend(ax, key)
     legend_h = _legend_height(ax.get_legend())
     height = TOP + ax_h + AXIS_H + legend_h
     fig.set_size_inches(width, height)
@@ -563,12 +565,13 @@ def class_label(cls: int, n_classes: int) -> str:
     return f"class {cls} (fastest)" if cls == n_classes else f"class {cls}"
 
 
-def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str, model: str):
-    """Summary tree with the mean probability of each hidden rate class at its nodes
-    (blue = slow, red = fast), so the clades that sit in the fast class stand out.
+CLASS_TABLE = "tables/ancestral_classes.tsv"  # the values a class tree draws
 
-    classes: ancestral_classes rows of one analysis and model (the per-class rows,
-    ``state`` empty, are drawn; the combined-state rows are left to the table)."""
+
+def _class_drawing(classes: pd.DataFrame, analysis: str, model: str):
+    """The per-class rows of one analysis and model (``state`` empty; the combined-state
+    rows are left to the table), labelled by class, and the keywords that draw them on a
+    state tree: class colours, title, a legend naming the table."""
     rows = classes[classes["state"].isna() | (classes["state"].astype(str) == "")].copy()
     n_classes = int(rows["class"].max()) if len(rows) else 1
     rows["state"] = [class_label(int(c), n_classes) for c in rows["class"]]
@@ -576,17 +579,50 @@ def class_tree(tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str,
     cmap = colormaps[CLASS_PALETTE]  # the map's full range: strong ends
     colours = dict(zip(labels, [cmap(x) for x in np.linspace(0.0, 1.0, n_classes)]))
     n_trees = int(rows["n_trees"].max()) if len(rows) else 0
-    return state_tree(
-        tree,
-        rows,
-        clades,
-        None,
-        analysis,
-        colours=colours,
-        title=f"Hidden rate classes of '{analysis}' under model '{model}': mean "
-        f"probability across trees (up to {n_trees} trees)",
-        legend_title="rate class",
+    title = (
+        f"Hidden rate classes of '{analysis}' under model '{model}': mean "
+        f"probability across trees (up to {n_trees} tree{'' if n_trees == 1 else 's'})"
     )
+    if n_trees == 0:  # the bars would be empty: say why rather than draw a bare tree
+        title = (
+            f"Hidden rate classes of '{analysis}' under model '{model}': nothing to draw,\n"
+            "no tree gives class probabilities (the model was not fitted on any tree; see\n"
+            f"the caution columns of {CLASS_TABLE} and tables/model_support.tsv)"
+        )
+    return rows, dict(
+        colours=colours,
+        title=title,
+        legend_title=f"rate class (values: {CLASS_TABLE}, rows without a state)",
+        table=CLASS_TABLE,
+    )
+
+
+def class_tree(
+    tree,
+    classes: pd.DataFrame,
+    clades: pd.DataFrame,
+    analysis: str,
+    model: str,
+    rooting: str = "",
+    rows: tuple | None = None,
+):
+    """Summary tree with the mean probability of each hidden rate class at its nodes
+    (blue = slow, red = fast), so the clades that sit in the fast class stand out.
+
+    classes: ancestral_classes rows of one analysis and model (the per-class rows,
+    ``state`` empty, are drawn; the combined-state rows are left to the table);
+    rows: (lo, hi), one page of the tips, as in ``state_tree``."""
+    drawn, kwargs = _class_drawing(classes, analysis, model)
+    return state_tree(tree, drawn, clades, None, analysis, rooting=rooting, rows=rows, **kwargs)
+
+
+def class_tree_pages(
+    tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str, model: str, rooting=""
+) -> dict:
+    """{page name: figure} of ``class_tree``, cut into pages as ``state_tree_pages``: ""
+    for the first page, ".part2", ... for the next ones."""
+    drawn, kwargs = _class_drawing(classes, analysis, model)
+    return state_tree_pages(tree, drawn, clades, None, analysis, rooting=rooting, **kwargs)
 
 
 CHANGE_ROW = 0.24  # inches per direction in change_counts (8-point labels)
@@ -606,25 +642,43 @@ def _change_rows(d, pairs) -> dict:
     }
 
 
+# most directions in one panel: an analysis of more (7 states with every rate free: 42;
+# a pair with hidden classes) is split over panels of at most this many rows, each on a
+# page of its own (30 rows and a panel's labels: about 8.8 of the page's 9.7 inches)
+CHANGE_MAX_ROWS = 30
+
+
+def change_panels(rows: dict) -> list:
+    """(analysis, lo, hi, n): the panels of change_counts, the directions lo..hi-1 of an
+    analysis's n in drawing order; an analysis of more than ``CHANGE_MAX_ROWS`` directions
+    shared out evenly over as few panels as keep each within it."""
+    out = []
+    for a, n in rows.items():
+        k = max(1, int(np.ceil(n / CHANGE_MAX_ROWS)))
+        edges = np.linspace(0, n, k + 1).round().astype(int)
+        out += [(a, int(lo), int(hi), n) for lo, hi in zip(edges[:-1], edges[1:])]
+    return out
+
+
 def change_pages(per_tree: pd.DataFrame, pairs: dict | None = None, states: dict | None = None):
     """{page name: figure} of ``change_counts``: "changes", "changes.part2", ...; the
-    analyses in order, as many on a page as fit within ``style.FULL_HEIGHT`` (the suptitle,
-    then each panel's rows and labels), so no page grows with the number of traits."""
-    rows = _change_rows(per_tree, pairs or {})
+    panels (``change_panels``) in order, as many on a page as fit within
+    ``style.FULL_HEIGHT`` (the suptitle, then each panel's rows and labels), so no page
+    grows with the number of traits or of an analysis's directions."""
     pages, height = [[]], 0.6
-    for a, n in rows.items():
-        h = CHANGE_ROW * n + CHANGE_PANEL
+    for panel in change_panels(_change_rows(per_tree, pairs or {})):
+        h = CHANGE_ROW * (panel[2] - panel[1]) + CHANGE_PANEL
         if pages[-1] and height + h > style.FULL_HEIGHT - 0.3:
             pages.append([])
             height = 0.6
-        pages[-1].append(a)
+        pages[-1].append(panel)
         height += h
     out = {}
     for i, group in enumerate(pages):
         part = (i + 1, len(pages)) if len(pages) > 1 else None
-        mine = per_tree[per_tree["analysis"].isin(group)]
+        mine = per_tree[per_tree["analysis"].isin([p[0] for p in group])]
         out["changes" if i == 0 else f"changes.part{i + 1}"] = change_counts(
-            mine, pairs, states, part
+            mine, pairs, states, part, group
         )
     return out
 
@@ -634,12 +688,15 @@ def change_counts(
     pairs: dict | None = None,
     states: dict | None = None,
     part: tuple | None = None,
+    panels: list | None = None,
 ):
     """Expected number of changes per direction across trees, one panel per analysis,
     one row per direction: a box of the trees' values (each tree: the mean over its
     maps) with the trees as points. Changes of both traits of a pair at once are
     impossible by construction and left out. pairs: {pair: (first, second)}; states:
-    {analysis: states in their declared order}, for the order of the rows."""
+    {analysis: states in their declared order}, for the order of the rows; panels:
+    (analysis, lo, hi, n) of ``change_panels``, a panel of the directions lo..hi-1 (every
+    analysis whole when None)."""
     pairs, states = pairs or {}, states or {}
     d = per_tree.copy()
     double = [
@@ -647,9 +704,9 @@ def change_counts(
         for a, f, t in zip(d["analysis"], d["from_state"], d["to_state"])
     ]
     d = d[~np.asarray(double, bool)]
-    rows = _change_rows(per_tree, pairs)
-    analyses = list(rows)
-    n_rows = list(rows.values()) or [1]
+    if panels is None:
+        panels = [(a, 0, n, n) for a, n in _change_rows(per_tree, pairs).items()]
+    n_rows = [hi - lo for _, lo, hi, _ in panels] or [1]
     fig, axes = plt.subplots(
         len(n_rows),
         1,
@@ -658,7 +715,7 @@ def change_counts(
         figsize=(style.FULL_WIDTH, sum(CHANGE_ROW * n + CHANGE_PANEL for n in n_rows) + 0.6),
         gridspec_kw={"height_ratios": [CHANGE_ROW * n + CHANGE_PANEL for n in n_rows]},
     )
-    for ax, a in zip(axes.flat, analyses):
+    for ax, (a, lo, hi, n_directions) in zip(axes.flat, panels):
         g = d[d["analysis"] == a].copy()
         n_all = g["tree"].nunique()
         keys = style.ordered_changes(
@@ -667,12 +724,21 @@ def change_counts(
         label = {k: style.change_label(*k, pairs.get(a)) for k in keys}
 
         g["direction"] = [label[k] for k in zip(g["from_state"], g["to_state"])]
-        order = [label[k] for k in keys]
+        order = [label[k] for k in keys][lo:hi]
+        counts = g["mean_count"].astype(float)
+        whole_max = float(counts[np.isfinite(counts)].max()) if np.isfinite(counts).any() else 0
+        g = g[g["direction"].isin(order)]
+        some = f"; directions {lo + 1}-{hi} of {n_directions}" if hi - lo < n_directions else ""
         # a tree whose every map came from a fit with a rate the data do not bound has no
         # count (mkforest.jobs.ancestral.transition_tables): it is left out of the panel
         g = g[np.isfinite(g["mean_count"].astype(float))]
         if g.empty:
-            ax.set_title(f"{a}", fontsize=style.BODY_TEXT + 1, loc="left", fontweight="bold")
+            ax.set_title(
+                f"{a}{f' ({some[2:]})' if some else ''}",
+                fontsize=style.BODY_TEXT + 1,
+                loc="left",
+                fontweight="bold",
+            )
             ax.text(
                 0.5,
                 0.5,
@@ -696,7 +762,7 @@ def change_counts(
         n_trees = g["tree"].nunique()
         missing = n_all - n_trees
         ax.set_title(
-            f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'})"
+            f"{a} ({n_trees} tree{'' if n_trees == 1 else 's'}{some})"
             + (
                 f"\n{missing} of {n_all} trees left out: every map\nunder a rate the data "
                 "do not bound"
@@ -710,6 +776,8 @@ def change_counts(
         ax.set_ylabel("")
         ax.set_xlabel("changes on the tree (mean of the tree's maps)", fontsize=style.BODY_TEXT)
         ax.set_xlim(left=0)
+        if some and whole_max > 0:  # the panels of one analysis on one scale
+            ax.set_xlim(0, 1.05 * whole_max)
         ax.tick_params(axis="y", labelsize=style.BODY_TEXT, length=0)
         ax.tick_params(axis="x", labelsize=style.BODY_TEXT)
         ax.grid(axis="x", color="#eeeeee", lw=0.6)

@@ -102,8 +102,13 @@ rule plot_ancestral:
             category="Ancestral states",
         ),
         class_trees=[
-            figure(p, caption="../report/class_tree.rst", category="Ancestral states")
-            for p in CLASS_TREE_PLOTS
+            report(
+                directory(p),
+                patterns=["{name}.png"],
+                caption="../report/class_tree.rst",
+                category="Ancestral states",
+            )
+            for p in CLASS_TREE_PAGES
         ],
         changes=report(
             directory(CHANGE_PAGES),

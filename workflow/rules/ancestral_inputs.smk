@@ -51,14 +51,11 @@ ANCESTRAL_TREE_PAGES = f"{OUT}/plots/ancestral_trees"
 CHANGE_PAGES = f"{OUT}/plots/changes"
 
 
-# {analysis: [models with hidden rate classes]}: one class tree per analysis x such model
+# {analysis: [models with hidden rate classes]}: one class tree per analysis x such model,
+# "<analysis>_<model>.png" and ".svg" in one folder, a tree of more tips than a page holds
+# in pages ("<analysis>_<model>.part2.png", ...); no folder when no model has classes
 HIDDEN_CLASS_MODELS = hidden_class_models(config)
-CLASS_TREE_PLOTS = [
-    f"{OUT}/plots/class_tree_{a}_{m}.{ext}"
-    for a, ms in HIDDEN_CLASS_MODELS.items()
-    for m in ms
-    for ext in ("png", "svg")
-]
+CLASS_TREE_PAGES = [f"{OUT}/plots/class_trees"] if HIDDEN_CLASS_MODELS else []
 
 
 def ancestral_targets(wildcards):
@@ -73,7 +70,7 @@ def ancestral_targets(wildcards):
             f"{OUT}/tables/ancestral_classes.tsv",
         ]
         + [ANCESTRAL_TREE_PAGES, CHANGE_PAGES]
-        + CLASS_TREE_PLOTS
+        + CLASS_TREE_PAGES
     )
 
 

@@ -39,7 +39,7 @@ def main(smk):
         ordered = analysis not in pairs and plots_ancestral.is_ordered_trait(
             [m for m, _ in models.values()], trait.k
         )
-        pages = plots_ancestral.state_tree_pages(
+        pages = plots_ancestral.iter_state_tree_pages(  # saved one at a time
             tree,
             states[states["analysis"] == analysis],
             clades,
@@ -48,7 +48,7 @@ def main(smk):
             ordered,
             rooting=describe_rooting(smk.params.rooting),
         )
-        for suffix, fig in pages.items():
+        for suffix, fig in pages:
             style.name_tree_set(fig, named)
             style.show_written_names(fig, names)
             name = f"{analysis}{suffix}"
@@ -75,10 +75,10 @@ def main(smk):
     for analysis, models in smk.params.hidden.items():
         for model in models:
             rows = classes[(classes["analysis"] == analysis) & (classes["model"] == model)]
-            pages = plots_ancestral.class_tree_pages(
+            pages = plots_ancestral.iter_class_tree_pages(
                 tree, rows, clades, analysis, model, rooting=describe_rooting(smk.params.rooting)
             )
-            for suffix, fig in pages.items():
+            for suffix, fig in pages:
                 style.name_tree_set(fig, named)
                 style.show_written_names(fig, names)
                 name = f"{analysis}_{model}{suffix}"

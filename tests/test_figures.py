@@ -612,6 +612,29 @@ def test_class_tree_pages_fit_a_page(tmp_path):
     written(pages[".part2"], tmp_path, "class_tree")
 
 
+def test_tree_pages_are_drawn_one_at_a_time():
+    """The plot job saves and closes each page before the next is drawn, so a tree of
+    many tips holds one figure open, not one per page (a 1000-tip tree's 34 pages tripped
+    Matplotlib's warning of more than 20 open figures). Same pages as the dict form."""
+    import matplotlib.pyplot as plt
+
+    rng = np.random.default_rng(21)
+    tree = random_tree(rng, 90, "Vell")
+    clades, classes = class_table(rng, tree, n_classes=3)
+    plt.close("all")
+    names, most_open = [], 0
+    for name, fig in plots_ancestral.iter_class_tree_pages(
+        tree, classes, clades, "ink", "two_pace"
+    ):
+        most_open = max(most_open, len(plt.get_fignums()))
+        names.append(name)
+        plt.close(fig)
+    assert names == ["", ".part2", ".part3"] and most_open == 1
+    pages = plots_ancestral.class_tree_pages(tree, classes, clades, "ink", "two_pace")
+    assert list(pages) == names and len(plt.get_fignums()) == 3
+    plt.close("all")
+
+
 def test_class_tree_pages_on_polytomies_and_zero_length_branches():
     """Polytomies of three and four, zero-length branches, tips of unequal depth (not a
     time tree): still paged within a journal page, every tip once. (A tree without

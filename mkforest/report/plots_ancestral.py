@@ -541,19 +541,25 @@ def page_rows(tree, n_labels: int) -> list:
     return [(int(a), int(b)) for a, b in zip(edges[:-1], edges[1:])]
 
 
-def state_tree_pages(tree, states: pd.DataFrame, *args, **kwargs) -> dict:
-    """{page name: figure} of ``state_tree``: "" for the first page, ".part2", ... for the
-    next ones (a tree of more tips than a page holds, cut by tips in drawing order)."""
+def iter_state_tree_pages(tree, states: pd.DataFrame, *args, **kwargs):
+    """(page name, figure) of ``state_tree``, one page at a time: "" for the first page,
+    ".part2", ... for the next ones (a tree of more tips than a page holds, cut by tips in
+    drawing order). A page is drawn only when the one before has been taken, so a caller
+    that saves (and closes) each page holds one figure at a time, whatever the tips."""
     n_labels = len(kwargs.get("colours") or {}) or states["state"].nunique()
     if len(args) > 1 and args[1] is not None:  # the trait
         n_labels = max(n_labels, args[1].k)
     rows = page_rows(tree, n_labels)
-    return {
-        "" if i == 0 else f".part{i + 1}": state_tree(
-            tree, states, *args, rows=r if len(rows) > 1 else None, **kwargs
+    for i, r in enumerate(rows):
+        yield (
+            "" if i == 0 else f".part{i + 1}",
+            state_tree(tree, states, *args, rows=r if len(rows) > 1 else None, **kwargs),
         )
-        for i, r in enumerate(rows)
-    }
+
+
+def state_tree_pages(tree, states: pd.DataFrame, *args, **kwargs) -> dict:
+    """{page name: figure} of every page of ``iter_state_tree_pages`` (all open at once)."""
+    return dict(iter_state_tree_pages(tree, states, *args, **kwargs))
 
 
 CLASS_PALETTE = "coolwarm"  # blue = slow, red = fast
@@ -616,13 +622,20 @@ def class_tree(
     return state_tree(tree, drawn, clades, None, analysis, rooting=rooting, rows=rows, **kwargs)
 
 
+def iter_class_tree_pages(
+    tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str, model: str, rooting=""
+):
+    """(page name, figure) of ``class_tree``, one page at a time, cut into pages as
+    ``iter_state_tree_pages``."""
+    drawn, kwargs = _class_drawing(classes, analysis, model)
+    return iter_state_tree_pages(tree, drawn, clades, None, analysis, rooting=rooting, **kwargs)
+
+
 def class_tree_pages(
     tree, classes: pd.DataFrame, clades: pd.DataFrame, analysis: str, model: str, rooting=""
 ) -> dict:
-    """{page name: figure} of ``class_tree``, cut into pages as ``state_tree_pages``: ""
-    for the first page, ".part2", ... for the next ones."""
-    drawn, kwargs = _class_drawing(classes, analysis, model)
-    return state_tree_pages(tree, drawn, clades, None, analysis, rooting=rooting, **kwargs)
+    """{page name: figure} of every page of ``iter_class_tree_pages`` (all open at once)."""
+    return dict(iter_class_tree_pages(tree, classes, clades, analysis, model, rooting))
 
 
 CHANGE_ROW = 0.24  # inches per direction in change_counts (8-point labels)

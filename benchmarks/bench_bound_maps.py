@@ -21,6 +21,7 @@ from __future__ import annotations
 import argparse
 import os
 import re
+import resource
 import subprocess
 import sys
 import tempfile
@@ -124,6 +125,22 @@ def job_times(logs: Path) -> dict:
     return dict(out)
 
 
+def run_workflow(repo: Path, work: Path, cfg: Path, cores: int) -> tuple:
+    """(finished process, wall s, CPU s of Snakemake and every job it waited for): the
+    checkout ``repo``'s Snakefile and package run in ``work`` on config ``cfg``."""
+    snakemake = str(Path(sys.executable).with_name("snakemake"))
+    cmd = [snakemake, "--snakefile", str(repo / "Snakefile"), "--directory", str(work)]
+    cmd += ["--configfile", str(cfg), "--cores", str(cores), "--quiet"]
+    env = dict(os.environ, PYTHONPATH=str(repo))
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    start = time.perf_counter()
+    proc = subprocess.run(cmd, capture_output=True, text=True, env=env)
+    wall = time.perf_counter() - start
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return proc, wall, cpu
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repo", default=str(HERE))
@@ -136,13 +153,7 @@ def main() -> None:
     with tempfile.TemporaryDirectory(prefix="bench_bound_maps_") as tmp:
         work = Path(tmp)
         cfg = write_inputs(work, args.tips, args.trees, args.maps)
-        snakemake = str(Path(sys.executable).with_name("snakemake"))
-        cmd = [snakemake, "--snakefile", str(repo / "Snakefile"), "--directory", str(work)]
-        cmd += ["--configfile", str(cfg), "--cores", str(args.cores), "--quiet"]
-        env = dict(os.environ, PYTHONPATH=str(repo))
-        start = time.perf_counter()
-        proc = subprocess.run(cmd, capture_output=True, text=True, env=env)
-        wall = time.perf_counter() - start
+        proc, wall, _ = run_workflow(repo, work, cfg, args.cores)
         if proc.returncode:
             sys.exit(proc.stderr[-3000:])
         times = job_times(work / "results" / "bounds" / "logs")

@@ -20,13 +20,9 @@ summed wall and CPU seconds from their logs' last lines (where the checkout writ
 from __future__ import annotations
 
 import argparse
-import os
-import resource
 import shutil
-import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
@@ -35,7 +31,7 @@ import yaml
 HERE = Path(__file__).resolve().parent.parent
 sys.path[:0] = [str(HERE), str(HERE / "benchmarks")]  # inputs always from this checkout
 
-from bench_bound_maps import job_times  # noqa: E402
+from bench_bound_maps import job_times, run_workflow  # noqa: E402
 
 
 def write_inputs(work: Path, tips: int, trees: int, maps: int) -> Path:
@@ -105,16 +101,7 @@ def main() -> None:
     with tempfile.TemporaryDirectory(prefix="bench_full_run_") as tmp:
         work = Path(tmp)
         cfg = write_inputs(work, args.tips, args.trees, args.maps)
-        snakemake = str(Path(sys.executable).with_name("snakemake"))
-        cmd = [snakemake, "--snakefile", str(repo / "Snakefile"), "--directory", str(work)]
-        cmd += ["--configfile", str(cfg), "--cores", str(args.cores), "--quiet"]
-        env = dict(os.environ, PYTHONPATH=str(repo))
-        before = resource.getrusage(resource.RUSAGE_CHILDREN)
-        start = time.perf_counter()
-        proc = subprocess.run(cmd, capture_output=True, text=True, env=env)
-        wall = time.perf_counter() - start
-        after = resource.getrusage(resource.RUSAGE_CHILDREN)
-        cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+        proc, wall, cpu = run_workflow(repo, work, cfg, args.cores)
         if args.keep:
             shutil.copytree(work / "results", Path(args.keep) / "results", dirs_exist_ok=True)
             shutil.copy(cfg, Path(args.keep) / "config.yaml")
